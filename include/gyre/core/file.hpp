@@ -1,0 +1,44 @@
+#pragma once
+// File helpers shared by every module. Writes are atomic: a reader (or a crash) sees either the
+// old file or the complete new one, never a half-written file.
+
+#include <cstddef>
+#include <filesystem>
+#include <string>
+#include <string_view>
+
+namespace gyre {
+
+/// Writes to "<path>.tmp.<pid>", then on commit(): flush, fsync, rename over path, fsync the
+/// directory. Destroying an uncommitted AtomicFile removes the temporary and leaves path as it
+/// was. Throws IoError on any failure.
+class AtomicFile {
+ public:
+  explicit AtomicFile(std::filesystem::path path);
+  AtomicFile(const AtomicFile&) = delete;
+  AtomicFile& operator=(const AtomicFile&) = delete;
+  ~AtomicFile();
+
+  void write(const void* data, std::size_t size);
+  void write(std::string_view text) { write(text.data(), text.size()); }
+  /// Bytes written so far.
+  std::size_t size() const noexcept { return size_; }
+  void commit();
+
+ private:
+  void flush_buffer();
+  std::filesystem::path path_;
+  std::filesystem::path temp_;
+  int fd_ = -1;
+  std::size_t size_ = 0;
+  std::string buffer_;
+  bool committed_ = false;
+};
+
+/// Atomically replaces path with bytes.
+void write_file_atomic(const std::filesystem::path& path, std::string_view bytes);
+
+/// Reads a whole file; throws IoError naming the path if it cannot.
+std::string read_file(const std::filesystem::path& path);
+
+}  // namespace gyre
