@@ -1,0 +1,102 @@
+#include "gyre/data/batcher.hpp"
+
+#include <algorithm>
+#include <numeric>
+
+#include "gyre/core/error.hpp"
+
+namespace gyre::data {
+
+std::size_t Batch::tokens() const {
+  std::size_t n = 0;
+  for (int len : lengths) n += static_cast<std::size_t>(len);
+  return n;
+}
+
+std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExample> examples,
+                                                   const BatchPlanOptions& options, std::uint64_t seed,
+                                                   std::uint64_t epoch) {
+  GYRE_CHECK(options.batch_size > 0, "batch_size must be positive");
+  GYRE_CHECK(options.bucket_batches > 0, "bucket_batches must be positive");
+  std::vector<std::size_t> order(examples.size());
+  std::iota(order.begin(), order.end(), std::size_t{0});
+  Rng rng(seed ^ (0xD1B54A32D192ED03ULL * (epoch + 1)));
+  if (options.shuffle) rng.shuffle(std::span<std::size_t>(order));
+
+  const auto batch_size = static_cast<std::size_t>(options.batch_size);
+  const std::size_t chunk = batch_size * static_cast<std::size_t>(options.bucket_batches);
+  for (std::size_t begin = 0; begin < order.size(); begin += chunk) {
+    const auto first = order.begin() + static_cast<std::ptrdiff_t>(begin);
+    const auto last = order.begin() + static_cast<std::ptrdiff_t>(std::min(order.size(), begin + chunk));
+    // stable_sort keeps the shuffled order among equal lengths: deterministic and still random.
+    std::stable_sort(first, last, [&](std::size_t a, std::size_t b) {
+      return examples[a].ids.size() < examples[b].ids.size();
+    });
+  }
+  std::vector<std::vector<std::size_t>> batches;
+  batches.reserve((order.size() + batch_size - 1) / batch_size);
+  for (std::size_t begin = 0; begin < order.size(); begin += batch_size) {
+    const std::size_t end = std::min(order.size(), begin + batch_size);
+    batches.emplace_back(order.begin() + static_cast<std::ptrdiff_t>(begin),
+                         order.begin() + static_cast<std::ptrdiff_t>(end));
+  }
+  if (options.shuffle) rng.shuffle(std::span<std::vector<std::size_t>>(batches));
+  return batches;
+}
+
+void fill_batch(std::span<const EncodedExample> examples, std::span<const std::size_t> indices, Batch& batch,
+                int max_length) {
+  GYRE_CHECK(!indices.empty(), "a batch needs at least one example");
+  batch.batch = static_cast<int>(indices.size());
+  batch.lengths.resize(indices.size());
+  batch.examples.assign(indices.begin(), indices.end());
+  int longest = 0;
+  for (std::size_t b = 0; b < indices.size(); ++b) {
+    int len = static_cast<int>(examples[indices[b]].ids.size());
+    GYRE_CHECK(len > 0, "an encoded example has no tokens");
+    if (max_length > 0) len = std::min(len, max_length);
+    batch.lengths[b] = len;
+    longest = std::max(longest, len);
+  }
+  batch.max_len = longest;
+  const auto B = indices.size();
+  batch.ids.assign(static_cast<std::size_t>(longest) * B, 0);
+  for (std::size_t b = 0; b < B; ++b) {
+    const auto& ids = examples[indices[b]].ids;
+    for (int t = 0; t < batch.lengths[b]; ++t) batch.ids[static_cast<std::size_t>(t) * B + b] = ids[static_cast<std::size_t>(t)];
+  }
+}
+
+std::vector<Window> make_windows(const Batch& batch, int window) {
+  const int K = window > 0 ? window : batch.max_len;
+  const int count = (batch.max_len + K - 1) / K;
+  std::vector<Window> windows(static_cast<std::size_t>(count));
+  for (int w = 0; w < count; ++w) {
+    Window& win = windows[static_cast<std::size_t>(w)];
+    win.start.resize(static_cast<std::size_t>(batch.batch));
+    win.lengths.resize(static_cast<std::size_t>(batch.batch));
+    win.last = (w == count - 1);
+    const int from_end = count - w;  // window w covers [len - from_end*K, len - (from_end-1)*K)
+    for (int b = 0; b < batch.batch; ++b) {
+      const int len = batch.lengths[static_cast<std::size_t>(b)];
+      const int end = std::max(0, len - (from_end - 1) * K);
+      const int start = std::max(0, len - from_end * K);
+      win.start[static_cast<std::size_t>(b)] = start;
+      win.lengths[static_cast<std::size_t>(b)] = end - start;
+      win.max_len = std::max(win.max_len, end - start);
+    }
+  }
+  return windows;
+}
+
+void window_ids(const Batch& batch, const Window& window, std::vector<std::int32_t>& ids) {
+  const auto B = static_cast<std::size_t>(batch.batch);
+  ids.assign(static_cast<std::size_t>(window.max_len) * B, 0);
+  for (std::size_t b = 0; b < B; ++b) {
+    const int start = window.start[b];
+    for (int t = 0; t < window.lengths[b]; ++t)
+      ids[static_cast<std::size_t>(t) * B + b] = batch.ids[static_cast<std::size_t>(start + t) * B + b];
+  }
+}
+
+}  // namespace gyre::data
