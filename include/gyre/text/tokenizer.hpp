@@ -1,0 +1,40 @@
+#pragma once
+// The tokenizer of the training library is the runtime's (include/gyre/runtime/tokenizer.hpp),
+// re-exported here with JSON conversion of its settings and a helper that reports bad text as
+// gyre::ParseError with file and line.
+//
+// JSON form of TokenizerSettings (also read by the runtime; see DEVELOPERS.md "Tokenizer keys"):
+//   {"mode": "words"|"chars"|"whitespace", "nfkc": bool, "case_fold": bool,
+//    "fold_digits": bool, "keep_punctuation": bool, "max_tokens": unsigned integer}
+// Every key is optional on input (missing keys keep their defaults); unknown keys are refused.
+
+#include <cstddef>
+#include <string>
+#include <string_view>
+#include <vector>
+
+#include <nlohmann/json_fwd.hpp>
+
+#include "gyre/runtime/tokenizer.hpp"
+
+namespace gyre::text {
+
+using runtime::is_valid_utf8;
+using runtime::to_string;
+using runtime::Tokenizer;
+using runtime::tokenizer_mode_from_string;
+using runtime::TokenizerMode;
+using runtime::TokenizerSettings;
+
+/// tokenizer.tokenize(text, out), but a runtime::Error (invalid UTF-8 ...) becomes
+/// gyre::ParseError("path:line: ...").
+void tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_view path, std::size_t line,
+                 std::vector<std::string>& out);
+
+}  // namespace gyre::text
+
+namespace gyre::runtime {
+// Found by ADL for nlohmann::json; from_json throws gyre::ConfigError naming the bad key.
+void to_json(nlohmann::json& j, const TokenizerSettings& settings);
+void from_json(const nlohmann::json& j, TokenizerSettings& settings);
+}  // namespace gyre::runtime
