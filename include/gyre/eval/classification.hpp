@@ -1,0 +1,138 @@
+#pragma once
+// Classification metrics: accuracy, per-class precision/recall/F1/support, macro/micro/weighted
+// averages, confusion matrix, log loss and expected calibration error; multi-label per-label and
+// averaged scores at a decision threshold. Pure functions over ids and probabilities: no model,
+// no Eigen. Results render as JSON (same numbers as the table) and as an aligned text table.
+//
+// Conventions (each checked against Debian's python3-sklearn 1.2.1 by
+// tools/make_metric_fixtures.py -> tests/fixtures/metrics/):
+// - Zero division: a class never predicted gets precision 0; a class absent from gold gets
+//   recall 0; F1 is 0 when precision + recall is 0. This is what sklearn returns with its default
+//   zero_division="warn" (it warns and uses 0).
+// - Single-label averages run over the classes that occur in gold OR predictions ("present"),
+//   as sklearn does when no explicit label list is given; a class of the model that occurs in
+//   neither is listed with zeros but does not pull the macro average down.
+// - Multi-label averages run over all labels (sklearn does the same for indicator matrices).
+// - Micro P/R/F1 pool true positives, predictions and gold over the averaged classes; for
+//   single-label data they all equal accuracy when every class is present.
+// - Weighted averages weight each class by its gold support.
+
+#include <cstddef>
+#include <cstdint>
+#include <optional>
+#include <span>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json_fwd.hpp>
+
+namespace gyre::eval {
+
+/// Log loss clips every probability to [eps, 1 - eps] and then renormalises each row to sum 1,
+/// as sklearn 1.2 log_loss does. eps = 2^-23, float32 machine epsilon: what sklearn 1.2's
+/// eps="auto" picks for float32 probabilities (ours are float32).
+inline constexpr double kLogLossEpsilon = 1.1920928955078125e-07;
+
+/// Expected calibration error (Guo et al. 2017, "On Calibration of Modern Neural Networks",
+/// eq. 3) uses M = 15 equal-width confidence bins ((m-1)/M, m/M] — the bin count of that paper and
+/// the common choice since.
+inline constexpr int kCalibrationBins = 15;
+
+/// Scores of one class (or one label in multi-label data).
+struct ClassScores {
+  std::string name;
+  double precision = 0.0;
+  double recall = 0.0;
+  double f1 = 0.0;
+  std::int64_t support = 0;    // gold occurrences
+  std::int64_t predicted = 0;  // predicted occurrences
+  std::int64_t correct = 0;    // true positives
+  bool present = false;        // occurs in gold or predictions: takes part in the averages
+};
+
+struct AverageScores {
+  double precision = 0.0;
+  double recall = 0.0;
+  double f1 = 0.0;
+};
+
+/// One confidence bin of the reliability diagram behind the ECE.
+struct CalibrationBin {
+  double lower = 0.0;  // bin is (lower, upper]
+  double upper = 0.0;
+  std::int64_t count = 0;
+  double mean_confidence = 0.0;  // 0 when count == 0
+  double accuracy = 0.0;         // 0 when count == 0
+};
+
+struct ClassificationMetrics {
+  std::vector<ClassScores> classes;  // one per class id, in id order
+  std::int64_t examples = 0;
+  std::int64_t correct = 0;
+  double accuracy = 0.0;
+  AverageScores macro;
+  AverageScores micro;
+  AverageScores weighted;
+  /// [C x C] row-major counts: row = gold id, column = predicted id.
+  std::vector<std::int64_t> confusion;
+  /// Present only when probabilities were given.
+  std::optional<double> log_loss;
+  std::optional<double> calibration_error;
+  std::vector<CalibrationBin> calibration_bins;  // empty without probabilities
+
+  std::size_t num_classes() const noexcept { return classes.size(); }
+  std::int64_t confusion_at(std::size_t gold, std::size_t predicted) const;
+  /// {"task":"classification","examples":..,"accuracy":..,"classes":[{name,precision,recall,
+  ///  f1,support,predicted,correct,present}],"macro":{precision,recall,f1},"micro":..,
+  ///  "weighted":..,"confusion":{"labels":[..],"counts":[[..]]},"log_loss":..,
+  ///  "calibration":{"bins":15,"error":..,"reliability":[..]}} (last two only with probabilities)
+  nlohmann::json to_json() const;
+  /// Aligned plain-text table, one row per class, then the averages and accuracy; ends in '\n'.
+  std::string to_table(int decimals = 4) const;
+  /// The confusion matrix as an aligned text table (gold down, predicted across).
+  std::string confusion_table() const;
+};
+
+/// Computes every metric. gold and predicted hold class ids in [0, class_names.size()), one per
+/// example. probabilities, if not empty, is [N x C] row-major (row i = example i's distribution)
+/// and adds log loss and ECE. Throws gyre::Error on size mismatch or an out-of-range id, and on
+/// a non-finite or negative probability.
+ClassificationMetrics classification_metrics(std::span<const std::int32_t> gold,
+                                             std::span<const std::int32_t> predicted,
+                                             std::span<const std::string> class_names,
+                                             std::span<const float> probabilities = {});
+
+/// Mean negative log-likelihood of the gold ids under the (clipped, renormalised) rows.
+double log_loss(std::span<const std::int32_t> gold, std::span<const float> probabilities,
+                std::size_t num_classes, double eps = kLogLossEpsilon);
+
+/// ECE of Guo et al. 2017: confidence = max of the row, prediction = its argmax (lowest id on a
+/// tie), ECE = sum_m |B_m|/N * |acc(B_m) - conf(B_m)|. bins_out (optional) receives the bins.
+double expected_calibration_error(std::span<const std::int32_t> gold, std::span<const float> probabilities,
+                                  std::size_t num_classes, int bins = kCalibrationBins,
+                                  std::vector<CalibrationBin>* bins_out = nullptr);
+
+struct MultiLabelMetrics {
+  std::vector<ClassScores> labels;  // one per label id; all take part in the averages
+  std::int64_t examples = 0;
+  double threshold = 0.5;  // label predicted when score >= threshold (NaN when decisions given)
+  AverageScores macro;
+  AverageScores micro;
+  AverageScores weighted;
+  /// Fraction of examples whose predicted label set equals the gold set exactly.
+  double exact_match = 0.0;
+
+  nlohmann::json to_json() const;
+  std::string to_table(int decimals = 4) const;
+};
+
+/// Multi-label scores. gold is a [N x L] row-major 0/1 indicator matrix; scores is [N x L] (e.g.
+/// per-label sigmoid probabilities); a label is predicted when its score >= threshold.
+MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
+                                     std::span<const std::string> label_names, double threshold = 0.5);
+/// Same from already-made 0/1 decisions [N x L].
+MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t> gold,
+                                                    std::span<const std::uint8_t> predicted,
+                                                    std::span<const std::string> label_names);
+
+}  // namespace gyre::eval
