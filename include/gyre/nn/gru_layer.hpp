@@ -1,0 +1,45 @@
+#pragma once
+// GRU (Cho et al. 2014) in the "reset after" form (DEVELOPERS.md): rows stacked [r z n],
+//   r = sig(W_r x + b_ir + U_r h + b_hr),  z = sig(W_z x + b_iz + U_z h + b_hz)
+//   n = tanh(W_n x + b_in + r * (U_n h + b_hn)),  h' = (1 - z) * n + z * h
+// so the three recurrent gates come from one U h GEMM per step. Cho et al. apply r to h before
+// U_n; this variant is the one cuDNN-style implementations (and torch.nn.GRU) use.
+// Parameters "<prefix>.w_input" [3H x D], "<prefix>.w_hidden" [3H x H], "<prefix>.bias" [1 x 3H]
+// (input side b_i*), "<prefix>.bias_hidden" [1 x 3H] (hidden side b_h*).
+
+#include <memory>
+#include <string>
+
+#include "gyre/nn/recurrent_layer.hpp"
+
+namespace gyre::nn {
+
+class GruLayer final : public RecurrentLayer {
+ public:
+  GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size, bool reverse = false);
+  ~GruLayer() override;
+
+  CellType cell() const noexcept override { return CellType::kGru; }
+  int input_size() const noexcept override { return input_size_; }
+  int hidden_size() const noexcept override { return hidden_size_; }
+  bool reverse() const noexcept override { return reverse_; }
+  void init_parameters(Rng& rng) override;
+  void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out, const Matrix* h0 = nullptr,
+               const Matrix* c0 = nullptr, Matrix* h_final = nullptr, Matrix* c_final = nullptr) override;
+  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false, Matrix* d_h0 = nullptr,
+                Matrix* d_c0 = nullptr) override;
+
+  std::size_t workspace_capacity() const noexcept;
+
+ private:
+  struct Workspace;
+  int input_size_, hidden_size_;
+  bool reverse_;
+  Parameter& w_input_;
+  Parameter& w_hidden_;
+  Parameter& bias_;
+  Parameter& bias_hidden_;
+  std::unique_ptr<Workspace> ws_;
+};
+
+}  // namespace gyre::nn

@@ -1,0 +1,55 @@
+#pragma once
+// One direction of one recurrent layer over a time-major batch (DEVELOPERS.md "Numerical
+// conventions"): x is [T*B x D], row t*B + b is sequence b at step t, lengths[b] in 1..T valid
+// steps. A forward layer visits t = 0 .. len_b-1; a reverse layer visits t = len_b-1 .. 0 (each
+// sequence's own valid steps, so padding never feeds the state). Padded rows of the output are
+// zero, padded steps leave the state unchanged and receive no gradient, so a sequence's outputs and
+// gradients do not depend on its batch neighbours or on the amount of padding.
+//
+// Buffers for backward are sized on the first call for a batch shape and only ever grow: a repeat
+// call with the same or a smaller shape allocates nothing. One layer object is not thread-safe;
+// data-parallel training uses one replica per thread.
+
+#include <span>
+
+#include "gyre/core/rng.hpp"
+#include "gyre/nn/parameter.hpp"
+#include "gyre/nn/tensor.hpp"
+
+namespace gyre::nn {
+
+enum class CellType { kLstm, kGru };
+
+class RecurrentLayer {
+ public:
+  virtual ~RecurrentLayer() = default;
+  RecurrentLayer() = default;
+  RecurrentLayer(const RecurrentLayer&) = delete;
+  RecurrentLayer& operator=(const RecurrentLayer&) = delete;
+
+  virtual CellType cell() const noexcept = 0;
+  virtual int input_size() const noexcept = 0;
+  virtual int hidden_size() const noexcept = 0;
+  virtual bool reverse() const noexcept = 0;
+  /// Glorot uniform w_input, orthogonal w_hidden (per gate), biases zero except the LSTM forget
+  /// gate bias = 1 (DEVELOPERS.md).
+  virtual void init_parameters(Rng& rng) = 0;
+
+  /// x: [T*B x input_size]; it is NOT copied: it must stay alive and unchanged until backward().
+  /// out: [T*B x hidden_size] (may be a column block of a wider buffer), written completely.
+  /// h0/c0: optional initial state [B x H] (nullptr = zeros; c0 ignored by GRU).
+  /// h_final/c_final: optional, receive the state after each sequence's last processed step
+  /// (for a reverse layer: after t = 0). Throws gyre::Error on inconsistent shapes.
+  virtual void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
+                       const Matrix* h0 = nullptr, const Matrix* c0 = nullptr, Matrix* h_final = nullptr,
+                       Matrix* c_final = nullptr) = 0;
+
+  /// d_out: [T*B x H] gradient of the loss w.r.t. out (padded rows ignored). Adds parameter
+  /// gradients into the store. d_x (optional): [T*B x D], overwritten, or added to when
+  /// accumulate_dx. d_h0/d_c0 (optional): gradient w.r.t. the initial state. The gradient w.r.t.
+  /// the final state is taken as zero (truncated BPTT cuts it at the window boundary).
+  virtual void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
+                        Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) = 0;
+};
+
+}  // namespace gyre::nn
