@@ -1,0 +1,457 @@
+#include "gyre/runtime/tokenizer.hpp"
+
+#include <cstdint>
+#include <cstring>
+#include <limits>
+#include <memory>
+#include <string>
+
+#include "runtime/detail/segment.hpp"
+
+#ifdef GYRE_RUNTIME_HAS_ICU
+#include <unicode/brkiter.h>
+#include <unicode/bytestream.h>
+#include <unicode/casemap.h>
+#include <unicode/locid.h>
+#include <unicode/normalizer2.h>
+#include <unicode/uchar.h>
+#include <unicode/utext.h>
+#endif
+
+namespace gyre::runtime {
+
+namespace detail {
+
+std::size_t first_invalid_utf8(std::string_view utf8) noexcept {
+  const auto* p = reinterpret_cast<const unsigned char*>(utf8.data());
+  const std::size_t n = utf8.size();
+  std::size_t i = 0;
+  while (i < n) {
+    // ASCII runs, 8 bytes at a time when aligned data allows (memcpy keeps it portable).
+    while (i + 8 <= n) {
+      std::uint64_t word;
+      std::memcpy(&word, p + i, 8);
+      if (word & 0x8080808080808080ULL) break;
+      i += 8;
+    }
+    if (i >= n) break;
+    const unsigned char c = p[i];
+    if (c < 0x80) {
+      ++i;
+      continue;
+    }
+    // Unicode 15.0 Table 3-7 "Well-Formed UTF-8 Byte Sequences".
+    std::size_t len = 0;
+    unsigned char lo = 0x80, hi = 0xBF;
+    if (c >= 0xC2 && c <= 0xDF) {
+      len = 2;
+    } else if (c == 0xE0) {
+      len = 3, lo = 0xA0;
+    } else if ((c >= 0xE1 && c <= 0xEC) || c == 0xEE || c == 0xEF) {
+      len = 3;
+    } else if (c == 0xED) {
+      len = 3, hi = 0x9F;
+    } else if (c == 0xF0) {
+      len = 4, lo = 0x90;
+    } else if (c >= 0xF1 && c <= 0xF3) {
+      len = 4;
+    } else if (c == 0xF4) {
+      len = 4, hi = 0x8F;
+    } else {
+      return i;
+    }
+    if (n - i < len || p[i + 1] < lo || p[i + 1] > hi) return i;
+    for (std::size_t k = 2; k < len; ++k)
+      if ((p[i + k] & 0xC0) != 0x80) return i;
+    i += len;
+  }
+  return std::string_view::npos;
+}
+
+}  // namespace detail
+
+namespace {
+
+// Decodes the code point at s[i] of well-formed UTF-8 and advances i past it.
+inline char32_t next_code_point(std::string_view s, std::size_t& i) {
+  const auto c = static_cast<unsigned char>(s[i]);
+  auto cont = [&](std::size_t k) {
+    return static_cast<char32_t>(static_cast<unsigned char>(s[i + k]) & 0x3F);
+  };
+  char32_t cp;
+  if (c < 0x80) {
+    cp = c;
+    i += 1;
+  } else if (c < 0xE0) {
+    cp = (static_cast<char32_t>(c & 0x1F) << 6) | cont(1);
+    i += 2;
+  } else if (c < 0xF0) {
+    cp = (static_cast<char32_t>(c & 0x0F) << 12) | (cont(1) << 6) | cont(2);
+    i += 3;
+  } else {
+    cp = (static_cast<char32_t>(c & 0x07) << 18) | (cont(1) << 12) | (cont(2) << 6) | cont(3);
+    i += 4;
+  }
+  return cp;
+}
+
+void check_utf8(std::string_view utf8) {
+  const std::size_t bad = detail::first_invalid_utf8(utf8);
+  if (bad != std::string_view::npos)
+    throw Error("invalid UTF-8 at byte " + std::to_string(bad) + " of the text");
+  // ICU takes int32_t lengths.
+  if (utf8.size() > static_cast<std::size_t>(std::numeric_limits<std::int32_t>::max() / 4))
+    throw Error("text of " + std::to_string(utf8.size()) + " bytes is too long to tokenize (limit 512 MiB)");
+}
+
+bool is_ascii(std::string_view s) noexcept {
+  std::size_t i = 0;
+  const std::size_t n = s.size();
+  for (; i + 8 <= n; i += 8) {
+    std::uint64_t word;
+    std::memcpy(&word, s.data() + i, 8);
+    if (word & 0x8080808080808080ULL) return false;
+  }
+  for (; i < n; ++i)
+    if (static_cast<unsigned char>(s[i]) >= 0x80) return false;
+  return true;
+}
+
+bool is_punctuation(char32_t c) noexcept {
+#ifdef GYRE_RUNTIME_HAS_ICU
+  return u_ispunct(static_cast<UChar32>(c)) != 0;  // General_Category P*
+#else
+  (void)c;
+  return false;  // unreachable: keep_punctuation=false is refused without ICU
+#endif
+}
+
+enum class SegmentClass { kWhitespace, kPunctuation, kOther };
+
+// Whitespace: every code point White_Space; punctuation: every code point P*.
+SegmentClass classify(std::string_view seg) noexcept {
+  bool all_space = true, all_punct = true;
+  for (std::size_t i = 0; i < seg.size();) {
+    const auto c0 = static_cast<unsigned char>(seg[i]);
+    if ((c0 >= 'a' && c0 <= 'z') || (c0 >= 'A' && c0 <= 'Z') || (c0 >= '0' && c0 <= '9'))
+      return SegmentClass::kOther;
+    const char32_t cp = next_code_point(seg, i);
+    all_space = all_space && detail::is_white_space(cp);
+    all_punct = all_punct && is_punctuation(cp);
+    if (!all_space && !all_punct) return SegmentClass::kOther;
+  }
+  if (seg.empty()) return SegmentClass::kOther;
+  return all_space ? SegmentClass::kWhitespace : SegmentClass::kPunctuation;
+}
+
+// Appends tokens to out while reusing the strings already in it (their capacity survives).
+class Emitter {
+ public:
+  Emitter(std::vector<std::string>& out, std::size_t max_tokens) : out_(out), max_(max_tokens) {}
+  bool full() const noexcept { return max_ != 0 && count_ >= max_; }
+  std::size_t count() const noexcept { return count_; }
+  void emit(std::string_view token) {
+    if (count_ < out_.size())
+      out_[count_].assign(token.data(), token.size());
+    else
+      out_.emplace_back(token);
+    ++count_;
+  }
+  void finish() { out_.resize(count_); }
+
+ private:
+  std::vector<std::string>& out_;
+  std::size_t max_;
+  std::size_t count_ = 0;
+};
+
+void split_whitespace(std::string_view text, bool keep_punctuation, Emitter& emit) {
+  std::size_t start = 0, i = 0;
+  auto flush = [&](std::size_t end) {
+    if (end > start) {
+      const std::string_view token = text.substr(start, end - start);
+      if (keep_punctuation || classify(token) != SegmentClass::kPunctuation) emit.emit(token);
+    }
+  };
+  while (i < text.size() && !emit.full()) {
+    const std::size_t at = i;
+    const char32_t cp = next_code_point(text, i);
+    if (detail::is_white_space(cp)) {
+      flush(at);
+      start = i;
+    }
+  }
+  if (!emit.full()) flush(text.size());
+}
+
+#ifdef GYRE_RUNTIME_HAS_ICU
+
+void check_icu(UErrorCode status, const char* what) {
+  if (U_FAILURE(status)) throw Error(std::string("ICU failed in ") + what + ": " + u_errorName(status));
+}
+
+// ICU objects are not thread-safe (break iterators) or are costly to create, so each thread
+// keeps its own set, shared by every Tokenizer (they do not depend on the settings).
+struct IcuState {
+  std::unique_ptr<icu::BreakIterator> word, grapheme;
+  UText text = UTEXT_INITIALIZER;
+  std::string buffers[2];
+  IcuState() = default;
+  IcuState(const IcuState&) = delete;
+  IcuState& operator=(const IcuState&) = delete;
+  ~IcuState() { utext_close(&text); }
+
+  icu::BreakIterator& iterator(detail::BreakKind kind) {
+    auto& slot = kind == detail::BreakKind::kWord ? word : grapheme;
+    if (!slot) {
+      UErrorCode status = U_ZERO_ERROR;
+      slot.reset(kind == detail::BreakKind::kWord
+                     ? icu::BreakIterator::createWordInstance(icu::Locale::getRoot(), status)
+                     : icu::BreakIterator::createCharacterInstance(icu::Locale::getRoot(), status));
+      if (U_FAILURE(status)) slot.reset();
+      check_icu(status, "creating a break iterator");
+    }
+    return *slot;
+  }
+
+  // Points the iterator at text (which must outlive the iteration); boundaries are byte offsets.
+  icu::BreakIterator& attach(detail::BreakKind kind, std::string_view utf8) {
+    icu::BreakIterator& it = iterator(kind);
+    UErrorCode status = U_ZERO_ERROR;
+    utext_openUTF8(&text, utf8.data(), static_cast<std::int64_t>(utf8.size()), &status);
+    check_icu(status, "opening text");
+    it.setText(&text, status);
+    check_icu(status, "setting break iterator text");
+    return it;
+  }
+};
+
+IcuState& icu_state() {
+  thread_local IcuState state;
+  return state;
+}
+
+const icu::Normalizer2& nfkc_instance() {
+  UErrorCode status = U_ZERO_ERROR;
+  const icu::Normalizer2* n = icu::Normalizer2::getNFKCInstance(status);
+  check_icu(status, "loading NFKC data");
+  return *n;
+}
+
+// Calls fn(begin, end) for each segment (byte offsets) of utf8 until fn returns false.
+template <typename Fn>
+void for_each_segment(IcuState& state, detail::BreakKind kind, std::string_view utf8, Fn&& fn) {
+  icu::BreakIterator& it = state.attach(kind, utf8);
+  std::int32_t start = it.first();
+  for (std::int32_t end = it.next(); end != icu::BreakIterator::DONE; start = end, end = it.next())
+    if (!fn(static_cast<std::size_t>(start), static_cast<std::size_t>(end))) break;
+}
+
+// NFKC, case fold, digit fold into the thread's buffers; returns a view of the result (valid
+// until the next call on this thread). Input must be well-formed UTF-8.
+std::string_view normalize_view(std::string_view in, const TokenizerSettings& settings, IcuState& state) {
+  std::string_view cur = in;
+  // ASCII is invariant under NFKC (UAX #15: every ASCII character is its own decomposition and
+  // no composition starts from ASCII alone), and full case folding maps exactly A-Z to a-z in
+  // ASCII (CaseFolding.txt), so ASCII-only text takes these shortcuts with identical results.
+  const bool ascii = is_ascii(in);
+  int next = 0;
+  auto target = [&]() -> std::string& {
+    std::string& t = state.buffers[next];
+    next ^= 1;
+    t.clear();
+    return t;
+  };
+  if (settings.nfkc && !ascii) {
+    std::string& t = target();
+    icu::StringByteSink<std::string> sink(&t, static_cast<std::int32_t>(cur.size()));
+    UErrorCode status = U_ZERO_ERROR;
+    nfkc_instance().normalizeUTF8(0, icu::StringPiece(cur.data(), static_cast<std::int32_t>(cur.size())),
+                                  sink, nullptr, status);
+    check_icu(status, "NFKC normalization");
+    cur = t;
+  }
+  if (settings.case_fold) {
+    std::string& t = target();
+    if (ascii) {
+      t.assign(cur.data(), cur.size());
+      for (char& c : t)
+        if (c >= 'A' && c <= 'Z') c = static_cast<char>(c + ('a' - 'A'));
+    } else {
+      icu::StringByteSink<std::string> sink(&t, static_cast<std::int32_t>(cur.size()));
+      UErrorCode status = U_ZERO_ERROR;
+      icu::CaseMap::utf8Fold(U_FOLD_CASE_DEFAULT,
+                             icu::StringPiece(cur.data(), static_cast<std::int32_t>(cur.size())), sink,
+                             nullptr, status);
+      check_icu(status, "case folding");
+    }
+    cur = t;
+  }
+  if (settings.fold_digits) {
+    std::string& t = target();
+    t.reserve(cur.size());
+    for (std::size_t i = 0; i < cur.size();) {
+      const auto c = static_cast<unsigned char>(cur[i]);
+      if (c < 0x80) {
+        t.push_back(c >= '0' && c <= '9' ? '0' : static_cast<char>(c));
+        ++i;
+        continue;
+      }
+      const std::size_t at = i;
+      const char32_t cp = next_code_point(cur, i);
+      if (u_charType(static_cast<UChar32>(cp)) == U_DECIMAL_DIGIT_NUMBER)
+        t.push_back('0');
+      else
+        t.append(cur.data() + at, i - at);
+    }
+    cur = t;
+  }
+  return cur;
+}
+
+#endif  // GYRE_RUNTIME_HAS_ICU
+
+}  // namespace
+
+const char* to_string(TokenizerMode mode) {
+  switch (mode) {
+    case TokenizerMode::kWords:
+      return "words";
+    case TokenizerMode::kChars:
+      return "chars";
+    case TokenizerMode::kWhitespace:
+      return "whitespace";
+  }
+  return "?";
+}
+
+TokenizerMode tokenizer_mode_from_string(std::string_view name) {
+  if (name == "words") return TokenizerMode::kWords;
+  if (name == "chars") return TokenizerMode::kChars;
+  if (name == "whitespace") return TokenizerMode::kWhitespace;
+  throw Error("unknown tokenizer mode '" + std::string(name) + "' (expected words, chars or whitespace)");
+}
+
+bool is_valid_utf8(std::string_view text) noexcept {
+  return detail::first_invalid_utf8(text) == std::string_view::npos;
+}
+
+bool tokenizer_has_icu() noexcept {
+#ifdef GYRE_RUNTIME_HAS_ICU
+  return true;
+#else
+  return false;
+#endif
+}
+
+Tokenizer::Tokenizer(const TokenizerSettings& settings) : settings_(settings) {
+#ifdef GYRE_RUNTIME_HAS_ICU
+  if (settings_.nfkc) (void)nfkc_instance();  // fail now, not at the first text
+#else
+  const char* needs = nullptr;
+  if (settings_.mode != TokenizerMode::kWhitespace)
+    needs = settings_.mode == TokenizerMode::kWords ? "tokenizer mode 'words'" : "tokenizer mode 'chars'";
+  else if (settings_.nfkc)
+    needs = "NFKC normalization";
+  else if (settings_.case_fold)
+    needs = "case folding";
+  else if (settings_.fold_digits)
+    needs = "digit folding";
+  else if (!settings_.keep_punctuation)
+    needs = "dropping punctuation";
+  if (needs)
+    throw Error(std::string(needs) +
+                " needs ICU, but this runtime was built without it (GYRE_RUNTIME_ICU=OFF)");
+#endif
+}
+
+std::string Tokenizer::normalize(std::string_view utf8) const {
+  check_utf8(utf8);
+#ifdef GYRE_RUNTIME_HAS_ICU
+  return std::string(normalize_view(utf8, settings_, icu_state()));
+#else
+  return std::string(utf8);  // the constructor allows no normalization without ICU
+#endif
+}
+
+void Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) const {
+  check_utf8(utf8);
+  Emitter emit(out, settings_.max_tokens);
+  try {
+#ifdef GYRE_RUNTIME_HAS_ICU
+    IcuState& state = icu_state();
+    const std::string_view text = normalize_view(utf8, settings_, state);
+    const bool keep_punct = settings_.keep_punctuation;
+    switch (settings_.mode) {
+      case TokenizerMode::kWords:
+        for_each_segment(state, detail::BreakKind::kWord, text, [&](std::size_t begin, std::size_t end) {
+          const std::string_view seg = text.substr(begin, end - begin);
+          const SegmentClass cls = classify(seg);
+          if (cls == SegmentClass::kWhitespace || (cls == SegmentClass::kPunctuation && !keep_punct))
+            return true;
+          emit.emit(seg);
+          return !emit.full();
+        });
+        break;
+      case TokenizerMode::kChars: {
+        bool pending_space = false;
+        for_each_segment(state, detail::BreakKind::kGrapheme, text, [&](std::size_t begin, std::size_t end) {
+          const std::string_view seg = text.substr(begin, end - begin);
+          const SegmentClass cls = classify(seg);
+          if (cls == SegmentClass::kWhitespace) {
+            pending_space = pending_space || emit.count() > 0;
+            return true;
+          }
+          if (cls == SegmentClass::kPunctuation && !keep_punct) return true;
+          if (pending_space) {
+            emit.emit(" ");
+            pending_space = false;
+            if (emit.full()) return false;
+          }
+          emit.emit(seg);
+          return !emit.full();
+        });
+        break;
+      }
+      case TokenizerMode::kWhitespace:
+        split_whitespace(text, keep_punct, emit);
+        break;
+    }
+#else
+    split_whitespace(utf8, settings_.keep_punctuation, emit);
+#endif
+  } catch (...) {
+    out.clear();
+    throw;
+  }
+  emit.finish();
+}
+
+std::vector<std::string> Tokenizer::tokenize(std::string_view utf8) const {
+  std::vector<std::string> out;
+  tokenize(utf8, out);
+  return out;
+}
+
+namespace detail {
+
+std::vector<std::size_t> break_boundaries(std::string_view utf8, BreakKind kind) {
+  check_utf8(utf8);
+#ifdef GYRE_RUNTIME_HAS_ICU
+  std::vector<std::size_t> out;
+  if (utf8.empty()) return out;
+  out.push_back(0);
+  for_each_segment(icu_state(), kind, utf8, [&](std::size_t, std::size_t end) {
+    out.push_back(end);
+    return true;
+  });
+  return out;
+#else
+  (void)kind;
+  throw Error("break iteration needs ICU, but this runtime was built without it (GYRE_RUNTIME_ICU=OFF)");
+#endif
+}
+
+}  // namespace detail
+
+}  // namespace gyre::runtime
