@@ -1,0 +1,395 @@
+#include <cmath>
+#include <cstdlib>
+#include <cstring>
+#include <string_view>
+
+#include "runtime/detail/half.hpp"
+#include "runtime/detail/kernels.hpp"
+
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#include <immintrin.h>
+#define GYRE_RUNTIME_X86 1
+#endif
+
+namespace gyre::runtime::detail {
+namespace {
+
+// ---- portable ---------------------------------------------------------------------------------
+// Eight independent partial sums per dot product: the compiler may keep them in vector lanes
+// without reassociating anything (no -ffast-math needed).
+
+template <class Load>
+inline float dot8(Load load, const float* x, std::size_t cols) {
+  float acc[8] = {0, 0, 0, 0, 0, 0, 0, 0};
+  std::size_t c = 0;
+  for (; c + 8 <= cols; c += 8)
+    for (std::size_t j = 0; j < 8; ++j) acc[j] += load(c + j) * x[c + j];
+  float tail = 0.0f;
+  for (; c < cols; ++c) tail += load(c) * x[c];
+  return ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7])) + tail;
+}
+
+void matmul_f32_portable(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
+                         std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t)
+    for (std::size_t r = 0; r < rows; ++r) {
+      const float* wr = w + r * cols;
+      y[t * ldy + r] = dot8([wr](std::size_t i) { return wr[i]; }, x + t * cols, cols);
+    }
+}
+
+void matmul_f16_portable(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                         float* y, std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t)
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::uint16_t* wr = w + r * cols;
+      y[t * ldy + r] = dot8([wr](std::size_t i) { return half_to_float(wr[i]); }, x + t * cols, cols);
+    }
+}
+
+void matmul_i8_portable(const std::int8_t* w, const float* w_scale, const std::int32_t*, std::size_t rows,
+                        std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::int8_t* xt = x.xs + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      std::int32_t acc = 0;
+      for (std::size_t c = 0; c < cols; ++c) acc += std::int32_t{wr[c]} * std::int32_t{xt[c]};
+      y[t * ldy + r] = static_cast<float>(acc) * (w_scale[r] * x.scale[t]);
+    }
+  }
+}
+
+constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable};
+
+#if defined(GYRE_RUNTIME_X86)
+// ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
+// Four activation rows share each weight load; horizontal sums once per output.
+
+#define GYRE_AVX2 __attribute__((target("avx2,fma,f16c")))
+
+GYRE_AVX2 inline float hsum256(__m256 v) {
+  __m128 s = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
+  s = _mm_add_ps(s, _mm_movehl_ps(s, s));
+  s = _mm_add_ss(s, _mm_movehdup_ps(s));
+  return _mm_cvtss_f32(s);
+}
+
+GYRE_AVX2 inline __m256 load(const float* p) { return _mm256_loadu_ps(p); }
+GYRE_AVX2 inline __m256 load(const std::uint16_t* p) {
+  return _mm256_cvtph_ps(_mm_loadu_si128(reinterpret_cast<const __m128i*>(p)));
+}
+inline float scalar(const float* p, std::size_t i) { return p[i]; }
+inline float scalar(const std::uint16_t* p, std::size_t i) { return half_to_float(p[i]); }
+
+template <class W>
+GYRE_AVX2 void matmul_avx2(const W* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
+                           std::size_t ldy) {
+  std::size_t t = 0;
+  for (; t + 4 <= n; t += 4) {
+    const float* x0 = x + t * cols;
+    const float* x1 = x0 + cols;
+    const float* x2 = x1 + cols;
+    const float* x3 = x2 + cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const W* wr = w + r * cols;
+      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(), a3 = _mm256_setzero_ps();
+      std::size_t c = 0;
+      for (; c + 8 <= cols; c += 8) {
+        const __m256 wv = load(wr + c);
+        a0 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x0 + c), a0);
+        a1 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x1 + c), a1);
+        a2 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x2 + c), a2);
+        a3 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x3 + c), a3);
+      }
+      float s0 = hsum256(a0), s1 = hsum256(a1), s2 = hsum256(a2), s3 = hsum256(a3);
+      for (; c < cols; ++c) {
+        const float wc = scalar(wr, c);
+        s0 += wc * x0[c];
+        s1 += wc * x1[c];
+        s2 += wc * x2[c];
+        s3 += wc * x3[c];
+      }
+      y[t * ldy + r] = s0;
+      y[(t + 1) * ldy + r] = s1;
+      y[(t + 2) * ldy + r] = s2;
+      y[(t + 3) * ldy + r] = s3;
+    }
+  }
+  for (; t < n; ++t) {
+    const float* xt = x + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const W* wr = w + r * cols;
+      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps();
+      std::size_t c = 0;
+      for (; c + 16 <= cols; c += 16) {
+        a0 = _mm256_fmadd_ps(load(wr + c), _mm256_loadu_ps(xt + c), a0);
+        a1 = _mm256_fmadd_ps(load(wr + c + 8), _mm256_loadu_ps(xt + c + 8), a1);
+      }
+      for (; c + 8 <= cols; c += 8) a0 = _mm256_fmadd_ps(load(wr + c), _mm256_loadu_ps(xt + c), a0);
+      float s = hsum256(_mm256_add_ps(a0, a1));
+      for (; c < cols; ++c) s += scalar(wr, c) * xt[c];
+      y[t * ldy + r] = s;
+    }
+  }
+}
+
+GYRE_AVX2 void matmul_f32_avx2(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                               float* y, std::size_t ldy) {
+  matmul_avx2(w, rows, cols, x, n, y, ldy);
+}
+GYRE_AVX2 void matmul_f16_avx2(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
+                               std::size_t n, float* y, std::size_t ldy) {
+  matmul_avx2(w, rows, cols, x, n, y, ldy);
+}
+
+GYRE_AVX2 inline std::int32_t hsum256_epi32(__m256i v) {
+  __m128i s = _mm_add_epi32(_mm256_castsi256_si128(v), _mm256_extracti128_si256(v, 1));
+  s = _mm_add_epi32(s, _mm_shuffle_epi32(s, 0x4E));
+  s = _mm_add_epi32(s, _mm_shuffle_epi32(s, 0xB1));
+  return _mm_cvtsi128_si32(s);
+}
+
+// int8: sign-extend to int16 and use pmaddwd (exact: |q| <= 127 so pair sums fit in int32).
+GYRE_AVX2 void matmul_i8_avx2(const std::int8_t* w, const float* w_scale, const std::int32_t*, std::size_t rows,
+                              std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::int8_t* xt = x.xs + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      __m256i acc = _mm256_setzero_si256();
+      std::size_t c = 0;
+      for (; c + 16 <= cols; c += 16) {
+        const __m256i wv = _mm256_cvtepi8_epi16(_mm_loadu_si128(reinterpret_cast<const __m128i*>(wr + c)));
+        const __m256i xv = _mm256_cvtepi8_epi16(_mm_loadu_si128(reinterpret_cast<const __m128i*>(xt + c)));
+        acc = _mm256_add_epi32(acc, _mm256_madd_epi16(wv, xv));
+      }
+      std::int32_t s = hsum256_epi32(acc);
+      for (; c < cols; ++c) s += std::int32_t{wr[c]} * std::int32_t{xt[c]};
+      y[t * ldy + r] = static_cast<float>(s) * (w_scale[r] * x.scale[t]);
+    }
+  }
+}
+
+constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2};
+
+// ---- AVX-512 (F + BW) -------------------------------------------------------------------------
+#define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
+
+GYRE_AVX512 inline __m512 load(const float* p, __mmask16 m) { return _mm512_maskz_loadu_ps(m, p); }
+GYRE_AVX512 inline __m512 load(const std::uint16_t* p, __mmask16 m) {
+  return _mm512_cvtph_ps(_mm256_maskz_loadu_epi16(m, p));
+}
+
+template <class W>
+GYRE_AVX512 void matmul_avx512(const W* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                               float* y, std::size_t ldy) {
+  // Masked loads handle the tail, so every column goes through the vector unit.
+  std::size_t t = 0;
+  for (; t + 4 <= n; t += 4) {
+    const float* x0 = x + t * cols;
+    const float* x1 = x0 + cols;
+    const float* x2 = x1 + cols;
+    const float* x3 = x2 + cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const W* wr = w + r * cols;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; c += 16) {
+        const __mmask16 m = cols - c >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (cols - c)) - 1U);
+        const __m512 wv = load(wr + c, m);
+        a0 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x0 + c), a0);
+        a1 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x1 + c), a1);
+        a2 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x2 + c), a2);
+        a3 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x3 + c), a3);
+      }
+      y[t * ldy + r] = _mm512_reduce_add_ps(a0);
+      y[(t + 1) * ldy + r] = _mm512_reduce_add_ps(a1);
+      y[(t + 2) * ldy + r] = _mm512_reduce_add_ps(a2);
+      y[(t + 3) * ldy + r] = _mm512_reduce_add_ps(a3);
+    }
+  }
+  for (; t < n; ++t) {
+    const float* xt = x + t * cols;
+    std::size_t r = 0;
+    for (; r + 2 <= rows; r += 2) {  // two weight rows per pass: two independent FMA chains
+      const W* w0 = w + r * cols;
+      const W* w1 = w0 + cols;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; c += 16) {
+        const __mmask16 m = cols - c >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (cols - c)) - 1U);
+        const __m512 xv = _mm512_maskz_loadu_ps(m, xt + c);
+        a0 = _mm512_fmadd_ps(load(w0 + c, m), xv, a0);
+        a1 = _mm512_fmadd_ps(load(w1 + c, m), xv, a1);
+      }
+      y[t * ldy + r] = _mm512_reduce_add_ps(a0);
+      y[t * ldy + r + 1] = _mm512_reduce_add_ps(a1);
+    }
+    for (; r < rows; ++r) {
+      const W* wr = w + r * cols;
+      __m512 a0 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; c += 16) {
+        const __mmask16 m = cols - c >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (cols - c)) - 1U);
+        a0 = _mm512_fmadd_ps(load(wr + c, m), _mm512_maskz_loadu_ps(m, xt + c), a0);
+      }
+      y[t * ldy + r] = _mm512_reduce_add_ps(a0);
+    }
+  }
+}
+
+GYRE_AVX512 void matmul_f32_avx512(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                   float* y, std::size_t ldy) {
+  matmul_avx512(w, rows, cols, x, n, y, ldy);
+}
+GYRE_AVX512 void matmul_f16_avx512(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
+                                   std::size_t n, float* y, std::size_t ldy) {
+  matmul_avx512(w, rows, cols, x, n, y, ldy);
+}
+
+GYRE_AVX512 void matmul_i8_avx512(const std::int8_t* w, const float* w_scale, const std::int32_t*, std::size_t rows,
+                                  std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::int8_t* xt = x.xs + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      __m512i acc = _mm512_setzero_si512();
+      for (std::size_t c = 0; c < cols; c += 32) {
+        const __mmask32 m = cols - c >= 32 ? ~__mmask32(0) : static_cast<__mmask32>((1U << (cols - c)) - 1U);
+        const __m512i wv = _mm512_cvtepi8_epi16(_mm256_maskz_loadu_epi8(m, wr + c));
+        const __m512i xv = _mm512_cvtepi8_epi16(_mm256_maskz_loadu_epi8(m, xt + c));
+        acc = _mm512_add_epi32(acc, _mm512_madd_epi16(wv, xv));
+      }
+      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(acc)) * (w_scale[r] * x.scale[t]);
+    }
+  }
+}
+
+constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_avx512};
+
+// ---- AVX-512 VNNI -----------------------------------------------------------------------------
+// vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
+// is corrected by 128 * sum(w row): sum((q+128) w) - 128 sum(w) = sum(q w), exact in int32.
+#define GYRE_VNNI __attribute__((target("avx512f,avx512bw,avx512vl,avx512vnni,fma,f16c")))
+
+GYRE_VNNI void matmul_i8_vnni(const std::int8_t* w, const float* w_scale, const std::int32_t* w_sum, std::size_t rows,
+                              std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
+  std::size_t t = 0;
+  for (; t + 2 <= n; t += 2) {
+    const std::uint8_t* x0 = x.xu + t * cols;
+    const std::uint8_t* x1 = x0 + cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      __m512i a0 = _mm512_setzero_si512(), a1 = _mm512_setzero_si512();
+      for (std::size_t c = 0; c < cols; c += 64) {
+        const __mmask64 m = cols - c >= 64 ? ~__mmask64(0) : static_cast<__mmask64>((1ULL << (cols - c)) - 1ULL);
+        const __m512i wv = _mm512_maskz_loadu_epi8(m, wr + c);
+        a0 = _mm512_dpbusd_epi32(a0, _mm512_maskz_loadu_epi8(m, x0 + c), wv);
+        a1 = _mm512_dpbusd_epi32(a1, _mm512_maskz_loadu_epi8(m, x1 + c), wv);
+      }
+      const std::int32_t corr = 128 * w_sum[r];
+      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a0) - corr) * (w_scale[r] * x.scale[t]);
+      y[(t + 1) * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a1) - corr) * (w_scale[r] * x.scale[t + 1]);
+    }
+  }
+  for (; t < n; ++t) {
+    const std::uint8_t* xt = x.xu + t * cols;
+    std::size_t r = 0;
+    for (; r + 2 <= rows; r += 2) {
+      const std::int8_t* w0 = w + r * cols;
+      const std::int8_t* w1 = w0 + cols;
+      __m512i a0 = _mm512_setzero_si512(), a1 = _mm512_setzero_si512();
+      for (std::size_t c = 0; c < cols; c += 64) {
+        const __mmask64 m = cols - c >= 64 ? ~__mmask64(0) : static_cast<__mmask64>((1ULL << (cols - c)) - 1ULL);
+        const __m512i xv = _mm512_maskz_loadu_epi8(m, xt + c);
+        a0 = _mm512_dpbusd_epi32(a0, xv, _mm512_maskz_loadu_epi8(m, w0 + c));
+        a1 = _mm512_dpbusd_epi32(a1, xv, _mm512_maskz_loadu_epi8(m, w1 + c));
+      }
+      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a0) - 128 * w_sum[r]) * (w_scale[r] * x.scale[t]);
+      y[t * ldy + r + 1] =
+          static_cast<float>(_mm512_reduce_add_epi32(a1) - 128 * w_sum[r + 1]) * (w_scale[r + 1] * x.scale[t]);
+    }
+    for (; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      __m512i a0 = _mm512_setzero_si512();
+      for (std::size_t c = 0; c < cols; c += 64) {
+        const __mmask64 m = cols - c >= 64 ? ~__mmask64(0) : static_cast<__mmask64>((1ULL << (cols - c)) - 1ULL);
+        a0 = _mm512_dpbusd_epi32(a0, _mm512_maskz_loadu_epi8(m, xt + c), _mm512_maskz_loadu_epi8(m, wr + c));
+      }
+      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a0) - 128 * w_sum[r]) * (w_scale[r] * x.scale[t]);
+    }
+  }
+}
+
+constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni};
+#endif  // GYRE_RUNTIME_X86
+
+}  // namespace
+
+bool isa_supported(Isa isa) noexcept {
+  switch (isa) {
+    case Isa::kPortable: return true;
+#if defined(GYRE_RUNTIME_X86)
+    case Isa::kAvx2:
+      return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma") && __builtin_cpu_supports("f16c");
+    case Isa::kAvx512:
+      return isa_supported(Isa::kAvx2) && __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw") &&
+             __builtin_cpu_supports("avx512vl");
+    case Isa::kAvx512Vnni: return isa_supported(Isa::kAvx512) && __builtin_cpu_supports("avx512vnni");
+#else
+    default: return false;
+#endif
+  }
+  return false;
+}
+
+const Kernels& kernels_for(Isa isa) noexcept {
+#if defined(GYRE_RUNTIME_X86)
+  switch (isa) {
+    case Isa::kAvx2: return kAvx2;
+    case Isa::kAvx512: return kAvx512;
+    case Isa::kAvx512Vnni: return kAvx512Vnni;
+    default: break;
+  }
+#else
+  (void)isa;
+#endif
+  return kPortable;
+}
+
+Isa best_isa() noexcept {
+  static const Isa chosen = [] {
+    Isa cap = Isa::kAvx512Vnni;
+    if (const char* env = std::getenv("GYRE_RUNTIME_ISA")) {
+      const std::string_view v(env);
+      if (v == "portable") cap = Isa::kPortable;
+      if (v == "avx2") cap = Isa::kAvx2;
+      if (v == "avx512") cap = Isa::kAvx512;
+    }
+    for (int i = static_cast<int>(cap); i > 0; --i)
+      if (isa_supported(static_cast<Isa>(i))) return static_cast<Isa>(i);
+    return Isa::kPortable;
+  }();
+  return chosen;
+}
+
+const Kernels& best_kernels() noexcept { return kernels_for(best_isa()); }
+
+void quantize_rows(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs, std::uint8_t* xu,
+                   float* scale) noexcept {
+  for (std::size_t t = 0; t < n; ++t) {
+    const float* xt = x + t * cols;
+    float max_abs = 0.0f;
+    for (std::size_t c = 0; c < cols; ++c) max_abs = std::fmax(max_abs, std::fabs(xt[c]));
+    const float s = max_abs / 127.0f;
+    const float inv = s > 0.0f ? 1.0f / s : 0.0f;
+    scale[t] = s;
+    for (std::size_t c = 0; c < cols; ++c) {
+      float q = std::nearbyint(xt[c] * inv);
+      q = q > 127.0f ? 127.0f : (q < -127.0f ? -127.0f : q);
+      const auto qi = static_cast<std::int8_t>(q);
+      xs[t * cols + c] = qi;
+      xu[t * cols + c] = static_cast<std::uint8_t>(static_cast<int>(qi) + 128);
+    }
+  }
+}
+
+}  // namespace gyre::runtime::detail
