@@ -23,10 +23,8 @@ import json
 import os
 import random
 import re
-import shutil
 import subprocess
 import sys
-import tempfile
 
 SEED = 20261201
 HERE = os.path.dirname(os.path.abspath(__file__))
@@ -355,8 +353,13 @@ process.stdin.on('end', () => {
 def segment_all(texts):
     """UAX #29 word segments (ICU via Node's Intl.Segmenter), whitespace segments dropped.
     Indices are UTF-16 offsets; converted to Python string offsets here."""
-    result = subprocess.run(["node", "-e", NODE_SEGMENT], input=json.dumps(texts),
-                            capture_output=True, text=True, check=True)
+    try:
+        result = subprocess.run(["node", "-e", NODE_SEGMENT], input=json.dumps(texts),
+                                capture_output=True, text=True, check=True)
+    except FileNotFoundError:
+        sys.exit("gen_demo_corpora.py: node not found (Debian package nodejs); it segments words")
+    except subprocess.CalledProcessError as e:
+        sys.exit(f"gen_demo_corpora.py: node failed: {e.stderr.strip()}")
     out = []
     for text, segs in zip(texts, json.loads(result.stdout)):
         # UTF-16 offset -> code point offset
