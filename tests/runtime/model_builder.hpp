@@ -20,6 +20,8 @@ struct RefModel {
   std::string task = "classify", cell = "lstm", pooling = "last", output = "softmax", scheme = "bio";
   std::size_t E = 5, H = 4, L = 1, V = 12;
   bool bidir = false;
+  std::string tokenizer_mode = "whitespace";
+  bool normalize = false;  // nfkc + case_fold (need ICU)
   double threshold = 0.5;
   std::vector<std::string> labels = {"alpha", "beta", "gamma"};
   std::map<std::string, std::vector<double>> w;  // row-major
@@ -82,9 +84,9 @@ struct RefModel {
     for (const auto& l : labels) labs.push_back(Json::string(l));
     h.set("labels", std::move(labs));
     Json tok = Json::object();
-    tok.set("mode", Json::string("whitespace"));
-    tok.set("nfkc", Json::boolean(false));
-    tok.set("case_fold", Json::boolean(false));
+    tok.set("mode", Json::string(tokenizer_mode));
+    tok.set("nfkc", Json::boolean(normalize));
+    tok.set("case_fold", Json::boolean(normalize));
     tok.set("fold_digits", Json::boolean(false));
     tok.set("keep_punctuation", Json::boolean(true));
     tok.set("max_tokens", Json::number(0));

@@ -1,0 +1,197 @@
+// Dispatched x86-64 kernels (AVX2/FMA/F16C, AVX-512, AVX-512 VNNI) against the portable loops,
+// and the no-allocation-after-warm-up guarantee of Context, checked with a counting operator new.
+
+#include <catch2/catch.hpp>
+
+#include <atomic>
+#include <cmath>
+#include <cstdlib>
+#include <new>
+#include <random>
+#include <vector>
+
+#include "gyre/runtime/model.hpp"
+#include "model_builder.hpp"
+#include "runtime/detail/half.hpp"
+#include "runtime/detail/kernels.hpp"
+
+#if defined(__GNUC__) && !defined(__clang__)
+// GCC 12 pairs the inlined std::allocator calls with free() and warns although operator new
+// itself is replaced by malloc below (false positive of -Wmismatched-new-delete).
+#pragma GCC diagnostic ignored "-Wmismatched-new-delete"
+#endif
+
+namespace {
+std::atomic<long> g_allocations{0};
+}  // namespace
+
+// Counting replacements of the global allocation functions (whole test binary; counting only).
+void* operator new(std::size_t n) {
+  g_allocations.fetch_add(1, std::memory_order_relaxed);
+  if (void* p = std::malloc(n ? n : 1)) return p;
+  throw std::bad_alloc();
+}
+void* operator new[](std::size_t n) {
+  g_allocations.fetch_add(1, std::memory_order_relaxed);
+  if (void* p = std::malloc(n ? n : 1)) return p;
+  throw std::bad_alloc();
+}
+void operator delete(void* p) noexcept { std::free(p); }
+void operator delete[](void* p) noexcept { std::free(p); }
+void operator delete(void* p, std::size_t) noexcept { std::free(p); }
+void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+
+namespace rd = gyre::runtime::detail;
+using Catch::Matchers::WithinAbs;
+
+TEST_CASE("dispatched kernels equal the portable ones", "[runtime][kernels]") {
+  std::mt19937 rng(31337);
+  std::uniform_real_distribution<float> u(-1.0f, 1.0f);
+  const rd::Kernels& ref = rd::kernels_for(rd::Isa::kPortable);
+  int checked_sets = 0;
+  for (rd::Isa isa : {rd::Isa::kAvx2, rd::Isa::kAvx512, rd::Isa::kAvx512Vnni}) {
+    if (!rd::isa_supported(isa)) {
+      WARN("instruction set " << static_cast<int>(isa) << " not supported here; skipped");
+      continue;
+    }
+    ++checked_sets;
+    const rd::Kernels& k = rd::kernels_for(isa);
+    for (std::size_t cols : {1u, 7u, 16u, 37u, 64u, 130u})
+      for (std::size_t rows : {1u, 3u, 8u})
+        for (std::size_t n : {1u, 2u, 3u, 4u, 5u, 9u}) {
+          INFO(k.name << " rows=" << rows << " cols=" << cols << " n=" << n);
+          std::vector<float> w(rows * cols), x(n * cols), y_ref(n * rows), y(n * rows), abs_sum(n * rows, 0.0f);
+          for (auto& v : w) v = u(rng);
+          for (auto& v : x) v = u(rng);
+          for (std::size_t t = 0; t < n; ++t)
+            for (std::size_t r = 0; r < rows; ++r)
+              for (std::size_t c = 0; c < cols; ++c) abs_sum[t * rows + r] += std::fabs(w[r * cols + c] * x[t * cols + c]);
+          // f32: only the summation order differs; bound 1e-6 relative to sum |w x| (a few ulps
+          // of float32 per term, Higham 2002, ch. 3).
+          ref.matmul_f32(w.data(), rows, cols, x.data(), n, y_ref.data(), rows);
+          k.matmul_f32(w.data(), rows, cols, x.data(), n, y.data(), rows);
+          for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 1e-6 * (abs_sum[i] + 1.0f)));
+          std::vector<std::uint16_t> wh(w.size());
+          for (std::size_t i = 0; i < w.size(); ++i) wh[i] = rd::float_to_half(w[i]);
+          ref.matmul_f16(wh.data(), rows, cols, x.data(), n, y_ref.data(), rows);
+          k.matmul_f16(wh.data(), rows, cols, x.data(), n, y.data(), rows);
+          for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 1e-6 * (abs_sum[i] + 1.0f)));
+          // i8: integer dot products are exact in every path; only the final float scaling could
+          // differ, and it is the same expression everywhere, so the results must be identical.
+          std::vector<std::int8_t> wq(w.size());
+          std::vector<float> ws(rows);
+          std::vector<std::int32_t> wsum(rows, 0);
+          std::uniform_int_distribution<int> qi(-127, 127);
+          for (std::size_t r = 0; r < rows; ++r) {
+            ws[r] = 0.01f + 0.001f * static_cast<float>(r);
+            for (std::size_t c = 0; c < cols; ++c) {
+              wq[r * cols + c] = static_cast<std::int8_t>(qi(rng));
+              wsum[r] += wq[r * cols + c];
+            }
+          }
+          std::vector<std::int8_t> xs(n * cols);
+          std::vector<std::uint8_t> xu(n * cols);
+          std::vector<float> xscale(n);
+          rd::quantize_rows(x.data(), n, cols, xs.data(), xu.data(), xscale.data());
+          const rd::QuantizedRows q{xs.data(), xu.data(), xscale.data()};
+          ref.matmul_i8(wq.data(), ws.data(), wsum.data(), rows, cols, q, n, y_ref.data(), rows);
+          k.matmul_i8(wq.data(), ws.data(), wsum.data(), rows, cols, q, n, y.data(), rows);
+          for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 0.0));
+        }
+  }
+  INFO("best kernels: " << rd::best_kernels().name);
+  SUCCEED("checked " << checked_sets << " dispatched kernel sets");
+}
+
+TEST_CASE("activation quantisation is symmetric per row", "[runtime][kernels]") {
+  const float x[4] = {0.5f, -1.27f, 0.0f, 0.01f};
+  std::int8_t xs[4];
+  std::uint8_t xu[4];
+  float s;
+  rd::quantize_rows(x, 1, 4, xs, xu, &s);
+  // scale = max|x| / 127 = 0.01; q = round(x / scale) (Jacob et al. 2018, zero point 0).
+  REQUIRE_THAT(s, WithinAbs(0.01, 1e-9));
+  REQUIRE(xs[0] == 50);
+  REQUIRE(xs[1] == -127);
+  REQUIRE(xs[2] == 0);
+  REQUIRE(xs[3] == 1);
+  REQUIRE(xu[1] == 1);
+  REQUIRE(xu[2] == 128);
+}
+
+TEST_CASE("no allocations per call with the ICU words tokenizer either", "[runtime][alloc]") {
+  if (!gyre::runtime::tokenizer_has_icu()) return;
+  gyre::test::RefModel r;
+  r.tokenizer_mode = "words";
+  r.normalize = true;
+  r.randomize(5);
+  const auto bytes = r.file();
+  const auto model = gyre::runtime::Model::from_buffer(bytes.data(), bytes.size());
+  gyre::runtime::Context ctx(model);
+  ctx.classify("W2, w9 unknown w4 W2 w9 unknown!");
+  const long before = g_allocations.load();
+  for (int rep = 0; rep < 20; ++rep) ctx.classify("W2, w9 unknown w4!");
+  const long n = g_allocations.load() - before;
+  REQUIRE(n == 0);
+}
+
+TEST_CASE("Context allocates nothing per call after warm-up", "[runtime][alloc]") {
+  using gyre::runtime::Context;
+  using gyre::runtime::DType;
+  using gyre::runtime::Model;
+  for (DType dt : {DType::kF32, DType::kI8}) {
+    for (const char* task : {"classify", "tag"}) {
+      gyre::test::RefModel r;
+      r.task = task;
+      r.E = 16;
+      r.H = 24;
+      r.L = 2;
+      r.bidir = std::string(task) == "tag";
+      r.output = std::string(task) == "tag" ? "crf" : "softmax";
+      if (std::string(task) == "tag") r.labels = {"O", "B-a", "I-a"};
+      r.randomize(5);
+      const auto bytes = r.file(dt);
+      const Model model = Model::from_buffer(bytes.data(), bytes.size());
+      Context ctx(model);
+      const std::vector<std::uint32_t> longest = {2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 2, 3, 4, 5, 6, 7};
+      const std::vector<std::uint32_t> shorter = {4, 5, 6};
+      const std::vector<std::string> tokens = {"w2", "w9", "unknown", "w4"};
+      auto call = [&](const std::vector<std::uint32_t>& ids) {
+        if (std::string(task) == "classify") {
+          ctx.classify_ids(ids);
+          ctx.classify_tokens(tokens);
+        } else {
+          ctx.tag_ids(ids);
+          ctx.tag_tokens(tokens);
+        }
+      };
+      call(longest);  // warm-up
+      const long before = g_allocations.load();
+      for (int rep = 0; rep < 20; ++rep) {
+        call(shorter);
+        call(longest);
+      }
+      const long during = g_allocations.load() - before;  // read before INFO, which allocates
+      INFO(task << " dtype " << gyre::runtime::to_string(dt));
+      REQUIRE(during == 0);
+      if (std::string(task) == "classify") {
+        ctx.classify("w2 w9 unknown w4 w2 w9 unknown");
+        const long b1 = g_allocations.load();
+        for (int rep = 0; rep < 20; ++rep) ctx.classify("w2 w9 unknown w4");
+        const long text_path = g_allocations.load() - b1;
+        REQUIRE(text_path == 0);  // whitespace tokenizer
+        ctx.reset();
+        ctx.push_id(3);
+        const long b2 = g_allocations.load();
+        for (int rep = 0; rep < 20; ++rep) {
+          ctx.push_id(4);
+          ctx.push("w5");
+          ctx.distribution();
+        }
+        ctx.reset();
+        const long stepping = g_allocations.load() - b2;
+        REQUIRE(stepping == 0);
+      }
+    }
+  }
+}
