@@ -1,7 +1,7 @@
 #pragma once
 // One direction of one recurrent layer over a time-major batch (DEVELOPERS.md "Numerical
-// conventions"): x is [T*B x D], row t*B + b is sequence b at step t, lengths[b] in 1..T valid
-// steps. A forward layer visits t = 0 .. len_b-1; a reverse layer visits t = len_b-1 .. 0 (each
+// conventions"): x is [T*B x D], row t*B + b is sequence b at step t, lengths[b] in 0..T valid
+// steps (0: the sequence has no step in this truncated-BPTT window; its state passes through). A forward layer visits t = 0 .. len_b-1; a reverse layer visits t = len_b-1 .. 0 (each
 // sequence's own valid steps, so padding never feeds the state). Padded rows of the output are
 // zero, padded steps leave the state unchanged and receive no gradient, so a sequence's outputs and
 // gradients do not depend on its batch neighbours or on the amount of padding.

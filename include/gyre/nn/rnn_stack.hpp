@@ -52,7 +52,7 @@ class RnnStack {
   int output_size() const noexcept { return config_.hidden_size * directions(); }
   RecurrentLayer& layer(int k, int dir) { return *layers_[static_cast<std::size_t>(k * directions() + dir)]; }
 
-  /// x: [T*B x input_size]; lengths.size() == B, each in 1..T. out: [T*B x output_size()], padded
+  /// x: [T*B x input_size]; lengths.size() == B, each in 0..T (0 = no step in this window). out: [T*B x output_size()], padded
   /// rows zero. training && dropout > 0 needs dropout_rng. init: optional carried state for the
   /// forward direction of each layer (truncated BPTT; the backward direction always starts at
   /// zero; entries for bwd are ignored). final: optional, receives the state after each

@@ -1,0 +1,47 @@
+#pragma once
+// Grow-only float storage viewed as row-major matrices. Eigen's own resize() frees and reallocates
+// whenever the element count changes; layers instead keep one of these per cache so a smaller
+// batch reuses the memory and a repeated shape never touches the heap.
+
+#include <cstddef>
+#include <span>
+#include <vector>
+
+#include "gyre/core/error.hpp"
+#include "gyre/nn/tensor.hpp"
+
+namespace gyre::nn::detail {
+
+class GrowBuffer {
+ public:
+  /// Views the first rows*cols floats as a [rows x cols] matrix, growing the storage if needed
+  /// (contents are unspecified after a growth).
+  MatrixMap view(Eigen::Index rows, Eigen::Index cols) {
+    const auto n = static_cast<std::size_t>(rows * cols);
+    if (data_.size() < n) data_.resize(n);
+    return MatrixMap(data_.data(), rows, cols);
+  }
+  std::size_t capacity_bytes() const noexcept { return data_.capacity() * sizeof(float); }
+  const float* data() const noexcept { return data_.data(); }
+
+ private:
+  std::vector<float> data_;
+};
+
+/// Checks a time-major batch description; returns B. Throws gyre::Error naming `who`.
+/// min_length is 1 for pooling and losses; recurrent layers accept 0 (a sequence with no step in
+/// this truncated-BPTT window: its state is carried through unchanged).
+inline Eigen::Index check_batch(const char* who, Eigen::Index rows, int T, std::span<const int> lengths,
+                                int min_length = 1) {
+  GYRE_CHECK(T > 0, std::string(who) + ": T must be positive");
+  GYRE_CHECK(!lengths.empty(), std::string(who) + ": empty batch");
+  const auto B = static_cast<Eigen::Index>(lengths.size());
+  GYRE_CHECK(rows == T * B, std::string(who) + ": buffer has " + std::to_string(rows) + " rows, expected T*B = " +
+                                std::to_string(T * B));
+  for (const int len : lengths)
+    GYRE_CHECK(len >= min_length && len <= T, std::string(who) + ": sequence length " + std::to_string(len) +
+                                                  " outside " + std::to_string(min_length) + ".." + std::to_string(T));
+  return B;
+}
+
+}  // namespace gyre::nn::detail
