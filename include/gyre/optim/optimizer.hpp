@@ -1,0 +1,105 @@
+#pragma once
+// Optimizer interface shared by SGD (sgd.hpp) and Adam/AdamW (adam.hpp), and the factory that
+// builds one from the names used in training configs.
+//
+// Contract:
+// - step() reads Parameter::grad and updates Parameter::value of every trainable parameter of
+//   the store, in registration order; it never zeroes or modifies the gradients (the trainer calls
+//   ParameterStore::zero_grad()). Parameters with trainable == false are skipped and get no
+//   state.
+// - Sparse-row parameters (embeddings, Parameter::sparse_rows) are updated only on the rows in
+//   touched_rows, and their per-row optimizer state ("moments") changes only on those rows: a row
+//   that receives no gradient is neither moved nor has its moments decayed ("lazy" update). Dense
+//   optimizers would also decay the moments of untouched rows and keep moving them by momentum;
+//   the two agree exactly when every row is touched at every step. Weight decay of sparse
+//   parameters likewise applies only to touched rows.
+// - State (moments and the step count) is exposed as named tensors so that a checkpoint can save
+//   and restore it; a resumed run then continues bit-identically.
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <vector>
+
+#include "gyre/nn/parameter.hpp"
+#include "gyre/nn/tensor.hpp"
+
+namespace gyre::optim {
+
+/// A named optimizer state tensor, e.g. {"optim.embedding.weight.m", &moment}. The pointer stays
+/// valid until the optimizer is re-bound or destroyed; writing through it restores state.
+using StateTensor = std::pair<std::string, nn::Matrix*>;
+
+class Optimizer {
+ public:
+  virtual ~Optimizer() = default;
+  Optimizer(const Optimizer&) = delete;
+  Optimizer& operator=(const Optimizer&) = delete;
+
+  /// Applies one update with the given learning rate (finite, >= 0) to every trainable parameter.
+  /// Binds to the store on first use (see bind()). Throws gyre::Error if the store's trainable
+  /// parameters no longer match the bound ones (count or shape). Does not allocate after bind.
+  void step(nn::ParameterStore& params, float learning_rate);
+
+  /// Allocates zeroed state for every trainable parameter of the store, in registration order.
+  /// Call it before restoring a checkpoint into state_tensors(). Re-binding discards the state and
+  /// resets the step count.
+  void bind(const nn::ParameterStore& params);
+  bool bound() const noexcept { return bound_; }
+
+  /// Named state tensors, in a fixed order (parameter order, then the optimizer's own order).
+  /// Names are "optim.<parameter name>.<slot>" with slot "velocity" (SGD with momentum) or "m",
+  /// "v" (Adam, AdamW). Empty for plain SGD. Throws gyre::Error unless bound.
+  std::vector<StateTensor> state_tensors();
+
+  /// Number of step() calls applied so far (Adam's t). Saved with the checkpoint.
+  std::int64_t step_count() const noexcept { return step_count_; }
+  void set_step_count(std::int64_t steps);
+
+  /// "sgd", "adam" or "adamw": the name make_optimizer() accepts.
+  virtual std::string_view name() const noexcept = 0;
+
+ protected:
+  Optimizer() = default;
+
+  /// Names of the per-parameter state slots this optimizer keeps (same shape as the parameter).
+  virtual std::vector<std::string> slot_names() const = 0;
+
+  /// Called once per step() before any update_block(); `step` is the 1-based step number t.
+  virtual void begin_step(std::int64_t step, float learning_rate) = 0;
+
+  /// Update of one contiguous block of `count` values of one parameter. `slots[k]` points at the
+  /// same block of slot k. Called once for a dense parameter (whole tensor) or once per touched
+  /// row for a sparse one, with the values given to the last begin_step().
+  virtual void update_block(float* value, const float* grad, float* const* slots, std::int64_t count) = 0;
+
+ private:
+  struct Bound {
+    std::size_t param_index;  // index into the store
+    Eigen::Index rows, cols;
+    std::vector<nn::Matrix> slots;
+  };
+  bool bound_ = false;
+  std::int64_t step_count_ = 0;
+  std::vector<Bound> state_;
+  std::vector<std::string> state_names_;  // parameter names, for state_tensors()
+};
+
+/// Hyperparameters of every optimizer; each optimizer reads the fields it uses and
+/// make_optimizer() rejects impossible values with gyre::ConfigError.
+struct OptimizerConfig {
+  float momentum = 0.0F;      // SGD: velocity decay mu in [0, 1); 0 = plain SGD
+  bool nesterov = false;      // SGD: Nesterov's accelerated gradient (needs momentum > 0)
+  float beta1 = 0.9F;         // Adam/AdamW: first-moment decay (Kingma & Ba 2015, Algorithm 1)
+  float beta2 = 0.999F;       // Adam/AdamW: second-moment decay
+  float epsilon = 1e-8F;      // Adam/AdamW: added to sqrt(v_hat)
+  float weight_decay = 0.0F;  // SGD, Adam: L2 term added to the gradient; AdamW: decoupled decay
+};
+
+/// Builds "sgd", "adam" or "adamw". Throws gyre::ConfigError("optimizer", ...) for another name
+/// and for out-of-range hyperparameters.
+std::unique_ptr<Optimizer> make_optimizer(std::string_view name, const OptimizerConfig& config);
+
+}  // namespace gyre::optim
