@@ -71,7 +71,7 @@ class Crf {
                      std::span<double> out);
 
   /// Per-token posterior marginals p(y_t = j | x), resized to [Tmax*B x T] (zero on padding rows).
-  /// Useful as per-token confidences in prediction.
+  /// Useful as per-token confidences in prediction, so the decoding constraints apply if set.
   void marginals(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
                  Matrix& out);
 
@@ -100,9 +100,10 @@ class Crf {
   std::vector<std::uint8_t> allowed_transitions_, allowed_start_, allowed_end_;
 
   // Workspace (double): scores with masks applied, alpha/beta [Tmax*B x T], log Z [B],
-  // backpointers [Tmax*B x T], one scratch row [T].
+  // backpointers [Tmax*B x T], one scratch row [T]. Viterbi reuses alpha_ for its scores.
   std::vector<double> trans_, start_scores_, end_scores_;
   std::vector<double> alpha_, beta_, log_z_, scratch_;
+  std::vector<double> grad_acc_;  // [T*T + 2T]: transition, start, end gradients of one batch
   std::vector<std::int32_t> backpointer_;
 };
 
