@@ -3,6 +3,7 @@
 #include <string>
 
 #include "detail/buffer.hpp"
+#include "detail/gemm.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/nn/init.hpp"
 
@@ -14,6 +15,8 @@ struct GruLayer::Workspace {
   int T = 0;
   Eigen::Index B = 0;
   std::vector<int> lengths;
+  // One GEMM object per call site: each keeps its packing buffers (see detail/gemm.hpp).
+  detail::Gemm gemm_input, gemm_step, gemm_back, gemm_dw_input, gemm_dw_hidden, gemm_dx;
   detail::GrowBuffer gates;   // [T*B x 3H]: W x + b_i, then activations r z n in place
   detail::GrowBuffer hn;      // [T*B x H]: U_n h + b_hn (the term r multiplies)
   detail::GrowBuffer h_prev;  // [T*B x H]: state before the step (zero on padded rows)
@@ -69,7 +72,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   MatrixMap step = w.step.view(B, 3 * H);
   MatrixMap h = w.h.view(B, H);
 
-  gates.noalias() = x * w_input_.value.transpose();
+  w.gemm_input.run(gates, x, detail::Op::kN, w_input_.value, detail::Op::kT, false);
   gates.rowwise() += bias_.value.row(0);
   if (h0 != nullptr) h = *h0; else h.setZero();
   for (Eigen::Index b = 0; b < B; ++b)
@@ -82,7 +85,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   const Matrix& U = w_hidden_.value;
   const auto bh = bias_hidden_.value.row(0);
   for (int s = 0; s < T; ++s) {
-    step.noalias() = h * U.transpose();  // all three recurrent gates in one GEMM ("reset after")
+    w.gemm_step.run(step, h, detail::Op::kN, U, detail::Op::kT, false);  // all three recurrent gates in one GEMM ("reset after")
     for (Eigen::Index b = 0; b < B; ++b) {
       const int len = lengths[static_cast<std::size_t>(b)];
       if (s >= len) continue;
@@ -154,20 +157,20 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
       dstep.row(b) = dgh.row(r);
     }
     dh = dh_direct;
-    dh.noalias() += dstep * U;
+    w.gemm_back.run(dh, dstep, detail::Op::kN, U, detail::Op::kN, true);
   }
 
-  w_input_.grad.noalias() += dgi.transpose() * (*w.x);
-  w_hidden_.grad.noalias() += dgh.transpose() * h_prev;
+  w.gemm_dw_input.run(w_input_.grad, dgi, detail::Op::kT, *w.x, detail::Op::kN, true);
+  w.gemm_dw_hidden.run(w_hidden_.grad, dgh, detail::Op::kT, h_prev, detail::Op::kN, true);
   bias_.grad.row(0).noalias() += dgi.colwise().sum();
   bias_hidden_.grad.row(0).noalias() += dgh.colwise().sum();
   if (d_x != nullptr) {
     if (accumulate_dx) {
       GYRE_CHECK(d_x->rows() == TB && d_x->cols() == input_size_, "GruLayer::backward: d_x has the wrong shape");
-      d_x->noalias() += dgi * w_input_.value;
+      w.gemm_dx.run(*d_x, dgi, detail::Op::kN, w_input_.value, detail::Op::kN, true);
     } else {
-      d_x->resize(TB, input_size_);
-      d_x->noalias() = dgi * w_input_.value;
+      if (d_x->rows() != TB || d_x->cols() != input_size_) d_x->resize(TB, input_size_);
+      w.gemm_dx.run(*d_x, dgi, detail::Op::kN, w_input_.value, detail::Op::kN, false);
     }
   }
   if (d_h0 != nullptr) *d_h0 = dh;

@@ -3,6 +3,7 @@
 #include <string>
 
 #include "detail/buffer.hpp"
+#include "detail/gemm.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/nn/init.hpp"
 
@@ -15,6 +16,8 @@ struct LstmLayer::Workspace {
   int T = 0;
   Eigen::Index B = 0;
   std::vector<int> lengths;
+  // One GEMM object per call site: each keeps its packing buffers (see detail/gemm.hpp).
+  detail::Gemm gemm_input, gemm_step, gemm_back, gemm_dw_input, gemm_dw_hidden, gemm_dx;
   detail::GrowBuffer gates;   // [T*B x 4H]: input projection, then activations i f g o in place
   detail::GrowBuffer tanh_c;  // [T*B x H]: tanh(c') after the step
   detail::GrowBuffer c_prev;  // [T*B x H]: cell state before the step
@@ -74,7 +77,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   MatrixMap c = w.c.view(B, H);
 
   // Input projection of all time steps in one GEMM, bias folded in.
-  gates.noalias() = x * w_input_.value.transpose();
+  w.gemm_input.run(gates, x, detail::Op::kN, w_input_.value, detail::Op::kT, false);
   gates.rowwise() += bias_.value.row(0);
   if (h0 != nullptr) h = *h0; else h.setZero();
   if (c0 != nullptr) c = *c0; else c.setZero();
@@ -88,7 +91,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
 
   const Matrix& U = w_hidden_.value;
   for (int s = 0; s < T; ++s) {
-    step.noalias() = h * U.transpose();  // one fused gate GEMM over the batch
+    w.gemm_step.run(step, h, detail::Op::kN, U, detail::Op::kT, false);  // one fused gate GEMM over the batch
     for (Eigen::Index b = 0; b < B; ++b) {
       const int len = lengths[static_cast<std::size_t>(b)];
       if (s >= len) continue;  // padded step: state carried unchanged
@@ -158,19 +161,19 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
       dcb *= f;
       dstep.row(b) = dgates.row(r);
     }
-    dh.noalias() = dstep * U;
+    w.gemm_back.run(dh, dstep, detail::Op::kN, U, detail::Op::kN, false);
   }
 
-  w_input_.grad.noalias() += dgates.transpose() * (*w.x);
-  w_hidden_.grad.noalias() += dgates.transpose() * h_prev;
+  w.gemm_dw_input.run(w_input_.grad, dgates, detail::Op::kT, *w.x, detail::Op::kN, true);
+  w.gemm_dw_hidden.run(w_hidden_.grad, dgates, detail::Op::kT, h_prev, detail::Op::kN, true);
   bias_.grad.row(0).noalias() += dgates.colwise().sum();
   if (d_x != nullptr) {
     if (accumulate_dx) {
       GYRE_CHECK(d_x->rows() == TB && d_x->cols() == input_size_, "LstmLayer::backward: d_x has the wrong shape");
-      d_x->noalias() += dgates * w_input_.value;
+      w.gemm_dx.run(*d_x, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, true);
     } else {
-      d_x->resize(TB, input_size_);
-      d_x->noalias() = dgates * w_input_.value;
+      if (d_x->rows() != TB || d_x->cols() != input_size_) d_x->resize(TB, input_size_);
+      w.gemm_dx.run(*d_x, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, false);
     }
   }
   if (d_h0 != nullptr) *d_h0 = dh;

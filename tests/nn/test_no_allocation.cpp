@@ -1,0 +1,104 @@
+// "No heap allocation inside the time loop" (DESIGN.md Numerics, STYLE.md Performance): after a
+// warm-up call, forward + backward of the same (or a smaller) batch shape must not call malloc at
+// all, and the layers' caches must not move. Counted by interposing malloc in this executable
+// (glibc exports the real allocator as __libc_malloc); skipped under AddressSanitizer, which owns
+// malloc itself.
+
+#include <catch2/catch.hpp>
+#include <cstddef>
+#include <vector>
+
+#include "gyre/nn/gru_layer.hpp"
+#include "gyre/nn/lstm_layer.hpp"
+#include "gyre/nn/rnn_stack.hpp"
+#include "nn_test_util.hpp"
+
+#if defined(__SANITIZE_ADDRESS__)
+#define GYRE_COUNT_MALLOC 0
+#elif defined(__has_feature)
+#if __has_feature(address_sanitizer)
+#define GYRE_COUNT_MALLOC 0
+#endif
+#endif
+#ifndef GYRE_COUNT_MALLOC
+#if defined(__GLIBC__) || defined(__linux__)
+#define GYRE_COUNT_MALLOC 1
+#else
+#define GYRE_COUNT_MALLOC 0
+#endif
+#endif
+
+#if GYRE_COUNT_MALLOC
+namespace {
+bool g_counting = false;  // single-threaded test
+std::size_t g_mallocs = 0;
+}  // namespace
+extern "C" void* __libc_malloc(std::size_t size);  // NOLINT: glibc's allocator entry point
+extern "C" void* malloc(std::size_t size) {        // NOLINT
+  if (g_counting) ++g_mallocs;
+  return __libc_malloc(size);
+}
+#endif
+
+using namespace gyre;
+using namespace gyre::nn;
+using gyre::nn::test::random_matrix;
+
+TEST_CASE("RnnStack forward+backward allocate nothing after warm-up", "[nn][alloc]") {
+#if !GYRE_COUNT_MALLOC
+  WARN("malloc counting unavailable (sanitizer build); only capacities are checked");
+#endif
+  for (const CellType cell : {CellType::kLstm, CellType::kGru}) {
+    DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm" : "gru")) {
+      // Realistic sizes so Eigen takes its blocked GEMM path (small products are unrolled).
+      const int T = 12, D = 64, H = 128;
+      const std::vector<int> lengths = {12, 7, 3, 12, 9, 1, 5, 11, 12, 2, 8, 6, 10, 4, 12, 12,
+                                        12, 7, 3, 12, 9, 1, 5, 11, 12, 2, 8, 6, 10, 4, 12, 12};
+      const auto B = static_cast<Eigen::Index>(lengths.size());
+      ParameterStore store;
+      RnnStackConfig cfg;
+      cfg.cell = cell;
+      cfg.input_size = D;
+      cfg.hidden_size = H;
+      cfg.layers = 2;
+      cfg.bidirectional = true;
+      cfg.dropout = 0.2f;
+      RnnStack stack(cfg, store);
+      Rng rng(3);
+      stack.init_parameters(rng);
+      const Matrix x = random_matrix(T * B, D, rng);
+      const Matrix g = random_matrix(T * B, stack.output_size(), rng);
+      Matrix out, dx;
+      RnnState final;
+      auto run = [&](const Matrix& xs, int Ts, std::span<const int> lens, const Matrix& gs) {
+        stack.forward(xs, Ts, lens, out, true, &rng, nullptr, &final);
+        stack.backward(gs, dx);
+      };
+      run(x, T, lengths, g);  // warm-up sizes every cache
+      std::vector<std::size_t> caps;
+      for (int k = 0; k < cfg.layers; ++k)
+        for (int d = 0; d < 2; ++d) {
+          auto& l = stack.layer(k, d);
+          caps.push_back(cell == CellType::kLstm ? dynamic_cast<LstmLayer&>(l).workspace_capacity()
+                                                 : dynamic_cast<GruLayer&>(l).workspace_capacity());
+        }
+#if GYRE_COUNT_MALLOC
+      g_mallocs = 0;
+      g_counting = true;
+#endif
+      run(x, T, lengths, g);
+#if GYRE_COUNT_MALLOC
+      g_counting = false;
+      CHECK(g_mallocs == 0);
+#endif
+      std::size_t i = 0;
+      for (int k = 0; k < cfg.layers; ++k)
+        for (int d = 0; d < 2; ++d) {
+          auto& l = stack.layer(k, d);
+          const std::size_t cap = cell == CellType::kLstm ? dynamic_cast<LstmLayer&>(l).workspace_capacity()
+                                                          : dynamic_cast<GruLayer&>(l).workspace_capacity();
+          CHECK(cap == caps[i++]);
+        }
+    }
+  }
+}
