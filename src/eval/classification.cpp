@@ -6,13 +6,15 @@
 #include <nlohmann/json.hpp>
 #include <string>
 
-#include "gyre/core/error.hpp"
 #include "eval/detail/table.hpp"
+#include "gyre/core/error.hpp"
 
 namespace gyre::eval {
 namespace {
 
-double safe_div(double num, double den) { return den > 0.0 ? num / den : 0.0; }
+double safe_div(double num, double den) {
+  return den > 0.0 ? num / den : 0.0;
+}
 
 // Per-class P/R/F1 from counts with the zero-division convention of the header (0).
 void finish_scores(ClassScores& c) {
@@ -74,9 +76,8 @@ void check_ids(std::span<const std::int32_t> ids, std::size_t num_classes, const
 }
 
 nlohmann::json scores_json(const ClassScores& c) {
-  return {{"name", c.name},         {"precision", c.precision}, {"recall", c.recall},
-          {"f1", c.f1},             {"support", c.support},     {"predicted", c.predicted},
-          {"correct", c.correct},   {"present", c.present}};
+  return {{"name", c.name},       {"precision", c.precision}, {"recall", c.recall},   {"f1", c.f1},
+          {"support", c.support}, {"predicted", c.predicted}, {"correct", c.correct}, {"present", c.present}};
 }
 
 nlohmann::json average_json(const AverageScores& a) {
@@ -84,8 +85,9 @@ nlohmann::json average_json(const AverageScores& a) {
 }
 
 // Shared table body: per-class rows, then the three averages.
-void add_score_rows(detail::TextTable& table, const std::vector<ClassScores>& classes, const AverageScores& macro,
-                    const AverageScores& micro, const AverageScores& weighted, int decimals, bool& any_absent) {
+void add_score_rows(detail::TextTable& table, const std::vector<ClassScores>& classes,
+                    const AverageScores& macro, const AverageScores& micro, const AverageScores& weighted,
+                    int decimals, bool& any_absent) {
   for (const auto& c : classes) {
     const std::string name = c.present ? c.name : c.name + " *";
     any_absent = any_absent || !c.present;
@@ -93,18 +95,18 @@ void add_score_rows(detail::TextTable& table, const std::vector<ClassScores>& cl
                    detail::fixed(c.f1, decimals), std::to_string(c.support), std::to_string(c.predicted)});
   }
   table.add_rule();
-  table.add_row({"mean over labels", detail::fixed(macro.precision, decimals), detail::fixed(macro.recall, decimals),
-                 detail::fixed(macro.f1, decimals), "", ""});
-  table.add_row({"pooled counts", detail::fixed(micro.precision, decimals), detail::fixed(micro.recall, decimals),
-                 detail::fixed(micro.f1, decimals), "", ""});
+  table.add_row({"mean over labels", detail::fixed(macro.precision, decimals),
+                 detail::fixed(macro.recall, decimals), detail::fixed(macro.f1, decimals), "", ""});
+  table.add_row({"pooled counts", detail::fixed(micro.precision, decimals),
+                 detail::fixed(micro.recall, decimals), detail::fixed(micro.f1, decimals), "", ""});
   table.add_row({"gold-weighted mean", detail::fixed(weighted.precision, decimals),
                  detail::fixed(weighted.recall, decimals), detail::fixed(weighted.f1, decimals), "", ""});
 }
 
 }  // namespace
 
-double log_loss(std::span<const std::int32_t> gold, std::span<const float> probabilities, std::size_t num_classes,
-                double eps) {
+double log_loss(std::span<const std::int32_t> gold, std::span<const float> probabilities,
+                std::size_t num_classes, double eps) {
   GYRE_CHECK(!gold.empty(), "log loss of zero examples");
   GYRE_CHECK(eps > 0.0 && eps < 0.5, "log loss eps must be in (0, 0.5)");
   check_probabilities(probabilities, gold.size(), num_classes);
@@ -113,7 +115,8 @@ double log_loss(std::span<const std::int32_t> gold, std::span<const float> proba
   for (std::size_t i = 0; i < gold.size(); ++i) {
     const float* row = probabilities.data() + i * num_classes;
     double row_sum = 0.0;
-    for (std::size_t c = 0; c < num_classes; ++c) row_sum += std::clamp(static_cast<double>(row[c]), eps, 1.0 - eps);
+    for (std::size_t c = 0; c < num_classes; ++c)
+      row_sum += std::clamp(static_cast<double>(row[c]), eps, 1.0 - eps);
     const double p = std::clamp(static_cast<double>(row[static_cast<std::size_t>(gold[i])]), eps, 1.0 - eps);
     total -= std::log(p / row_sum);
   }
@@ -199,8 +202,8 @@ ClassificationMetrics classification_metrics(std::span<const std::int32_t> gold,
 
   if (!probabilities.empty()) {
     r.log_loss = log_loss(gold, probabilities, num_classes);
-    r.calibration_error = expected_calibration_error(gold, probabilities, num_classes, kCalibrationBins,
-                                                     &r.calibration_bins);
+    r.calibration_error =
+        expected_calibration_error(gold, probabilities, num_classes, kCalibrationBins, &r.calibration_bins);
   }
   return r;
 }
@@ -230,7 +233,9 @@ nlohmann::json ClassificationMetrics::to_json() const {
     for (std::size_t p = 0; p < n; ++p) row.push_back(confusion[g * n + p]);
     counts.push_back(std::move(row));
   }
-  j["confusion"] = {{"labels", std::move(labels)}, {"counts", std::move(counts)}, {"rows", "gold"},
+  j["confusion"] = {{"labels", std::move(labels)},
+                    {"counts", std::move(counts)},
+                    {"rows", "gold"},
                     {"columns", "predicted"}};
   if (log_loss) j["log_loss"] = *log_loss;
   if (calibration_error) {
@@ -241,7 +246,8 @@ nlohmann::json ClassificationMetrics::to_json() const {
                      {"count", b.count},
                      {"mean_confidence", b.mean_confidence},
                      {"accuracy", b.accuracy}});
-    j["calibration"] = {{"bins", calibration_bins.size()}, {"error", *calibration_error}, {"reliability", rel}};
+    j["calibration"] = {
+        {"bins", calibration_bins.size()}, {"error", *calibration_error}, {"reliability", rel}};
   }
   return j;
 }
@@ -274,6 +280,28 @@ std::string ClassificationMetrics::confusion_table() const {
   return table.render();
 }
 
+std::vector<ConfidentError> most_confident_errors(std::span<const std::int32_t> gold,
+                                                  std::span<const std::int32_t> predicted,
+                                                  std::span<const float> probabilities,
+                                                  std::size_t num_classes, std::size_t limit) {
+  GYRE_CHECK(gold.size() == predicted.size(), "gold has " + std::to_string(gold.size()) +
+                                                  " examples but predictions have " +
+                                                  std::to_string(predicted.size()));
+  check_probabilities(probabilities, gold.size(), num_classes);
+  check_ids(gold, num_classes, "gold");
+  check_ids(predicted, num_classes, "predicted");
+  std::vector<ConfidentError> errors;
+  for (std::size_t i = 0; i < gold.size(); ++i)
+    if (gold[i] != predicted[i])
+      errors.push_back({i, gold[i], predicted[i],
+                        probabilities[i * num_classes + static_cast<std::size_t>(predicted[i])]});
+  std::stable_sort(errors.begin(), errors.end(), [](const ConfidentError& a, const ConfidentError& b) {
+    return a.probability > b.probability;
+  });
+  if (errors.size() > limit) errors.resize(limit);
+  return errors;
+}
+
 // ---- multi-label ----------------------------------------------------------------------------
 
 MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t> gold,
@@ -282,10 +310,11 @@ MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t
   const std::size_t num_labels = label_names.size();
   GYRE_CHECK(num_labels > 0, "multi-label metrics need at least one label name");
   GYRE_CHECK(!gold.empty() && gold.size() % num_labels == 0,
-             "gold indicator matrix has " + std::to_string(gold.size()) + " values, not a positive multiple of " +
-                 std::to_string(num_labels) + " labels");
-  GYRE_CHECK(predicted.size() == gold.size(), "predicted indicator matrix has " + std::to_string(predicted.size()) +
-                                                  " values, gold has " + std::to_string(gold.size()));
+             "gold indicator matrix has " + std::to_string(gold.size()) +
+                 " values, not a positive multiple of " + std::to_string(num_labels) + " labels");
+  GYRE_CHECK(predicted.size() == gold.size(), "predicted indicator matrix has " +
+                                                  std::to_string(predicted.size()) + " values, gold has " +
+                                                  std::to_string(gold.size()));
   const std::size_t rows = gold.size() / num_labels;
   MultiLabelMetrics r;
   r.examples = static_cast<std::int64_t>(rows);
@@ -320,7 +349,8 @@ MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t
 MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
                                      std::span<const std::string> label_names, double threshold) {
   GYRE_CHECK(scores.size() == gold.size(), "scores hold " + std::to_string(scores.size()) +
-                                               " values, gold indicator matrix " + std::to_string(gold.size()));
+                                               " values, gold indicator matrix " +
+                                               std::to_string(gold.size()));
   std::vector<std::uint8_t> decisions(scores.size());
   for (std::size_t i = 0; i < scores.size(); ++i) {
     if (!std::isfinite(scores[i])) throw Error("score " + std::to_string(i) + " is not finite");
@@ -350,8 +380,8 @@ std::string MultiLabelMetrics::to_table(int decimals) const {
   bool any_absent = false;
   add_score_rows(table, labels, macro, micro, weighted, decimals, any_absent);
   std::string out = table.render();
-  out += "exact label-set match " + detail::fixed(exact_match, decimals) + " over " + std::to_string(examples) +
-         " examples";
+  out += "exact label-set match " + detail::fixed(exact_match, decimals) + " over " +
+         std::to_string(examples) + " examples";
   if (std::isfinite(threshold)) out += ", decision threshold " + detail::fixed(threshold, 2);
   out += "\n";
   return out;

@@ -11,9 +11,12 @@
 namespace gyre::eval {
 namespace {
 
-double safe_div(double num, double den) { return den > 0.0 ? num / den : 0.0; }
+double safe_div(double num, double den) {
+  return den > 0.0 ? num / den : 0.0;
+}
 
-void finish(std::int64_t correct, std::int64_t predicted, std::int64_t gold, double& p, double& r, double& f) {
+void finish(std::int64_t correct, std::int64_t predicted, std::int64_t gold, double& p, double& r,
+            double& f) {
   p = safe_div(static_cast<double>(correct), static_cast<double>(predicted));
   r = safe_div(static_cast<double>(correct), static_cast<double>(gold));
   f = safe_div(2.0 * p * r, p + r);
@@ -29,9 +32,9 @@ TaggingScorer::Counts& TaggingScorer::counts_for(const std::string& type) {
 }
 
 void TaggingScorer::add(std::span<const std::string> gold, std::span<const std::string> predicted) {
-  GYRE_CHECK(gold.size() == predicted.size(), "sentence " + std::to_string(sentences_) + ": gold has " +
-                                                  std::to_string(gold.size()) + " tags but predictions have " +
-                                                  std::to_string(predicted.size()));
+  GYRE_CHECK(gold.size() == predicted.size(),
+             "sentence " + std::to_string(sentences_) + ": gold has " + std::to_string(gold.size()) +
+                 " tags but predictions have " + std::to_string(predicted.size()));
   std::vector<Span> gold_spans, pred_spans;
   try {
     gold_spans = extract_spans(gold);
@@ -130,8 +133,8 @@ std::string TaggingMetrics::to_table(int decimals) const {
   table.add_row({"mean over types", fixed(macro.precision, decimals), fixed(macro.recall, decimals),
                  fixed(macro.f1, decimals), "", "", ""});
   std::string out = table.render();
-  out += "token accuracy " + fixed(token_accuracy, decimals) + " (" + std::to_string(correct_tokens) + " of " +
-         std::to_string(tokens) + " tokens, " + std::to_string(sentences) + " sentences)\n";
+  out += "token accuracy " + fixed(token_accuracy, decimals) + " (" + std::to_string(correct_tokens) +
+         " of " + std::to_string(tokens) + " tokens, " + std::to_string(sentences) + " sentences)\n";
   out += "a span counts as correct only with the same type and the same first and last token\n";
   return out;
 }

@@ -14,13 +14,16 @@ void TextTable::add_row(std::vector<std::string> cells) {
   rows_.push_back(std::move(cells));
 }
 
-void TextTable::add_rule() { rows_.emplace_back(); }
+void TextTable::add_rule() {
+  rows_.emplace_back();
+}
 
 std::string TextTable::render() const {
   std::vector<std::size_t> width(header_.size(), 0);
   for (std::size_t c = 0; c < header_.size(); ++c) width[c] = header_[c].size();
   for (const auto& row : rows_)
-    for (std::size_t c = 0; c < row.size() && c < width.size(); ++c) width[c] = std::max(width[c], row[c].size());
+    for (std::size_t c = 0; c < row.size() && c < width.size(); ++c)
+      width[c] = std::max(width[c], row[c].size());
   std::size_t total = 0;
   for (std::size_t w : width) total += w;
   total += width.empty() ? 0 : 2 * (width.size() - 1);

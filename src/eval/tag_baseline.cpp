@@ -11,7 +11,8 @@ std::int32_t pick(const std::vector<std::int64_t>& counts, const std::vector<std
   for (std::size_t t = 0; t < counts.size(); ++t) {
     if (counts[t] == 0) continue;
     if (best < 0 || counts[t] > counts[static_cast<std::size_t>(best)] ||
-        (counts[t] == counts[static_cast<std::size_t>(best)] && names[t] < names[static_cast<std::size_t>(best)]))
+        (counts[t] == counts[static_cast<std::size_t>(best)] &&
+         names[t] < names[static_cast<std::size_t>(best)]))
       best = static_cast<std::int32_t>(t);
   }
   return best;

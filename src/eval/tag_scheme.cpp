@@ -9,7 +9,9 @@
 namespace gyre::eval {
 namespace {
 
-bool opens_or_continues(char prefix) { return prefix == 'B' || prefix == 'I'; }
+bool opens_or_continues(char prefix) {
+  return prefix == 'B' || prefix == 'I';
+}
 
 // CoNLL-2000 evaluation script chunk rules (see the header): does a span that is open at the
 // previous tag end before the current one?
@@ -30,7 +32,9 @@ bool span_starts(char prev, std::string_view prev_type, char cur, std::string_vi
   return prev_type != cur_type;
 }
 
-std::string at(std::size_t i) { return "position " + std::to_string(i); }
+std::string at(std::size_t i) {
+  return "position " + std::to_string(i);
+}
 
 // Why the transition prev -> cur is invalid in the scheme, or "" if it is valid. prev_prefix 0
 // stands for the sentence start.
@@ -42,7 +46,8 @@ std::string transition_problem(char prev, std::string_view prev_type, std::strin
       const std::string begin = "B-" + std::string(cur_type);
       if (prev == 0)
         return std::string(cur_tag) + " at the sentence start; a span of type " + std::string(cur_type) +
-               " must start with " + begin + (scheme == TagScheme::bioes && cur == 'E' ? " or be S-" + std::string(cur_type) : "");
+               " must start with " + begin +
+               (scheme == TagScheme::bioes && cur == 'E' ? " or be S-" + std::string(cur_type) : "");
       return std::string(cur_tag) + " follows " + std::string(prev_tag) + "; a span of type " +
              std::string(cur_type) + " must start with " + begin;
     }
@@ -57,7 +62,9 @@ std::string transition_problem(char prev, std::string_view prev_type, std::strin
 
 }  // namespace
 
-std::string_view to_string(TagScheme scheme) noexcept { return scheme == TagScheme::bio ? "bio" : "bioes"; }
+std::string_view to_string(TagScheme scheme) noexcept {
+  return scheme == TagScheme::bio ? "bio" : "bioes";
+}
 
 TagScheme parse_tag_scheme(std::string_view text) {
   std::string lower(text);
@@ -69,8 +76,7 @@ TagScheme parse_tag_scheme(std::string_view text) {
 
 TagParts split_tag(std::string_view tag) {
   if (tag == "O") return {'O', {}};
-  if (tag.size() >= 3 && tag[1] == '-' &&
-      (tag[0] == 'B' || tag[0] == 'I' || tag[0] == 'E' || tag[0] == 'S'))
+  if (tag.size() >= 3 && tag[1] == '-' && (tag[0] == 'B' || tag[0] == 'I' || tag[0] == 'E' || tag[0] == 'S'))
     return {tag[0], tag.substr(2)};
   throw Error("malformed tag '" + std::string(tag) + "' (expected O or B-, I-, E-, S- followed by a type)");
 }
@@ -153,20 +159,23 @@ std::vector<TagIssue> check_tags(std::span<const std::string> tags, TagScheme sc
       continue;
     }
     if (!tag_in_scheme(tags[i], scheme)) {
-      issues.push_back({i, "'" + tags[i] + "' is not a " + std::string(scheme == TagScheme::bio ? "BIO" : "BIOES") +
+      issues.push_back({i, "'" + tags[i] + "' is not a " +
+                               std::string(scheme == TagScheme::bio ? "BIO" : "BIOES") +
                                " tag (BIO has only B-, I- and O)"});
       prev = 0;
       continue;
     }
-    std::string problem = transition_problem(prev, prev_type, prev_tag, cur.prefix, cur.type, tags[i], scheme);
+    std::string problem =
+        transition_problem(prev, prev_type, prev_tag, cur.prefix, cur.type, tags[i], scheme);
     if (!problem.empty()) issues.push_back({i, std::move(problem)});
     prev = cur.prefix;
     prev_type = cur.type;
     prev_tag = tags[i];
   }
   if (scheme == TagScheme::bioes && !tags.empty() && opens_or_continues(prev))
-    issues.push_back({tags.size() - 1, "the sentence ends on " + std::string(prev_tag) + "; the span of type " +
-                                           std::string(prev_type) + " must end with E-" + std::string(prev_type) +
+    issues.push_back({tags.size() - 1, "the sentence ends on " + std::string(prev_tag) +
+                                           "; the span of type " + std::string(prev_type) +
+                                           " must end with E-" + std::string(prev_type) +
                                            (prev == 'B' ? " or be S-" + std::string(prev_type) : "")});
   return issues;
 }
@@ -187,7 +196,8 @@ TransitionRules transition_rules(std::span<const std::string> tag_names, TagSche
   for (std::size_t i = 0; i < n; ++i) {
     parts[i] = split_tag(tag_names[i]);
     if (!tag_in_scheme(tag_names[i], scheme))
-      throw Error("tag '" + tag_names[i] + "' is not part of the " + std::string(to_string(scheme)) + " scheme");
+      throw Error("tag '" + tag_names[i] + "' is not part of the " + std::string(to_string(scheme)) +
+                  " scheme");
   }
   TransitionRules r;
   r.num_tags = n;

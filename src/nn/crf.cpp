@@ -39,11 +39,12 @@ Crf::Crf(ParameterStore& store, std::size_t num_tags, const std::string& prefix)
 void Crf::set_constraints(std::span<const std::uint8_t> transitions, std::span<const std::uint8_t> start,
                           std::span<const std::uint8_t> end, bool in_training) {
   const std::size_t n = num_tags_;
-  GYRE_CHECK(transitions.size() == n * n, "CRF constraints: transitions hold " + std::to_string(transitions.size()) +
-                                              " flags, expected " + std::to_string(n * n));
+  GYRE_CHECK(transitions.size() == n * n, "CRF constraints: transitions hold " +
+                                              std::to_string(transitions.size()) + " flags, expected " +
+                                              std::to_string(n * n));
   GYRE_CHECK(start.size() == n && end.size() == n,
-             "CRF constraints: start/end hold " + std::to_string(start.size()) + "/" + std::to_string(end.size()) +
-                 " flags, expected " + std::to_string(n));
+             "CRF constraints: start/end hold " + std::to_string(start.size()) + "/" +
+                 std::to_string(end.size()) + " flags, expected " + std::to_string(n));
   bool single_ok = false;
   for (std::size_t j = 0; j < n; ++j) single_ok = single_ok || (start[j] != 0 && end[j] != 0);
   GYRE_CHECK(single_ok, "CRF constraints allow no tag to both start and end a sequence");
@@ -59,7 +60,8 @@ void Crf::clear_constraints() noexcept {
   constrain_training_ = false;
 }
 
-Crf::Shape Crf::check_batch(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths) const {
+Crf::Shape Crf::check_batch(const Eigen::Ref<const Matrix>& emissions,
+                            std::span<const std::int32_t> lengths) const {
   GYRE_CHECK(!lengths.empty(), "CRF: empty batch");
   GYRE_CHECK(static_cast<std::size_t>(emissions.cols()) == num_tags_,
              "CRF: emissions have " + std::to_string(emissions.cols()) + " columns, expected " +
@@ -83,9 +85,9 @@ void Crf::load_scores(bool use_constraints) {
   for (std::size_t i = 0; i < n; ++i) {
     for (std::size_t j = 0; j < n; ++j) {
       const bool ok = !mask || allowed_transitions_[i * n + j] != 0;
-      trans_[i * n + j] =
-          ok ? static_cast<double>(transitions_->value(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)))
-             : kNegInf;
+      trans_[i * n + j] = ok ? static_cast<double>(transitions_->value(static_cast<Eigen::Index>(i),
+                                                                       static_cast<Eigen::Index>(j)))
+                             : kNegInf;
     }
     const auto c = static_cast<Eigen::Index>(i);
     start_scores_[i] = (!mask || allowed_start_[i] != 0) ? static_cast<double>(start_->value(0, c)) : kNegInf;
@@ -102,11 +104,18 @@ void Crf::reserve(Shape shape) {
     backpointer_.resize(cells);
   }
   if (log_z_.size() < shape.batch) log_z_.resize(shape.batch);
-  if (grad_acc_.size() < num_tags_ * num_tags_ + 2 * num_tags_) grad_acc_.resize(num_tags_ * num_tags_ + 2 * num_tags_);
+  if (grad_acc_.size() < num_tags_ * num_tags_ + 2 * num_tags_)
+    grad_acc_.resize(num_tags_ * num_tags_ + 2 * num_tags_);
+}
+
+void Crf::reserve_workspace(std::size_t max_steps, std::size_t max_batch) {
+  GYRE_CHECK(max_steps > 0 && max_batch > 0, "CRF: workspace shape must be positive");
+  reserve({max_steps, max_batch});
 }
 
 // alpha[t, b, j] = log sum over prefixes ending in j at t of exp(score); log_z_[b] at the end.
-void Crf::run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths, Shape shape) {
+void Crf::run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                      Shape shape) {
   const std::size_t n = num_tags_, batch = shape.batch;
   double* scratch = scratch_.data();
   for (std::size_t b = 0; b < batch; ++b) {
@@ -131,7 +140,8 @@ void Crf::run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const
 }
 
 // beta[t, b, i] = log sum over suffixes after i at t (excluding emission t) of exp(score).
-void Crf::run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths, Shape shape) {
+void Crf::run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                       Shape shape) {
   const std::size_t n = num_tags_, batch = shape.batch;
   double* scratch = scratch_.data();
   for (std::size_t b = 0; b < batch; ++b) {
@@ -144,7 +154,8 @@ void Crf::run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<cons
       const auto row = static_cast<Eigen::Index>((t + 1) * batch + b);
       for (std::size_t i = 0; i < n; ++i) {
         for (std::size_t j = 0; j < n; ++j)
-          scratch[j] = trans_[i * n + j] + static_cast<double>(emissions(row, static_cast<Eigen::Index>(j))) + next[j];
+          scratch[j] =
+              trans_[i * n + j] + static_cast<double>(emissions(row, static_cast<Eigen::Index>(j))) + next[j];
         cur[i] = log_sum_exp(scratch, n);
       }
     }
@@ -156,7 +167,8 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
   const Shape shape = check_batch(emissions, lengths);
   const std::size_t n = num_tags_, batch = shape.batch;
   GYRE_CHECK(gold.size() == shape.steps * batch, "CRF: gold holds " + std::to_string(gold.size()) +
-                                                     " tags, expected " + std::to_string(shape.steps * batch));
+                                                     " tags, expected " +
+                                                     std::to_string(shape.steps * batch));
   for (std::size_t b = 0; b < batch; ++b)
     for (std::size_t t = 0; t < static_cast<std::size_t>(lengths[b]); ++t) {
       const std::int32_t g = gold[t * batch + b];
@@ -184,7 +196,8 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
       throw Error("CRF: the gold tags of sequence " + std::to_string(b) +
                   " use a transition, first or last tag that the constraints forbid");
     const double nll = log_z_[b] - s;
-    if (!std::isfinite(nll)) throw DivergenceError("CRF: loss of sequence " + std::to_string(b) + " is not finite");
+    if (!std::isfinite(nll))
+      throw DivergenceError("CRF: loss of sequence " + std::to_string(b) + " is not finite");
     total += nll;
   }
 
@@ -221,7 +234,8 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
         const double* be_next = beta_.data() + ((t + 1) * batch + b) * n;
         const auto next_row = static_cast<Eigen::Index>((t + 1) * batch + b);
         for (std::size_t j = 0; j < n; ++j) {
-          const double tail = static_cast<double>(emissions(next_row, static_cast<Eigen::Index>(j))) + be_next[j] - lz;
+          const double tail =
+              static_cast<double>(emissions(next_row, static_cast<Eigen::Index>(j))) + be_next[j] - lz;
           for (std::size_t i = 0; i < n; ++i) g_trans[i * n + j] += std::exp(a[i] + trans_[i * n + j] + tail);
         }
         g_trans[g * n + static_cast<std::size_t>(gold[(t + 1) * batch + b])] -= 1.0;
@@ -242,9 +256,11 @@ void Crf::decode(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
                  std::span<std::int32_t> tags_out, std::span<double> best_scores) {
   const Shape shape = check_batch(emissions, lengths);
   const std::size_t n = num_tags_, batch = shape.batch;
-  GYRE_CHECK(tags_out.size() == shape.steps * batch, "CRF decode: output holds " + std::to_string(tags_out.size()) +
-                                                         " tags, expected " + std::to_string(shape.steps * batch));
-  GYRE_CHECK(best_scores.empty() || best_scores.size() == batch, "CRF decode: best_scores must hold one per sequence");
+  GYRE_CHECK(tags_out.size() == shape.steps * batch,
+             "CRF decode: output holds " + std::to_string(tags_out.size()) + " tags, expected " +
+                 std::to_string(shape.steps * batch));
+  GYRE_CHECK(best_scores.empty() || best_scores.size() == batch,
+             "CRF decode: best_scores must hold one per sequence");
   reserve(shape);
   load_scores(true);
   // alpha_ holds Viterbi scores delta[t, b, j]; backpointer_ the argmax predecessor.
@@ -252,7 +268,8 @@ void Crf::decode(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
     const auto len = static_cast<std::size_t>(lengths[b]);
     double* d0 = alpha_.data() + b * n;
     for (std::size_t j = 0; j < n; ++j)
-      d0[j] = start_scores_[j] + static_cast<double>(emissions(static_cast<Eigen::Index>(b), static_cast<Eigen::Index>(j)));
+      d0[j] = start_scores_[j] +
+              static_cast<double>(emissions(static_cast<Eigen::Index>(b), static_cast<Eigen::Index>(j)));
     for (std::size_t t = 1; t < len; ++t) {
       const double* prev = alpha_.data() + ((t - 1) * batch + b) * n;
       double* cur = alpha_.data() + (t * batch + b) * n;
@@ -303,7 +320,8 @@ void Crf::log_partition(const Eigen::Ref<const Matrix>& emissions, std::span<con
   std::copy(log_z_.begin(), log_z_.begin() + static_cast<std::ptrdiff_t>(shape.batch), out.begin());
 }
 
-void Crf::marginals(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths, Matrix& out) {
+void Crf::marginals(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                    Matrix& out) {
   const Shape shape = check_batch(emissions, lengths);
   const std::size_t n = num_tags_, batch = shape.batch;
   reserve(shape);
@@ -319,7 +337,8 @@ void Crf::marginals(const Eigen::Ref<const Matrix>& emissions, std::span<const s
         continue;
       }
       if (log_z_[b] == kNegInf)
-        throw Error("CRF marginals: no tag path of sequence " + std::to_string(b) + " satisfies the constraints");
+        throw Error("CRF marginals: no tag path of sequence " + std::to_string(b) +
+                    " satisfies the constraints");
       const double* a = alpha_.data() + (t * batch + b) * n;
       const double* be = beta_.data() + (t * batch + b) * n;
       for (std::size_t j = 0; j < n; ++j)
@@ -341,7 +360,8 @@ void Crf::path_score(const Eigen::Ref<const Matrix>& emissions, std::span<const 
       const std::int32_t y = tags[t * batch + b];
       GYRE_CHECK(y >= 0 && static_cast<std::size_t>(y) < n, "CRF path_score: tag out of range");
       s += static_cast<double>(emissions(static_cast<Eigen::Index>(t * batch + b), y));
-      s += prev < 0 ? static_cast<double>(start_->value(0, y)) : static_cast<double>(transitions_->value(prev, y));
+      s += prev < 0 ? static_cast<double>(start_->value(0, y))
+                    : static_cast<double>(transitions_->value(prev, y));
       prev = y;
     }
     s += static_cast<double>(end_->value(0, prev));

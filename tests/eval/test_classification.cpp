@@ -157,6 +157,21 @@ TEST_CASE("hand-counted calibration error and log loss", "[eval]") {
   REQUIRE_THAT(ll, WithinAbs(-(std::log(0.9) + std::log(0.1) + std::log(0.5) + std::log(0.7)) / 4.0, 1e-7));
 }
 
+TEST_CASE("most confident errors", "[eval]") {
+  // Hand-made: examples 1 and 3 are wrong with predicted-class probabilities 0.7 and 0.9.
+  const std::vector<std::int32_t> gold{0, 0, 1, 1};
+  const std::vector<std::int32_t> pred{0, 1, 1, 0};
+  const std::vector<float> probs{0.8f, 0.2f, 0.3f, 0.7f, 0.4f, 0.6f, 0.9f, 0.1f};
+  const auto errs = gyre::eval::most_confident_errors(gold, pred, probs, 2, 5);
+  REQUIRE(errs.size() == 2);
+  REQUIRE(errs[0].example == 3);
+  REQUIRE(errs[0].gold == 1);
+  REQUIRE(errs[0].predicted == 0);
+  REQUIRE_THAT(errs[0].probability, WithinAbs(0.9, 1e-7));
+  REQUIRE(errs[1].example == 1);
+  REQUIRE(gyre::eval::most_confident_errors(gold, pred, probs, 2, 1).size() == 1);
+}
+
 TEST_CASE("multi-label metrics equal sklearn 1.2.1", "[eval]") {
   // ref: tests/fixtures/metrics/multilabel.json (precision_recall_fscore_support on indicator
   // matrices, accuracy_score = subset accuracy), decisions = score >= 0.5.

@@ -189,7 +189,8 @@ TEST_CASE("repair and conversion keep the spans and give valid sequences", "[eva
         REQUIRE(gyre::eval::repair_tags(fixed, scheme) == fixed);
       }
       const Tags bio = gyre::eval::repair_tags(tags, TagScheme::bio);
-      REQUIRE(gyre::eval::convert_tags(gyre::eval::convert_tags(bio, TagScheme::bioes), TagScheme::bio) == bio);
+      REQUIRE(gyre::eval::convert_tags(gyre::eval::convert_tags(bio, TagScheme::bioes), TagScheme::bio) ==
+              bio);
     }
   }
   SECTION("encode_spans refuses overlaps") {
@@ -223,7 +224,8 @@ TEST_CASE("transition rules for constrained decoding", "[eval]") {
       const auto issues = gyre::eval::check_tags(Tags{bioes[i], bioes[j]}, TagScheme::bioes);
       bool pair_issue = false;
       for (const auto& issue : issues)
-        if (issue.position == 1 && issue.message.find("sentence ends") == std::string::npos) pair_issue = true;
+        if (issue.position == 1 && issue.message.find("sentence ends") == std::string::npos)
+          pair_issue = true;
       INFO(bioes[i] << " -> " << bioes[j]);
       REQUIRE(pair_issue == (q.allowed[i * bioes.size() + j] == 0));
     }

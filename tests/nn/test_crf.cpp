@@ -60,7 +60,8 @@ struct Enumerated {
   Matrix marg;
 };
 
-Enumerated enumerate(const ParameterStore& store, const Matrix& e, std::size_t n, const Allowed& allowed = {}) {
+Enumerated enumerate(const ParameterStore& store, const Matrix& e, std::size_t n,
+                     const Allowed& allowed = {}) {
   const auto len = static_cast<std::size_t>(e.rows());
   Enumerated r;
   std::vector<double> scores;
@@ -143,7 +144,8 @@ TEST_CASE("CRF log-partition, Viterbi and marginals equal brute-force enumeratio
     // NLL of any path = log Z - score.
     const std::vector<std::int32_t> gold(static_cast<std::size_t>(len), static_cast<std::int32_t>(trial % 3));
     const double nll = crf.loss(e, lengths, gold);
-    REQUIRE_THAT(nll, WithinAbs(ref.log_z - direct_score(store, e, std::vector<int>(gold.begin(), gold.end())), 1e-9));
+    REQUIRE_THAT(
+        nll, WithinAbs(ref.log_z - direct_score(store, e, std::vector<int>(gold.begin(), gold.end())), 1e-9));
   }
 }
 
@@ -244,7 +246,8 @@ TEST_CASE("CRF gradients pass central finite differences", "[nn][crf]") {
       crf.set_constraints(tr, st, en, true);
       for (std::size_t b = 0; b < batch; ++b) {
         const auto len = static_cast<std::size_t>(lengths[b]);
-        for (std::size_t t = 0; t < len; ++t) gold[t * batch + b] = static_cast<std::int32_t>((t + b) % 2 == 0 ? 0 : 3);
+        for (std::size_t t = 0; t < len; ++t)
+          gold[t * batch + b] = static_cast<std::int32_t>((t + b) % 2 == 0 ? 0 : 3);
         gold[(len - 1) * batch + b] = 0;
       }
     }
@@ -281,6 +284,7 @@ TEST_CASE("CRF: padded sequences in a batch equal the same sequences alone", "[n
   const std::vector<std::int32_t> lengths{3, 6, 1};
   ParameterStore store;
   Crf crf(store, n);
+  crf.reserve_workspace(steps, batch);
   randomize(store, rng);
   Matrix e = random_matrix(static_cast<Eigen::Index>(steps * batch), static_cast<Eigen::Index>(n), rng);
   std::vector<std::int32_t> gold(steps * batch);

@@ -112,6 +112,21 @@ double expected_calibration_error(std::span<const std::int32_t> gold, std::span<
                                   std::size_t num_classes, int bins = kCalibrationBins,
                                   std::vector<CalibrationBin>* bins_out = nullptr);
 
+/// A wrong prediction and the probability the model gave its (wrong) answer.
+struct ConfidentError {
+  std::size_t example = 0;
+  std::int32_t gold = 0;
+  std::int32_t predicted = 0;
+  float probability = 0.0f;  // probabilities[example, predicted]
+};
+
+/// The `limit` mistakes (gold != predicted) with the highest probability on the predicted class,
+/// most confident first; ties keep example order. probabilities is [N x C] as above.
+std::vector<ConfidentError> most_confident_errors(std::span<const std::int32_t> gold,
+                                                  std::span<const std::int32_t> predicted,
+                                                  std::span<const float> probabilities,
+                                                  std::size_t num_classes, std::size_t limit);
+
 struct MultiLabelMetrics {
   std::vector<ClassScores> labels;  // one per label id; all take part in the averages
   std::int64_t examples = 0;

@@ -30,7 +30,7 @@ struct TaggingMetrics {
   std::int64_t sentences = 0;
   std::int64_t tokens = 0;
   std::int64_t correct_tokens = 0;
-  double token_accuracy = 0.0;  // over all tokens, O included
+  double token_accuracy = 0.0;        // over all tokens, O included
   std::vector<SpanTypeScores> types;  // sorted by type name; every type seen in gold or predictions
   std::int64_t gold_spans = 0;
   std::int64_t predicted_spans = 0;

@@ -42,6 +42,10 @@ class Crf {
 
   std::size_t num_tags() const noexcept { return num_tags_; }
 
+  /// Sizes the workspace for batches up to [max_steps x max_batch] now (e.g. when the model is
+  /// built) instead of on the first call with that shape.
+  void reserve_workspace(std::size_t max_steps, std::size_t max_batch);
+
   /// Forbids transitions, first tags and last tags (1 = allowed, 0 = forbidden), e.g. from
   /// gyre::eval::transition_rules(). Spans: transitions [T*T] row-major (i -> j), start [T],
   /// end [T]. Forbidden moves get score -inf in decoding; with in_training also in the loss (the
@@ -87,8 +91,10 @@ class Crf {
   Shape check_batch(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths) const;
   void load_scores(bool use_constraints);  // copies parameters (+ -inf masks) into double buffers
   void reserve(Shape shape);
-  void run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths, Shape shape);
-  void run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths, Shape shape);
+  void run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                   Shape shape);
+  void run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                    Shape shape);
 
   std::size_t num_tags_;
   Parameter* transitions_;
