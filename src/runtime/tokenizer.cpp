@@ -375,9 +375,9 @@ std::string Tokenizer::normalize(std::string_view utf8) const {
 }
 
 void Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) const {
-  check_utf8(utf8);
   Emitter emit(out, settings_.max_tokens);
   try {
+    check_utf8(utf8);
 #ifdef GYRE_RUNTIME_HAS_ICU
     IcuState& state = icu_state();
     const std::string_view text = normalize_view(utf8, settings_, state);
@@ -404,9 +404,10 @@ void Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) c
           }
           if (cls == SegmentClass::kPunctuation && !keep_punct) return true;
           if (pending_space) {
+            // A space needs a cluster after it: stop rather than end the tokens with " ".
+            if (settings_.max_tokens != 0 && emit.count() + 2 > settings_.max_tokens) return false;
             emit.emit(" ");
             pending_space = false;
-            if (emit.full()) return false;
           }
           emit.emit(seg);
           return !emit.full();
