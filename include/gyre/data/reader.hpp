@@ -10,7 +10,7 @@
 // Every line may end in "\r\n" (the \r is stripped). Blank lines are ignored in kTsv/kJsonl/
 // kTaggedJsonl. A UTF-8 byte-order mark at the start of the file is skipped.
 // Bad records throw gyre::ParseError("path:line: what is wrong"); with skip_bad_lines they are
-// counted in ReadReport instead (a bad tagging sentence counts once, at its first line).
+// counted in ReadReport instead (a bad tagging sentence counts once, at its first bad line).
 
 #include <cstddef>
 #include <filesystem>
