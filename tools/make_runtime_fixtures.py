@@ -213,6 +213,18 @@ def main():
                 p = forward(ids)
             rows = [p] if task == "classify" else list(p)
             lines.append(f"{name}\t{text}\t" + ";".join(" ".join(f"{v:.9g}" for v in r.tolist()) for r in rows))
+    # Expected output of tools/embed-demo (arg-max label, probability to 4 decimals) on the
+    # classifier torch_lstm_uni_last, for the find_package consumer test.
+    header, tensors, forward = build(*CONFIGS[0][1:])
+    demo = ["# made by tools/make_runtime_fixtures.py; text<TAB>label<TAB>probability (python3-torch)"]
+    for T in (1, 3, 4, 6, 8, 12):
+        ids = torch.randint(1, CONFIGS[0][6], (T,), generator=gen).tolist()
+        with torch.no_grad():
+            p = forward(ids)
+        best = int(p.argmax())
+        demo.append(" ".join(f"t{i}" for i in ids) + f"\t{CONFIGS[0][7][best]}\t{float(p[best]):.4f}")
+    with open(os.path.join(OUT, "embed_demo_expected.tsv"), "w") as f:
+        f.write("\n".join(demo) + "\n")
     with open(os.path.join(OUT, "torch_expected.tsv"), "w") as f:
         f.write("\n".join(lines) + "\n")
 

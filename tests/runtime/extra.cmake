@@ -14,3 +14,12 @@ if(CMAKE_C_COMPILER)
   endif()
   add_test(NAME "runtime: C API" COMMAND test_runtime_c ${GYRE_FIXTURES_DIR}/runtime)
 endif()
+
+# 2. find_package(gyre) consumer: install into a temporary prefix, build tools/embed-demo against
+#    it, run it on a fixture model (needs the whole project built, as ctest runs after a build).
+add_test(NAME "runtime: embed-demo against the installed gyre"
+  COMMAND ${CMAKE_COMMAND} -DBUILD_DIR=${PROJECT_BINARY_DIR} -DSOURCE_DIR=${PROJECT_SOURCE_DIR}
+    -DWORK_DIR=${CMAKE_CURRENT_BINARY_DIR}/tmp/embed-demo -DGENERATOR=${CMAKE_GENERATOR}
+    -DCXX_COMPILER=${CMAKE_CXX_COMPILER} -DSANITIZE=${GYRE_SANITIZE}
+    -P ${CMAKE_CURRENT_SOURCE_DIR}/runtime/embed_demo_test.cmake)
+set_tests_properties("runtime: embed-demo against the installed gyre" PROPERTIES TIMEOUT 900)
