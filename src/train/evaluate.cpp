@@ -1,0 +1,164 @@
+#include "gyre/train/evaluate.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <numeric>
+
+#include "gyre/core/error.hpp"
+
+namespace gyre::train {
+
+using nlohmann::json;
+
+std::vector<ExamplePrediction> predict_all(model::SequenceModel& model, std::span<const data::EncodedExample> examples,
+                                           int batch_size) {
+  const auto& spec = model.spec();
+  std::vector<ExamplePrediction> out(examples.size());
+  // Sort by length so batches carry little padding; results do not depend on batching.
+  std::vector<std::size_t> order(examples.size());
+  std::iota(order.begin(), order.end(), std::size_t{0});
+  std::stable_sort(order.begin(), order.end(),
+                   [&](std::size_t a, std::size_t b) { return examples[a].ids.size() < examples[b].ids.size(); });
+  data::Batch batch;
+  model::Prediction pred;
+  const auto C = static_cast<std::size_t>(spec.num_labels());
+  for (std::size_t begin = 0; begin < order.size(); begin += static_cast<std::size_t>(batch_size)) {
+    const std::size_t end = std::min(order.size(), begin + static_cast<std::size_t>(batch_size));
+    data::fill_batch(examples, std::span<const std::size_t>(order).subspan(begin, end - begin), batch);
+    model.predict(batch, pred);
+    const auto B = static_cast<std::size_t>(batch.batch);
+    for (std::size_t b = 0; b < B; ++b) {
+      ExamplePrediction& p = out[batch.examples[b]];
+      if (spec.task == data::Task::kClassify) {
+        p.probs.assign(pred.probs.row(static_cast<Eigen::Index>(b)).data(),
+                       pred.probs.row(static_cast<Eigen::Index>(b)).data() + C);
+        const auto top = static_cast<std::int32_t>(std::max_element(p.probs.begin(), p.probs.end()) - p.probs.begin());
+        p.confidence = p.probs[static_cast<std::size_t>(top)];
+        p.labels.clear();
+        if (spec.output == model::OutputKind::kSigmoid) {
+          for (std::size_t c = 0; c < C; ++c)
+            if (p.probs[c] >= spec.threshold) p.labels.push_back(static_cast<std::int32_t>(c));
+        } else {
+          p.labels.push_back(top);
+        }
+      } else {
+        const int len = batch.lengths[b];
+        p.tags.resize(static_cast<std::size_t>(len));
+        p.tag_confidence.resize(static_cast<std::size_t>(len));
+        double sum = 0;
+        for (int t = 0; t < len; ++t) {
+          const auto row = static_cast<std::size_t>(t) * B + b;
+          const std::int32_t tag = pred.tags[row];
+          p.tags[static_cast<std::size_t>(t)] = tag;
+          p.tag_confidence[static_cast<std::size_t>(t)] = pred.probs(static_cast<Eigen::Index>(row), tag);
+          sum += p.tag_confidence[static_cast<std::size_t>(t)];
+        }
+        p.confidence = len > 0 ? static_cast<float>(sum / len) : 0.0f;
+      }
+    }
+  }
+  return out;
+}
+
+EvaluationResult evaluate(model::SequenceModel& model, std::span<const data::EncodedExample> examples,
+                          bool keep_predictions, int batch_size) {
+  const auto& spec = model.spec();
+  EvaluationResult r;
+  r.task = spec.task;
+  r.multi_label = spec.output == model::OutputKind::kSigmoid;
+  r.examples = examples.size();
+  GYRE_CHECK(!examples.empty(), "evaluate: no examples");
+  auto preds = predict_all(model, examples, batch_size);
+  const auto C = static_cast<std::size_t>(spec.num_labels());
+  // Probabilities are clipped at 1e-12 for the loss so one confident mistake cannot make it
+  // infinite (common practice, no source; the eval metrics' log loss uses sklearn's clipping).
+  constexpr double kFloor = 1e-12;
+  if (spec.task == data::Task::kClassify && r.multi_label) {
+    std::vector<std::uint8_t> gold(examples.size() * C, 0);
+    std::vector<float> scores;
+    scores.reserve(examples.size() * C);
+    double nll = 0;
+    for (std::size_t i = 0; i < examples.size(); ++i) {
+      for (auto label : examples[i].targets) gold[i * C + static_cast<std::size_t>(label)] = 1;
+      for (std::size_t c = 0; c < C; ++c) {
+        const double p = preds[i].probs[c];
+        nll -= gold[i * C + c] ? std::log(std::max(p, kFloor)) : std::log(std::max(1.0 - p, kFloor));
+      }
+      scores.insert(scores.end(), preds[i].probs.begin(), preds[i].probs.end());
+    }
+    r.loss = nll / static_cast<double>(examples.size());
+    r.multilabel = eval::multilabel_metrics(gold, scores, spec.labels, spec.threshold);
+  } else if (spec.task == data::Task::kClassify) {
+    std::vector<std::int32_t> gold, predicted;
+    std::vector<float> probs;
+    probs.reserve(examples.size() * C);
+    double nll = 0;
+    for (std::size_t i = 0; i < examples.size(); ++i) {
+      gold.push_back(examples[i].targets.at(0));
+      predicted.push_back(preds[i].labels.at(0));
+      probs.insert(probs.end(), preds[i].probs.begin(), preds[i].probs.end());
+      nll -= std::log(std::max<double>(preds[i].probs[static_cast<std::size_t>(gold.back())], kFloor));
+    }
+    r.loss = nll / static_cast<double>(examples.size());
+    r.classification = eval::classification_metrics(gold, predicted, spec.labels, probs);
+  } else {
+    eval::TaggingScorer scorer;
+    std::vector<std::string> gold_tags, pred_tags;
+    double nll = 0;
+    std::size_t tokens = 0;
+    for (std::size_t i = 0; i < examples.size(); ++i) {
+      gold_tags.clear();
+      pred_tags.clear();
+      for (std::size_t t = 0; t < examples[i].targets.size(); ++t) {
+        gold_tags.push_back(spec.labels[static_cast<std::size_t>(examples[i].targets[t])]);
+        pred_tags.push_back(spec.labels[static_cast<std::size_t>(preds[i].tags[t])]);
+        // Probability given to the gold tag is only known when the prediction is right;
+        // for a wrong tag, 1 - confidence bounds it from above.
+        const double p = preds[i].tags[t] == examples[i].targets[t] ? preds[i].tag_confidence[t]
+                                                                    : 1.0 - preds[i].tag_confidence[t];
+        nll -= std::log(std::max(p, kFloor));
+        ++tokens;
+      }
+      scorer.add(gold_tags, pred_tags);
+    }
+    r.loss = nll / static_cast<double>(std::max<std::size_t>(tokens, 1));
+    r.tagging = scorer.metrics();
+  }
+  if (keep_predictions) r.predictions = std::move(preds);
+  return r;
+}
+
+double EvaluationResult::metric(std::string_view name) const {
+  if (name == "loss") return loss;
+  if (classification) {
+    if (name == "accuracy") return classification->accuracy;
+    if (name == "macro_f1") return classification->macro.f1;
+  }
+  if (multilabel) {
+    if (name == "accuracy") return multilabel->exact_match;
+    if (name == "macro_f1") return multilabel->macro.f1;
+  }
+  if (tagging) {
+    if (name == "span_f1") return tagging->micro.f1;
+    if (name == "token_accuracy" || name == "accuracy") return tagging->token_accuracy;
+  }
+  throw ConfigError("early_stop_metric", "'" + std::string(name) + "' is not available for this task");
+}
+
+json EvaluationResult::summary() const {
+  if (tagging) return json{{"loss", loss}, {"token_accuracy", tagging->token_accuracy}, {"span_f1", tagging->micro.f1}};
+  return json{{"loss", loss}, {"accuracy", metric("accuracy")}, {"macro_f1", metric("macro_f1")}};
+}
+
+json EvaluationResult::to_json() const {
+  json j = classification ? classification->to_json() : multilabel ? multilabel->to_json() : tagging->to_json();
+  j["loss"] = loss;
+  return j;
+}
+
+bool metric_improves(std::string_view metric, double candidate, double best) {
+  if (std::isnan(best)) return true;
+  return metric == "loss" ? candidate < best : candidate > best;
+}
+
+}  // namespace gyre::train

@@ -1,0 +1,41 @@
+#include "gyre/train/reducer.hpp"
+
+#include "gyre/core/error.hpp"
+
+namespace gyre::train {
+
+void InProcessReducer::reduce(nn::ParameterStore& into, std::span<nn::ParameterStore* const> others) {
+  for (nn::ParameterStore* other : others) {
+    GYRE_CHECK(other->size() == into.size(), "reduce: replicas of different models");
+    for (std::size_t i = 0; i < into.size(); ++i) {
+      nn::Parameter& dst = into[i];
+      nn::Parameter& src = (*other)[i];
+      if (!dst.trainable) continue;
+      if (dst.sparse_rows) {
+        for (const auto row : src.touched_rows) dst.grad.row(row) += src.grad.row(row);
+        dst.touched_rows.insert(dst.touched_rows.end(), src.touched_rows.begin(), src.touched_rows.end());
+      } else {
+        dst.grad += src.grad;
+      }
+    }
+  }
+  for (auto& p : into)
+    if (p.sparse_rows) p.finalize_touched_rows();
+}
+
+void InProcessReducer::broadcast(const nn::ParameterStore& from, std::span<nn::ParameterStore* const> to) {
+  for (nn::ParameterStore* dst_store : to) {
+    for (std::size_t i = 0; i < from.size(); ++i) {
+      const nn::Parameter& src = from[i];
+      nn::Parameter& dst = (*dst_store)[i];
+      if (!src.trainable) continue;
+      if (src.sparse_rows) {
+        for (const auto row : src.touched_rows) dst.value.row(row) = src.value.row(row);
+      } else {
+        dst.value = src.value;
+      }
+    }
+  }
+}
+
+}  // namespace gyre::train
