@@ -7,6 +7,7 @@
 #include "runtime/detail/kernels.hpp"
 
 #if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#include <cpuid.h>
 #include <immintrin.h>
 #define GYRE_RUNTIME_X86 1
 #endif
@@ -324,12 +325,21 @@ constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx51
 
 }  // namespace
 
+#if defined(GYRE_RUNTIME_X86)
+// F16C is CPUID leaf 1, ECX bit 29 (Intel SDM vol. 2A, CPUID); read directly because clang 14's
+// __builtin_cpu_supports does not know "f16c".
+static bool has_f16c() noexcept {
+  unsigned eax = 0, ebx = 0, ecx = 0, edx = 0;
+  return __get_cpuid(1, &eax, &ebx, &ecx, &edx) != 0 && (ecx & (1U << 29)) != 0;
+}
+#endif
+
 bool isa_supported(Isa isa) noexcept {
   switch (isa) {
     case Isa::kPortable: return true;
 #if defined(GYRE_RUNTIME_X86)
     case Isa::kAvx2:
-      return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma") && __builtin_cpu_supports("f16c");
+      return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma") && has_f16c();
     case Isa::kAvx512:
       return isa_supported(Isa::kAvx2) && __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw") &&
              __builtin_cpu_supports("avx512vl");

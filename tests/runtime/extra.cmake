@@ -23,3 +23,11 @@ add_test(NAME "runtime: embed-demo against the installed gyre"
     -DCXX_COMPILER=${CMAKE_CXX_COMPILER} -DSANITIZE=${GYRE_SANITIZE}
     -P ${CMAKE_CURRENT_SOURCE_DIR}/runtime/embed_demo_test.cmake)
 set_tests_properties("runtime: embed-demo against the installed gyre" PROPERTIES TIMEOUT 900)
+
+# 3. libFuzzer on the loader for a bounded time (clang; skipped with code 77 when unavailable).
+#    Not in the sanitizer build: the fuzzer carries its own ASan+UBSan.
+if(NOT GYRE_SANITIZE)
+  add_test(NAME "runtime: loader fuzzing (60 s)"
+    COMMAND bash ${PROJECT_SOURCE_DIR}/tests/fuzz/run_fuzz.sh 60 ${CMAKE_CURRENT_BINARY_DIR}/fuzz)
+  set_tests_properties("runtime: loader fuzzing (60 s)" PROPERTIES LABELS slow TIMEOUT 900 SKIP_RETURN_CODE 77)
+endif()
