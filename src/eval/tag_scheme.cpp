@@ -74,6 +74,15 @@ TagScheme parse_tag_scheme(std::string_view text) {
   throw ConfigError("tag_scheme", "unknown tag scheme '" + std::string(text) + "' (expected bio or bioes)");
 }
 
+TagScheme infer_tag_scheme(std::span<const std::string> tag_names) {
+  TagScheme scheme = TagScheme::bio;
+  for (const auto& name : tag_names) {
+    const TagParts parts = split_tag(name);
+    if (parts.prefix == 'E' || parts.prefix == 'S') scheme = TagScheme::bioes;
+  }
+  return scheme;
+}
+
 TagParts split_tag(std::string_view tag) {
   if (tag == "O") return {'O', {}};
   if (tag.size() >= 3 && tag[1] == '-' && (tag[0] == 'B' || tag[0] == 'I' || tag[0] == 'E' || tag[0] == 'S'))

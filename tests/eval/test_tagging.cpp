@@ -235,6 +235,9 @@ TEST_CASE("transition rules for constrained decoding", "[eval]") {
   REQUIRE_FALSE(q.start[3]);  // E-x cannot start one
   REQUIRE_THROWS_AS(gyre::eval::transition_rules(Tags{"O", "S-x"}, TagScheme::bio), gyre::Error);
   REQUIRE(gyre::eval::parse_tag_scheme("BIOES") == TagScheme::bioes);
+  REQUIRE(gyre::eval::infer_tag_scheme(bio) == TagScheme::bio);
+  REQUIRE(gyre::eval::infer_tag_scheme(bioes) == TagScheme::bioes);
+  REQUIRE_THROWS_WITH(gyre::eval::infer_tag_scheme(Tags{"O", "B_x"}), Contains("'B_x'"));
   REQUIRE_THROWS_AS(gyre::eval::parse_tag_scheme("iob"), gyre::ConfigError);
 }
 

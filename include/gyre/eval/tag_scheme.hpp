@@ -32,6 +32,10 @@ std::string_view to_string(TagScheme scheme) noexcept;
 /// Parses "bio" or "bioes" (case-insensitive); throws gyre::ConfigError("tag_scheme", ...) otherwise.
 TagScheme parse_tag_scheme(std::string_view text);
 
+/// The scheme a tag set is written in: BIOES if any tag starts with E- or S-, else BIO.
+/// Throws gyre::Error naming the first malformed tag.
+TagScheme infer_tag_scheme(std::span<const std::string> tag_names);
+
 /// A tag split into its prefix letter ('O', 'B', 'I', 'E' or 'S') and type ("" for O).
 /// type views into the string the tag was split from.
 struct TagParts {
