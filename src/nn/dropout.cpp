@@ -20,7 +20,8 @@ void Dropout::forward(Matrix& x, bool training, Rng* rng) {
 
 void Dropout::backward(Matrix& d) const {
   if (!active_) return;
-  GYRE_CHECK(d.rows() == mask_.rows() && d.cols() == mask_.cols(), "Dropout::backward: shape differs from forward");
+  GYRE_CHECK(d.rows() == mask_.rows() && d.cols() == mask_.cols(),
+             "Dropout::backward: shape differs from forward");
   d.array() *= mask_.array();
 }
 

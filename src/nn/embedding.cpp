@@ -28,8 +28,8 @@ void Embedding::forward(std::span<const std::int32_t> ids, Matrix& out) {
   ids_.assign(ids.begin(), ids.end());
   for (Eigen::Index i = 0; i < N; ++i) {
     const std::int32_t id = ids[static_cast<std::size_t>(i)];
-    GYRE_CHECK(id >= 0 && id < V, "Embedding::forward: token id " + std::to_string(id) + " outside vocabulary of " +
-                                      std::to_string(V));
+    GYRE_CHECK(id >= 0 && id < V, "Embedding::forward: token id " + std::to_string(id) +
+                                      " outside vocabulary of " + std::to_string(V));
     if (id == 0)
       out.row(i).setZero();
     else
@@ -80,7 +80,8 @@ bool is_count(std::string_view s) {
 
 }  // namespace
 
-PretrainedStats Embedding::load_pretrained(const std::string& path, const std::function<int(std::string_view)>& lookup) {
+PretrainedStats Embedding::load_pretrained(const std::string& path,
+                                           const std::function<int(std::string_view)>& lookup) {
   std::ifstream in(path, std::ios::binary);
   if (!in) throw IoError("cannot open vector file '" + path + "'");
   const auto E = static_cast<std::size_t>(weight_.value.cols());
@@ -95,21 +96,25 @@ PretrainedStats Embedding::load_pretrained(const std::string& path, const std::f
     if (fields.empty()) throw ParseError(path, line_no, "empty line");
     if (line_no == 1 && fields.size() == 2 && is_count(fields[0]) && is_count(fields[1])) {
       if (std::stoul(std::string(fields[1])) != E)
-        throw ParseError(path, line_no, "header declares dimension " + std::string(fields[1]) + ", embedding has " +
-                                            std::to_string(E));
+        throw ParseError(
+            path, line_no,
+            "header declares dimension " + std::string(fields[1]) + ", embedding has " + std::to_string(E));
       continue;
     }
     if (fields.size() != E + 1)
-      throw ParseError(path, line_no, "expected a token and " + std::to_string(E) + " values, found " +
-                                          std::to_string(fields.size() - 1) + " values");
+      throw ParseError(path, line_no,
+                       "expected a token and " + std::to_string(E) + " values, found " +
+                           std::to_string(fields.size() - 1) + " values");
     for (std::size_t k = 0; k < E; ++k)
       if (!parse_float(fields[k + 1], values[k]))
-        throw ParseError(path, line_no, "value " + std::to_string(k + 1) + " ('" + std::string(fields[k + 1]) +
-                                            "') is not a finite number");
+        throw ParseError(path, line_no,
+                         "value " + std::to_string(k + 1) + " ('" + std::string(fields[k + 1]) +
+                             "') is not a finite number");
     ++stats.lines;
     const int id = lookup(fields[0]);
     if (id < 0) continue;  // token outside the vocabulary: counted in lines, not matched
-    if (id >= V) throw Error("load_pretrained: lookup returned id " + std::to_string(id) + " >= vocabulary size");
+    if (id >= V)
+      throw Error("load_pretrained: lookup returned id " + std::to_string(id) + " >= vocabulary size");
     if (id == 0) continue;  // padding stays zero
     for (std::size_t k = 0; k < E; ++k) weight_.value(id, static_cast<Eigen::Index>(k)) = values[k];
     ++stats.matched;

@@ -16,14 +16,18 @@ template <typename Valid>
 double cross_entropy_impl(const Matrix& logits, std::span<const int> targets, Matrix& d_logits,
                           const CrossEntropyOptions& opt, Valid valid) {
   const Eigen::Index N = logits.rows(), C = logits.cols();
-  GYRE_CHECK(static_cast<Eigen::Index>(targets.size()) == N, "cross-entropy: one target per logits row expected");
+  GYRE_CHECK(static_cast<Eigen::Index>(targets.size()) == N,
+             "cross-entropy: one target per logits row expected");
   GYRE_CHECK(opt.class_weights.empty() || static_cast<Eigen::Index>(opt.class_weights.size()) == C,
              "cross-entropy: class_weights must have one weight per class");
-  GYRE_CHECK(opt.label_smoothing >= 0.0f && opt.label_smoothing < 1.0f, "cross-entropy: label_smoothing must be in [0, 1)");
+  GYRE_CHECK(opt.label_smoothing >= 0.0f && opt.label_smoothing < 1.0f,
+             "cross-entropy: label_smoothing must be in [0, 1)");
   if (d_logits.rows() != N || d_logits.cols() != C) d_logits.resize(N, C);
   const bool weighted = !opt.class_weights.empty();
   const double eps = opt.label_smoothing;
-  auto w = [&](Eigen::Index c) { return weighted ? static_cast<double>(opt.class_weights[static_cast<std::size_t>(c)]) : 1.0; };
+  auto w = [&](Eigen::Index c) {
+    return weighted ? static_cast<double>(opt.class_weights[static_cast<std::size_t>(c)]) : 1.0;
+  };
   double sum_w = 0.0;  // sum over classes of w_c (smoothing term)
   for (Eigen::Index c = 0; c < C; ++c) sum_w += w(c);
 
@@ -49,7 +53,8 @@ double cross_entropy_impl(const Matrix& logits, std::span<const int> targets, Ma
     norm += wy;
     for (Eigen::Index c = 0; c < C; ++c) {
       const double p = std::exp(static_cast<double>(row(c)) - lse);
-      double g = (1.0 - eps) * wy * (p - (c == y ? 1.0 : 0.0)) + eps / static_cast<double>(C) * (sum_w * p - w(c));
+      double g =
+          (1.0 - eps) * wy * (p - (c == y ? 1.0 : 0.0)) + eps / static_cast<double>(C) * (sum_w * p - w(c));
       d_logits(i, c) = static_cast<float>(g);
     }
   }
@@ -68,19 +73,20 @@ double softmax_cross_entropy(const Matrix& logits, std::span<const int> targets,
   return cross_entropy_impl(logits, targets, d_logits, options, [](Eigen::Index) { return true; });
 }
 
-double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int T, std::span<const int> lengths,
-                           Matrix& d_logits, const CrossEntropyOptions& options) {
+double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int T,
+                           std::span<const int> lengths, Matrix& d_logits,
+                           const CrossEntropyOptions& options) {
   const Eigen::Index B = detail::check_batch("token_cross_entropy", logits.rows(), T, lengths, 0);
-  return cross_entropy_impl(logits, tags, d_logits, options, [&](Eigen::Index i) {
-    return i / B < lengths[static_cast<std::size_t>(i % B)];
-  });
+  return cross_entropy_impl(logits, tags, d_logits, options,
+                            [&](Eigen::Index i) { return i / B < lengths[static_cast<std::size_t>(i % B)]; });
 }
 
 double sigmoid_binary_cross_entropy(const Matrix& logits, const Matrix& targets, Matrix& d_logits) {
   GYRE_CHECK(logits.rows() == targets.rows() && logits.cols() == targets.cols(),
              "sigmoid_binary_cross_entropy: logits and targets must have the same shape");
   GYRE_CHECK(logits.size() > 0, "sigmoid_binary_cross_entropy: empty input");
-  if (d_logits.rows() != logits.rows() || d_logits.cols() != logits.cols()) d_logits.resize(logits.rows(), logits.cols());
+  if (d_logits.rows() != logits.rows() || d_logits.cols() != logits.cols())
+    d_logits.resize(logits.rows(), logits.cols());
   const double inv_n = 1.0 / static_cast<double>(logits.size());
   double total = 0.0;
   for (Eigen::Index i = 0; i < logits.size(); ++i) {
@@ -94,7 +100,8 @@ double sigmoid_binary_cross_entropy(const Matrix& logits, const Matrix& targets,
 }
 
 void softmax_rows(const Matrix& logits, Matrix& probs) {
-  if (probs.rows() != logits.rows() || probs.cols() != logits.cols()) probs.resize(logits.rows(), logits.cols());
+  if (probs.rows() != logits.rows() || probs.cols() != logits.cols())
+    probs.resize(logits.rows(), logits.cols());
   for (Eigen::Index i = 0; i < logits.rows(); ++i) {
     const float m = logits.row(i).maxCoeff();
     probs.row(i) = (logits.row(i).array() - m).exp().matrix();

@@ -4,30 +4,33 @@
 
 #include "detail/buffer.hpp"
 #include "detail/gemm.hpp"
+#include "detail/sequence_layout.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/nn/init.hpp"
 
 namespace gyre::nn {
 
-// Caches for backward, all indexed by the time row r = t*B + b (the row of x), so the weight
-// gradients are single GEMMs over [T*B] rows after the time loop.
+// Caches for backward, all in packed rows (detail/sequence_layout.hpp): N = sum of lengths, the
+// rows of processing step s are the block [offset(s), offset(s) + count(s)).
 struct LstmLayer::Workspace {
-  const Matrix* x = nullptr;
-  int T = 0;
-  Eigen::Index B = 0;
-  std::vector<int> lengths;
+  detail::SequenceLayout layout;
+  bool ready = false;  // a forward has run
   // One GEMM object per call site: each keeps its packing buffers (see detail/gemm.hpp).
   detail::Gemm gemm_input, gemm_step, gemm_back, gemm_dw_input, gemm_dw_hidden, gemm_dx;
-  detail::GrowBuffer gates;   // [T*B x 4H]: input projection, then activations i f g o in place
-  detail::GrowBuffer tanh_c;  // [T*B x H]: tanh(c') after the step
-  detail::GrowBuffer c_prev;  // [T*B x H]: cell state before the step
-  detail::GrowBuffer h_prev;  // [T*B x H]: hidden state before the step (zero on padded rows)
-  detail::GrowBuffer step;    // [B x 4H]: U h of the current step / gate gradients of the step
-  detail::GrowBuffer h, c;    // [B x H]: running state (forward) / its gradient (backward)
-  detail::GrowBuffer dgates;  // [T*B x 4H]: d loss / d pre-activations
+  detail::GrowBuffer x;       // [N x D]: the packed input (kept for the weight gradient)
+  detail::GrowBuffer gates;   // [N x 4H]: pre-activations, then activations i f g o in place
+  detail::GrowBuffer h;       // [N x H]: hidden state after the step
+  detail::GrowBuffer c;       // [N x H]: cell state after the step
+  detail::GrowBuffer tanh_c;  // [N x H]: tanh(c)
+  detail::GrowBuffer h_prev;  // [N x H]: hidden state before the step
+  detail::GrowBuffer c_prev;  // [N x H]: cell state before the step
+  detail::GrowBuffer h0, c0;  // [B x H]: initial state in sorted order / its gradient (backward)
+  detail::GrowBuffer dgates;  // [N x 4H]: d loss / d pre-activations
+  detail::GrowBuffer dx;      // [N x D]: packed input gradient
 };
 
-LstmLayer::LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size, bool reverse)
+LstmLayer::LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
+                     bool reverse)
     : input_size_(input_size),
       hidden_size_(hidden_size),
       reverse_(reverse),
@@ -48,136 +51,158 @@ void LstmLayer::init_parameters(Rng& rng) {
 
 std::size_t LstmLayer::workspace_capacity() const noexcept {
   const Workspace& w = *ws_;
-  return w.gates.capacity_bytes() + w.tanh_c.capacity_bytes() + w.c_prev.capacity_bytes() +
-         w.h_prev.capacity_bytes() + w.step.capacity_bytes() + w.h.capacity_bytes() + w.c.capacity_bytes() +
-         w.dgates.capacity_bytes();
+  return w.x.capacity_bytes() + w.gates.capacity_bytes() + w.h.capacity_bytes() + w.c.capacity_bytes() +
+         w.tanh_c.capacity_bytes() + w.h_prev.capacity_bytes() + w.c_prev.capacity_bytes() +
+         w.h0.capacity_bytes() + w.c0.capacity_bytes() + w.dgates.capacity_bytes() + w.dx.capacity_bytes();
 }
 
-void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out, const Matrix* h0,
-                        const Matrix* c0, Matrix* h_final, Matrix* c_final) {
+void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
+                        const Matrix* h0, const Matrix* c0, Matrix* h_final, Matrix* c_final) {
   const Eigen::Index B = detail::check_batch("LstmLayer::forward", x.rows(), T, lengths, 0);
-  const Eigen::Index H = hidden_size_, TB = x.rows();
-  GYRE_CHECK(x.cols() == input_size_, "LstmLayer::forward: input has " + std::to_string(x.cols()) +
-                                          " columns, layer expects " + std::to_string(input_size_));
-  GYRE_CHECK(out.rows() == TB && out.cols() == H, "LstmLayer::forward: output must be [T*B x hidden_size]");
+  const Eigen::Index H = hidden_size_, D = input_size_;
+  GYRE_CHECK(x.cols() == D, "LstmLayer::forward: input has " + std::to_string(x.cols()) +
+                                " columns, layer expects " + std::to_string(D));
+  GYRE_CHECK(out.rows() == x.rows() && out.cols() == H,
+             "LstmLayer::forward: output must be [T*B x hidden_size]");
   GYRE_CHECK(h0 == nullptr || (h0->rows() == B && h0->cols() == H), "LstmLayer::forward: h0 must be [B x H]");
   GYRE_CHECK(c0 == nullptr || (c0->rows() == B && c0->cols() == H), "LstmLayer::forward: c0 must be [B x H]");
   Workspace& w = *ws_;
-  w.x = &x;
-  w.T = T;
-  w.B = B;
-  w.lengths.assign(lengths.begin(), lengths.end());
+  detail::SequenceLayout& lay = w.layout;
+  lay.build(lengths, T, reverse_);
+  w.ready = true;
+  const Eigen::Index N = lay.rows();
 
-  MatrixMap gates = w.gates.view(TB, 4 * H);
-  MatrixMap tanh_c = w.tanh_c.view(TB, H);
-  MatrixMap c_prev = w.c_prev.view(TB, H);
-  MatrixMap h_prev = w.h_prev.view(TB, H);
-  MatrixMap step = w.step.view(B, 4 * H);
-  MatrixMap h = w.h.view(B, H);
-  MatrixMap c = w.c.view(B, H);
+  MatrixMap xs = w.x.view(N, D);
+  MatrixMap gates = w.gates.view(N, 4 * H);
+  MatrixMap hs = w.h.view(N, H), cs = w.c.view(N, H), tanh_c = w.tanh_c.view(N, H);
+  MatrixMap h_prev = w.h_prev.view(N, H), c_prev = w.c_prev.view(N, H);
+  MatrixMap hi = w.h0.view(B, H), ci = w.c0.view(B, H);
 
-  // Input projection of all time steps in one GEMM, bias folded in.
-  w.gemm_input.run(gates, x, detail::Op::kN, w_input_.value, detail::Op::kT, false);
+  for (Eigen::Index p = 0; p < N; ++p) xs.row(p) = x.row(lay.source(p));
+  for (int j = 0; j < B; ++j) {
+    const int b = lay.sequence(j);
+    if (h0 != nullptr)
+      hi.row(j) = h0->row(b);
+    else
+      hi.row(j).setZero();
+    if (c0 != nullptr)
+      ci.row(j) = c0->row(b);
+    else
+      ci.row(j).setZero();
+  }
+  // Input projection of all valid steps in one GEMM, bias folded in.
+  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false);
   gates.rowwise() += bias_.value.row(0);
-  if (h0 != nullptr) h = *h0; else h.setZero();
-  if (c0 != nullptr) c = *c0; else c.setZero();
-  for (Eigen::Index b = 0; b < B; ++b)
-    for (Eigen::Index t = lengths[static_cast<std::size_t>(b)]; t < T; ++t) {
-      out.row(t * B + b).setZero();
-      h_prev.row(t * B + b).setZero();
-      c_prev.row(t * B + b).setZero();
-      tanh_c.row(t * B + b).setZero();
-    }
 
   const Matrix& U = w_hidden_.value;
   for (int s = 0; s < T; ++s) {
-    w.gemm_step.run(step, h, detail::Op::kN, U, detail::Op::kT, false);  // one fused gate GEMM over the batch
-    for (Eigen::Index b = 0; b < B; ++b) {
-      const int len = lengths[static_cast<std::size_t>(b)];
-      if (s >= len) continue;  // padded step: state carried unchanged
-      const Eigen::Index r = static_cast<Eigen::Index>(reverse_ ? len - 1 - s : s) * B + b;
-      auto a = gates.row(r);
-      a += step.row(b);
-      a.segment(0, 2 * H) = a.segment(0, 2 * H).array().logistic();  // i, f
-      a.segment(2 * H, H) = a.segment(2 * H, H).array().tanh();      // g
-      a.segment(3 * H, H) = a.segment(3 * H, H).array().logistic();  // o
-      c_prev.row(r) = c.row(b);
-      h_prev.row(r) = h.row(b);
-      c.row(b).array() = a.segment(H, H).array() * c.row(b).array() + a.segment(0, H).array() * a.segment(2 * H, H).array();
-      tanh_c.row(r).array() = c.row(b).array().tanh();
-      h.row(b).array() = a.segment(3 * H, H).array() * tanh_c.row(r).array();
-      out.row(r) = h.row(b);
+    const Eigen::Index n = lay.count(s), o = lay.offset(s);
+    if (n == 0) break;  // sorted by length: no later step has work either
+    if (s == 0) {
+      h_prev.middleRows(o, n) = hi.topRows(n);
+      c_prev.middleRows(o, n) = ci.topRows(n);
+    } else {
+      const Eigen::Index po = lay.offset(s - 1);
+      h_prev.middleRows(o, n) = hs.middleRows(po, n);
+      c_prev.middleRows(o, n) = cs.middleRows(po, n);
+    }
+    auto g = gates.middleRows(o, n);
+    // One fused gate GEMM over the running sequences: gates += h_prev U^T.
+    w.gemm_step.run(g, h_prev.middleRows(o, n), detail::Op::kN, U, detail::Op::kT, true);
+    g.leftCols(2 * H) = g.leftCols(2 * H).array().logistic().matrix();        // i, f
+    g.middleCols(2 * H, H) = g.middleCols(2 * H, H).array().tanh().matrix();  // g
+    g.rightCols(H) = g.rightCols(H).array().logistic().matrix();              // o
+    auto c_new = cs.middleRows(o, n);
+    c_new.array() = g.middleCols(H, H).array() * c_prev.middleRows(o, n).array() +
+                    g.leftCols(H).array() * g.middleCols(2 * H, H).array();
+    tanh_c.middleRows(o, n) = c_new.array().tanh().matrix();
+    hs.middleRows(o, n).array() = g.rightCols(H).array() * tanh_c.middleRows(o, n).array();
+  }
+
+  out.setZero();  // padding rows
+  for (Eigen::Index p = 0; p < N; ++p) out.row(lay.source(p)) = hs.row(p);
+  if (h_final != nullptr && (h_final->rows() != B || h_final->cols() != H)) h_final->resize(B, H);
+  if (c_final != nullptr && (c_final->rows() != B || c_final->cols() != H)) c_final->resize(B, H);
+  for (int j = 0; j < B; ++j) {
+    const int b = lay.sequence(j), len = lay.length(j);
+    const Eigen::Index last = len == 0 ? -1 : lay.offset(len - 1) + j;
+    if (h_final != nullptr) {
+      if (last < 0)
+        h_final->row(b) = hi.row(j);
+      else
+        h_final->row(b) = hs.row(last);
+    }
+    if (c_final != nullptr) {
+      if (last < 0)
+        c_final->row(b) = ci.row(j);
+      else
+        c_final->row(b) = cs.row(last);
     }
   }
-  if (h_final != nullptr) *h_final = h;
-  if (c_final != nullptr) *c_final = c;
 }
 
-void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx, Matrix* d_h0, Matrix* d_c0) {
+void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx, Matrix* d_h0,
+                         Matrix* d_c0) {
   Workspace& w = *ws_;
-  GYRE_CHECK(w.x != nullptr, "LstmLayer::backward called before forward");
-  const Eigen::Index B = w.B, H = hidden_size_, TB = w.T * B;
-  GYRE_CHECK(d_out.rows() == TB && d_out.cols() == H, "LstmLayer::backward: d_out must be [T*B x hidden_size]");
-  GYRE_CHECK(w.x->rows() == TB && w.x->cols() == input_size_,
-             "LstmLayer::backward: the forward input changed shape before backward");
-  const int T = w.T;
-  const auto& lengths = w.lengths;
+  GYRE_CHECK(w.ready, "LstmLayer::backward called before forward");
+  const detail::SequenceLayout& lay = w.layout;
+  const Eigen::Index B = lay.batch(), H = hidden_size_, D = input_size_, TB = lay.steps() * B, N = lay.rows();
+  GYRE_CHECK(d_out.rows() == TB && d_out.cols() == H,
+             "LstmLayer::backward: d_out must be [T*B x hidden_size]");
 
-  MatrixMap gates = w.gates.view(TB, 4 * H);
-  MatrixMap tanh_c = w.tanh_c.view(TB, H);
-  MatrixMap c_prev = w.c_prev.view(TB, H);
-  MatrixMap h_prev = w.h_prev.view(TB, H);
-  MatrixMap dstep = w.step.view(B, 4 * H);
-  MatrixMap dh = w.h.view(B, H);
-  MatrixMap dc = w.c.view(B, H);
-  MatrixMap dgates = w.dgates.view(TB, 4 * H);
+  MatrixMap xs = w.x.view(N, D);
+  MatrixMap gates = w.gates.view(N, 4 * H);
+  MatrixMap tanh_c = w.tanh_c.view(N, H);
+  MatrixMap h_prev = w.h_prev.view(N, H), c_prev = w.c_prev.view(N, H);
+  MatrixMap dh = w.h0.view(B, H), dc = w.c0.view(B, H);  // running state gradients, sorted order
+  MatrixMap dgates = w.dgates.view(N, 4 * H);
 
   dh.setZero();  // the gradient w.r.t. the final state is zero (window boundary)
   dc.setZero();
-  for (Eigen::Index b = 0; b < B; ++b)
-    for (Eigen::Index t = lengths[static_cast<std::size_t>(b)]; t < T; ++t) dgates.row(t * B + b).setZero();
-
   const Matrix& U = w_hidden_.value;
-  for (int s = T - 1; s >= 0; --s) {
-    for (Eigen::Index b = 0; b < B; ++b) {
-      const int len = lengths[static_cast<std::size_t>(b)];
-      if (s >= len) {
-        dstep.row(b).setZero();  // padded: dh, dc pass through unchanged (and are zero here)
-        continue;
-      }
-      const Eigen::Index r = static_cast<Eigen::Index>(reverse_ ? len - 1 - s : s) * B + b;
-      const auto a = gates.row(r).array();
-      const auto i = a.segment(0, H), f = a.segment(H, H), g = a.segment(2 * H, H), o = a.segment(3 * H, H);
-      const auto tc = tanh_c.row(r).array();
-      auto dhb = dh.row(b).array();
-      dhb += d_out.row(r).array();
-      auto dcb = dc.row(b).array();
-      dcb += dhb * o * (1.0f - tc * tc);
-      auto dg = dgates.row(r).array();
-      dg.segment(0, H) = dcb * g * i * (1.0f - i);
-      dg.segment(H, H) = dcb * c_prev.row(r).array() * f * (1.0f - f);
-      dg.segment(2 * H, H) = dcb * i * (1.0f - g * g);
-      dg.segment(3 * H, H) = dhb * tc * o * (1.0f - o);
-      dcb *= f;
-      dstep.row(b) = dgates.row(r);
-    }
-    w.gemm_back.run(dh, dstep, detail::Op::kN, U, detail::Op::kN, false);
+  for (int s = lay.steps() - 1; s >= 0; --s) {
+    const Eigen::Index n = lay.count(s), o = lay.offset(s);
+    if (n == 0) continue;
+    for (Eigen::Index j = 0; j < n; ++j) dh.row(j) += d_out.row(lay.source(o + j));
+    const auto a = gates.middleRows(o, n).array();
+    const auto i = a.leftCols(H), f = a.middleCols(H, H), g = a.middleCols(2 * H, H), og = a.rightCols(H);
+    const auto tc = tanh_c.middleRows(o, n).array();
+    auto dH = dh.topRows(n).array();
+    auto dC = dc.topRows(n).array();
+    dC += dH * og * (1.0f - tc * tc);
+    auto dg = dgates.middleRows(o, n).array();
+    dg.leftCols(H) = dC * g * i * (1.0f - i);
+    dg.middleCols(H, H) = dC * c_prev.middleRows(o, n).array() * f * (1.0f - f);
+    dg.middleCols(2 * H, H) = dC * i * (1.0f - g * g);
+    dg.rightCols(H) = dH * tc * og * (1.0f - og);
+    dC *= f;
+    // Sequences not running at step s have had no step yet in this backward sweep: their
+    // gradients are still zero and stay so.
+    w.gemm_back.run(dh.topRows(n), dgates.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, false);
   }
 
-  w.gemm_dw_input.run(w_input_.grad, dgates, detail::Op::kT, *w.x, detail::Op::kN, true);
+  w.gemm_dw_input.run(w_input_.grad, dgates, detail::Op::kT, xs, detail::Op::kN, true);
   w.gemm_dw_hidden.run(w_hidden_.grad, dgates, detail::Op::kT, h_prev, detail::Op::kN, true);
   bias_.grad.row(0).noalias() += dgates.colwise().sum();
   if (d_x != nullptr) {
     if (accumulate_dx) {
-      GYRE_CHECK(d_x->rows() == TB && d_x->cols() == input_size_, "LstmLayer::backward: d_x has the wrong shape");
-      w.gemm_dx.run(*d_x, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, true);
+      GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "LstmLayer::backward: d_x has the wrong shape");
     } else {
-      if (d_x->rows() != TB || d_x->cols() != input_size_) d_x->resize(TB, input_size_);
-      w.gemm_dx.run(*d_x, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, false);
+      if (d_x->rows() != TB || d_x->cols() != D) d_x->resize(TB, D);
+      d_x->setZero();
+    }
+    MatrixMap dxs = w.dx.view(N, D);
+    w.gemm_dx.run(dxs, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, false);
+    for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
+  }
+  if (d_h0 != nullptr || d_c0 != nullptr) {
+    if (d_h0 != nullptr && (d_h0->rows() != B || d_h0->cols() != H)) d_h0->resize(B, H);
+    if (d_c0 != nullptr && (d_c0->rows() != B || d_c0->cols() != H)) d_c0->resize(B, H);
+    for (int j = 0; j < B; ++j) {
+      if (d_h0 != nullptr) d_h0->row(lay.sequence(j)) = dh.row(j);
+      if (d_c0 != nullptr) d_c0->row(lay.sequence(j)) = dc.row(j);
     }
   }
-  if (d_h0 != nullptr) *d_h0 = dh;
-  if (d_c0 != nullptr) *d_c0 = dc;
 }
 
 }  // namespace gyre::nn

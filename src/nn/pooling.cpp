@@ -16,9 +16,12 @@ PoolingKind parse_pooling(std::string_view name) {
 
 std::string_view pooling_name(PoolingKind kind) noexcept {
   switch (kind) {
-    case PoolingKind::kLast: return "last";
-    case PoolingKind::kMean: return "mean";
-    case PoolingKind::kMax: return "max";
+    case PoolingKind::kLast:
+      return "last";
+    case PoolingKind::kMean:
+      return "mean";
+    case PoolingKind::kMax:
+      return "max";
   }
   return "?";
 }
@@ -94,7 +97,8 @@ void Pooling::backward(const Matrix& d_pooled, Matrix& d_seq) const {
       break;
     case PoolingKind::kMax:
       for (Eigen::Index b = 0; b < B; ++b)
-        for (Eigen::Index f = 0; f < F; ++f) d_seq(argmax_[static_cast<std::size_t>(b * F + f)], f) += d_pooled(b, f);
+        for (Eigen::Index f = 0; f < F; ++f)
+          d_seq(argmax_[static_cast<std::size_t>(b * F + f)], f) += d_pooled(b, f);
       break;
   }
 }

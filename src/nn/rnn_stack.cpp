@@ -8,7 +8,8 @@
 
 namespace gyre::nn {
 
-RnnStack::RnnStack(const RnnStackConfig& config, ParameterStore& store, std::string prefix) : config_(config) {
+RnnStack::RnnStack(const RnnStackConfig& config, ParameterStore& store, std::string prefix)
+    : config_(config) {
   if (config.input_size <= 0) throw ConfigError("input_size", "must be positive");
   if (config.hidden_size <= 0) throw ConfigError("hidden_size", "must be positive");
   if (config.layers <= 0) throw ConfigError("layers", "must be positive");
@@ -47,7 +48,8 @@ void ensure_shape(Matrix& m, Eigen::Index rows, Eigen::Index cols) {
 void RnnStack::forward(const Matrix& x, int T, std::span<const int> lengths, Matrix& out, bool training,
                        Rng* dropout_rng, const RnnState* init, RnnState* final) {
   GYRE_CHECK(x.cols() == config_.input_size, "RnnStack::forward: input has " + std::to_string(x.cols()) +
-                                                 " columns, expected input_size " + std::to_string(config_.input_size));
+                                                 " columns, expected input_size " +
+                                                 std::to_string(config_.input_size));
   const auto B = static_cast<Eigen::Index>(lengths.size());
   GYRE_CHECK(x.rows() == T * B, "RnnStack::forward: input rows must be T*B");
   const int dirs = directions(), L = config_.layers;
@@ -62,10 +64,10 @@ void RnnStack::forward(const Matrix& x, int T, std::span<const int> lengths, Mat
     final->c.resize(lstm ? n_states : 0);
   }
   dropout_applied_ = training && config_.dropout > 0.0f && L > 1;
-  GYRE_CHECK(!dropout_applied_ || dropout_rng != nullptr, "RnnStack::forward: dropout needs an Rng when training");
-  input_ = &x;
-  T_ = T;
-  lengths_.assign(lengths.begin(), lengths.end());
+  GYRE_CHECK(!dropout_applied_ || dropout_rng != nullptr,
+             "RnnStack::forward: dropout needs an Rng when training");
+  ready_ = true;
+  rows_ = x.rows();
 
   const Eigen::Index H = config_.hidden_size, TB = x.rows();
   const float keep = 1.0f - config_.dropout, scale = 1.0f / keep;
@@ -77,7 +79,8 @@ void RnnStack::forward(const Matrix& x, int T, std::span<const int> lengths, Mat
       const auto idx = static_cast<std::size_t>(k * dirs + d);
       const bool carry = init != nullptr && d == 0;
       layers_[idx]->forward(*in, T, lengths, o.middleCols(d * H, H), carry ? &init->h[idx] : nullptr,
-                            carry && lstm ? &init->c[idx] : nullptr, final != nullptr ? &final->h[idx] : nullptr,
+                            carry && lstm ? &init->c[idx] : nullptr,
+                            final != nullptr ? &final->h[idx] : nullptr,
                             final != nullptr && lstm ? &final->c[idx] : nullptr);
     }
     if (k < L - 1 && dropout_applied_) {
@@ -91,14 +94,19 @@ void RnnStack::forward(const Matrix& x, int T, std::span<const int> lengths, Mat
   }
 }
 
-void RnnStack::backward(const Matrix& d_out, Matrix& d_x) { backward_impl(d_out, &d_x); }
-void RnnStack::backward(const Matrix& d_out) { backward_impl(d_out, nullptr); }
+void RnnStack::backward(const Matrix& d_out, Matrix& d_x) {
+  backward_impl(d_out, &d_x);
+}
+void RnnStack::backward(const Matrix& d_out) {
+  backward_impl(d_out, nullptr);
+}
 
 void RnnStack::backward_impl(const Matrix& d_out, Matrix* d_x) {
-  GYRE_CHECK(input_ != nullptr, "RnnStack::backward called before forward");
+  GYRE_CHECK(ready_, "RnnStack::backward called before forward");
   const int dirs = directions(), L = config_.layers;
-  const Eigen::Index H = config_.hidden_size, TB = input_->rows();
-  GYRE_CHECK(d_out.rows() == TB && d_out.cols() == H * dirs, "RnnStack::backward: d_out must be [T*B x output_size]");
+  const Eigen::Index H = config_.hidden_size, TB = rows_;
+  GYRE_CHECK(d_out.rows() == TB && d_out.cols() == H * dirs,
+             "RnnStack::backward: d_out must be [T*B x output_size]");
   // grads_[0/1] alternate as "gradient w.r.t. this layer's output" and "w.r.t. its input".
   const Matrix* d_cur = &d_out;
   for (int k = L - 1; k >= 0; --k) {

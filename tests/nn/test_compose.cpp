@@ -45,8 +45,8 @@ struct Classifier {
   }
 
   // ids: time-major [T*B], padding id 0 beyond each length.
-  double forward(std::span<const std::int32_t> ids, int T, std::span<const int> lengths, std::span<const int> labels,
-                 bool training, Rng* rng) {
+  double forward(std::span<const std::int32_t> ids, int T, std::span<const int> lengths,
+                 std::span<const int> labels, bool training, Rng* rng) {
     embedding.forward(ids, emb);
     embedding_dropout.forward(emb, training, rng);
     rnn.forward(emb, T, lengths, seq, training, rng);
@@ -66,7 +66,8 @@ struct Classifier {
 
 }  // namespace
 
-TEST_CASE("classifier composed from nn pieces: end-to-end gradients match central differences", "[nn][gradcheck]") {
+TEST_CASE("classifier composed from nn pieces: end-to-end gradients match central differences",
+          "[nn][gradcheck]") {
   const int T = 5, V = 9, E = 4, H = 3, C = 3;
   const std::vector<int> lengths = {5, 2, 3};
   const std::vector<std::int32_t> ids = {3, 1, 7,  //
@@ -93,7 +94,8 @@ TEST_CASE("classifier composed from nn pieces: end-to-end gradients match centra
         CHECK(std::isfinite(l));
         model.backward();
         model.store.at("embedding.weight").finalize_touched_rows();
-        CHECK(model.store.at("embedding.weight").touched_rows == std::vector<std::int32_t>{1, 2, 3, 4, 5, 6, 7, 8});
+        CHECK(model.store.at("embedding.weight").touched_rows ==
+              std::vector<std::int32_t>{1, 2, 3, 4, 5, 6, 7, 8});
         test::GradCheckOptions opt;
         opt.max_entries = 30;
         if (pool == PoolingKind::kMax) {

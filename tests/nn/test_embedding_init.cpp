@@ -72,7 +72,8 @@ TEST_CASE("pretrained vectors load by vocabulary lookup; bad files name file and
   };
   ParameterStore store;
   Embedding emb(store, 5, 3);
-  const std::string good = write("good.vec", "3 3\nkettle 0.5 -1 2e-1\nspanner 1 2 3\ncoil 1 1 1\n<pad> 7 7 7\n");
+  const std::string good =
+      write("good.vec", "3 3\nkettle 0.5 -1 2e-1\nspanner 1 2 3\ncoil 1 1 1\n<pad> 7 7 7\n");
   const PretrainedStats st = emb.load_pretrained(good, lookup);
   CHECK(st.lines == 4);
   CHECK(st.matched == 2);

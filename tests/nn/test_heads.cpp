@@ -35,8 +35,9 @@ TEST_CASE("Linear gradients match central differences", "[nn][gradcheck]") {
   };
   loss();
   // y = x W^T + b by definition
-  CHECK(all_close(y, (x * store.at("head.weight").value.transpose()).rowwise() + store.at("head.bias").value.row(0),
-                  1e-6, 1e-6));
+  CHECK(all_close(
+      y, (x * store.at("head.weight").value.transpose()).rowwise() + store.at("head.bias").value.row(0), 1e-6,
+      1e-6));
   lin.backward(g, &dx);
   for (auto& p : store) check_gradient(p.name, p.value, p.grad, loss);
   check_gradient("x", x, dx, loss);
@@ -140,7 +141,8 @@ TEST_CASE("token cross-entropy ignores padding and equals cross-entropy over the
   // Same rows with padding marked as ignored (-1) through the general function.
   std::vector<int> masked = tags;
   for (Eigen::Index b = 0; b < B; ++b)
-    for (int t = lengths[static_cast<std::size_t>(b)]; t < T; ++t) masked[static_cast<std::size_t>(t * B + b)] = -1;
+    for (int t = lengths[static_cast<std::size_t>(b)]; t < T; ++t)
+      masked[static_cast<std::size_t>(t * B + b)] = -1;
   Matrix d2;
   CHECK(loss == Approx(softmax_cross_entropy(logits, masked, d2)).epsilon(1e-12));
   CHECK(d == d2);
@@ -165,7 +167,8 @@ TEST_CASE("sigmoid binary cross-entropy: gradient and stability", "[nn][gradchec
   CHECK(d.allFinite());
 }
 
-TEST_CASE("inverted dropout: identity at inference, 1/(1-p) scaling and masked gradient in training", "[nn]") {
+TEST_CASE("inverted dropout: identity at inference, 1/(1-p) scaling and masked gradient in training",
+          "[nn]") {
   Dropout drop(0.5f);
   Rng rng(9);
   Matrix x = Matrix::Constant(200, 50, 1.0f);

@@ -43,7 +43,8 @@ std::vector<Matrix> grads(const ParameterStore& store) {
 // Tolerances: the batched and single-sequence runs do the same arithmetic per row, but the GEMM
 // kernels may block differently for different batch sizes, so results agree to float32 rounding
 // (1e-5 relative, 1e-6 absolute; common practice for float32 reorderings).
-TEST_CASE("a sequence's outputs and gradients do not depend on its batch neighbours or padding", "[nn][masking]") {
+TEST_CASE("a sequence's outputs and gradients do not depend on its batch neighbours or padding",
+          "[nn][masking]") {
   const int D = 5, H = 4, T = 7;
   const std::vector<int> lengths = {7, 3, 1, 5};
   const auto B = static_cast<Eigen::Index>(lengths.size());
@@ -211,7 +212,8 @@ TEST_CASE("truncated BPTT: window >= length equals full BPTT, shorter windows eq
           check_gradient(store[i].name, store[i].value, tbptt[i], cut_loss);
         // The cut is real: truncated and full gradients of the recurrent weights differ.
         double diff = 0.0;
-        for (std::size_t i = 0; i < store.size(); ++i) diff = std::max(diff, double((tbptt[i] - full[i]).cwiseAbs().maxCoeff()));
+        for (std::size_t i = 0; i < store.size(); ++i)
+          diff = std::max(diff, double((tbptt[i] - full[i]).cwiseAbs().maxCoeff()));
         CHECK(diff > 1e-3);
       }
     }

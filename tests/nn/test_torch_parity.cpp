@@ -95,7 +95,8 @@ TEST_CASE("LSTM/GRU stacks match torch 1.13 on packed sequences", "[nn][parity]"
 
           check_close("out", out, fx.at("out"));
           Matrix h_n(static_cast<Eigen::Index>(final.h.size()) * B, cfg.hidden_size);
-          for (std::size_t k = 0; k < final.h.size(); ++k) h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k];
+          for (std::size_t k = 0; k < final.h.size(); ++k)
+            h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k];
           check_close("h_n", h_n, fx.at("h_n"));
           if (cfg.cell == CellType::kLstm) {
             Matrix c_n(static_cast<Eigen::Index>(final.c.size()) * B, cfg.hidden_size);
@@ -104,7 +105,8 @@ TEST_CASE("LSTM/GRU stacks match torch 1.13 on packed sequences", "[nn][parity]"
             check_close("c_n", c_n, fx.at("c_n"));
           }
           check_close("d_x", dx, fx.at("d_x"));
-          for (const auto& p : store) check_close(p.name + ".grad", p.grad, fx.at("params").at(p.name).at("grad"));
+          for (const auto& p : store)
+            check_close(p.name + ".grad", p.grad, fx.at("params").at(p.name).at("grad"));
         }
       }
     }

@@ -45,7 +45,8 @@ class Embedding {
   /// tokens outside the vocabulary (those lines are counted in stats.lines but not used; the
   /// padding row 0 is never overwritten). Throws gyre::ParseError "path:line: ..." for a wrong
   /// number of values or a bad number, gyre::IoError if the file cannot be read.
-  PretrainedStats load_pretrained(const std::string& path, const std::function<int(std::string_view)>& lookup);
+  PretrainedStats load_pretrained(const std::string& path,
+                                  const std::function<int(std::string_view)>& lookup);
 
  private:
   Parameter& weight_;

@@ -16,7 +16,8 @@ namespace gyre::nn {
 
 class GruLayer final : public RecurrentLayer {
  public:
-  GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size, bool reverse = false);
+  GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
+           bool reverse = false);
   ~GruLayer() override;
 
   CellType cell() const noexcept override { return CellType::kGru; }
@@ -24,10 +25,11 @@ class GruLayer final : public RecurrentLayer {
   int hidden_size() const noexcept override { return hidden_size_; }
   bool reverse() const noexcept override { return reverse_; }
   void init_parameters(Rng& rng) override;
-  void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out, const Matrix* h0 = nullptr,
-               const Matrix* c0 = nullptr, Matrix* h_final = nullptr, Matrix* c_final = nullptr) override;
-  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false, Matrix* d_h0 = nullptr,
-                Matrix* d_c0 = nullptr) override;
+  void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
+               const Matrix* h0 = nullptr, const Matrix* c0 = nullptr, Matrix* h_final = nullptr,
+               Matrix* c_final = nullptr) override;
+  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
+                Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) override;
 
   std::size_t workspace_capacity() const noexcept;
 

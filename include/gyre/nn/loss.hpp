@@ -25,8 +25,9 @@ double softmax_cross_entropy(const Matrix& logits, std::span<const int> targets,
 
 /// Per-token version for taggers: logits [T*B x C] time-major, tags [T*B]; rows with
 /// t >= lengths[b] are padding and ignored. Mean over valid tokens.
-double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int T, std::span<const int> lengths,
-                           Matrix& d_logits, const CrossEntropyOptions& options = {});
+double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int T,
+                           std::span<const int> lengths, Matrix& d_logits,
+                           const CrossEntropyOptions& options = {});
 
 /// Multi-label: logits and targets [N x C], targets 0 or 1 (any value in [0, 1] is accepted).
 /// Mean of the binary cross-entropy over all N*C entries, computed stably as

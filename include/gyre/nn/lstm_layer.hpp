@@ -13,7 +13,8 @@ namespace gyre::nn {
 
 class LstmLayer final : public RecurrentLayer {
  public:
-  LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size, bool reverse = false);
+  LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
+            bool reverse = false);
   ~LstmLayer() override;
 
   CellType cell() const noexcept override { return CellType::kLstm; }
@@ -21,10 +22,11 @@ class LstmLayer final : public RecurrentLayer {
   int hidden_size() const noexcept override { return hidden_size_; }
   bool reverse() const noexcept override { return reverse_; }
   void init_parameters(Rng& rng) override;
-  void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out, const Matrix* h0 = nullptr,
-               const Matrix* c0 = nullptr, Matrix* h_final = nullptr, Matrix* c_final = nullptr) override;
-  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false, Matrix* d_h0 = nullptr,
-                Matrix* d_c0 = nullptr) override;
+  void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
+               const Matrix* h0 = nullptr, const Matrix* c0 = nullptr, Matrix* h_final = nullptr,
+               Matrix* c_final = nullptr) override;
+  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
+                Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) override;
 
   /// Bytes held by the forward/backward caches (for tests of the grow-only policy).
   std::size_t workspace_capacity() const noexcept;

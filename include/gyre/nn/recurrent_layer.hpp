@@ -1,11 +1,14 @@
 #pragma once
 // One direction of one recurrent layer over a time-major batch (DEVELOPERS.md "Numerical
 // conventions"): x is [T*B x D], row t*B + b is sequence b at step t, lengths[b] in 0..T valid
-// steps (0: the sequence has no step in this truncated-BPTT window; its state passes through). A forward layer visits t = 0 .. len_b-1; a reverse layer visits t = len_b-1 .. 0 (each
-// sequence's own valid steps, so padding never feeds the state). Padded rows of the output are
-// zero, padded steps leave the state unchanged and receive no gradient, so a sequence's outputs and
-// gradients do not depend on its batch neighbours or on the amount of padding.
+// steps (0: the sequence has no step in this truncated-BPTT window; its state passes through). A forward
+// layer visits t = 0 .. len_b-1; a reverse layer visits t = len_b-1 .. 0 (each sequence's own valid steps, so
+// padding never feeds the state). Padded rows of the output are zero, padded steps leave the state unchanged
+// and receive no gradient, so a sequence's outputs and gradients do not depend on its batch neighbours or on
+// the amount of padding.
 //
+// Internally the valid steps are packed like a packed sequence (sequences sorted by length, step s
+// = one contiguous block of the still-running ones), so padding costs no arithmetic.
 // Buffers for backward are sized on the first call for a batch shape and only ever grow: a repeat
 // call with the same or a smaller shape allocates nothing. One layer object is not thread-safe;
 // data-parallel training uses one replica per thread.
@@ -35,7 +38,7 @@ class RecurrentLayer {
   /// gate bias = 1 (DEVELOPERS.md).
   virtual void init_parameters(Rng& rng) = 0;
 
-  /// x: [T*B x input_size]; it is NOT copied: it must stay alive and unchanged until backward().
+  /// x: [T*B x input_size]; its valid rows are copied (packed), so it may change after the call.
   /// out: [T*B x hidden_size] (may be a column block of a wider buffer), written completely.
   /// h0/c0: optional initial state [B x H] (nullptr = zeros; c0 ignored by GRU).
   /// h_final/c_final: optional, receive the state after each sequence's last processed step

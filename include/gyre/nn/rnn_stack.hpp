@@ -7,7 +7,7 @@
 //   stack.forward(x, T, lengths, out, training, &rng);   // out [T*B x output_size()]
 //   ... loss ... d_out
 //   stack.backward(d_out, d_x);                           // grads added into the store
-// x is not copied and must stay alive and unchanged between forward() and backward().
+// x is copied (packed) by the first layer: the caller may reuse it after forward().
 // All mutable state lives in the object (data-parallel training: one replica per thread).
 
 #include <memory>
@@ -52,13 +52,13 @@ class RnnStack {
   int output_size() const noexcept { return config_.hidden_size * directions(); }
   RecurrentLayer& layer(int k, int dir) { return *layers_[static_cast<std::size_t>(k * directions() + dir)]; }
 
-  /// x: [T*B x input_size]; lengths.size() == B, each in 0..T (0 = no step in this window). out: [T*B x output_size()], padded
-  /// rows zero. training && dropout > 0 needs dropout_rng. init: optional carried state for the
-  /// forward direction of each layer (truncated BPTT; the backward direction always starts at
+  /// x: [T*B x input_size]; lengths.size() == B, each in 0..T (0 = no step in this window). out: [T*B x
+  /// output_size()], padded rows zero. training && dropout > 0 needs dropout_rng. init: optional carried
+  /// state for the forward direction of each layer (truncated BPTT; the backward direction always starts at
   /// zero; entries for bwd are ignored). final: optional, receives the state after each
   /// sequence's last valid step (bwd direction: after step 0).
-  void forward(const Matrix& x, int T, std::span<const int> lengths, Matrix& out, bool training, Rng* dropout_rng,
-               const RnnState* init = nullptr, RnnState* final = nullptr);
+  void forward(const Matrix& x, int T, std::span<const int> lengths, Matrix& out, bool training,
+               Rng* dropout_rng, const RnnState* init = nullptr, RnnState* final = nullptr);
 
   /// d_out: [T*B x output_size()]. Adds parameter gradients into the store; d_x receives
   /// [T*B x input_size] (overwritten). The gradient w.r.t. `init` is not propagated (the window
@@ -74,9 +74,8 @@ class RnnStack {
   std::vector<std::unique_ptr<RecurrentLayer>> layers_;  // index k * directions + dir
   // Per layer k: its output [T*B x output_size] (after dropout for k < layers-1), dropout mask.
   std::vector<Matrix> outputs_, masks_, grads_;
-  const Matrix* input_ = nullptr;
-  int T_ = 0;
-  std::vector<int> lengths_;
+  bool ready_ = false;
+  Eigen::Index rows_ = 0;  // T*B of the last forward
   bool dropout_applied_ = false;
 };
 

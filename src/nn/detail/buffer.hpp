@@ -36,11 +36,12 @@ inline Eigen::Index check_batch(const char* who, Eigen::Index rows, int T, std::
   GYRE_CHECK(T > 0, std::string(who) + ": T must be positive");
   GYRE_CHECK(!lengths.empty(), std::string(who) + ": empty batch");
   const auto B = static_cast<Eigen::Index>(lengths.size());
-  GYRE_CHECK(rows == T * B, std::string(who) + ": buffer has " + std::to_string(rows) + " rows, expected T*B = " +
-                                std::to_string(T * B));
+  GYRE_CHECK(rows == T * B, std::string(who) + ": buffer has " + std::to_string(rows) +
+                                " rows, expected T*B = " + std::to_string(T * B));
   for (const int len : lengths)
     GYRE_CHECK(len >= min_length && len <= T, std::string(who) + ": sequence length " + std::to_string(len) +
-                                                  " outside " + std::to_string(min_length) + ".." + std::to_string(T));
+                                                  " outside " + std::to_string(min_length) + ".." +
+                                                  std::to_string(T));
   return B;
 }
 

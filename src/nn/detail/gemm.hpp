@@ -50,16 +50,18 @@ class Gemm {
   }
 
  private:
-  using Blocking = Eigen::internal::gemm_blocking_space<Eigen::RowMajor, float, float, Eigen::Dynamic, Eigen::Dynamic,
-                                                        Eigen::Dynamic, 1, false>;
+  using Blocking = Eigen::internal::gemm_blocking_space<Eigen::RowMajor, float, float, Eigen::Dynamic,
+                                                        Eigen::Dynamic, Eigen::Dynamic, 1, false>;
 
   template <int OrderA, int OrderB>
   void call(Eigen::Index m, Eigen::Index n, Eigen::Index k, const Eigen::Ref<const Matrix>& a,
             const Eigen::Ref<const Matrix>& b, Eigen::Ref<Matrix>& c) {
     Eigen::internal::general_matrix_matrix_product<Eigen::Index, float, OrderA, false, float, OrderB, false,
-                                                   Eigen::RowMajor, 1>::run(m, n, k, a.data(), a.outerStride(),
-                                                                            b.data(), b.outerStride(), c.data(), 1,
-                                                                            c.outerStride(), 1.0f, *blocking_);
+                                                   Eigen::RowMajor, 1>::run(m, n, k, a.data(),
+                                                                            a.outerStride(), b.data(),
+                                                                            b.outerStride(), c.data(), 1,
+                                                                            c.outerStride(), 1.0f,
+                                                                            *blocking_);
   }
 
   std::unique_ptr<Blocking> blocking_;
