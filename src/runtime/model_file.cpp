@@ -124,7 +124,7 @@ ModelFile ModelFile::from_bytes(std::vector<unsigned char> bytes, std::string na
   return f;
 }
 
-ModelFile ModelFile::open(const std::string& path) {
+ModelFile ModelFile::open(const std::string& path, bool verify_checksum) {
 #if defined(GYRE_RUNTIME_HAS_MMAP)
   const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
   if (fd < 0) throw Error(path + ": cannot open: " + std::strerror(errno));
@@ -152,7 +152,7 @@ ModelFile ModelFile::open(const std::string& path) {
   f.base_ = static_cast<const unsigned char*>(map);
   f.size_ = size;
   f.name_ = path;
-  f.parse();
+  f.parse(verify_checksum);
   return f;
 #else
   std::FILE* fp = std::fopen(path.c_str(), "rb");
@@ -164,11 +164,18 @@ ModelFile ModelFile::open(const std::string& path) {
   const bool bad = std::ferror(fp) != 0;
   std::fclose(fp);
   if (bad) throw Error(path + ": read error");
-  return from_bytes(std::move(bytes), path);
+  auto owned = std::make_shared<std::vector<unsigned char>>(std::move(bytes));
+  ModelFile f;
+  f.base_ = owned->data();
+  f.size_ = owned->size();
+  f.keep_alive_ = owned;
+  f.name_ = path;
+  f.parse(verify_checksum);
+  return f;
 #endif
 }
 
-void ModelFile::parse() {
+void ModelFile::parse(bool verify_checksum) {
   Reader r(name_);
   const unsigned char* b = base_;
   if (size_ < kPreambleBytes + kTrailerBytes)
@@ -194,13 +201,14 @@ void ModelFile::parse() {
   if (std::memcmp(b + size_ - 4, kTrailerTag, 4) != 0) r.fail("corrupt trailer (bad end tag)");
   const std::uint32_t stored_crc = load_u32(b + size_ - 8);
   const std::uint32_t actual_crc = detail::crc32c(b, size_ - kTrailerBytes);
-  if (stored_crc != actual_crc) {
+  checksum_ = stored_crc;
+  computed_checksum_ = actual_crc;
+  if (stored_crc != actual_crc && verify_checksum) {
     char msg[128];
     std::snprintf(msg, sizeof msg, "checksum mismatch (stored CRC-32C %08x, computed %08x): the file is corrupt",
                   stored_crc, actual_crc);
     r.fail(msg);
   }
-  checksum_ = stored_crc;
 
   // Layout of the sections. All arithmetic is checked against the file size first, so a hostile
   // file can neither overflow it nor make us allocate more than the file holds.

@@ -54,7 +54,9 @@ class ModelFile {
  public:
   /// Memory-maps the file. Throws Error ("PATH: what is wrong") if it is missing, truncated,
   /// corrupt (checksum), of a newer format version or otherwise malformed.
-  static ModelFile open(const std::string& path);
+  /// verify_checksum = false records a CRC mismatch (checksum_ok()) instead of throwing, for
+  /// diagnostics such as `gyre inspect`; never use such a file for inference.
+  static ModelFile open(const std::string& path, bool verify_checksum = true);
   /// Uses the caller's bytes without copying; they must outlive every copy of the result and be
   /// 4-byte aligned (64 recommended). `name` is used in error messages.
   static ModelFile from_buffer(const void* data, std::size_t size, std::string name = "<buffer>");
@@ -64,7 +66,10 @@ class ModelFile {
   const std::string& name() const { return name_; }
   std::uint32_t format_version() const { return version_; }
   std::size_t file_size() const { return size_; }
+  /// CRC-32C stored in the trailer, and whether it matches the bytes.
   std::uint32_t checksum() const { return checksum_; }
+  std::uint32_t computed_checksum() const { return computed_checksum_; }
+  bool checksum_ok() const { return checksum_ == computed_checksum_; }
   /// The header: a UTF-8 JSON object (validated as strict JSON at load).
   std::string_view header_json() const { return header_; }
   const std::vector<TensorInfo>& tensors() const { return tensors_; }
@@ -80,13 +85,14 @@ class ModelFile {
 
  private:
   ModelFile() = default;
-  void parse();
+  void parse(bool verify_checksum = true);
   std::shared_ptr<const void> keep_alive_;
   const unsigned char* base_ = nullptr;
   std::size_t size_ = 0;
   std::string name_;
   std::uint32_t version_ = 0;
   std::uint32_t checksum_ = 0;
+  std::uint32_t computed_checksum_ = 0;
   std::string_view header_;
   std::vector<TensorInfo> tensors_;
 };
