@@ -11,6 +11,8 @@ namespace gyre::nn {
 namespace {
 
 constexpr double kNegInf = -std::numeric_limits<double>::infinity();
+// A scaled sum below this may have lost terms to underflow: redo it with exact log-sum-exp.
+constexpr double kScaledSumFloor = 1e-280;
 
 // log(sum_k exp(v[k])) over n values, max subtracted first; -inf if every value is -inf.
 inline double log_sum_exp(const double* v, std::size_t n) {
@@ -31,9 +33,14 @@ Crf::Crf(ParameterStore& store, std::size_t num_tags, const std::string& prefix)
   start_ = &store.add(prefix + ".start", 1, t);
   end_ = &store.add(prefix + ".end", 1, t);
   trans_.resize(num_tags * num_tags);
+  exp_col_t_.resize(num_tags * num_tags);
+  exp_row_.resize(num_tags * num_tags);
+  exp_all_.resize(num_tags * num_tags);
+  col_max_.resize(num_tags);
+  row_max_.resize(num_tags);
   start_scores_.resize(num_tags);
   end_scores_.resize(num_tags);
-  scratch_.resize(num_tags);
+  scratch_.resize(3 * num_tags);
 }
 
 void Crf::set_constraints(std::span<const std::uint8_t> transitions, std::span<const std::uint8_t> start,
@@ -72,10 +79,16 @@ Crf::Shape Crf::check_batch(const Eigen::Ref<const Matrix>& emissions,
                                                 " rows, not a positive multiple of the batch size " +
                                                 std::to_string(batch));
   const std::size_t steps = rows / batch;
-  for (std::size_t b = 0; b < batch; ++b)
+  for (std::size_t b = 0; b < batch; ++b) {
     GYRE_CHECK(lengths[b] >= 1 && static_cast<std::size_t>(lengths[b]) <= steps,
                "CRF: length " + std::to_string(lengths[b]) + " of sequence " + std::to_string(b) +
                    " is outside [1, " + std::to_string(steps) + "]");
+    // Padding rows may hold anything; valid rows must be finite or every score turns NaN.
+    for (std::size_t t = 0; t < static_cast<std::size_t>(lengths[b]); ++t)
+      if (!emissions.row(static_cast<Eigen::Index>(t * batch + b)).allFinite())
+        throw DivergenceError("CRF: emission scores of sequence " + std::to_string(b) + " at step " +
+                              std::to_string(t) + " are not finite");
+  }
   return {steps, batch};
 }
 
@@ -93,6 +106,27 @@ void Crf::load_scores(bool use_constraints) {
     start_scores_[i] = (!mask || allowed_start_[i] != 0) ? static_cast<double>(start_->value(0, c)) : kNegInf;
     end_scores_[i] = (!mask || allowed_end_[i] != 0) ? static_cast<double>(end_->value(0, c)) : kNegInf;
   }
+  // exp(trans) tables for the scaled recursions, each shifted by its column / row / overall max
+  // so every entry is in [0, 1] (0 exactly for a forbidden move).
+  trans_max_ = kNegInf;
+  for (std::size_t i = 0; i < n; ++i) {
+    row_max_[i] = kNegInf;
+    col_max_[i] = kNegInf;
+  }
+  for (std::size_t i = 0; i < n; ++i)
+    for (std::size_t j = 0; j < n; ++j) {
+      const double v = trans_[i * n + j];
+      row_max_[i] = std::max(row_max_[i], v);
+      col_max_[j] = std::max(col_max_[j], v);
+      trans_max_ = std::max(trans_max_, v);
+    }
+  for (std::size_t i = 0; i < n; ++i)
+    for (std::size_t j = 0; j < n; ++j) {
+      const double v = trans_[i * n + j];
+      exp_col_t_[j * n + i] = col_max_[j] == kNegInf ? 0.0 : std::exp(v - col_max_[j]);
+      exp_row_[i * n + j] = row_max_[i] == kNegInf ? 0.0 : std::exp(v - row_max_[i]);
+      exp_all_[i * n + j] = trans_max_ == kNegInf ? 0.0 : std::exp(v - trans_max_);
+    }
 }
 
 void Crf::reserve(Shape shape) {
@@ -114,10 +148,14 @@ void Crf::reserve_workspace(std::size_t max_steps, std::size_t max_batch) {
 }
 
 // alpha[t, b, j] = log sum over prefixes ending in j at t of exp(score); log_z_[b] at the end.
+// Scaled form: with m = max_i alpha[t-1, i], alpha[t, j] = e[t, j] + m + colmax_j +
+// log sum_i exp(alpha[t-1, i] - m) * exp(trans[i, j] - colmax_j): n exps per step instead of n^2.
+// If the scaled sum is tiny (terms may have underflowed) the exact log-sum-exp is used.
 void Crf::run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
                       Shape shape) {
   const std::size_t n = num_tags_, batch = shape.batch;
-  double* scratch = scratch_.data();
+  double* scaled = scratch_.data();
+  double* exact = scratch_.data() + n;
   for (std::size_t b = 0; b < batch; ++b) {
     const auto len = static_cast<std::size_t>(lengths[b]);
     double* a0 = alpha_.data() + b * n;
@@ -128,22 +166,45 @@ void Crf::run_forward(const Eigen::Ref<const Matrix>& emissions, std::span<const
       const double* prev = alpha_.data() + ((t - 1) * batch + b) * n;
       double* cur = alpha_.data() + (t * batch + b) * n;
       const auto row = static_cast<Eigen::Index>(t * batch + b);
+      double m = kNegInf;
+      for (std::size_t i = 0; i < n; ++i) m = std::max(m, prev[i]);
+      if (m == kNegInf) {  // no valid prefix (constraints): nothing continues
+        for (std::size_t j = 0; j < n; ++j) cur[j] = kNegInf;
+        continue;
+      }
+      for (std::size_t i = 0; i < n; ++i) scaled[i] = std::exp(prev[i] - m);
       for (std::size_t j = 0; j < n; ++j) {
-        for (std::size_t i = 0; i < n; ++i) scratch[i] = prev[i] + trans_[i * n + j];
-        cur[j] = log_sum_exp(scratch, n) + static_cast<double>(emissions(row, static_cast<Eigen::Index>(j)));
+        const double e = static_cast<double>(emissions(row, static_cast<Eigen::Index>(j)));
+        if (col_max_[j] == kNegInf) {
+          cur[j] = kNegInf;
+          continue;
+        }
+        const double* col = exp_col_t_.data() + j * n;
+        double sum = 0.0;
+        for (std::size_t i = 0; i < n; ++i) sum += scaled[i] * col[i];
+        if (sum > kScaledSumFloor) {
+          cur[j] = e + m + col_max_[j] + std::log(sum);
+        } else {
+          for (std::size_t i = 0; i < n; ++i) exact[i] = prev[i] + trans_[i * n + j];
+          cur[j] = e + log_sum_exp(exact, n);
+        }
       }
     }
     const double* last = alpha_.data() + ((len - 1) * batch + b) * n;
-    for (std::size_t j = 0; j < n; ++j) scratch[j] = last[j] + end_scores_[j];
-    log_z_[b] = log_sum_exp(scratch, n);
+    for (std::size_t j = 0; j < n; ++j) exact[j] = last[j] + end_scores_[j];
+    log_z_[b] = log_sum_exp(exact, n);
   }
 }
 
 // beta[t, b, i] = log sum over suffixes after i at t (excluding emission t) of exp(score).
+// Scaled like the forward pass: v_j = e[t+1, j] + beta[t+1, j], m = max_j v_j,
+// beta[t, i] = m + rowmax_i + log sum_j exp(trans[i, j] - rowmax_i) * exp(v_j - m).
 void Crf::run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
                        Shape shape) {
   const std::size_t n = num_tags_, batch = shape.batch;
-  double* scratch = scratch_.data();
+  double* v = scratch_.data();
+  double* scaled = scratch_.data() + n;
+  double* exact = scratch_.data() + 2 * n;
   for (std::size_t b = 0; b < batch; ++b) {
     const auto len = static_cast<std::size_t>(lengths[b]);
     double* bl = beta_.data() + ((len - 1) * batch + b) * n;
@@ -152,11 +213,30 @@ void Crf::run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<cons
       const double* next = beta_.data() + ((t + 1) * batch + b) * n;
       double* cur = beta_.data() + (t * batch + b) * n;
       const auto row = static_cast<Eigen::Index>((t + 1) * batch + b);
+      double m = kNegInf;
+      for (std::size_t j = 0; j < n; ++j) {
+        v[j] = static_cast<double>(emissions(row, static_cast<Eigen::Index>(j))) + next[j];
+        m = std::max(m, v[j]);
+      }
+      if (m == kNegInf) {
+        for (std::size_t i = 0; i < n; ++i) cur[i] = kNegInf;
+        continue;
+      }
+      for (std::size_t j = 0; j < n; ++j) scaled[j] = std::exp(v[j] - m);
       for (std::size_t i = 0; i < n; ++i) {
-        for (std::size_t j = 0; j < n; ++j)
-          scratch[j] =
-              trans_[i * n + j] + static_cast<double>(emissions(row, static_cast<Eigen::Index>(j))) + next[j];
-        cur[i] = log_sum_exp(scratch, n);
+        if (row_max_[i] == kNegInf) {
+          cur[i] = kNegInf;
+          continue;
+        }
+        const double* r = exp_row_.data() + i * n;
+        double sum = 0.0;
+        for (std::size_t j = 0; j < n; ++j) sum += r[j] * scaled[j];
+        if (sum > kScaledSumFloor) {
+          cur[i] = m + row_max_[i] + std::log(sum);
+        } else {
+          for (std::size_t j = 0; j < n; ++j) exact[j] = trans_[i * n + j] + v[j];
+          cur[i] = log_sum_exp(exact, n);
+        }
       }
     }
   }
@@ -230,15 +310,9 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
         if (t == len - 1) g_end[j] += d;
       }
       if (t + 1 < len) {
-        // Pair marginals p(y_t = i, y_{t+1} = j | x) minus the gold transition count.
-        const double* be_next = beta_.data() + ((t + 1) * batch + b) * n;
-        const auto next_row = static_cast<Eigen::Index>((t + 1) * batch + b);
-        for (std::size_t j = 0; j < n; ++j) {
-          const double tail =
-              static_cast<double>(emissions(next_row, static_cast<Eigen::Index>(j))) + be_next[j] - lz;
-          for (std::size_t i = 0; i < n; ++i) g_trans[i * n + j] += std::exp(a[i] + trans_[i * n + j] + tail);
-        }
-        g_trans[g * n + static_cast<std::size_t>(gold[(t + 1) * batch + b])] -= 1.0;
+        add_pair_marginals(emissions, a, beta_.data() + ((t + 1) * batch + b) * n,
+                           static_cast<Eigen::Index>((t + 1) * batch + b), lz, g_trans);
+        g_trans[g * n + static_cast<std::size_t>(gold[(t + 1) * batch + b])] -= 1.0;  // observed count
       }
     }
   }
@@ -250,6 +324,49 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
     end_->grad(0, r) += static_cast<float>(scale * g_end[i]);
   }
   return total;
+}
+
+// Adds p(y_t = i, y_{t+1} = j | x) to acc[i*n + j]. These sum to 1 over (i, j), so with
+// A_i = exp(alpha_t(i) - max), Q_j = exp(e[t+1, j] + beta_{t+1}(j) - max) and
+// E_ij = exp(trans[i, j] - max) they are A_i E_ij Q_j / sum(A E Q): 2n exps instead of n^2.
+void Crf::add_pair_marginals(const Eigen::Ref<const Matrix>& emissions, const double* alpha_t,
+                             const double* beta_next, Eigen::Index next_row, double log_z, double* acc) {
+  const std::size_t n = num_tags_;
+  double* q = scratch_.data();
+  double* aa = scratch_.data() + n;
+  double ma = kNegInf, mq = kNegInf;
+  for (std::size_t j = 0; j < n; ++j) {
+    q[j] = static_cast<double>(emissions(next_row, static_cast<Eigen::Index>(j))) + beta_next[j];
+    mq = std::max(mq, q[j]);
+    ma = std::max(ma, alpha_t[j]);
+  }
+  if (ma == kNegInf || mq == kNegInf || trans_max_ == kNegInf) return;  // no valid pair
+  for (std::size_t j = 0; j < n; ++j) {
+    aa[j] = std::exp(alpha_t[j] - ma);
+    q[j] = std::exp(q[j] - mq);
+  }
+  double total = 0.0;
+  for (std::size_t i = 0; i < n; ++i) {
+    const double* e = exp_all_.data() + i * n;
+    double row = 0.0;
+    for (std::size_t j = 0; j < n; ++j) row += e[j] * q[j];
+    total += aa[i] * row;
+  }
+  if (total > kScaledSumFloor) {
+    const double inv = 1.0 / total;
+    for (std::size_t i = 0; i < n; ++i) {
+      const double ai = aa[i] * inv;
+      const double* e = exp_all_.data() + i * n;
+      for (std::size_t j = 0; j < n; ++j) acc[i * n + j] += ai * e[j] * q[j];
+    }
+    return;
+  }
+  // Underflow guard: exact exps from the log-domain quantities.
+  for (std::size_t j = 0; j < n; ++j) {
+    const double tail =
+        static_cast<double>(emissions(next_row, static_cast<Eigen::Index>(j))) + beta_next[j] - log_z;
+    for (std::size_t i = 0; i < n; ++i) acc[i * n + j] += std::exp(alpha_t[i] + trans_[i * n + j] + tail);
+  }
 }
 
 void Crf::decode(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,

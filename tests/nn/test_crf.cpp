@@ -13,6 +13,7 @@ using Catch::Matchers::Contains;
 using Catch::Matchers::WithinAbs;
 using gyre::nn::Crf;
 using gyre::nn::Matrix;
+using gyre::nn::MatrixD;
 using gyre::nn::ParameterStore;
 
 namespace {
@@ -58,6 +59,7 @@ struct Enumerated {
   double best = -std::numeric_limits<double>::infinity();
   std::vector<int> best_path;
   Matrix marg;
+  MatrixD pair;  // expected transition counts sum_t p(y_t = i, y_{t+1} = j)
 };
 
 Enumerated enumerate(const ParameterStore& store, const Matrix& e, std::size_t n,
@@ -85,9 +87,14 @@ Enumerated enumerate(const ParameterStore& store, const Matrix& e, std::size_t n
   for (double s : scores) sum += std::exp(s - m);
   r.log_z = m + std::log(sum);
   r.marg = Matrix::Zero(static_cast<Eigen::Index>(len), static_cast<Eigen::Index>(n));
-  for (std::size_t p = 0; p < paths.size(); ++p)
-    for (std::size_t t = 0; t < len; ++t)
-      r.marg(static_cast<Eigen::Index>(t), paths[p][t]) += static_cast<float>(std::exp(scores[p] - r.log_z));
+  r.pair = MatrixD::Zero(static_cast<Eigen::Index>(n), static_cast<Eigen::Index>(n));
+  for (std::size_t p = 0; p < paths.size(); ++p) {
+    const double prob = std::exp(scores[p] - r.log_z);
+    for (std::size_t t = 0; t < len; ++t) {
+      r.marg(static_cast<Eigen::Index>(t), paths[p][t]) += static_cast<float>(prob);
+      if (t > 0) r.pair(paths[p][t - 1], paths[p][t]) += prob;
+    }
+  }
   return r;
 }
 
@@ -146,6 +153,74 @@ TEST_CASE("CRF log-partition, Viterbi and marginals equal brute-force enumeratio
     const double nll = crf.loss(e, lengths, gold);
     REQUIRE_THAT(
         nll, WithinAbs(ref.log_z - direct_score(store, e, std::vector<int>(gold.begin(), gold.end())), 1e-9));
+  }
+}
+
+// Large scores make the scaled sums of the forward, backward and pair-marginal passes underflow
+// for some entries, which then take the exact log-sum-exp path. ref: brute-force enumeration.
+TEST_CASE("CRF stays exact when scaled sums underflow", "[nn][crf]") {
+  const std::size_t n = 2;
+  ParameterStore store;
+  Crf crf(store, n);
+  SECTION("constructed: the best predecessor of every tag is 1000 nats down") {
+    // trans [[0, -1000], [-1000, 0]], emissions alternate strongly, so alpha(t-1) peaks at one
+    // tag while the cheap transition comes from the other: sum_i A_i exp(trans_ij - colmax) = 0.
+    store.at("crf.transitions").value << 0.0f, -1000.0f, -1000.0f, 0.0f;
+    Matrix e(4, 2);
+    e << 0.0f, -1000.0f, -1000.0f, 0.0f, 0.0f, -1000.0f, -1000.0f, 0.0f;
+    const std::vector<std::int32_t> lengths{4};
+    const Enumerated ref = enumerate(store, e, n);
+    double log_z = 0;
+    crf.log_partition(e, lengths, std::span<double>(&log_z, 1));
+    REQUIRE(std::isfinite(log_z));
+    REQUIRE_THAT(log_z, WithinAbs(ref.log_z, 1e-8));  // |log Z| ~ 3000: 1e-8 abs is ~3e-12 relative
+    // Gradients (backward pass and pair marginals hit the same underflow) against enumeration.
+    const std::vector<std::int32_t> gold{0, 0, 1, 1};
+    store.zero_grad();
+    Matrix d;
+    crf.loss(e, lengths, gold, &d);
+    for (Eigen::Index t = 0; t < 4; ++t)
+      for (Eigen::Index j = 0; j < 2; ++j)
+        REQUIRE_THAT(d(t, j),
+                     WithinAbs(ref.marg(t, j) - (gold[static_cast<std::size_t>(t)] == j ? 1.0 : 0.0), 1e-6));
+    const Matrix& g_trans = store.at("crf.transitions").grad;
+    const double observed[2][2] = {{1, 1}, {0, 1}};  // 0->0, 0->1, 1->1
+    for (Eigen::Index i = 0; i < 2; ++i)
+      for (Eigen::Index j = 0; j < 2; ++j)
+        REQUIRE_THAT(g_trans(i, j), WithinAbs(ref.pair(i, j) - observed[i][j], 1e-6));
+  }
+  SECTION("random parameters at scale 300") {
+    const std::uint64_t seed = 31;
+    INFO("seed " << seed);
+    gyre::Rng rng(seed);
+    for (int trial = 0; trial < 30; ++trial) {
+      for (auto& p : store)
+        for (Eigen::Index i = 0; i < p.value.size(); ++i) p.value.data()[i] = 300.0f * rng.normal();
+      const Eigen::Index len = 2 + static_cast<Eigen::Index>(trial % 3);
+      const Matrix e = random_matrix(len, static_cast<Eigen::Index>(n), rng, 300.0f);
+      const std::vector<std::int32_t> lengths{static_cast<std::int32_t>(len)};
+      const Enumerated ref = enumerate(store, e, n);
+      INFO("trial " << trial);
+      std::vector<std::int32_t> gold(static_cast<std::size_t>(len));
+      for (auto& g : gold) g = static_cast<std::int32_t>(rng.below(n));
+      store.zero_grad();
+      Matrix d;
+      const double nll = crf.loss(e, lengths, gold, &d);
+      const double gold_score = direct_score(store, e, std::vector<int>(gold.begin(), gold.end()));
+      REQUIRE_THAT(nll, WithinAbs(ref.log_z - gold_score, 1e-6 * (1.0 + std::abs(ref.log_z))));
+      // d(loss)/d(emissions) = marginals - gold indicator; d/d(transitions) = expected - observed.
+      for (Eigen::Index t = 0; t < len; ++t)
+        for (Eigen::Index j = 0; j < static_cast<Eigen::Index>(n); ++j)
+          REQUIRE_THAT(
+              d(t, j),
+              WithinAbs(ref.marg(t, j) - (gold[static_cast<std::size_t>(t)] == j ? 1.0 : 0.0), 1e-6));
+      MatrixD observed = MatrixD::Zero(2, 2);
+      for (std::size_t t = 1; t < gold.size(); ++t) observed(gold[t - 1], gold[t]) += 1.0;
+      const Matrix& g_trans = store.at("crf.transitions").grad;
+      for (Eigen::Index i = 0; i < 2; ++i)
+        for (Eigen::Index j = 0; j < 2; ++j)
+          REQUIRE_THAT(g_trans(i, j), WithinAbs(ref.pair(i, j) - observed(i, j), 1e-5));
+    }
   }
 }
 
@@ -383,6 +458,15 @@ TEST_CASE("CRF refuses bad shapes and tags", "[nn][crf]") {
     const Matrix wrong = Matrix::Zero(6, 4);
     const std::vector<std::int32_t> lengths{3, 3};
     REQUIRE_THROWS_WITH(crf.decode(wrong, lengths, tags), Contains("4 columns"));
+  }
+  SECTION("non-finite emissions") {
+    Matrix bad = Matrix::Zero(6, 3);
+    bad(3, 1) = std::numeric_limits<float>::quiet_NaN();  // step 1 of sequence 1
+    const std::vector<std::int32_t> lengths{3, 3};
+    REQUIRE_THROWS_WITH(crf.decode(bad, lengths, tags), Contains("sequence 1 at step 1"));
+    REQUIRE_THROWS_AS(crf.loss(bad, lengths, std::vector<std::int32_t>(6, 0)), gyre::DivergenceError);
+    const std::vector<std::int32_t> short_lengths{3, 1};  // the NaN is on a padding row now
+    REQUIRE_NOTHROW(crf.decode(bad, short_lengths, tags));
   }
   SECTION("gold out of range") {
     const std::vector<std::int32_t> lengths{3, 3};

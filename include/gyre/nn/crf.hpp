@@ -95,6 +95,8 @@ class Crf {
                    Shape shape);
   void run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
                     Shape shape);
+  void add_pair_marginals(const Eigen::Ref<const Matrix>& emissions, const double* alpha_t,
+                          const double* beta_next, Eigen::Index next_row, double log_z, double* acc);
 
   std::size_t num_tags_;
   Parameter* transitions_;
@@ -106,8 +108,11 @@ class Crf {
   std::vector<std::uint8_t> allowed_transitions_, allowed_start_, allowed_end_;
 
   // Workspace (double): scores with masks applied, alpha/beta [Tmax*B x T], log Z [B],
-  // backpointers [Tmax*B x T], one scratch row [T]. Viterbi reuses alpha_ for its scores.
+  // backpointers [Tmax*B x T], scratch [3T]. Viterbi reuses alpha_ for its scores.
   std::vector<double> trans_, start_scores_, end_scores_;
+  // exp(trans - column max) transposed, exp(trans - row max), exp(trans - overall max); [T x T].
+  std::vector<double> exp_col_t_, exp_row_, exp_all_, col_max_, row_max_;
+  double trans_max_ = 0.0;
   std::vector<double> alpha_, beta_, log_z_, scratch_;
   std::vector<double> grad_acc_;  // [T*T + 2T]: transition, start, end gradients of one batch
   std::vector<std::int32_t> backpointer_;
