@@ -1,0 +1,95 @@
+// gyre export: write the compact model file for the embedded runtime, then check what the
+// chosen precision costs on the dev set.
+
+#include <cstdio>
+#include <filesystem>
+#include <memory>
+
+#include <nlohmann/json.hpp>
+
+#include "cli/command.hpp"
+#include "cli/model_data.hpp"
+#include "gyre/core/error.hpp"
+#include "gyre/io/model_io.hpp"
+#include "gyre/runtime/model_file.hpp"
+#include "gyre/train/evaluate.hpp"
+
+namespace gyre::cli {
+namespace {
+
+using nlohmann::json;
+
+struct ExportOptions {
+  std::string model;
+  std::string out;
+  std::string precision = "int8";
+  std::string dev;
+  bool no_check = false;
+};
+
+ExitCode run_export(const ExportOptions& o) {
+  const runtime::DType dtype = o.precision == "f32" ? runtime::DType::kF32
+                               : o.precision == "f16" ? runtime::DType::kF16
+                                                      : runtime::DType::kI8;
+  const io::TrainedModel source = io::load_trained_model(o.model);
+  json extra = json::object();
+  extra["exported_from"] = source.path.string();
+  extra["precision"] = o.precision;
+  const std::size_t bytes = io::export_model(source, o.out, dtype, extra);
+  const auto f32_bytes = static_cast<double>(source.model->params().parameter_count() * sizeof(float));
+  std::printf("wrote %s: %.1f KiB (%s; f32 weights would be %.1f KiB, %.0f%%)\n", o.out.c_str(),
+              static_cast<double>(bytes) / 1024.0, o.precision.c_str(), f32_bytes / 1024.0,
+              100.0 * static_cast<double>(bytes) / f32_bytes);
+
+  std::string dev = o.dev;
+  if (dev.empty() && source.header.contains("config")) dev = source.header["config"].value("dev", "");
+  if (o.no_check) return ExitCode::kOk;
+  std::error_code ec;
+  if (dev.empty() || !std::filesystem::exists(dev, ec)) {
+    std::printf("dev check skipped: give --dev FILE to measure the %s model against the original\n", o.precision.c_str());
+    return ExitCode::kOk;
+  }
+  const io::TrainedModel exported = io::load_trained_model(o.out);
+  const LabelledData data = load_labelled(dev, source, false);
+  const auto before = train::evaluate(*source.model, data.encoded, true);
+  const auto after = train::evaluate(*exported.model, data.encoded, true);
+  const char* metric = source.spec.task == data::Task::kTag ? "span_f1" : "accuracy";
+  std::size_t agree = 0, total = 0;
+  for (std::size_t i = 0; i < data.encoded.size(); ++i) {
+    if (source.spec.task == data::Task::kTag) {
+      for (std::size_t t = 0; t < before.predictions[i].tags.size(); ++t, ++total)
+        agree += before.predictions[i].tags[t] == after.predictions[i].tags[t];
+    } else {
+      ++total;
+      agree += before.predictions[i].labels == after.predictions[i].labels;
+    }
+  }
+  std::printf("dev %s (%s, %zu examples): original %.4f, %s %.4f (%+.2f points); label agreement %.2f%%\n", metric,
+              dev.c_str(), data.encoded.size(), before.metric(metric), o.precision.c_str(), after.metric(metric),
+              100.0 * (after.metric(metric) - before.metric(metric)),
+              100.0 * static_cast<double>(agree) / static_cast<double>(std::max<std::size_t>(total, 1)));
+  return ExitCode::kOk;
+}
+
+const RegisterCommand kRegister{
+    "export", "Write the compact model file for the embedded runtime (f32, f16 or int8)", 50,
+    [](CLI::App& sub) -> Runner {
+      auto o = std::make_shared<ExportOptions>();
+      sub.footer(
+          "Examples:\n"
+          "  gyre export runs/intents-lstm --out intents.gyre --precision int8\n"
+          "  gyre export runs/slots-crf --out slots.gyre --precision f16 --dev corpora/demo/slots.dev.tsv\n"
+          "int8 stores matrices with one scale per row (symmetric); biases stay f32. After writing, the\n"
+          "file is read back and scored on the dev set next to the original weights.");
+      sub.add_option("model", o->model, "run directory or checkpoint")->required();
+      sub.add_option("--out", o->out, "model file to write")->required();
+      sub.add_option("--precision", o->precision, "f32 | f16 | int8")
+          ->check(CLI::IsMember({"f32", "f16", "int8"}))
+          ->default_str("int8");
+      sub.add_option("--dev", o->dev, "labelled file for the precision check (default: the run's dev file)");
+      sub.add_flag("--no-check", o->no_check, "skip the dev-set check");
+      return [o] { return run_export(*o); };
+    }};
+
+}  // namespace
+}  // namespace gyre::cli
