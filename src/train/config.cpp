@@ -160,7 +160,7 @@ void validate(const TrainConfig& c) {
   if (c.bptt_window > 0 && c.bidirectional == "yes")
     throw ConfigError("bptt_window", "truncated BPTT needs a unidirectional model (the backward direction would "
                                      "only ever see one window); drop --bidirectional or --bptt-window");
-  if (c.bptt_window > 0 && c.pooling != "last" && c.task != "tag")
+  if (c.bptt_window > 0 && c.pooling != "last" && c.task == "classify")
     throw ConfigError("bptt_window", "a classifier trained with truncated BPTT must pool the last state "
                                      "(--pooling last): mean/max pooling would span windows the gradient cannot reach");
   if (c.threads < 1 || c.threads > 256) throw ConfigError("threads", "must be in 1..256");

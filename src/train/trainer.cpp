@@ -46,17 +46,19 @@ struct PreparedData {
   std::size_t repaired = 0;
 };
 
-std::vector<data::Example> read_examples(const std::string& path, const TrainConfig& config, ProgressLine& progress,
-                                     data::ReadReport& report) {
+std::vector<data::Example> read_examples(const std::string& path, const TrainConfig& config,
+                                         ProgressLine& progress, data::ReadReport& report) {
   std::vector<data::Example> examples;
   data::ReadOptions options;
   options.skip_bad_lines = config.skip_bad_lines;
   report = data::read_corpus(path, options, [&](data::Example&& ex) { examples.push_back(std::move(ex)); });
   if (report.skipped > 0) {
     std::string lines;
-    for (const auto line : report.first_skipped_lines) lines += (lines.empty() ? "" : ", ") + std::to_string(line);
-    progress.note("warning: " + path + ": skipped " + std::to_string(report.skipped) + " bad record(s) (lines " +
-                  lines + (report.skipped > report.first_skipped_lines.size() ? ", ..." : "") + ")");
+    for (const auto line : report.first_skipped_lines)
+      lines += (lines.empty() ? "" : ", ") + std::to_string(line);
+    progress.note("warning: " + path + ": skipped " + std::to_string(report.skipped) +
+                  " bad record(s) (lines " + lines +
+                  (report.skipped > report.first_skipped_lines.size() ? ", ..." : "") + ")");
   }
   if (examples.empty()) throw ParseError(path, 0, "no examples in the file");
   return examples;
@@ -110,11 +112,13 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
     // different seeds share it).
     const auto threshold = static_cast<std::uint64_t>(config.dev_fraction * 1e6);
     std::vector<data::Example> keep;
-    for (auto& ex : train_examples) (example_hash(ex) % 1000000 < threshold ? dev_examples : keep).push_back(std::move(ex));
+    for (auto& ex : train_examples)
+      (example_hash(ex) % 1000000 < threshold ? dev_examples : keep).push_back(std::move(ex));
     train_examples = std::move(keep);
     dev_path = kDevSplitName;
     if (dev_examples.empty() || train_examples.empty())
-      throw ConfigError("dev_fraction", "splitting " + config.train + " left an empty train or dev part; give --dev FILE");
+      throw ConfigError("dev_fraction",
+                        "splitting " + config.train + " left an empty train or dev part; give --dev FILE");
   }
 
   for (const auto& ex : train_examples)
@@ -134,7 +138,8 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
     if (!config.dev.empty())
       out.repaired += check_tag_sequences(dev_examples, config.dev, scheme, config.repair_tags,
                                           dev_report.format == data::CorpusFormat::kColumns);
-    if (out.repaired > 0) progress.note("repaired invalid tag transitions in " + std::to_string(out.repaired) + " sentence(s)");
+    if (out.repaired > 0)
+      progress.note("repaired invalid tag transitions in " + std::to_string(out.repaired) + " sentence(s)");
   }
 
   if (saved_vocab != nullptr) {
@@ -163,7 +168,8 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
   out.train.reserve(train_examples.size());
   for (const auto& ex : train_examples) out.train.push_back(encoder.encode(ex, config.train));
   out.dev.reserve(dev_examples.size());
-  for (const auto& ex : dev_examples) out.dev.push_back(encoder.encode(ex, config.dev.empty() ? config.train : config.dev));
+  for (const auto& ex : dev_examples)
+    out.dev.push_back(encoder.encode(ex, config.dev.empty() ? config.train : config.dev));
 
   std::uint64_t h = 0;
   for (const auto& ex : out.train) {
@@ -196,7 +202,8 @@ model::ModelSpec make_spec(TrainConfig& config, const PreparedData& data) {
                                              : model::OutputKind::kSoftmax;
   spec.labels = data.vocab.labels.names();
   spec.tag_scheme = data.tag_scheme;
-  if (config.early_stop_metric == "auto") config.early_stop_metric = data.task == data::Task::kTag ? "span_f1" : "macro_f1";
+  if (config.early_stop_metric == "auto")
+    config.early_stop_metric = data.task == data::Task::kTag ? "span_f1" : "macro_f1";
   if (data.task == data::Task::kTag && (config.early_stop_metric == "macro_f1"))
     throw ConfigError("early_stop_metric", "taggers stop on span_f1, accuracy or loss");
   if (data.task == data::Task::kClassify && config.early_stop_metric == "span_f1")
@@ -205,7 +212,8 @@ model::ModelSpec make_spec(TrainConfig& config, const PreparedData& data) {
   return spec;
 }
 
-model::LossOptions make_loss_options(const TrainConfig& config, const PreparedData& data, const model::ModelSpec& spec) {
+model::LossOptions make_loss_options(const TrainConfig& config, const PreparedData& data,
+                                     const model::ModelSpec& spec) {
   model::LossOptions loss;
   loss.label_smoothing = static_cast<float>(config.label_smoothing);
   if (config.class_weights == "balanced") {
@@ -221,7 +229,8 @@ model::LossOptions make_loss_options(const TrainConfig& config, const PreparedDa
         total += 1;
       }
     for (const double n : counts)
-      loss.class_weights.push_back(n > 0 ? static_cast<float>(total / (static_cast<double>(counts.size()) * n)) : 1.0f);
+      loss.class_weights.push_back(
+          n > 0 ? static_cast<float>(total / (static_cast<double>(counts.size()) * n)) : 1.0f);
   }
   return loss;
 }
@@ -237,13 +246,14 @@ struct RunState {
   int epochs_without_improvement = 0;
   double epoch_loss_sum = 0, epoch_loss_units = 0;
   std::size_t epoch_tokens = 0;
-  double epoch_seconds = 0;      // seconds spent in the epoch before an interruption
+  double epoch_seconds = 0;  // seconds spent in the epoch before an interruption
   double total_seconds = 0;
   std::size_t total_tokens = 0;
   bool finished = false;
 };
 
-json state_to_json(const RunState& s, const optim::LearningRateSchedule& schedule, std::uint64_t fingerprint) {
+json state_to_json(const RunState& s, const optim::LearningRateSchedule& schedule,
+                   std::uint64_t fingerprint) {
   json sched = json::object();
   for (const auto& [k, v] : schedule.state()) sched[k] = v;
   return json{{"epoch", s.epoch},
@@ -327,6 +337,7 @@ class Run {
   InProcessReducer reducer_;
   RunState state_;
   std::size_t steps_per_epoch_ = 0;
+  long long steps_this_run_ = 0;
   bool interrupted_ = false;
   bool early_stopped_ = false;
   json last_dev_ = json::object();
@@ -346,10 +357,11 @@ void Run::setup_model() {
   Rng init_rng(config_.seed);
   master.init_parameters(init_rng);
   if (!config_.pretrained_embeddings.empty()) {
-    const auto stats = master.embedding().load_pretrained(config_.pretrained_embeddings, [&](std::string_view token) {
-      const auto id = data_.vocab.vocab.id(token);
-      return id == text::Vocab::kUnk && token != text::Vocab::kUnkToken ? -1 : static_cast<int>(id);
-    });
+    const auto stats =
+        master.embedding().load_pretrained(config_.pretrained_embeddings, [&](std::string_view token) {
+          const auto id = data_.vocab.vocab.id(token);
+          return id == text::Vocab::kUnk && token != text::Vocab::kUnkToken ? -1 : static_cast<int>(id);
+        });
     progress_.note("pretrained vectors: " + std::to_string(stats.matched) + " of " +
                    std::to_string(data_.vocab.vocab.size()) + " vocabulary rows set from " +
                    std::to_string(stats.lines) + " lines of " + config_.pretrained_embeddings);
@@ -372,7 +384,8 @@ void Run::setup_model() {
   sc.base_rate = static_cast<float>(config_.learning_rate);
   sc.warmup_steps = config_.warmup_steps;
   sc.total_steps = static_cast<std::int64_t>(steps_per_epoch_) * config_.epochs;
-  sc.plateau_goal = config_.early_stop_metric == "loss" ? optim::PlateauGoal::kLower : optim::PlateauGoal::kHigher;
+  sc.plateau_goal =
+      config_.early_stop_metric == "loss" ? optim::PlateauGoal::kLower : optim::PlateauGoal::kHigher;
   schedule_ = optim::make_schedule(config_.schedule, sc);
   pool_ = std::make_unique<WorkerPool>(config_.threads);
 }
@@ -386,14 +399,18 @@ void Run::diverged(const std::string& what) const {
   throw DivergenceError(what + " at epoch " + std::to_string(state_.epoch + 1) + ", step " +
                         std::to_string(state_.step + 1) +
                         ". Training stopped; checkpoint-best.bin is intact. Likely fixes: a lower "
-                        "--learning-rate (now " + fmt(config_.learning_rate, 6) + "), gradient clipping "
-                        "(--clip-norm, now " + fmt(config_.clip_norm, 2) + "), or --warmup-steps.");
+                        "--learning-rate (now " +
+                        fmt(config_.learning_rate, 6) +
+                        "), gradient clipping "
+                        "(--clip-norm, now " +
+                        fmt(config_.clip_norm, 2) + "), or --warmup-steps.");
 }
 
 void Run::run_epoch() {
   data::BatchPlanOptions plan_options;
   plan_options.batch_size = config_.batch_size;
-  const auto plan = data::plan_batches(data_.train, plan_options, config_.seed, static_cast<std::uint64_t>(state_.epoch));
+  const auto plan =
+      data::plan_batches(data_.train, plan_options, config_.seed, static_cast<std::uint64_t>(state_.epoch));
   progress_.start_epoch(state_.epoch + 1, config_.epochs, plan.size());
   epoch_start_ = std::chrono::steady_clock::now();
   const int workers = config_.threads;
@@ -408,20 +425,25 @@ void Run::run_epoch() {
     data::fill_batch(data_.train, indices, batch, config_.max_length);
     const double normalizer = replicas_[0]->loss_units(batch);
     // Contiguous slices of the batch, one per worker (the last ones may be empty).
-    const std::size_t per = (indices.size() + static_cast<std::size_t>(workers) - 1) / static_cast<std::size_t>(workers);
-    pool_->run([&](int w) {
-      const std::size_t begin = std::min(indices.size(), per * static_cast<std::size_t>(w));
-      const std::size_t end = std::min(indices.size(), begin + per);
-      losses[static_cast<std::size_t>(w)] = 0.0;
-      if (begin == end) return;
-      data::Batch& mine = sub[static_cast<std::size_t>(w)];
-      data::fill_batch(data_.train, std::span<const std::size_t>(indices).subspan(begin, end - begin), mine,
-                       config_.max_length);
-      Rng dropout(mix_seed(config_.seed, static_cast<std::uint64_t>(state_.epoch), state_.step,
-                           static_cast<std::uint64_t>(w)));
-      losses[static_cast<std::size_t>(w)] =
-          replicas_[static_cast<std::size_t>(w)]->train_batch(mine, data_.train, config_.bptt_window, normalizer, dropout);
-    });
+    const std::size_t per =
+        (indices.size() + static_cast<std::size_t>(workers) - 1) / static_cast<std::size_t>(workers);
+    try {
+      pool_->run([&](int w) {
+        const std::size_t begin = std::min(indices.size(), per * static_cast<std::size_t>(w));
+        const std::size_t end = std::min(indices.size(), begin + per);
+        losses[static_cast<std::size_t>(w)] = 0.0;
+        if (begin == end) return;
+        data::Batch& mine = sub[static_cast<std::size_t>(w)];
+        data::fill_batch(data_.train, std::span<const std::size_t>(indices).subspan(begin, end - begin), mine,
+                         config_.max_length);
+        Rng dropout(mix_seed(config_.seed, static_cast<std::uint64_t>(state_.epoch), state_.step,
+                             static_cast<std::uint64_t>(w)));
+        losses[static_cast<std::size_t>(w)] = replicas_[static_cast<std::size_t>(w)]->train_batch(
+            mine, data_.train, config_.bptt_window, normalizer, dropout);
+      });
+    } catch (const DivergenceError& e) {
+      diverged(e.what());
+    }
     double loss_sum = 0;
     for (const double l : losses) loss_sum += l;
     if (!std::isfinite(loss_sum)) diverged("the training loss became " + fmt(loss_sum));
@@ -451,7 +473,9 @@ void Run::run_epoch() {
     padded += batch.padded();
     progress_.step(state_.step + 1, state_.epoch_loss_sum / state_.epoch_loss_units, tokens);
 
-    const bool step_hook = options_.interrupt_after_steps > 0 && state_.global_step == options_.interrupt_after_steps;
+    ++steps_this_run_;
+    const bool step_hook =
+        options_.interrupt_after_steps > 0 && steps_this_run_ == options_.interrupt_after_steps;
     if (interrupt_requested() || step_hook) {
       ++state_.step;
       interrupted_ = true;
@@ -461,14 +485,16 @@ void Run::run_epoch() {
   if (state_.epoch == 0 || resuming_) {
     // Only meaningful when the epoch ran from its start.
     if (padded > 0 && state_.step == plan.size() && tokens == state_.epoch_tokens)
-      progress_.note("padding: " + fmt(100.0 * (1.0 - static_cast<double>(tokens) / static_cast<double>(padded)), 1) +
-                     "% of the batch grid (length bucketing on)");
+      progress_.note(
+          "padding: " + fmt(100.0 * (1.0 - static_cast<double>(tokens) / static_cast<double>(padded)), 1) +
+          "% of the batch grid (length bucketing on)");
   }
 }
 
 void Run::end_epoch() {
-  const double seconds = state_.epoch_seconds +
-                         std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
+  const double seconds =
+      state_.epoch_seconds +
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
   const auto dev = evaluate(*replicas_[0], data_.dev);
   const double metric = dev.metric(config_.early_stop_metric);
   const double rate = schedule_->rate(std::max<std::int64_t>(state_.global_step - 1, 0));
@@ -478,12 +504,8 @@ void Run::end_epoch() {
   state_.total_seconds += seconds;
   state_.total_tokens += state_.epoch_tokens;
   last_dev_ = dev.summary();
-  json line{{"epoch", state_.epoch + 1},
-            {"train_loss", train_loss},
-            {"dev", last_dev_},
-            {"learning_rate", rate},
-            {"seconds", seconds},
-            {"tokens_per_second", tok_s},
+  json line{{"epoch", state_.epoch + 1}, {"train_loss", train_loss}, {"dev", last_dev_},
+            {"learning_rate", rate},     {"seconds", seconds},       {"tokens_per_second", tok_s},
             {"improved", improved}};
   {
     std::ofstream log(dir_ / "log.jsonl", std::ios::app);
@@ -510,10 +532,12 @@ void Run::end_epoch() {
   state_.epoch_loss_sum = state_.epoch_loss_units = 0;
   state_.epoch_tokens = 0;
   state_.epoch_seconds = 0;
-  if (config_.patience > 0 && state_.epochs_without_improvement >= config_.patience && state_.epoch < config_.epochs) {
+  if (config_.patience > 0 && state_.epochs_without_improvement >= config_.patience &&
+      state_.epoch < config_.epochs) {
     early_stopped_ = true;
     progress_.note("early stop: dev " + config_.early_stop_metric + " did not improve for " +
-                   std::to_string(config_.patience) + " epoch(s); best was epoch " + std::to_string(state_.best_epoch));
+                   std::to_string(config_.patience) + " epoch(s); best was epoch " +
+                   std::to_string(state_.best_epoch));
   }
   state_.finished = early_stopped_ || state_.epoch >= config_.epochs;
   if (improved) {
@@ -521,7 +545,8 @@ void Run::end_epoch() {
                          state_to_json(state_, *schedule_, data_.fingerprint), config_to_json(config_));
   }
   save_last();
-  if (best_dev_.is_object() && !best_dev_.empty()) write_file_atomic(dir_ / "best-dev-metrics.json", best_dev_.dump(2) + "\n");
+  if (best_dev_.is_object() && !best_dev_.empty())
+    write_file_atomic(dir_ / "best-dev-metrics.json", best_dev_.dump(2) + "\n");
 }
 
 void Run::load_resume_state() {
@@ -559,24 +584,26 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   result.metric = config_.early_stop_metric;
   result.best_metric = state_.best_metric;
   result.seconds = state_.total_seconds;
-  result.tokens_per_second = state_.total_seconds > 0 ? static_cast<double>(state_.total_tokens) / state_.total_seconds : 0;
+  result.tokens_per_second =
+      state_.total_seconds > 0 ? static_cast<double>(state_.total_tokens) / state_.total_seconds : 0;
   result.peak_rss_bytes = peak_rss_bytes();
   if (outcome == TrainOutcome::kInterrupted) return;
-  result.final_metrics = json{{"task", config_.task},
-                              {"outcome", outcome == TrainOutcome::kEarlyStopped ? "early_stopped" : "finished"},
-                              {"epochs", state_.epoch},
-                              {"best_epoch", state_.best_epoch},
-                              {"metric", config_.early_stop_metric},
-                              {"best_metric", state_.best_metric},
-                              {"dev", best_dev_},
-                              {"train_examples", data_.train.size()},
-                              {"dev_examples", data_.dev.size()},
-                              {"vocabulary_size", data_.vocab.vocab.size()},
-                              {"parameters", replicas_[0]->params().parameter_count()},
-                              {"seconds", state_.total_seconds},
-                              {"tokens_per_second", result.tokens_per_second},
-                              {"threads", config_.threads},
-                              {"peak_rss_bytes", result.peak_rss_bytes}};
+  result.final_metrics =
+      json{{"task", config_.task},
+           {"outcome", outcome == TrainOutcome::kEarlyStopped ? "early_stopped" : "finished"},
+           {"epochs", state_.epoch},
+           {"best_epoch", state_.best_epoch},
+           {"metric", config_.early_stop_metric},
+           {"best_metric", state_.best_metric},
+           {"dev", best_dev_},
+           {"train_examples", data_.train.size()},
+           {"dev_examples", data_.dev.size()},
+           {"vocabulary_size", data_.vocab.vocab.size()},
+           {"parameters", replicas_[0]->params().parameter_count()},
+           {"seconds", state_.total_seconds},
+           {"tokens_per_second", result.tokens_per_second},
+           {"threads", config_.threads},
+           {"peak_rss_bytes", result.peak_rss_bytes}};
   write_file_atomic(dir_ / "metrics.json", result.final_metrics.dump(2) + "\n");
 }
 
@@ -592,8 +619,10 @@ TrainResult Run::execute() {
   } else {
     std::error_code ec;
     if (fs::exists(dir_, ec) && !(fs::is_directory(dir_, ec) && fs::is_empty(dir_, ec)))
-      throw ConfigError("out", dir_.string() + " already exists and is not empty; choose a new --out, or continue "
-                                               "an interrupted run with `gyre train --resume " + dir_.string() + "`");
+      throw ConfigError("out", dir_.string() +
+                                   " already exists and is not empty; choose a new --out, or continue "
+                                   "an interrupted run with `gyre train --resume " +
+                                   dir_.string() + "`");
   }
   data_ = prepare_data(config_, progress_, saved_vocab);
   setup_model();  // all checks done: nothing is created before this point
@@ -610,8 +639,9 @@ TrainResult Run::execute() {
     head << (resuming_ ? "resuming " : "training ") << config_.cell << " " << config_.task << " ("
          << (spec_.bidirectional ? "bi, " : "") << spec_.layers << "x" << spec_.hidden_size << ", embedding "
          << spec_.embedding_size << ", " << replicas_[0]->params().parameter_count() << " parameters) on "
-         << data_.train.size() << " examples, dev " << data_.dev.size() << ", vocabulary " << data_.vocab.vocab.size()
-         << ", " << spec_.num_labels() << " labels, " << config_.threads << " thread(s), seed " << config_.seed;
+         << data_.train.size() << " examples, dev " << data_.dev.size() << ", vocabulary "
+         << data_.vocab.vocab.size() << ", " << spec_.num_labels() << " labels, " << config_.threads
+         << " thread(s), seed " << config_.seed;
     if (resuming_) head << "; from epoch " << state_.epoch + 1 << " step " << state_.step + 1;
     progress_.note(head.str());
   }
@@ -620,7 +650,8 @@ TrainResult Run::execute() {
   while (!state_.finished && state_.epoch < config_.epochs) {
     run_epoch();
     if (interrupted_) {
-      state_.epoch_seconds += std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
+      state_.epoch_seconds +=
+          std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
       save_last();
       progress_.note("\ninterrupted: saved " + (dir_ / "checkpoint-last.bin").string() +
                      "; continue with: gyre train --resume " + dir_.string());
@@ -629,7 +660,8 @@ TrainResult Run::execute() {
     }
     end_epoch();
     if (early_stopped_) break;
-    if (options_.interrupt_after_epochs > 0 && state_.epoch == options_.interrupt_after_epochs && !state_.finished) {
+    if (options_.interrupt_after_epochs > 0 && state_.epoch == options_.interrupt_after_epochs &&
+        !state_.finished) {
       progress_.note("interrupted after epoch " + std::to_string(state_.epoch) +
                      "; continue with: gyre train --resume " + dir_.string());
       finish(TrainOutcome::kInterrupted, result);

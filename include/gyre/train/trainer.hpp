@@ -24,7 +24,7 @@ struct TrainOptions {
   std::FILE* progress = stderr;
   /// Test hook: behave as if SIGINT arrived after this many completed epochs (0 = never).
   int interrupt_after_epochs = 0;
-  /// Test hook: behave as if SIGINT arrived after this many optimizer steps (0 = never).
+  /// Test hook: behave as if SIGINT arrived after this many optimizer steps of this call (0 = never).
   long long interrupt_after_steps = 0;
 };
 
