@@ -15,6 +15,40 @@
 namespace gyre::runtime::detail {
 namespace {
 
+// ---- activations ------------------------------------------------------------------------------
+// e^x after Cephes expf (S. Moshier): n = round(x log2 e), r = x - n ln2 (ln2 split in two parts
+// for exactness), e^r by its degree-6 minimax polynomial, times 2^n built in the exponent bits.
+// Branch-free so that the loops below vectorise for whatever target they are compiled for.
+__attribute__((always_inline)) inline float exp_approx(float x) {
+  x = x < -87.0f ? -87.0f : (x > 88.0f ? 88.0f : x);
+  const float t = x * 1.44269504088896341f + 0.5f;
+  int n = static_cast<int>(t);
+  n -= static_cast<float>(n) > t ? 1 : 0;  // floor
+  const float fn = static_cast<float>(n);
+  float r = x - fn * 0.693359375f;
+  r = r - fn * -2.12194440e-4f;
+  float y = 1.9875691500e-4f;
+  y = y * r + 1.3981999507e-3f;
+  y = y * r + 8.3334519073e-3f;
+  y = y * r + 4.1665795894e-2f;
+  y = y * r + 1.6666665459e-1f;
+  y = y * r + 5.0000001201e-1f;
+  y = y * r * r + r + 1.0f;
+  const std::int32_t bits = (n + 127) << 23;
+  float scale;
+  std::memcpy(&scale, &bits, sizeof scale);
+  return y * scale;
+}
+__attribute__((always_inline)) inline void sigmoid_loop(float* x, std::size_t n) {
+  for (std::size_t i = 0; i < n; ++i) x[i] = 1.0f / (1.0f + exp_approx(-x[i]));
+}
+__attribute__((always_inline)) inline void tanh_loop(float* x, std::size_t n) {
+  for (std::size_t i = 0; i < n; ++i) x[i] = 2.0f / (1.0f + exp_approx(-2.0f * x[i])) - 1.0f;
+}
+
+void sigmoid_portable(float* x, std::size_t n) { sigmoid_loop(x, n); }
+void tanh_portable(float* x, std::size_t n) { tanh_loop(x, n); }
+
 // ---- portable ---------------------------------------------------------------------------------
 // Eight independent partial sums per dot product: the compiler may keep them in vector lanes
 // without reassociating anything (no -ffast-math needed).
@@ -61,7 +95,8 @@ void matmul_i8_portable(const std::int8_t* w, const float* w_scale, const std::i
   }
 }
 
-constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable};
+constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable,
+                            sigmoid_portable, tanh_portable};
 
 #if defined(GYRE_RUNTIME_X86)
 // ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
@@ -172,7 +207,43 @@ GYRE_AVX2 void matmul_i8_avx2(const std::int8_t* w, const float* w_scale, const 
   }
 }
 
-constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2};
+// exp_approx with intrinsics (compilers leave the scalar loop unvectorised).
+GYRE_AVX2 inline __m256 exp256(__m256 x) {
+  x = _mm256_min_ps(_mm256_max_ps(x, _mm256_set1_ps(-87.0f)), _mm256_set1_ps(88.0f));
+  const __m256 fn = _mm256_floor_ps(_mm256_fmadd_ps(x, _mm256_set1_ps(1.44269504088896341f), _mm256_set1_ps(0.5f)));
+  __m256 r = _mm256_fnmadd_ps(fn, _mm256_set1_ps(0.693359375f), x);
+  r = _mm256_fnmadd_ps(fn, _mm256_set1_ps(-2.12194440e-4f), r);
+  __m256 y = _mm256_set1_ps(1.9875691500e-4f);
+  y = _mm256_fmadd_ps(y, r, _mm256_set1_ps(1.3981999507e-3f));
+  y = _mm256_fmadd_ps(y, r, _mm256_set1_ps(8.3334519073e-3f));
+  y = _mm256_fmadd_ps(y, r, _mm256_set1_ps(4.1665795894e-2f));
+  y = _mm256_fmadd_ps(y, r, _mm256_set1_ps(1.6666665459e-1f));
+  y = _mm256_fmadd_ps(y, r, _mm256_set1_ps(5.0000001201e-1f));
+  y = _mm256_fmadd_ps(_mm256_mul_ps(y, r), r, _mm256_add_ps(r, _mm256_set1_ps(1.0f)));
+  const __m256i bits = _mm256_slli_epi32(_mm256_add_epi32(_mm256_cvtps_epi32(fn), _mm256_set1_epi32(127)), 23);
+  return _mm256_mul_ps(y, _mm256_castsi256_ps(bits));
+}
+GYRE_AVX2 void sigmoid_avx2(float* x, std::size_t n) {
+  const __m256 one = _mm256_set1_ps(1.0f);
+  std::size_t i = 0;
+  for (; i + 8 <= n; i += 8) {
+    const __m256 v = _mm256_loadu_ps(x + i);
+    _mm256_storeu_ps(x + i, _mm256_div_ps(one, _mm256_add_ps(one, exp256(_mm256_sub_ps(_mm256_setzero_ps(), v)))));
+  }
+  sigmoid_loop(x + i, n - i);
+}
+GYRE_AVX2 void tanh_avx2(float* x, std::size_t n) {
+  const __m256 one = _mm256_set1_ps(1.0f), two = _mm256_set1_ps(2.0f);
+  std::size_t i = 0;
+  for (; i + 8 <= n; i += 8) {
+    const __m256 v = _mm256_loadu_ps(x + i);
+    const __m256 e = exp256(_mm256_mul_ps(_mm256_set1_ps(-2.0f), v));
+    _mm256_storeu_ps(x + i, _mm256_sub_ps(_mm256_div_ps(two, _mm256_add_ps(one, e)), one));
+  }
+  tanh_loop(x + i, n - i);
+}
+
+constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2, sigmoid_avx2, tanh_avx2};
 
 // ---- AVX-512 (F + BW) -------------------------------------------------------------------------
 #define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
@@ -264,7 +335,40 @@ GYRE_AVX512 void matmul_i8_avx512(const std::int8_t* w, const float* w_scale, co
   }
 }
 
-constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_avx512};
+GYRE_AVX512 inline __m512 exp512(__m512 x) {
+  x = _mm512_min_ps(_mm512_max_ps(x, _mm512_set1_ps(-87.0f)), _mm512_set1_ps(88.0f));
+  const __m512 fn = _mm512_roundscale_ps(
+      _mm512_fmadd_ps(x, _mm512_set1_ps(1.44269504088896341f), _mm512_set1_ps(0.5f)), _MM_FROUND_TO_NEG_INF | _MM_FROUND_NO_EXC);
+  __m512 r = _mm512_fnmadd_ps(fn, _mm512_set1_ps(0.693359375f), x);
+  r = _mm512_fnmadd_ps(fn, _mm512_set1_ps(-2.12194440e-4f), r);
+  __m512 y = _mm512_set1_ps(1.9875691500e-4f);
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(1.3981999507e-3f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(8.3334519073e-3f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(4.1665795894e-2f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(1.6666665459e-1f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(5.0000001201e-1f));
+  y = _mm512_fmadd_ps(_mm512_mul_ps(y, r), r, _mm512_add_ps(r, _mm512_set1_ps(1.0f)));
+  return _mm512_scalef_ps(y, fn);  // y * 2^fn
+}
+GYRE_AVX512 void sigmoid_avx512(float* x, std::size_t n) {
+  const __m512 one = _mm512_set1_ps(1.0f);
+  for (std::size_t i = 0; i < n; i += 16) {
+    const __mmask16 m = n - i >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (n - i)) - 1U);
+    const __m512 v = _mm512_maskz_loadu_ps(m, x + i);
+    _mm512_mask_storeu_ps(x + i, m, _mm512_div_ps(one, _mm512_add_ps(one, exp512(_mm512_sub_ps(_mm512_setzero_ps(), v)))));
+  }
+}
+GYRE_AVX512 void tanh_avx512(float* x, std::size_t n) {
+  const __m512 one = _mm512_set1_ps(1.0f), two = _mm512_set1_ps(2.0f);
+  for (std::size_t i = 0; i < n; i += 16) {
+    const __mmask16 m = n - i >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (n - i)) - 1U);
+    const __m512 e = exp512(_mm512_mul_ps(_mm512_set1_ps(-2.0f), _mm512_maskz_loadu_ps(m, x + i)));
+    _mm512_mask_storeu_ps(x + i, m, _mm512_sub_ps(_mm512_div_ps(two, _mm512_add_ps(one, e)), one));
+  }
+}
+
+constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_avx512, sigmoid_avx512,
+                          tanh_avx512};
 
 // ---- AVX-512 VNNI -----------------------------------------------------------------------------
 // vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
@@ -320,7 +424,8 @@ GYRE_VNNI void matmul_i8_vnni(const std::int8_t* w, const float* w_scale, const 
   }
 }
 
-constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni};
+constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni, sigmoid_avx512,
+                              tanh_avx512};
 #endif  // GYRE_RUNTIME_X86
 
 }  // namespace

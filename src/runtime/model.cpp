@@ -365,7 +365,7 @@ double Model::flops(std::size_t n) const {
 struct Context::Buffers {
   std::vector<std::string> tokens;
   std::vector<std::uint32_t> ids;
-  std::vector<float> x, proj, out_a, out_b, h, c, hp;
+  std::vector<float> x, proj, out_a, out_b, h, c, hp, gates;
   std::vector<std::int8_t> qs;
   std::vector<std::uint8_t> qu;
   std::vector<float> qscale;
@@ -430,29 +430,31 @@ void embed_row(const Impl& m, std::uint32_t id, float* out) {
 }
 
 /// One recurrent step of one direction: proj = W x + b (precomputed), hp = U h (+ b_h for GRU).
+/// The non-linearities run over whole gate blocks through the (vectorised) kernels.
 void cell_step(const Impl& m, const Direction& dir, const float* proj, float* h, float* c, Buffers& b) {
   const std::size_t H = m.arch.hidden_size;
   float* hp = b.hp.data();
+  float* g = b.gates.data();
+  const auto& k = *m.kernels;
   apply(m, dir.w_hidden, h, 1, hp, dir.w_hidden.rows, b);
   if (m.arch.cell == Cell::kLstm) {
     // Rows [i f g o]; c = f*c + i*g; h = o*tanh(c) (Gers et al. 2000).
-    for (std::size_t j = 0; j < H; ++j) {
-      const float i = sigmoid(proj[j] + hp[j]);
-      const float f = sigmoid(proj[H + j] + hp[H + j]);
-      const float g = std::tanh(proj[2 * H + j] + hp[2 * H + j]);
-      const float o = sigmoid(proj[3 * H + j] + hp[3 * H + j]);
-      c[j] = f * c[j] + i * g;
-      h[j] = o * std::tanh(c[j]);
-    }
+    for (std::size_t j = 0; j < 4 * H; ++j) g[j] = proj[j] + hp[j];
+    k.sigmoid(g, 2 * H);
+    k.tanh(g + 2 * H, H);
+    k.sigmoid(g + 3 * H, H);
+    for (std::size_t j = 0; j < H; ++j) c[j] = g[H + j] * c[j] + g[j] * g[2 * H + j];
+    std::memcpy(g, c, H * sizeof(float));  // i is no longer needed: reuse its block for tanh(c)
+    k.tanh(g, H);
+    for (std::size_t j = 0; j < H; ++j) h[j] = g[3 * H + j] * g[j];
   } else {
     // Rows [r z n], reset after the recurrent product: n = tanh(W_n x + b_in + r*(U_n h + b_hn)).
     const float* bh = dir.bias_hidden.data();
-    for (std::size_t j = 0; j < H; ++j) {
-      const float r = sigmoid(proj[j] + hp[j] + bh[j]);
-      const float z = sigmoid(proj[H + j] + hp[H + j] + bh[H + j]);
-      const float n = std::tanh(proj[2 * H + j] + r * (hp[2 * H + j] + bh[2 * H + j]));
-      h[j] = (1.0f - z) * n + z * h[j];
-    }
+    for (std::size_t j = 0; j < 2 * H; ++j) g[j] = proj[j] + hp[j] + bh[j];
+    k.sigmoid(g, 2 * H);
+    for (std::size_t j = 0; j < H; ++j) g[2 * H + j] = proj[2 * H + j] + g[j] * (hp[2 * H + j] + bh[2 * H + j]);
+    k.tanh(g + 2 * H, H);
+    for (std::size_t j = 0; j < H; ++j) h[j] = (1.0f - g[H + j]) * g[2 * H + j] + g[H + j] * h[j];
   }
 }
 
@@ -467,6 +469,7 @@ const float* run_stack(const Impl& m, Buffers& b, std::size_t T) {
   ensure(b.h, H);
   ensure(b.c, H);
   ensure(b.hp, GH);
+  ensure(b.gates, GH);
   for (std::size_t t = 0; t < T; ++t) embed_row(m, b.ids[t], b.x.data() + t * E);
   const float* in = b.x.data();
   float* out = b.out_a.data();
@@ -720,6 +723,7 @@ void Context::reset() {
   ensure(b.spool, H);
   ensure(b.sdist, C);
   ensure(b.hp, GH);
+  ensure(b.gates, GH);
   ensure(b.alpha, C);
   ensure(b.score, C);
   ensure(b.logits, C);

@@ -195,3 +195,26 @@ TEST_CASE("Context allocates nothing per call after warm-up", "[runtime][alloc]"
     }
   }
 }
+
+TEST_CASE("vectorised sigmoid and tanh match the C library", "[runtime][kernels]") {
+  std::vector<float> xs;
+  for (int i = -40000; i <= 40000; ++i) xs.push_back(static_cast<float>(i) * 0.0005f);  // [-20, 20]
+  for (float v : {-100.0f, -88.5f, 88.5f, 100.0f, 1e-8f, -1e-8f}) xs.push_back(v);
+  for (rd::Isa isa : {rd::Isa::kPortable, rd::Isa::kAvx2, rd::Isa::kAvx512}) {
+    if (!rd::isa_supported(isa)) continue;
+    const rd::Kernels& k = rd::kernels_for(isa);
+    std::vector<float> s = xs, t = xs;
+    k.sigmoid(s.data(), s.size());
+    k.tanh(t.data(), t.size());
+    double max_s = 0, max_t = 0;
+    for (std::size_t i = 0; i < xs.size(); ++i) {
+      const double x = xs[i];
+      max_s = std::max(max_s, std::fabs(s[i] - 1.0 / (1.0 + std::exp(-x))));
+      max_t = std::max(max_t, std::fabs(t[i] - std::tanh(x)));
+    }
+    INFO(k.name << ": max |sigmoid err| " << max_s << ", max |tanh err| " << max_t);
+    // ref: the C library in double precision; 5e-7 is ~4 float32 ulps at 1.0.
+    REQUIRE(max_s <= 5e-7);
+    REQUIRE(max_t <= 5e-7);
+  }
+}

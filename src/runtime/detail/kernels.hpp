@@ -32,6 +32,10 @@ struct Kernels {
   /// w_scale[r] per weight row; w_sum[r] = sum of row r's q (used by the VNNI path).
   void (*matmul_i8)(const std::int8_t* w, const float* w_scale, const std::int32_t* w_sum, std::size_t rows,
                     std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy);
+  /// In place: x = 1 / (1 + e^-x) and x = tanh(x), absolute error <= 5e-7 (exp as in Cephes expf:
+  /// range reduction by ln 2 and a degree-6 polynomial; tanh(x) = 2 sigmoid(2x) - 1).
+  void (*sigmoid)(float* x, std::size_t n);
+  void (*tanh)(float* x, std::size_t n);
 };
 
 bool isa_supported(Isa isa) noexcept;
