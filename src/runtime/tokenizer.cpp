@@ -104,7 +104,7 @@ void check_utf8(std::string_view utf8) {
     throw Error("text of " + std::to_string(utf8.size()) + " bytes is too long to tokenize (limit 512 MiB)");
 }
 
-bool is_ascii(std::string_view s) noexcept {
+[[maybe_unused]] bool is_ascii(std::string_view s) noexcept {
   std::size_t i = 0;
   const std::size_t n = s.size();
   for (; i + 8 <= n; i += 8) {
