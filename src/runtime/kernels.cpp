@@ -1,3 +1,4 @@
+#include <algorithm>
 #include <cmath>
 #include <cstdlib>
 #include <cstring>
@@ -95,8 +96,24 @@ void matmul_i8_portable(const std::int8_t* w, const float* w_scale, const std::i
   }
 }
 
+void matmul_packed_f32_portable(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                float* y, std::size_t ldy) {
+  const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
+  for (std::size_t t = 0; t < n; ++t) {
+    const float* xt = x + t * cols;
+    for (std::size_t q = 0; q < panels; ++q) {
+      const float* pq = p + q * kPanelRows * cols;
+      float acc[kPanelRows] = {};
+      for (std::size_t c = 0; c < cols; ++c)
+        for (std::size_t r = 0; r < kPanelRows; ++r) acc[r] += pq[c * kPanelRows + r] * xt[c];
+      const std::size_t valid = std::min(kPanelRows, rows - q * kPanelRows);
+      for (std::size_t r = 0; r < valid; ++r) y[t * ldy + q * kPanelRows + r] = acc[r];
+    }
+  }
+}
+
 constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable,
-                            sigmoid_portable, tanh_portable};
+                            sigmoid_portable, tanh_portable, matmul_packed_f32_portable, nullptr};
 
 #if defined(GYRE_RUNTIME_X86)
 // ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
@@ -243,7 +260,38 @@ GYRE_AVX2 void tanh_avx2(float* x, std::size_t n) {
   tanh_loop(x + i, n - i);
 }
 
-constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2, sigmoid_avx2, tanh_avx2};
+// Two panels (32 rows, 4 accumulators of 8) per pass for independent FMA chains.
+GYRE_AVX2 void matmul_packed_f32_avx2(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                      float* y, std::size_t ldy) {
+  const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
+  const std::size_t stride = kPanelRows * cols;
+  alignas(32) float out[2 * kPanelRows];
+  for (std::size_t t = 0; t < n; ++t) {
+    const float* xt = x + t * cols;
+    for (std::size_t q = 0; q < panels; q += 2) {
+      const bool two = q + 1 < panels;
+      const float* p0 = p + q * stride;
+      const float* p1 = two ? p0 + stride : p0;
+      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(), a3 = _mm256_setzero_ps();
+      for (std::size_t c = 0; c < cols; ++c) {
+        const __m256 xv = _mm256_broadcast_ss(xt + c);
+        a0 = _mm256_fmadd_ps(_mm256_loadu_ps(p0 + c * kPanelRows), xv, a0);
+        a1 = _mm256_fmadd_ps(_mm256_loadu_ps(p0 + c * kPanelRows + 8), xv, a1);
+        a2 = _mm256_fmadd_ps(_mm256_loadu_ps(p1 + c * kPanelRows), xv, a2);
+        a3 = _mm256_fmadd_ps(_mm256_loadu_ps(p1 + c * kPanelRows + 8), xv, a3);
+      }
+      _mm256_store_ps(out, a0);
+      _mm256_store_ps(out + 8, a1);
+      _mm256_store_ps(out + 16, a2);
+      _mm256_store_ps(out + 24, a3);
+      const std::size_t valid = std::min((two ? 2 : 1) * kPanelRows, rows - q * kPanelRows);
+      for (std::size_t r = 0; r < valid; ++r) y[t * ldy + q * kPanelRows + r] = out[r];
+    }
+  }
+}
+
+constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2, sigmoid_avx2, tanh_avx2,
+                        matmul_packed_f32_avx2, nullptr};
 
 // ---- AVX-512 (F + BW) -------------------------------------------------------------------------
 #define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
@@ -367,8 +415,51 @@ GYRE_AVX512 void tanh_avx512(float* x, std::size_t n) {
   }
 }
 
+// Four panels (64 rows) per pass: four independent FMA chains hide the FMA latency.
+GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std::size_t cols, const float* x,
+                                          std::size_t n, float* y, std::size_t ldy) {
+  const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
+  const std::size_t stride = kPanelRows * cols;
+  for (std::size_t t = 0; t < n; ++t) {
+    const float* xt = x + t * cols;
+    float* yt = y + t * ldy;
+    std::size_t q = 0;
+    for (; q + 4 <= panels; q += 4) {
+      const float* p0 = p + q * stride;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; ++c) {
+        const __m512 xv = _mm512_set1_ps(xt[c]);
+        const float* pc = p0 + c * kPanelRows;
+        a0 = _mm512_fmadd_ps(_mm512_loadu_ps(pc), xv, a0);
+        a1 = _mm512_fmadd_ps(_mm512_loadu_ps(pc + stride), xv, a1);
+        a2 = _mm512_fmadd_ps(_mm512_loadu_ps(pc + 2 * stride), xv, a2);
+        a3 = _mm512_fmadd_ps(_mm512_loadu_ps(pc + 3 * stride), xv, a3);
+      }
+      const __m512 acc[4] = {a0, a1, a2, a3};
+      for (std::size_t k = 0; k < 4; ++k) {
+        const std::size_t base = (q + k) * kPanelRows;
+        const std::size_t valid = std::min(kPanelRows, rows - base);
+        _mm512_mask_storeu_ps(yt + base, static_cast<__mmask16>((1U << valid) - 1U), acc[k]);
+      }
+    }
+    for (; q < panels; ++q) {
+      const float* pq = p + q * stride;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps();
+      std::size_t c = 0;
+      for (; c + 2 <= cols; c += 2) {
+        a0 = _mm512_fmadd_ps(_mm512_loadu_ps(pq + c * kPanelRows), _mm512_set1_ps(xt[c]), a0);
+        a1 = _mm512_fmadd_ps(_mm512_loadu_ps(pq + (c + 1) * kPanelRows), _mm512_set1_ps(xt[c + 1]), a1);
+      }
+      if (c < cols) a0 = _mm512_fmadd_ps(_mm512_loadu_ps(pq + c * kPanelRows), _mm512_set1_ps(xt[c]), a0);
+      const std::size_t base = q * kPanelRows;
+      const std::size_t valid = std::min(kPanelRows, rows - base);
+      _mm512_mask_storeu_ps(yt + base, static_cast<__mmask16>((1U << valid) - 1U), _mm512_add_ps(a0, a1));
+    }
+  }
+}
+
 constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_avx512, sigmoid_avx512,
-                          tanh_avx512};
+                          tanh_avx512, matmul_packed_f32_avx512, nullptr};
 
 // ---- AVX-512 VNNI -----------------------------------------------------------------------------
 // vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
@@ -424,8 +515,64 @@ GYRE_VNNI void matmul_i8_vnni(const std::int8_t* w, const float* w_scale, const 
   }
 }
 
+// Packed weights: 16 rows x 4 columns per 64-byte operand, the 4 activation bytes broadcast;
+// four panels per pass keep four independent dpbusd chains. No horizontal sums.
+GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale, const std::int32_t* w_sum,
+                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
+                                     std::size_t ldy) {
+  const std::size_t panels = (rows + 15) / 16;
+  const std::size_t groups = (cols + 3) / 4;
+  const std::size_t full = cols / 4;
+  const std::size_t stride = groups * 64;
+  const __m512i c128 = _mm512_set1_epi32(128);
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::uint8_t* xt = x.xu + t * cols;
+    std::uint32_t tail = 0x80808080U;  // padded columns: any value (their weights are 0)
+    for (std::size_t k = 0; k < cols - full * 4; ++k) tail = (tail & ~(0xFFU << (8 * k))) | (std::uint32_t{xt[full * 4 + k]} << (8 * k));
+    const __m512 xs = _mm512_set1_ps(x.scale[t]);
+    for (std::size_t q = 0; q < panels; q += 4) {
+      const std::size_t np = std::min<std::size_t>(4, panels - q);
+      const std::int8_t* p0 = p + q * stride;
+      __m512i a[4] = {_mm512_setzero_si512(), _mm512_setzero_si512(), _mm512_setzero_si512(), _mm512_setzero_si512()};
+      if (np == 4) {
+        for (std::size_t g = 0; g < full; ++g) {
+          std::uint32_t xb;
+          std::memcpy(&xb, xt + 4 * g, 4);
+          const __m512i xv = _mm512_set1_epi32(static_cast<int>(xb));
+          const std::int8_t* pg = p0 + g * 64;
+          a[0] = _mm512_dpbusd_epi32(a[0], xv, _mm512_loadu_si512(pg));
+          a[1] = _mm512_dpbusd_epi32(a[1], xv, _mm512_loadu_si512(pg + stride));
+          a[2] = _mm512_dpbusd_epi32(a[2], xv, _mm512_loadu_si512(pg + 2 * stride));
+          a[3] = _mm512_dpbusd_epi32(a[3], xv, _mm512_loadu_si512(pg + 3 * stride));
+        }
+      } else {
+        for (std::size_t g = 0; g < full; ++g) {
+          std::uint32_t xb;
+          std::memcpy(&xb, xt + 4 * g, 4);
+          const __m512i xv = _mm512_set1_epi32(static_cast<int>(xb));
+          for (std::size_t k = 0; k < np; ++k) a[k] = _mm512_dpbusd_epi32(a[k], xv, _mm512_loadu_si512(p0 + k * stride + g * 64));
+        }
+      }
+      if (full < groups) {
+        const __m512i xv = _mm512_set1_epi32(static_cast<int>(tail));
+        for (std::size_t k = 0; k < np; ++k)
+          a[k] = _mm512_dpbusd_epi32(a[k], xv, _mm512_loadu_si512(p0 + k * stride + full * 64));
+      }
+      for (std::size_t k = 0; k < np; ++k) {
+        const std::size_t base = (q + k) * 16;
+        const std::size_t valid = std::min<std::size_t>(16, rows - base);
+        const __mmask16 m = static_cast<__mmask16>((1U << valid) - 1U);
+        const __m512i sums = _mm512_maskz_loadu_epi32(m, w_sum + base);
+        const __m512 ws = _mm512_maskz_loadu_ps(m, w_scale + base);
+        const __m512i exact = _mm512_sub_epi32(a[k], _mm512_mullo_epi32(sums, c128));
+        _mm512_mask_storeu_ps(y + t * ldy + base, m, _mm512_mul_ps(_mm512_cvtepi32_ps(exact), _mm512_mul_ps(ws, xs)));
+      }
+    }
+  }
+}
+
 constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni, sigmoid_avx512,
-                              tanh_avx512};
+                              tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_vnni};
 #endif  // GYRE_RUNTIME_X86
 
 }  // namespace
@@ -487,6 +634,27 @@ Isa best_isa() noexcept {
 }
 
 const Kernels& best_kernels() noexcept { return kernels_for(best_isa()); }
+
+void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept {
+  const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
+  for (std::size_t q = 0; q < panels; ++q)
+    for (std::size_t c = 0; c < cols; ++c)
+      for (std::size_t r = 0; r < kPanelRows; ++r) {
+        const std::size_t row = q * kPanelRows + r;
+        out[(q * cols + c) * kPanelRows + r] = row < rows ? w[row * cols + c] : 0.0f;
+      }
+}
+
+void pack_i8(const std::int8_t* w, std::size_t rows, std::size_t cols, std::int8_t* out) noexcept {
+  const std::size_t panels = (rows + 15) / 16, groups = (cols + 3) / 4;
+  for (std::size_t q = 0; q < panels; ++q)
+    for (std::size_t g = 0; g < groups; ++g)
+      for (std::size_t r = 0; r < 16; ++r)
+        for (std::size_t k = 0; k < 4; ++k) {
+          const std::size_t row = q * 16 + r, col = g * 4 + k;
+          out[((q * groups + g) * 16 + r) * 4 + k] = row < rows && col < cols ? w[row * cols + col] : std::int8_t{0};
+        }
+}
 
 void quantize_rows(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs, std::uint8_t* xu,
                    float* scale) noexcept {

@@ -36,6 +36,8 @@ struct Weights {
   const void* data = nullptr;
   const float* scales = nullptr;
   std::vector<std::int32_t> sums;  // i8: per-row sum of q (VNNI correction)
+  std::vector<float> packed;        // f32: panel layout for matmul_packed_f32 (one copy at load)
+  std::vector<std::int8_t> packed_i8;  // i8: VNNI operand layout, when the kernels have one
   std::size_t rows = 0, cols = 0;
 };
 
@@ -98,7 +100,7 @@ struct Model::Impl {
   [[noreturn]] void fail(const std::string& msg) const { throw Error(file.name() + ": " + msg); }
   void parse_header();
   void load_tensors();
-  Weights weights(const std::string& name, std::size_t rows, std::size_t cols) const;
+  Weights weights(const std::string& name, std::size_t rows, std::size_t cols, bool pack = true) const;
   std::vector<float> vector(const std::string& name, std::size_t rows, std::size_t cols) const;
 };
 
@@ -263,7 +265,7 @@ void Model::Impl::parse_header() {
 
 // ---- tensors ------------------------------------------------------------------------------------
 
-Weights Model::Impl::weights(const std::string& name, std::size_t rows, std::size_t cols) const {
+Weights Model::Impl::weights(const std::string& name, std::size_t rows, std::size_t cols, bool pack) const {
   const TensorInfo& t = file.tensor(name);
   if (t.rows != rows || t.cols != cols)
     fail("tensor \"" + name + "\" has shape " + t.shape_string() + ", expected [" + std::to_string(rows) + " x " +
@@ -274,6 +276,14 @@ Weights Model::Impl::weights(const std::string& name, std::size_t rows, std::siz
   w.scales = t.scales;
   w.rows = rows;
   w.cols = cols;
+  if (t.dtype == DType::kF32 && pack) {
+    w.packed.resize(detail::packed_size_f32(rows, cols));
+    detail::pack_f32(static_cast<const float*>(t.data), rows, cols, w.packed.data());
+  }
+  if (t.dtype == DType::kI8 && pack && detail::best_kernels().matmul_packed_i8 != nullptr) {
+    w.packed_i8.resize(detail::packed_size_i8(rows, cols));
+    detail::pack_i8(static_cast<const std::int8_t*>(t.data), rows, cols, w.packed_i8.data());
+  }
   if (t.dtype == DType::kI8) {
     w.sums.resize(rows);
     const auto* q = static_cast<const std::int8_t*>(t.data);
@@ -297,7 +307,7 @@ std::vector<float> Model::Impl::vector(const std::string& name, std::size_t rows
 void Model::Impl::load_tensors() {
   const std::size_t E = arch.embedding_size, H = arch.hidden_size, G = arch.gates(), F = arch.features();
   const std::size_t C = labels.size();
-  embedding = weights("embedding.weight", vocab_size(), E);
+  embedding = weights("embedding.weight", vocab_size(), E, /*pack=*/false);  // rows are gathered, not multiplied
   max_input = std::max(E, F);
   layers.resize(arch.layers);
   for (std::size_t k = 0; k < arch.layers; ++k) {
@@ -393,7 +403,7 @@ using Buffers = Context::Buffers;
 void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float* y, std::size_t ldy, Buffers& b) {
   switch (w.dtype) {
     case DType::kF32:
-      m.kernels->matmul_f32(static_cast<const float*>(w.data), w.rows, w.cols, x, n, y, ldy);
+      m.kernels->matmul_packed_f32(w.packed.data(), w.rows, w.cols, x, n, y, ldy);
       break;
     case DType::kF16:
       m.kernels->matmul_f16(static_cast<const std::uint16_t*>(w.data), w.rows, w.cols, x, n, y, ldy);
@@ -403,8 +413,13 @@ void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float
       ensure(b.qu, n * w.cols);
       ensure(b.qscale, n);
       detail::quantize_rows(x, n, w.cols, b.qs.data(), b.qu.data(), b.qscale.data());
-      m.kernels->matmul_i8(static_cast<const std::int8_t*>(w.data), w.scales, w.sums.data(), w.rows, w.cols,
-                           {b.qs.data(), b.qu.data(), b.qscale.data()}, n, y, ldy);
+      if (!w.packed_i8.empty()) {
+        m.kernels->matmul_packed_i8(w.packed_i8.data(), w.scales, w.sums.data(), w.rows, w.cols,
+                                    {b.qs.data(), b.qu.data(), b.qscale.data()}, n, y, ldy);
+      } else {
+        m.kernels->matmul_i8(static_cast<const std::int8_t*>(w.data), w.scales, w.sums.data(), w.rows, w.cols,
+                             {b.qs.data(), b.qu.data(), b.qscale.data()}, n, y, ldy);
+      }
       break;
     }
   }

@@ -57,7 +57,7 @@ TEST_CASE("dispatched kernels equal the portable ones", "[runtime][kernels]") {
     ++checked_sets;
     const rd::Kernels& k = rd::kernels_for(isa);
     for (std::size_t cols : {1u, 7u, 16u, 37u, 64u, 130u})
-      for (std::size_t rows : {1u, 3u, 8u})
+      for (std::size_t rows : {1u, 3u, 8u, 17u, 80u})
         for (std::size_t n : {1u, 2u, 3u, 4u, 5u, 9u}) {
           INFO(k.name << " rows=" << rows << " cols=" << cols << " n=" << n);
           std::vector<float> w(rows * cols), x(n * cols), y_ref(n * rows), y(n * rows), abs_sum(n * rows, 0.0f);
@@ -97,10 +97,44 @@ TEST_CASE("dispatched kernels equal the portable ones", "[runtime][kernels]") {
           ref.matmul_i8(wq.data(), ws.data(), wsum.data(), rows, cols, q, n, y_ref.data(), rows);
           k.matmul_i8(wq.data(), ws.data(), wsum.data(), rows, cols, q, n, y.data(), rows);
           for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 0.0));
+          if (k.matmul_packed_i8 != nullptr) {
+            std::vector<std::int8_t> packed(rd::packed_size_i8(rows, cols));
+            rd::pack_i8(wq.data(), rows, cols, packed.data());
+            std::fill(y.begin(), y.end(), -7.0f);
+            k.matmul_packed_i8(packed.data(), ws.data(), wsum.data(), rows, cols, q, n, y.data(), rows);
+            for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 0.0));
+          }
         }
   }
   INFO("best kernels: " << rd::best_kernels().name);
   SUCCEED("checked " << checked_sets << " dispatched kernel sets");
+}
+
+TEST_CASE("packed f32 kernels equal the row-major portable product", "[runtime][kernels]") {
+  std::mt19937 rng(2718);
+  std::uniform_real_distribution<float> u(-1.0f, 1.0f);
+  const rd::Kernels& ref = rd::kernels_for(rd::Isa::kPortable);
+  for (rd::Isa isa : {rd::Isa::kPortable, rd::Isa::kAvx2, rd::Isa::kAvx512}) {
+    if (!rd::isa_supported(isa)) continue;
+    const rd::Kernels& k = rd::kernels_for(isa);
+    for (std::size_t rows : {1u, 15u, 16u, 33u, 64u, 80u, 512u})
+      for (std::size_t cols : {1u, 3u, 64u, 129u})
+        for (std::size_t n : {1u, 3u}) {
+          INFO(k.name << " rows=" << rows << " cols=" << cols << " n=" << n);
+          std::vector<float> w(rows * cols), x(n * cols), y_ref(n * rows), y(n * rows, -7.0f), abs_sum(n * rows, 0.0f);
+          for (auto& v : w) v = u(rng);
+          for (auto& v : x) v = u(rng);
+          for (std::size_t t = 0; t < n; ++t)
+            for (std::size_t r = 0; r < rows; ++r)
+              for (std::size_t c = 0; c < cols; ++c) abs_sum[t * rows + r] += std::fabs(w[r * cols + c] * x[t * cols + c]);
+          std::vector<float> packed(rd::packed_size_f32(rows, cols));
+          rd::pack_f32(w.data(), rows, cols, packed.data());
+          ref.matmul_f32(w.data(), rows, cols, x.data(), n, y_ref.data(), rows);
+          k.matmul_packed_f32(packed.data(), rows, cols, x.data(), n, y.data(), rows);
+          // Summation order differs only: 1e-6 relative to sum |w x| (see above).
+          for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 1e-6 * (abs_sum[i] + 1.0f)));
+        }
+  }
 }
 
 TEST_CASE("activation quantisation is symmetric per row", "[runtime][kernels]") {

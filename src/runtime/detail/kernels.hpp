@@ -36,7 +36,31 @@ struct Kernels {
   /// range reduction by ln 2 and a degree-6 polynomial; tanh(x) = 2 sigmoid(2x) - 1).
   void (*sigmoid)(float* x, std::size_t n);
   void (*tanh)(float* x, std::size_t n);
+  /// Same product as matmul_f32 on weights repacked by pack_f32 (panels of 16 rows, column by
+  /// column: no horizontal sums, and each x value is broadcast once per panel).
+  void (*matmul_packed_f32)(const float* packed, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                            float* y, std::size_t ldy);
+  /// Same product as matmul_i8 on weights repacked by pack_i8; nullptr when this instruction set
+  /// has no packed int8 kernel (then matmul_i8 is used on the row-major weights).
+  void (*matmul_packed_i8)(const std::int8_t* packed, const float* w_scale, const std::int32_t* w_sum,
+                           std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
+                           std::size_t ldy);
 };
+
+/// Bytes needed by pack_i8: rows rounded up to 16, cols rounded up to 4.
+inline std::size_t packed_size_i8(std::size_t rows, std::size_t cols) {
+  return (rows + 15) / 16 * 16 * ((cols + 3) / 4 * 4);
+}
+/// out[p][g][r][k] = w[16 p + r][4 g + k]: 16 rows x 4 columns = one 64-byte VNNI operand.
+void pack_i8(const std::int8_t* w, std::size_t rows, std::size_t cols, std::int8_t* out) noexcept;
+
+inline constexpr std::size_t kPanelRows = 16;
+/// Floats needed by pack_f32: rows rounded up to a multiple of 16, times cols.
+inline std::size_t packed_size_f32(std::size_t rows, std::size_t cols) {
+  return (rows + kPanelRows - 1) / kPanelRows * kPanelRows * cols;
+}
+/// out[p][c][r] = w[16 p + r][c] (zero for padded rows).
+void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept;
 
 bool isa_supported(Isa isa) noexcept;
 /// Kernels of one instruction set (must be supported).
