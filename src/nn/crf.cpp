@@ -67,6 +67,19 @@ void Crf::clear_constraints() noexcept {
   constrain_training_ = false;
 }
 
+void Crf::bake_constraints() {
+  GYRE_CHECK(constrained_, "CRF: bake_constraints() without constraints");
+  const std::size_t n = num_tags_;
+  for (std::size_t i = 0; i < n; ++i) {
+    const auto r = static_cast<Eigen::Index>(i);
+    for (std::size_t j = 0; j < n; ++j)
+      if (allowed_transitions_[i * n + j] == 0)
+        transitions_->value(r, static_cast<Eigen::Index>(j)) = kForbiddenScore;
+    if (allowed_start_[i] == 0) start_->value(0, r) = kForbiddenScore;
+    if (allowed_end_[i] == 0) end_->value(0, r) = kForbiddenScore;
+  }
+}
+
 Crf::Shape Crf::check_batch(const Eigen::Ref<const Matrix>& emissions,
                             std::span<const std::int32_t> lengths) const {
   GYRE_CHECK(!lengths.empty(), "CRF: empty batch");

@@ -418,6 +418,38 @@ TEST_CASE("CRF: padded sequences in a batch equal the same sequences alone", "[n
     REQUIRE_THAT(g_trans_batch.data()[i], WithinAbs(g_trans_sum.data()[i], 1e-5));
 }
 
+// After training with constraints, the forbidden entries have had zero gradient; baking writes
+// kForbiddenScore there so a decoder without a mask (embedded runtime) finds the same paths.
+TEST_CASE("CRF: baked constraints decode like the mask", "[nn][crf]") {
+  const std::uint64_t seed = 5150;
+  INFO("seed " << seed);
+  gyre::Rng rng(seed);
+  const std::size_t n = 3;  // O, B-x, I-x
+  const std::vector<std::uint8_t> trans{1, 1, 0, 1, 1, 1, 1, 1, 1}, start{1, 1, 0}, end{1, 1, 1};
+  ParameterStore store;
+  Crf crf(store, n);
+  REQUIRE_THROWS_AS(crf.bake_constraints(), gyre::Error);
+  randomize(store, rng);
+  store.at("crf.transitions").value(0, 2) = 3.0f;  // a forbidden move the data would like
+  crf.set_constraints(trans, start, end, true);
+  crf.bake_constraints();
+  REQUIRE(store.at("crf.transitions").value(0, 2) == Crf::kForbiddenScore);
+  REQUIRE(store.at("crf.start").value(0, 2) == Crf::kForbiddenScore);
+  REQUIRE(store.at("crf.transitions").value(1, 2) != Crf::kForbiddenScore);
+  for (int trial = 0; trial < 50; ++trial) {
+    const Eigen::Index len = 1 + static_cast<Eigen::Index>(trial % 6);
+    const Matrix e = random_matrix(len, 3, rng, 5.0f);
+    const std::vector<std::int32_t> lengths{static_cast<std::int32_t>(len)};
+    std::vector<std::int32_t> masked(static_cast<std::size_t>(len)), baked(static_cast<std::size_t>(len));
+    crf.set_constraints(trans, start, end, true);
+    crf.decode(e, lengths, masked);
+    crf.clear_constraints();
+    crf.decode(e, lengths, baked);
+    INFO("trial " << trial);
+    REQUIRE(masked == baked);
+  }
+}
+
 TEST_CASE("CRF: gradient descent on a toy problem learns the gold path", "[nn][crf]") {
   // Emissions are uninformative (all zero); only transitions/start/end can learn the pattern
   // 0 1 2 0 1 2 ..., so a falling loss and an exact decode show the gradients' sign and use.

@@ -54,6 +54,16 @@ class Crf {
   void set_constraints(std::span<const std::uint8_t> transitions, std::span<const std::uint8_t> start,
                        std::span<const std::uint8_t> end, bool in_training = false);
   void clear_constraints() noexcept;
+
+  /// Score written by bake_constraints() for a forbidden move: exp(-1e4) is 0 in float and
+  /// double, yet the value stays finite for optimizers and file formats.
+  static constexpr float kForbiddenScore = -1.0e4f;
+  /// Writes kForbiddenScore into the parameter values of every forbidden transition, first and
+  /// last tag, so the tensors alone decode only valid paths (e.g. an exporter or an embedded
+  /// runtime that decodes without a mask). Call after the parameters are initialised or loaded.
+  /// With in_training constraints those entries get zero gradient and so keep the value.
+  /// Throws gyre::Error if no constraints are set.
+  void bake_constraints();
   bool constrained() const noexcept { return constrained_; }
 
   /// Negative log-likelihood of the gold paths summed over the batch (in double).
