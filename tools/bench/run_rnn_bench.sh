@@ -117,6 +117,6 @@ for w, t in order:
 print("tok/s: wall clock; tok/cpu-s: tokens per CPU second of the process x threads (immune to "
       "time-slicing by other processes; with 2 threads it also counts spinning threads).")
 print("target: 'met' on both clocks, 'cpu' only on CPU time (wall clock disturbed by load), else MISSED.")
-print("% peak: gyre's GFLOP/s per core (CPU-time based; 2*G*H*(E+H) per token per direction forward, "
-      "backward counted 2x) over the measured single-core SGEMM peak.")
+print("%peak/cpu: gyre's GFLOP/s per CPU second per thread (2*G*H*(E+H) per token per direction forward, "
+      "backward counted 2x) over the single-core SGEMM peak per CPU second.")
 PYEOF
