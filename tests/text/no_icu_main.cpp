@@ -1,6 +1,6 @@
 // The runtime tokenizer built without ICU (as with -DGYRE_RUNTIME_ICU=OFF), in C++17: the
 // `whitespace` mode without normalization works; everything that needs ICU is refused clearly.
-// Run by ctest as "text: runtime tokenizer without ICU" (tests/text/extra.cmake).
+// Run by ctest as "text:runtime tokenizer without ICU" (tests/text/extra.cmake).
 
 #include <cstdio>
 #include <string>

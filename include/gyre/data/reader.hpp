@@ -5,6 +5,7 @@
 //   kTsv          label<TAB>text per line; an optional first line "label<TAB>text" is a header.
 //                 The text is everything after the first TAB (it may contain more TABs).
 //   kJsonl        {"text": "...", "label": "..."} or {"text": "...", "labels": ["...", ...]}
+//                 (multi-label: "labels" may be empty, must not repeat a label; other keys are ignored)
 //   kColumns      token<TAB>tag per line, blank line(s) between sentences
 //   kTaggedJsonl  {"tokens": ["...", ...], "tags": ["...", ...]}
 // Every line may end in "\r\n" (the \r is stripped). Blank lines are ignored in kTsv/kJsonl/
