@@ -15,8 +15,8 @@ void tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_
   }
 }
 
-void normalize_tokens_at(const Tokenizer& tokenizer, const std::vector<std::string>& tokens, std::string_view path,
-                         std::size_t line, std::vector<std::string>& out) {
+void normalize_tokens_at(const Tokenizer& tokenizer, const std::vector<std::string>& tokens,
+                         std::string_view path, std::size_t line, std::vector<std::string>& out) {
   out.resize(tokens.size());
   try {
     for (std::size_t i = 0; i < tokens.size(); ++i) out[i] = tokenizer.normalize(tokens[i]);

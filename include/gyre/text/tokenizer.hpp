@@ -34,8 +34,8 @@ void tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_
 /// Pre-tokenized input (tagging corpora): normalizes each given token (NFKC, case and digit
 /// folding as set) without segmenting it again, so out.size() == tokens.size(); max_tokens does
 /// not apply (tags need one token each). A runtime::Error becomes gyre::ParseError(path, line).
-void normalize_tokens_at(const Tokenizer& tokenizer, const std::vector<std::string>& tokens, std::string_view path,
-                         std::size_t line, std::vector<std::string>& out);
+void normalize_tokens_at(const Tokenizer& tokenizer, const std::vector<std::string>& tokens,
+                         std::string_view path, std::size_t line, std::vector<std::string>& out);
 
 }  // namespace gyre::text
 
