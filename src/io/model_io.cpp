@@ -1,8 +1,10 @@
 #include "gyre/io/model_io.hpp"
 
 #include <algorithm>
+#include <optional>
 
 #include "gyre/core/error.hpp"
+#include "gyre/eval/tag_scheme.hpp"
 #include "gyre/runtime/error.hpp"
 
 namespace gyre::io {
@@ -219,10 +221,27 @@ std::size_t export_model(const TrainedModel& trained, const fs::path& out, runti
     if (!header.contains(key)) header[key] = value;
   try {
     runtime::ModelFileWriter writer(header.dump());
+    // The runtime decodes a CRF with plain Viterbi and forward-backward; forbidden transitions of
+    // the tag scheme are written as kForbidden so it makes the same constrained choices as the
+    // library (exp(-10000) is 0 in float).
+    constexpr float kForbidden = -10000.0f;
+    std::optional<eval::TransitionRules> rules;
+    if (trained.spec.output == model::OutputKind::kCrf && !trained.spec.tag_scheme.empty())
+      rules = eval::transition_rules(trained.spec.labels, eval::parse_tag_scheme(trained.spec.tag_scheme));
     for (const auto& p : trained.model->params()) {
       const runtime::DType dtype = is_matrix_weight(p.name) ? precision : runtime::DType::kF32;
-      writer.add_tensor(p.name, static_cast<std::uint64_t>(p.value.rows()), static_cast<std::uint64_t>(p.value.cols()),
-                        gyre::Span<const float>(p.value.data(), static_cast<std::size_t>(p.value.size())), dtype);
+      nn::Matrix values = p.value;
+      if (rules) {
+        const std::vector<std::uint8_t>* allowed = p.name == "crf.transitions" ? &rules->allowed
+                                                   : p.name == "crf.start"     ? &rules->start
+                                                   : p.name == "crf.end"       ? &rules->end
+                                                                               : nullptr;
+        if (allowed != nullptr)
+          for (Eigen::Index i = 0; i < values.size(); ++i)
+            if ((*allowed)[static_cast<std::size_t>(i)] == 0) values.data()[i] = kForbidden;
+      }
+      writer.add_tensor(p.name, static_cast<std::uint64_t>(values.rows()), static_cast<std::uint64_t>(values.cols()),
+                        gyre::Span<const float>(values.data(), static_cast<std::size_t>(values.size())), dtype);
     }
     writer.write(out.string());
   } catch (const runtime::Error& e) {

@@ -3,6 +3,7 @@
 #include <cmath>
 
 #include "gyre/core/error.hpp"
+#include "gyre/eval/tag_scheme.hpp"
 #include "gyre/nn/loss.hpp"
 
 namespace gyre::model {
@@ -33,8 +34,16 @@ SequenceModel::SequenceModel(const ModelSpec& spec)
   rc.dropout = spec_.dropout;
   rnn_ = std::make_unique<nn::RnnStack>(rc, params_, "rnn");
   head_ = std::make_unique<nn::Linear>(params_, spec_.features(), spec_.num_labels(), "head");
-  if (spec_.output == OutputKind::kCrf)
+  if (spec_.output == OutputKind::kCrf) {
     crf_ = std::make_unique<nn::Crf>(params_, static_cast<std::size_t>(spec_.num_labels()), "crf");
+    // Only tag sequences valid in the scheme exist for the CRF: Viterbi never produces an
+    // invalid one, and the partition function (loss, marginals) sums over valid paths only. The
+    // trainer checks (or repairs) the gold sequences before training, so every gold path is valid.
+    if (!spec_.tag_scheme.empty()) {
+      const auto rules = eval::transition_rules(spec_.labels, eval::parse_tag_scheme(spec_.tag_scheme));
+      crf_->set_constraints(rules.allowed, rules.start, rules.end, true);
+    }
+  }
 }
 
 SequenceModel::~SequenceModel() = default;
