@@ -12,6 +12,9 @@ target_compile_options(gyre_warnings INTERFACE
   # With -march=native on AVX-512 machines, GCC 12 also flags Eigen's packet code through
   # avx512fintrin.h with a false -Wmaybe-uninitialized (https://gitlab.com/libeigen/eigen/-/issues/2304).
   $<$<AND:$<CXX_COMPILER_ID:GNU>,$<VERSION_GREATER_EQUAL:$<CXX_COMPILER_VERSION>,12>>:-Wno-restrict -Wno-array-bounds -Wno-stringop-overflow -Wno-maybe-uninitialized>
+  # Under -fsanitize (CI's ASan build, -O2) the same Eigen AVX-512 code is reported as a definite
+  # -Wuninitialized; the unsanitised builds keep that warning on, so real cases are still caught.
+  $<$<AND:$<BOOL:${GYRE_SANITIZE}>,$<CXX_COMPILER_ID:GNU>,$<VERSION_GREATER_EQUAL:$<CXX_COMPILER_VERSION>,12>>:-Wno-uninitialized>
   $<$<AND:$<BOOL:${GYRE_WARNINGS_AS_ERRORS}>,$<CXX_COMPILER_ID:GNU,Clang>>:-Werror>)
 
 add_library(gyre_options INTERFACE)
