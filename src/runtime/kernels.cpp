@@ -420,7 +420,29 @@ GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std:
                                           std::size_t n, float* y, std::size_t ldy) {
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   const std::size_t stride = kPanelRows * cols;
-  for (std::size_t t = 0; t < n; ++t) {
+  std::size_t t0 = 0;
+  // Several activation rows (time steps): each weight vector loaded once feeds four rows.
+  for (; t0 + 4 <= n; t0 += 4) {
+    const float* x0 = x + t0 * cols;
+    for (std::size_t q = 0; q < panels; ++q) {
+      const float* pq = p + q * stride;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; ++c) {
+        const __m512 wv = _mm512_loadu_ps(pq + c * kPanelRows);
+        a0 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[c]), a0);
+        a1 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[cols + c]), a1);
+        a2 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[2 * cols + c]), a2);
+        a3 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[3 * cols + c]), a3);
+      }
+      const std::size_t base = q * kPanelRows;
+      const auto m = static_cast<__mmask16>((1U << std::min(kPanelRows, rows - base)) - 1U);
+      _mm512_mask_storeu_ps(y + t0 * ldy + base, m, a0);
+      _mm512_mask_storeu_ps(y + (t0 + 1) * ldy + base, m, a1);
+      _mm512_mask_storeu_ps(y + (t0 + 2) * ldy + base, m, a2);
+      _mm512_mask_storeu_ps(y + (t0 + 3) * ldy + base, m, a3);
+    }
+  }
+  for (std::size_t t = t0; t < n; ++t) {
     const float* xt = x + t * cols;
     float* yt = y + t * ldy;
     std::size_t q = 0;
