@@ -31,3 +31,11 @@ if(NOT GYRE_SANITIZE)
     COMMAND bash ${PROJECT_SOURCE_DIR}/tests/fuzz/run_fuzz.sh 60 ${CMAKE_CURRENT_BINARY_DIR}/fuzz)
   set_tests_properties("runtime: loader fuzzing (60 s)" PROPERTIES LABELS slow TIMEOUT 900 SKIP_RETURN_CODE 77)
 endif()
+
+# 4. The whole inference suite again with the kernels capped at the portable loops and at AVX2,
+#    so the paths other CPUs (ARM, pre-AVX-512 x86) take are checked end to end here too.
+foreach(isa portable avx2)
+  add_test(NAME "runtime: inference with ${isa} kernels"
+    COMMAND test_runtime "[inference],[parity],[alloc]")
+  set_tests_properties("runtime: inference with ${isa} kernels" PROPERTIES ENVIRONMENT "GYRE_RUNTIME_ISA=${isa}")
+endforeach()
