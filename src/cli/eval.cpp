@@ -38,8 +38,9 @@ std::string join(const std::vector<std::string>& items, const char* sep = " ") {
 }
 
 // Most-frequent-tag-per-token baseline trained on the model's training file.
-std::optional<eval::TaggingMetrics> tag_baseline(const std::string& train_path, const io::TrainedModel& trained,
-                                                 const LabelledData& test, json& report) {
+std::optional<eval::TaggingMetrics> tag_baseline(const std::string& train_path,
+                                                 const io::TrainedModel& trained, const LabelledData& test,
+                                                 json& report) {
   if (train_path.empty()) return std::nullopt;
   eval::MostFrequentTagBaseline baseline;
   data::read_corpus(train_path, {}, [&](data::Example&& ex) { baseline.add(ex.tokens, ex.tags); });
@@ -51,7 +52,8 @@ std::optional<eval::TaggingMetrics> tag_baseline(const std::string& train_path, 
   }
   (void)trained;
   auto metrics = eval::tagging_metrics(gold, predicted);
-  report["baseline"] = {{"name", "most frequent tag per token"}, {"train", train_path}, {"metrics", metrics.to_json()}};
+  report["baseline"] = {
+      {"name", "most frequent tag per token"}, {"train", train_path}, {"metrics", metrics.to_json()}};
   return metrics;
 }
 
@@ -75,13 +77,15 @@ ExitCode run_eval(const EvalOptions& o) {
   } else {
     std::printf("%s", result.tagging->to_table().c_str());
     std::string train_path = o.baseline_train;
-    if (train_path.empty() && trained.header.contains("config")) train_path = trained.header["config"].value("train", "");
+    if (train_path.empty() && trained.header.contains("config"))
+      train_path = trained.header["config"].value("train", "");
     std::error_code ec;
     if (!train_path.empty() && std::filesystem::exists(train_path, ec)) {
       const auto base = tag_baseline(train_path, trained, data, report);
       if (base)
-        std::printf("\nbaseline (most frequent tag per token, from %s):\n  span F1 %.4f   token accuracy %.4f\n",
-                    train_path.c_str(), base->micro.f1, base->token_accuracy);
+        std::printf(
+            "\nbaseline (most frequent tag per token, from %s):\n  span F1 %.4f   token accuracy %.4f\n",
+            train_path.c_str(), base->micro.f1, base->token_accuracy);
     } else {
       std::printf("\n(baseline skipped: give --baseline-train FILE with the training corpus)\n");
     }
@@ -92,7 +96,8 @@ ExitCode run_eval(const EvalOptions& o) {
     std::vector<std::size_t> wrong;
     for (std::size_t i = 0; i < data.encoded.size(); ++i) {
       const auto& p = result.predictions[i];
-      const bool ok = spec.task == data::Task::kClassify ? p.labels == data.encoded[i].targets : p.tags == data.encoded[i].targets;
+      const bool ok = spec.task == data::Task::kClassify ? p.labels == data.encoded[i].targets
+                                                         : p.tags == data.encoded[i].targets;
       if (!ok) wrong.push_back(i);
     }
     std::stable_sort(wrong.begin(), wrong.end(), [&](std::size_t a, std::size_t b) {
@@ -107,9 +112,13 @@ ExitCode run_eval(const EvalOptions& o) {
       if (spec.task == data::Task::kClassify) {
         std::vector<std::string> predicted;
         for (const auto l : p.labels) predicted.push_back(spec.labels[static_cast<std::size_t>(l)]);
-        std::printf("  line %zu  gold %s  predicted %s  p=%.3f\n    %s\n", ex.line, join(ex.labels, ",").c_str(),
-                    join(predicted, ",").c_str(), static_cast<double>(p.confidence), ex.text.c_str());
-        errors.push_back({{"line", ex.line}, {"text", ex.text}, {"gold", ex.labels}, {"predicted", predicted},
+        std::printf("  line %zu  gold %s  predicted %s  p=%.3f\n    %s\n", ex.line,
+                    join(ex.labels, ",").c_str(), join(predicted, ",").c_str(),
+                    static_cast<double>(p.confidence), ex.text.c_str());
+        errors.push_back({{"line", ex.line},
+                          {"text", ex.text},
+                          {"gold", ex.labels},
+                          {"predicted", predicted},
                           {"probability", p.confidence}});
       } else {
         std::vector<std::string> predicted;
@@ -119,8 +128,12 @@ ExitCode run_eval(const EvalOptions& o) {
           marked += (t ? " " : "") + ex.tokens[t];
           if (predicted.back() != ex.tags[t]) marked += "[" + ex.tags[t] + "->" + predicted.back() + "]";
         }
-        std::printf("  line %zu  confidence %.3f\n    %s\n", ex.line, static_cast<double>(p.confidence), marked.c_str());
-        errors.push_back({{"line", ex.line}, {"tokens", ex.tokens}, {"gold", ex.tags}, {"predicted", predicted},
+        std::printf("  line %zu  confidence %.3f\n    %s\n", ex.line, static_cast<double>(p.confidence),
+                    marked.c_str());
+        errors.push_back({{"line", ex.line},
+                          {"tokens", ex.tokens},
+                          {"gold", ex.tags},
+                          {"predicted", predicted},
                           {"confidence", p.confidence}});
       }
     }
@@ -131,7 +144,8 @@ ExitCode run_eval(const EvalOptions& o) {
 }
 
 const RegisterCommand kRegister{
-    "eval", "Score a model on a labelled file: metrics table, JSON, worst mistakes", 30, [](CLI::App& sub) -> Runner {
+    "eval", "Score a model on a labelled file: metrics table, JSON, worst mistakes", 30,
+    [](CLI::App& sub) -> Runner {
       auto o = std::make_shared<EvalOptions>();
       sub.footer(
           "Examples:\n"
@@ -141,10 +155,13 @@ const RegisterCommand kRegister{
       sub.add_option("model", o->model, "run directory, checkpoint or exported model")->required();
       sub.add_option("--data", o->data, "labelled file in the model's corpus format")->required();
       sub.add_option("--json", o->json_out, "also write every number as JSON to this file");
-      sub.add_option("--errors", o->errors, "list the N most confident mistakes")->check(CLI::NonNegativeNumber);
-      sub.add_option("--baseline-train", o->baseline_train,
-                     "taggers: training corpus for the most-frequent-tag baseline (default: the run's training file)");
-      sub.add_flag("--skip-bad-lines", o->skip_bad_lines, "skip malformed records (reported) instead of stopping");
+      sub.add_option("--errors", o->errors, "list the N most confident mistakes")
+          ->check(CLI::NonNegativeNumber);
+      sub.add_option(
+          "--baseline-train", o->baseline_train,
+          "taggers: training corpus for the most-frequent-tag baseline (default: the run's training file)");
+      sub.add_flag("--skip-bad-lines", o->skip_bad_lines,
+                   "skip malformed records (reported) instead of stopping");
       return [o] { return run_eval(*o); };
     }};
 

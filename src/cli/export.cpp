@@ -28,7 +28,7 @@ struct ExportOptions {
 };
 
 ExitCode run_export(const ExportOptions& o) {
-  const runtime::DType dtype = o.precision == "f32" ? runtime::DType::kF32
+  const runtime::DType dtype = o.precision == "f32"   ? runtime::DType::kF32
                                : o.precision == "f16" ? runtime::DType::kF16
                                                       : runtime::DType::kI8;
   const io::TrainedModel source = io::load_trained_model(o.model);
@@ -46,7 +46,8 @@ ExitCode run_export(const ExportOptions& o) {
   if (o.no_check) return ExitCode::kOk;
   std::error_code ec;
   if (dev.empty() || !std::filesystem::exists(dev, ec)) {
-    std::printf("dev check skipped: give --dev FILE to measure the %s model against the original\n", o.precision.c_str());
+    std::printf("dev check skipped: give --dev FILE to measure the %s model against the original\n",
+                o.precision.c_str());
     return ExitCode::kOk;
   }
   const io::TrainedModel exported = io::load_trained_model(o.out);
@@ -64,9 +65,9 @@ ExitCode run_export(const ExportOptions& o) {
       agree += before.predictions[i].labels == after.predictions[i].labels;
     }
   }
-  std::printf("dev %s (%s, %zu examples): original %.4f, %s %.4f (%+.2f points); label agreement %.2f%%\n", metric,
-              dev.c_str(), data.encoded.size(), before.metric(metric), o.precision.c_str(), after.metric(metric),
-              100.0 * (after.metric(metric) - before.metric(metric)),
+  std::printf("dev %s (%s, %zu examples): original %.4f, %s %.4f (%+.2f points); label agreement %.2f%%\n",
+              metric, dev.c_str(), data.encoded.size(), before.metric(metric), o.precision.c_str(),
+              after.metric(metric), 100.0 * (after.metric(metric) - before.metric(metric)),
               100.0 * static_cast<double>(agree) / static_cast<double>(std::max<std::size_t>(total, 1)));
   return ExitCode::kOk;
 }

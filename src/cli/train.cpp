@@ -114,7 +114,8 @@ void print_summary(const train::TrainResult& r, const std::string& dir) {
   if (r.final_metrics.contains("dev")) {
     const auto& dev = r.final_metrics["dev"];
     for (const char* key : {"accuracy", "loss"})
-      if (dev.contains(key)) std::printf("%-22s %.4f\n", (std::string("dev ") + key).c_str(), dev[key].get<double>());
+      if (dev.contains(key))
+        std::printf("%-22s %.4f\n", (std::string("dev ") + key).c_str(), dev[key].get<double>());
     if (dev.contains("macro")) std::printf("%-22s %.4f\n", "dev macro F1", dev["macro"]["f1"].get<double>());
     if (dev.contains("token_accuracy"))
       std::printf("%-22s %.4f\n", "dev token accuracy", dev["token_accuracy"].get<double>());
@@ -123,7 +124,8 @@ void print_summary(const train::TrainResult& r, const std::string& dir) {
   }
   std::printf("%-22s %.1f s\n", "training time", r.seconds);
   std::printf("%-22s %.0f\n", "tokens/s", r.tokens_per_second);
-  std::printf("%-22s %.1f MiB\n", "peak memory (RSS)", static_cast<double>(r.peak_rss_bytes) / (1024.0 * 1024.0));
+  std::printf("%-22s %.1f MiB\n", "peak memory (RSS)",
+              static_cast<double>(r.peak_rss_bytes) / (1024.0 * 1024.0));
   std::printf("%-22s %s/checkpoint-best.bin\n", "best model", dir.c_str());
 }
 
@@ -133,7 +135,8 @@ ExitCode run_train(const TrainCliOptions& o) {
   train::TrainResult result;
   if (!o.resume.empty()) {
     if (!o.values.empty() || !o.flags.empty() || !o.config_path.empty())
-      throw ConfigError("resume", "--resume continues with the run's saved config.json; other settings are not allowed");
+      throw ConfigError(
+          "resume", "--resume continues with the run's saved config.json; other settings are not allowed");
     options.out = o.resume;
     result = train::resume(options);
   } else {
@@ -175,12 +178,14 @@ const RegisterCommand kRegister{
       auto o = std::make_shared<TrainCliOptions>();
       sub.footer(
           "Examples:\n"
-          "  gyre train --train corpora/demo/intents.train.tsv --dev corpora/demo/intents.dev.tsv --out runs/intents-lstm\n"
+          "  gyre train --train corpora/demo/intents.train.tsv --dev corpora/demo/intents.dev.tsv --out "
+          "runs/intents-lstm\n"
           "  gyre train --train corpora/demo/slots.train.tsv --output crf --out runs/slots-crf\n"
           "  gyre train --config run.json --cell gru --hidden-size 64 --out runs/gru64\n"
           "  gyre train --resume runs/intents-lstm        # continue an interrupted run\n"
           "Every option is also a key of the --config JSON file (with '_' for '-'); flags win.\n"
-          "Exit codes: 0 done, 1 runtime failure (e.g. diverged), 2 bad settings or input, 3 interrupted (resumable).");
+          "Exit codes: 0 done, 1 runtime failure (e.g. diverged), 2 bad settings or input, 3 interrupted "
+          "(resumable).");
       sub.add_option("--config", o->config_path, "JSON file of settings (keys as the options below)");
       sub.add_option("--out", o->out, "run directory to create (must not exist or be empty)");
       sub.add_option("--resume", o->resume, "continue the interrupted run in this directory");
@@ -189,16 +194,19 @@ const RegisterCommand kRegister{
       for (const auto& [key, value] : defaults.items()) {
         const std::string help = help_texts().count(key) ? help_texts().at(key) : key;
         if (key == "bidirectional") {
-          sub.add_flag_callback("--bidirectional", [o] { o->flags["bidirectional"] = true; },
-                                "bidirectional recurrent layers (default: yes for taggers, no for classifiers)");
-          sub.add_flag_callback("--unidirectional", [o] { o->flags["bidirectional"] = false; },
-                                "unidirectional recurrent layers");
+          sub.add_flag_callback(
+              "--bidirectional", [o] { o->flags["bidirectional"] = true; },
+              "bidirectional recurrent layers (default: yes for taggers, no for classifiers)");
+          sub.add_flag_callback(
+              "--unidirectional", [o] { o->flags["bidirectional"] = false; },
+              "unidirectional recurrent layers");
         } else if (value.is_boolean()) {
           const bool default_on = value.get<bool>();
           const std::string name = default_on ? "--no-" + flag_name(key) : "--" + flag_name(key);
           const std::string k = key;
-          sub.add_flag_callback(name, [o, k, default_on] { o->flags[k] = !default_on; },
-                                default_on ? "turn off: " + help : help);
+          sub.add_flag_callback(
+              name, [o, k, default_on] { o->flags[k] = !default_on; },
+              default_on ? "turn off: " + help : help);
         } else {
           const std::string k = key;
           std::string shown = value.is_string() ? value.get<std::string>() : value.dump();

@@ -63,7 +63,8 @@ void fill_batch(std::span<const EncodedExample> examples, std::span<const std::s
   batch.ids.assign(static_cast<std::size_t>(longest) * B, 0);
   for (std::size_t b = 0; b < B; ++b) {
     const auto& ids = examples[indices[b]].ids;
-    for (int t = 0; t < batch.lengths[b]; ++t) batch.ids[static_cast<std::size_t>(t) * B + b] = ids[static_cast<std::size_t>(t)];
+    for (int t = 0; t < batch.lengths[b]; ++t)
+      batch.ids[static_cast<std::size_t>(t) * B + b] = ids[static_cast<std::size_t>(t)];
   }
 }
 

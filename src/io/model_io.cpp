@@ -27,19 +27,23 @@ json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab) {
     arch["tag_scheme"] = spec.tag_scheme.empty() ? "none" : spec.tag_scheme;
   }
   json tokens = json::array();
-  for (std::size_t i = 0; i < vocab.vocab.size(); ++i) tokens.push_back(vocab.vocab.token(static_cast<std::int32_t>(i)));
+  for (std::size_t i = 0; i < vocab.vocab.size(); ++i)
+    tokens.push_back(vocab.vocab.token(static_cast<std::int32_t>(i)));
   json tokenizer;
   runtime::to_json(tokenizer, vocab.tokenizer);
-  return json{{"architecture", arch}, {"labels", spec.labels}, {"tokenizer", tokenizer}, {"vocabulary", tokens}};
+  return json{
+      {"architecture", arch}, {"labels", spec.labels}, {"tokenizer", tokenizer}, {"vocabulary", tokens}};
 }
 
 namespace {
 
 bool is_matrix_weight(const std::string& name) {
   auto ends_with = [&](std::string_view suffix) {
-    return name.size() >= suffix.size() && name.compare(name.size() - suffix.size(), suffix.size(), suffix) == 0;
+    return name.size() >= suffix.size() &&
+           name.compare(name.size() - suffix.size(), suffix.size(), suffix) == 0;
   };
-  return name == "embedding.weight" || name == "head.weight" || ends_with(".w_input") || ends_with(".w_hidden");
+  return name == "embedding.weight" || name == "head.weight" || ends_with(".w_input") ||
+         ends_with(".w_hidden");
 }
 
 template <typename T>
@@ -53,7 +57,8 @@ T header_field(const json& j, const char* key, const std::string& path) {
 }
 
 // Rebuilds spec + vocabulary from a header (checkpoint or exported model).
-void parse_header(const json& header, const std::string& path, model::ModelSpec& spec, text::VocabFile& vocab) {
+void parse_header(const json& header, const std::string& path, model::ModelSpec& spec,
+                  text::VocabFile& vocab) {
   const json arch = header_field<json>(header, "architecture", path);
   json spec_json;
   try {
@@ -91,7 +96,8 @@ void parse_header(const json& header, const std::string& path, model::ModelSpec&
     throw FormatError(path, "vocabulary must start with \"<pad>\", \"<unk>\"");
   std::vector<std::uint64_t> counts = header.value("vocabulary_counts", std::vector<std::uint64_t>{});
   if (counts.empty()) counts.assign(tokens.size(), 0);
-  if (counts.size() != tokens.size()) throw FormatError(path, "vocabulary_counts and vocabulary differ in length");
+  if (counts.size() != tokens.size())
+    throw FormatError(path, "vocabulary_counts and vocabulary differ in length");
   try {
     vocab.vocab = text::Vocab(std::vector<std::string>(tokens.begin() + 2, tokens.end()),
                               std::vector<std::uint64_t>(counts.begin() + 2, counts.end()));
@@ -127,9 +133,11 @@ void load_parameters(const runtime::ModelFile& file, nn::ParameterStore& params)
   for (auto& p : params) {
     const runtime::TensorInfo* t = file.find(p.name);
     if (t == nullptr) throw FormatError(file.name(), "tensor '" + p.name + "' is missing");
-    if (t->rows != static_cast<std::uint64_t>(p.value.rows()) || t->cols != static_cast<std::uint64_t>(p.value.cols()))
-      throw FormatError(file.name(), "tensor '" + p.name + "' has shape " + t->shape_string() + ", the model needs [" +
-                                         std::to_string(p.value.rows()) + " x " + std::to_string(p.value.cols()) + "]");
+    if (t->rows != static_cast<std::uint64_t>(p.value.rows()) ||
+        t->cols != static_cast<std::uint64_t>(p.value.cols()))
+      throw FormatError(file.name(), "tensor '" + p.name + "' has shape " + t->shape_string() +
+                                         ", the model needs [" + std::to_string(p.value.rows()) + " x " +
+                                         std::to_string(p.value.cols()) + "]");
     file.read_f32(*t, gyre::Span<float>(p.value.data(), static_cast<std::size_t>(p.value.size())));
   }
 }
@@ -141,10 +149,12 @@ fs::path resolve_model_path(const fs::path& model_or_run) {
   if (fs::is_directory(model_or_run, ec)) {
     const fs::path best = model_or_run / "checkpoint-best.bin";
     if (!fs::exists(best, ec))
-      throw IoError(model_or_run.string() + " is a directory without checkpoint-best.bin (not a finished or resumable run)");
+      throw IoError(model_or_run.string() +
+                    " is a directory without checkpoint-best.bin (not a finished or resumable run)");
     return best;
   }
-  if (!fs::exists(model_or_run, ec)) throw IoError("cannot open " + model_or_run.string() + ": no such file or directory");
+  if (!fs::exists(model_or_run, ec))
+    throw IoError("cannot open " + model_or_run.string() + ": no such file or directory");
   return model_or_run;
 }
 
@@ -166,23 +176,28 @@ void write_checkpoint(const fs::path& path, const model::SequenceModel& model, c
                       optim::Optimizer* optimizer, const json& trainer_state, const json& config) {
   json header = model_header(model.spec(), vocab);
   header["format"] = "gyre-checkpoint";
-  header["training"] = {{"dropout", model.spec().dropout}, {"embedding_dropout", model.spec().embedding_dropout}};
+  header["training"] = {{"dropout", model.spec().dropout},
+                        {"embedding_dropout", model.spec().embedding_dropout}};
   std::vector<std::uint64_t> counts;
-  for (std::size_t i = 0; i < vocab.vocab.size(); ++i) counts.push_back(vocab.vocab.count(static_cast<std::int32_t>(i)));
+  for (std::size_t i = 0; i < vocab.vocab.size(); ++i)
+    counts.push_back(vocab.vocab.count(static_cast<std::int32_t>(i)));
   header["vocabulary_counts"] = counts;
   std::vector<std::uint64_t> label_counts;
-  for (std::size_t i = 0; i < vocab.labels.size(); ++i) label_counts.push_back(vocab.labels.count(static_cast<std::int32_t>(i)));
+  for (std::size_t i = 0; i < vocab.labels.size(); ++i)
+    label_counts.push_back(vocab.labels.count(static_cast<std::int32_t>(i)));
   header["label_counts"] = label_counts;
   header["trainer"] = trainer_state;
   header["config"] = config;
   try {
     runtime::ModelFileWriter writer(header.dump());
     for (const auto& p : model.params())
-      writer.add_tensor(p.name, static_cast<std::uint64_t>(p.value.rows()), static_cast<std::uint64_t>(p.value.cols()),
+      writer.add_tensor(p.name, static_cast<std::uint64_t>(p.value.rows()),
+                        static_cast<std::uint64_t>(p.value.cols()),
                         gyre::Span<const float>(p.value.data(), static_cast<std::size_t>(p.value.size())));
     if (optimizer != nullptr && optimizer->bound()) {
       for (const auto& [name, tensor] : optimizer->state_tensors())
-        writer.add_tensor(name, static_cast<std::uint64_t>(tensor->rows()), static_cast<std::uint64_t>(tensor->cols()),
+        writer.add_tensor(name, static_cast<std::uint64_t>(tensor->rows()),
+                          static_cast<std::uint64_t>(tensor->cols()),
                           gyre::Span<const float>(tensor->data(), static_cast<std::size_t>(tensor->size())));
     }
     writer.write(path.string());
@@ -194,7 +209,8 @@ void write_checkpoint(const fs::path& path, const model::SequenceModel& model, c
 json restore_checkpoint(const fs::path& path, model::SequenceModel& model, optim::Optimizer* optimizer) {
   const runtime::ModelFile file = open_file(path);
   const json header = header_of(file);
-  if (header.value("format", "") != "gyre-checkpoint") throw FormatError(path.string(), "not a gyre training checkpoint");
+  if (header.value("format", "") != "gyre-checkpoint")
+    throw FormatError(path.string(), "not a gyre training checkpoint");
   model::ModelSpec spec;
   text::VocabFile vocab;
   parse_header(header, path.string(), spec, vocab);
@@ -211,10 +227,12 @@ json restore_checkpoint(const fs::path& path, model::SequenceModel& model, optim
       file.read_f32(*t, gyre::Span<float>(tensor->data(), static_cast<std::size_t>(tensor->size())));
     }
   }
-  return json{{"trainer", header.value("trainer", json::object())}, {"config", header.value("config", json::object())}};
+  return json{{"trainer", header.value("trainer", json::object())},
+              {"config", header.value("config", json::object())}};
 }
 
-std::size_t export_model(const TrainedModel& trained, const fs::path& out, runtime::DType precision, const json& extra) {
+std::size_t export_model(const TrainedModel& trained, const fs::path& out, runtime::DType precision,
+                         const json& extra) {
   json header = model_header(trained.spec, trained.vocab);
   header["format"] = "gyre-model";
   for (const auto& [key, value] : extra.items())
@@ -240,8 +258,9 @@ std::size_t export_model(const TrainedModel& trained, const fs::path& out, runti
           for (Eigen::Index i = 0; i < values.size(); ++i)
             if ((*allowed)[static_cast<std::size_t>(i)] == 0) values.data()[i] = kForbidden;
       }
-      writer.add_tensor(p.name, static_cast<std::uint64_t>(values.rows()), static_cast<std::uint64_t>(values.cols()),
-                        gyre::Span<const float>(values.data(), static_cast<std::size_t>(values.size())), dtype);
+      writer.add_tensor(
+          p.name, static_cast<std::uint64_t>(values.rows()), static_cast<std::uint64_t>(values.cols()),
+          gyre::Span<const float>(values.data(), static_cast<std::size_t>(values.size())), dtype);
     }
     writer.write(out.string());
   } catch (const runtime::Error& e) {

@@ -8,7 +8,8 @@ namespace gyre::model {
 Encoder::Encoder(const text::VocabFile& vocab, data::Task task)
     : vocab_(&vocab), task_(task), tokenizer_(vocab.tokenizer) {}
 
-void Encoder::tokens(const data::Example& example, std::string_view path, std::vector<std::string>& out) const {
+void Encoder::tokens(const data::Example& example, std::string_view path,
+                     std::vector<std::string>& out) const {
   if (task_ == data::Task::kClassify) {
     text::tokenize_at(tokenizer_, example.text, path, example.line, out);
     return;
@@ -34,7 +35,8 @@ data::EncodedExample Encoder::encode(const data::Example& example, std::string_v
   for (const auto& t : toks) out.ids.push_back(vocab_->vocab.id(t));
   if (task_ == data::Task::kClassify) {
     if (example.labels.empty()) throw ParseError(path, example.line, "the example has no label");
-    for (const auto& label : example.labels) out.targets.push_back(vocab_->labels.id(label, path, example.line));
+    for (const auto& label : example.labels)
+      out.targets.push_back(vocab_->labels.id(label, path, example.line));
   } else {
     if (example.tags.size() != example.tokens.size())
       throw ParseError(path, example.line, "tokens and tags differ in length");
@@ -43,7 +45,8 @@ data::EncodedExample Encoder::encode(const data::Example& example, std::string_v
   return out;
 }
 
-void Encoder::encode_text(std::string_view text, std::vector<std::string>& toks, std::vector<std::int32_t>& ids) const {
+void Encoder::encode_text(std::string_view text, std::vector<std::string>& toks,
+                          std::vector<std::int32_t>& ids) const {
   tokenizer_.tokenize(text, toks);
   ids.clear();
   ids.reserve(toks.size());

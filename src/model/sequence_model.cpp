@@ -56,8 +56,9 @@ void SequenceModel::init_parameters(Rng& rng) {
 }
 
 void SequenceModel::set_loss_options(LossOptions options) {
-  GYRE_CHECK(options.class_weights.empty() || static_cast<int>(options.class_weights.size()) == spec_.num_labels(),
-             "class weights must have one entry per label");
+  GYRE_CHECK(
+      options.class_weights.empty() || static_cast<int>(options.class_weights.size()) == spec_.num_labels(),
+      "class weights must have one entry per label");
   loss_options_ = std::move(options);
 }
 
@@ -126,8 +127,9 @@ double SequenceModel::train_batch(const data::Batch& batch, std::span<const data
 }
 
 double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const data::Batch& batch,
-                                           const data::Window& win, std::span<const data::EncodedExample> examples,
-                                           int Tw, double normalizer, Rng& dropout_rng) {
+                                           const data::Window& win,
+                                           std::span<const data::EncodedExample> examples, int Tw,
+                                           double normalizer, Rng& dropout_rng) {
   const int Bw = static_cast<int>(active.size());
   nn::CrossEntropyOptions ce;
   ce.class_weights = loss_options_.class_weights;
@@ -140,14 +142,16 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
     if (spec_.output == OutputKind::kSigmoid) {
       multi_hot_.setZero(Bw, spec_.num_labels());
       for (int i = 0; i < Bw; ++i) {
-        const auto& ex = examples[batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]];
+        const auto& ex =
+            examples[batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]];
         for (const auto label : ex.targets) multi_hot_(i, label) = 1.0f;
       }
       loss_sum = nn::sigmoid_binary_cross_entropy(logits_, multi_hot_, d_logits_) * Bw;
     } else {
       targets_.resize(static_cast<std::size_t>(Bw));
       for (int i = 0; i < Bw; ++i) {
-        const auto& ex = examples[batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]];
+        const auto& ex =
+            examples[batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]];
         targets_[static_cast<std::size_t>(i)] = ex.targets.at(0);
       }
       loss_sum = nn::softmax_cross_entropy(logits_, targets_, d_logits_, ce) * Bw;
@@ -165,13 +169,15 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
       const auto b = static_cast<std::size_t>(active[static_cast<std::size_t>(i)]);
       const auto& ex = examples[batch.examples[b]];
       for (int t = 0; t < lengths_[static_cast<std::size_t>(i)]; ++t)
-        targets_[static_cast<std::size_t>(t * Bw + i)] = ex.targets.at(static_cast<std::size_t>(win.start[b] + t));
+        targets_[static_cast<std::size_t>(t * Bw + i)] =
+            ex.targets.at(static_cast<std::size_t>(win.start[b] + t));
       tokens += static_cast<std::size_t>(lengths_[static_cast<std::size_t>(i)]);
     }
     if (crf_) {
       loss_sum = crf_->loss(logits_, lengths_, targets_, &d_logits_, static_cast<float>(1.0 / normalizer));
     } else {
-      loss_sum = nn::token_cross_entropy(logits_, targets_, Tw, lengths_, d_logits_, ce) * static_cast<double>(tokens);
+      loss_sum = nn::token_cross_entropy(logits_, targets_, Tw, lengths_, d_logits_, ce) *
+                 static_cast<double>(tokens);
       d_logits_ *= static_cast<float>(static_cast<double>(tokens) / normalizer);
     }
     head_->backward(d_logits_, &d_h_);

@@ -10,14 +10,19 @@ using nlohmann::json;
 
 const char* to_string(OutputKind kind) noexcept {
   switch (kind) {
-    case OutputKind::kSoftmax: return "softmax";
-    case OutputKind::kSigmoid: return "sigmoid";
-    case OutputKind::kCrf: return "crf";
+    case OutputKind::kSoftmax:
+      return "softmax";
+    case OutputKind::kSigmoid:
+      return "sigmoid";
+    case OutputKind::kCrf:
+      return "crf";
   }
   return "?";
 }
 
-const char* cell_name(nn::CellType cell) noexcept { return cell == nn::CellType::kLstm ? "lstm" : "gru"; }
+const char* cell_name(nn::CellType cell) noexcept {
+  return cell == nn::CellType::kLstm ? "lstm" : "gru";
+}
 
 nn::CellType parse_cell(const std::string& name) {
   if (name == "lstm") return nn::CellType::kLstm;
@@ -95,7 +100,8 @@ void validate(const ModelSpec& s) {
   if (s.hidden_size < 1) throw ConfigError("hidden_size", "must be >= 1");
   if (s.layers < 1) throw ConfigError("layers", "must be >= 1");
   if (s.labels.size() < 2 && s.output != OutputKind::kSigmoid)
-    throw ConfigError("labels", "a model needs at least two labels (found " + std::to_string(s.labels.size()) + ")");
+    throw ConfigError("labels",
+                      "a model needs at least two labels (found " + std::to_string(s.labels.size()) + ")");
   if (s.labels.empty()) throw ConfigError("labels", "a model needs at least one label");
   if (!(s.dropout >= 0.0f && s.dropout < 1.0f)) throw ConfigError("dropout", "must be in [0, 1)");
   if (!(s.embedding_dropout >= 0.0f && s.embedding_dropout < 1.0f))

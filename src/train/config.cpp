@@ -105,7 +105,9 @@ json config_to_json(const TrainConfig& config) {
   return j;
 }
 
-json default_config_json() { return config_to_json(TrainConfig{}); }
+json default_config_json() {
+  return config_to_json(TrainConfig{});
+}
 
 TrainConfig config_from_json(const json& j) {
   if (!j.is_object()) throw ConfigError("config", "expected a JSON object");
@@ -116,7 +118,8 @@ TrainConfig config_from_json(const json& j) {
     if (j.contains(key) && !j.at(key).is_null()) read_value(j, key, value);
   });
   for (const auto& [key, value] : j.items()) {
-    if (!known.count(key)) throw ConfigError(key, "unknown setting (check the spelling; see `gyre train --help`)");
+    if (!known.count(key))
+      throw ConfigError(key, "unknown setting (check the spelling; see `gyre train --help`)");
   }
   return c;
 }
@@ -128,7 +131,8 @@ void validate(const TrainConfig& c) {
   require_one_of("tokenizer", c.tokenizer, {"words", "chars", "whitespace"});
   if (c.max_tokens < 0) throw ConfigError("max_tokens", "must be >= 0");
   if (c.min_count < 1) throw ConfigError("min_count", "must be >= 1");
-  if (c.max_vocab_size != 0 && c.max_vocab_size < 3) throw ConfigError("max_vocab_size", "must be 0 (no limit) or >= 3");
+  if (c.max_vocab_size != 0 && c.max_vocab_size < 3)
+    throw ConfigError("max_vocab_size", "must be 0 (no limit) or >= 3");
   require_one_of("cell", c.cell, {"lstm", "gru"});
   if (c.embedding_size < 1) throw ConfigError("embedding_size", "must be >= 1");
   if (c.hidden_size < 1) throw ConfigError("hidden_size", "must be >= 1");
@@ -146,23 +150,28 @@ void validate(const TrainConfig& c) {
   require_one_of("schedule", c.schedule, {"constant", "linear", "cosine", "plateau"});
   if (c.warmup_steps < 0) throw ConfigError("warmup_steps", "must be >= 0");
   if (!(c.clip_norm >= 0.0)) throw ConfigError("clip_norm", "must be >= 0 (0 turns clipping off)");
-  if (!(c.label_smoothing >= 0.0 && c.label_smoothing < 1.0)) throw ConfigError("label_smoothing", "must be in [0, 1)");
+  if (!(c.label_smoothing >= 0.0 && c.label_smoothing < 1.0))
+    throw ConfigError("label_smoothing", "must be in [0, 1)");
   require_one_of("class_weights", c.class_weights, {"none", "balanced"});
   if (c.batch_size < 1) throw ConfigError("batch_size", "must be >= 1");
   if (c.epochs < 1) throw ConfigError("epochs", "must be >= 1");
   if (c.patience < 0) throw ConfigError("patience", "must be >= 0");
-  require_one_of("early_stop_metric", c.early_stop_metric, {"auto", "accuracy", "macro_f1", "loss", "span_f1"});
+  require_one_of("early_stop_metric", c.early_stop_metric,
+                 {"auto", "accuracy", "macro_f1", "loss", "span_f1"});
   if (c.bptt_window < 0) throw ConfigError("bptt_window", "must be >= 0");
   if (c.max_length < 0) throw ConfigError("max_length", "must be >= 0");
   if (c.bptt_window > 0 && c.max_length > 0 && c.bptt_window > c.max_length)
-    throw ConfigError("bptt_window", "window (" + std::to_string(c.bptt_window) + ") is longer than max_length (" +
-                                         std::to_string(c.max_length) + "): no example would ever be cut");
+    throw ConfigError("bptt_window", "window (" + std::to_string(c.bptt_window) +
+                                         ") is longer than max_length (" + std::to_string(c.max_length) +
+                                         "): no example would ever be cut");
   if (c.bptt_window > 0 && c.bidirectional == "yes")
-    throw ConfigError("bptt_window", "truncated BPTT needs a unidirectional model (the backward direction would "
-                                     "only ever see one window); drop --bidirectional or --bptt-window");
+    throw ConfigError("bptt_window",
+                      "truncated BPTT needs a unidirectional model (the backward direction would "
+                      "only ever see one window); drop --bidirectional or --bptt-window");
   if (c.bptt_window > 0 && c.pooling != "last" && c.task == "classify")
-    throw ConfigError("bptt_window", "a classifier trained with truncated BPTT must pool the last state "
-                                     "(--pooling last): mean/max pooling would span windows the gradient cannot reach");
+    throw ConfigError("bptt_window",
+                      "a classifier trained with truncated BPTT must pool the last state "
+                      "(--pooling last): mean/max pooling would span windows the gradient cannot reach");
   if (c.threads < 1 || c.threads > 256) throw ConfigError("threads", "must be in 1..256");
 }
 

@@ -10,15 +10,16 @@ namespace gyre::train {
 
 using nlohmann::json;
 
-std::vector<ExamplePrediction> predict_all(model::SequenceModel& model, std::span<const data::EncodedExample> examples,
-                                           int batch_size) {
+std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
+                                           std::span<const data::EncodedExample> examples, int batch_size) {
   const auto& spec = model.spec();
   std::vector<ExamplePrediction> out(examples.size());
   // Sort by length so batches carry little padding; results do not depend on batching.
   std::vector<std::size_t> order(examples.size());
   std::iota(order.begin(), order.end(), std::size_t{0});
-  std::stable_sort(order.begin(), order.end(),
-                   [&](std::size_t a, std::size_t b) { return examples[a].ids.size() < examples[b].ids.size(); });
+  std::stable_sort(order.begin(), order.end(), [&](std::size_t a, std::size_t b) {
+    return examples[a].ids.size() < examples[b].ids.size();
+  });
   data::Batch batch;
   model::Prediction pred;
   const auto C = static_cast<std::size_t>(spec.num_labels());
@@ -32,7 +33,8 @@ std::vector<ExamplePrediction> predict_all(model::SequenceModel& model, std::spa
       if (spec.task == data::Task::kClassify) {
         p.probs.assign(pred.probs.row(static_cast<Eigen::Index>(b)).data(),
                        pred.probs.row(static_cast<Eigen::Index>(b)).data() + C);
-        const auto top = static_cast<std::int32_t>(std::max_element(p.probs.begin(), p.probs.end()) - p.probs.begin());
+        const auto top =
+            static_cast<std::int32_t>(std::max_element(p.probs.begin(), p.probs.end()) - p.probs.begin());
         p.confidence = p.probs[static_cast<std::size_t>(top)];
         p.labels.clear();
         if (spec.output == model::OutputKind::kSigmoid) {
@@ -146,12 +148,15 @@ double EvaluationResult::metric(std::string_view name) const {
 }
 
 json EvaluationResult::summary() const {
-  if (tagging) return json{{"loss", loss}, {"token_accuracy", tagging->token_accuracy}, {"span_f1", tagging->micro.f1}};
+  if (tagging)
+    return json{{"loss", loss}, {"token_accuracy", tagging->token_accuracy}, {"span_f1", tagging->micro.f1}};
   return json{{"loss", loss}, {"accuracy", metric("accuracy")}, {"macro_f1", metric("macro_f1")}};
 }
 
 json EvaluationResult::to_json() const {
-  json j = classification ? classification->to_json() : multilabel ? multilabel->to_json() : tagging->to_json();
+  json j = classification ? classification->to_json()
+           : multilabel   ? multilabel->to_json()
+                          : tagging->to_json();
   j["loss"] = loss;
   return j;
 }

@@ -25,8 +25,14 @@ bool install_interrupt_handlers() {
   return sigaction(SIGINT, &action, nullptr) == 0 && sigaction(SIGTERM, &action, nullptr) == 0;
 }
 
-bool interrupt_requested() noexcept { return g_requested != 0; }
-void reset_interrupt() noexcept { g_requested = 0; }
-void request_interrupt() noexcept { g_requested = 1; }
+bool interrupt_requested() noexcept {
+  return g_requested != 0;
+}
+void reset_interrupt() noexcept {
+  g_requested = 0;
+}
+void request_interrupt() noexcept {
+  g_requested = 1;
+}
 
 }  // namespace gyre::train

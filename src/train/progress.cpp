@@ -29,7 +29,9 @@ std::size_t peak_rss_bytes() {
 }
 
 ProgressLine::ProgressLine(std::FILE* out, int interactive, bool quiet)
-    : out_(out), interactive_(interactive < 0 ? (isatty(fileno(out)) != 0) : interactive != 0), quiet_(quiet) {}
+    : out_(out),
+      interactive_(interactive < 0 ? (isatty(fileno(out)) != 0) : interactive != 0),
+      quiet_(quiet) {}
 
 void ProgressLine::start_epoch(int epoch, int epochs, std::size_t steps) {
   epoch_ = epoch;
@@ -55,12 +57,15 @@ void ProgressLine::step(std::size_t step, double mean_loss, std::size_t tokens) 
 
 void ProgressLine::draw(bool final) {
   if (quiet_) return;
-  const double elapsed = std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
+  const double elapsed =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
   const double tok_per_s = elapsed > 0 ? static_cast<double>(tokens_) / elapsed : 0.0;
-  const double eta = step_ > 0 ? elapsed * static_cast<double>(steps_ - step_) / static_cast<double>(step_) : NAN;
+  const double eta =
+      step_ > 0 ? elapsed * static_cast<double>(steps_ - step_) / static_cast<double>(step_) : NAN;
   char buf[256];
-  std::snprintf(buf, sizeof buf, "epoch %d/%d  step %zu/%zu  loss %.4f  %.0f tok/s  %s %s", epoch_, epochs_, step_,
-                steps_, loss_, tok_per_s, final ? "took" : "eta", format_duration(final ? elapsed : eta).c_str());
+  std::snprintf(buf, sizeof buf, "epoch %d/%d  step %zu/%zu  loss %.4f  %.0f tok/s  %s %s", epoch_, epochs_,
+                step_, steps_, loss_, tok_per_s, final ? "took" : "eta",
+                format_duration(final ? elapsed : eta).c_str());
   if (interactive_) {
     std::fprintf(out_, "\r\033[K%s", buf);
     line_open_ = true;

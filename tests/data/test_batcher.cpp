@@ -13,7 +13,8 @@ std::vector<EncodedExample> make_examples(std::size_t n, std::uint64_t seed) {
   std::vector<EncodedExample> out(n);
   for (std::size_t i = 0; i < n; ++i) {
     const auto len = 1 + rng.below(40);
-    for (std::uint64_t t = 0; t < len; ++t) out[i].ids.push_back(static_cast<std::int32_t>(2 + rng.below(50)));
+    for (std::uint64_t t = 0; t < len; ++t)
+      out[i].ids.push_back(static_cast<std::int32_t>(2 + rng.below(50)));
     out[i].targets = {static_cast<std::int32_t>(i % 3)};
   }
   return out;
@@ -84,7 +85,8 @@ TEST_CASE("windows are aligned at each sequence's end", "[data]") {
   gyre::data::fill_batch(ex, idx, batch);
   const auto windows = gyre::data::make_windows(batch, 4);
   REQUIRE(windows.size() == 3);
-  // sequence 0 (len 10): [0,2) [2,6) [6,10); sequence 1 (len 4): -, -, [0,4); sequence 2 (len 7): -, [0,3), [3,7)
+  // sequence 0 (len 10): [0,2) [2,6) [6,10); sequence 1 (len 4): -, -, [0,4); sequence 2 (len 7): -, [0,3),
+  // [3,7)
   REQUIRE(windows[0].lengths == std::vector<int>{2, 0, 0});
   REQUIRE(windows[1].lengths == std::vector<int>{4, 0, 3});
   REQUIRE(windows[2].lengths == std::vector<int>{4, 4, 4});

@@ -28,9 +28,10 @@ const char* kTexts[] = {
 
 gyre::text::VocabFile make_vocab(std::vector<std::string> labels) {
   gyre::text::VocabFile v;
-  v.vocab = gyre::text::Vocab({"the", "kettle", "oven", "washer", "fridge", "dryer", "at", "can", "you", "come", ".",
-                               "?", "!", ",", "please", "thanks", "on", "monday", "3pm", "is", "fine"},
-                              std::vector<std::uint64_t>(21, 5));
+  v.vocab = gyre::text::Vocab(
+      {"the", "kettle", "oven", "washer", "fridge", "dryer", "at",     "can", "you", "come", ".",
+       "?",   "!",      ",",    "please", "thanks", "on",    "monday", "3pm", "is",  "fine"},
+      std::vector<std::uint64_t>(21, 5));
   gyre::text::LabelCounts counts;
   for (auto& l : labels) counts[l] = 1;
   v.labels = gyre::text::LabelSet(counts);
@@ -72,12 +73,18 @@ TEST_CASE("runtime f32 output equals the training library's forward pass", "[io]
     OutputKind output;
   };
   const Case cases[] = {
-      {"lstm uni mean", gyre::data::Task::kClassify, CellType::kLstm, 1, false, PoolingKind::kMean, OutputKind::kSoftmax},
-      {"gru bi last", gyre::data::Task::kClassify, CellType::kGru, 1, true, PoolingKind::kLast, OutputKind::kSoftmax},
-      {"lstm 2-layer bi max", gyre::data::Task::kClassify, CellType::kLstm, 2, true, PoolingKind::kMax, OutputKind::kSoftmax},
-      {"gru 2-layer sigmoid", gyre::data::Task::kClassify, CellType::kGru, 2, false, PoolingKind::kMean, OutputKind::kSigmoid},
-      {"lstm bi tagger", gyre::data::Task::kTag, CellType::kLstm, 1, true, PoolingKind::kMean, OutputKind::kSoftmax},
-      {"gru 2-layer bi crf tagger", gyre::data::Task::kTag, CellType::kGru, 2, true, PoolingKind::kMean, OutputKind::kCrf},
+      {"lstm uni mean", gyre::data::Task::kClassify, CellType::kLstm, 1, false, PoolingKind::kMean,
+       OutputKind::kSoftmax},
+      {"gru bi last", gyre::data::Task::kClassify, CellType::kGru, 1, true, PoolingKind::kLast,
+       OutputKind::kSoftmax},
+      {"lstm 2-layer bi max", gyre::data::Task::kClassify, CellType::kLstm, 2, true, PoolingKind::kMax,
+       OutputKind::kSoftmax},
+      {"gru 2-layer sigmoid", gyre::data::Task::kClassify, CellType::kGru, 2, false, PoolingKind::kMean,
+       OutputKind::kSigmoid},
+      {"lstm bi tagger", gyre::data::Task::kTag, CellType::kLstm, 1, true, PoolingKind::kMean,
+       OutputKind::kSoftmax},
+      {"gru 2-layer bi crf tagger", gyre::data::Task::kTag, CellType::kGru, 2, true, PoolingKind::kMean,
+       OutputKind::kCrf},
   };
   const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "parity";
   fs::create_directories(dir);
@@ -117,7 +124,8 @@ TEST_CASE("runtime f32 output equals the training library's forward pass", "[io]
           REQUIRE(rt.probabilities.size() == lib.probs.size());
           // Tolerance 1e-5 absolute on probabilities (the issue's parity bar): same equations,
           // different summation order and kernels.
-          for (std::size_t k = 0; k < lib.probs.size(); ++k) REQUIRE_THAT(rt.probabilities[k], WithinAbs(lib.probs[k], 1e-5));
+          for (std::size_t k = 0; k < lib.probs.size(); ++k)
+            REQUIRE_THAT(rt.probabilities[k], WithinAbs(lib.probs[k], 1e-5));
         } else {
           const auto& rt = ctx.tag(text);
           REQUIRE(rt.tags.size() == lib.tags.size());

@@ -42,8 +42,10 @@ fs::path tmp_dir(const std::string& name) {
 // shared filler words at a random position; label noise none. Majority class ~40%.
 void write_corpus(const fs::path& path, std::size_t n, std::uint64_t seed) {
   const char* labels[] = {"alpha", "beta", "gamma"};
-  const char* cues[3][3] = {{"red", "crimson", "scarlet"}, {"blue", "navy", "azure"}, {"green", "olive", "lime"}};
-  const char* filler[] = {"the", "a", "message", "about", "some", "thing", "we", "saw", "today", "it", "was", "there"};
+  const char* cues[3][3] = {
+      {"red", "crimson", "scarlet"}, {"blue", "navy", "azure"}, {"green", "olive", "lime"}};
+  const char* filler[] = {"the", "a",   "message", "about", "some", "thing",
+                          "we",  "saw", "today",   "it",    "was",  "there"};
   gyre::Rng rng(seed);
   std::ofstream out(path);
   out << "label\ttext\n";
@@ -119,8 +121,8 @@ TEST_CASE("a classifier trained on a learnable corpus beats the majority class b
   const auto trained = gyre::io::load_trained_model(dir);
   const auto accuracy = result.final_metrics.at("dev").at("accuracy").get<double>();
   REQUIRE(accuracy > 0.85);
-  for (const char* file : {"config.json", "vocab.json", "checkpoint-best.bin", "checkpoint-last.bin", "log.jsonl",
-                           "metrics.json"})
+  for (const char* file : {"config.json", "vocab.json", "checkpoint-best.bin", "checkpoint-last.bin",
+                           "log.jsonl", "metrics.json"})
     REQUIRE(fs::exists(dir / file));
   // One log line per epoch with the documented fields.
   std::ifstream log(dir / "log.jsonl");
@@ -166,7 +168,9 @@ TEST_CASE("an interrupted run resumes to bit-identical weights", "[train]") {
   config.epochs = 3;
   config.dropout = 0.3;  // randomness inside steps must be reproduced too
   SECTION("after an epoch, one thread") {}
-  SECTION("in the middle of an epoch, two threads") { config.threads = 2; }
+  SECTION("in the middle of an epoch, two threads") {
+    config.threads = 2;
+  }
   const fs::path whole = tmp_dir("resume_whole");
   gyre::train::train(config, options_for(whole));
 
@@ -209,8 +213,9 @@ TEST_CASE("the divergence guard stops a run whose loss blows up", "[train]") {
   config.learning_rate = 1e30;
   config.clip_norm = 0;
   const fs::path dir = tmp_dir("diverge");
-  REQUIRE_THROWS_WITH(gyre::train::train(config, options_for(dir)),
-                      Catch::Matchers::Contains("at epoch 1, step") && Catch::Matchers::Contains("learning-rate"));
+  REQUIRE_THROWS_WITH(
+      gyre::train::train(config, options_for(dir)),
+      Catch::Matchers::Contains("at epoch 1, step") && Catch::Matchers::Contains("learning-rate"));
   REQUIRE_FALSE(fs::exists(dir / "metrics.json"));
 }
 
@@ -226,7 +231,8 @@ TEST_CASE("bad settings and bad data fail before anything is written", "[train]"
     config.bptt_window = 20;
     config.max_length = 10;
     config.pooling = "last";
-    REQUIRE_THROWS_WITH(gyre::train::train(config, options_for(dir)), Catch::Matchers::Contains("bptt_window"));
+    REQUIRE_THROWS_WITH(gyre::train::train(config, options_for(dir)),
+                        Catch::Matchers::Contains("bptt_window"));
   }
   SECTION("a dev label the training file never had") {
     const fs::path bad_dev = fs::path(GYRE_TEST_TMP_DIR) / "train" / "bad_dev.tsv";
@@ -263,7 +269,10 @@ TEST_CASE("truncated BPTT trains a classifier and a tagger", "[train]") {
       const auto len = 5 + rng.below(8);
       for (std::uint64_t t = 0; t < len; ++t) {
         if (rng.below(4) == 0) {
-          out << "Marrow" << "\tB-street\n" << "Lane" << "\tI-street\n";
+          out << "Marrow"
+              << "\tB-street\n"
+              << "Lane"
+              << "\tI-street\n";
         } else {
           out << words[rng.below(8)] << "\tO\n";
         }
@@ -290,15 +299,17 @@ TEST_CASE("SIGINT saves a resumable run; exit code 3, then --resume finishes it"
   const fs::path big = fs::path(GYRE_TEST_TMP_DIR) / "train" / "big.tsv";
   write_corpus(big, 20000, 21);
   const std::string train_arg = big.string(), dev_arg = corpus().dev.string(), out_arg = dir.string();
-  std::vector<std::string> args{GYRE_CLI_PATH, "train", "--train", train_arg, "--dev", dev_arg, "--out", out_arg,
-                                "--epochs", "50", "--hidden-size", "64", "--quiet"};
+  std::vector<std::string> args{GYRE_CLI_PATH,   "train", "--train", train_arg,  "--dev",
+                                dev_arg,         "--out", out_arg,   "--epochs", "50",
+                                "--hidden-size", "64",    "--quiet"};
   std::vector<char*> argv;
   for (auto& a : args) argv.push_back(a.data());
   argv.push_back(nullptr);
   pid_t pid = 0;
   REQUIRE(posix_spawn(&pid, GYRE_CLI_PATH, nullptr, nullptr, argv.data(), environ) == 0);
   // Wait until training has started (the run directory holds its log), then interrupt.
-  for (int i = 0; i < 600 && !fs::exists(dir / "log.jsonl"); ++i) std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  for (int i = 0; i < 600 && !fs::exists(dir / "log.jsonl"); ++i)
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
   std::this_thread::sleep_for(std::chrono::milliseconds(300));
   kill(pid, SIGINT);
   int status = 0;

@@ -23,15 +23,16 @@ namespace gyre::data {
 
 /// One example after tokenization and vocabulary lookup.
 struct EncodedExample {
-  std::vector<std::int32_t> ids;      // token ids, length >= 1
-  std::vector<std::int32_t> targets;  // classify: 1 label id (multi-label: all label ids); tag: one tag id per token
-  std::size_t source_line = 0;        // line in the input file (for messages)
+  std::vector<std::int32_t> ids;  // token ids, length >= 1
+  /// classify: one label id (multi-label: all label ids); tag: one tag id per token.
+  std::vector<std::int32_t> targets;
+  std::size_t source_line = 0;  // line in the input file (for messages)
 };
 
 /// A padded batch in time-major layout: element (t, b) is at t * batch + b.
 struct Batch {
-  int batch = 0;    // sequences in the batch
-  int max_len = 0;  // T
+  int batch = 0;                      // sequences in the batch
+  int max_len = 0;                    // T
   std::vector<std::int32_t> ids;      // [T * B], padding = 0
   std::vector<int> lengths;           // [B]
   std::vector<std::size_t> examples;  // [B] indices into the example list
@@ -41,10 +42,10 @@ struct Batch {
 
 /// One truncated-BPTT window of a batch: steps [start_b, end_b) of sequence b.
 struct Window {
-  int max_len = 0;            // longest window among the batch's sequences
-  std::vector<int> start;     // [B] first step of the window in sequence b
-  std::vector<int> lengths;   // [B] steps in the window (0 = sequence absent)
-  bool last = false;          // the final window: every sequence's last step is in it
+  int max_len = 0;           // longest window among the batch's sequences
+  std::vector<int> start;    // [B] first step of the window in sequence b
+  std::vector<int> lengths;  // [B] steps in the window (0 = sequence absent)
+  bool last = false;         // the final window: every sequence's last step is in it
 };
 
 struct BatchPlanOptions {

@@ -27,7 +27,7 @@ struct TrainedModel {
   model::ModelSpec spec;
   text::VocabFile vocab;
   std::unique_ptr<model::SequenceModel> model;
-  nlohmann::json header;   // the whole file header
+  nlohmann::json header;       // the whole file header
   std::filesystem::path path;  // the file that was read
 };
 
@@ -41,8 +41,8 @@ TrainedModel load_trained_model(const std::filesystem::path& model_or_run);
 /// Writes a checkpoint atomically: parameters, optimizer state (if given), the trainer's state
 /// and the resolved config.
 void write_checkpoint(const std::filesystem::path& path, const model::SequenceModel& model,
-                      const text::VocabFile& vocab, optim::Optimizer* optimizer, const nlohmann::json& trainer_state,
-                      const nlohmann::json& config);
+                      const text::VocabFile& vocab, optim::Optimizer* optimizer,
+                      const nlohmann::json& trainer_state, const nlohmann::json& config);
 
 /// Restores parameters and (if given) optimizer state from a checkpoint into a model of the same
 /// spec; returns {"trainer": ..., "config": ...}. Throws FormatError on any mismatch.
@@ -52,7 +52,7 @@ nlohmann::json restore_checkpoint(const std::filesystem::path& path, model::Sequ
 /// Writes the compact model file: matrices (embedding, w_input, w_hidden, head.weight) in the
 /// given precision, biases and CRF scores in f32. `extra` is merged into the header (metrics,
 /// provenance). Returns the file size in bytes.
-std::size_t export_model(const TrainedModel& trained, const std::filesystem::path& out, runtime::DType precision,
-                         const nlohmann::json& extra = nlohmann::json::object());
+std::size_t export_model(const TrainedModel& trained, const std::filesystem::path& out,
+                         runtime::DType precision, const nlohmann::json& extra = nlohmann::json::object());
 
 }  // namespace gyre::io

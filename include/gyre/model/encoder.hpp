@@ -32,7 +32,8 @@ class Encoder {
   data::EncodedExample encode(const data::Example& example, std::string_view path) const;
 
   /// Ids of raw text (no targets); may be empty when the text has no tokens.
-  void encode_text(std::string_view text, std::vector<std::string>& tokens, std::vector<std::int32_t>& ids) const;
+  void encode_text(std::string_view text, std::vector<std::string>& tokens,
+                   std::vector<std::int32_t>& ids) const;
 
  private:
   const text::VocabFile* vocab_;

@@ -65,16 +65,16 @@ class SequenceModel {
   /// state carried across windows, gradient cut at their boundaries). Gradients of
   /// (sum of this batch's losses) / normalizer are ADDED to params(); returns the sum of the
   /// batch's losses (in loss_units). Throws gyre::DivergenceError if the loss is not finite.
-  double train_batch(const data::Batch& batch, std::span<const data::EncodedExample> examples, int bptt_window,
-                     double normalizer, Rng& dropout_rng);
+  double train_batch(const data::Batch& batch, std::span<const data::EncodedExample> examples,
+                     int bptt_window, double normalizer, Rng& dropout_rng);
 
   /// Inference (no dropout, full sequences).
   void predict(const data::Batch& batch, Prediction& out);
 
  private:
-  double window_loss_and_grad(const std::vector<int>& active, const data::Batch& batch, const data::Window& win,
-                              std::span<const data::EncodedExample> examples, int Tw, double normalizer,
-                              Rng& dropout_rng);
+  double window_loss_and_grad(const std::vector<int>& active, const data::Batch& batch,
+                              const data::Window& win, std::span<const data::EncodedExample> examples, int Tw,
+                              double normalizer, Rng& dropout_rng);
 
   ModelSpec spec_;
   nn::ParameterStore params_;

@@ -23,8 +23,8 @@ struct ModelSpec {
   int hidden_size = 128;
   int layers = 1;
   bool bidirectional = false;
-  float dropout = 0.2f;            // between recurrent layers and on the head's input
-  float embedding_dropout = 0.1f;  // on embedding outputs
+  float dropout = 0.2f;                              // between recurrent layers and on the head's input
+  float embedding_dropout = 0.1f;                    // on embedding outputs
   nn::PoolingKind pooling = nn::PoolingKind::kMean;  // classifiers only
   OutputKind output = OutputKind::kSoftmax;
   std::vector<std::string> labels;  // class names, or tag names for taggers (id order)

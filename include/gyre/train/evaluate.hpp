@@ -50,7 +50,8 @@ EvaluationResult evaluate(model::SequenceModel& model, std::span<const data::Enc
                           bool keep_predictions = false, int batch_size = 64);
 
 /// Runs the model and returns predictions only (no targets needed), in input order.
-std::vector<ExamplePrediction> predict_all(model::SequenceModel& model, std::span<const data::EncodedExample> examples,
+std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
+                                           std::span<const data::EncodedExample> examples,
                                            int batch_size = 64);
 
 /// True when `candidate` is better than `best` for this metric (loss: lower is better).

@@ -34,7 +34,7 @@ struct TrainResult {
   TrainOutcome outcome = TrainOutcome::kFinished;
   int epochs_completed = 0;
   int best_epoch = 0;
-  std::string metric;        // the early-stopping metric
+  std::string metric;  // the early-stopping metric
   double best_metric = 0.0;
   double seconds = 0.0;
   double tokens_per_second = 0.0;
