@@ -1,0 +1,179 @@
+// gyre compare: train every (cell, hidden size) over several seeds on the same data and splits,
+// score all runs on the same dev (and test) examples, and print the evidence: mean ± sample std
+// per configuration and a paired significance test between the two best.
+
+#include <cstdio>
+#include <map>
+#include <memory>
+#include <sstream>
+
+#include <nlohmann/json.hpp>
+
+#include "cli/command.hpp"
+#include "gyre/core/error.hpp"
+#include "gyre/core/file.hpp"
+#include "gyre/report/html_report.hpp"
+#include "gyre/train/compare.hpp"
+#include "gyre/train/config.hpp"
+
+namespace gyre::cli {
+namespace {
+
+using nlohmann::json;
+
+struct CompareCliOptions {
+  std::string train, dev, test, config_path, out, metric = "auto";
+  std::string cells = "lstm,gru";
+  std::string hidden_sizes = "64,128";
+  int seeds = 3;
+  int bootstrap_samples = 1000;
+  bool quiet = false;
+  std::map<std::string, std::string> values;  // pass-through training settings (config key -> text)
+  std::map<std::string, bool> flags;
+};
+
+std::vector<std::string> split_list(const std::string& text, const char* setting) {
+  std::vector<std::string> out;
+  std::stringstream in(text);
+  std::string item;
+  while (std::getline(in, item, ',')) {
+    const auto a = item.find_first_not_of(" \t"), b = item.find_last_not_of(" \t");
+    if (a == std::string::npos) throw ConfigError(setting, "empty item in '" + text + "'");
+    out.push_back(item.substr(a, b - a + 1));
+  }
+  if (out.empty()) throw ConfigError(setting, "give a comma-separated list");
+  return out;
+}
+
+json parse_value(const std::string& key, const std::string& text, const json& default_value) {
+  try {
+    std::size_t used = 0;
+    if (default_value.is_number_unsigned()) {
+      if (!text.empty() && text[0] == '-') throw ConfigError(key, "must not be negative");
+      const auto v = std::stoull(text, &used);
+      if (used == text.size()) return v;
+    } else if (default_value.is_number_integer()) {
+      const auto v = std::stoll(text, &used);
+      if (used == text.size()) return v;
+    } else if (default_value.is_number()) {
+      const auto v = std::stod(text, &used);
+      if (used == text.size()) return v;
+    } else {
+      return text;
+    }
+  } catch (const std::logic_error&) {
+  }
+  throw ConfigError(key, "'" + text + "' is not a valid number");
+}
+
+std::string flag_name(const std::string& key) {
+  std::string out = key;
+  for (char& c : out)
+    if (c == '_') c = '-';
+  return out;
+}
+
+ExitCode run_compare_cli(const CompareCliOptions& o) {
+  json j = train::default_config_json();
+  if (!o.config_path.empty()) {
+    json file;
+    try {
+      file = json::parse(read_file(o.config_path));
+    } catch (const json::parse_error& e) {
+      throw ParseError(o.config_path, 0, std::string("not valid JSON: ") + e.what());
+    }
+    if (!file.is_object()) throw ParseError(o.config_path, 0, "expected a JSON object of settings");
+    for (const auto& [key, value] : file.items()) {
+      if (key == "out") continue;  // compare has its own --out
+      j[key] = value;
+    }
+  }
+  const json defaults = train::default_config_json();
+  for (const auto& [key, text] : o.values) j[key] = parse_value(key, text, defaults.at(key));
+  for (const auto& [key, value] : o.flags) j[key] = key == "bidirectional" ? json(value ? "yes" : "no") : json(value);
+  if (!o.train.empty()) j["train"] = o.train;
+  if (!o.dev.empty()) j["dev"] = o.dev;
+
+  train::CompareSpec spec;
+  spec.base = train::config_from_json(j);
+  spec.cells = split_list(o.cells, "cells");
+  spec.hidden_sizes.clear();
+  for (const auto& s : split_list(o.hidden_sizes, "hidden_sizes")) {
+    const json v = parse_value("hidden_sizes", s, json(1));
+    spec.hidden_sizes.push_back(static_cast<int>(v.get<long long>()));
+  }
+  spec.seeds = o.seeds;
+  spec.test = o.test;
+  spec.metric = o.metric;
+  spec.out = o.out;
+  spec.bootstrap_samples = o.bootstrap_samples;
+  spec.progress = o.quiet ? nullptr : stderr;
+  if (!o.quiet)
+    std::fprintf(stderr, "gyre compare: %zu cell(s) x %zu size(s) x %d seed(s) = %zu runs into %s\n", spec.cells.size(),
+                 spec.hidden_sizes.size(), spec.seeds, spec.cells.size() * spec.hidden_sizes.size() * std::size_t(spec.seeds),
+                 spec.out.string().c_str());
+  const train::CompareResult result = train::run_compare(spec);
+  std::printf("%s", train::compare_table(result, !spec.test.empty()).c_str());
+  const auto report = report::write_report(spec.out);
+  std::printf("\nevery number: %s\nreport:       %s\n", (spec.out / "compare.json").string().c_str(),
+              report.string().c_str());
+  return ExitCode::kOk;
+}
+
+const RegisterCommand kRegister{
+    "compare", "Train LSTM/GRU configs over several seeds on the same data; table, significance, report", 60,
+    [](CLI::App& sub) -> Runner {
+      auto o = std::make_shared<CompareCliOptions>();
+      sub.footer(
+          "Examples:\n"
+          "  gyre compare --train corpora/demo/intents.train.tsv --dev corpora/demo/intents.dev.tsv \\\n"
+          "               --test corpora/demo/intents.test.tsv --out runs/intents-compare\n"
+          "  gyre compare --train t.tsv --dev d.tsv --cells gru --hidden-sizes 32,64,128 --seeds 5 --epochs 5 --out cmp\n"
+          "Runs go to OUT/<cell>-h<size>-s<seed>/ (seeds 1..N), every number to OUT/compare.json, the HTML\n"
+          "report to OUT/report.html. A run directory that already holds a finished run (metrics.json) of\n"
+          "the same cell, size and seed is reused, not retrained: rerunning after adding a size or a seed\n"
+          "trains only the new runs. The two best configurations (by mean dev score) are compared on the\n"
+          "test set (dev without --test) with McNemar's exact test and a paired bootstrap, using the\n"
+          "seed-1 runs' per-example correctness. Any `gyre train` setting may be given (see its --help).");
+      sub.add_option("--train", o->train, "labelled training file")->required();
+      sub.add_option("--dev", o->dev, "labelled dev file (every run is scored and chosen on it)")->required();
+      sub.add_option("--test", o->test, "labelled held-out test file (scored only)");
+      sub.add_option("--out", o->out, "output directory (created; finished runs inside are reused)")->required();
+      sub.add_option("--cells", o->cells, "comma-separated cells to compare")->default_str("lstm,gru");
+      sub.add_option("--hidden-sizes", o->hidden_sizes, "comma-separated hidden sizes")->default_str("64,128");
+      sub.add_option("--seeds", o->seeds, "seeds per configuration (1..N)")->default_str("3")->check(CLI::Range(1, 1000));
+      sub.add_option("--metric", o->metric, "auto | accuracy | macro_f1 | span_f1 | token_accuracy | loss")
+          ->default_str("auto (accuracy; multi-label: macro_f1; taggers: span_f1)");
+      sub.add_option("--bootstrap-samples", o->bootstrap_samples, "paired bootstrap resamples")
+          ->default_str("1000")
+          ->check(CLI::Range(1, 1000000));
+      sub.add_option("--config", o->config_path, "JSON file of shared training settings (gyre train keys)");
+      sub.add_flag("--quiet", o->quiet, "no progress lines");
+      const json defaults = train::default_config_json();
+      for (const auto& [key, value] : defaults.items()) {
+        if (key == "train" || key == "dev" || key == "cell" || key == "hidden_size" || key == "seed") continue;
+        const std::string help = "training setting (gyre train --" + flag_name(key) + ")";
+        if (key == "bidirectional") {
+          sub.add_flag_callback("--bidirectional", [o] { o->flags["bidirectional"] = true; },
+                                "bidirectional recurrent layers");
+          sub.add_flag_callback("--unidirectional", [o] { o->flags["bidirectional"] = false; },
+                                "unidirectional recurrent layers");
+        } else if (value.is_boolean()) {
+          const bool default_on = value.get<bool>();
+          const std::string name = default_on ? "--no-" + flag_name(key) : "--" + flag_name(key);
+          const std::string k = key;
+          sub.add_flag_callback(name, [o, k, default_on] { o->flags[k] = !default_on; }, help);
+        } else {
+          const std::string k = key;
+          auto* opt = sub.add_option_function<std::string>(
+              "--" + flag_name(key), [o, k](const std::string& text) { o->values[k] = text; }, help);
+          opt->type_name(value.is_string() ? "TEXT" : value.is_number_integer() ? "INT" : "NUMBER");
+          const std::string shown = value.is_string() ? value.get<std::string>() : value.dump();
+          if (!shown.empty()) opt->default_str(shown);
+        }
+      }
+      return [o] { return run_compare_cli(*o); };
+    }};
+
+}  // namespace
+}  // namespace gyre::cli
