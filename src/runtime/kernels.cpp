@@ -96,24 +96,38 @@ void matmul_i8_portable(const std::int8_t* w, const float* w_scale, const std::i
   }
 }
 
-void matmul_packed_f32_portable(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                                float* y, std::size_t ldy) {
+inline float to_float(float v) { return v; }
+inline float to_float(std::uint16_t v) { return half_to_float(v); }
+
+template <class W>
+void matmul_packed_portable(const W* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
+                            std::size_t ldy) {
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   for (std::size_t t = 0; t < n; ++t) {
     const float* xt = x + t * cols;
     for (std::size_t q = 0; q < panels; ++q) {
-      const float* pq = p + q * kPanelRows * cols;
+      const W* pq = p + q * kPanelRows * cols;
       float acc[kPanelRows] = {};
       for (std::size_t c = 0; c < cols; ++c)
-        for (std::size_t r = 0; r < kPanelRows; ++r) acc[r] += pq[c * kPanelRows + r] * xt[c];
+        for (std::size_t r = 0; r < kPanelRows; ++r) acc[r] += to_float(pq[c * kPanelRows + r]) * xt[c];
       const std::size_t valid = std::min(kPanelRows, rows - q * kPanelRows);
       for (std::size_t r = 0; r < valid; ++r) y[t * ldy + q * kPanelRows + r] = acc[r];
     }
   }
 }
 
+void matmul_packed_f32_portable(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                float* y, std::size_t ldy) {
+  matmul_packed_portable(p, rows, cols, x, n, y, ldy);
+}
+void matmul_packed_f16_portable(const std::uint16_t* p, std::size_t rows, std::size_t cols, const float* x,
+                                std::size_t n, float* y, std::size_t ldy) {
+  matmul_packed_portable(p, rows, cols, x, n, y, ldy);
+}
+
 constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable,
-                            sigmoid_portable, tanh_portable, matmul_packed_f32_portable, nullptr};
+                            sigmoid_portable, tanh_portable, matmul_packed_f32_portable, nullptr,
+                            matmul_packed_f16_portable};
 
 #if defined(GYRE_RUNTIME_X86)
 // ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
@@ -261,8 +275,9 @@ GYRE_AVX2 void tanh_avx2(float* x, std::size_t n) {
 }
 
 // Two panels (32 rows, 4 accumulators of 8) per pass for independent FMA chains.
-GYRE_AVX2 void matmul_packed_f32_avx2(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                                      float* y, std::size_t ldy) {
+template <class W>
+GYRE_AVX2 void matmul_packed_avx2(const W* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                  float* y, std::size_t ldy) {
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   const std::size_t stride = kPanelRows * cols;
   alignas(32) float out[2 * kPanelRows];
@@ -270,15 +285,15 @@ GYRE_AVX2 void matmul_packed_f32_avx2(const float* p, std::size_t rows, std::siz
     const float* xt = x + t * cols;
     for (std::size_t q = 0; q < panels; q += 2) {
       const bool two = q + 1 < panels;
-      const float* p0 = p + q * stride;
-      const float* p1 = two ? p0 + stride : p0;
+      const W* p0 = p + q * stride;
+      const W* p1 = two ? p0 + stride : p0;
       __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(), a3 = _mm256_setzero_ps();
       for (std::size_t c = 0; c < cols; ++c) {
         const __m256 xv = _mm256_broadcast_ss(xt + c);
-        a0 = _mm256_fmadd_ps(_mm256_loadu_ps(p0 + c * kPanelRows), xv, a0);
-        a1 = _mm256_fmadd_ps(_mm256_loadu_ps(p0 + c * kPanelRows + 8), xv, a1);
-        a2 = _mm256_fmadd_ps(_mm256_loadu_ps(p1 + c * kPanelRows), xv, a2);
-        a3 = _mm256_fmadd_ps(_mm256_loadu_ps(p1 + c * kPanelRows + 8), xv, a3);
+        a0 = _mm256_fmadd_ps(load(p0 + c * kPanelRows), xv, a0);
+        a1 = _mm256_fmadd_ps(load(p0 + c * kPanelRows + 8), xv, a1);
+        a2 = _mm256_fmadd_ps(load(p1 + c * kPanelRows), xv, a2);
+        a3 = _mm256_fmadd_ps(load(p1 + c * kPanelRows + 8), xv, a3);
       }
       _mm256_store_ps(out, a0);
       _mm256_store_ps(out + 8, a1);
@@ -290,8 +305,17 @@ GYRE_AVX2 void matmul_packed_f32_avx2(const float* p, std::size_t rows, std::siz
   }
 }
 
+GYRE_AVX2 void matmul_packed_f32_avx2(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                      float* y, std::size_t ldy) {
+  matmul_packed_avx2(p, rows, cols, x, n, y, ldy);
+}
+GYRE_AVX2 void matmul_packed_f16_avx2(const std::uint16_t* p, std::size_t rows, std::size_t cols, const float* x,
+                                      std::size_t n, float* y, std::size_t ldy) {
+  matmul_packed_avx2(p, rows, cols, x, n, y, ldy);
+}
+
 constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2, sigmoid_avx2, tanh_avx2,
-                        matmul_packed_f32_avx2, nullptr};
+                        matmul_packed_f32_avx2, nullptr, matmul_packed_f16_avx2};
 
 // ---- AVX-512 (F + BW) -------------------------------------------------------------------------
 #define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
@@ -416,8 +440,10 @@ GYRE_AVX512 void tanh_avx512(float* x, std::size_t n) {
 }
 
 // Four panels (64 rows) per pass: four independent FMA chains hide the FMA latency.
-GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std::size_t cols, const float* x,
-                                          std::size_t n, float* y, std::size_t ldy) {
+template <class W>
+GYRE_AVX512 void matmul_packed_avx512(const W* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                                      float* y, std::size_t ldy) {
+  constexpr __mmask16 all = 0xFFFF;
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   const std::size_t stride = kPanelRows * cols;
   std::size_t t0 = 0;
@@ -425,10 +451,10 @@ GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std:
   for (; t0 + 4 <= n; t0 += 4) {
     const float* x0 = x + t0 * cols;
     for (std::size_t q = 0; q < panels; ++q) {
-      const float* pq = p + q * stride;
+      const W* pq = p + q * stride;
       __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
       for (std::size_t c = 0; c < cols; ++c) {
-        const __m512 wv = _mm512_loadu_ps(pq + c * kPanelRows);
+        const __m512 wv = load(pq + c * kPanelRows, all);
         a0 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[c]), a0);
         a1 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[cols + c]), a1);
         a2 = _mm512_fmadd_ps(wv, _mm512_set1_ps(x0[2 * cols + c]), a2);
@@ -447,15 +473,15 @@ GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std:
     float* yt = y + t * ldy;
     std::size_t q = 0;
     for (; q + 4 <= panels; q += 4) {
-      const float* p0 = p + q * stride;
+      const W* p0 = p + q * stride;
       __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
       for (std::size_t c = 0; c < cols; ++c) {
         const __m512 xv = _mm512_set1_ps(xt[c]);
-        const float* pc = p0 + c * kPanelRows;
-        a0 = _mm512_fmadd_ps(_mm512_loadu_ps(pc), xv, a0);
-        a1 = _mm512_fmadd_ps(_mm512_loadu_ps(pc + stride), xv, a1);
-        a2 = _mm512_fmadd_ps(_mm512_loadu_ps(pc + 2 * stride), xv, a2);
-        a3 = _mm512_fmadd_ps(_mm512_loadu_ps(pc + 3 * stride), xv, a3);
+        const W* pc = p0 + c * kPanelRows;
+        a0 = _mm512_fmadd_ps(load(pc, all), xv, a0);
+        a1 = _mm512_fmadd_ps(load(pc + stride, all), xv, a1);
+        a2 = _mm512_fmadd_ps(load(pc + 2 * stride, all), xv, a2);
+        a3 = _mm512_fmadd_ps(load(pc + 3 * stride, all), xv, a3);
       }
       const __m512 acc[4] = {a0, a1, a2, a3};
       for (std::size_t k = 0; k < 4; ++k) {
@@ -465,14 +491,14 @@ GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std:
       }
     }
     for (; q < panels; ++q) {
-      const float* pq = p + q * stride;
+      const W* pq = p + q * stride;
       __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps();
       std::size_t c = 0;
       for (; c + 2 <= cols; c += 2) {
-        a0 = _mm512_fmadd_ps(_mm512_loadu_ps(pq + c * kPanelRows), _mm512_set1_ps(xt[c]), a0);
-        a1 = _mm512_fmadd_ps(_mm512_loadu_ps(pq + (c + 1) * kPanelRows), _mm512_set1_ps(xt[c + 1]), a1);
+        a0 = _mm512_fmadd_ps(load(pq + c * kPanelRows, all), _mm512_set1_ps(xt[c]), a0);
+        a1 = _mm512_fmadd_ps(load(pq + (c + 1) * kPanelRows, all), _mm512_set1_ps(xt[c + 1]), a1);
       }
-      if (c < cols) a0 = _mm512_fmadd_ps(_mm512_loadu_ps(pq + c * kPanelRows), _mm512_set1_ps(xt[c]), a0);
+      if (c < cols) a0 = _mm512_fmadd_ps(load(pq + c * kPanelRows, all), _mm512_set1_ps(xt[c]), a0);
       const std::size_t base = q * kPanelRows;
       const std::size_t valid = std::min(kPanelRows, rows - base);
       _mm512_mask_storeu_ps(yt + base, static_cast<__mmask16>((1U << valid) - 1U), _mm512_add_ps(a0, a1));
@@ -480,8 +506,17 @@ GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std:
   }
 }
 
+GYRE_AVX512 void matmul_packed_f32_avx512(const float* p, std::size_t rows, std::size_t cols, const float* x,
+                                          std::size_t n, float* y, std::size_t ldy) {
+  matmul_packed_avx512(p, rows, cols, x, n, y, ldy);
+}
+GYRE_AVX512 void matmul_packed_f16_avx512(const std::uint16_t* p, std::size_t rows, std::size_t cols, const float* x,
+                                          std::size_t n, float* y, std::size_t ldy) {
+  matmul_packed_avx512(p, rows, cols, x, n, y, ldy);
+}
+
 constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_avx512, sigmoid_avx512,
-                          tanh_avx512, matmul_packed_f32_avx512, nullptr};
+                          tanh_avx512, matmul_packed_f32_avx512, nullptr, matmul_packed_f16_avx512};
 
 // ---- AVX-512 VNNI -----------------------------------------------------------------------------
 // vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
@@ -594,7 +629,8 @@ GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale,
 }
 
 constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni, sigmoid_avx512,
-                              tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_vnni};
+                              tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_vnni,
+                              matmul_packed_f16_avx512};
 #endif  // GYRE_RUNTIME_X86
 
 }  // namespace
@@ -657,14 +693,20 @@ Isa best_isa() noexcept {
 
 const Kernels& best_kernels() noexcept { return kernels_for(best_isa()); }
 
-void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept {
+template <class T>
+void pack_panels(const T* w, std::size_t rows, std::size_t cols, T* out) noexcept {
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   for (std::size_t q = 0; q < panels; ++q)
     for (std::size_t c = 0; c < cols; ++c)
       for (std::size_t r = 0; r < kPanelRows; ++r) {
         const std::size_t row = q * kPanelRows + r;
-        out[(q * cols + c) * kPanelRows + r] = row < rows ? w[row * cols + c] : 0.0f;
+        out[(q * cols + c) * kPanelRows + r] = row < rows ? w[row * cols + c] : T{0};
       }
+}
+
+void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept { pack_panels(w, rows, cols, out); }
+void pack_f16(const std::uint16_t* w, std::size_t rows, std::size_t cols, std::uint16_t* out) noexcept {
+  pack_panels(w, rows, cols, out);  // half 0x0000 is +0.0
 }
 
 void pack_i8(const std::int8_t* w, std::size_t rows, std::size_t cols, std::int8_t* out) noexcept {

@@ -38,6 +38,7 @@ struct Weights {
   std::vector<std::int32_t> sums;  // i8: per-row sum of q (VNNI correction)
   std::vector<float> packed;        // f32: panel layout for matmul_packed_f32 (one copy at load)
   std::vector<std::int8_t> packed_i8;  // i8: VNNI operand layout, when the kernels have one
+  std::vector<std::uint16_t> packed_f16;  // f16: panel layout
   std::size_t rows = 0, cols = 0;
 };
 
@@ -280,6 +281,10 @@ Weights Model::Impl::weights(const std::string& name, std::size_t rows, std::siz
     w.packed.resize(detail::packed_size_f32(rows, cols));
     detail::pack_f32(static_cast<const float*>(t.data), rows, cols, w.packed.data());
   }
+  if (t.dtype == DType::kF16 && pack) {
+    w.packed_f16.resize(detail::packed_size_f32(rows, cols));
+    detail::pack_f16(static_cast<const std::uint16_t*>(t.data), rows, cols, w.packed_f16.data());
+  }
   if (t.dtype == DType::kI8 && pack && detail::best_kernels().matmul_packed_i8 != nullptr) {
     w.packed_i8.resize(detail::packed_size_i8(rows, cols));
     detail::pack_i8(static_cast<const std::int8_t*>(t.data), rows, cols, w.packed_i8.data());
@@ -406,7 +411,7 @@ void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float
       m.kernels->matmul_packed_f32(w.packed.data(), w.rows, w.cols, x, n, y, ldy);
       break;
     case DType::kF16:
-      m.kernels->matmul_f16(static_cast<const std::uint16_t*>(w.data), w.rows, w.cols, x, n, y, ldy);
+      m.kernels->matmul_packed_f16(w.packed_f16.data(), w.rows, w.cols, x, n, y, ldy);
       break;
     case DType::kI8: {
       ensure(b.qs, n * w.cols);

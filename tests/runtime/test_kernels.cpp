@@ -134,7 +134,7 @@ TEST_CASE("dispatched kernels equal the portable ones", "[runtime][kernels]") {
   SUCCEED("checked " << checked_sets << " dispatched kernel sets");
 }
 
-TEST_CASE("packed f32 kernels equal the row-major portable product", "[runtime][kernels]") {
+TEST_CASE("packed f32 and f16 kernels equal the row-major portable product", "[runtime][kernels]") {
   std::mt19937 rng(2718);
   std::uniform_real_distribution<float> u(-1.0f, 1.0f);
   const rd::Kernels& ref = rd::kernels_for(rd::Isa::kPortable);
@@ -156,6 +156,12 @@ TEST_CASE("packed f32 kernels equal the row-major portable product", "[runtime][
           ref.matmul_f32(w.data(), rows, cols, x.data(), n, y_ref.data(), rows);
           k.matmul_packed_f32(packed.data(), rows, cols, x.data(), n, y.data(), rows);
           // Summation order differs only: 1e-6 relative to sum |w x| (see above).
+          for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 1e-6 * (abs_sum[i] + 1.0f)));
+          std::vector<std::uint16_t> wh(w.size()), packed_h(rd::packed_size_f32(rows, cols));
+          for (std::size_t i = 0; i < w.size(); ++i) wh[i] = rd::float_to_half(w[i]);
+          rd::pack_f16(wh.data(), rows, cols, packed_h.data());
+          ref.matmul_f16(wh.data(), rows, cols, x.data(), n, y_ref.data(), rows);
+          k.matmul_packed_f16(packed_h.data(), rows, cols, x.data(), n, y.data(), rows);
           for (std::size_t i = 0; i < y.size(); ++i) REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 1e-6 * (abs_sum[i] + 1.0f)));
         }
   }

@@ -45,6 +45,9 @@ struct Kernels {
   void (*matmul_packed_i8)(const std::int8_t* packed, const float* w_scale, const std::int32_t* w_sum,
                            std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
                            std::size_t ldy);
+  /// matmul_f16 on weights repacked by pack_f16 (same panel layout as pack_f32).
+  void (*matmul_packed_f16)(const std::uint16_t* packed, std::size_t rows, std::size_t cols, const float* x,
+                            std::size_t n, float* y, std::size_t ldy);
 };
 
 /// Bytes needed by pack_i8: rows rounded up to 16, cols rounded up to 4.
@@ -61,6 +64,7 @@ inline std::size_t packed_size_f32(std::size_t rows, std::size_t cols) {
 }
 /// out[p][c][r] = w[16 p + r][c] (zero for padded rows).
 void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept;
+void pack_f16(const std::uint16_t* w, std::size_t rows, std::size_t cols, std::uint16_t* out) noexcept;
 
 bool isa_supported(Isa isa) noexcept;
 /// Kernels of one instruction set (must be supported).
