@@ -17,7 +17,7 @@ namespace fs = std::filesystem;
 using nlohmann::json;
 
 // Chart geometry in SVG user units.
-constexpr double kWidth = 560, kHeight = 300, kLeft = 64, kRight = 16, kTop = 34, kBottom = 48;
+constexpr double kWidth = 520, kHeight = 300, kLeft = 64, kRight = 16, kTop = 34, kBottom = 48;
 const char* const kColors[] = {"#1f5f99", "#c0562a", "#3c8a4a", "#7a4ea3", "#a38a1e", "#2b8c8c"};
 
 std::string num(double v, int decimals = 4) {
@@ -101,7 +101,7 @@ h1{font-size:24px;margin:0 0 4px}h2{font-size:18px;margin:28px 0 10px;border-bot
 table{border-collapse:collapse;background:#fff;margin:6px 0 12px;font-variant-numeric:tabular-nums}
 th,td{border:1px solid #d8dde5;padding:4px 10px;text-align:right}th{background:#eef1f5}
 td.k,th.k{text-align:left}tr.best td{font-weight:600;background:#fff7df}
-.cm td{min-width:44px;text-align:center}.cm th.corner{background:#fff;font-weight:400;color:#5b6475;font-size:12px}
+.cm td{min-width:44px;text-align:center}.cm td.zero{color:#9aa3b2}.cm th.corner{background:#fff;font-weight:400;color:#5b6475;font-size:12px}
 .charts{display:flex;flex-wrap:wrap;gap:16px}
 .chart{background:#fff;border:1px solid #d8dde5}
 .chart .title{font-weight:600;font-size:14px}.chart .tick{font-size:11px;fill:#5b6475}
@@ -190,7 +190,11 @@ std::string confusion_html(const json& cm) {
       << "</th>";
     for (const auto& c : counts[g]) {
       const double v = c.is_number() ? c.get<double>() : 0.0;
-      o << "<td style=\"" << cell_shade(total > 0 ? v / total : 0.0) << "\">" << num(v, 0) << "</td>";
+      // Empty cells stay white so the errors that do occur stand out.
+      if (v > 0)
+        o << "<td style=\"" << cell_shade(total > 0 ? v / total : 0.0) << "\">" << num(v, 0) << "</td>";
+      else
+        o << "<td class=\"zero\">0</td>";
     }
     o << "</tr>\n";
   }
@@ -332,7 +336,10 @@ std::string run_report_html(const fs::path& run_dir) {
   const json metrics = read_json_file(run_dir / "metrics.json");
   json full_dev = json::object();
   std::error_code ec;
-  if (fs::exists(run_dir / "best-dev-metrics.json", ec)) full_dev = read_json_file(run_dir / "best-dev-metrics.json");
+  if (fs::exists(run_dir / "best-dev-metrics.json", ec))
+    full_dev = read_json_file(run_dir / "best-dev-metrics.json");
+  else if (metrics.contains("dev") && metrics["dev"].is_object())
+    full_dev = metrics["dev"];
 
   // log.jsonl: one epoch per line.
   const fs::path log_path = run_dir / "log.jsonl";
@@ -367,8 +374,16 @@ std::string run_report_html(const fs::path& run_dir) {
   for (const char* k : {"outcome", "epochs", "best_epoch", "metric", "best_metric", "train_examples", "dev_examples",
                         "vocabulary_size", "parameters", "seconds", "tokens_per_second", "threads"})
     if (metrics.contains(k)) row(k, value_text(metrics[k]));
-  if (metrics.contains("dev") && metrics["dev"].is_object())
-    for (const auto& [k, v] : metrics["dev"].items()) row("dev " + k + " (best epoch)", value_text(v));
+  if (metrics.contains("dev") && metrics["dev"].is_object()) {
+    // Scalars as they are; averages ({"precision", "recall", "f1"}) by their F1; lists are shown
+    // in their own tables below.
+    for (const auto& [k, v] : metrics["dev"].items()) {
+      if (k == "task" || k == "examples" || k == "correct") continue;
+      if (v.is_number()) row("dev " + k + " (best epoch)", value_text(v));
+      else if (v.is_object() && v.contains("f1") && v["f1"].is_number()) row("dev " + k + " F1 (best epoch)", value_text(v["f1"]));
+      else if (v.is_object() && v.contains("error") && v["error"].is_number()) row("dev " + k + " error (best epoch)", value_text(v["error"]));
+    }
+  }
   b << "</table>\n";
 
   // Curves.

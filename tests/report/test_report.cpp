@@ -110,9 +110,12 @@ TEST_CASE("run report: settings, curves with one point per epoch, escaped labels
   REQUIRE(html.find("a<b>&c") == std::string::npos);
   REQUIRE(count(html, "a&lt;b&gt;&amp;c") >= 3);  // score table + confusion row + column
   REQUIRE(html.find("data/&lt;train&gt;.tsv") != std::string::npos);
-  // Confusion matrix: 4 shaded cells; the 3-of-3 cell is the darkest (share 1 -> alpha 0.93).
+  // Confusion matrix: 3 non-zero cells shaded by their share of the gold row, the zero cell
+  // plain; the 3-of-3 cell is the darkest (share 1 -> alpha 0.08 + 0.85 = 0.93), 1-of-2 -> 0.505.
   const std::string cm = between(html, "<table class=\"cm\">", "</table>");
-  REQUIRE(count(cm, "background:rgba(") == 4);
+  REQUIRE(count(cm, "background:rgba(") == 3);
+  REQUIRE(count(cm, "class=\"zero\">0<") == 1);
+  REQUIRE(count(cm, "rgba(31,95,153,0.505)\">1<") == 2);
   REQUIRE(cm.find("rgba(31,95,153,0.930);color:#fff\">3<") != std::string::npos);
   // Self-contained: no links to anything, no scripts.
   REQUIRE(html.find("http") == std::string::npos);
