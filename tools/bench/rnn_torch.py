@@ -12,10 +12,10 @@ Run it with Debian's interpreter: /usr/bin/python3 tools/bench/rnn_torch.py --th
 
 import argparse
 import json
-import os
-import re
 import sys
 import time
+
+from torch_ref import blas_info, limit_threads
 
 MASK = (1 << 64) - 1
 
@@ -84,28 +84,6 @@ def flops_per_token(cell, hidden, bidirectional):
     return 3 * forward  # backward counted as twice the forward
 
 
-def blas_info(torch):
-    """Which BLAS library and kernel this process uses, and its thread counts."""
-    a = torch.randn(64, 64)
-    (a @ a).sum()  # make sure the BLAS is loaded
-    maps = sorted({line.split()[-1] for line in open("/proc/self/maps")
-                   if "blas" in line.split()[-1] or "lapack" in line.split()[-1]})
-    info = {"side": "torch-info", "torch": torch.__version__, "torch_threads": torch.get_num_threads(),
-            "blas_libraries_loaded": maps,
-            "build_blas": re.findall(r"BLAS_INFO=\w+", torch.__config__.show()),
-            "cpu_capability": re.findall(r"CPU capability usage: (\w+)", torch.__config__.show()),
-            "env_OPENBLAS_CORETYPE": os.environ.get("OPENBLAS_CORETYPE"),
-            "env_OPENBLAS_L2_SIZE": os.environ.get("OPENBLAS_L2_SIZE")}
-    try:
-        import threadpoolctl
-        info["threadpools"] = [{k: p.get(k) for k in ("internal_api", "filepath", "version", "architecture",
-                                                       "threading_layer", "num_threads")}
-                               for p in threadpoolctl.threadpool_info()]
-    except ImportError:
-        info["threadpools"] = "threadpoolctl not installed"
-    return info
-
-
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--threads", type=int, default=1)
@@ -122,14 +100,7 @@ def main():
     import torch.nn.functional as F
     from torch.nn.utils.rnn import pack_padded_sequence, pad_packed_sequence
 
-    torch.set_num_threads(args.threads)
-    limiter = None
-    try:
-        import threadpoolctl
-        # torch.set_num_threads() does not reach OpenBLAS's own pthread pool: limit it too.
-        limiter = threadpoolctl.threadpool_limits(limits=args.threads, user_api="blas")
-    except ImportError:
-        pass
+    limiter = limit_threads(torch, args.threads)
     torch.manual_seed(SEED & 0xFFFFFFFF)
     if args.info:
         print(json.dumps(blas_info(torch)), flush=True)

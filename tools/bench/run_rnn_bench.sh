@@ -30,32 +30,17 @@ done
 here=$(cd "$(dirname "$0")" && pwd)
 bench=$build_dir/bench/bench_rnn
 [[ -x $bench ]] || { echo "run_rnn_bench: $bench not found; build it: cmake --build $build_dir --target bench_rnn" >&2; exit 2; }
-build_type=$(sed -n 's/^CMAKE_BUILD_TYPE:STRING=//p' "$build_dir/CMakeCache.txt" 2>/dev/null || true)
-[[ $build_type == Release ]] || { echo "run_rnn_bench: $build_dir is a '$build_type' build; use a Release build" >&2; exit 2; }
-py=/usr/bin/python3
-$py -c 'import torch, numpy' 2>/dev/null || { echo "run_rnn_bench: $py lacks torch/numpy (tools/install-deps.sh --bench)" >&2; exit 2; }
-
-# The same allocator settings for both sides: keep freed memory in the heap instead of returning
-# it to the kernel. Page faults are very slow on this machine, and without this torch's packed
-# LSTM backward spends most of its time faulting in fresh buffers (see README). gyre allocates
-# its workspaces once and is not affected.
-common_env=()
-if [[ $malloc_tuning == 1 ]]; then
-  common_env=(MALLOC_MMAP_THRESHOLD_=1073741824 MALLOC_TRIM_THRESHOLD_=4294967296 MALLOC_TOP_PAD_=268435456)
-fi
-# The reference runs with OPENBLAS_CORETYPE / OPENBLAS_L2_SIZE unset in its command alone, so
-# OpenBLAS picks its best kernel for this CPU.
-reference=(env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "${common_env[@]}")
+source "$here/bench_env.sh"
+bench_check_release "$build_dir" run_rnn_bench
+build_type=Release
+bench_check_torch run_rnn_bench
+bench_setup_env "$malloc_tuning"
 
 out=$(mktemp)
 trap 'rm -f "$out"' EXIT
 
 echo "== machine"
-echo "cpu: $(sed -n 's/^model name\s*: //p' /proc/cpuinfo | head -1), $(nproc) cores; avx512f: $(grep -q avx512f /proc/cpuinfo && echo yes || echo no)"
-echo "load average before: $(cut -d' ' -f1-3 /proc/loadavg)"
-echo "libblas.so.3 alternative: $(update-alternatives --query libblas.so.3-x86_64-linux-gnu 2>/dev/null | sed -n 's/^Value: //p')"
-echo "caller's OPENBLAS_CORETYPE=${OPENBLAS_CORETYPE-<unset>} OPENBLAS_L2_SIZE=${OPENBLAS_L2_SIZE-<unset>} (unset for the reference only)"
-echo "allocator settings for both sides: ${common_env[*]:-<none>}"
+bench_print_machine
 echo "gyre: $bench ($build_type)"
 
 echo "== single-core SGEMM peak (2048^2 float32, one thread, reference BLAS)"
