@@ -215,6 +215,10 @@ TEST_CASE("compare refuses bad settings before training", "[compare]") {
     spec.cells = {"lstm", "rnn"};
     REQUIRE_THROWS_AS(gyre::train::run_compare(spec), gyre::ConfigError);
   }
+  SECTION("unknown metric") {
+    spec.metric = "bleu";
+    REQUIRE_THROWS_AS(gyre::train::run_compare(spec), gyre::ConfigError);
+  }
   SECTION("duplicate size") {
     spec.hidden_sizes = {8, 8};
     REQUIRE_THROWS_AS(gyre::train::run_compare(spec), gyre::ConfigError);
