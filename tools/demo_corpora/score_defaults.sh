@@ -9,7 +9,8 @@ src=$(cd "$(dirname "$0")/../.." && pwd)
 gyre=$build/bin/gyre
 mkdir -p "$work"
 pick() { sed -n "s/^  \"$1\": \([0-9.eE+-]*\),*$/\1/p" "$2" | head -1; }
-span_f1() { sed -n '/"micro"/,/}/p' "$1" | sed -n 's/.*"f1": \([0-9.eE+-]*\).*/\1/p' | head -1; }
+# The top-level "micro" block (nlohmann/json indents it by 2; the baseline's is deeper).
+span_f1() { sed -n '/^  "micro"/,/}/p' "$1" | sed -n 's/.*"f1": \([0-9.eE+-]*\).*/\1/p' | head -1; }
 for corpus in intents sentiment slots; do
   for cell in lstm gru; do
     run=$work/$corpus-$cell
