@@ -90,7 +90,8 @@ ExitCode run_compare_cli(const CompareCliOptions& o) {
   }
   const json defaults = train::default_config_json();
   for (const auto& [key, text] : o.values) j[key] = parse_value(key, text, defaults.at(key));
-  for (const auto& [key, value] : o.flags) j[key] = key == "bidirectional" ? json(value ? "yes" : "no") : json(value);
+  for (const auto& [key, value] : o.flags)
+    j[key] = key == "bidirectional" ? json(value ? "yes" : "no") : json(value);
   if (!o.train.empty()) j["train"] = o.train;
   if (!o.dev.empty()) j["dev"] = o.dev;
 
@@ -109,8 +110,9 @@ ExitCode run_compare_cli(const CompareCliOptions& o) {
   spec.bootstrap_samples = o.bootstrap_samples;
   spec.progress = o.quiet ? nullptr : stderr;
   if (!o.quiet)
-    std::fprintf(stderr, "gyre compare: %zu cell(s) x %zu size(s) x %d seed(s) = %zu runs into %s\n", spec.cells.size(),
-                 spec.hidden_sizes.size(), spec.seeds, spec.cells.size() * spec.hidden_sizes.size() * std::size_t(spec.seeds),
+    std::fprintf(stderr, "gyre compare: %zu cell(s) x %zu size(s) x %d seed(s) = %zu runs into %s\n",
+                 spec.cells.size(), spec.hidden_sizes.size(), spec.seeds,
+                 spec.cells.size() * spec.hidden_sizes.size() * std::size_t(spec.seeds),
                  spec.out.string().c_str());
   const train::CompareResult result = train::run_compare(spec);
   std::printf("%s", train::compare_table(result, !spec.test.empty()).c_str());
@@ -128,7 +130,8 @@ const RegisterCommand kRegister{
           "Examples:\n"
           "  gyre compare --train corpora/demo/intents.train.tsv --dev corpora/demo/intents.dev.tsv \\\n"
           "               --test corpora/demo/intents.test.tsv --out runs/intents-compare\n"
-          "  gyre compare --train t.tsv --dev d.tsv --cells gru --hidden-sizes 32,64,128 --seeds 5 --epochs 5 --out cmp\n"
+          "  gyre compare --train t.tsv --dev d.tsv --cells gru --hidden-sizes 32,64,128 --seeds 5 --epochs "
+          "5 --out cmp\n"
           "Runs go to OUT/<cell>-h<size>-s<seed>/ (seeds 1..N), every number to OUT/compare.json, the HTML\n"
           "report to OUT/report.html. A run directory that already holds a finished run (metrics.json) of\n"
           "the same cell, size and seed is reused, not retrained: rerunning after adding a size or a seed\n"
@@ -138,10 +141,14 @@ const RegisterCommand kRegister{
       sub.add_option("--train", o->train, "labelled training file")->required();
       sub.add_option("--dev", o->dev, "labelled dev file (every run is scored and chosen on it)")->required();
       sub.add_option("--test", o->test, "labelled held-out test file (scored only)");
-      sub.add_option("--out", o->out, "output directory (created; finished runs inside are reused)")->required();
+      sub.add_option("--out", o->out, "output directory (created; finished runs inside are reused)")
+          ->required();
       sub.add_option("--cells", o->cells, "comma-separated cells to compare")->default_str("lstm,gru");
-      sub.add_option("--hidden-sizes", o->hidden_sizes, "comma-separated hidden sizes")->default_str("64,128");
-      sub.add_option("--seeds", o->seeds, "seeds per configuration (1..N)")->default_str("3")->check(CLI::Range(1, 1000));
+      sub.add_option("--hidden-sizes", o->hidden_sizes, "comma-separated hidden sizes")
+          ->default_str("64,128");
+      sub.add_option("--seeds", o->seeds, "seeds per configuration (1..N)")
+          ->default_str("3")
+          ->check(CLI::Range(1, 1000));
       sub.add_option("--metric", o->metric, "auto | accuracy | macro_f1 | span_f1 | token_accuracy | loss")
           ->default_str("auto (accuracy; multi-label: macro_f1; taggers: span_f1)");
       sub.add_option("--bootstrap-samples", o->bootstrap_samples, "paired bootstrap resamples")
@@ -151,18 +158,21 @@ const RegisterCommand kRegister{
       sub.add_flag("--quiet", o->quiet, "no progress lines");
       const json defaults = train::default_config_json();
       for (const auto& [key, value] : defaults.items()) {
-        if (key == "train" || key == "dev" || key == "cell" || key == "hidden_size" || key == "seed") continue;
+        if (key == "train" || key == "dev" || key == "cell" || key == "hidden_size" || key == "seed")
+          continue;
         const std::string help = "training setting (gyre train --" + flag_name(key) + ")";
         if (key == "bidirectional") {
-          sub.add_flag_callback("--bidirectional", [o] { o->flags["bidirectional"] = true; },
-                                "bidirectional recurrent layers");
-          sub.add_flag_callback("--unidirectional", [o] { o->flags["bidirectional"] = false; },
-                                "unidirectional recurrent layers");
+          sub.add_flag_callback(
+              "--bidirectional", [o] { o->flags["bidirectional"] = true; }, "bidirectional recurrent layers");
+          sub.add_flag_callback(
+              "--unidirectional", [o] { o->flags["bidirectional"] = false; },
+              "unidirectional recurrent layers");
         } else if (value.is_boolean()) {
           const bool default_on = value.get<bool>();
           const std::string name = default_on ? "--no-" + flag_name(key) : "--" + flag_name(key);
           const std::string k = key;
-          sub.add_flag_callback(name, [o, k, default_on] { o->flags[k] = !default_on; }, help);
+          sub.add_flag_callback(
+              name, [o, k, default_on] { o->flags[k] = !default_on; }, help);
         } else {
           const std::string k = key;
           auto* opt = sub.add_option_function<std::string>(

@@ -41,7 +41,8 @@ double mcnemar_exact_p(std::int64_t only_a, std::int64_t only_b) {
   return std::min(1.0, 2.0 * tail);
 }
 
-McNemarResult mcnemar_exact(std::span<const std::uint8_t> correct_a, std::span<const std::uint8_t> correct_b) {
+McNemarResult mcnemar_exact(std::span<const std::uint8_t> correct_a,
+                            std::span<const std::uint8_t> correct_b) {
   GYRE_CHECK(correct_a.size() == correct_b.size(), "McNemar test needs the same examples for both models");
   McNemarResult r;
   for (std::size_t i = 0; i < correct_a.size(); ++i) {
@@ -54,10 +55,11 @@ McNemarResult mcnemar_exact(std::span<const std::uint8_t> correct_a, std::span<c
   return r;
 }
 
-BootstrapResult paired_bootstrap(std::span<const std::uint8_t> correct_a, std::span<const std::uint8_t> correct_b,
-                                 int samples, std::uint64_t seed) {
+BootstrapResult paired_bootstrap(std::span<const std::uint8_t> correct_a,
+                                 std::span<const std::uint8_t> correct_b, int samples, std::uint64_t seed) {
   GYRE_CHECK(!correct_a.empty(), "paired bootstrap needs at least one example");
-  GYRE_CHECK(correct_a.size() == correct_b.size(), "paired bootstrap needs the same examples for both models");
+  GYRE_CHECK(correct_a.size() == correct_b.size(),
+             "paired bootstrap needs the same examples for both models");
   GYRE_CHECK(samples > 0, "paired bootstrap needs at least one resample");
   // Only the per-example difference matters: +1 (A only), -1 (B only), 0 (agree). With the same
   // resample size for both, comparing accuracies = comparing the sums of differences.

@@ -231,9 +231,12 @@ CompareResult run_compare(const CompareSpec& spec) {
     throw ConfigError("dev", "compare needs a --dev file so every run is scored on the same examples");
   if (spec.out.empty()) throw ConfigError("out", "give the output directory with --out DIR");
   {
-    static const char* const kMetrics[] = {"auto", "accuracy", "macro_f1", "span_f1", "token_accuracy", "loss"};
+    static const char* const kMetrics[] = {"auto",    "accuracy",       "macro_f1",
+                                           "span_f1", "token_accuracy", "loss"};
     if (std::find(std::begin(kMetrics), std::end(kMetrics), spec.metric) == std::end(kMetrics))
-      throw ConfigError("metric", "'" + spec.metric + "' is not one of auto, accuracy, macro_f1, span_f1, token_accuracy, loss");
+      throw ConfigError(
+          "metric",
+          "'" + spec.metric + "' is not one of auto, accuracy, macro_f1, span_f1, token_accuracy, loss");
   }
   for (const auto& cell : spec.cells) {
     if (cell != "lstm" && cell != "gru")

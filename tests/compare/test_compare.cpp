@@ -24,8 +24,10 @@ namespace {
 // Same recipe as tests/train/test_trainer.cpp: class cue words among shared filler words.
 void write_corpus(const fs::path& path, std::size_t n, std::uint64_t seed) {
   const char* labels[] = {"alpha", "beta", "gamma"};
-  const char* cues[3][3] = {{"red", "crimson", "scarlet"}, {"blue", "navy", "azure"}, {"green", "olive", "lime"}};
-  const char* filler[] = {"the", "a", "message", "about", "some", "thing", "we", "saw", "today", "it", "was", "there"};
+  const char* cues[3][3] = {
+      {"red", "crimson", "scarlet"}, {"blue", "navy", "azure"}, {"green", "olive", "lime"}};
+  const char* filler[] = {"the", "a",   "message", "about", "some", "thing",
+                          "we",  "saw", "today",   "it",    "was",  "there"};
   gyre::Rng rng(seed);
   std::ofstream out(path);
   out << "label\ttext\n";
@@ -35,7 +37,8 @@ void write_corpus(const fs::path& path, std::size_t n, std::uint64_t seed) {
     const std::size_t len = 4 + rng.below(8);
     const std::size_t cue_at = rng.below(len);
     out << labels[c] << '\t';
-    for (std::size_t t = 0; t < len; ++t) out << (t ? " " : "") << (t == cue_at ? cues[c][rng.below(3)] : filler[rng.below(12)]);
+    for (std::size_t t = 0; t < len; ++t)
+      out << (t ? " " : "") << (t == cue_at ? cues[c][rng.below(3)] : filler[rng.below(12)]);
     out << '\n';
   }
 }
@@ -113,7 +116,8 @@ TEST_CASE("compare trains every cell x size x seed and summarises them in compar
     INFO(run["name"].get<std::string>());
     // The run's dev score, from reloading checkpoint-best.bin, equals what the trainer measured
     // at its best epoch (best-dev-metrics.json): same model, same examples, no dropout.
-    const json best = json::parse(gyre::read_file(spec.out / run["dir"].get<std::string>() / "best-dev-metrics.json"));
+    const json best =
+        json::parse(gyre::read_file(spec.out / run["dir"].get<std::string>() / "best-dev-metrics.json"));
     REQUIRE_THAT(run["dev_metric"].get<double>(), WithinAbs(best["accuracy"].get<double>(), 1e-9));
     REQUIRE(run["test_metric"].is_number());
     REQUIRE(run["epochs"] == 2);
@@ -133,7 +137,8 @@ TEST_CASE("compare trains every cell x size x seed and summarises them in compar
     REQUIRE_THAT(cfg["dev"]["mean"].get<double>(), WithinAbs((dev[0] + dev[1]) / 2, 1e-12));
     REQUIRE_THAT(cfg["dev"]["std"].get<double>(), WithinAbs(sample_std(dev), 1e-12));
     // Two values: sample std = |a - b| / sqrt(2) (hand-derived from the n-1 formula).
-    REQUIRE_THAT(cfg["dev"]["std"].get<double>(), WithinAbs(std::fabs(dev[0] - dev[1]) / std::sqrt(2.0), 1e-12));
+    REQUIRE_THAT(cfg["dev"]["std"].get<double>(),
+                 WithinAbs(std::fabs(dev[0] - dev[1]) / std::sqrt(2.0), 1e-12));
     REQUIRE_THAT(cfg["test"]["mean"].get<double>(), WithinAbs((test[0] + test[1]) / 2, 1e-12));
     REQUIRE_THAT(cfg["test"]["std"].get<double>(), WithinAbs(sample_std(test), 1e-12));
   }
@@ -148,7 +153,8 @@ TEST_CASE("compare trains every cell x size x seed and summarises them in compar
   REQUIRE(sig["examples"] == 50);
   REQUIRE(sig["a"] == c["best"]);
   const double diff = sig["accuracy_a"].get<double>() - sig["accuracy_b"].get<double>();
-  const double counts = (sig["mcnemar_exact"]["only_a"].get<double>() - sig["mcnemar_exact"]["only_b"].get<double>()) / 50.0;
+  const double counts =
+      (sig["mcnemar_exact"]["only_a"].get<double>() - sig["mcnemar_exact"]["only_b"].get<double>()) / 50.0;
   REQUIRE_THAT(diff, WithinAbs(counts, 1e-12));
   const double p = sig["mcnemar_exact"]["p_value"];
   REQUIRE((p > 0.0 && p <= 1.0));

@@ -26,7 +26,9 @@ TEST_CASE("summarize gives the mean and the n-1 sample standard deviation", "[si
     REQUIRE_THAT(summarize(one).std, WithinAbs(0.0, 0.0));
     REQUIRE_THAT(summarize(one).mean, WithinAbs(0.7, 1e-15));
   }
-  SECTION("no values") { REQUIRE(summarize(std::vector<double>{}).count == 0); }
+  SECTION("no values") {
+    REQUIRE(summarize(std::vector<double>{}).count == 0);
+  }
 }
 
 TEST_CASE("McNemar's exact test matches hand-computed binomial tails", "[significance]") {
@@ -100,7 +102,8 @@ TEST_CASE("paired bootstrap win rates match hand-computed resampling probabiliti
     const std::vector<std::uint8_t> a{1, 0, 1, 0, 1, 1, 0};
     const std::vector<std::uint8_t> b{0, 0, 1, 1, 1, 0, 0};
     REQUIRE(paired_bootstrap(a, b, 300, 9).wins_a == paired_bootstrap(a, b, 300, 9).wins_a);
-    REQUIRE_THROWS_AS(paired_bootstrap(std::vector<std::uint8_t>{}, std::vector<std::uint8_t>{}), gyre::Error);
+    REQUIRE_THROWS_AS(paired_bootstrap(std::vector<std::uint8_t>{}, std::vector<std::uint8_t>{}),
+                      gyre::Error);
     REQUIRE_THROWS_AS(paired_bootstrap(a, std::vector<std::uint8_t>{1}), gyre::Error);
   }
 }

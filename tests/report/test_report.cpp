@@ -41,8 +41,9 @@ fs::path fresh_dir(const std::string& name) {
 
 fs::path write_run(const std::string& name) {
   const fs::path dir = fresh_dir(name);
-  gyre::write_file_atomic(dir / "config.json",
-                          R"({"train": "data/<train>.tsv", "cell": "gru", "hidden_size": 16, "epochs": 4, "seed": 1})");
+  gyre::write_file_atomic(
+      dir / "config.json",
+      R"({"train": "data/<train>.tsv", "cell": "gru", "hidden_size": 16, "epochs": 4, "seed": 1})");
   std::string log;
   const double losses[] = {1.2, 0.8, 0.55, 0.5};
   const double acc[] = {0.5, 0.7, 0.8, 0.78};
@@ -50,7 +51,8 @@ fs::path write_run(const std::string& name) {
     log += "{\"epoch\": " + std::to_string(e + 1) + ", \"train_loss\": " + std::to_string(losses[e]) +
            ", \"dev\": {\"loss\": 0.9, \"accuracy\": " + std::to_string(acc[e]) +
            ", \"macro_f1\": 0.6}, \"learning_rate\": 0.002, \"seconds\": 1.5, \"tokens_per_second\": 9000, "
-           "\"improved\": " + (e < 3 ? "true" : "false") + "}\n";
+           "\"improved\": " +
+           (e < 3 ? "true" : "false") + "}\n";
   gyre::write_file_atomic(dir / "log.jsonl", log);
   gyre::write_file_atomic(dir / "metrics.json",
                           R"({"outcome": "finished", "epochs": 4, "best_epoch": 3, "metric": "accuracy",
@@ -71,7 +73,8 @@ TEST_CASE("html_escape escapes the five special characters", "[report]") {
 }
 
 TEST_CASE("line chart has one polyline per series and one circle per finite point", "[report]") {
-  const std::vector<Series> s{{"one", {1, 2, 3}, {0.1, 0.2, 0.3}}, {"two", {1, 2, 3}, {0.3, std::nan(""), 0.1}}};
+  const std::vector<Series> s{{"one", {1, 2, 3}, {0.1, 0.2, 0.3}},
+                              {"two", {1, 2, 3}, {0.3, std::nan(""), 0.1}}};
   const std::string svg = line_chart_svg("T<1>", "epoch", "loss", s);
   REQUIRE(count(svg, "<polyline") == 2);
   REQUIRE(count(svg, "<circle") == 5);  // the NaN point is left out
@@ -130,7 +133,8 @@ TEST_CASE("run report: settings, curves with one point per epoch, escaped labels
 
 TEST_CASE("compare report: table, best marked, error-bar chart, significance", "[report]") {
   const fs::path dir = fresh_dir("compare");
-  gyre::write_file_atomic(dir / "compare.json", R"({"format": "gyre-compare", "version": 1, "metric": "accuracy",
+  gyre::write_file_atomic(dir / "compare.json",
+                          R"({"format": "gyre-compare", "version": 1, "metric": "accuracy",
     "train": "t.tsv", "dev": "d.tsv", "test": null, "seeds": 2, "best": "gru-h8",
     "configs": [
       {"name": "lstm-h8", "parameters": 100, "model_bytes": 400, "dev": {"mean": 0.7, "std": 0.02, "values": [0.68, 0.72]},

@@ -39,7 +39,8 @@ struct BootstrapResult {
   double p_value = 1.0;
 };
 /// Deterministic for a given seed. Throws gyre::Error on empty or unequal inputs.
-BootstrapResult paired_bootstrap(std::span<const std::uint8_t> correct_a, std::span<const std::uint8_t> correct_b,
-                                 int samples = 1000, std::uint64_t seed = 1);
+BootstrapResult paired_bootstrap(std::span<const std::uint8_t> correct_a,
+                                 std::span<const std::uint8_t> correct_b, int samples = 1000,
+                                 std::uint64_t seed = 1);
 
 }  // namespace gyre::eval

@@ -25,9 +25,9 @@ std::string line_chart_svg(std::string_view title, std::string_view x_label, std
 
 /// One bar per category with an error bar of +- error[i] (skipped when 0) and the individual
 /// values as dots. All vectors the same length (points[i] may be empty).
-std::string bar_chart_svg(std::string_view title, std::string_view y_label, const std::vector<std::string>& names,
-                          const std::vector<double>& means, const std::vector<double>& errors,
-                          const std::vector<std::vector<double>>& points);
+std::string bar_chart_svg(std::string_view title, std::string_view y_label,
+                          const std::vector<std::string>& names, const std::vector<double>& means,
+                          const std::vector<double>& errors, const std::vector<std::vector<double>>& points);
 
 /// The page for a run directory (config.json, log.jsonl, metrics.json, best-dev-metrics.json).
 /// Throws IoError/ParseError naming the file when one is missing or malformed.
