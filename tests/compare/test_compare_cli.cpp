@@ -1,0 +1,79 @@
+// `gyre compare` and `gyre report` through the binary: exit codes, table on stdout, files written.
+// Needs the gyre binary (build the default target first, as for the other CLI tests).
+
+#include <catch2/catch.hpp>
+
+#include <sys/wait.h>
+
+#include <cstdlib>
+#include <filesystem>
+#include <fstream>
+#include <string>
+
+#include "gyre/core/file.hpp"
+#include "gyre/core/rng.hpp"
+
+namespace fs = std::filesystem;
+
+namespace {
+
+int run(const std::string& args, const fs::path& out_file) {
+  const std::string cmd =
+      std::string("'") + GYRE_CLI_PATH + "' " + args + " > '" + out_file.string() + "' 2>&1";
+  const int status = std::system(cmd.c_str());
+  return WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+}
+
+void write_corpus(const fs::path& path, std::size_t n, std::uint64_t seed) {
+  const char* labels[] = {"left", "right"};
+  const char* cues[2][2] = {{"north", "hill"}, {"south", "river"}};
+  const char* filler[] = {"we", "went", "to", "the", "old", "place", "by", "foot"};
+  gyre::Rng rng(seed);
+  std::ofstream out(path);
+  for (std::size_t i = 0; i < n; ++i) {
+    const std::size_t c = rng.below(2);
+    const std::size_t len = 3 + rng.below(6), at = rng.below(len);
+    out << labels[c] << '\t';
+    for (std::size_t t = 0; t < len; ++t)
+      out << (t ? " " : "") << (t == at ? cues[c][rng.below(2)] : filler[rng.below(8)]);
+    out << '\n';
+  }
+}
+
+}  // namespace
+
+TEST_CASE("gyre compare and gyre report from the command line", "[compare][cli]") {
+  const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "compare" / "cli";
+  fs::remove_all(dir);
+  fs::create_directories(dir);
+  write_corpus(dir / "train.tsv", 80, 5);
+  write_corpus(dir / "dev.tsv", 30, 6);
+  const fs::path log = dir / "stdout.txt";
+  const std::string data =
+      "--train '" + (dir / "train.tsv").string() + "' --dev '" + (dir / "dev.tsv").string() + "'";
+
+  REQUIRE(run("compare " + data +
+                  " --cells lstm,gru --hidden-sizes 4 --seeds 2 --epochs 1 --embedding-size 4 --out '" +
+                  (dir / "out").string() + "' --quiet",
+              log) == 0);
+  const std::string text = gyre::read_file(log);
+  INFO(text);
+  REQUIRE(text.find("lstm-h4") != std::string::npos);
+  REQUIRE(text.find("gru-h4") != std::string::npos);
+  REQUIRE(text.find("McNemar") != std::string::npos);
+  REQUIRE(fs::exists(dir / "out" / "compare.json"));
+  REQUIRE(fs::exists(dir / "out" / "report.html"));
+  REQUIRE(fs::exists(dir / "out" / "gru-h4-s2" / "metrics.json"));
+
+  REQUIRE(run("report '" + (dir / "out" / "lstm-h4-s1").string() + "'", log) == 0);
+  REQUIRE(fs::exists(dir / "out" / "lstm-h4-s1" / "report.html"));
+  REQUIRE(run("report '" + (dir / "out").string() + "' --out '" + (dir / "cmp.html").string() + "'", log) ==
+          0);
+  REQUIRE(fs::exists(dir / "cmp.html"));
+
+  // Bad usage and bad settings exit with 2.
+  REQUIRE(run("compare " + data + " --cells lstm,elman --out '" + (dir / "bad").string() + "'", log) == 2);
+  REQUIRE(gyre::read_file(log).find("elman") != std::string::npos);
+  REQUIRE(run("compare --train x.tsv", log) == 2);
+  REQUIRE(run("report '" + dir.string() + "'", log) != 0);
+}
