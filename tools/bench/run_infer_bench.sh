@@ -76,6 +76,11 @@ if worst > 1e-5:
     sys.exit(1)
 PYEOF
 
+echo "== single-core SGEMM peak (2048^2 float32, one thread, reference BLAS)"
+"${reference[@]}" $py "$here/gemm_peak.py" | tee -a "$out"
+echo "{\"side\": \"files\", \"f32_bytes\": $(stat -c %s "$work/f32.gyre"), \"int8_bytes\": $(stat -c %s "$work/int8.gyre")}" \
+  | tee -a "$out"
+
 echo "== torch BLAS setup"
 "${reference[@]}" $py "$here/infer_torch.py" "$work/f32.gyre" --info --threads 1 --seconds 0.1 | sed -n '1p'
 
@@ -87,10 +92,12 @@ for p in f32 int8; do
   $py - "$work/gyre.$p.txt" "$p" >>"$out" <<'PYEOF'
 import json, re, sys
 text = open(sys.argv[1]).read()
-for m in re.finditer(r"threads (\d+)\s+latency \(\d+ tokens\): p50 ([\d.]+) us, p99 ([\d.]+) us.*\n"
-                     r"\s+throughput \(batch \d+\): ([\d.]+) texts/s", text):
+for m in re.finditer(r"threads (\d+)\s+latency \(\d+ tokens\): p50 ([\d.]+) us, p99 ([\d.]+) us "
+                     r"\(([\d.]+) GFLOP/s per stream\)\s*\n"
+                     r"\s+throughput \(batch \d+\): ([\d.]+) texts/s, ([\d.]+) GFLOP/s total", text):
     print(json.dumps({"side": "gyre", "precision": sys.argv[2], "threads": int(m[1]), "p50_us": float(m[2]),
-                      "p99_us": float(m[3]), "texts_per_s": float(m[4])}))
+                      "p99_us": float(m[3]), "latency_gflops": float(m[4]), "texts_per_s": float(m[5]),
+                      "batch_gflops": float(m[6])}))
 PYEOF
   if [[ $p == f32 ]]; then
     for t in ${threads//,/ }; do
@@ -111,6 +118,9 @@ echo "== summary (torch runs the f32 weights in both rows; ratio = torch / gyre 
 $py - "$out" <<'PYEOF'
 import json, sys
 rows = [json.loads(l) for l in open(sys.argv[1]) if l.startswith("{")]
+rows = [r for r in rows if "side" in r or "peak_gflops" in r]
+for r in rows:
+    r.setdefault("side", "gemm")
 g = {(r["precision"], r["threads"]): r for r in rows if r["side"] == "gyre"}
 t = {}
 for r in rows:  # best torch variant per thread count, separately for latency and throughput
@@ -148,6 +158,16 @@ for n in sorted(t):
     for p, r in (("f32", f), ("int8", q)):
         x = r["texts_per_s"] / ref["texts_per_s"]
         print(f"threads {n}: {p} batch-64 throughput >= torch: {x:.2f}x {mark(x >= 1)}")
+peak = next(r for r in rows if "peak_gflops" in r)["peak_gflops"]
+print(f"== GFLOP/s vs this machine's single-core SGEMM peak ({peak:.1f} GFLOP/s, torch/numpy 2048^2, wall clock)")
+for (p, n), r in sorted(g.items(), key=lambda kv: (kv[0][0] != "f32", kv[0][1])):
+    print(f"{p:<5} threads {n}: batch-1 {r['latency_gflops']:.1f} GFLOP/s ({100 * r['latency_gflops'] / peak:.0f}% of "
+          f"1-core peak), batch-64 {r['batch_gflops']:.1f} GFLOP/s ({100 * r['batch_gflops'] / peak / n:.0f}% of "
+          f"{n}-core peak)")
+files = next(r for r in rows if r["side"] == "files")
+share = files["int8_bytes"] / files["f32_bytes"]
+print(f"int8 file {files['int8_bytes']} B = {100 * share:.1f}% of f32 {files['f32_bytes']} B (target <= 30%): "
+      f"{mark(share <= 0.30)}")
 print("torch at 2 threads: the better of OpenMP's default and OMP_WAIT_POLICY=PASSIVE, per figure.")
 print("Wall-clock figures; the machine is shared with other work, so p99 and 2-thread rows are noisy.")
 PYEOF
