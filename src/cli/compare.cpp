@@ -10,6 +10,7 @@
 #include <nlohmann/json.hpp>
 
 #include "cli/command.hpp"
+#include "cli/train_settings.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
 #include "gyre/report/html_report.hpp"
@@ -28,8 +29,8 @@ struct CompareCliOptions {
   int seeds = 3;
   int bootstrap_samples = 1000;
   bool quiet = false;
-  std::map<std::string, std::string> values;  // pass-through training settings (config key -> text)
-  std::map<std::string, bool> flags;
+  std::shared_ptr<TrainSettingValues> given =
+      std::make_shared<TrainSettingValues>();  // pass-through settings
 };
 
 std::vector<std::string> split_list(const std::string& text, const char* setting) {
@@ -45,53 +46,8 @@ std::vector<std::string> split_list(const std::string& text, const char* setting
   return out;
 }
 
-json parse_value(const std::string& key, const std::string& text, const json& default_value) {
-  try {
-    std::size_t used = 0;
-    if (default_value.is_number_unsigned()) {
-      if (!text.empty() && text[0] == '-') throw ConfigError(key, "must not be negative");
-      const auto v = std::stoull(text, &used);
-      if (used == text.size()) return v;
-    } else if (default_value.is_number_integer()) {
-      const auto v = std::stoll(text, &used);
-      if (used == text.size()) return v;
-    } else if (default_value.is_number()) {
-      const auto v = std::stod(text, &used);
-      if (used == text.size()) return v;
-    } else {
-      return text;
-    }
-  } catch (const std::logic_error&) {
-  }
-  throw ConfigError(key, "'" + text + "' is not a valid number");
-}
-
-std::string flag_name(const std::string& key) {
-  std::string out = key;
-  for (char& c : out)
-    if (c == '_') c = '-';
-  return out;
-}
-
 ExitCode run_compare_cli(const CompareCliOptions& o) {
-  json j = train::default_config_json();
-  if (!o.config_path.empty()) {
-    json file;
-    try {
-      file = json::parse(read_file(o.config_path));
-    } catch (const json::parse_error& e) {
-      throw ParseError(o.config_path, 0, std::string("not valid JSON: ") + e.what());
-    }
-    if (!file.is_object()) throw ParseError(o.config_path, 0, "expected a JSON object of settings");
-    for (const auto& [key, value] : file.items()) {
-      if (key == "out") continue;  // compare has its own --out
-      j[key] = value;
-    }
-  }
-  const json defaults = train::default_config_json();
-  for (const auto& [key, text] : o.values) j[key] = parse_value(key, text, defaults.at(key));
-  for (const auto& [key, value] : o.flags)
-    j[key] = key == "bidirectional" ? json(value ? "yes" : "no") : json(value);
+  json j = merge_train_settings(o.config_path, *o.given);  // compare has its own --out
   if (!o.train.empty()) j["train"] = o.train;
   if (!o.dev.empty()) j["dev"] = o.dev;
 
@@ -100,7 +56,7 @@ ExitCode run_compare_cli(const CompareCliOptions& o) {
   spec.cells = split_list(o.cells, "cells");
   spec.hidden_sizes.clear();
   for (const auto& s : split_list(o.hidden_sizes, "hidden_sizes")) {
-    const json v = parse_value("hidden_sizes", s, json(1));
+    const json v = parse_setting_value("hidden_sizes", s, json(1));
     spec.hidden_sizes.push_back(static_cast<int>(v.get<long long>()));
   }
   spec.seeds = o.seeds;
@@ -156,32 +112,7 @@ const RegisterCommand kRegister{
           ->check(CLI::Range(1, 1000000));
       sub.add_option("--config", o->config_path, "JSON file of shared training settings (gyre train keys)");
       sub.add_flag("--quiet", o->quiet, "no progress lines");
-      const json defaults = train::default_config_json();
-      for (const auto& [key, value] : defaults.items()) {
-        if (key == "train" || key == "dev" || key == "cell" || key == "hidden_size" || key == "seed")
-          continue;
-        const std::string help = "training setting (gyre train --" + flag_name(key) + ")";
-        if (key == "bidirectional") {
-          sub.add_flag_callback(
-              "--bidirectional", [o] { o->flags["bidirectional"] = true; }, "bidirectional recurrent layers");
-          sub.add_flag_callback(
-              "--unidirectional", [o] { o->flags["bidirectional"] = false; },
-              "unidirectional recurrent layers");
-        } else if (value.is_boolean()) {
-          const bool default_on = value.get<bool>();
-          const std::string name = default_on ? "--no-" + flag_name(key) : "--" + flag_name(key);
-          const std::string k = key;
-          sub.add_flag_callback(
-              name, [o, k, default_on] { o->flags[k] = !default_on; }, help);
-        } else {
-          const std::string k = key;
-          auto* opt = sub.add_option_function<std::string>(
-              "--" + flag_name(key), [o, k](const std::string& text) { o->values[k] = text; }, help);
-          opt->type_name(value.is_string() ? "TEXT" : value.is_number_integer() ? "INT" : "NUMBER");
-          const std::string shown = value.is_string() ? value.get<std::string>() : value.dump();
-          if (!shown.empty()) opt->default_str(shown);
-        }
-      }
+      add_train_setting_options(sub, o->given, {"train", "dev", "cell", "hidden_size", "seed"});
       return [o] { return run_compare_cli(*o); };
     }};
 

@@ -8,6 +8,7 @@
 #include <nlohmann/json.hpp>
 
 #include "cli/command.hpp"
+#include "cli/train_settings.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
 #include "gyre/train/config.hpp"
@@ -18,93 +19,13 @@ namespace {
 
 using nlohmann::json;
 
-// Help text per config key; the key order of default_config_json() decides the --help order.
-const std::map<std::string, std::string>& help_texts() {
-  static const std::map<std::string, std::string> texts{
-      {"train", "labelled training file (TSV label<TAB>text, JSON Lines, or token<TAB>tag columns)"},
-      {"dev", "labelled dev file for evaluation after each epoch (default: split off the training file)"},
-      {"task", "auto | classify | tag (auto: from the file format)"},
-      {"dev_fraction", "share of the training file held out as dev when no --dev is given"},
-      {"skip_bad_lines", "skip malformed records (reported with line numbers) instead of stopping"},
-      {"repair_tags", "repair invalid BIO/BIOES transitions in tagging data instead of stopping"},
-      {"tokenizer", "words (Unicode word boundaries) | chars (grapheme clusters) | whitespace"},
-      {"nfkc", "Unicode NFKC normalization"},
-      {"case_fold", "Unicode full case folding"},
-      {"fold_digits", "map every digit to 0"},
-      {"keep_punctuation", "keep punctuation tokens"},
-      {"max_tokens", "keep at most this many tokens per text when tokenizing (0 = all)"},
-      {"min_count", "tokens seen fewer times in training become <unk>"},
-      {"max_vocab_size", "vocabulary size cap including <pad> and <unk> (0 = no cap)"},
-      {"cell", "lstm | gru"},
-      {"embedding_size", "token embedding width"},
-      {"hidden_size", "recurrent state width per direction"},
-      {"layers", "stacked recurrent layers"},
-      {"bidirectional", "auto | yes | no (auto: yes for taggers, no for classifiers)"},
-      {"pooling", "classifiers: last | mean | max over the recurrent states"},
-      {"output", "auto | softmax | sigmoid (multi-label) | crf (taggers)"},
-      {"dropout", "dropout between recurrent layers and before the output layer"},
-      {"embedding_dropout", "dropout on token embeddings"},
-      {"pretrained_embeddings", "text file of vectors, one 'token v1 v2 ...' per line"},
-      {"freeze_embeddings", "do not train the embeddings"},
-      {"optimizer", "sgd | adam | adamw"},
-      {"learning_rate", "peak learning rate"},
-      {"momentum", "SGD momentum"},
-      {"nesterov", "SGD with Nesterov momentum"},
-      {"weight_decay", "L2 penalty (sgd, adam) or decoupled decay (adamw)"},
-      {"schedule", "constant | linear | cosine | plateau"},
-      {"warmup_steps", "linear learning-rate warm-up steps"},
-      {"clip_norm", "clip the global gradient norm to this value (0 = off)"},
-      {"label_smoothing", "label smoothing for softmax outputs"},
-      {"class_weights", "none | balanced (weights inversely proportional to label frequency)"},
-      {"batch_size", "examples per optimizer step"},
-      {"epochs", "maximum passes over the training data"},
-      {"patience", "stop after this many epochs without dev improvement (0 = never)"},
-      {"early_stop_metric", "auto | accuracy | macro_f1 | loss | span_f1"},
-      {"bptt_window", "truncated backpropagation through time window in tokens (0 = full)"},
-      {"max_length", "cut training examples to this many tokens (0 = keep all)"},
-      {"seed", "random seed (same seed + same --threads = identical weights)"},
-      {"threads", "data-parallel worker threads"},
-  };
-  return texts;
-}
-
-std::string flag_name(const std::string& key) {
-  std::string out = key;
-  for (char& c : out)
-    if (c == '_') c = '-';
-  return out;
-}
-
 struct TrainCliOptions {
   std::string config_path;
   std::string out;
   std::string resume;
   bool quiet = false;
-  std::map<std::string, std::string> values;  // key -> text given on the command line
-  std::map<std::string, bool> flags;          // key -> value set by a boolean flag
+  std::shared_ptr<TrainSettingValues> given = std::make_shared<TrainSettingValues>();
 };
-
-json parse_value(const std::string& key, const std::string& text, const json& default_value) {
-  try {
-    std::size_t used = 0;
-    if (default_value.is_number_unsigned()) {
-      if (!text.empty() && text[0] == '-') throw ConfigError(key, "must not be negative");
-      const auto v = std::stoull(text, &used);
-      if (used == text.size()) return v;
-    } else if (default_value.is_number_integer()) {
-      const auto v = std::stoll(text, &used);
-      if (used == text.size()) return v;
-    } else if (default_value.is_number()) {
-      const auto v = std::stod(text, &used);
-      if (used == text.size()) return v;
-    } else {
-      return text;
-    }
-  } catch (const std::logic_error&) {
-  }
-  throw ConfigError(key, "'" + text + "' is not a valid " +
-                             std::string(default_value.is_number_integer() ? "integer" : "number"));
-}
 
 void print_summary(const train::TrainResult& r, const std::string& dir) {
   std::printf("\n%-22s %s\n", "run", dir.c_str());
@@ -134,36 +55,15 @@ ExitCode run_train(const TrainCliOptions& o) {
   options.quiet = o.quiet;
   train::TrainResult result;
   if (!o.resume.empty()) {
-    if (!o.values.empty() || !o.flags.empty() || !o.config_path.empty())
+    if (!o.given->values.empty() || !o.given->flags.empty() || !o.config_path.empty())
       throw ConfigError(
           "resume", "--resume continues with the run's saved config.json; other settings are not allowed");
     options.out = o.resume;
     result = train::resume(options);
   } else {
-    json j = train::default_config_json();
-    if (!o.config_path.empty()) {
-      json file;
-      try {
-        file = json::parse(read_file(o.config_path));
-      } catch (const json::parse_error& e) {
-        throw ParseError(o.config_path, 0, std::string("not valid JSON: ") + e.what());
-      }
-      if (!file.is_object()) throw ParseError(o.config_path, 0, "expected a JSON object of settings");
-      for (const auto& [key, value] : file.items()) j[key] = value;
-      if (j.contains("out")) {
-        if (o.out.empty() && j["out"].is_string()) options.out = j["out"].get<std::string>();
-        j.erase("out");
-      }
-    }
-    const json defaults = train::default_config_json();
-    for (const auto& [key, text] : o.values) j[key] = parse_value(key, text, defaults.at(key));
-    for (const auto& [key, value] : o.flags) {
-      if (key == "bidirectional") {
-        j[key] = value ? "yes" : "no";
-      } else {
-        j[key] = value;
-      }
-    }
+    std::string out_from_file;
+    const json j = merge_train_settings(o.config_path, *o.given, &out_from_file);
+    options.out = out_from_file;
     if (!o.out.empty()) options.out = o.out;
     if (options.out.empty()) throw ConfigError("out", "give the run directory with --out DIR");
     result = train::train(train::config_from_json(j), options);
@@ -190,32 +90,7 @@ const RegisterCommand kRegister{
       sub.add_option("--out", o->out, "run directory to create (must not exist or be empty)");
       sub.add_option("--resume", o->resume, "continue the interrupted run in this directory");
       sub.add_flag("--quiet", o->quiet, "no progress output");
-      const json defaults = train::default_config_json();
-      for (const auto& [key, value] : defaults.items()) {
-        const std::string help = help_texts().count(key) ? help_texts().at(key) : key;
-        if (key == "bidirectional") {
-          sub.add_flag_callback(
-              "--bidirectional", [o] { o->flags["bidirectional"] = true; },
-              "bidirectional recurrent layers (default: yes for taggers, no for classifiers)");
-          sub.add_flag_callback(
-              "--unidirectional", [o] { o->flags["bidirectional"] = false; },
-              "unidirectional recurrent layers");
-        } else if (value.is_boolean()) {
-          const bool default_on = value.get<bool>();
-          const std::string name = default_on ? "--no-" + flag_name(key) : "--" + flag_name(key);
-          const std::string k = key;
-          sub.add_flag_callback(
-              name, [o, k, default_on] { o->flags[k] = !default_on; },
-              default_on ? "turn off: " + help : help);
-        } else {
-          const std::string k = key;
-          std::string shown = value.is_string() ? value.get<std::string>() : value.dump();
-          auto* opt = sub.add_option_function<std::string>(
-              "--" + flag_name(key), [o, k](const std::string& text) { o->values[k] = text; }, help);
-          if (!shown.empty()) opt->default_str(shown);
-          opt->type_name(value.is_string() ? "TEXT" : value.is_number_integer() ? "INT" : "NUMBER");
-        }
-      }
+      add_train_setting_options(sub, o->given);
       return [o] { return run_train(*o); };
     }};
 
