@@ -6,9 +6,10 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 bash tools/install-deps.sh
-cmake -S . -B build -G Ninja -DCMAKE_BUILD_TYPE=Release
-cmake --build build
-gyre=build/bin/gyre
+build=${GYRE_BUILD_DIR:-build}   # where to build (default build/)
+cmake -S . -B "$build" -G Ninja -DCMAKE_BUILD_TYPE=Release
+cmake --build "$build"
+gyre=$build/bin/gyre
 corpus=corpora/demo
 rm -rf runs/demo-intents-lstm runs/demo-intents-gru
 mkdir -p runs
@@ -33,13 +34,13 @@ $gyre export runs/demo-intents-lstm --out runs/demo-intents.gyre --precision int
 $gyre inspect runs/demo-intents.gyre | head -12
 
 echo; echo "== build tools/embed-demo against the installed runtime and classify a few messages"
-cmake --install build --prefix build/install > /dev/null
-cmake -S tools/embed-demo -B build/embed-demo -G Ninja -DCMAKE_PREFIX_PATH="$PWD/build/install" > /dev/null
-cmake --build build/embed-demo > /dev/null
+cmake --install "$build" --prefix "$build/install" > /dev/null
+cmake -S tools/embed-demo -B "$build/embed-demo" -G Ninja -DCMAKE_PREFIX_PATH="$PWD/$build/install" > /dev/null
+cmake --build "$build/embed-demo" > /dev/null
 messages='my dishwasher is leaking again, can someone come on thursday morning?
 please cancel the visit booked for friday, the fridge is working now
 the invoice charged me twice for the callout fee
 Ayla fixed our oven in twenty minutes, brilliant service'
-echo "$messages" | build/embed-demo/embed-demo runs/demo-intents.gyre
+echo "$messages" | "$build/embed-demo/embed-demo" runs/demo-intents.gyre
 echo; echo "== the same messages through gyre predict (the training library)"
 echo "$messages" | $gyre predict runs/demo-intents-lstm
