@@ -57,7 +57,7 @@ TEST_CASE("embedding gathers rows, zero for padding, sparse accumulated gradient
   CHECK_THROWS_AS(emb.forward(bad, out), Error);
 }
 
-TEST_CASE("pretrained vectors load by vocabulary lookup; bad files name file and line", "[nn]") {
+TEST_CASE("pretrained vectors load by vocabulary lookup, bad files name file and line", "[nn]") {
   const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "nn_pretrained";
   fs::create_directories(dir);
   const std::map<std::string, int, std::less<>> vocab = {{"<pad>", 0}, {"kettle", 2}, {"coil", 3}};

@@ -145,7 +145,7 @@ TEST_CASE("a classifier trained on a learnable corpus beats the majority class b
   REQUIRE(saved.at("task") == "classify");
 }
 
-TEST_CASE("same seed and threads give identical weights; another seed differs", "[train]") {
+TEST_CASE("same seed and threads give identical weights, another seed differs", "[train]") {
   auto config = small_config();
   config.epochs = 2;
   for (int threads : {1, 2}) {
@@ -294,7 +294,7 @@ TEST_CASE("truncated BPTT trains a classifier and a tagger", "[train]") {
 }
 
 #ifdef GYRE_CLI_PATH
-TEST_CASE("SIGINT saves a resumable run; exit code 3, then --resume finishes it", "[train]") {
+TEST_CASE("SIGINT saves a resumable run and exits with code 3", "[train]") {
   const fs::path dir = tmp_dir("sigint");
   const fs::path big = fs::path(GYRE_TEST_TMP_DIR) / "train" / "big.tsv";
   write_corpus(big, 20000, 21);
