@@ -29,6 +29,8 @@ namespace fs = std::filesystem;
 using gyre::train::TrainConfig;
 using gyre::train::TrainOptions;
 
+#include "support/learnable_corpus.hpp"
+
 namespace {
 
 fs::path tmp_dir(const std::string& name) {
@@ -38,28 +40,8 @@ fs::path tmp_dir(const std::string& name) {
   return dir;
 }
 
-// A classification corpus with a learnable signal: each class has its own cue words, hidden among
-// shared filler words at a random position; label noise none. Majority class ~40%.
 void write_corpus(const fs::path& path, std::size_t n, std::uint64_t seed) {
-  const char* labels[] = {"alpha", "beta", "gamma"};
-  const char* cues[3][3] = {
-      {"red", "crimson", "scarlet"}, {"blue", "navy", "azure"}, {"green", "olive", "lime"}};
-  const char* filler[] = {"the", "a",   "message", "about", "some", "thing",
-                          "we",  "saw", "today",   "it",    "was",  "there"};
-  gyre::Rng rng(seed);
-  std::ofstream out(path);
-  out << "label\ttext\n";
-  for (std::size_t i = 0; i < n; ++i) {
-    const std::uint64_t r = rng.below(10);
-    const std::size_t c = r < 4 ? 0 : r < 7 ? 1 : 2;
-    const std::size_t len = 4 + rng.below(10);
-    const std::size_t cue_at = rng.below(len);
-    out << labels[c] << '\t';
-    for (std::size_t t = 0; t < len; ++t) {
-      out << (t ? " " : "") << (t == cue_at ? cues[c][rng.below(3)] : filler[rng.below(12)]);
-    }
-    out << '\n';
-  }
+  gyre::test::write_learnable_corpus(path, n, seed);
 }
 
 struct Corpus {
