@@ -18,6 +18,8 @@
 
 #include "runtime/detail/segment.hpp"
 
+#include "support/utf8.hpp"
+
 namespace {
 
 namespace fs = std::filesystem;
@@ -26,23 +28,7 @@ using gyre::runtime::detail::BreakKind;
 
 const fs::path kUnicodeDir = "/usr/share/unicode/auxiliary";
 
-void append_utf8(std::string& out, std::uint32_t cp) {
-  if (cp < 0x80) {
-    out += static_cast<char>(cp);
-  } else if (cp < 0x800) {
-    out += static_cast<char>(0xC0 | (cp >> 6));
-    out += static_cast<char>(0x80 | (cp & 0x3F));
-  } else if (cp < 0x10000) {
-    out += static_cast<char>(0xE0 | (cp >> 12));
-    out += static_cast<char>(0x80 | ((cp >> 6) & 0x3F));
-    out += static_cast<char>(0x80 | (cp & 0x3F));
-  } else {
-    out += static_cast<char>(0xF0 | (cp >> 18));
-    out += static_cast<char>(0x80 | ((cp >> 12) & 0x3F));
-    out += static_cast<char>(0x80 | ((cp >> 6) & 0x3F));
-    out += static_cast<char>(0x80 | (cp & 0x3F));
-  }
-}
+using gyre::test::append_utf8;
 
 struct TestLine {
   std::size_t line = 0;
