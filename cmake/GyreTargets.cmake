@@ -23,9 +23,10 @@ if(GYRE_SANITIZE)
   target_compile_options(gyre_options INTERFACE -fsanitize=address,undefined -fno-omit-frame-pointer -fno-sanitize-recover=undefined)
   target_link_options(gyre_options INTERFACE -fsanitize=address,undefined)
 endif()
+# Build-only (never exported, never installed: see GYRE_MARCH_NATIVE in the top CMakeLists.txt).
 include(CheckCXXCompilerFlag)
 check_cxx_compiler_flag(-march=native gyre_has_march_native)
-if(GYRE_NATIVE AND gyre_has_march_native)
+if(GYRE_MARCH_NATIVE AND gyre_has_march_native)
   target_compile_options(gyre_options INTERFACE -march=native)
 endif()
 
@@ -45,9 +46,11 @@ function(gyre_module name)
   target_include_directories(gyre_${name}
     PUBLIC $<BUILD_INTERFACE:${PROJECT_SOURCE_DIR}/include> $<INSTALL_INTERFACE:${CMAKE_INSTALL_INCLUDEDIR}>
     PRIVATE ${PROJECT_SOURCE_DIR}/src)
+  # The headers use C++20 (std::span ...): consumers of the installed targets get it too.
   if(M_CXX_STANDARD)
     target_compile_features(gyre_${name} PUBLIC cxx_std_${M_CXX_STANDARD})
   else()
+    target_compile_features(gyre_${name} PUBLIC cxx_std_20)
     target_link_libraries(gyre_${name} PUBLIC $<BUILD_INTERFACE:gyre_options>)
   endif()
   target_link_libraries(gyre_${name} PUBLIC ${M_PUBLIC_DEPS} PRIVATE ${M_PRIVATE_DEPS} $<BUILD_INTERFACE:gyre_warnings>)

@@ -25,7 +25,7 @@ done
 
 for cell in lstm gru; do
   echo; echo "== evaluate the $cell classifier on the test set"
-  $gyre eval runs/demo-intents-$cell --data $corpus/intents.test.tsv --json runs/demo-intents-$cell/test-metrics.json \
+  $gyre eval runs/demo-intents-$cell --test $corpus/intents.test.tsv --json runs/demo-intents-$cell/test-metrics.json \
     --errors 3
 done
 

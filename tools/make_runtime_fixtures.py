@@ -8,7 +8,7 @@ for a few texts, so the runtime is checked against an implementation outside the
     /usr/bin/python3 tools/make_runtime_fixtures.py            # -> tests/fixtures/runtime/
     /usr/bin/python3 tools/make_runtime_fixtures.py --bench-model m.gyre --precision f32
 
-PyTorch's nn.LSTM stacks gates [i f g o] and nn.GRU [r z n] with the reset gate applied after the
+PyTorch's nn.LSTM stacks gates [i f g o] and nn.GRU [r z n] (gyre: [r z h~]) with the reset gate applied after the
 recurrent product, the same conventions as gyre (DEVELOPERS.md). nn.LSTM has two biases; gyre's
 LSTM has one, their sum. The forward pass is run in float64 on weights rounded to float32.
 """
@@ -73,7 +73,7 @@ def write_model(path, header, tensors):
         placed.append((off, soff))
     file_size = pos + 8
     buf = bytearray(file_size)
-    struct.pack_into("<8sIIQQQQQQ", buf, 0, b"gyre.mf\0", 1, 0x0A0B0C0D, file_size, 64, len(hdr), table_offset,
+    struct.pack_into("<8sIIQQQQQQ", buf, 0, b"gyre.mf\0", 2, 0x0A0B0C0D, file_size, 64, len(hdr), table_offset,
                      len(entries), data_offset)
     buf[64:64 + len(hdr)] = hdr
     p = table_offset
@@ -117,7 +117,7 @@ def build(cell, E, H, layers, bidir, V, labels, seed, task="classify", pooling="
     with torch.no_grad():
         for p in rnn.parameters():
             p.copy_(f32(p))
-    tensors = [("embedding.weight", emb, "f32")]
+    tensors = [("tokens.vectors", emb, "f32")]
     for k in range(layers):
         for d, dname in enumerate(["fwd", "bwd"][: 2 if bidir else 1]):
             sfx = f"_l{k}" + ("_reverse" if d == 1 else "")
@@ -135,12 +135,12 @@ def build(cell, E, H, layers, bidir, V, labels, seed, task="classify", pooling="
                 with torch.no_grad():
                     b_ih.copy_(b)
                     b_hh.zero_()
-                tensors.append((pre + "bias", b[None, :], "f32"))
+                tensors.append((pre + "b_input", b[None, :], "f32"))
             else:
-                tensors.append((pre + "bias", b_ih[None, :], "f32"))
-                tensors.append((pre + "bias_hidden", b_hh[None, :], "f32"))
-    tensors.append(("head.weight", head.weight, "f32"))
-    tensors.append(("head.bias", head.bias[None, :], "f32"))
+                tensors.append((pre + "b_input", b_ih[None, :], "f32"))
+                tensors.append((pre + "b_hidden", b_hh[None, :], "f32"))
+    tensors.append(("readout.w", head.weight, "f32"))
+    tensors.append(("readout.b", head.bias[None, :], "f32"))
     arch = {"task": task, "cell": cell, "embedding_size": E, "hidden_size": H, "layers": layers,
             "bidirectional": bidir, "output": output}
     if task == "classify":
@@ -195,7 +195,7 @@ def main():
         header, tensors, _ = build("lstm", args.embedding_size, args.hidden_size, 1, False, args.vocabulary,
                                    [f"label{i}" for i in range(args.labels)], 9)
         header["architecture"]["pooling"] = "last"
-        quant = lambda n: args.precision if n.endswith(("weight", "w_input", "w_hidden")) else "f32"
+        quant = lambda n: args.precision if n.endswith(("vectors", "readout.w", "w_input", "w_hidden")) else "f32"
         write_model(args.bench_model, header, [(n, t, quant(n)) for n, t, _ in tensors])
         return
     os.makedirs(OUT, exist_ok=True)

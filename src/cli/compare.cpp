@@ -1,6 +1,6 @@
 // gyre compare: train every (cell, hidden size) over several seeds on the same data and splits,
-// score all runs on the same dev (and test) examples, and print the evidence: mean ± sample std
-// per configuration and a paired significance test between the two best.
+// score all runs on the same dev (and test) examples, and print the evidence: a verdict on the best
+// LSTM against the best GRU configuration, then mean ± sample std per configuration.
 
 #include <cstdio>
 #include <map>
@@ -16,6 +16,7 @@
 #include "gyre/report/html_report.hpp"
 #include "gyre/train/compare.hpp"
 #include "gyre/train/config.hpp"
+#include "gyre/train/process_group.hpp"
 
 namespace gyre::cli {
 namespace {
@@ -23,11 +24,11 @@ namespace {
 using nlohmann::json;
 
 struct CompareCliOptions {
-  std::string train, dev, test, config_path, out, metric = "auto";
+  std::string train, dev, test, config_path, out;
   std::string cells = "lstm,gru";
   std::string hidden_sizes = "64,128";
   int seeds = 3;
-  int bootstrap_samples = 1000;
+  int bootstrap_samples = 2000;
   bool quiet = false;
   std::shared_ptr<TrainSettingValues> given =
       std::make_shared<TrainSettingValues>();  // pass-through settings
@@ -61,17 +62,20 @@ ExitCode run_compare_cli(const CompareCliOptions& o) {
   }
   spec.seeds = o.seeds;
   spec.test = o.test;
-  spec.metric = o.metric;
+  spec.metric = j.at("metric").get<std::string>();  // the training setting: runs stop on what ranks them
   spec.out = o.out;
   spec.bootstrap_samples = o.bootstrap_samples;
   spec.progress = o.quiet ? nullptr : stderr;
-  if (!o.quiet)
+  spec.messages = stderr;  // a retrained run is news even with --quiet
+  if (!o.quiet && train::process_group().rank() == 0)
     std::fprintf(stderr, "gyre compare: %zu cell(s) x %zu size(s) x %d seed(s) = %zu runs into %s\n",
                  spec.cells.size(), spec.hidden_sizes.size(), spec.seeds,
                  spec.cells.size() * spec.hidden_sizes.size() * std::size_t(spec.seeds),
                  spec.out.string().c_str());
   const train::CompareResult result = train::run_compare(spec);
-  std::printf("%s", train::compare_table(result, !spec.test.empty()).c_str());
+  if (train::process_group().rank() != 0) return ExitCode::kOk;  // rank 0 prints the one table
+  std::printf("%s\n%s", train::compare_verdict(result).c_str(),
+              train::compare_table(result, !spec.test.empty()).c_str());
   const auto report = report::write_report(spec.out);
   std::printf("\nevery number: %s\nreport:       %s\n", (spec.out / "compare.json").string().c_str(),
               report.string().c_str());
@@ -89,11 +93,16 @@ const RegisterCommand kRegister{
           "  gyre compare --train t.tsv --dev d.tsv --cells gru --hidden-sizes 32,64,128 --seeds 5 --epochs "
           "5 --out cmp\n"
           "Runs go to OUT/<cell>-h<size>-s<seed>/ (seeds 1..N), every number to OUT/compare.json, the HTML\n"
-          "report to OUT/report.html. A run directory that already holds a finished run (metrics.json) of\n"
-          "the same cell, size and seed is reused, not retrained: rerunning after adding a size or a seed\n"
-          "trains only the new runs. The two best configurations (by mean dev score) are compared on the\n"
-          "test set (dev without --test) with McNemar's exact test and a paired bootstrap, using the\n"
-          "seed-1 runs' per-example correctness. Any `gyre train` setting may be given (see its --help).");
+          "report to OUT/report.html. A finished run is reused only when every training setting, the\n"
+          "contents of the train, dev and test files and the gyre version match what it was trained\n"
+          "from; otherwise it is retrained and a line names what differs. Rerunning after adding a size\n"
+          "or a seed trains only the new runs.\n"
+          "The verdict compares the best LSTM configuration with the best GRU configuration (each chosen by\n"
+          "mean dev score) on the test set (dev without --test: optimistic), using every seed: a 95% "
+          "interval\n"
+          "of the difference from a two-level bootstrap (runs, then examples), a permutation test over the\n"
+          "per-seed scores, and per-seed McNemar tests as detail. Any `gyre train` setting may be given\n"
+          "(see its --help).");
       sub.add_option("--train", o->train, "labelled training file")->required();
       sub.add_option("--dev", o->dev, "labelled dev file (every run is scored and chosen on it)")->required();
       sub.add_option("--test", o->test, "labelled held-out test file (scored only)");
@@ -105,10 +114,8 @@ const RegisterCommand kRegister{
       sub.add_option("--seeds", o->seeds, "seeds per configuration (1..N)")
           ->default_str("3")
           ->check(CLI::Range(1, 1000));
-      sub.add_option("--metric", o->metric, "auto | accuracy | macro_f1 | span_f1 | token_accuracy | loss")
-          ->default_str("auto (accuracy; multi-label: macro_f1; taggers: span_f1)");
-      sub.add_option("--bootstrap-samples", o->bootstrap_samples, "paired bootstrap resamples")
-          ->default_str("1000")
+      sub.add_option("--bootstrap-samples", o->bootstrap_samples, "two-level bootstrap resamples")
+          ->default_str("2000")
           ->check(CLI::Range(1, 1000000));
       sub.add_option("--config", o->config_path, "JSON file of shared training settings (gyre train keys)");
       sub.add_flag("--quiet", o->quiet, "no progress lines");

@@ -10,12 +10,19 @@
 
 #include "cli/command.hpp"
 #include "cli/model_data.hpp"
+#include "cli/train_settings.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
+#include "gyre/data/encoder.hpp"
 #include "gyre/data/reader.hpp"
+#include "gyre/eval/calibration.hpp"
 #include "gyre/eval/span_metrics.hpp"
 #include "gyre/eval/tag_baseline.hpp"
+#include "gyre/train/baseline.hpp"
+#include "gyre/train/calibrate.hpp"
+#include "gyre/train/config.hpp"
 #include "gyre/train/evaluate.hpp"
+#include "gyre/train/explain.hpp"
 
 namespace gyre::cli {
 namespace {
@@ -24,11 +31,12 @@ using nlohmann::json;
 
 struct EvalOptions {
   std::string model;
-  std::string data;
+  std::string test;
   std::string json_out;
   std::string baseline_train;
   int errors = 0;
-  bool skip_bad_lines = false;
+  bool no_baseline = false;
+  std::shared_ptr<TrainSettingValues> given = std::make_shared<TrainSettingValues>();
 };
 
 std::string join(const std::vector<std::string>& items, const char* sep = " ") {
@@ -57,17 +65,172 @@ std::optional<eval::TaggingMetrics> tag_baseline(const std::string& train_path,
   return metrics;
 }
 
+// The linear baseline (gyre/train/baseline.hpp) refitted on the run's training split (files from
+// the model's saved config; C from the run's metrics.json when there, else chosen on dev again,
+// which gives the same C: the fit is deterministic). Prints its scores beside the model's.
+void linear_baseline(const io::TrainedModel& trained, const LabelledData& data, json& report,
+                     const std::string& data_path) {
+  if (!trained.header.contains("config") || trained.spec.output == model::OutputKind::kSigmoid) return;
+  const train::TrainConfig config = train::config_from_json(trained.header["config"]);
+  std::error_code ec;
+  if (config.train.empty() || !std::filesystem::exists(config.train, ec) ||
+      (!config.dev.empty() && !std::filesystem::exists(config.dev, ec))) {
+    std::printf("\n(linear baseline skipped: the run's training file %s is not readable here)\n",
+                config.train.c_str());
+    return;
+  }
+  double c = 0;
+  const auto metrics_path = trained.path.parent_path() / "metrics.json";
+  if (std::filesystem::exists(metrics_path, ec)) {
+    const json m = json::parse(read_file(metrics_path), nullptr, false);
+    if (!m.is_discarded() && m.contains("baseline")) c = m["baseline"].value("c", 0.0);
+  }
+  const auto run = train::read_run_examples(config);
+  const auto baseline =
+      train::LinearBaseline::fit(trained.vocab, run.task, run.train, config.train, run.dev, run.dev_path, c);
+  const json scores = baseline.score(data.examples, data_path);
+  report["linear_baseline"] = {
+      {"name", baseline.description()}, {"train", config.train}, {"metrics", scores}};
+  std::printf("\nlinear baseline (%s, fitted on %s):\n", baseline.description().c_str(),
+              config.train.c_str());
+  for (const auto& [key, label] : {std::pair{"accuracy", "accuracy"},
+                                   {"macro_f1", "macro F1"},
+                                   {"span_f1", "span F1"},
+                                   {"token_accuracy", "token accuracy"}})
+    if (scores.contains(key)) std::printf("  %s %.4f", label, scores[key].get<double>());
+  std::printf("\n");
+}
+
+// Reliability before and after the model's temperature scaling (fitted on dev by `gyre train`):
+// the raw outputs come from a second pass with calibration off, through the same engine.
+void calibration_section(const io::TrainedModel& trained, const LabelledData& data,
+                         const train::EvaluationResult& result, json& report) {
+  const auto& spec = trained.spec;
+  const eval::Reliability after = train::reliability_of(spec, data.encoded, result.predictions);
+  if (spec.temperature.empty()) {
+    std::printf(
+        "\ncalibration: ECE %.4f over %zu predictions (this model has no temperature: it was trained "
+        "before gyre fitted one)\n",
+        after.error, after.predictions);
+    report["calibration"] = {{"temperature", nullptr}, {"after", after.to_json()}};
+    return;
+  }
+  std::vector<train::ExamplePrediction> raw;
+  if (trained.runtime) {
+    raw = train::predict_all(*trained.runtime, data.encoded, false);
+  } else {
+    trained.model->set_calibrated(false);
+    raw = train::predict_all(*trained.model, data.encoded);
+    trained.model->set_calibrated(true);
+  }
+  const eval::Reliability before = train::reliability_of(spec, data.encoded, raw);
+  std::string temps;
+  for (const float t : spec.temperature) {
+    char buf[32];
+    std::snprintf(buf, sizeof buf, "%s%.3f", temps.empty() ? "" : " ", static_cast<double>(t));
+    temps += buf;
+  }
+  const char* unit = spec.task == data::Task::kTag                ? "tokens"
+                     : spec.output == model::OutputKind::kSigmoid ? "label decisions"
+                                                                  : "examples";
+  std::printf("\ncalibration (temperature scaling fitted on dev, T = %s; reliability over %zu %s):\n%s",
+              temps.c_str(), after.predictions, unit, eval::reliability_table(before, after).c_str());
+  report["calibration"] = {
+      {"temperature", spec.temperature}, {"before", before.to_json()}, {"after", after.to_json()}};
+}
+
+// Taggers: the most-frequent-tag baseline from the training corpus (--baseline-train, else the
+// path the run's config names), when that file is there.
+void tagging_baseline(const EvalOptions& o, const io::TrainedModel& trained, const LabelledData& data,
+                      json& report) {
+  std::string train_path = o.baseline_train;
+  if (train_path.empty() && trained.header.contains("config"))
+    train_path = trained.header["config"].value("train", "");
+  std::error_code ec;
+  if (train_path.empty() || !std::filesystem::exists(train_path, ec)) {
+    std::printf("\n(baseline skipped: give --baseline-train FILE with the training corpus)\n");
+    return;
+  }
+  const auto base = tag_baseline(train_path, trained, data, report);
+  if (base)
+    std::printf("\nbaseline (most frequent tag per token, from %s):\n  span F1 %.4f   token accuracy %.4f\n",
+                train_path.c_str(), base->micro.f1, base->token_accuracy);
+}
+
+// The --errors N most confident mistakes (classifiers with why: each token's share of the top
+// label's probability, train/explain.hpp), printed and returned for the JSON report.
+json confident_mistakes(const EvalOptions& o, const io::TrainedModel& trained, const LabelledData& data,
+                        const train::EvaluationResult& result) {
+  const auto& spec = trained.spec;
+  std::vector<std::size_t> wrong;
+  for (std::size_t i = 0; i < data.encoded.size(); ++i) {
+    const auto& p = result.predictions[i];
+    const bool ok = spec.task == data::Task::kClassify ? p.labels == data.encoded[i].targets
+                                                       : p.tags == data.encoded[i].targets;
+    if (!ok) wrong.push_back(i);
+  }
+  std::stable_sort(wrong.begin(), wrong.end(), [&](std::size_t a, std::size_t b) {
+    return result.predictions[a].confidence > result.predictions[b].confidence;
+  });
+  if (wrong.size() > static_cast<std::size_t>(o.errors)) wrong.resize(static_cast<std::size_t>(o.errors));
+  std::printf("\n%zu most confident mistakes:\n", wrong.size());
+  json errors = json::array();
+  for (const auto i : wrong) {
+    const auto& ex = data.examples[i];
+    const auto& p = result.predictions[i];
+    std::vector<std::string> predicted;
+    if (spec.task == data::Task::kClassify) {
+      for (const auto l : p.labels) predicted.push_back(spec.labels[static_cast<std::size_t>(l)]);
+      std::printf("  line %zu  gold %s  predicted %s  p=%.3f\n    %s\n", ex.line,
+                  join(ex.labels, ",").c_str(), join(predicted, ",").c_str(),
+                  static_cast<double>(p.confidence), ex.text.c_str());
+      const auto top = static_cast<int>(std::max_element(p.probs.begin(), p.probs.end()) - p.probs.begin());
+      std::vector<std::string> tokens;
+      data::EncodedExample encoded;
+      data::Encoder(trained.vocab, data::Task::kClassify).encode_text(ex.text, tokens, encoded);
+      const json why = train::explain(trained, encoded, tokens, top);
+      std::printf("    why %s: %s\n", spec.labels[static_cast<std::size_t>(top)].c_str(),
+                  train::explain_summary(why).c_str());
+      errors.push_back({{"line", ex.line},
+                        {"text", ex.text},
+                        {"gold", ex.labels},
+                        {"predicted", predicted},
+                        {"probability", p.confidence},
+                        {"why", why}});
+    } else {
+      std::string marked;
+      for (std::size_t t = 0; t < p.tags.size(); ++t) {
+        predicted.push_back(spec.labels[static_cast<std::size_t>(p.tags[t])]);
+        marked += (t ? " " : "") + ex.tokens[t];
+        if (predicted.back() != ex.tags[t]) marked += "[" + ex.tags[t] + "->" + predicted.back() + "]";
+      }
+      std::printf("  line %zu  confidence %.3f\n    %s\n", ex.line, static_cast<double>(p.confidence),
+                  marked.c_str());
+      errors.push_back({{"line", ex.line},
+                        {"tokens", ex.tokens},
+                        {"gold", ex.tags},
+                        {"predicted", predicted},
+                        {"confidence", p.confidence}});
+    }
+  }
+  return errors;
+}
+
 ExitCode run_eval(const EvalOptions& o) {
-  const io::TrainedModel trained = io::load_trained_model(o.model);
-  const LabelledData data = load_labelled(o.data, trained, o.skip_bad_lines);
-  auto result = train::evaluate(*trained.model, data.encoded, o.errors > 0);
+  // An exported file is scored by the embedded runtime: what an application gets, int8 included.
+  const io::TrainedModel trained = io::load_trained_model(o.model, io::Engine::kRuntimeForExported);
+  const LabelledData data = load_labelled(o.test, trained, model_read_options(trained, o.given->given));
+  auto result = trained.runtime ? train::evaluate(*trained.runtime, data.encoded, true)
+                                : train::evaluate(*trained.model, data.encoded, true);
   json report = result.to_json();
   report["model"] = trained.path.string();
-  report["data"] = o.data;
-  const auto& spec = trained.spec;
+  report["data"] = o.test;
+  report["engine"] = trained.runtime ? "runtime" : "library";
 
-  std::printf("model  %s\ndata   %s  (%zu examples)\n\n", trained.path.string().c_str(), o.data.c_str(),
-              data.examples.size());
+  std::printf("model  %s  (%s)\ndata   %s  (%zu examples)\n\n", trained.path.string().c_str(),
+              trained.runtime ? "exported; scored by the embedded runtime"
+                              : "checkpoint; scored by the training library",
+              o.test.c_str(), data.examples.size());
   if (result.classification) {
     const auto& m = *result.classification;
     std::printf("%s\n", m.to_table().c_str());
@@ -76,69 +239,11 @@ ExitCode run_eval(const EvalOptions& o) {
     std::printf("%s", result.multilabel->to_table().c_str());
   } else {
     std::printf("%s", result.tagging->to_table().c_str());
-    std::string train_path = o.baseline_train;
-    if (train_path.empty() && trained.header.contains("config"))
-      train_path = trained.header["config"].value("train", "");
-    std::error_code ec;
-    if (!train_path.empty() && std::filesystem::exists(train_path, ec)) {
-      const auto base = tag_baseline(train_path, trained, data, report);
-      if (base)
-        std::printf(
-            "\nbaseline (most frequent tag per token, from %s):\n  span F1 %.4f   token accuracy %.4f\n",
-            train_path.c_str(), base->micro.f1, base->token_accuracy);
-    } else {
-      std::printf("\n(baseline skipped: give --baseline-train FILE with the training corpus)\n");
-    }
+    if (!o.no_baseline) tagging_baseline(o, trained, data, report);
   }
-
-  if (o.errors > 0) {
-    // Most confident mistakes first.
-    std::vector<std::size_t> wrong;
-    for (std::size_t i = 0; i < data.encoded.size(); ++i) {
-      const auto& p = result.predictions[i];
-      const bool ok = spec.task == data::Task::kClassify ? p.labels == data.encoded[i].targets
-                                                         : p.tags == data.encoded[i].targets;
-      if (!ok) wrong.push_back(i);
-    }
-    std::stable_sort(wrong.begin(), wrong.end(), [&](std::size_t a, std::size_t b) {
-      return result.predictions[a].confidence > result.predictions[b].confidence;
-    });
-    if (wrong.size() > static_cast<std::size_t>(o.errors)) wrong.resize(static_cast<std::size_t>(o.errors));
-    std::printf("\n%zu most confident mistakes:\n", wrong.size());
-    json errors = json::array();
-    for (const auto i : wrong) {
-      const auto& ex = data.examples[i];
-      const auto& p = result.predictions[i];
-      if (spec.task == data::Task::kClassify) {
-        std::vector<std::string> predicted;
-        for (const auto l : p.labels) predicted.push_back(spec.labels[static_cast<std::size_t>(l)]);
-        std::printf("  line %zu  gold %s  predicted %s  p=%.3f\n    %s\n", ex.line,
-                    join(ex.labels, ",").c_str(), join(predicted, ",").c_str(),
-                    static_cast<double>(p.confidence), ex.text.c_str());
-        errors.push_back({{"line", ex.line},
-                          {"text", ex.text},
-                          {"gold", ex.labels},
-                          {"predicted", predicted},
-                          {"probability", p.confidence}});
-      } else {
-        std::vector<std::string> predicted;
-        std::string marked;
-        for (std::size_t t = 0; t < p.tags.size(); ++t) {
-          predicted.push_back(spec.labels[static_cast<std::size_t>(p.tags[t])]);
-          marked += (t ? " " : "") + ex.tokens[t];
-          if (predicted.back() != ex.tags[t]) marked += "[" + ex.tags[t] + "->" + predicted.back() + "]";
-        }
-        std::printf("  line %zu  confidence %.3f\n    %s\n", ex.line, static_cast<double>(p.confidence),
-                    marked.c_str());
-        errors.push_back({{"line", ex.line},
-                          {"tokens", ex.tokens},
-                          {"gold", ex.tags},
-                          {"predicted", predicted},
-                          {"confidence", p.confidence}});
-      }
-    }
-    report["errors"] = errors;
-  }
+  if (!result.multilabel && !o.no_baseline) linear_baseline(trained, data, report, o.test);
+  calibration_section(trained, data, result, report);
+  if (o.errors > 0) report["errors"] = confident_mistakes(o, trained, data, result);
   if (!o.json_out.empty()) write_file_atomic(o.json_out, report.dump(2) + "\n");
   return ExitCode::kOk;
 }
@@ -149,19 +254,23 @@ const RegisterCommand kRegister{
       auto o = std::make_shared<EvalOptions>();
       sub.footer(
           "Examples:\n"
-          "  gyre eval runs/intents-lstm --data corpora/demo/intents.test.tsv\n"
-          "  gyre eval model.gyre --data corpora/demo/slots.test.tsv --json metrics.json --errors 10\n"
-          "MODEL is a run directory (its checkpoint-best.bin), a checkpoint, or an exported model file.");
+          "  gyre eval runs/intents-lstm --test corpora/demo/intents.test.tsv\n"
+          "  gyre eval model.gyre --test corpora/demo/slots.test.tsv --json metrics.json --errors 10\n"
+          "MODEL is a run directory (its selected.bin), a checkpoint, or an exported model file.\n"
+          "CSV columns / JSON Lines keys default to those the model was trained with.");
       sub.add_option("model", o->model, "run directory, checkpoint or exported model")->required();
-      sub.add_option("--data", o->data, "labelled file in the model's corpus format")->required();
+      sub.add_option("--test", o->test, "labelled file to score, in the model's corpus format")->required();
       sub.add_option("--json", o->json_out, "also write every number as JSON to this file");
       sub.add_option("--errors", o->errors, "list the N most confident mistakes")
           ->check(CLI::NonNegativeNumber);
       sub.add_option(
           "--baseline-train", o->baseline_train,
           "taggers: training corpus for the most-frequent-tag baseline (default: the run's training file)");
-      sub.add_flag("--skip-bad-lines", o->skip_bad_lines,
-                   "skip malformed records (reported) instead of stopping");
+      sub.add_flag(
+          "--no-baseline", o->no_baseline,
+          "skip the baselines (the linear one refitted on the run's training split, and for taggers the "
+          "most-frequent-tag one)");
+      add_train_setting_options(sub, o->given, {}, {"text_column", "label_column", "skip_bad_lines"});
       return [o] { return run_eval(*o); };
     }};
 

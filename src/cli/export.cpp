@@ -9,6 +9,7 @@
 
 #include "cli/command.hpp"
 #include "cli/model_data.hpp"
+#include "cli/options.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/io/model_io.hpp"
 #include "gyre/runtime/model_file.hpp"
@@ -50,10 +51,12 @@ ExitCode run_export(const ExportOptions& o) {
                 o.precision.c_str());
     return ExitCode::kOk;
   }
-  const io::TrainedModel exported = io::load_trained_model(o.out);
-  const LabelledData data = load_labelled(dev, source, false);
+  // The exported file is scored by the embedded runtime, so the printed f16/int8 numbers are what
+  // an application gets; the original is the checkpoint in the training library.
+  const io::TrainedModel exported = io::load_trained_model(o.out, io::Engine::kRuntimeForExported);
+  const LabelledData data = load_labelled(dev, source, model_read_options(source, nlohmann::json::object()));
   const auto before = train::evaluate(*source.model, data.encoded, true);
-  const auto after = train::evaluate(*exported.model, data.encoded, true);
+  const auto after = train::evaluate(*exported.runtime, data.encoded, true);
   const char* metric = source.spec.task == data::Task::kTag ? "span_f1" : "accuracy";
   std::size_t agree = 0, total = 0;
   for (std::size_t i = 0; i < data.encoded.size(); ++i) {
@@ -85,7 +88,7 @@ const RegisterCommand kRegister{
       sub.add_option("model", o->model, "run directory or checkpoint")->required();
       sub.add_option("--out", o->out, "model file to write")->required();
       sub.add_option("--precision", o->precision, "f32 | f16 | int8")
-          ->check(CLI::IsMember({"f32", "f16", "int8"}))
+          ->check(one_of({"f32", "f16", "int8"}))
           ->default_str("int8");
       sub.add_option("--dev", o->dev, "labelled file for the precision check (default: the run's dev file)");
       sub.add_flag("--no-check", o->no_check, "skip the dev-set check");

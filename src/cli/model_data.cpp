@@ -3,15 +3,29 @@
 #include <iostream>
 
 #include "gyre/core/error.hpp"
+#include "gyre/data/encoder.hpp"
 #include "gyre/data/reader.hpp"
-#include "gyre/model/encoder.hpp"
 
 namespace gyre::cli {
 
-LabelledData load_labelled(const std::string& path, const io::TrainedModel& trained, bool skip_bad_lines) {
-  LabelledData out;
+data::ReadOptions model_read_options(const io::TrainedModel& trained, const nlohmann::json& given) {
+  const nlohmann::json saved =
+      trained.header.contains("config") ? trained.header["config"] : nlohmann::json::object();
+  auto pick = [&](const char* key, const std::string& fallback) {
+    if (given.contains(key)) return given[key].get<std::string>();
+    if (saved.contains(key) && saved[key].is_string()) return saved[key].get<std::string>();
+    return fallback;
+  };
   data::ReadOptions options;
-  options.skip_bad_lines = skip_bad_lines;
+  options.text_column = pick("text_column", options.text_column);
+  options.label_column = pick("label_column", options.label_column);
+  options.skip_bad_lines = given.value("skip_bad_lines", false);
+  return options;
+}
+
+LabelledData load_labelled(const std::string& path, const io::TrainedModel& trained,
+                           const data::ReadOptions& options) {
+  LabelledData out;
   const data::ReadReport report =
       data::read_corpus(path, options, [&](data::Example&& ex) { out.examples.push_back(std::move(ex)); });
   if (report.task != trained.spec.task)
@@ -25,9 +39,22 @@ LabelledData load_labelled(const std::string& path, const io::TrainedModel& trai
   }
   if (out.examples.empty()) throw ParseError(path, 0, "no examples in the file");
   out.skipped = report.skipped;
-  const model::Encoder encoder(trained.vocab, trained.spec.task);
+  const data::Encoder encoder(trained.vocab, trained.spec.task);
   out.encoded.reserve(out.examples.size());
-  for (const auto& ex : out.examples) out.encoded.push_back(encoder.encode(ex, path));
+  std::vector<std::size_t> cut_lines;
+  for (const auto& ex : out.examples) {
+    out.encoded.push_back(encoder.encode(ex, path));
+    if (out.encoded.back().cut) cut_lines.push_back(ex.line);
+  }
+  if (!cut_lines.empty()) {
+    const std::size_t cap = trained.vocab.tokenizer.max_tokens;
+    std::cerr << "gyre: warning: " << path << ": " << cut_lines.size()
+              << " example(s) longer than the model's max_tokens (" << cap << ") were scored on their first "
+              << cap << " tokens (line" << (cut_lines.size() > 1 ? "s" : "");
+    for (std::size_t i = 0; i < cut_lines.size() && i < 10; ++i)
+      std::cerr << (i ? ", " : " ") << cut_lines[i];
+    std::cerr << (cut_lines.size() > 10 ? ", ...)\n" : ")\n");
+  }
   return out;
 }
 

@@ -12,6 +12,7 @@
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
 #include "gyre/train/config.hpp"
+#include "gyre/train/process_group.hpp"
 #include "gyre/train/trainer.hpp"
 
 namespace gyre::cli {
@@ -24,6 +25,7 @@ struct TrainCliOptions {
   std::string out;
   std::string resume;
   bool quiet = false;
+  bool no_baseline = false;
   std::shared_ptr<TrainSettingValues> given = std::make_shared<TrainSettingValues>();
 };
 
@@ -43,21 +45,38 @@ void print_summary(const train::TrainResult& r, const std::string& dir) {
     if (dev.contains("micro") && dev.value("task", "") == "tagging")
       std::printf("%-22s %.4f\n", "dev span F1", dev["micro"]["f1"].get<double>());
   }
+  if (r.final_metrics.contains("baseline")) {
+    // The linear baseline on the same split, so the recurrent model's score has a yardstick.
+    const auto& base = r.final_metrics["baseline"];
+    std::printf("%-22s %s\n", "linear baseline", base["name"].get<std::string>().c_str());
+    for (const auto& [key, label] : {std::pair{"accuracy", "  dev accuracy"},
+                                     {"macro_f1", "  dev macro F1"},
+                                     {"token_accuracy", "  dev token accuracy"},
+                                     {"span_f1", "  dev span F1"}})
+      if (base["dev"].contains(key)) std::printf("%-22s %.4f\n", label, base["dev"][key].get<double>());
+  }
   std::printf("%-22s %.1f s\n", "training time", r.seconds);
   std::printf("%-22s %.0f\n", "tokens/s", r.tokens_per_second);
   std::printf("%-22s %.1f MiB\n", "peak memory (RSS)",
               static_cast<double>(r.peak_rss_bytes) / (1024.0 * 1024.0));
-  std::printf("%-22s %s/checkpoint-best.bin\n", "best model", dir.c_str());
+  std::printf("%-22s %s/selected.bin\n", "best model", dir.c_str());
 }
 
 ExitCode run_train(const TrainCliOptions& o) {
   train::TrainOptions options;
   options.quiet = o.quiet;
+  options.fit_baseline = !o.no_baseline;
   train::TrainResult result;
   if (!o.resume.empty()) {
-    if (!o.given->values.empty() || !o.given->flags.empty() || !o.config_path.empty())
-      throw ConfigError(
-          "resume", "--resume continues with the run's saved config.json; other settings are not allowed");
+    json given = o.given->given;
+    if (given.contains("epochs")) {
+      options.epochs = given["epochs"].get<int>();
+      given.erase("epochs");
+    }
+    if (!given.empty() || !o.config_path.empty() || !o.out.empty())
+      throw UsageError(
+          "--resume continues with the run's saved config.json; of the settings only --epochs "
+          "(a new total, to extend the run) may be given");
     options.out = o.resume;
     result = train::resume(options);
   } else {
@@ -69,7 +88,7 @@ ExitCode run_train(const TrainCliOptions& o) {
     result = train::train(train::config_from_json(j), options);
   }
   if (result.outcome == train::TrainOutcome::kInterrupted) return ExitCode::kInterrupted;
-  print_summary(result, options.out.string());
+  if (train::process_group().rank() == 0) print_summary(result, options.out.string());  // once per job
   return ExitCode::kOk;
 }
 
@@ -83,13 +102,19 @@ const RegisterCommand kRegister{
           "  gyre train --train corpora/demo/slots.train.tsv --output crf --out runs/slots-crf\n"
           "  gyre train --config run.json --cell gru --hidden-size 64 --out runs/gru64\n"
           "  gyre train --resume runs/intents-lstm        # continue an interrupted run\n"
+          "  gyre train --resume runs/intents-lstm --epochs 30   # extend a run (finished too) to 30 epochs\n"
           "Every option is also a key of the --config JSON file (with '_' for '-'); flags win.\n"
           "Exit codes: 0 done, 1 runtime failure (e.g. diverged), 2 bad settings or input, 3 interrupted "
           "(resumable).");
       sub.add_option("--config", o->config_path, "JSON file of settings (keys as the options below)");
       sub.add_option("--out", o->out, "run directory to create (must not exist or be empty)");
-      sub.add_option("--resume", o->resume, "continue the interrupted run in this directory");
+      sub.add_option(
+          "--resume", o->resume,
+          "continue the interrupted run in this directory (with --epochs N: extend it to N epochs)");
       sub.add_flag("--quiet", o->quiet, "no progress output");
+      sub.add_flag(
+          "--no-baseline", o->no_baseline,
+          "skip the linear baseline (by default fitted on the same split and shown beside the model)");
       add_train_setting_options(sub, o->given);
       return [o] { return run_train(*o); };
     }};

@@ -66,6 +66,22 @@ void fill_batch(std::span<const EncodedExample> examples, std::span<const std::s
     for (int t = 0; t < batch.lengths[b]; ++t)
       batch.ids[static_cast<std::size_t>(t) * B + b] = ids[static_cast<std::size_t>(t)];
   }
+  batch.char_ids.clear();
+  batch.char_offsets.clear();
+  if (examples[indices[0]].char_offsets.empty()) return;
+  batch.char_offsets.reserve(batch.ids.size() + 1);
+  batch.char_offsets.push_back(0);
+  for (int t = 0; t < longest; ++t)
+    for (std::size_t b = 0; b < B; ++b) {
+      const auto& ex = examples[indices[b]];
+      GYRE_CHECK(ex.char_offsets.size() == ex.ids.size() + 1, "an encoded example lacks its characters");
+      if (t < batch.lengths[b]) {
+        const auto from = ex.char_offsets[static_cast<std::size_t>(t)];
+        const auto to = ex.char_offsets[static_cast<std::size_t>(t) + 1];
+        batch.char_ids.insert(batch.char_ids.end(), ex.char_ids.begin() + from, ex.char_ids.begin() + to);
+      }
+      batch.char_offsets.push_back(static_cast<std::int32_t>(batch.char_ids.size()));
+    }
 }
 
 std::vector<Window> make_windows(const Batch& batch, int window) {

@@ -53,26 +53,88 @@ void average(const std::vector<ClassScores>& classes, AverageScores& macro, Aver
   micro.f1 = safe_div(2.0 * micro.precision * micro.recall, micro.precision + micro.recall);
 }
 
+void check_row(const float* row, std::size_t num_classes, std::size_t example) {
+  for (std::size_t c = 0; c < num_classes; ++c) {
+    const float p = row[c];
+    if (!std::isfinite(p) || p < 0.0f)
+      throw Error("probability of example " + std::to_string(example) + ", class " + std::to_string(c) +
+                  " is " + std::to_string(p) + " (must be finite and >= 0)");
+  }
+}
+
 void check_probabilities(std::span<const float> probabilities, std::size_t rows, std::size_t num_classes) {
   GYRE_CHECK(num_classes > 0, "need at least one class");
   GYRE_CHECK(probabilities.size() == rows * num_classes,
              "probabilities hold " + std::to_string(probabilities.size()) + " values, expected " +
                  std::to_string(rows) + " examples x " + std::to_string(num_classes) + " classes");
-  for (std::size_t i = 0; i < probabilities.size(); ++i) {
-    const float p = probabilities[i];
-    if (!std::isfinite(p) || p < 0.0f)
-      throw Error("probability of example " + std::to_string(i / num_classes) + ", class " +
-                  std::to_string(i % num_classes) + " is " + std::to_string(p) +
-                  " (must be finite and >= 0)");
+  for (std::size_t i = 0; i < rows; ++i) check_row(probabilities.data() + i * num_classes, num_classes, i);
+}
+
+void check_id(std::int32_t id, std::size_t num_classes, const char* what, std::size_t example) {
+  if (id < 0 || static_cast<std::size_t>(id) >= num_classes)
+    throw Error(std::string(what) + " id " + std::to_string(id) + " of example " + std::to_string(example) +
+                " is outside [0, " + std::to_string(num_classes) + ")");
+}
+
+// -log of the gold class's probability after clipping to [eps, 1 - eps] and renormalising the
+// row (sklearn 1.2 log_loss).
+double log_loss_term(const float* row, std::size_t num_classes, std::int32_t gold, double eps) {
+  double row_sum = 0.0;
+  for (std::size_t c = 0; c < num_classes; ++c)
+    row_sum += std::clamp(static_cast<double>(row[c]), eps, 1.0 - eps);
+  const double p = std::clamp(static_cast<double>(row[static_cast<std::size_t>(gold)]), eps, 1.0 - eps);
+  return -std::log(p / row_sum);
+}
+
+// The bins of Guo et al. 2017, filled one row at a time: bins[m] counts, conf[m] sums the
+// confidences and hits[m] the correct argmaxes of bin m.
+void calibration_init(std::vector<CalibrationBin>& bins, std::vector<double>& conf,
+                      std::vector<std::int64_t>& hits, int count) {
+  const auto m_bins = static_cast<std::size_t>(count);
+  bins.assign(m_bins, CalibrationBin{});
+  conf.assign(m_bins, 0.0);
+  hits.assign(m_bins, 0);
+  for (std::size_t m = 0; m < m_bins; ++m) {
+    bins[m].lower = static_cast<double>(m) / count;
+    bins[m].upper = static_cast<double>(m + 1) / count;
   }
 }
 
-void check_ids(std::span<const std::int32_t> ids, std::size_t num_classes, const char* what) {
-  for (std::size_t i = 0; i < ids.size(); ++i) {
-    if (ids[i] < 0 || static_cast<std::size_t>(ids[i]) >= num_classes)
-      throw Error(std::string(what) + " id " + std::to_string(ids[i]) + " of example " + std::to_string(i) +
-                  " is outside [0, " + std::to_string(num_classes) + ")");
+void calibration_add(std::vector<CalibrationBin>& bins, std::vector<double>& conf,
+                     std::vector<std::int64_t>& hits, const float* row, std::size_t num_classes,
+                     std::int32_t gold) {
+  std::size_t arg = 0;
+  for (std::size_t c = 1; c < num_classes; ++c)
+    if (row[c] > row[arg]) arg = c;  // strict: lowest id wins a tie
+  const double confidence = row[arg];
+  // Bin m (1-based) holds confidences in ((m-1)/M, m/M]: m = ceil(conf * M), 0 goes to bin 1.
+  const auto count = static_cast<long>(bins.size());
+  auto m = static_cast<long>(std::ceil(confidence * static_cast<double>(count)));
+  m = std::clamp(m, 1L, count);
+  const auto k = static_cast<std::size_t>(m - 1);
+  bins[k].count += 1;
+  conf[k] += confidence;
+  if (static_cast<std::int32_t>(arg) == gold) hits[k] += 1;
+}
+
+double calibration_finish(std::vector<CalibrationBin> bins, const std::vector<double>& conf,
+                          const std::vector<std::int64_t>& hits, std::int64_t examples,
+                          std::vector<CalibrationBin>* bins_out) {
+  double ece = 0.0;
+  const auto n = static_cast<double>(examples);
+  for (std::size_t k = 0; k < bins.size(); ++k) {
+    if (bins[k].count == 0) continue;
+    const auto cnt = static_cast<double>(bins[k].count);
+    bins[k].mean_confidence = conf[k] / cnt;
+    bins[k].accuracy = static_cast<double>(hits[k]) / cnt;
+    ece += cnt / n * std::abs(bins[k].accuracy - bins[k].mean_confidence);
   }
+  if (bins_out != nullptr) *bins_out = std::move(bins);
+  return ece;
+}
+
+void check_ids(std::span<const std::int32_t> ids, std::size_t num_classes, const char* what) {
+  for (std::size_t i = 0; i < ids.size(); ++i) check_id(ids[i], num_classes, what, i);
 }
 
 nlohmann::json scores_json(const ClassScores& c) {
@@ -112,14 +174,8 @@ double log_loss(std::span<const std::int32_t> gold, std::span<const float> proba
   check_probabilities(probabilities, gold.size(), num_classes);
   check_ids(gold, num_classes, "gold");
   double total = 0.0;
-  for (std::size_t i = 0; i < gold.size(); ++i) {
-    const float* row = probabilities.data() + i * num_classes;
-    double row_sum = 0.0;
-    for (std::size_t c = 0; c < num_classes; ++c)
-      row_sum += std::clamp(static_cast<double>(row[c]), eps, 1.0 - eps);
-    const double p = std::clamp(static_cast<double>(row[static_cast<std::size_t>(gold[i])]), eps, 1.0 - eps);
-    total -= std::log(p / row_sum);
-  }
+  for (std::size_t i = 0; i < gold.size(); ++i)
+    total += log_loss_term(probabilities.data() + i * num_classes, num_classes, gold[i], eps);
   return total / static_cast<double>(gold.size());
 }
 
@@ -129,39 +185,13 @@ double expected_calibration_error(std::span<const std::int32_t> gold, std::span<
   GYRE_CHECK(bins >= 1, "calibration needs at least one bin");
   check_probabilities(probabilities, gold.size(), num_classes);
   check_ids(gold, num_classes, "gold");
-  const auto m_bins = static_cast<std::size_t>(bins);
-  std::vector<CalibrationBin> b(m_bins);
-  std::vector<double> conf_sum(m_bins, 0.0);
-  std::vector<std::int64_t> hits(m_bins, 0);
-  for (std::size_t m = 0; m < m_bins; ++m) {
-    b[m].lower = static_cast<double>(m) / bins;
-    b[m].upper = static_cast<double>(m + 1) / bins;
-  }
-  for (std::size_t i = 0; i < gold.size(); ++i) {
-    const float* row = probabilities.data() + i * num_classes;
-    std::size_t arg = 0;
-    for (std::size_t c = 1; c < num_classes; ++c)
-      if (row[c] > row[arg]) arg = c;  // strict: lowest id wins a tie
-    const double conf = row[arg];
-    // Bin m (1-based) holds confidences in ((m-1)/M, m/M]: m = ceil(conf * M), 0 goes to bin 1.
-    auto m = static_cast<long>(std::ceil(conf * bins));
-    m = std::clamp(m, 1L, static_cast<long>(bins));
-    const auto k = static_cast<std::size_t>(m - 1);
-    b[k].count += 1;
-    conf_sum[k] += conf;
-    if (static_cast<std::int32_t>(arg) == gold[i]) hits[k] += 1;
-  }
-  double ece = 0.0;
-  const auto n = static_cast<double>(gold.size());
-  for (std::size_t k = 0; k < m_bins; ++k) {
-    if (b[k].count == 0) continue;
-    const auto cnt = static_cast<double>(b[k].count);
-    b[k].mean_confidence = conf_sum[k] / cnt;
-    b[k].accuracy = static_cast<double>(hits[k]) / cnt;
-    ece += cnt / n * std::abs(b[k].accuracy - b[k].mean_confidence);
-  }
-  if (bins_out != nullptr) *bins_out = std::move(b);
-  return ece;
+  std::vector<CalibrationBin> b;
+  std::vector<double> conf;
+  std::vector<std::int64_t> hits;
+  calibration_init(b, conf, hits, bins);
+  for (std::size_t i = 0; i < gold.size(); ++i)
+    calibration_add(b, conf, hits, probabilities.data() + i * num_classes, num_classes, gold[i]);
+  return calibration_finish(std::move(b), conf, hits, static_cast<std::int64_t>(gold.size()), bins_out);
 }
 
 ClassificationMetrics classification_metrics(std::span<const std::int32_t> gold,
@@ -176,42 +206,114 @@ ClassificationMetrics classification_metrics(std::span<const std::int32_t> gold,
                                                   std::to_string(predicted.size()));
   check_ids(gold, num_classes, "gold");
   check_ids(predicted, num_classes, "predicted");
+  if (!probabilities.empty()) check_probabilities(probabilities, gold.size(), num_classes);
+  ClassificationAccumulator acc(class_names, !probabilities.empty());
+  for (std::size_t i = 0; i < gold.size(); ++i)
+    acc.add(gold[i], predicted[i],
+            probabilities.empty() ? std::span<const float>()
+                                  : probabilities.subspan(i * num_classes, num_classes));
+  return acc.finish();
+}
 
+ClassificationAccumulator::ClassificationAccumulator(std::span<const std::string> class_names,
+                                                     bool with_probabilities)
+    : names_(class_names.begin(), class_names.end()),
+      with_probabilities_(with_probabilities),
+      support_(names_.size(), 0),
+      predicted_(names_.size(), 0),
+      correct_(names_.size(), 0) {
+  GYRE_CHECK(!names_.empty(), "classification metrics need at least one class name");
+  if (with_probabilities_) calibration_init(bins_, bin_confidence_, bin_hits_, kCalibrationBins);
+}
+
+void ClassificationAccumulator::add(std::int32_t gold, std::int32_t predicted,
+                                    std::span<const float> probabilities) {
+  const std::size_t n = names_.size();
+  const auto example = static_cast<std::size_t>(examples_);
+  check_id(gold, n, "gold", example);
+  check_id(predicted, n, "predicted", example);
+  if (with_probabilities_) {
+    GYRE_CHECK(probabilities.size() == n, "example " + std::to_string(example) + " has " +
+                                              std::to_string(probabilities.size()) + " probabilities for " +
+                                              std::to_string(n) + " classes");
+    check_row(probabilities.data(), n, example);
+  }
+  const auto g = static_cast<std::size_t>(gold);
+  const auto p = static_cast<std::size_t>(predicted);
+  ++cells_[static_cast<std::uint64_t>(g) * n + p];
+  support_[g] += 1;
+  predicted_[p] += 1;
+  if (g == p) correct_[g] += 1;
+  if (with_probabilities_) {
+    log_loss_sum_ += log_loss_term(probabilities.data(), n, gold, kLogLossEpsilon);
+    calibration_add(bins_, bin_confidence_, bin_hits_, probabilities.data(), n, gold);
+  }
+  ++examples_;
+}
+
+ClassificationMetrics ClassificationAccumulator::finish() const {
+  GYRE_CHECK(examples_ > 0, "classification metrics of zero examples");
+  const std::size_t n = names_.size();
   ClassificationMetrics r;
-  r.examples = static_cast<std::int64_t>(gold.size());
-  r.classes.resize(num_classes);
-  r.confusion.assign(num_classes * num_classes, 0);
-  for (std::size_t c = 0; c < num_classes; ++c) r.classes[c].name = class_names[c];
-  for (std::size_t i = 0; i < gold.size(); ++i) {
-    const auto g = static_cast<std::size_t>(gold[i]);
-    const auto p = static_cast<std::size_t>(predicted[i]);
-    r.confusion[g * num_classes + p] += 1;
-    r.classes[g].support += 1;
-    r.classes[p].predicted += 1;
-    if (g == p) {
-      r.classes[g].correct += 1;
-      r.correct += 1;
-    }
+  r.examples = examples_;
+  r.classes.resize(n);
+  for (std::size_t c = 0; c < n; ++c) {
+    ClassScores& cs = r.classes[c];
+    cs.name = names_[c];
+    cs.support = support_[c];
+    cs.predicted = predicted_[c];
+    cs.correct = correct_[c];
+    r.correct += cs.correct;
+    cs.present = cs.support > 0 || cs.predicted > 0;
+    finish_scores(cs);
   }
-  for (auto& c : r.classes) {
-    c.present = c.support > 0 || c.predicted > 0;
-    finish_scores(c);
-  }
+  r.confusion.reserve(cells_.size());
+  for (const auto& [key, count] : cells_)
+    r.confusion.push_back({static_cast<std::int32_t>(key / n), static_cast<std::int32_t>(key % n), count});
+  std::sort(r.confusion.begin(), r.confusion.end(), [](const ConfusionCell& a, const ConfusionCell& b) {
+    return a.gold != b.gold ? a.gold < b.gold : a.predicted < b.predicted;
+  });
   r.accuracy = static_cast<double>(r.correct) / static_cast<double>(r.examples);
   average(r.classes, r.macro, r.micro, r.weighted);
-
-  if (!probabilities.empty()) {
-    r.log_loss = log_loss(gold, probabilities, num_classes);
+  if (with_probabilities_) {
+    r.log_loss = log_loss_sum_ / static_cast<double>(examples_);
     r.calibration_error =
-        expected_calibration_error(gold, probabilities, num_classes, kCalibrationBins, &r.calibration_bins);
+        calibration_finish(bins_, bin_confidence_, bin_hits_, examples_, &r.calibration_bins);
   }
   return r;
 }
 
 std::int64_t ClassificationMetrics::confusion_at(std::size_t gold, std::size_t predicted) const {
   GYRE_CHECK(gold < classes.size() && predicted < classes.size(), "confusion index out of range");
-  return confusion[gold * classes.size() + predicted];
+  const ConfusionCell key{static_cast<std::int32_t>(gold), static_cast<std::int32_t>(predicted), 0};
+  const auto it = std::lower_bound(confusion.begin(), confusion.end(), key,
+                                   [](const ConfusionCell& a, const ConfusionCell& b) {
+                                     return a.gold != b.gold ? a.gold < b.gold : a.predicted < b.predicted;
+                                   });
+  return it != confusion.end() && it->gold == key.gold && it->predicted == key.predicted ? it->count : 0;
 }
+
+std::vector<ConfusionCell> ClassificationMetrics::top_confusions(std::size_t limit) const {
+  std::vector<ConfusionCell> off;
+  for (const auto& c : confusion)
+    if (c.gold != c.predicted) off.push_back(c);
+  const auto order = [](const ConfusionCell& a, const ConfusionCell& b) {
+    if (a.count != b.count) return a.count > b.count;
+    return a.gold != b.gold ? a.gold < b.gold : a.predicted < b.predicted;
+  };
+  const std::size_t k = std::min(limit, off.size());
+  std::partial_sort(off.begin(), off.begin() + static_cast<std::ptrdiff_t>(k), off.end(), order);
+  off.resize(k);
+  return off;
+}
+
+namespace {
+std::size_t off_diagonal_cells(const std::vector<ConfusionCell>& cells) {
+  std::size_t n = 0;
+  for (const auto& c : cells) n += c.gold != c.predicted ? 1 : 0;
+  return n;
+}
+}  // namespace
 
 nlohmann::json ClassificationMetrics::to_json() const {
   nlohmann::json j;
@@ -224,19 +326,26 @@ nlohmann::json ClassificationMetrics::to_json() const {
   j["macro"] = average_json(macro);
   j["micro"] = average_json(micro);
   j["weighted"] = average_json(weighted);
-  nlohmann::json labels = nlohmann::json::array();
-  nlohmann::json counts = nlohmann::json::array();
   const std::size_t n = classes.size();
-  for (std::size_t g = 0; g < n; ++g) {
-    labels.push_back(classes[g].name);
-    nlohmann::json row = nlohmann::json::array();
-    for (std::size_t p = 0; p < n; ++p) row.push_back(confusion[g * n + p]);
-    counts.push_back(std::move(row));
+  if (n <= kDenseConfusionLimit) {
+    nlohmann::json labels = nlohmann::json::array();
+    std::vector<std::vector<std::int64_t>> dense(n, std::vector<std::int64_t>(n, 0));
+    for (const auto& c : confusion)
+      dense[static_cast<std::size_t>(c.gold)][static_cast<std::size_t>(c.predicted)] = c.count;
+    for (std::size_t g = 0; g < n; ++g) labels.push_back(classes[g].name);
+    j["confusion"] = {
+        {"labels", std::move(labels)}, {"counts", dense}, {"rows", "gold"}, {"columns", "predicted"}};
+  } else {
+    nlohmann::json top = nlohmann::json::array();
+    for (const auto& c : top_confusions(kTopConfusions))
+      top.push_back({{"gold", classes[static_cast<std::size_t>(c.gold)].name},
+                     {"predicted", classes[static_cast<std::size_t>(c.predicted)].name},
+                     {"count", c.count}});
+    j["confusion"] = {{"top", std::move(top)},
+                      {"off_diagonal_cells", off_diagonal_cells(confusion)},
+                      {"rows", "gold"},
+                      {"columns", "predicted"}};
   }
-  j["confusion"] = {{"labels", std::move(labels)},
-                    {"counts", std::move(counts)},
-                    {"rows", "gold"},
-                    {"columns", "predicted"}};
   if (log_loss) j["log_loss"] = *log_loss;
   if (calibration_error) {
     nlohmann::json rel = nlohmann::json::array();
@@ -269,12 +378,25 @@ std::string ClassificationMetrics::to_table(int decimals) const {
 
 std::string ClassificationMetrics::confusion_table() const {
   const std::size_t n = classes.size();
+  if (n > kDenseConfusionLimit) {
+    const auto top = top_confusions(kTopConfusions);
+    detail::TextTable table({"gold", "predicted", "count"});
+    for (const auto& c : top)
+      table.add_row({classes[static_cast<std::size_t>(c.gold)].name,
+                     classes[static_cast<std::size_t>(c.predicted)].name, std::to_string(c.count)});
+    return "(" + std::to_string(n) + " labels: the " + std::to_string(top.size()) + " most frequent of " +
+           std::to_string(off_diagonal_cells(confusion)) + " confusions instead of the full matrix)\n" +
+           table.render();
+  }
+  std::vector<std::vector<std::int64_t>> dense(n, std::vector<std::int64_t>(n, 0));
+  for (const auto& c : confusion)
+    dense[static_cast<std::size_t>(c.gold)][static_cast<std::size_t>(c.predicted)] = c.count;
   std::vector<std::string> header{"gold \\ predicted"};
   for (const auto& c : classes) header.push_back(c.name);
   detail::TextTable table(std::move(header));
   for (std::size_t g = 0; g < n; ++g) {
     std::vector<std::string> row{classes[g].name};
-    for (std::size_t p = 0; p < n; ++p) row.push_back(std::to_string(confusion[g * n + p]));
+    for (std::size_t p = 0; p < n; ++p) row.push_back(std::to_string(dense[g][p]));
     table.add_row(std::move(row));
   }
   return table.render();
@@ -304,6 +426,72 @@ std::vector<ConfidentError> most_confident_errors(std::span<const std::int32_t> 
 
 // ---- multi-label ----------------------------------------------------------------------------
 
+MultiLabelAccumulator::MultiLabelAccumulator(std::span<const std::string> label_names, double threshold)
+    : names_(label_names.begin(), label_names.end()),
+      threshold_(threshold),
+      support_(names_.size(), 0),
+      predicted_(names_.size(), 0),
+      correct_(names_.size(), 0) {
+  GYRE_CHECK(!names_.empty(), "multi-label metrics need at least one label name");
+}
+
+void MultiLabelAccumulator::add_scores(std::span<const std::uint8_t> gold, std::span<const float> scores) {
+  GYRE_CHECK(scores.size() == names_.size(), "example " + std::to_string(examples_) + " has " +
+                                                 std::to_string(scores.size()) + " scores for " +
+                                                 std::to_string(names_.size()) + " labels");
+  decisions_.resize(scores.size());
+  for (std::size_t l = 0; l < scores.size(); ++l) {
+    if (!std::isfinite(scores[l]))
+      throw Error("score " + std::to_string(static_cast<std::size_t>(examples_) * names_.size() + l) +
+                  " is not finite");
+    decisions_[l] = static_cast<double>(scores[l]) >= threshold_ ? 1 : 0;
+  }
+  add_decisions(gold, decisions_);
+}
+
+void MultiLabelAccumulator::add_decisions(std::span<const std::uint8_t> gold,
+                                          std::span<const std::uint8_t> predicted) {
+  const std::size_t num_labels = names_.size();
+  GYRE_CHECK(gold.size() == num_labels && predicted.size() == num_labels,
+             "example " + std::to_string(examples_) + " has " + std::to_string(gold.size()) + " gold and " +
+                 std::to_string(predicted.size()) + " predicted indicators for " +
+                 std::to_string(num_labels) + " labels");
+  bool same = true;
+  for (std::size_t l = 0; l < num_labels; ++l) {
+    const std::uint8_t g = gold[l];
+    const std::uint8_t p = predicted[l];
+    if (g > 1 || p > 1)
+      throw Error("indicator of example " + std::to_string(examples_) + ", label " + std::to_string(l) +
+                  " is not 0 or 1");
+    support_[l] += g;
+    predicted_[l] += p;
+    correct_[l] += (g & p);
+    same = same && g == p;
+  }
+  exact_ += same ? 1 : 0;
+  ++examples_;
+}
+
+MultiLabelMetrics MultiLabelAccumulator::finish() const {
+  GYRE_CHECK(examples_ > 0, "multi-label metrics of zero examples");
+  MultiLabelMetrics r;
+  r.examples = examples_;
+  r.threshold = threshold_;
+  r.labels.resize(names_.size());
+  for (std::size_t l = 0; l < names_.size(); ++l) {
+    ClassScores& c = r.labels[l];
+    c.name = names_[l];
+    c.support = support_[l];
+    c.predicted = predicted_[l];
+    c.correct = correct_[l];
+    c.present = true;  // indicator matrices: every column is averaged (as sklearn does)
+    finish_scores(c);
+  }
+  average(r.labels, r.macro, r.micro, r.weighted);
+  r.exact_match = static_cast<double>(exact_) / static_cast<double>(examples_);
+  return r;
+}
+
 MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t> gold,
                                                     std::span<const std::uint8_t> predicted,
                                                     std::span<const std::string> label_names) {
@@ -315,35 +503,10 @@ MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t
   GYRE_CHECK(predicted.size() == gold.size(), "predicted indicator matrix has " +
                                                   std::to_string(predicted.size()) + " values, gold has " +
                                                   std::to_string(gold.size()));
-  const std::size_t rows = gold.size() / num_labels;
-  MultiLabelMetrics r;
-  r.examples = static_cast<std::int64_t>(rows);
-  r.threshold = std::numeric_limits<double>::quiet_NaN();
-  r.labels.resize(num_labels);
-  std::int64_t exact = 0;
-  for (std::size_t l = 0; l < num_labels; ++l) r.labels[l].name = label_names[l];
-  for (std::size_t i = 0; i < rows; ++i) {
-    bool same = true;
-    for (std::size_t l = 0; l < num_labels; ++l) {
-      const std::uint8_t g = gold[i * num_labels + l];
-      const std::uint8_t p = predicted[i * num_labels + l];
-      if (g > 1 || p > 1)
-        throw Error("indicator of example " + std::to_string(i) + ", label " + std::to_string(l) +
-                    " is not 0 or 1");
-      r.labels[l].support += g;
-      r.labels[l].predicted += p;
-      r.labels[l].correct += (g & p);
-      same = same && g == p;
-    }
-    exact += same ? 1 : 0;
-  }
-  for (auto& c : r.labels) {
-    c.present = true;  // indicator matrices: every column is averaged (as sklearn does)
-    finish_scores(c);
-  }
-  average(r.labels, r.macro, r.micro, r.weighted);
-  r.exact_match = static_cast<double>(exact) / static_cast<double>(rows);
-  return r;
+  MultiLabelAccumulator acc(label_names, std::numeric_limits<double>::quiet_NaN());
+  for (std::size_t i = 0; i < gold.size(); i += num_labels)
+    acc.add_decisions(gold.subspan(i, num_labels), predicted.subspan(i, num_labels));
+  return acc.finish();
 }
 
 MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
@@ -351,14 +514,15 @@ MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::sp
   GYRE_CHECK(scores.size() == gold.size(), "scores hold " + std::to_string(scores.size()) +
                                                " values, gold indicator matrix " +
                                                std::to_string(gold.size()));
-  std::vector<std::uint8_t> decisions(scores.size());
-  for (std::size_t i = 0; i < scores.size(); ++i) {
-    if (!std::isfinite(scores[i])) throw Error("score " + std::to_string(i) + " is not finite");
-    decisions[i] = static_cast<double>(scores[i]) >= threshold ? 1 : 0;
-  }
-  MultiLabelMetrics r = multilabel_metrics_from_decisions(gold, decisions, label_names);
-  r.threshold = threshold;
-  return r;
+  const std::size_t num_labels = label_names.size();
+  GYRE_CHECK(num_labels > 0, "multi-label metrics need at least one label name");
+  GYRE_CHECK(!gold.empty() && gold.size() % num_labels == 0,
+             "gold indicator matrix has " + std::to_string(gold.size()) +
+                 " values, not a positive multiple of " + std::to_string(num_labels) + " labels");
+  MultiLabelAccumulator acc(label_names, threshold);
+  for (std::size_t i = 0; i < gold.size(); i += num_labels)
+    acc.add_scores(gold.subspan(i, num_labels), scores.subspan(i, num_labels));
+  return acc.finish();
 }
 
 nlohmann::json MultiLabelMetrics::to_json() const {

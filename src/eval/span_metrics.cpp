@@ -6,7 +6,7 @@
 
 #include "eval/detail/table.hpp"
 #include "gyre/core/error.hpp"
-#include "gyre/eval/tag_scheme.hpp"
+#include "gyre/data/tag_scheme.hpp"
 
 namespace gyre::eval {
 namespace {
@@ -35,14 +35,14 @@ void TaggingScorer::add(std::span<const std::string> gold, std::span<const std::
   GYRE_CHECK(gold.size() == predicted.size(),
              "sentence " + std::to_string(sentences_) + ": gold has " + std::to_string(gold.size()) +
                  " tags but predictions have " + std::to_string(predicted.size()));
-  std::vector<Span> gold_spans, pred_spans;
+  std::vector<data::TypedSpan> gold_spans, pred_spans;
   try {
-    gold_spans = extract_spans(gold);
+    gold_spans = data::extract_spans(gold);
   } catch (const Error& e) {
     throw Error("sentence " + std::to_string(sentences_) + ", gold " + e.what());
   }
   try {
-    pred_spans = extract_spans(predicted);
+    pred_spans = data::extract_spans(predicted);
   } catch (const Error& e) {
     throw Error("sentence " + std::to_string(sentences_) + ", predicted " + e.what());
   }

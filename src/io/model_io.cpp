@@ -1,10 +1,13 @@
 #include "gyre/io/model_io.hpp"
 
 #include <algorithm>
+#include <iterator>
 #include <optional>
+#include <set>
 
 #include "gyre/core/error.hpp"
-#include "gyre/eval/tag_scheme.hpp"
+#include "gyre/core/file.hpp"
+#include "gyre/data/tag_scheme.hpp"
 #include "gyre/runtime/error.hpp"
 
 namespace gyre::io {
@@ -12,123 +15,121 @@ namespace gyre::io {
 namespace fs = std::filesystem;
 using nlohmann::json;
 
-json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab) {
-  json arch{{"task", data::to_string(spec.task)},
-            {"cell", model::cell_name(spec.cell)},
-            {"embedding_size", spec.embedding_size},
-            {"hidden_size", spec.hidden_size},
-            {"layers", spec.layers},
-            {"bidirectional", spec.bidirectional},
-            {"output", model::to_string(spec.output)}};
-  if (spec.task == data::Task::kClassify) {
-    arch["pooling"] = std::string(nn::pooling_name(spec.pooling));
-    if (spec.output == model::OutputKind::kSigmoid) arch["multi_label_threshold"] = spec.threshold;
-  } else {
-    arch["tag_scheme"] = spec.tag_scheme.empty() ? "none" : spec.tag_scheme;
-  }
-  json tokens = json::array();
+namespace {
+
+/// A runtime::Error about `path` as a FormatError (without naming the file twice).
+FormatError format_error(const std::string& path, const std::exception& e) {
+  std::string_view msg = e.what();
+  const std::string prefix = path + ": ";
+  if (msg.substr(0, prefix.size()) == prefix) msg.remove_prefix(prefix.size());
+  return FormatError(path, msg);
+}
+
+runtime::ModelHeader description(const model::ModelSpec& spec, const text::VocabFile& vocab) {
+  runtime::ModelHeader h;
+  h.architecture = model::architecture(spec);
+  h.labels = spec.labels;
+  h.tokenizer = vocab.tokenizer;
+  h.vocabulary.reserve(vocab.vocab.size());
   for (std::size_t i = 0; i < vocab.vocab.size(); ++i)
-    tokens.push_back(vocab.vocab.token(static_cast<std::int32_t>(i)));
-  json tokenizer;
-  runtime::to_json(tokenizer, vocab.tokenizer);
-  return json{
-      {"architecture", arch}, {"labels", spec.labels}, {"tokenizer", tokenizer}, {"vocabulary", tokens}};
+    h.vocabulary.push_back(vocab.vocab.token(static_cast<std::int32_t>(i)));
+  if (spec.has_char_encoder()) h.characters = vocab.characters;
+  return h;
+}
+
+}  // namespace
+
+json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab) {
+  try {
+    return json::parse(runtime::model_header_json(description(spec, vocab)));
+  } catch (const runtime::Error& e) {
+    throw Error(std::string("this model cannot be stored in a model file: ") + e.what());
+  }
 }
 
 namespace {
 
-bool is_matrix_weight(const std::string& name) {
-  auto ends_with = [&](std::string_view suffix) {
-    return name.size() >= suffix.size() &&
-           name.compare(name.size() - suffix.size(), suffix.size(), suffix) == 0;
-  };
-  return name == "embedding.weight" || name == "head.weight" || ends_with(".w_input") ||
-         ends_with(".w_hidden");
+/// Reads a number in [lo, hi) from an optional member of obj (default when absent).
+double optional_fraction(const json& obj, const char* key, const std::string& path) {
+  if (!obj.contains(key)) return 0.0;
+  const json& v = obj.at(key);
+  if (!v.is_number() || !(v.get<double>() >= 0.0 && v.get<double>() < 1.0))
+    throw FormatError(path, std::string("header: \"training.") + key + "\" must be a number in [0, 1)");
+  return v.get<double>();
 }
 
-template <typename T>
-T header_field(const json& j, const char* key, const std::string& path) {
-  if (!j.contains(key)) throw FormatError(path, std::string("header has no \"") + key + "\"");
-  try {
-    return j.at(key).get<T>();
-  } catch (const json::exception&) {
-    throw FormatError(path, std::string("header field \"") + key + "\" has the wrong type");
+/// counts[i] of an optional array member, all zero when absent; must have n unsigned entries.
+std::vector<std::uint64_t> optional_counts(const json& header, const char* key, std::size_t n,
+                                           const std::string& path) {
+  if (!header.contains(key)) return std::vector<std::uint64_t>(n, 0);
+  const json& v = header.at(key);
+  if (!v.is_array() || v.size() != n)
+    throw FormatError(
+        path, std::string("header: \"") + key + "\" must be an array of " + std::to_string(n) + " counts");
+  std::vector<std::uint64_t> out;
+  out.reserve(n);
+  for (const json& c : v) {
+    if (!c.is_number_unsigned())
+      throw FormatError(path, std::string("header: \"") + key + "\" must hold non-negative integers");
+    out.push_back(c.get<std::uint64_t>());
   }
+  return out;
 }
 
-// Rebuilds spec + vocabulary from a header (checkpoint or exported model).
-void parse_header(const json& header, const std::string& path, model::ModelSpec& spec,
-                  text::VocabFile& vocab) {
-  const json arch = header_field<json>(header, "architecture", path);
-  json spec_json;
+struct ParsedHeader {
+  model::ModelSpec spec;
+  text::VocabFile vocab;
+  json header;  // the whole header, with the checkpoint's extra members
+};
+
+// The model description through the runtime's one reader and validator (which also checks that
+// every tensor the architecture needs is in the file, so nothing below allocates more than the
+// file holds); then the members only checkpoints have (dropout, counts, trainer state).
+ParsedHeader parse_header(const runtime::ModelFile& file) {
+  const std::string& path = file.name();
+  runtime::ModelHeader h;
   try {
-    spec_json = json{{"task", arch.at("task")},
-                     {"cell", arch.at("cell")},
-                     {"embedding_size", arch.at("embedding_size")},
-                     {"hidden_size", arch.at("hidden_size")},
-                     {"layers", arch.at("layers")},
-                     {"bidirectional", arch.at("bidirectional")},
-                     {"output", arch.at("output")},
-                     {"pooling", arch.value("pooling", "mean")},
-                     {"tag_scheme", arch.value("tag_scheme", "")},
-                     {"threshold", arch.value("multi_label_threshold", 0.5)},
-                     {"labels", header.at("labels")},
-                     {"vocab_size", header.at("vocabulary").size()}};
-    const json training = header.value("training", json::object());
-    spec_json["dropout"] = training.value("dropout", 0.0);
-    spec_json["embedding_dropout"] = training.value("embedding_dropout", 0.0);
-    if (spec_json["tag_scheme"] == "none") spec_json["tag_scheme"] = "";
-  } catch (const json::exception& e) {
-    throw FormatError(path, std::string("header is missing a model field: ") + e.what());
+    h = runtime::parse_model_header(file.header_json(), path);
+    runtime::check_model_tensors(h, file);
+  } catch (const runtime::Error& e) {
+    throw format_error(path, e);
   }
+  ParsedHeader out;
   try {
-    spec = model::spec_from_json(spec_json);
-  } catch (const ConfigError& e) {
-    throw FormatError(path, std::string("bad model description in header: ") + e.what());
-  }
-  try {
-    runtime::from_json(header.at("tokenizer"), vocab.tokenizer);
+    out.header = json::parse(file.header_json());
+    out.spec = model::spec_from_header(h);
   } catch (const std::exception& e) {
-    throw FormatError(path, std::string("bad tokenizer settings in header: ") + e.what());
+    throw format_error(path, e);
   }
-  const auto tokens = header_field<std::vector<std::string>>(header, "vocabulary", path);
-  if (tokens.size() < 2 || tokens[0] != text::Vocab::kPadToken || tokens[1] != text::Vocab::kUnkToken)
-    throw FormatError(path, "vocabulary must start with \"<pad>\", \"<unk>\"");
-  std::vector<std::uint64_t> counts = header.value("vocabulary_counts", std::vector<std::uint64_t>{});
-  if (counts.empty()) counts.assign(tokens.size(), 0);
-  if (counts.size() != tokens.size())
-    throw FormatError(path, "vocabulary_counts and vocabulary differ in length");
+  const json training = out.header.value("training", json::object());
+  if (!training.is_object()) throw FormatError(path, "header: \"training\" must be an object");
+  out.spec.dropout = static_cast<float>(optional_fraction(training, "dropout", path));
+  out.spec.embedding_dropout = static_cast<float>(optional_fraction(training, "embedding_dropout", path));
+  out.vocab.tokenizer = h.tokenizer;
+  out.vocab.characters = h.characters;
+  auto counts = optional_counts(out.header, "vocabulary_counts", h.vocabulary.size(), path);
+  auto label_counts = optional_counts(out.header, "label_counts", h.labels.size(), path);
   try {
-    vocab.vocab = text::Vocab(std::vector<std::string>(tokens.begin() + 2, tokens.end()),
-                              std::vector<std::uint64_t>(counts.begin() + 2, counts.end()));
+    out.vocab.vocab = text::Vocab(std::vector<std::string>(std::make_move_iterator(h.vocabulary.begin() + 2),
+                                                           std::make_move_iterator(h.vocabulary.end())),
+                                  std::vector<std::uint64_t>(counts.begin() + 2, counts.end()));
+    out.vocab.labels = text::LabelSet(h.labels, std::move(label_counts));
   } catch (const Error& e) {
-    throw FormatError(path, e.what());
+    throw format_error(path, e);
   }
-  text::LabelCounts label_counts;
-  const auto label_count_list = header.value("label_counts", std::vector<std::uint64_t>{});
-  for (std::size_t i = 0; i < spec.labels.size(); ++i)
-    label_counts[spec.labels[i]] = i < label_count_list.size() ? label_count_list[i] : 0;
-  vocab.labels = text::LabelSet(label_counts);
-  if (vocab.labels.names() != spec.labels)
-    throw FormatError(path, "labels must be unique and sorted by name (byte order)");
+  return out;
 }
 
 runtime::ModelFile open_file(const fs::path& path) {
   try {
     return runtime::ModelFile::open(path.string());
   } catch (const runtime::Error& e) {
-    throw FormatError(path.string(), e.what());
+    throw format_error(path.string(), e);
   }
 }
 
-json header_of(const runtime::ModelFile& file) {
-  try {
-    return json::parse(file.header_json());
-  } catch (const json::exception& e) {
-    throw FormatError(file.name(), std::string("header is not valid JSON: ") + e.what());
-  }
-}
-
+// Shapes were checked against the header by parse_header; the spec built from that header makes
+// the same parameters.
 void load_parameters(const runtime::ModelFile& file, nn::ParameterStore& params) {
   for (auto& p : params) {
     const runtime::TensorInfo* t = file.find(p.name);
@@ -144,13 +145,24 @@ void load_parameters(const runtime::ModelFile& file, nn::ParameterStore& params)
 
 }  // namespace
 
+void refuse_version1_run(const fs::path& dir) {
+  std::error_code ec;
+  for (const char* old_name : {"checkpoint-best.bin", "checkpoint-last.bin"})
+    if (fs::exists(dir / old_name, ec) && !fs::exists(dir / kSelectedCheckpointFile, ec) &&
+        !fs::exists(dir / kResumeCheckpointFile, ec))
+      throw IoError(dir.string() + " is a run of an older gyre (its " + old_name +
+                    " is model-format version 1, whose tensor names changed in version " +
+                    std::to_string(runtime::kModelFormatVersion) + "); retrain it with this gyre");
+}
+
 fs::path resolve_model_path(const fs::path& model_or_run) {
   std::error_code ec;
   if (fs::is_directory(model_or_run, ec)) {
-    const fs::path best = model_or_run / "checkpoint-best.bin";
+    const fs::path best = model_or_run / kSelectedCheckpointFile;
+    refuse_version1_run(model_or_run);
     if (!fs::exists(best, ec))
-      throw IoError(model_or_run.string() +
-                    " is a directory without checkpoint-best.bin (not a finished or resumable run)");
+      throw IoError(model_or_run.string() + " is a directory without " + kSelectedCheckpointFile +
+                    " (not a finished or resumable run)");
     return best;
   }
   if (!fs::exists(model_or_run, ec))
@@ -158,15 +170,26 @@ fs::path resolve_model_path(const fs::path& model_or_run) {
   return model_or_run;
 }
 
-TrainedModel load_trained_model(const fs::path& model_or_run) {
+bool TrainedModel::exported() const {
+  return header.value("format", "") == "gyre-model";
+}
+
+TrainedModel load_trained_model(const fs::path& model_or_run, Engine engine) {
   TrainedModel out;
   out.path = resolve_model_path(model_or_run);
   const runtime::ModelFile file = open_file(out.path);
-  out.header = header_of(file);
-  const std::string format = out.header.value("format", "");
-  if (format != "gyre-checkpoint" && format != "gyre-model")
-    throw FormatError(out.path.string(), "not a gyre model or checkpoint (header format \"" + format + "\")");
-  parse_header(out.header, out.path.string(), out.spec, out.vocab);
+  ParsedHeader parsed = parse_header(file);
+  out.spec = std::move(parsed.spec);
+  out.vocab = std::move(parsed.vocab);
+  out.header = std::move(parsed.header);
+  if (engine == Engine::kRuntimeForExported && out.exported()) {
+    try {
+      out.runtime = runtime::Model::from_file(file);
+    } catch (const runtime::Error& e) {
+      throw format_error(out.path.string(), e);
+    }
+    return out;
+  }
   out.model = std::make_unique<model::SequenceModel>(out.spec);
   load_parameters(file, out.model->params());
   return out;
@@ -200,6 +223,7 @@ void write_checkpoint(const fs::path& path, const model::SequenceModel& model, c
                           static_cast<std::uint64_t>(tensor->cols()),
                           gyre::Span<const float>(tensor->data(), static_cast<std::size_t>(tensor->size())));
     }
+    remove_stale_temp_files_of(path);  // what a killed earlier writer left
     writer.write(path.string());
   } catch (const runtime::Error& e) {
     throw IoError("cannot write checkpoint " + path.string() + ": " + e.what());
@@ -208,13 +232,10 @@ void write_checkpoint(const fs::path& path, const model::SequenceModel& model, c
 
 json restore_checkpoint(const fs::path& path, model::SequenceModel& model, optim::Optimizer* optimizer) {
   const runtime::ModelFile file = open_file(path);
-  const json header = header_of(file);
-  if (header.value("format", "") != "gyre-checkpoint")
+  const ParsedHeader parsed = parse_header(file);
+  if (parsed.header.value("format", "") != "gyre-checkpoint")
     throw FormatError(path.string(), "not a gyre training checkpoint");
-  model::ModelSpec spec;
-  text::VocabFile vocab;
-  parse_header(header, path.string(), spec, vocab);
-  if (model::spec_to_json(spec) != model::spec_to_json(model.spec()))
+  if (!(parsed.spec == model.spec()))
     throw FormatError(path.string(), "the checkpoint's model differs from the configured one");
   load_parameters(file, model.params());
   if (optimizer != nullptr) {
@@ -227,8 +248,8 @@ json restore_checkpoint(const fs::path& path, model::SequenceModel& model, optim
       file.read_f32(*t, gyre::Span<float>(tensor->data(), static_cast<std::size_t>(tensor->size())));
     }
   }
-  return json{{"trainer", header.value("trainer", json::object())},
-              {"config", header.value("config", json::object())}};
+  return json{{"trainer", parsed.header.value("trainer", json::object())},
+              {"config", parsed.header.value("config", json::object())}};
 }
 
 std::size_t export_model(const TrainedModel& trained, const fs::path& out, runtime::DType precision,
@@ -243,11 +264,14 @@ std::size_t export_model(const TrainedModel& trained, const fs::path& out, runti
     // the tag scheme are written as kForbidden so it makes the same constrained choices as the
     // library (exp(-10000) is 0 in float).
     constexpr float kForbidden = -10000.0f;
-    std::optional<eval::TransitionRules> rules;
-    if (trained.spec.output == model::OutputKind::kCrf && !trained.spec.tag_scheme.empty())
-      rules = eval::transition_rules(trained.spec.labels, eval::parse_tag_scheme(trained.spec.tag_scheme));
+    std::optional<data::TransitionRules> rules;
+    if (trained.spec.output == model::OutputKind::kCrf && trained.spec.tag_scheme != data::TagScheme::kNone)
+      rules = data::transition_rules(trained.spec.labels, trained.spec.tag_scheme);
+    std::set<std::string, std::less<>> matrices;
+    for (const auto& t : runtime::model_tensors(description(trained.spec, trained.vocab)))
+      if (t.matrix) matrices.insert(t.name);
     for (const auto& p : trained.model->params()) {
-      const runtime::DType dtype = is_matrix_weight(p.name) ? precision : runtime::DType::kF32;
+      const runtime::DType dtype = matrices.count(p.name) ? precision : runtime::DType::kF32;
       nn::Matrix values = p.value;
       if (rules) {
         const std::vector<std::uint8_t>* allowed = p.name == "crf.transitions" ? &rules->allowed
@@ -262,6 +286,7 @@ std::size_t export_model(const TrainedModel& trained, const fs::path& out, runti
           p.name, static_cast<std::uint64_t>(values.rows()), static_cast<std::uint64_t>(values.cols()),
           gyre::Span<const float>(values.data(), static_cast<std::size_t>(values.size())), dtype);
     }
+    remove_stale_temp_files_of(out);  // what a killed earlier writer left
     writer.write(out.string());
   } catch (const runtime::Error& e) {
     throw IoError("cannot export to " + out.string() + ": " + e.what());

@@ -1,10 +1,12 @@
 #include "gyre/model/sequence_model.hpp"
 
 #include <cmath>
+#include <limits>
 
 #include "gyre/core/error.hpp"
-#include "gyre/eval/tag_scheme.hpp"
+#include "gyre/data/tag_scheme.hpp"
 #include "gyre/nn/loss.hpp"
+#include "gyre/runtime/calibration.hpp"
 
 namespace gyre::model {
 
@@ -25,22 +27,25 @@ SequenceModel::SequenceModel(const ModelSpec& spec)
       pooling_(spec.pooling, spec.directions()) {
   validate(spec_);
   embedding_ = std::make_unique<nn::Embedding>(params_, spec_.vocab_size, spec_.embedding_size);
+  if (spec_.has_char_encoder())
+    chars_ = std::make_unique<nn::CharCnn>(params_, spec_.char_vocab_size, spec_.char_embedding_size,
+                                           spec_.char_filters, spec_.char_width, "chars");
   nn::RnnStackConfig rc;
   rc.cell = spec_.cell;
-  rc.input_size = spec_.embedding_size;
+  rc.input_size = spec_.input_size();
   rc.hidden_size = spec_.hidden_size;
   rc.layers = spec_.layers;
   rc.bidirectional = spec_.bidirectional;
   rc.dropout = spec_.dropout;
   rnn_ = std::make_unique<nn::RnnStack>(rc, params_, "rnn");
-  head_ = std::make_unique<nn::Linear>(params_, spec_.features(), spec_.num_labels(), "head");
+  head_ = std::make_unique<nn::Linear>(params_, spec_.features(), spec_.num_labels(), "readout");
   if (spec_.output == OutputKind::kCrf) {
     crf_ = std::make_unique<nn::Crf>(params_, static_cast<std::size_t>(spec_.num_labels()), "crf");
     // Only tag sequences valid in the scheme exist for the CRF: Viterbi never produces an
     // invalid one, and the partition function (loss, marginals) sums over valid paths only. The
     // trainer checks (or repairs) the gold sequences before training, so every gold path is valid.
-    if (!spec_.tag_scheme.empty()) {
-      const auto rules = eval::transition_rules(spec_.labels, eval::parse_tag_scheme(spec_.tag_scheme));
+    if (spec_.tag_scheme != data::TagScheme::kNone) {
+      const auto rules = data::transition_rules(spec_.labels, spec_.tag_scheme);
       crf_->set_constraints(rules.allowed, rules.start, rules.end, true);
     }
   }
@@ -52,6 +57,7 @@ void SequenceModel::init_parameters(Rng& rng) {
   embedding_->init_parameters(rng);
   rnn_->init_parameters(rng);
   head_->init_parameters(rng);
+  if (chars_) chars_->init_parameters(rng);  // last: models without it draw exactly as before
   // The CRF's transition scores start at zero (constructor).
 }
 
@@ -94,16 +100,19 @@ double SequenceModel::train_batch(const data::Batch& batch, std::span<const data
     const int Bw = static_cast<int>(active_.size());
     const int Tw = win.max_len;
     ids_.assign(static_cast<std::size_t>(Tw) * static_cast<std::size_t>(Bw), 0);
+    char_cells_.assign(chars_ ? ids_.size() : 0, -1);
     lengths_.resize(static_cast<std::size_t>(Bw));
     for (int i = 0; i < Bw; ++i) {
       const auto b = static_cast<std::size_t>(active_[static_cast<std::size_t>(i)]);
       const int len = win.lengths[b];
       lengths_[static_cast<std::size_t>(i)] = len;
-      for (int t = 0; t < len; ++t)
-        ids_[static_cast<std::size_t>(t * Bw + i)] =
-            batch.ids[static_cast<std::size_t>(win.start[b] + t) * static_cast<std::size_t>(B) + b];
+      for (int t = 0; t < len; ++t) {
+        const auto cell = static_cast<std::size_t>(win.start[b] + t) * static_cast<std::size_t>(B) + b;
+        ids_[static_cast<std::size_t>(t * Bw + i)] = batch.ids[cell];
+        if (chars_) char_cells_[static_cast<std::size_t>(t * Bw + i)] = static_cast<int>(cell);
+      }
     }
-    embedding_->forward(ids_, x_);
+    embed(batch);
     embedding_dropout_.forward(x_, true, &dropout_rng);
     const nn::RnnState* init = nullptr;
     if (carry && w > 0) {
@@ -184,26 +193,177 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
     head_dropout_.backward(d_h_);
   }
   if (!std::isfinite(loss_sum)) throw DivergenceError("the loss is not finite");
-  if (embedding_->trainable()) {
+  if (embedding_->trainable() || chars_) {
     rnn_->backward(d_h_, d_x_);
     embedding_dropout_.backward(d_x_);
-    embedding_->backward(d_x_);
+    embed_backward();
   } else {
     rnn_->backward(d_h_);
   }
   return loss_sum;
 }
 
+TokenAttribution SequenceModel::integrated_gradients(std::span<const std::int32_t> ids, int target,
+                                                     int steps) {
+  GYRE_CHECK(!chars_,
+             "integrated gradients: this model has a character encoder; pass the encoded example with its "
+             "characters");
+  data::EncodedExample example;
+  example.ids.assign(ids.begin(), ids.end());
+  return integrated_gradients(example, target, steps);
+}
+
+TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample& example, int target,
+                                                     int steps) {
+  const std::span<const std::int32_t> ids = example.ids;
+  GYRE_CHECK(spec_.task == data::Task::kClassify, "integrated gradients: only for classifiers");
+  GYRE_CHECK(!chars_ || example.char_offsets.size() == ids.size() + 1,
+             "integrated gradients: a model with a character encoder needs the text's characters");
+  GYRE_CHECK(!ids.empty(), "integrated gradients: the text has no tokens");
+  GYRE_CHECK(target >= 0 && target < spec_.num_labels(), "integrated gradients: target label out of range");
+  GYRE_CHECK(steps >= 1, "integrated gradients: at least one step");
+  for (const auto id : ids)
+    GYRE_CHECK(id >= 0 && id < spec_.vocab_size, "integrated gradients: token id out of range");
+  const int T = static_cast<int>(ids.size());
+  const int B = steps + 1;  // alpha = 0, 1/steps, ..., 1
+  const auto C = static_cast<std::size_t>(spec_.num_labels());
+  const Eigen::Index E = spec_.input_size();
+  if (chars_) {
+    // [word, chars] of each token: the recurrent stack's input, the path's end point.
+    embedding_->forward(ids, word_x_);
+    chars_->forward(nn::CharTokens{example.char_ids, example.char_offsets}, char_x_);
+    text_embedding_.resize(T, E);
+    text_embedding_.leftCols(spec_.embedding_size) = word_x_;
+    text_embedding_.rightCols(spec_.char_filters) = char_x_;
+  } else {
+    embedding_->forward(ids, text_embedding_);  // [T x E]
+  }
+  x_.resize(static_cast<Eigen::Index>(T) * B, E);
+  for (int t = 0; t < T; ++t)
+    for (int b = 0; b < B; ++b)
+      x_.row(t * B + b) = text_embedding_.row(t) * (static_cast<float>(b) / static_cast<float>(steps));
+  lengths_.assign(static_cast<std::size_t>(B), T);
+  rnn_->forward(x_, T, lengths_, h_, false, nullptr);
+  pooling_.forward(h_, T, lengths_, pooled_);
+  head_->forward(pooled_, logits_);
+  // F = p_target of the (tempered) output; dF/dz by hand:
+  //   softmax: dp_k/dz_c = p_k (delta_kc - p_c) / T;  sigmoid: dp_k/dz_k = p_k (1 - p_k) / T_k.
+  const bool tempered = calibrated_ && !spec_.temperature.empty();
+  const auto k = static_cast<std::size_t>(target);
+  d_logits_.setZero(B, static_cast<Eigen::Index>(C));
+  std::vector<float> p(C);
+  std::vector<double> f(static_cast<std::size_t>(B));
+  for (int b = 0; b < B; ++b) {
+    const float* z = &logits_(b, 0);
+    if (spec_.output == OutputKind::kSigmoid) {
+      const float temp = tempered ? spec_.temperature[k] : 1.0f;
+      const float pk = runtime::tempered_sigmoid(z[k], temp);
+      f[static_cast<std::size_t>(b)] = pk;
+      d_logits_(b, static_cast<Eigen::Index>(k)) = pk * (1.0f - pk) / temp;
+    } else {
+      const float temp = tempered ? spec_.temperature[0] : 1.0f;
+      runtime::tempered_softmax(z, C, temp, p.data());
+      f[static_cast<std::size_t>(b)] = p[k];
+      for (std::size_t c = 0; c < C; ++c)
+        d_logits_(b, static_cast<Eigen::Index>(c)) = p[k] * ((c == k ? 1.0f : 0.0f) - p[c]) / temp;
+    }
+  }
+  head_->backward(d_logits_, &d_pooled_);
+  pooling_.backward(d_pooled_, d_h_);
+  rnn_->backward(d_h_, d_x_);
+  params_.zero_grad();  // the layers added parameter gradients nobody asked for
+  TokenAttribution out;
+  out.steps = steps;
+  out.output = f.back();
+  out.baseline_output = f.front();
+  out.scores.assign(static_cast<std::size_t>(T), 0.0f);
+  for (int t = 0; t < T; ++t) {
+    double integral_dot = 0.0;  // sum_e x_te * trapezoid mean of dF/dx_te over alpha
+    for (int b = 0; b < B; ++b) {
+      const double w = (b == 0 || b == steps) ? 0.5 : 1.0;
+      integral_dot += w * static_cast<double>(d_x_.row(t * B + b).dot(text_embedding_.row(t)));
+    }
+    out.scores[static_cast<std::size_t>(t)] = static_cast<float>(integral_dot / steps);
+    out.sum += out.scores[static_cast<std::size_t>(t)];
+  }
+  return out;
+}
+
+void SequenceModel::set_temperature(std::vector<float> temperature) {
+  ModelSpec s = spec_;
+  s.temperature = std::move(temperature);
+  validate(s);
+  spec_.temperature = std::move(s.temperature);
+}
+
+void SequenceModel::embed(const data::Batch& batch) {
+  if (!chars_) {
+    embedding_->forward(ids_, x_);
+    return;
+  }
+  GYRE_CHECK(batch.char_offsets.size() == batch.ids.size() + 1,
+             "a model with a character encoder needs batches with characters");
+  char_ids_.clear();
+  char_offsets_.assign(1, 0);
+  for (const int cell : char_cells_) {
+    if (cell >= 0) {
+      const auto from = batch.char_offsets[static_cast<std::size_t>(cell)];
+      const auto to = batch.char_offsets[static_cast<std::size_t>(cell) + 1];
+      char_ids_.insert(char_ids_.end(), batch.char_ids.begin() + from, batch.char_ids.begin() + to);
+    }
+    char_offsets_.push_back(static_cast<std::int32_t>(char_ids_.size()));
+  }
+  embedding_->forward(ids_, word_x_);
+  chars_->forward(nn::CharTokens{char_ids_, char_offsets_}, char_x_);
+  const Eigen::Index E = spec_.embedding_size, F = spec_.char_filters;
+  x_.resize(word_x_.rows(), E + F);
+  x_.leftCols(E) = word_x_;
+  x_.rightCols(F) = char_x_;
+}
+
+void SequenceModel::embed_backward() {
+  if (!chars_) {
+    embedding_->backward(d_x_);
+    return;
+  }
+  const Eigen::Index E = spec_.embedding_size, F = spec_.char_filters;
+  if (embedding_->trainable()) {
+    d_part_ = d_x_.leftCols(E);
+    embedding_->backward(d_part_);
+  }
+  d_part_ = d_x_.rightCols(F);
+  chars_->backward(d_part_);
+}
+
 void SequenceModel::predict(const data::Batch& batch, Prediction& out) {
   const int B = batch.batch;
   const int T = batch.max_len;
-  embedding_->forward(batch.ids, x_);
+  const bool tempered = calibrated_ && !spec_.temperature.empty();
+  const auto C = static_cast<std::size_t>(spec_.num_labels());
+  ids_.assign(batch.ids.begin(), batch.ids.end());
+  char_cells_.clear();
+  if (chars_)
+    for (std::size_t cell = 0; cell < batch.ids.size(); ++cell) {
+      const auto t = static_cast<int>(cell / static_cast<std::size_t>(B));
+      const auto b = cell % static_cast<std::size_t>(B);
+      char_cells_.push_back(t < batch.lengths[b] ? static_cast<int>(cell) : -1);
+    }
+  embed(batch);
   rnn_->forward(x_, T, batch.lengths, h_, false, nullptr);
   if (spec_.task == data::Task::kClassify) {
     pooling_.forward(h_, T, batch.lengths, pooled_);
     head_->forward(pooled_, logits_);
+    out.scores = logits_;
+    out.features = pooled_;
+    out.probs.resize(logits_.rows(), logits_.cols());
     if (spec_.output == OutputKind::kSigmoid) {
-      out.probs = (1.0f + (-logits_.array()).exp()).inverse().matrix();
+      for (Eigen::Index r = 0; r < logits_.rows(); ++r)
+        for (std::size_t c = 0; c < C; ++c)
+          out.probs(r, static_cast<Eigen::Index>(c)) = runtime::tempered_sigmoid(
+              logits_(r, static_cast<Eigen::Index>(c)), tempered ? spec_.temperature[c] : 1.0f);
+    } else if (tempered) {
+      for (Eigen::Index r = 0; r < logits_.rows(); ++r)
+        runtime::tempered_softmax(&logits_(r, 0), C, spec_.temperature[0], &out.probs(r, 0));
     } else {
       nn::softmax_rows(logits_, out.probs);
     }
@@ -215,15 +375,27 @@ void SequenceModel::predict(const data::Batch& batch, Prediction& out) {
   if (crf_) {
     crf_->decode(logits_, batch.lengths, out.tags);
     crf_->marginals(logits_, batch.lengths, out.probs);
-    return;
-  }
-  nn::softmax_rows(logits_, out.probs);
-  for (int b = 0; b < B; ++b) {
-    for (int t = 0; t < batch.lengths[static_cast<std::size_t>(b)]; ++t) {
-      Eigen::Index best = 0;
-      out.probs.row(t * B + b).maxCoeff(&best);
-      out.tags[static_cast<std::size_t>(t * B + b)] = static_cast<std::int32_t>(best);
+  } else {
+    nn::softmax_rows(logits_, out.probs);
+    for (int b = 0; b < B; ++b) {
+      for (int t = 0; t < batch.lengths[static_cast<std::size_t>(b)]; ++t) {
+        Eigen::Index best = 0;
+        out.probs.row(t * B + b).maxCoeff(&best);
+        out.tags[static_cast<std::size_t>(t * B + b)] = static_cast<std::int32_t>(best);
+      }
     }
+  }
+  // Scores of a tagger: log of its token distribution, floored at the smallest normal float so
+  // that a zero marginal (a tag the scheme forbids here) stays finite.
+  out.scores = out.probs.array().max(std::numeric_limits<float>::min()).log().matrix();
+  if (tempered) {
+    for (int b = 0; b < B; ++b)
+      for (int t = 0; t < batch.lengths[static_cast<std::size_t>(b)]; ++t)
+        if (crf_)
+          runtime::temper_distribution(&out.probs(t * B + b, 0), C, spec_.temperature[0]);
+        else
+          runtime::tempered_softmax(&logits_(t * B + b, 0), C, spec_.temperature[0],
+                                    &out.probs(t * B + b, 0));
   }
 }
 

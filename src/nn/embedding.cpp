@@ -13,7 +13,7 @@
 namespace gyre::nn {
 
 Embedding::Embedding(ParameterStore& store, int vocab_size, int dim, const std::string& name)
-    : weight_(store.add(name + ".weight", vocab_size, dim, /*sparse_rows=*/true)) {}
+    : weight_(store.add(name + ".vectors", vocab_size, dim, /*sparse_rows=*/true)) {}
 
 void Embedding::init_parameters(Rng& rng) {
   normal(weight_.value, rng, 0.1f);  // N(0, 1) * 0.1: common practice, no source (DEVELOPERS.md)

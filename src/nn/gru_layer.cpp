@@ -3,6 +3,7 @@
 #include <string>
 
 #include "detail/buffer.hpp"
+#include "detail/fast_kernels.hpp"
 #include "detail/gemm.hpp"
 #include "detail/sequence_layout.hpp"
 #include "gyre/core/error.hpp"
@@ -17,7 +18,7 @@ struct GruLayer::Workspace {
   detail::Gemm gemm_input, gemm_step, gemm_back, gemm_dw_input, gemm_dw_hidden, gemm_dx;
   detail::GrowBuffer x;       // [N x D]: packed input
   detail::GrowBuffer gates;   // [N x 3H]: W x + b_i, then activations r z n in place
-  detail::GrowBuffer hn;      // [N x H]: U_n h + b_hn (the term r multiplies)
+  detail::GrowBuffer hn;      // [N x H]: U[h~] h + b_hidden[h~] (the term r multiplies)
   detail::GrowBuffer h;       // [N x H]: state after the step
   detail::GrowBuffer h_prev;  // [N x H]: state before the step
   detail::GrowBuffer h0;      // [B x H]: initial state (sorted) / running gradient (backward)
@@ -25,6 +26,7 @@ struct GruLayer::Workspace {
   detail::GrowBuffer dgi;     // [N x 3H]: d loss / d input-side pre-activations
   detail::GrowBuffer dgh;     // [N x 3H]: d loss / d hidden-side pre-activations (U h + b_h)
   detail::GrowBuffer dx;      // [N x D]
+  detail::fast::AlignedBuffer u_step, u_back;  // U packed for the AVX-512 path (see lstm_layer.cpp)
 };
 
 GruLayer::GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -34,8 +36,8 @@ GruLayer::GruLayer(ParameterStore& store, const std::string& prefix, int input_s
       reverse_(reverse),
       w_input_(store.add(prefix + ".w_input", 3 * static_cast<Eigen::Index>(hidden_size), input_size)),
       w_hidden_(store.add(prefix + ".w_hidden", 3 * static_cast<Eigen::Index>(hidden_size), hidden_size)),
-      bias_(store.add(prefix + ".bias", 1, 3 * static_cast<Eigen::Index>(hidden_size))),
-      bias_hidden_(store.add(prefix + ".bias_hidden", 1, 3 * static_cast<Eigen::Index>(hidden_size))),
+      bias_(store.add(prefix + ".b_input", 1, 3 * static_cast<Eigen::Index>(hidden_size))),
+      bias_hidden_(store.add(prefix + ".b_hidden", 1, 3 * static_cast<Eigen::Index>(hidden_size))),
       ws_(std::make_unique<Workspace>()) {}
 
 GruLayer::~GruLayer() = default;
@@ -51,7 +53,8 @@ std::size_t GruLayer::workspace_capacity() const noexcept {
   const Workspace& w = *ws_;
   return w.x.capacity_bytes() + w.gates.capacity_bytes() + w.hn.capacity_bytes() + w.h.capacity_bytes() +
          w.h_prev.capacity_bytes() + w.h0.capacity_bytes() + w.step.capacity_bytes() +
-         w.dgi.capacity_bytes() + w.dgh.capacity_bytes() + w.dx.capacity_bytes();
+         w.dgi.capacity_bytes() + w.dgh.capacity_bytes() + w.dx.capacity_bytes() + w.u_step.capacity_bytes() +
+         w.u_back.capacity_bytes();
 }
 
 void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
@@ -87,6 +90,10 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
 
   const Matrix& U = w_hidden_.value;
   const auto bh = bias_hidden_.value.row(0);
+  const bool fused = detail::fast::available() && H % detail::fast::kCellUnits == 0;
+  if (fused)
+    detail::fast::pack_gates(
+        U.data(), 3, H, w.u_step.reserve(detail::fast::packed_size(H, 3 * H, 3 * detail::fast::kCellUnits)));
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;
@@ -94,8 +101,13 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
       h_prev.middleRows(o, n) = hi.topRows(n);
     else
       h_prev.middleRows(o, n) = hs.middleRows(lay.offset(s - 1), n);
+    if (fused) {
+      detail::fast::gru_step(n, H, h_prev.row(o).data(), H, w.u_step.data(), bias_hidden_.value.data(),
+                             gates.row(o).data(), hn.row(o).data(), hs.row(o).data());
+      continue;
+    }
     auto st = step.topRows(n);
-    // All three recurrent gates from one GEMM ("reset after": r multiplies U_n h + b_hn).
+    // All three recurrent gates from one GEMM ("reset after": r multiplies U[h~] h + b_hidden[h~]).
     w.gemm_step.run(st, h_prev.middleRows(o, n), detail::Op::kN, U, detail::Op::kT, false);
     st.rowwise() += bh;
     auto g = gates.middleRows(o, n);
@@ -138,6 +150,9 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
 
   dh.setZero();
   const Matrix& U = w_hidden_.value;
+  const bool fast = detail::fast::available();
+  if (fast)
+    detail::fast::pack_b(U.data(), H, false, 3 * H, H, w.u_back.reserve(detail::fast::packed_size(3 * H, H)));
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
@@ -153,7 +168,11 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
     gh.leftCols(2 * H) = gi.leftCols(2 * H);
     gh.rightCols(H) = gi.rightCols(H) * r;
     dH *= z;  // direct path h' = ... + z * h
-    w.gemm_back.run(dh.topRows(n), dgh.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, true);
+    if (fast)
+      detail::fast::gemm_packed(n, H, 3 * H, dgh.row(o).data(), 3 * H, false, w.u_back.data(), dh.data(), H,
+                                true, nullptr);
+    else
+      w.gemm_back.run(dh.topRows(n), dgh.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, true);
   }
 
   w.gemm_dw_input.run(w_input_.grad, dgi, detail::Op::kT, xs, detail::Op::kN, true);

@@ -8,8 +8,8 @@
 namespace gyre::nn {
 
 Linear::Linear(ParameterStore& store, int input_size, int output_size, const std::string& name)
-    : weight_(store.add(name + ".weight", output_size, input_size)),
-      bias_(store.add(name + ".bias", 1, output_size)) {}
+    : weight_(store.add(name + ".w", output_size, input_size)),
+      bias_(store.add(name + ".b", 1, output_size)) {}
 
 void Linear::init_parameters(Rng& rng) {
   glorot_uniform(weight_.value, rng);

@@ -3,6 +3,7 @@
 #include <string>
 
 #include "detail/buffer.hpp"
+#include "detail/fast_kernels.hpp"
 #include "detail/gemm.hpp"
 #include "detail/sequence_layout.hpp"
 #include "gyre/core/error.hpp"
@@ -27,6 +28,9 @@ struct LstmLayer::Workspace {
   detail::GrowBuffer h0, c0;  // [B x H]: initial state in sorted order / its gradient (backward)
   detail::GrowBuffer dgates;  // [N x 4H]: d loss / d pre-activations
   detail::GrowBuffer dx;      // [N x D]: packed input gradient
+  // AVX-512 path: U packed once per forward (gate-interleaved for the fused step) and once per
+  // backward (panels of U for dG U); reused by every time step.
+  detail::fast::AlignedBuffer u_step, u_back;
 };
 
 LstmLayer::LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -36,7 +40,7 @@ LstmLayer::LstmLayer(ParameterStore& store, const std::string& prefix, int input
       reverse_(reverse),
       w_input_(store.add(prefix + ".w_input", 4 * static_cast<Eigen::Index>(hidden_size), input_size)),
       w_hidden_(store.add(prefix + ".w_hidden", 4 * static_cast<Eigen::Index>(hidden_size), hidden_size)),
-      bias_(store.add(prefix + ".bias", 1, 4 * static_cast<Eigen::Index>(hidden_size))),
+      bias_(store.add(prefix + ".b_input", 1, 4 * static_cast<Eigen::Index>(hidden_size))),
       ws_(std::make_unique<Workspace>()) {}
 
 LstmLayer::~LstmLayer() = default;
@@ -53,7 +57,8 @@ std::size_t LstmLayer::workspace_capacity() const noexcept {
   const Workspace& w = *ws_;
   return w.x.capacity_bytes() + w.gates.capacity_bytes() + w.h.capacity_bytes() + w.c.capacity_bytes() +
          w.tanh_c.capacity_bytes() + w.h_prev.capacity_bytes() + w.c_prev.capacity_bytes() +
-         w.h0.capacity_bytes() + w.c0.capacity_bytes() + w.dgates.capacity_bytes() + w.dx.capacity_bytes();
+         w.h0.capacity_bytes() + w.c0.capacity_bytes() + w.dgates.capacity_bytes() + w.dx.capacity_bytes() +
+         w.u_step.capacity_bytes() + w.u_back.capacity_bytes();
 }
 
 void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
@@ -95,6 +100,11 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   gates.rowwise() += bias_.value.row(0);
 
   const Matrix& U = w_hidden_.value;
+  // Fused AVX-512 step (GEMM + cell in one pass over the gates) when H allows it.
+  const bool fused = detail::fast::available() && H % detail::fast::kCellUnits == 0;
+  if (fused)
+    detail::fast::pack_gates(
+        U.data(), 4, H, w.u_step.reserve(detail::fast::packed_size(H, 4 * H, 4 * detail::fast::kCellUnits)));
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;  // sorted by length: no later step has work either
@@ -105,6 +115,11 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
       const Eigen::Index po = lay.offset(s - 1);
       h_prev.middleRows(o, n) = hs.middleRows(po, n);
       c_prev.middleRows(o, n) = cs.middleRows(po, n);
+    }
+    if (fused) {
+      detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_prev.row(o).data(), H, w.u_step.data(),
+                              gates.row(o).data(), cs.row(o).data(), tanh_c.row(o).data(), hs.row(o).data());
+      continue;
     }
     auto g = gates.middleRows(o, n);
     // One fused gate GEMM over the running sequences: gates += h_prev U^T.
@@ -160,6 +175,9 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   dh.setZero();  // the gradient w.r.t. the final state is zero (window boundary)
   dc.setZero();
   const Matrix& U = w_hidden_.value;
+  const bool fast = detail::fast::available();
+  if (fast)
+    detail::fast::pack_b(U.data(), H, false, 4 * H, H, w.u_back.reserve(detail::fast::packed_size(4 * H, H)));
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
@@ -178,7 +196,11 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
     dC *= f;
     // Sequences not running at step s have had no step yet in this backward sweep: their
     // gradients are still zero and stay so.
-    w.gemm_back.run(dh.topRows(n), dgates.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, false);
+    if (fast)
+      detail::fast::gemm_packed(n, H, 4 * H, dgates.row(o).data(), 4 * H, false, w.u_back.data(), dh.data(),
+                                H, false, nullptr);
+    else
+      w.gemm_back.run(dh.topRows(n), dgates.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, false);
   }
 
   w.gemm_dw_input.run(w_input_.grad, dgates, detail::Op::kT, xs, detail::Op::kN, true);

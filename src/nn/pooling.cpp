@@ -7,25 +7,6 @@
 
 namespace gyre::nn {
 
-PoolingKind parse_pooling(std::string_view name) {
-  if (name == "last") return PoolingKind::kLast;
-  if (name == "mean") return PoolingKind::kMean;
-  if (name == "max") return PoolingKind::kMax;
-  throw ConfigError("pooling", "unknown pooling '" + std::string(name) + "' (expected last, mean or max)");
-}
-
-std::string_view pooling_name(PoolingKind kind) noexcept {
-  switch (kind) {
-    case PoolingKind::kLast:
-      return "last";
-    case PoolingKind::kMean:
-      return "mean";
-    case PoolingKind::kMax:
-      return "max";
-  }
-  return "?";
-}
-
 Pooling::Pooling(PoolingKind kind, int directions) : kind_(kind), directions_(directions) {
   GYRE_CHECK(directions == 1 || directions == 2, "Pooling: directions must be 1 or 2");
 }

@@ -2,6 +2,8 @@
 
 #include <cmath>
 
+#include "optim/detail/adam_kernel.hpp"
+#include "gyre/core/cpu_features.hpp"
 #include "gyre/core/error.hpp"
 
 namespace gyre::optim {
@@ -46,6 +48,10 @@ void Adam::update_block(float* value, const float* grad, float* const* slots, st
   const float decay = decoupled_ ? weight_decay_ : 0.0F;  // AdamW: decoupled
   const float c1 = inv_bias1_;
   const float c2 = inv_bias2_;
+  if (use_avx512_training_kernels()) {
+    detail::adam_update_avx512({b1, b2, lr, eps, l2, decay, c1, c2}, value, grad, m, v, count);
+    return;
+  }
   // A plain loop with std::sqrt (correctly rounded) rather than Eigen's vectorised square root,
   // which uses an approximate reciprocal square root when EIGEN_FAST_MATH is on: the update then
   // does not depend on the SIMD width the library was built for.

@@ -8,13 +8,11 @@
 
 namespace gyre::optim {
 
-namespace {
 // Sum of squares of one float block in double (float partial sums would lose digits for the
 // millions of values an embedding gradient can hold).
 double sum_squares(const float* data, Eigen::Index count) {
   return Eigen::Map<const Eigen::ArrayXf>(data, count).cast<double>().square().sum();
 }
-}  // namespace
 
 double global_grad_norm(const nn::ParameterStore& params) {
   double total = 0.0;

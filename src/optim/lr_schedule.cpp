@@ -147,13 +147,38 @@ void PlateauSchedule::load_state(const std::vector<StateScalar>& state) {
   misses_ = static_cast<std::int64_t>(misses);
 }
 
+const char* to_string(ScheduleKind kind) noexcept {
+  switch (kind) {
+    case ScheduleKind::kConstant:
+      return "constant";
+    case ScheduleKind::kLinear:
+      return "linear";
+    case ScheduleKind::kCosine:
+      return "cosine";
+    case ScheduleKind::kPlateau:
+      return "plateau";
+  }
+  return "?";
+}
+
+std::unique_ptr<LearningRateSchedule> make_schedule(ScheduleKind kind, const ScheduleConfig& config) {
+  switch (kind) {
+    case ScheduleKind::kConstant:
+      return std::make_unique<ConstantSchedule>(config);
+    case ScheduleKind::kLinear:
+      return std::make_unique<WarmupDecaySchedule>(config, WarmupDecaySchedule::Shape::kLinear);
+    case ScheduleKind::kCosine:
+      return std::make_unique<WarmupDecaySchedule>(config, WarmupDecaySchedule::Shape::kCosine);
+    case ScheduleKind::kPlateau:
+      return std::make_unique<PlateauSchedule>(config);
+  }
+  throw ConfigError("schedule", "unknown schedule");
+}
+
 std::unique_ptr<LearningRateSchedule> make_schedule(std::string_view name, const ScheduleConfig& config) {
-  if (name == "constant") return std::make_unique<ConstantSchedule>(config);
-  if (name == "linear")
-    return std::make_unique<WarmupDecaySchedule>(config, WarmupDecaySchedule::Shape::kLinear);
-  if (name == "cosine")
-    return std::make_unique<WarmupDecaySchedule>(config, WarmupDecaySchedule::Shape::kCosine);
-  if (name == "plateau") return std::make_unique<PlateauSchedule>(config);
+  for (const auto kind :
+       {ScheduleKind::kConstant, ScheduleKind::kLinear, ScheduleKind::kCosine, ScheduleKind::kPlateau})
+    if (name == to_string(kind)) return make_schedule(kind, config);
   throw ConfigError("schedule", "unknown schedule '" + std::string(name) +
                                     "'; expected constant, linear, cosine or plateau");
 }

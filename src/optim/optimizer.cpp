@@ -1,5 +1,6 @@
 #include "gyre/optim/optimizer.hpp"
 
+#include <algorithm>
 #include <array>
 #include <cmath>
 
@@ -46,6 +47,18 @@ void Optimizer::set_step_count(std::int64_t steps) {
 }
 
 void Optimizer::step(nn::ParameterStore& params, float learning_rate) {
+  prepare_step(params, learning_rate);
+  update_part(params, 0, 1);
+}
+
+std::pair<Eigen::Index, Eigen::Index> Optimizer::part_range(Eigen::Index size, int part, int parts) noexcept {
+  // Boundaries on multiples of 16 floats (one cache line), so parts never share a line.
+  const Eigen::Index blocks = (size + 15) / 16;
+  const Eigen::Index b0 = blocks * part / parts, b1 = blocks * (part + 1) / parts;
+  return {std::min(size, b0 * 16), std::min(size, b1 * 16)};
+}
+
+void Optimizer::prepare_step(nn::ParameterStore& params, float learning_rate) {
   GYRE_CHECK(std::isfinite(learning_rate) && learning_rate >= 0.0F,
              "learning rate must be finite and >= 0, got " + std::to_string(learning_rate));
   if (!bound_) bind(params);
@@ -64,37 +77,69 @@ void Optimizer::step(nn::ParameterStore& params, float learning_rate) {
   }
   GYRE_CHECK(k == state_.size(),
              "the parameter store lost trainable parameters since the optimizer was bound");
+  for (const Bound& b : state_) {
+    nn::Parameter& p = params[b.param_index];
+    if (!p.sparse_rows) continue;
+    p.finalize_touched_rows();
+    for (const std::int32_t row : p.touched_rows)
+      GYRE_CHECK(row >= 0 && row < b.rows, "parameter '" + p.name + "' has touched row " +
+                                               std::to_string(row) + " outside its " +
+                                               std::to_string(b.rows) + " rows");
+  }
+  ++step_count_;
+  begin_step(step_count_, learning_rate);
+}
 
-  const std::int64_t t = step_count_ + 1;
-  begin_step(t, learning_rate);
+void Optimizer::update_part(nn::ParameterStore& params, int part, int parts) {
   std::array<float*, kMaxSlots> slot_ptrs{};
   for (Bound& b : state_) {
     nn::Parameter& p = params[b.param_index];
     const std::size_t n_slots = b.slots.size();
     if (!p.sparse_rows) {
-      for (std::size_t s = 0; s < n_slots; ++s) slot_ptrs[s] = b.slots[s].data();
-      update_block(p.value.data(), p.grad.data(), slot_ptrs.data(), p.value.size());
+      const auto [begin, end] = part_range(p.value.size(), part, parts);
+      if (begin == end) continue;
+      for (std::size_t s = 0; s < n_slots; ++s) slot_ptrs[s] = b.slots[s].data() + begin;
+      update_block(p.value.data() + begin, p.grad.data() + begin, slot_ptrs.data(), end - begin);
       continue;
     }
+    if (part != 0) continue;
     // Lazy update: only the rows that received gradient this step (see optimizer.hpp).
-    p.finalize_touched_rows();
     const Eigen::Index cols = b.cols;
     for (const std::int32_t row : p.touched_rows) {
-      GYRE_CHECK(row >= 0 && row < b.rows, "parameter '" + p.name + "' has touched row " +
-                                               std::to_string(row) + " outside its " +
-                                               std::to_string(b.rows) + " rows");
       const Eigen::Index offset = static_cast<Eigen::Index>(row) * cols;
       for (std::size_t s = 0; s < n_slots; ++s) slot_ptrs[s] = b.slots[s].data() + offset;
       update_block(p.value.data() + offset, p.grad.data() + offset, slot_ptrs.data(), cols);
     }
   }
-  step_count_ = t;
+}
+
+const char* to_string(OptimizerKind kind) noexcept {
+  switch (kind) {
+    case OptimizerKind::kSgd:
+      return "sgd";
+    case OptimizerKind::kAdam:
+      return "adam";
+    case OptimizerKind::kAdamW:
+      return "adamw";
+  }
+  return "?";
+}
+
+std::unique_ptr<Optimizer> make_optimizer(OptimizerKind kind, const OptimizerConfig& config) {
+  switch (kind) {
+    case OptimizerKind::kSgd:
+      return std::make_unique<Sgd>(config);
+    case OptimizerKind::kAdam:
+      return std::make_unique<Adam>(config, false);
+    case OptimizerKind::kAdamW:
+      return std::make_unique<Adam>(config, true);
+  }
+  throw ConfigError("optimizer", "unknown optimizer");
 }
 
 std::unique_ptr<Optimizer> make_optimizer(std::string_view name, const OptimizerConfig& config) {
-  if (name == "sgd") return std::make_unique<Sgd>(config);
-  if (name == "adam") return std::make_unique<Adam>(config, false);
-  if (name == "adamw") return std::make_unique<Adam>(config, true);
+  for (const auto kind : {OptimizerKind::kSgd, OptimizerKind::kAdam, OptimizerKind::kAdamW})
+    if (name == to_string(kind)) return make_optimizer(kind, config);
   throw ConfigError("optimizer",
                     "unknown optimizer '" + std::string(name) + "'; expected sgd, adam or adamw");
 }

@@ -3,7 +3,9 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <map>
 #include <sstream>
+#include <tuple>
 
 #include <nlohmann/json.hpp>
 
@@ -101,7 +103,7 @@ body{font:15px/1.45 system-ui,-apple-system,"Segoe UI",sans-serif;color:#1d2330;
 main{max-width:1120px;margin:0 auto;padding:24px 28px 48px}
 h1{font-size:24px;margin:0 0 4px}h2{font-size:18px;margin:28px 0 10px;border-bottom:1px solid #d8dde5;padding-bottom:4px}
 .sub{color:#5b6475;margin:0 0 12px}
-table{border-collapse:collapse;background:#fff;margin:6px 0 12px;font-variant-numeric:tabular-nums}
+table{border-collapse:collapse;background:#fff;margin:6px 0 12px;font-variant-numeric:tabular-nums;display:block;max-width:100%;overflow-x:auto}
 th,td{border:1px solid #d8dde5;padding:4px 10px;text-align:right}th{background:#eef1f5}
 td.k,th.k{text-align:left}tr.best td{font-weight:600;background:#fff7df}
 .cm td{min-width:44px;text-align:center}.cm td.zero{color:#9aa3b2}.cm th.corner{background:#fff;font-weight:400;color:#5b6475;font-size:12px}
@@ -109,9 +111,12 @@ td.k,th.k{text-align:left}tr.best td{font-weight:600;background:#fff7df}
 .chart{background:#fff;border:1px solid #d8dde5}
 .chart .title{font-weight:600;font-size:14px}.chart .tick{font-size:11px;fill:#5b6475}
 .chart .label{font-size:12px;fill:#1d2330}.chart .grid{stroke:#e6e9ee}.chart .axis{stroke:#7a8394}
-.chart polyline{fill:none;stroke-width:2}.chart .err{stroke:#1d2330;stroke-width:1.5}
+.chart polyline{fill:none;stroke-width:2}.chart polyline.front{stroke-width:1.5}.chart .err{stroke:#1d2330;stroke-width:1.5}
 .cols{display:flex;flex-wrap:wrap;gap:24px;align-items:flex-start}
 .note{color:#5b6475;font-size:13px}
+.why span{padding:1px 3px;border-radius:3px;margin:0 1px}
+.verdict{font-size:17px;font-weight:600;background:#fff;border-left:4px solid #1f5f99;padding:8px 12px}
+.warning{background:#fff4e5;border-left:4px solid #c0562a;padding:6px 12px}
 </style>
 )";
 
@@ -183,7 +188,21 @@ std::string scores_table(const json& rows, const char* name_key, const char* fir
   return o.str();
 }
 
+// Beyond eval::kDenseConfusionLimit labels the metrics keep only the largest off-diagonal cells.
+std::string top_confusions_html(const json& cm) {
+  std::ostringstream o;
+  o << "<table><tr><th>gold</th><th>predicted</th><th>count</th></tr>\n";
+  for (const auto& c : cm["top"])
+    o << "<tr><td class=\"k\">" << html_escape(c.value("gold", "")) << "</td><td class=\"k\">"
+      << html_escape(c.value("predicted", "")) << "</td><td>" << fmt_or_dash(get_num(c, {"count"}), 0)
+      << "</td></tr>\n";
+  o << "</table>\n<p class=\"note\">Too many labels for a matrix: the " << cm["top"].size()
+    << " most frequent confusions of " << fmt_or_dash(get_num(cm, {"off_diagonal_cells"}), 0) << ".</p>\n";
+  return o.str();
+}
+
 std::string confusion_html(const json& cm) {
+  if (cm.is_object() && cm.contains("top") && cm["top"].is_array()) return top_confusions_html(cm);
   if (!cm.is_object() || !cm.contains("labels") || !cm.contains("counts")) return {};
   const auto& labels = cm["labels"];
   const auto& counts = cm["counts"];
@@ -243,6 +262,12 @@ std::string html_escape(std::string_view text) {
 
 std::string line_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
                            const std::vector<Series>& series) {
+  return band_chart_svg(title, x_label, y_label, series, {});
+}
+
+std::string band_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
+                           const std::vector<Series>& series, const std::vector<SeriesStyle>& styles) {
+  GYRE_CHECK(styles.empty() || styles.size() == series.size(), "chart styles: one per series or none");
   double xlo = INFINITY, xhi = -INFINITY, ylo = INFINITY, yhi = -INFINITY;
   for (const auto& s : series) {
     GYRE_CHECK(s.x.size() == s.y.size(), "chart series needs as many x as y values");
@@ -252,6 +277,16 @@ std::string line_chart_svg(std::string_view title, std::string_view x_label, std
       xhi = std::max(xhi, s.x[i]);
       ylo = std::min(ylo, s.y[i]);
       yhi = std::max(yhi, s.y[i]);
+    }
+  }
+  for (std::size_t k = 0; k < styles.size(); ++k) {
+    const auto& st = styles[k];
+    GYRE_CHECK(st.lo.empty() || (st.lo.size() == series[k].x.size() && st.hi.size() == series[k].x.size()),
+               "chart band needs one low and high value per point");
+    for (std::size_t i = 0; i < st.lo.size(); ++i) {
+      if (!std::isfinite(series[k].x[i]) || !std::isfinite(st.lo[i]) || !std::isfinite(st.hi[i])) continue;
+      ylo = std::min(ylo, st.lo[i]);
+      yhi = std::max(yhi, st.hi[i]);
     }
   }
   if (!std::isfinite(xlo)) xlo = 0, xhi = 1, ylo = 0, yhi = 1;
@@ -275,10 +310,29 @@ std::string line_chart_svg(std::string_view title, std::string_view x_label, std
     << kHeight - kBottom << "\" y2=\"" << kHeight - kBottom << "\"/>\n";
   o << "<text class=\"label\" x=\"" << (kLeft + kWidth - kRight) / 2 << "\" y=\"" << kHeight - 10
     << "\" text-anchor=\"middle\">" << html_escape(x_label) << "</text>\n";
+  // Bands first, so every line is drawn over them.
+  for (std::size_t k = 0; k < styles.size(); ++k) {
+    const auto& st = styles[k];
+    const auto& s = series[k];
+    if (st.lo.empty()) continue;
+    const std::string color = st.color.empty() ? kColors[k % std::size(kColors)] : st.color;
+    std::string upper, lower;
+    for (std::size_t i = 0; i < s.x.size(); ++i) {
+      if (!std::isfinite(s.x[i]) || !std::isfinite(st.lo[i]) || !std::isfinite(st.hi[i])) continue;
+      upper += (upper.empty() ? "" : " ") + num(f.sx(s.x[i]), 1) + ',' + num(f.sy(st.hi[i]), 1);
+      lower = num(f.sx(s.x[i]), 1) + ',' + num(f.sy(st.lo[i]), 1) + (lower.empty() ? "" : " ") + lower;
+    }
+    if (!upper.empty())
+      o << "<polygon class=\"band\" fill=\"" << color << "\" fill-opacity=\"0.15\" stroke=\"none\" points=\""
+        << upper << ' ' << lower << "\"/>\n";
+  }
   for (std::size_t k = 0; k < series.size(); ++k) {
     const auto& s = series[k];
-    const char* color = kColors[k % std::size(kColors)];
-    o << "<polyline class=\"series\" stroke=\"" << color << "\" points=\"";
+    const std::string color =
+        k < styles.size() && !styles[k].color.empty() ? styles[k].color : kColors[k % std::size(kColors)];
+    const std::string dash = k < styles.size() ? styles[k].dash : "";
+    o << "<polyline class=\"series\" stroke=\"" << color << "\""
+      << (dash.empty() ? "" : " stroke-dasharray=\"" + dash + "\"") << " points=\"";
     bool first = true;
     for (std::size_t i = 0; i < s.x.size(); ++i) {
       if (!std::isfinite(s.x[i]) || !std::isfinite(s.y[i])) continue;
@@ -292,9 +346,15 @@ std::string line_chart_svg(std::string_view title, std::string_view x_label, std
         << "\" r=\"3\" fill=\"" << color << "\"><title>" << html_escape(s.name) << " @ "
         << tick_text(s.x[i], 1.0) << ": " << num(s.y[i]) << "</title></circle>\n";
     }
-    // Legend at the top right, one entry per series.
-    const double lx = kWidth - kRight - 150, ly = kTop + 4 + 16.0 * static_cast<double>(k);
-    o << "<rect x=\"" << lx << "\" y=\"" << ly << "\" width=\"12\" height=\"3\" fill=\"" << color << "\"/>"
+    // Legend at the right, one entry per series: at the top for plain charts (falling losses
+    // leave it free), at the bottom for styled score curves (rising scores leave that free).
+    const double lx = kWidth - kRight - 150;
+    const double ly = styles.empty()
+                          ? kTop + 4 + 16.0 * static_cast<double>(k)
+                          : kHeight - kBottom - 12 - 16.0 * static_cast<double>(series.size() - 1 - k);
+    o << "<line x1=\"" << lx << "\" x2=\"" << lx + 14 << "\" y1=\"" << ly + 1.5 << "\" y2=\"" << ly + 1.5
+      << "\" stroke=\"" << color << "\" stroke-width=\"2\""
+      << (dash.empty() ? "" : " stroke-dasharray=\"" + dash + "\"") << "/>"
       << "<text class=\"tick\" x=\"" << lx + 18 << "\" y=\"" << ly + 5 << "\">" << html_escape(s.name)
       << "</text>\n";
   }
@@ -305,6 +365,14 @@ std::string line_chart_svg(std::string_view title, std::string_view x_label, std
 std::string bar_chart_svg(std::string_view title, std::string_view y_label,
                           const std::vector<std::string>& names, const std::vector<double>& means,
                           const std::vector<double>& errors, const std::vector<std::vector<double>>& points) {
+  return bar_chart_svg(title, y_label, names, means, errors, points, {});
+}
+
+std::string bar_chart_svg(std::string_view title, std::string_view y_label,
+                          const std::vector<std::string>& names, const std::vector<double>& means,
+                          const std::vector<double>& errors, const std::vector<std::vector<double>>& points,
+                          const std::vector<std::string>& colors) {
+  GYRE_CHECK(colors.empty() || colors.size() == names.size(), "bar chart colours: one per bar or none");
   GYRE_CHECK(names.size() == means.size() && means.size() == errors.size() && errors.size() == points.size(),
              "bar chart needs one mean, error and point list per name");
   double lo = INFINITY, hi = -INFINITY;
@@ -314,10 +382,10 @@ std::string bar_chart_svg(std::string_view title, std::string_view y_label,
     for (const double p : points[i]) lo = std::min(lo, p), hi = std::max(hi, p);
   }
   if (!std::isfinite(lo)) lo = 0, hi = 1;
-  // Bars start at the bottom of a zoomed axis: differences between configs are usually small.
-  const double span = std::max(hi - lo, 1e-6);
+  // Bar lengths must mean something: the axis starts at zero (scores and losses are never
+  // negative), so a small gap between configurations looks small.
   Frame f;
-  f.y = nice_axis(std::max(0.0, lo - 0.25 * span), hi + 0.1 * span);
+  f.y = nice_axis(std::min(0.0, lo), std::max(hi, 1e-6) * 1.05);
   f.x = {0, static_cast<double>(std::max<std::size_t>(names.size(), 1)), 1};
   std::ostringstream o;
   svg_open(o, title);
@@ -329,7 +397,7 @@ std::string bar_chart_svg(std::string_view title, std::string_view y_label,
     const double cx = kLeft + slot * (static_cast<double>(i) + 0.5);
     const double w = std::min(60.0, slot * 0.6);
     const double top = f.sy(means[i]);
-    const char* color = kColors[i % std::size(kColors)];
+    const std::string color = colors.empty() ? kColors[i % std::size(kColors)] : colors[i];
     o << "<rect class=\"bar\" x=\"" << num(cx - w / 2, 1) << "\" y=\"" << num(top, 1) << "\" width=\""
       << num(w, 1) << "\" height=\"" << num(kHeight - kBottom - top, 1) << "\" fill=\"" << color
       << "\" fill-opacity=\"0.75\"><title>" << html_escape(names[i]) << ": " << num(means[i]) << " &#177; "
@@ -353,18 +421,71 @@ std::string bar_chart_svg(std::string_view title, std::string_view y_label,
   return o.str();
 }
 
-std::string run_report_html(const fs::path& run_dir) {
-  const json config = read_json_file(run_dir / "config.json");
-  const json metrics = read_json_file(run_dir / "metrics.json");
-  json full_dev = json::object();
-  std::error_code ec;
-  if (fs::exists(run_dir / "best-dev-metrics.json", ec))
-    full_dev = read_json_file(run_dir / "best-dev-metrics.json");
-  else if (metrics.contains("dev") && metrics["dev"].is_object())
-    full_dev = metrics["dev"];
+std::string front_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
+                            const std::vector<std::string>& names, const std::vector<double>& x,
+                            const std::vector<double>& y, const std::vector<std::string>& colors,
+                            const std::vector<bool>& front) {
+  GYRE_CHECK(names.size() == x.size() && x.size() == y.size() && y.size() == colors.size() &&
+                 colors.size() == front.size(),
+             "front chart needs one x, y, colour and flag per name");
+  double xlo = INFINITY, xhi = -INFINITY, ylo = INFINITY, yhi = -INFINITY;
+  for (std::size_t i = 0; i < x.size(); ++i) {
+    if (!std::isfinite(x[i]) || !std::isfinite(y[i])) continue;
+    xlo = std::min(xlo, x[i]), xhi = std::max(xhi, x[i]);
+    ylo = std::min(ylo, y[i]), yhi = std::max(yhi, y[i]);
+  }
+  if (!std::isfinite(xlo)) xlo = 0, xhi = 1, ylo = 0, yhi = 1;
+  Frame f;
+  // Latency from zero, so the spacing of the points shows the ratio of their costs.
+  f.x = nice_axis(0.0, xhi * 1.1 + 1e-9);
+  const double yspan = std::max(yhi - ylo, 1e-3);
+  f.y = nice_axis(ylo - 0.15 * yspan, yhi + 0.15 * yspan);
+  std::ostringstream o;
+  svg_open(o, title);
+  y_axis(o, f, y_label);
+  const int nx = static_cast<int>(std::lround((f.x.hi - f.x.lo) / f.x.step));
+  for (int i = 0; i <= nx; ++i) {
+    const double v = f.x.lo + i * f.x.step;
+    o << "<text class=\"tick\" x=\"" << num(f.sx(v), 1) << "\" y=\"" << kHeight - kBottom + 16
+      << "\" text-anchor=\"middle\">" << tick_text(v, f.x.step) << "</text>";
+  }
+  o << "<line class=\"axis\" x1=\"" << kLeft << "\" x2=\"" << kWidth - kRight << "\" y1=\""
+    << kHeight - kBottom << "\" y2=\"" << kHeight - kBottom << "\"/>\n";
+  o << "<text class=\"label\" x=\"" << (kLeft + kWidth - kRight) / 2 << "\" y=\"" << kHeight - 10
+    << "\" text-anchor=\"middle\">" << html_escape(x_label) << "</text>\n";
+  // The front as a step line through its points, fastest first.
+  std::vector<std::size_t> on;
+  for (std::size_t i = 0; i < names.size(); ++i)
+    if (front[i] && std::isfinite(x[i]) && std::isfinite(y[i])) on.push_back(i);
+  std::sort(on.begin(), on.end(), [&](std::size_t a, std::size_t b) { return x[a] < x[b]; });
+  if (on.size() >= 2) {
+    o << "<polyline class=\"front\" stroke=\"#1d2330\" stroke-dasharray=\"4 3\" points=\"";
+    for (std::size_t k = 0; k < on.size(); ++k)
+      o << (k ? " " : "") << num(f.sx(x[on[k]]), 1) << ',' << num(f.sy(y[on[k]]), 1);
+    o << "\"/>\n";
+  }
+  const double mid_x = (kLeft + kWidth - kRight) / 2;
+  for (std::size_t i = 0; i < names.size(); ++i) {
+    if (!std::isfinite(x[i]) || !std::isfinite(y[i])) continue;
+    const double px = f.sx(x[i]), py = f.sy(y[i]);
+    o << "<circle cx=\"" << num(px, 1) << "\" cy=\"" << num(py, 1) << "\" r=\"" << (front[i] ? 6 : 4)
+      << "\" fill=\"" << colors[i] << "\"" << (front[i] ? " stroke=\"#1d2330\" stroke-width=\"1.5\"" : "")
+      << "><title>" << html_escape(names[i]) << ": " << num(y[i]) << " at " << num(x[i], 3)
+      << " ms</title></circle>";
+    // Labels point inwards so none runs off the chart.
+    const bool left = px > mid_x;
+    o << "<text class=\"tick\" x=\"" << num(px + (left ? -9 : 9), 1) << "\" y=\"" << num(py - 7, 1)
+      << "\" text-anchor=\"" << (left ? "end" : "start") << "\">" << html_escape(names[i])
+      << (front[i] ? " (front)" : "") << "</text>\n";
+  }
+  o << "</svg>\n";
+  return o.str();
+}
 
-  // log.jsonl: one epoch per line.
-  const fs::path log_path = run_dir / "log.jsonl";
+namespace {
+
+// log.jsonl: one JSON object per epoch (blank lines allowed).
+std::vector<json> read_epoch_log(const fs::path& log_path) {
   std::istringstream log_in(read_file(log_path));
   std::vector<json> epochs;
   std::string line;
@@ -380,41 +501,86 @@ std::string run_report_html(const fs::path& run_dir) {
     if (!epochs.back().is_object())
       throw ParseError(log_path.string(), line_no, "expected a JSON object per epoch");
   }
+  return epochs;
+}
 
-  const bool tagging =
-      full_dev.value("task", "") == "tagging" ||
-      (metrics.contains("dev") && metrics["dev"].is_object() && metrics["dev"].contains("span_f1"));
-  const std::string title = "gyre run: " + run_dir.filename().string();
-  std::ostringstream b;
-  b << "<h1>" << html_escape(title) << "</h1>\n<p class=\"sub\">" << html_escape(config.value("cell", "?"))
-    << ", hidden " << html_escape(value_text(config.value("hidden_size", json(nullptr)))) << ", trained on "
-    << html_escape(config.value("train", "?")) << "</p>\n";
-
-  // Summary.
+// The run's outcome and sizes, then the best epoch's dev scores, with human labels.
+void result_section(std::ostringstream& b, const json& metrics) {
   b << "<h2>Result</h2>\n<table>\n";
   auto row = [&](const std::string& k, const std::string& v) {
     b << "<tr><td class=\"k\">" << html_escape(k) << "</td><td>" << html_escape(v) << "</td></tr>\n";
   };
-  for (const char* k :
-       {"outcome", "epochs", "best_epoch", "metric", "best_metric", "train_examples", "dev_examples",
-        "vocabulary_size", "parameters", "seconds", "tokens_per_second", "threads"})
-    if (metrics.contains(k)) row(k, value_text(metrics[k]));
+  // Human labels, and numbers rounded to what they can tell: scores to 4 decimals, times to a
+  // tenth of a second, rates to whole tokens.
+  auto fixed = [](const json& v, int decimals) {
+    if (!v.is_number()) return value_text(v);
+    char buf[64];
+    std::snprintf(buf, sizeof buf, "%.*f", decimals, v.get<double>());
+    return std::string(buf);
+  };
+  struct Field {
+    const char* key;
+    const char* label;
+    int decimals;  // -1: as it is (text, integers)
+  };
+  for (const Field& f : {Field{"outcome", "outcome", -1},
+                         {"epochs", "epochs trained", -1},
+                         {"best_epoch", "best epoch", -1},
+                         {"metric", "best epoch chosen by dev", -1},
+                         {"best_metric", "best dev score", 4},
+                         {"train_examples", "training examples", -1},
+                         {"dev_examples", "dev examples", -1},
+                         {"vocabulary_size", "vocabulary size", -1},
+                         {"parameters", "parameters", -1},
+                         {"seconds", "training time (s)", 1},
+                         {"tokens_per_second", "tokens per second", 0},
+                         {"threads", "threads", -1}})
+    if (metrics.contains(f.key)) {
+      std::string text = f.decimals < 0 ? value_text(metrics[f.key]) : fixed(metrics[f.key], f.decimals);
+      if (std::string(f.key) == "metric") {
+        for (char& c : text) c = c == '_' ? ' ' : c;  // "macro_f1" -> "macro f1"
+      }
+      row(f.label, text);
+    }
   if (metrics.contains("dev") && metrics["dev"].is_object()) {
     // Scalars as they are; averages ({"precision", "recall", "f1"}) by their F1; lists are shown
-    // in their own tables below.
-    for (const auto& [k, v] : metrics["dev"].items()) {
+    // in their own tables below. "log_loss" (the metric, clipped) is left out when the training
+    // objective's "loss" is there: one dev loss.
+    const json& dev = metrics["dev"];
+    auto label = [](const std::string& k) {
+      static const std::map<std::string, std::string> names = {{"accuracy", "accuracy"},
+                                                               {"macro", "macro"},
+                                                               {"micro", "micro"},
+                                                               {"weighted", "weighted"},
+                                                               {"loss", "loss"},
+                                                               {"log_loss", "log loss"},
+                                                               {"ece", "calibration error (ECE)"},
+                                                               {"span_f1", "span F1"},
+                                                               {"token_accuracy", "token accuracy"},
+                                                               {"macro_f1", "macro F1"},
+                                                               {"hamming_loss", "Hamming loss"},
+                                                               {"subset_accuracy", "exact-match accuracy"}};
+      const auto it = names.find(k);
+      if (it != names.end()) return it->second;
+      std::string text = k;
+      for (char& c : text) c = c == '_' ? ' ' : c;
+      return text;
+    };
+    for (const auto& [k, v] : dev.items()) {
       if (k == "task" || k == "examples" || k == "correct") continue;
+      if (k == "log_loss" && dev.contains("loss")) continue;
       if (v.is_number())
-        row("dev " + k + " (best epoch)", value_text(v));
+        row("dev " + label(k) + " (best epoch)", fixed(v, 4));
       else if (v.is_object() && v.contains("f1") && v["f1"].is_number())
-        row("dev " + k + " F1 (best epoch)", value_text(v["f1"]));
+        row("dev " + label(k) + " F1 (best epoch)", fixed(v["f1"], 4));
       else if (v.is_object() && v.contains("error") && v["error"].is_number())
-        row("dev " + k + " error (best epoch)", value_text(v["error"]));
+        row("dev " + label(k) + " error (best epoch)", fixed(v["error"], 4));
     }
   }
   b << "</table>\n";
+}
 
-  // Curves.
+void curves_section(std::ostringstream& b, const std::vector<json>& epochs, bool tagging) {
   Series loss{"train loss", {}, {}}, dev_loss{"dev loss", {}, {}};
   const std::string metric_key = tagging ? "span_f1" : "accuracy";
   Series dev_metric{"dev " + metric_key, {}, {}}, dev_f1{"dev macro_f1", {}, {}};
@@ -435,8 +601,10 @@ std::string run_report_html(const fs::path& run_dir) {
   b << line_chart_svg("Loss per epoch", "epoch", "loss", {loss, dev_loss});
   b << line_chart_svg("Dev score per epoch", "epoch", "score", {dev_metric, dev_f1});
   b << "</div>\n";
+}
 
-  // Per-epoch table.
+void epochs_section(std::ostringstream& b, const std::vector<json>& epochs, bool tagging) {
+  const std::string metric_key = tagging ? "span_f1" : "accuracy";
   b << "<h2>Epochs</h2>\n<table><tr><th>epoch</th><th>train loss</th><th>dev loss</th><th>dev " << metric_key
     << "</th><th>learning rate</th><th>seconds</th><th>tokens/s</th></tr>\n";
   for (const auto& e : epochs) {
@@ -449,8 +617,10 @@ std::string run_report_html(const fs::path& run_dir) {
       << fmt_or_dash(get_num(e, {"tokens_per_second"}), 0) << "</td></tr>\n";
   }
   b << "</table>\n<p class=\"note\">Highlighted: epochs that improved the early-stopping metric.</p>\n";
+}
 
-  // Per-class / per-type scores at the best epoch.
+// Per-class / per-label / per-span-type scores at the best epoch.
+void best_epoch_scores_section(std::ostringstream& b, const json& full_dev) {
   if (full_dev.contains("classes")) {
     b << "<h2>Dev scores per class (best epoch)</h2>\n<div class=\"cols\"><div>\n"
       << scores_table(full_dev["classes"], "name", "class", true) << "</div><div>\n";
@@ -467,13 +637,108 @@ std::string run_report_html(const fs::path& run_dir) {
         << ", recall " << fmt_or_dash(get_num(full_dev, {"micro", "recall"})) << ", F1 "
         << fmt_or_dash(get_num(full_dev, {"micro", "f1"})) << "</p>\n";
   }
+}
 
-  // Settings.
+// Calibration (metrics.json "calibration", written by the trainer's temperature fit on dev).
+void calibration_section(std::ostringstream& b, const json& metrics) {
+  if (metrics.contains("calibration") && metrics["calibration"].is_object() &&
+      metrics["calibration"].contains("before") && metrics["calibration"].contains("after")) {
+    const json& cal = metrics["calibration"];
+    Series diagonal{"perfect calibration", {0.0, 1.0}, {0.0, 1.0}};
+    Series before{"before: ECE " + fmt_or_dash(get_num(cal, {"before", "error"})), {}, {}};
+    Series after{"after: ECE " + fmt_or_dash(get_num(cal, {"after", "error"})), {}, {}};
+    for (auto [series, key] : {std::pair{&before, "before"}, std::pair{&after, "after"}})
+      for (const auto& bin : cal[key].value("bins", json::array()))
+        if (bin.value("count", 0) > 0) {
+          series->x.push_back(bin.value("confidence", 0.0));
+          series->y.push_back(bin.value("accuracy", 0.0));
+        }
+    std::string temps;
+    for (const auto& t : cal.value("temperature", json::array()))
+      temps += (temps.empty() ? "" : ", ") + fmt_or_dash(t.get<double>(), 3);
+    b << "<h2>Calibration</h2>\n<p>Temperature scaling (Guo et al. 2017) fitted on dev: T = "
+      << html_escape(temps) << ". Each point is one confidence bin (of 15) of the "
+      << fmt_or_dash(get_num(cal, {"after", "predictions"}), 0)
+      << " dev predictions: mean confidence against accuracy; points on the diagonal are calibrated.</p>\n"
+      << "<div class=\"charts\">\n"
+      << line_chart_svg("Reliability diagram (dev)", "confidence", "accuracy", {diagonal, before, after})
+      << "</div>\n";
+  }
+}
+
+// Confident dev mistakes with per-token attributions (metrics.json "dev_mistakes").
+void dev_mistakes_section(std::ostringstream& b, const json& metrics) {
+  if (metrics.contains("dev_mistakes") && metrics["dev_mistakes"].is_array() &&
+      !metrics["dev_mistakes"].empty()) {
+    b << "<h2>Why these dev mistakes</h2>\n<p>The most confident wrong answers on dev. Each token is shaded "
+         "by its "
+         "share of the predicted label's probability (integrated gradients, Sundararajan et al. 2017): "
+         "<span style=\"background:#2e7d32;color:#fff;padding:0 4px\">green</span> pushed towards the "
+         "wrong label, <span style=\"background:#c62828;color:#fff;padding:0 4px\">red</span> away from it. "
+         "The gap is the completeness check: |sum of shares - (p(text) - p(empty embeddings))|.</p>\n"
+      << "<table><tr><th>line</th><th class=\"k\">gold</th><th class=\"k\">predicted</th><th>p</th>"
+         "<th class=\"k\">text</th><th>gap</th></tr>\n";
+    for (const auto& e : metrics["dev_mistakes"]) {
+      const json& why = e.contains("why") ? e["why"] : json::object();
+      double most = 0.0;
+      for (const auto& t : why.value("tokens", json::array()))
+        most = std::max(most, std::abs(t.value("score", 0.0)));
+      std::string text;
+      for (const auto& t : why.value("tokens", json::array())) {
+        const double v = t.value("score", 0.0);
+        const double share = most > 0 ? std::abs(v) / most : 0.0;
+        char style[96];
+        std::snprintf(style, sizeof style, "background:rgba(%s,%.2f)", v >= 0 ? "46,125,50" : "198,40,40",
+                      share);
+        text += "<span style=\"" + std::string(style) + "\" title=\"" + num(v) + "\">" +
+                html_escape(t.value("token", "")) + "</span> ";
+      }
+      b << "<tr><td>" << html_escape(value_text(e.value("line", json(nullptr)))) << "</td><td class=\"k\">"
+        << html_escape(e.value("gold", "")) << "</td><td class=\"k\">"
+        << html_escape(e.value("predicted", "")) << "</td><td>" << fmt_or_dash(e.value("probability", NAN), 3)
+        << "</td><td class=\"k why\">" << text << "</td><td>"
+        << fmt_or_dash(get_num(why, {"completeness", "gap"}), 5) << "</td></tr>\n";
+    }
+    b << "</table>\n";
+  }
+}
+
+void settings_section(std::ostringstream& b, const json& config) {
   b << "<h2>Settings</h2>\n<table><tr><th class=\"k\">setting</th><th class=\"k\">value</th></tr>\n";
   for (const auto& [k, v] : config.items())
     b << "<tr><td class=\"k\">" << html_escape(k) << "</td><td class=\"k\">" << html_escape(value_text(v))
       << "</td></tr>\n";
   b << "</table>\n";
+}
+
+}  // namespace
+
+std::string run_report_html(const fs::path& run_dir) {
+  const json config = read_json_file(run_dir / "config.json");
+  const json metrics = read_json_file(run_dir / "metrics.json");
+  json full_dev = json::object();
+  std::error_code ec;
+  if (fs::exists(run_dir / "best-dev-metrics.json", ec))
+    full_dev = read_json_file(run_dir / "best-dev-metrics.json");
+  else if (metrics.contains("dev") && metrics["dev"].is_object())
+    full_dev = metrics["dev"];
+  const std::vector<json> epochs = read_epoch_log(run_dir / "log.jsonl");
+
+  const bool tagging =
+      full_dev.value("task", "") == "tagging" ||
+      (metrics.contains("dev") && metrics["dev"].is_object() && metrics["dev"].contains("span_f1"));
+  const std::string title = "gyre run: " + run_dir.filename().string();
+  std::ostringstream b;
+  b << "<h1>" << html_escape(title) << "</h1>\n<p class=\"sub\">" << html_escape(config.value("cell", "?"))
+    << ", hidden " << html_escape(value_text(config.value("hidden_size", json(nullptr)))) << ", trained on "
+    << html_escape(config.value("train", "?")) << "</p>\n";
+  result_section(b, metrics);
+  curves_section(b, epochs, tagging);
+  epochs_section(b, epochs, tagging);
+  best_epoch_scores_section(b, full_dev);
+  calibration_section(b, metrics);
+  dev_mistakes_section(b, metrics);
+  settings_section(b, config);
   return page(title, b.str());
 }
 
@@ -493,30 +758,55 @@ std::string compare_report_html(const fs::path& compare_dir) {
     << " seeds, trained on " << html_escape(c.value("train", "?")) << ", scored on "
     << html_escape(c.value("dev", "?"))
     << (with_test ? " and " + html_escape(c["test"].get<std::string>()) : std::string()) << "</p>\n";
+  if (c.contains("head_to_head") && c["head_to_head"].is_object()) {
+    const auto& h = c["head_to_head"];
+    b << "<p class=\"verdict\">" << html_escape(h.value("verdict", "")) << "</p>\n";
+    if (h.contains("notes") && h["notes"].is_array())
+      for (const auto& n : h["notes"])
+        if (n.is_string()) b << "<p class=\"warning\">" << html_escape(n.get<std::string>()) << "</p>\n";
+  }
 
-  b << "<h2>Configurations</h2>\n<table><tr><th class=\"k\">config</th><th>parameters</th><th>f32 "
-       "KiB</th><th>dev "
+  // One hue per cell type; hidden sizes of a cell differ by dash pattern in the curves.
+  auto cell_color = [](const std::string& cell) -> std::string {
+    return cell == "lstm" ? kColors[0] : cell == "gru" ? kColors[1] : kColors[2];
+  };
+  const char* const kDashes[] = {"", "7 4", "2 3", "9 3 2 3"};
+  std::map<std::string, int> size_rank;  // per cell: 0, 1, 2 ... in order of appearance
+  std::map<std::string, int> per_cell;
+
+  b << "<h2>Configurations</h2>\n<table><tr><th class=\"k\">config</th><th>parameters</th><th>int8 "
+       "KiB</th><th>ms/text</th><th>dev "
     << html_escape(metric) << " mean</th><th>&#177; std</th>";
   if (with_test) b << "<th>test " << html_escape(metric) << " mean</th><th>&#177; std</th>";
-  b << "<th>train s</th><th>tokens/s</th></tr>\n";
-  std::vector<std::string> names;
-  std::vector<double> means, errors;
+  b << "<th>train s</th><th>tokens/s</th><th class=\"k\">front</th></tr>\n";
+  std::vector<std::string> names, colors;
+  std::vector<double> means, errors, latency, accuracy;
+  std::vector<bool> front;
   std::vector<std::vector<double>> points;
   for (const auto& cfg : c["configs"]) {
     const std::string name = cfg.value("name", "?");
+    const std::string cell = cfg.value("cell", "");
+    if (!size_rank.count(name)) size_rank[name] = per_cell[cell]++;
     b << "<tr" << (name == best ? " class=\"best\"" : "") << "><td class=\"k\">" << html_escape(name)
       << (name == best ? " &#9733;" : "") << "</td><td>" << fmt_or_dash(get_num(cfg, {"parameters"}), 0)
-      << "</td><td>" << fmt_or_dash(get_num(cfg, {"model_bytes"}) / 1024.0, 1) << "</td><td>"
+      << "</td><td>" << fmt_or_dash(get_num(cfg, {"int8_bytes"}) / 1024.0, 1) << "</td><td>"
+      << fmt_or_dash(get_num(cfg, {"latency_ms"}), 3) << "</td><td>"
       << fmt_or_dash(get_num(cfg, {"dev", "mean"})) << "</td><td>"
       << fmt_or_dash(get_num(cfg, {"dev", "std"})) << "</td>";
     if (with_test)
       b << "<td>" << fmt_or_dash(get_num(cfg, {"test", "mean"})) << "</td><td>"
         << fmt_or_dash(get_num(cfg, {"test", "std"})) << "</td>";
+    const bool on_front = cfg.value("pareto", false);
     b << "<td>" << fmt_or_dash(get_num(cfg, {"train_seconds", "mean"}), 1) << "</td><td>"
-      << fmt_or_dash(get_num(cfg, {"tokens_per_second", "mean"}), 0) << "</td></tr>\n";
+      << fmt_or_dash(get_num(cfg, {"tokens_per_second", "mean"}), 0) << "</td><td class=\"k\">"
+      << (on_front ? "&#9670; front" : "") << "</td></tr>\n";
     names.push_back(name);
+    colors.push_back(cell_color(cell));
     means.push_back(get_num(cfg, {"dev", "mean"}));
     errors.push_back(std::isfinite(get_num(cfg, {"dev", "std"})) ? get_num(cfg, {"dev", "std"}) : 0.0);
+    latency.push_back(get_num(cfg, {"latency_ms"}));
+    accuracy.push_back(with_test ? get_num(cfg, {"test", "mean"}) : get_num(cfg, {"dev", "mean"}));
+    front.push_back(on_front);
     std::vector<double> vals;
     if (cfg.contains("dev") && cfg["dev"].contains("values"))
       for (const auto& v : cfg["dev"]["values"])
@@ -524,32 +814,94 @@ std::string compare_report_html(const fs::path& compare_dir) {
     points.push_back(vals);
   }
   b << "</table>\n<p class=\"note\">Mean and sample standard deviation over seeds; &#9733; = best mean dev "
-    << html_escape(metric) << ".</p>\n";
-  b << "<h2>Dev " << html_escape(metric) << " per configuration</h2>\n"
-    << bar_chart_svg("Dev " + metric + " (bars: mean, whiskers: \u00b1 1 std, dots: seeds)", metric, names,
-                     means, errors, points);
+    << html_escape(metric)
+    << ". int8 KiB: the exported int8 model file; ms/text: its median batch-1 latency in the embedded "
+       "runtime "
+       "on the machine that ran the comparison; &#9670; front: no other configuration is both as accurate ("
+    << (with_test ? "test" : "dev") << ") and as fast.</p>\n";
 
-  if (c.contains("significance") && c["significance"].is_object()) {
-    const auto& s = c["significance"];
-    b << "<h2>Is the difference real?</h2>\n<p>" << html_escape(s.value("a", "")) << " vs "
-      << html_escape(s.value("b", "")) << ", seed " << html_escape(value_text(s.value("seed", json(nullptr))))
-      << " runs, on the " << html_escape(s.value("set", "")) << " set ("
-      << html_escape(value_text(s.value("examples", json(nullptr)))) << " examples; exact-match accuracy "
-      << fmt_or_dash(get_num(s, {"accuracy_a"})) << " vs " << fmt_or_dash(get_num(s, {"accuracy_b"}))
-      << ").</p>\n";
-    b << "<table><tr><th class=\"k\">test</th><th class=\"k\">evidence</th><th>p-value</th></tr>\n";
-    b << "<tr><td class=\"k\">McNemar exact</td><td class=\"k\">"
-      << fmt_or_dash(get_num(s, {"mcnemar_exact", "only_a"}), 0) << " right only by "
-      << html_escape(s.value("a", "")) << ", " << fmt_or_dash(get_num(s, {"mcnemar_exact", "only_b"}), 0)
-      << " right only by " << html_escape(s.value("b", "")) << "</td><td>"
-      << fmt_or_dash(get_num(s, {"mcnemar_exact", "p_value"})) << "</td></tr>\n";
-    b << "<tr><td class=\"k\">paired bootstrap</td><td class=\"k\">" << html_escape(s.value("a", ""))
-      << " better in " << fmt_or_dash(get_num(s, {"paired_bootstrap", "wins_a"}), 0) << " of "
-      << fmt_or_dash(get_num(s, {"paired_bootstrap", "samples"}), 0) << " resamples</td><td>"
-      << fmt_or_dash(get_num(s, {"paired_bootstrap", "p_value"})) << "</td></tr>\n</table>\n";
-    b << "<p class=\"note\">A small p-value (say below 0.05) means the gap is unlikely to be luck of the "
-         "test "
-         "examples; it says nothing about seed-to-seed variation, which the table above shows.</p>\n";
+  // Dev curves: mean over seeds per epoch, band from the lowest to the highest seed.
+  std::vector<Series> curves;
+  std::vector<SeriesStyle> styles;
+  if (c.contains("runs") && c["runs"].is_array()) {
+    for (const auto& cfg : c["configs"]) {
+      const std::string name = cfg.value("name", "?");
+      std::vector<std::vector<double>> by_epoch;
+      for (const auto& r : c["runs"]) {
+        if (r.value("config", "") != name || !r.contains("dev_curve") || !r["dev_curve"].is_array()) continue;
+        for (std::size_t e = 0; e < r["dev_curve"].size(); ++e) {
+          if (by_epoch.size() <= e) by_epoch.resize(e + 1);
+          if (r["dev_curve"][e].is_number()) by_epoch[e].push_back(r["dev_curve"][e].get<double>());
+        }
+      }
+      Series line;
+      line.name = name;
+      SeriesStyle st;
+      st.color = cell_color(cfg.value("cell", ""));
+      st.dash = kDashes[static_cast<std::size_t>(size_rank[name]) % std::size(kDashes)];
+      for (std::size_t e = 0; e < by_epoch.size(); ++e) {
+        if (by_epoch[e].empty()) continue;
+        double sum = 0.0;
+        for (const double v : by_epoch[e]) sum += v;
+        line.x.push_back(static_cast<double>(e + 1));
+        line.y.push_back(sum / static_cast<double>(by_epoch[e].size()));
+        st.lo.push_back(*std::min_element(by_epoch[e].begin(), by_epoch[e].end()));
+        st.hi.push_back(*std::max_element(by_epoch[e].begin(), by_epoch[e].end()));
+      }
+      curves.push_back(std::move(line));
+      styles.push_back(std::move(st));
+    }
+  }
+  b << "<h2>Dev " << html_escape(metric) << " per configuration</h2>\n<div class=\"charts\">\n"
+    << bar_chart_svg("Dev " + metric + " (bar: mean, whiskers: \u00b1 1 std, dots: seeds)", metric, names,
+                     means, errors, points, colors);
+  if (!curves.empty())
+    b << band_chart_svg("Dev " + metric + " per epoch (line: mean, band: seed range)", "epoch", metric,
+                        curves, styles);
+  b << "</div>\n";
+  b << "<h2>Accuracy and latency</h2>\n<div class=\"charts\">\n"
+    << front_chart_svg(std::string(with_test ? "Test " : "Dev ") + metric + " vs batch-1 latency",
+                       "ms per text (int8, embedded runtime)", metric, names, latency, accuracy, colors,
+                       front)
+    << "</div>\n<p class=\"note\">Blue: LSTM, orange: GRU.</p>\n";
+
+  if (c.contains("head_to_head") && c["head_to_head"].is_object()) {
+    const auto& h = c["head_to_head"];
+    const bool pts = h.value("points", true);
+    const double scale = pts ? 100.0 : 1.0;
+    const int dec = pts ? 1 : 4;
+    const std::string la = h.value("label_a", ""), lb = h.value("label_b", "");
+    b << "<h2>Head-to-head: " << html_escape(la) << " vs " << html_escape(lb) << "</h2>\n";
+    b << "<table><tr><th class=\"k\">config</th><th class=\"k\">" << html_escape(h.value("set", "")) << " "
+      << html_escape(h.value("metric", "")) << " per seed" << (pts ? " (points)" : "")
+      << "</th><th>mean</th><th>&#177; std</th></tr>\n";
+    for (const auto& [label, key, mean, sd] :
+         {std::tuple{la, "scores_a", "mean_a", "std_a"}, std::tuple{lb, "scores_b", "mean_b", "std_b"}}) {
+      std::string seeds;
+      if (h.contains(key))
+        for (const auto& v : h[key])
+          if (v.is_number()) seeds += (seeds.empty() ? "" : " ") + num(scale * v.get<double>(), dec);
+      b << "<tr><td class=\"k\">" << html_escape(label) << "</td><td class=\"k\">" << seeds << "</td><td>"
+        << fmt_or_dash(scale * get_num(h, {mean}), dec) << "</td><td>"
+        << fmt_or_dash(scale * get_num(h, {sd}), dec) << "</td></tr>\n";
+    }
+    b << "</table>\n<table><tr><th class=\"k\">method</th><th class=\"k\">result</th></tr>\n";
+    b << "<tr><td class=\"k\">two-level bootstrap (runs, then examples shared by all runs), "
+      << fmt_or_dash(get_num(h, {"two_level_bootstrap", "samples"}), 0) << " resamples</td><td class=\"k\">"
+      << "difference " << fmt_or_dash(scale * get_num(h, {"difference"}), dec) << ", 95% interval "
+      << fmt_or_dash(scale * get_num(h, {"two_level_bootstrap", "low"}), dec) << " to "
+      << fmt_or_dash(scale * get_num(h, {"two_level_bootstrap", "high"}), dec) << "</td></tr>\n";
+    b << "<tr><td class=\"k\">permutation test over the per-seed scores</td><td class=\"k\">p = "
+      << fmt_or_dash(get_num(h, {"permutation_test", "p_value"})) << "</td></tr>\n";
+    if (h.contains("per_seed_mcnemar") && h["per_seed_mcnemar"].is_array())
+      for (const auto& m : h["per_seed_mcnemar"])
+        b << "<tr><td class=\"k\">McNemar exact, seed "
+          << html_escape(value_text(m.value("seed", json(nullptr)))) << "</td><td class=\"k\">"
+          << fmt_or_dash(get_num(m, {"only_a"}), 0) << " right only by " << html_escape(la) << ", "
+          << fmt_or_dash(get_num(m, {"only_b"}), 0) << " only by " << html_escape(lb)
+          << "; p = " << fmt_or_dash(get_num(m, {"p_value"})) << "</td></tr>\n";
+    b << "</table>\n<p class=\"note\">The interval counts both sources of chance: which seeds were drawn and "
+         "which test examples. Per-seed McNemar tests look at examples only.</p>\n";
   }
 
   if (c.contains("runs") && c["runs"].is_array()) {
@@ -578,14 +930,55 @@ std::string compare_report_html(const fs::path& compare_dir) {
   return page(title, b.str());
 }
 
+std::string labelling_report_html(const fs::path& trial_dir) {
+  const json t = read_json_file(trial_dir / "labelling.json");
+  const std::string title = "gyre labelling trial: " + trial_dir.filename().string();
+  std::vector<Series> series;
+  for (const auto& rule : t.value("rules", json::array())) {
+    Series s{rule.value("rule", "?"), {}, {}};
+    for (const auto& p : rule.value("points", json::array())) {
+      s.x.push_back(get_num(p, {"labelled"}));
+      s.y.push_back(get_num(p, {"accuracy"}));
+    }
+    series.push_back(std::move(s));
+  }
+  std::ostringstream b;
+  b << "<h1>" << html_escape(title) << "</h1>\n<p class=\"sub\">pool " << html_escape(t.value("train", "?"))
+    << " (" << html_escape(value_text(t.value("examples", json(nullptr)))) << " examples), test "
+    << html_escape(t.value("test", "?")) << "</p>\n"
+    << "<p>Each rule starts from the same random " << html_escape(value_text(t.value("start", json(nullptr))))
+    << " labelled examples and adds " << html_escape(value_text(t.value("step", json(nullptr))))
+    << " per round: <b>random</b> at random, <b>uncertain</b> the smallest margins (uncertainty by "
+    << html_escape(t.value("measure", "?"))
+    << "), <b>diverse</b> greedy k-center (Sener &amp; Savarese 2018) over the model's representation among "
+       "the most uncertain. The model is retrained from scratch each round.</p>\n"
+    << "<div class=\"charts\">\n"
+    << line_chart_svg("Test accuracy by labelled examples", "labelled examples", "accuracy", series)
+    << "</div>\n<table><tr><th class=\"k\">rule</th>";
+  if (!series.empty())
+    for (const double x : series[0].x) b << "<th>" << fmt_or_dash(x, 0) << "</th>";
+  b << "</tr>\n";
+  for (const auto& s : series) {
+    b << "<tr><td class=\"k\">" << html_escape(s.name) << "</td>";
+    for (const double y : s.y) b << "<td>" << fmt_or_dash(y) << "</td>";
+    b << "</tr>\n";
+  }
+  b << "</table>\n";
+  return page(title, b.str());
+}
+
 fs::path write_report(const fs::path& dir, const fs::path& out) {
   std::error_code ec;
   if (!fs::is_directory(dir, ec)) throw IoError(dir.string() + ": not a directory");
   const bool is_compare = fs::exists(dir / "compare.json", ec);
-  if (!is_compare && !fs::exists(dir / "metrics.json", ec))
+  const bool is_trial = !is_compare && fs::exists(dir / "labelling.json", ec);
+  if (!is_compare && !is_trial && !fs::exists(dir / "metrics.json", ec))
     throw FormatError(dir.string(),
-                      "neither a finished run (metrics.json) nor a compare directory (compare.json)");
-  const std::string html = is_compare ? compare_report_html(dir) : run_report_html(dir);
+                      "neither a finished run (metrics.json), a compare directory (compare.json) nor a "
+                      "labelling trial (labelling.json)");
+  const std::string html = is_compare ? compare_report_html(dir)
+                           : is_trial ? labelling_report_html(dir)
+                                      : run_report_html(dir);
   const fs::path target = out.empty() ? dir / "report.html" : out;
   write_file_atomic(target, html);
   return target;

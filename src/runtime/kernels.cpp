@@ -12,6 +12,14 @@
 #include <immintrin.h>
 #define GYRE_RUNTIME_X86 1
 #endif
+#if defined(__aarch64__) && (defined(__GNUC__) || defined(__clang__))
+#include <arm_neon.h>
+#include <sys/auxv.h>
+#define GYRE_RUNTIME_ARM64 1
+#ifndef HWCAP_ASIMDDP
+#define HWCAP_ASIMDDP (1UL << 20)  // Linux arch/arm64/include/uapi/asm/hwcap.h
+#endif
+#endif
 
 namespace gyre::runtime::detail {
 namespace {
@@ -633,6 +641,343 @@ constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx51
                               matmul_packed_f16_avx512};
 #endif  // GYRE_RUNTIME_X86
 
+#if defined(GYRE_RUNTIME_ARM64)
+// ---- AArch64 Advanced SIMD (NEON) -------------------------------------------------------------
+// NEON is part of the AArch64 base architecture, so these need no target attribute; the SDOT
+// kernels below do (ARMv8.2 dot product, HWCAP_ASIMDDP).
+
+inline float32x4_t load4(const float* p) {
+  return vld1q_f32(p);
+}
+inline float32x4_t load4(const std::uint16_t* p) {
+  return vcvt_f32_f16(vreinterpret_f16_u16(vld1_u16(p)));
+}
+inline float scalar_at(const float* p, std::size_t i) {
+  return p[i];
+}
+inline float scalar_at(const std::uint16_t* p, std::size_t i) {
+  return half_to_float(p[i]);
+}
+
+// Row-major weights: four activation rows share each weight load (as the AVX2 kernel); a single
+// row keeps four accumulators so that four FMA chains are in flight.
+template <class W>
+void matmul_neon(const W* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
+                 std::size_t ldy) {
+  std::size_t t = 0;
+  for (; t + 4 <= n; t += 4) {
+    const float* x0 = x + t * cols;
+    const float* x1 = x0 + cols;
+    const float* x2 = x1 + cols;
+    const float* x3 = x2 + cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const W* wr = w + r * cols;
+      float32x4_t a0 = vdupq_n_f32(0.0f), a1 = a0, a2 = a0, a3 = a0;
+      std::size_t c = 0;
+      for (; c + 4 <= cols; c += 4) {
+        const float32x4_t wv = load4(wr + c);
+        a0 = vfmaq_f32(a0, wv, vld1q_f32(x0 + c));
+        a1 = vfmaq_f32(a1, wv, vld1q_f32(x1 + c));
+        a2 = vfmaq_f32(a2, wv, vld1q_f32(x2 + c));
+        a3 = vfmaq_f32(a3, wv, vld1q_f32(x3 + c));
+      }
+      float s0 = vaddvq_f32(a0), s1 = vaddvq_f32(a1), s2 = vaddvq_f32(a2), s3 = vaddvq_f32(a3);
+      for (; c < cols; ++c) {
+        const float wc = scalar_at(wr, c);
+        s0 += wc * x0[c];
+        s1 += wc * x1[c];
+        s2 += wc * x2[c];
+        s3 += wc * x3[c];
+      }
+      y[t * ldy + r] = s0;
+      y[(t + 1) * ldy + r] = s1;
+      y[(t + 2) * ldy + r] = s2;
+      y[(t + 3) * ldy + r] = s3;
+    }
+  }
+  for (; t < n; ++t) {
+    const float* xt = x + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const W* wr = w + r * cols;
+      float32x4_t a0 = vdupq_n_f32(0.0f), a1 = a0, a2 = a0, a3 = a0;
+      std::size_t c = 0;
+      for (; c + 16 <= cols; c += 16) {
+        a0 = vfmaq_f32(a0, load4(wr + c), vld1q_f32(xt + c));
+        a1 = vfmaq_f32(a1, load4(wr + c + 4), vld1q_f32(xt + c + 4));
+        a2 = vfmaq_f32(a2, load4(wr + c + 8), vld1q_f32(xt + c + 8));
+        a3 = vfmaq_f32(a3, load4(wr + c + 12), vld1q_f32(xt + c + 12));
+      }
+      for (; c + 4 <= cols; c += 4) a0 = vfmaq_f32(a0, load4(wr + c), vld1q_f32(xt + c));
+      float s = vaddvq_f32(vaddq_f32(vaddq_f32(a0, a1), vaddq_f32(a2, a3)));
+      for (; c < cols; ++c) s += scalar_at(wr, c) * xt[c];
+      y[t * ldy + r] = s;
+    }
+  }
+}
+
+void matmul_f32_neon(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                     float* y, std::size_t ldy) {
+  matmul_neon(w, rows, cols, x, n, y, ldy);
+}
+void matmul_f16_neon(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
+                     std::size_t n, float* y, std::size_t ldy) {
+  matmul_neon(w, rows, cols, x, n, y, ldy);
+}
+
+// int8 without the dot-product instructions: SMULL/SMULL2 to int16 (|q| <= 127, so each product
+// fits), SADALP adds pairs into int32: exact, like the portable loop.
+void matmul_i8_neon(const std::int8_t* w, const float* w_scale, const std::int32_t*, std::size_t rows,
+                    std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::int8_t* xt = x.xs + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      int32x4_t a0 = vdupq_n_s32(0), a1 = a0;
+      std::size_t c = 0;
+      for (; c + 16 <= cols; c += 16) {
+        const int8x16_t wv = vld1q_s8(wr + c), xv = vld1q_s8(xt + c);
+        a0 = vpadalq_s16(a0, vmull_s8(vget_low_s8(wv), vget_low_s8(xv)));
+        a1 = vpadalq_s16(a1, vmull_high_s8(wv, xv));
+      }
+      std::int32_t s = vaddvq_s32(vaddq_s32(a0, a1));
+      for (; c < cols; ++c) s += std::int32_t{wr[c]} * std::int32_t{xt[c]};
+      y[t * ldy + r] = static_cast<float>(s) * (w_scale[r] * x.scale[t]);
+    }
+  }
+}
+
+// Panels of 16 rows (pack_f32): four 4-lane accumulators per panel, four columns per x load
+// (FMLA by lane), two panels per pass for eight independent FMA chains.
+template <class W>
+void matmul_packed_neon(const W* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                        float* y, std::size_t ldy) {
+  const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
+  const std::size_t stride = kPanelRows * cols;
+  for (std::size_t t = 0; t < n; ++t) {
+    const float* xt = x + t * cols;
+    float* yt = y + t * ldy;
+    for (std::size_t q = 0; q < panels; ++q) {
+      const W* pq = p + q * stride;
+      float32x4_t a0 = vdupq_n_f32(0.0f), a1 = a0, a2 = a0, a3 = a0;
+      std::size_t c = 0;
+      for (; c + 4 <= cols; c += 4) {
+        const float32x4_t xv = vld1q_f32(xt + c);
+        const W* pc = pq + c * kPanelRows;
+        a0 = vfmaq_laneq_f32(a0, load4(pc), xv, 0);
+        a1 = vfmaq_laneq_f32(a1, load4(pc + 4), xv, 0);
+        a2 = vfmaq_laneq_f32(a2, load4(pc + 8), xv, 0);
+        a3 = vfmaq_laneq_f32(a3, load4(pc + 12), xv, 0);
+        a0 = vfmaq_laneq_f32(a0, load4(pc + 16), xv, 1);
+        a1 = vfmaq_laneq_f32(a1, load4(pc + 20), xv, 1);
+        a2 = vfmaq_laneq_f32(a2, load4(pc + 24), xv, 1);
+        a3 = vfmaq_laneq_f32(a3, load4(pc + 28), xv, 1);
+        a0 = vfmaq_laneq_f32(a0, load4(pc + 32), xv, 2);
+        a1 = vfmaq_laneq_f32(a1, load4(pc + 36), xv, 2);
+        a2 = vfmaq_laneq_f32(a2, load4(pc + 40), xv, 2);
+        a3 = vfmaq_laneq_f32(a3, load4(pc + 44), xv, 2);
+        a0 = vfmaq_laneq_f32(a0, load4(pc + 48), xv, 3);
+        a1 = vfmaq_laneq_f32(a1, load4(pc + 52), xv, 3);
+        a2 = vfmaq_laneq_f32(a2, load4(pc + 56), xv, 3);
+        a3 = vfmaq_laneq_f32(a3, load4(pc + 60), xv, 3);
+      }
+      for (; c < cols; ++c) {
+        const float32x4_t xv = vdupq_n_f32(xt[c]);
+        const W* pc = pq + c * kPanelRows;
+        a0 = vfmaq_f32(a0, load4(pc), xv);
+        a1 = vfmaq_f32(a1, load4(pc + 4), xv);
+        a2 = vfmaq_f32(a2, load4(pc + 8), xv);
+        a3 = vfmaq_f32(a3, load4(pc + 12), xv);
+      }
+      const std::size_t base = q * kPanelRows;
+      const std::size_t valid = std::min(kPanelRows, rows - base);
+      if (valid == kPanelRows) {
+        vst1q_f32(yt + base, a0);
+        vst1q_f32(yt + base + 4, a1);
+        vst1q_f32(yt + base + 8, a2);
+        vst1q_f32(yt + base + 12, a3);
+      } else {
+        float out[kPanelRows];
+        vst1q_f32(out, a0);
+        vst1q_f32(out + 4, a1);
+        vst1q_f32(out + 8, a2);
+        vst1q_f32(out + 12, a3);
+        for (std::size_t r = 0; r < valid; ++r) yt[base + r] = out[r];
+      }
+    }
+  }
+}
+
+void matmul_packed_f32_neon(const float* p, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                            float* y, std::size_t ldy) {
+  matmul_packed_neon(p, rows, cols, x, n, y, ldy);
+}
+void matmul_packed_f16_neon(const std::uint16_t* p, std::size_t rows, std::size_t cols, const float* x,
+                            std::size_t n, float* y, std::size_t ldy) {
+  matmul_packed_neon(p, rows, cols, x, n, y, ldy);
+}
+
+// exp_approx four lanes at a time: the same range reduction and polynomial; floor by FCVTMS.
+inline float32x4_t exp_neon(float32x4_t x) {
+  x = vminq_f32(vmaxq_f32(x, vdupq_n_f32(-87.0f)), vdupq_n_f32(88.0f));
+  const float32x4_t t = vaddq_f32(vmulq_f32(x, vdupq_n_f32(1.44269504088896341f)), vdupq_n_f32(0.5f));
+  const int32x4_t n = vcvtmq_s32_f32(t);
+  const float32x4_t fn = vcvtq_f32_s32(n);
+  float32x4_t r = vsubq_f32(x, vmulq_f32(fn, vdupq_n_f32(0.693359375f)));
+  r = vsubq_f32(r, vmulq_f32(fn, vdupq_n_f32(-2.12194440e-4f)));
+  float32x4_t p = vdupq_n_f32(1.9875691500e-4f);
+  p = vfmaq_f32(vdupq_n_f32(1.3981999507e-3f), p, r);
+  p = vfmaq_f32(vdupq_n_f32(8.3334519073e-3f), p, r);
+  p = vfmaq_f32(vdupq_n_f32(4.1665795894e-2f), p, r);
+  p = vfmaq_f32(vdupq_n_f32(1.6666665459e-1f), p, r);
+  p = vfmaq_f32(vdupq_n_f32(5.0000001201e-1f), p, r);
+  p = vaddq_f32(vfmaq_f32(r, p, vmulq_f32(r, r)), vdupq_n_f32(1.0f));
+  const int32x4_t bits = vshlq_n_s32(vaddq_s32(n, vdupq_n_s32(127)), 23);
+  return vmulq_f32(p, vreinterpretq_f32_s32(bits));
+}
+
+void sigmoid_neon(float* x, std::size_t n) {
+  const float32x4_t one = vdupq_n_f32(1.0f);
+  std::size_t i = 0;
+  for (; i + 4 <= n; i += 4) {
+    const float32x4_t e = exp_neon(vnegq_f32(vld1q_f32(x + i)));
+    vst1q_f32(x + i, vdivq_f32(one, vaddq_f32(one, e)));
+  }
+  sigmoid_loop(x + i, n - i);
+}
+void tanh_neon(float* x, std::size_t n) {
+  const float32x4_t one = vdupq_n_f32(1.0f), two = vdupq_n_f32(2.0f);
+  std::size_t i = 0;
+  for (; i + 4 <= n; i += 4) {
+    const float32x4_t e = exp_neon(vmulq_f32(vdupq_n_f32(-2.0f), vld1q_f32(x + i)));
+    vst1q_f32(x + i, vsubq_f32(vdivq_f32(two, vaddq_f32(one, e)), one));
+  }
+  tanh_loop(x + i, n - i);
+}
+
+constexpr Kernels kNeon{
+    "neon",    matmul_f32_neon,        matmul_f16_neon, matmul_i8_neon,        sigmoid_neon,
+    tanh_neon, matmul_packed_f32_neon, nullptr,         matmul_packed_f16_neon};
+
+// ---- AArch64 SDOT (ARMv8.2 dot product) -------------------------------------------------------
+// SDOT adds four signed byte products into each int32 lane, exact for |q| <= 127; signed x signed,
+// so unlike VNNI no +128 offset and no w_sum correction.
+#define GYRE_SDOT __attribute__((target("arch=armv8.2-a+dotprod")))
+
+GYRE_SDOT void matmul_i8_sdot(const std::int8_t* w, const float* w_scale, const std::int32_t*,
+                              std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
+                              std::size_t ldy) {
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::int8_t* xt = x.xs + t * cols;
+    for (std::size_t r = 0; r < rows; ++r) {
+      const std::int8_t* wr = w + r * cols;
+      int32x4_t a0 = vdupq_n_s32(0), a1 = a0;
+      std::size_t c = 0;
+      for (; c + 32 <= cols; c += 32) {
+        a0 = vdotq_s32(a0, vld1q_s8(wr + c), vld1q_s8(xt + c));
+        a1 = vdotq_s32(a1, vld1q_s8(wr + c + 16), vld1q_s8(xt + c + 16));
+      }
+      for (; c + 16 <= cols; c += 16) a0 = vdotq_s32(a0, vld1q_s8(wr + c), vld1q_s8(xt + c));
+      std::int32_t s = vaddvq_s32(vaddq_s32(a0, a1));
+      for (; c < cols; ++c) s += std::int32_t{wr[c]} * std::int32_t{xt[c]};
+      y[t * ldy + r] = static_cast<float>(s) * (w_scale[r] * x.scale[t]);
+    }
+  }
+}
+
+// Packed weights (pack_i8: per panel of 16 rows, groups of 4 columns, 16 bytes = 4 rows x 4
+// columns per register): 16 activation bytes are loaded once and SDOT-by-lane picks the 4 bytes
+// of one column group, so no horizontal sums are needed.
+GYRE_SDOT void matmul_packed_i8_sdot(const std::int8_t* p, const float* w_scale, const std::int32_t*,
+                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n,
+                                     float* y, std::size_t ldy) {
+  const std::size_t panels = (rows + 15) / 16;
+  const std::size_t groups = (cols + 3) / 4;
+  const std::size_t stride = groups * 64;
+  const std::size_t quads = cols / 16;  // runs of 4 full groups
+  for (std::size_t t = 0; t < n; ++t) {
+    const std::int8_t* xt = x.xs + t * cols;
+    // The columns after the last full quad, zero-padded to 16 bytes (padded weights are 0 too).
+    std::int8_t rest[16] = {};
+    for (std::size_t c = quads * 16; c < cols; ++c) rest[c - quads * 16] = xt[c];
+    const int8x16_t xr = vld1q_s8(rest);
+    const std::size_t rest_groups = groups - quads * 4;
+    const float xs = x.scale[t];
+    for (std::size_t q = 0; q < panels; ++q) {
+      const std::int8_t* pq = p + q * stride;
+      int32x4_t a0 = vdupq_n_s32(0), a1 = a0, a2 = a0, a3 = a0;
+      for (std::size_t g4 = 0; g4 < quads; ++g4) {
+        const int8x16_t xv = vld1q_s8(xt + 16 * g4);
+        const std::int8_t* pg = pq + g4 * 256;
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg), xv, 0);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 16), xv, 0);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 32), xv, 0);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 48), xv, 0);
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg + 64), xv, 1);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 80), xv, 1);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 96), xv, 1);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 112), xv, 1);
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg + 128), xv, 2);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 144), xv, 2);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 160), xv, 2);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 176), xv, 2);
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg + 192), xv, 3);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 208), xv, 3);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 224), xv, 3);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 240), xv, 3);
+      }
+      const std::int8_t* pg = pq + quads * 256;
+      // Lane indices must be constants: one step per remaining group (at most 3 plus a partial one).
+      if (rest_groups > 0) {
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg), xr, 0);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 16), xr, 0);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 32), xr, 0);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 48), xr, 0);
+      }
+      if (rest_groups > 1) {
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg + 64), xr, 1);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 80), xr, 1);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 96), xr, 1);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 112), xr, 1);
+      }
+      if (rest_groups > 2) {
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg + 128), xr, 2);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 144), xr, 2);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 160), xr, 2);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 176), xr, 2);
+      }
+      if (rest_groups > 3) {
+        a0 = vdotq_laneq_s32(a0, vld1q_s8(pg + 192), xr, 3);
+        a1 = vdotq_laneq_s32(a1, vld1q_s8(pg + 208), xr, 3);
+        a2 = vdotq_laneq_s32(a2, vld1q_s8(pg + 224), xr, 3);
+        a3 = vdotq_laneq_s32(a3, vld1q_s8(pg + 240), xr, 3);
+      }
+      // y = float(sum) * (w_scale * x_scale): the same expression as every other path.
+      const std::size_t base = q * 16;
+      float* yt = y + t * ldy + base;
+      if (rows - base >= 16) {
+        const float32x4_t xsv = vdupq_n_f32(xs);
+        vst1q_f32(yt, vmulq_f32(vcvtq_f32_s32(a0), vmulq_f32(vld1q_f32(w_scale + base), xsv)));
+        vst1q_f32(yt + 4, vmulq_f32(vcvtq_f32_s32(a1), vmulq_f32(vld1q_f32(w_scale + base + 4), xsv)));
+        vst1q_f32(yt + 8, vmulq_f32(vcvtq_f32_s32(a2), vmulq_f32(vld1q_f32(w_scale + base + 8), xsv)));
+        vst1q_f32(yt + 12, vmulq_f32(vcvtq_f32_s32(a3), vmulq_f32(vld1q_f32(w_scale + base + 12), xsv)));
+      } else {
+        std::int32_t sums[16];
+        vst1q_s32(sums, a0);
+        vst1q_s32(sums + 4, a1);
+        vst1q_s32(sums + 8, a2);
+        vst1q_s32(sums + 12, a3);
+        for (std::size_t r = 0; r < rows - base; ++r)
+          yt[r] = static_cast<float>(sums[r]) * (w_scale[base + r] * xs);
+      }
+    }
+  }
+}
+
+constexpr Kernels kNeonSdot{
+    "neon-sdot", matmul_f32_neon,        matmul_f16_neon,       matmul_i8_sdot,        sigmoid_neon,
+    tanh_neon,   matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon};
+#endif  // GYRE_RUNTIME_ARM64
+
 }  // namespace
 
 #if defined(GYRE_RUNTIME_X86)
@@ -654,9 +999,11 @@ bool isa_supported(Isa isa) noexcept {
       return isa_supported(Isa::kAvx2) && __builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512bw") &&
              __builtin_cpu_supports("avx512vl");
     case Isa::kAvx512Vnni: return isa_supported(Isa::kAvx512) && __builtin_cpu_supports("avx512vnni");
-#else
-    default: return false;
+#elif defined(GYRE_RUNTIME_ARM64)
+    case Isa::kNeon: return true;  // Advanced SIMD is part of the AArch64 base architecture
+    case Isa::kNeonSdot: return (getauxval(AT_HWCAP) & HWCAP_ASIMDDP) != 0;
 #endif
+    default: return false;
   }
   return false;
 }
@@ -669,6 +1016,12 @@ const Kernels& kernels_for(Isa isa) noexcept {
     case Isa::kAvx512Vnni: return kAvx512Vnni;
     default: break;
   }
+#elif defined(GYRE_RUNTIME_ARM64)
+  switch (isa) {
+    case Isa::kNeon: return kNeon;
+    case Isa::kNeonSdot: return kNeonSdot;
+    default: break;
+  }
 #else
   (void)isa;
 #endif
@@ -677,15 +1030,27 @@ const Kernels& kernels_for(Isa isa) noexcept {
 
 Isa best_isa() noexcept {
   static const Isa chosen = [] {
-    Isa cap = Isa::kAvx512Vnni;
+    // x86 sets rank 1..3, AArch64 sets 4..5; a cap keeps to its own family (capping at "neon"
+    // on x86 gives the portable loops, not AVX-512). Unknown names leave the choice free.
+    Isa cap = Isa::kNeonSdot;
+    bool capped = false;
     if (const char* env = std::getenv("GYRE_RUNTIME_ISA")) {
       const std::string_view v(env);
+      capped = true;
       if (v == "portable") cap = Isa::kPortable;
-      if (v == "avx2") cap = Isa::kAvx2;
-      if (v == "avx512") cap = Isa::kAvx512;
+      else if (v == "avx2") cap = Isa::kAvx2;
+      else if (v == "avx512") cap = Isa::kAvx512;
+      else if (v == "vnni") cap = Isa::kAvx512Vnni;
+      else if (v == "neon") cap = Isa::kNeon;
+      else if (v == "sdot") cap = Isa::kNeonSdot;
+      else capped = false;
     }
-    for (int i = static_cast<int>(cap); i > 0; --i)
-      if (isa_supported(static_cast<Isa>(i))) return static_cast<Isa>(i);
+    const bool cap_arm = cap >= Isa::kNeon;
+    for (int i = static_cast<int>(cap); i > 0; --i) {
+      const auto isa = static_cast<Isa>(i);
+      if (capped && (isa >= Isa::kNeon) != cap_arm) continue;
+      if (isa_supported(isa)) return isa;
+    }
     return Isa::kPortable;
   }();
   return chosen;

@@ -1,5 +1,6 @@
-// Model loading (header schema in docs/model-format.md) and the forward pass: embedding ->
-// LSTM/GRU stack -> pooling -> head, exactly as DEVELOPERS.md ("Numerical conventions") defines it.
+// Model loading (header schema in docs/model-format.md) and the forward pass: embedding (joined
+// with the character encoder's features when the model has one) -> LSTM/GRU stack -> pooling ->
+// head, exactly as DEVELOPERS.md ("Numerical conventions") defines it.
 
 #include "gyre/runtime/model.hpp"
 
@@ -9,24 +10,13 @@
 #include <limits>
 #include <optional>
 
+#include "gyre/runtime/calibration.hpp"
+#include "gyre/runtime/char_tokens.hpp"
 #include "runtime/detail/half.hpp"
-#include "runtime/detail/json.hpp"
 #include "runtime/detail/kernels.hpp"
 #include "runtime/detail/spans.hpp"
 
 namespace gyre::runtime {
-
-using detail::Json;
-
-const char* to_string(Task v) { return v == Task::kClassify ? "classify" : "tag"; }
-const char* to_string(Cell v) { return v == Cell::kLstm ? "lstm" : "gru"; }
-const char* to_string(Pooling v) {
-  return v == Pooling::kLast ? "last" : v == Pooling::kMean ? "mean" : "max";
-}
-const char* to_string(Output v) {
-  return v == Output::kSoftmax ? "softmax" : v == Output::kSigmoid ? "sigmoid" : "crf";
-}
-const char* to_string(TagScheme v) { return v == TagScheme::kNone ? "none" : v == TagScheme::kBio ? "bio" : "bioes"; }
 
 namespace {
 
@@ -35,9 +25,9 @@ struct Weights {
   DType dtype = DType::kF32;
   const void* data = nullptr;
   const float* scales = nullptr;
-  std::vector<std::int32_t> sums;  // i8: per-row sum of q (VNNI correction)
-  std::vector<float> packed;        // f32: panel layout for matmul_packed_f32 (one copy at load)
-  std::vector<std::int8_t> packed_i8;  // i8: VNNI operand layout, when the kernels have one
+  std::vector<std::int32_t> sums;         // i8: per-row sum of q (VNNI correction)
+  std::vector<float> packed;              // f32: panel layout for matmul_packed_f32 (one copy at load)
+  std::vector<std::int8_t> packed_i8;     // i8: VNNI operand layout, when the kernels have one
   std::vector<std::uint16_t> packed_f16;  // f16: panel layout
   std::size_t rows = 0, cols = 0;
 };
@@ -47,7 +37,9 @@ struct Direction {
   std::vector<float> bias, bias_hidden;
 };
 
-inline float sigmoid(float x) { return 1.0f / (1.0f + std::exp(-x)); }
+inline float sigmoid(float x) {
+  return 1.0f / (1.0f + std::exp(-x));
+}
 
 std::uint64_t fnv1a(std::string_view s) {  // FNV-1a 64-bit (Fowler, Noll, Vo; IETF draft-eastlake-fnv)
   std::uint64_t h = 0xcbf29ce484222325ULL;
@@ -84,6 +76,12 @@ struct Model::Impl {
   std::vector<std::string> tag_type;  // "" for O
   const detail::Kernels* kernels = nullptr;
   std::size_t max_input = 0;
+  // Character encoder (arch.has_char_encoder()): its small tensors decoded to f32 at load.
+  CharacterIds characters;
+  std::optional<Tokenizer> surface_tokenizer;
+  std::vector<float> char_embedding;  // [Vc x Ec]
+  std::vector<float> char_conv;       // [Fc x w*Ec], window slot k at columns [k*Ec, (k+1)*Ec)
+  std::vector<float> char_bias;       // [Fc]
 
   std::size_t vocab_size() const { return vocab_off.size() - 1; }
   std::string_view vocab(std::uint32_t id) const {
@@ -107,160 +105,56 @@ struct Model::Impl {
 
 // ---- header -------------------------------------------------------------------------------------
 
-namespace {
-
-struct Field {
-  const Model::Impl& m;
-  const Json& obj;
-  std::string where;
-
-  const Json& get(const char* key) const {
-    const Json* v = obj.find(key);
-    if (!v) m.fail("header: missing \"" + where + key + "\"");
-    return *v;
-  }
-  std::string str(const char* key) const {
-    const Json& v = get(key);
-    if (!v.is_string()) m.fail("header: \"" + where + key + "\" must be a string");
-    return v.as_string();
-  }
-  bool boolean(const char* key) const {
-    const Json& v = get(key);
-    if (!v.is_bool()) m.fail("header: \"" + where + key + "\" must be true or false");
-    return v.as_bool();
-  }
-  std::size_t integer(const char* key, double lo, double hi) const {
-    const Json& v = get(key);
-    if (!v.is_number() || v.as_number() != std::floor(v.as_number()) || v.as_number() < lo || v.as_number() > hi)
-      m.fail("header: \"" + where + key + "\" must be an integer in [" + std::to_string(static_cast<long long>(lo)) +
-             ", " + std::to_string(static_cast<long long>(hi)) + "]");
-    return static_cast<std::size_t>(v.as_number());
-  }
-  template <class E>
-  E choice(const char* key, std::initializer_list<std::pair<const char*, E>> options) const {
-    const std::string s = str(key);
-    std::string names;
-    for (const auto& [name, value] : options) {
-      if (s == name) return value;
-      names += names.empty() ? "" : ", ";
-      names += name;
-    }
-    m.fail("header: \"" + where + key + "\" is \"" + s + "\"; expected one of " + names);
-  }
-  void only(std::initializer_list<const char*> allowed) const {
-    for (const auto& k : obj.keys()) {
-      bool ok = false;
-      for (const char* a : allowed) ok = ok || k == a;
-      if (!ok) m.fail("header: unknown key \"" + where + k + "\" (written by a newer gyre?)");
-    }
-  }
-};
-
-}  // namespace
-
 void Model::Impl::parse_header() {
-  const Json h = Json::parse(file.header_json(), file.name() + ": header JSON");
-  const Field top{*this, h, ""};
-  const Json& arch_json = top.get("architecture");
-  if (!arch_json.is_object()) fail("header: \"architecture\" must be an object");
-  const Field a{*this, arch_json, "architecture."};
-  a.only({"task", "cell", "embedding_size", "hidden_size", "layers", "bidirectional", "pooling", "output",
-          "multi_label_threshold", "tag_scheme"});
-  arch.task = a.choice<Task>("task", {{"classify", Task::kClassify}, {"tag", Task::kTag}});
-  arch.cell = a.choice<Cell>("cell", {{"lstm", Cell::kLstm}, {"gru", Cell::kGru}});
-  arch.embedding_size = a.integer("embedding_size", 1, 1 << 16);
-  arch.hidden_size = a.integer("hidden_size", 1, 1 << 16);
-  arch.layers = a.integer("layers", 1, 64);
-  arch.bidirectional = a.boolean("bidirectional");
-  if (arch.task == Task::kClassify) {
-    arch.pooling = a.choice<Pooling>("pooling", {{"last", Pooling::kLast}, {"mean", Pooling::kMean}, {"max", Pooling::kMax}});
-    arch.output = a.choice<Output>("output", {{"softmax", Output::kSoftmax}, {"sigmoid", Output::kSigmoid}});
-    if (arch.output == Output::kSigmoid) {
-      const Json& t = a.get("multi_label_threshold");
-      if (!t.is_number() || !(t.as_number() > 0.0 && t.as_number() < 1.0))
-        fail("header: \"architecture.multi_label_threshold\" must be a number in (0, 1)");
-      arch.multi_label_threshold = static_cast<float>(t.as_number());
-    }
-  } else {
-    arch.output = a.choice<Output>("output", {{"softmax", Output::kSoftmax}, {"crf", Output::kCrf}});
-    arch.tag_scheme =
-        a.choice<TagScheme>("tag_scheme", {{"bio", TagScheme::kBio}, {"bioes", TagScheme::kBioes}, {"none", TagScheme::kNone}});
-  }
-
-  const Json& labels_json = top.get("labels");
-  if (!labels_json.is_array() || labels_json.size() == 0) fail("header: \"labels\" must be a non-empty array");
-  for (const Json& l : labels_json.items()) {
-    if (!l.is_string() || l.as_string().empty()) fail("header: every label must be a non-empty string");
-    labels.push_back(l.as_string());
-  }
-  {
-    std::vector<std::string> sorted = labels;
-    std::sort(sorted.begin(), sorted.end());
-    const auto dup = std::adjacent_find(sorted.begin(), sorted.end());
-    if (dup != sorted.end()) fail("header: label \"" + *dup + "\" appears twice");
-  }
+  ModelHeader h = parse_model_header(file.header_json(), file.name());
+  if (h.format != "gyre-model")
+    fail("a training checkpoint, not an exported model (run `gyre export` on it for the runtime)");
+  check_model_tensors(h, file);  // before anything below allocates from the header's sizes
+  arch = h.architecture;
+  labels = std::move(h.labels);
+  tok_settings = h.tokenizer;
   if (arch.task == Task::kTag) {
     for (const std::string& l : labels) {
-      if (arch.tag_scheme == TagScheme::kNone || l == "O") {
-        tag_prefix.push_back(l == "O" ? 'O' : 'S');
-        tag_type.push_back(l == "O" ? "" : l);
-        continue;
-      }
-      const std::string allowed = arch.tag_scheme == TagScheme::kBio ? "BI" : "BIES";
-      if (l.size() < 3 || l[1] != '-' || allowed.find(l[0]) == std::string::npos)
-        fail("header: tag \"" + l + "\" does not follow the " + to_string(arch.tag_scheme) +
-             " scheme (O or " + (arch.tag_scheme == TagScheme::kBio ? "B-/I-" : "B-/I-/E-/S-") + "TYPE)");
-      tag_prefix.push_back(l[0]);
-      tag_type.push_back(l.substr(2));
+      // Without a scheme every label but O is a one-token span type (parse_model_header checked
+      // that the tags of a scheme have the form P-TYPE).
+      const bool plain = arch.tag_scheme == TagScheme::kNone || l == "O";
+      tag_prefix.push_back(l == "O" ? 'O' : plain ? 'S' : l[0]);
+      tag_type.push_back(l == "O" ? "" : plain ? l : l.substr(2));
     }
   }
-
-  const Json& tok_json = top.get("tokenizer");
-  if (!tok_json.is_object()) fail("header: \"tokenizer\" must be an object");
-  const Field t{*this, tok_json, "tokenizer."};
-  t.only({"mode", "nfkc", "case_fold", "fold_digits", "keep_punctuation", "max_tokens"});
-  try {
-    tok_settings.mode = tokenizer_mode_from_string(t.str("mode"));
-  } catch (const Error& e) {
-    fail(std::string("header: \"tokenizer.mode\": ") + e.what());
-  }
-  tok_settings.nfkc = t.boolean("nfkc");
-  tok_settings.case_fold = t.boolean("case_fold");
-  tok_settings.fold_digits = t.boolean("fold_digits");
-  tok_settings.keep_punctuation = t.boolean("keep_punctuation");
-  tok_settings.max_tokens = t.integer("max_tokens", 0, 1e9);
   try {
     tokenizer.emplace(tok_settings);
+    if (arch.has_char_encoder()) surface_tokenizer.emplace(surface_settings(tok_settings));
   } catch (const Error& e) {
     fail(std::string("tokenizer: ") + e.what());
   }
-
-  const Json& vocab_json = top.get("vocabulary");
-  if (!vocab_json.is_array() || vocab_json.size() < 2)
-    fail("header: \"vocabulary\" must be an array of at least 2 tokens (padding, unknown)");
-  if (vocab_json.size() > (1U << 30)) fail("header: vocabulary too large");
-  vocab_off.reserve(vocab_json.size() + 1);
+  if (arch.has_char_encoder()) {
+    if (!tokenizer_has_icu())
+      fail(
+          "the model has a character encoder, which reads grapheme clusters: this runtime was built "
+          "without ICU (GYRE_RUNTIME_ICU=OFF)");
+    characters = CharacterIds(h.characters);
+  }
+  std::size_t blob = 0;
+  for (const std::string& t : h.vocabulary) blob += t.size();
+  if (blob > std::numeric_limits<std::uint32_t>::max()) fail("header: vocabulary too large");
+  vocab_blob.reserve(blob);
+  vocab_off.reserve(h.vocabulary.size() + 1);
   vocab_off.push_back(0);
-  for (const Json& v : vocab_json.items()) {
-    if (!v.is_string()) fail("header: every vocabulary entry must be a string");
-    if (vocab_blob.size() + v.as_string().size() > std::numeric_limits<std::uint32_t>::max())
-      fail("header: vocabulary too large");
-    vocab_blob += v.as_string();
+  for (const std::string& t : h.vocabulary) {
+    vocab_blob += t;
     vocab_off.push_back(static_cast<std::uint32_t>(vocab_blob.size()));
   }
   std::size_t cap = 16;
   while (cap < 2 * vocab_size()) cap *= 2;
   slots.assign(cap, 0);
-  // Entries 0 (padding) and 1 (unknown) are placeholders and are not looked up.
+  // Entries 0 (padding) and 1 (unknown) are placeholders and are not looked up; the header
+  // reader has checked that tokens are unique.
   for (std::uint32_t id = 2; id < vocab_size(); ++id) {
     const std::string_view tok = vocab(id);
-    for (std::size_t i = static_cast<std::size_t>(fnv1a(tok)) & (cap - 1);; i = (i + 1) & (cap - 1)) {
-      if (slots[i] == 0) {
-        slots[i] = id + 1;
-        break;
-      }
-      if (vocab(slots[i] - 1) == tok) fail("header: vocabulary token \"" + std::string(tok) + "\" appears twice");
-    }
+    std::size_t i = static_cast<std::size_t>(fnv1a(tok)) & (cap - 1);
+    while (slots[i] != 0) i = (i + 1) & (cap - 1);
+    slots[i] = id + 1;
   }
 }
 
@@ -269,8 +163,8 @@ void Model::Impl::parse_header() {
 Weights Model::Impl::weights(const std::string& name, std::size_t rows, std::size_t cols, bool pack) const {
   const TensorInfo& t = file.tensor(name);
   if (t.rows != rows || t.cols != cols)
-    fail("tensor \"" + name + "\" has shape " + t.shape_string() + ", expected [" + std::to_string(rows) + " x " +
-         std::to_string(cols) + "]");
+    fail("tensor \"" + name + "\" has shape " + t.shape_string() + ", expected [" + std::to_string(rows) +
+         " x " + std::to_string(cols) + "]");
   Weights w;
   w.dtype = t.dtype;
   w.data = t.data;
@@ -304,31 +198,38 @@ Weights Model::Impl::weights(const std::string& name, std::size_t rows, std::siz
 std::vector<float> Model::Impl::vector(const std::string& name, std::size_t rows, std::size_t cols) const {
   const TensorInfo& t = file.tensor(name);
   if (t.rows != rows || t.cols != cols)
-    fail("tensor \"" + name + "\" has shape " + t.shape_string() + ", expected [" + std::to_string(rows) + " x " +
-         std::to_string(cols) + "]");
+    fail("tensor \"" + name + "\" has shape " + t.shape_string() + ", expected [" + std::to_string(rows) +
+         " x " + std::to_string(cols) + "]");
   return file.read_f32(t);
 }
 
 void Model::Impl::load_tensors() {
   const std::size_t E = arch.embedding_size, H = arch.hidden_size, G = arch.gates(), F = arch.features();
   const std::size_t C = labels.size();
-  embedding = weights("embedding.weight", vocab_size(), E, /*pack=*/false);  // rows are gathered, not multiplied
-  max_input = std::max(E, F);
+  embedding =
+      weights("tokens.vectors", vocab_size(), E, /*pack=*/false);  // rows are gathered, not multiplied
+  max_input = std::max(arch.input_size(), F);
+  if (arch.has_char_encoder()) {
+    const std::size_t Ec = arch.char_embedding_size;
+    char_embedding = vector("chars.vectors", characters.size(), Ec);
+    char_conv = vector("chars.w_filter", arch.char_filters, arch.char_width * Ec);
+    char_bias = vector("chars.b_filter", 1, arch.char_filters);
+  }
   layers.resize(arch.layers);
   for (std::size_t k = 0; k < arch.layers; ++k) {
-    const std::size_t D = k == 0 ? E : F;
+    const std::size_t D = k == 0 ? arch.input_size() : F;
     for (std::size_t d = 0; d < arch.directions(); ++d) {
       const std::string p = "rnn.l" + std::to_string(k) + (d == 0 ? ".fwd." : ".bwd.");
       Direction dir;
       dir.w_input = weights(p + "w_input", G * H, D);
       dir.w_hidden = weights(p + "w_hidden", G * H, H);
-      dir.bias = vector(p + "bias", 1, G * H);
-      if (arch.cell == Cell::kGru) dir.bias_hidden = vector(p + "bias_hidden", 1, 3 * H);
+      dir.bias = vector(p + "b_input", 1, G * H);
+      if (arch.cell == Cell::kGru) dir.bias_hidden = vector(p + "b_hidden", 1, 3 * H);
       layers[k].push_back(std::move(dir));
     }
   }
-  head = weights("head.weight", C, F);
-  head_bias = vector("head.bias", 1, C);
+  head = weights("readout.w", C, F);
+  head_bias = vector("readout.b", 1, C);
   if (arch.output == Output::kCrf) {
     crf_trans = vector("crf.transitions", C, C);
     crf_start = vector("crf.start", 1, C);
@@ -344,23 +245,45 @@ Model Model::from_file(ModelFile file) {
   return Model(std::move(impl));
 }
 
-Model Model::load(const std::string& path) { return from_file(ModelFile::open(path)); }
+Model Model::load(const std::string& path) {
+  return from_file(ModelFile::open(path));
+}
 Model Model::from_buffer(const void* data, std::size_t size, std::string name) {
   return from_file(ModelFile::from_buffer(data, size, std::move(name)));
 }
 
-const Architecture& Model::architecture() const { return impl_->arch; }
-const std::vector<std::string>& Model::labels() const { return impl_->labels; }
-const TokenizerSettings& Model::tokenizer_settings() const { return impl_->tok_settings; }
-const Tokenizer& Model::tokenizer() const { return *impl_->tokenizer; }
-std::size_t Model::vocabulary_size() const { return impl_->vocab_size(); }
+const Architecture& Model::architecture() const {
+  return impl_->arch;
+}
+const std::vector<std::string>& Model::labels() const {
+  return impl_->labels;
+}
+const TokenizerSettings& Model::tokenizer_settings() const {
+  return impl_->tok_settings;
+}
+const Tokenizer& Model::tokenizer() const {
+  return *impl_->tokenizer;
+}
+std::size_t Model::vocabulary_size() const {
+  return impl_->vocab_size();
+}
 std::string_view Model::token(std::uint32_t id) const {
   if (id >= impl_->vocab_size()) throw Error("token id " + std::to_string(id) + " is outside the vocabulary");
   return impl_->vocab(id);
 }
-std::uint32_t Model::token_id(std::string_view token) const { return impl_->lookup(token); }
-const ModelFile& Model::file() const { return impl_->file; }
-const char* Model::kernel_name() { return detail::best_kernels().name; }
+std::size_t Model::character_count() const {
+  return impl_->characters.size();
+}
+
+std::uint32_t Model::token_id(std::string_view token) const {
+  return impl_->lookup(token);
+}
+const ModelFile& Model::file() const {
+  return impl_->file;
+}
+const char* Model::kernel_name() {
+  return detail::best_kernels().name;
+}
 
 double Model::flops(std::size_t n) const {
   const auto& a = impl_->arch;
@@ -368,9 +291,15 @@ double Model::flops(std::size_t n) const {
   const double F = static_cast<double>(a.features()), C = static_cast<double>(impl_->labels.size());
   double per_token = 0.0;
   for (std::size_t k = 0; k < a.layers; ++k) {
-    const double D = k == 0 ? static_cast<double>(a.embedding_size) : F;
+    const double D = k == 0 ? static_cast<double>(a.input_size()) : F;
     per_token += static_cast<double>(a.directions()) * 2.0 * G * H * (D + H);
   }
+  // Character encoder, counted at kTypicalChars characters per token (our estimate for words of
+  // running text; the true count depends on the input).
+  constexpr double kTypicalChars = 6.0;
+  if (a.has_char_encoder())
+    per_token +=
+        kTypicalChars * 2.0 * static_cast<double>(a.char_filters * a.char_width * a.char_embedding_size);
   const double head = 2.0 * C * F * (a.task == Task::kTag ? static_cast<double>(n) : 1.0);
   return per_token * static_cast<double>(n) + head;
 }
@@ -379,16 +308,26 @@ double Model::flops(std::size_t n) const {
 
 struct Context::Buffers {
   std::vector<std::string> tokens;
+  std::vector<ByteRange> token_bytes;  // tag(text): where each token came from
   std::vector<std::uint32_t> ids;
+  // Character encoder: surface tokens, character ids of token i at char_ids[char_off[i] ..
+  // char_off[i+1]), scratch for clusters, one window and the running maxima.
+  std::vector<std::string> surfaces;
+  std::vector<std::string_view> clusters;
+  std::vector<std::int32_t> char_ids, char_off;
+  std::vector<float> cwin, cmax;
   std::vector<float> x, proj, out_a, out_b, h, c, hp, gates;
   std::vector<std::int8_t> qs;
   std::vector<std::uint8_t> qu;
   std::vector<float> qscale;
   std::vector<float> pooled, logits, probs, alpha, beta, score, score_next;
-  std::vector<std::uint32_t> chosen, tags, back;
+  std::vector<std::uint32_t> chosen, tags, back, occlusion_ids;
+  std::vector<std::int32_t> occlusion_chars, occlusion_char_off;  // the whole text's characters
+  std::vector<float> occlusion;
   std::vector<TagSpan> spans;
   ClassifyResult cres;
   TagResult tres;
+  bool calibrated = true;  // apply the header's temperature (set_calibrated)
   // step-wise state
   std::size_t steps = 0;
   std::vector<float> sh, sc, sx, sproj, spool, sdist;
@@ -405,7 +344,8 @@ using Impl = Model::Impl;
 using Buffers = Context::Buffers;
 
 /// y[t * ldy + r] = W_r . x_t for n rows of x [n x W.cols].
-void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float* y, std::size_t ldy, Buffers& b) {
+void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float* y, std::size_t ldy,
+           Buffers& b) {
   switch (w.dtype) {
     case DType::kF32:
       m.kernels->matmul_packed_f32(w.packed.data(), w.rows, w.cols, x, n, y, ldy);
@@ -434,7 +374,9 @@ void embed_row(const Impl& m, std::uint32_t id, float* out) {
   const Weights& e = m.embedding;
   const std::size_t E = e.cols;
   switch (e.dtype) {
-    case DType::kF32: std::memcpy(out, static_cast<const float*>(e.data) + id * E, E * sizeof(float)); break;
+    case DType::kF32:
+      std::memcpy(out, static_cast<const float*>(e.data) + id * E, E * sizeof(float));
+      break;
     case DType::kF16: {
       const auto* p = static_cast<const std::uint16_t*>(e.data) + id * E;
       for (std::size_t j = 0; j < E; ++j) out[j] = detail::half_to_float(p[j]);
@@ -468,20 +410,66 @@ void cell_step(const Impl& m, const Direction& dir, const float* proj, float* h,
     k.tanh(g, H);
     for (std::size_t j = 0; j < H; ++j) h[j] = g[3 * H + j] * g[j];
   } else {
-    // Rows [r z n], reset after the recurrent product: n = tanh(W_n x + b_in + r*(U_n h + b_hn)).
+    // Rows [r z h~], reset after the recurrent product:
+    // h~ = tanh(W[h~] x + b_input[h~] + r * (U[h~] h + b_hidden[h~])).
     const float* bh = dir.bias_hidden.data();
     for (std::size_t j = 0; j < 2 * H; ++j) g[j] = proj[j] + hp[j] + bh[j];
     k.sigmoid(g, 2 * H);
-    for (std::size_t j = 0; j < H; ++j) g[2 * H + j] = proj[2 * H + j] + g[j] * (hp[2 * H + j] + bh[2 * H + j]);
+    for (std::size_t j = 0; j < H; ++j)
+      g[2 * H + j] = proj[2 * H + j] + g[j] * (hp[2 * H + j] + bh[2 * H + j]);
     k.tanh(g + 2 * H, H);
     for (std::size_t j = 0; j < H; ++j) h[j] = (1.0f - g[H + j]) * g[2 * H + j] + g[H + j] * h[j];
   }
 }
 
-/// Runs the RNN stack over b.ids[0..T); returns the top layer's outputs [T x F].
+/// The character encoder's features of token t (b.char_ids[b.char_off[t] .. b.char_off[t+1])):
+///   out_f = tanh( max_p ( bias_f + sum_k W_f[k] . emb[c_{p-h+k}] ) ),  zero positions outside
+/// the token, w = 2h + 1 (Kim et al. 2016 eq. 1-2; nn::CharCnn in the training library). A token
+/// without characters gets zeros. Plain loops: the encoder is small next to the recurrent stack.
+void char_features(const Impl& m, Buffers& b, std::size_t t, float* out) {
+  const auto& a = m.arch;
+  const std::size_t Ec = a.char_embedding_size, Fc = a.char_filters, w = a.char_width, half = w / 2;
+  const auto begin = static_cast<std::size_t>(b.char_off[t]),
+             end = static_cast<std::size_t>(b.char_off[t + 1]);
+  if (begin == end) {
+    std::fill(out, out + Fc, 0.0f);
+    return;
+  }
+  const std::size_t L = end - begin;
+  ensure(b.cwin, w * Ec);
+  ensure(b.cmax, Fc);
+  for (std::size_t p = 0; p < L; ++p) {
+    for (std::size_t k = 0; k < w; ++k) {
+      float* slot = b.cwin.data() + k * Ec;
+      const std::size_t q = p + k;  // position p - half + k, shifted by half to stay unsigned
+      if (q < half || q - half >= L) {
+        std::fill(slot, slot + Ec, 0.0f);
+      } else {
+        const auto id = static_cast<std::size_t>(b.char_ids[begin + q - half]);
+        std::memcpy(slot, m.char_embedding.data() + id * Ec, Ec * sizeof(float));
+      }
+    }
+    for (std::size_t f = 0; f < Fc; ++f) {
+      const float* wf = m.char_conv.data() + f * w * Ec;
+      float s = m.char_bias[f];
+      for (std::size_t j = 0; j < w * Ec; ++j) s += wf[j] * b.cwin[j];
+      if (p == 0 || s > b.cmax[f]) b.cmax[f] = s;
+    }
+  }
+  for (std::size_t f = 0; f < Fc; ++f) out[f] = std::tanh(b.cmax[f]);
+}
+
+/// Input row of token t: [word embedding, character features].
+void input_row(const Impl& m, Buffers& b, std::size_t t, float* out) {
+  embed_row(m, b.ids[t], out);
+  if (m.arch.has_char_encoder()) char_features(m, b, t, out + m.arch.embedding_size);
+}
+
+/// Runs the RNN stack over b.ids[0..T) (and their characters); returns the top layer's outputs
+/// [T x F].
 const float* run_stack(const Impl& m, Buffers& b, std::size_t T) {
   const auto& a = m.arch;
-  const std::size_t E = a.embedding_size, H = a.hidden_size, GH = a.gates() * H, F = a.features();
+  const std::size_t E = a.input_size(), H = a.hidden_size, GH = a.gates() * H, F = a.features();
   ensure(b.x, T * E);
   ensure(b.proj, T * GH);
   ensure(b.out_a, T * F);
@@ -490,7 +478,7 @@ const float* run_stack(const Impl& m, Buffers& b, std::size_t T) {
   ensure(b.c, H);
   ensure(b.hp, GH);
   ensure(b.gates, GH);
-  for (std::size_t t = 0; t < T; ++t) embed_row(m, b.ids[t], b.x.data() + t * E);
+  for (std::size_t t = 0; t < T; ++t) input_row(m, b, t, b.x.data() + t * E);
   const float* in = b.x.data();
   float* out = b.out_a.data();
   for (std::size_t k = 0; k < a.layers; ++k) {
@@ -542,8 +530,13 @@ const ClassifyResult& finish_classify(const Impl& m, Buffers& b, std::size_t tok
   for (std::size_t i = 0; i < C; ++i) b.logits[i] += m.head_bias[i];
   std::size_t n_chosen = 0;
   std::uint32_t best = 0;
+  const std::vector<float>& temp = m.arch.temperature;
+  const bool tempered = b.calibrated && !temp.empty();
   if (m.arch.output == Output::kSigmoid) {
-    for (std::size_t i = 0; i < C; ++i) b.probs[i] = sigmoid(b.logits[i]);
+    for (std::size_t i = 0; i < C; ++i)
+      b.probs[i] = tempered ? tempered_sigmoid(b.logits[i], temp[i]) : sigmoid(b.logits[i]);
+  } else if (tempered) {
+    tempered_softmax(b.logits.data(), C, temp[0], b.probs.data());
   } else {
     softmax(b.logits.data(), b.probs.data(), C);
   }
@@ -556,6 +549,8 @@ const ClassifyResult& finish_classify(const Impl& m, Buffers& b, std::size_t tok
     b.chosen[n_chosen++] = best;
   }
   b.cres.probabilities = Span<const float>(b.probs.data(), C);
+  b.cres.logits = Span<const float>(b.logits.data(), C);
+  b.cres.features = Span<const float>(b.pooled.data(), m.arch.features());
   b.cres.best = best;
   b.cres.chosen = Span<const std::uint32_t>(b.chosen.data(), n_chosen);
   b.cres.token_count = tokens;
@@ -588,15 +583,20 @@ const TagResult& finish_tag(const Impl& m, Buffers& b, const float* top, std::si
     for (std::size_t i = 0; i < C; ++i) b.logits[t * C + i] += m.head_bias[i];
   float* e = b.logits.data();
   if (m.arch.output != Output::kCrf) {
+    const bool tempered = b.calibrated && !m.arch.temperature.empty();
     for (std::size_t t = 0; t < T; ++t) {
-      softmax(e + t * C, b.probs.data() + t * C, C);
+      if (tempered)
+        tempered_softmax(e + t * C, C, m.arch.temperature[0], b.probs.data() + t * C);
+      else
+        softmax(e + t * C, b.probs.data() + t * C, C);
       std::uint32_t best = 0;
       for (std::uint32_t i = 1; i < C; ++i)
         if (e[t * C + i] > e[t * C + best]) best = i;
       b.tags[t] = best;
     }
   } else if (T > 0) {
-    // Viterbi (Lafferty et al. 2001): score(y) = start[y0] + sum e[t][yt] + sum trans[y(t-1)][yt] + end[y(T-1)].
+    // Viterbi (Lafferty et al. 2001): score(y) = start[y0] + sum e[t][yt] + sum trans[y(t-1)][yt] +
+    // end[y(T-1)].
     const float* tr = m.crf_trans.data();
     ensure(b.score, C);
     ensure(b.score_next, C);
@@ -644,8 +644,11 @@ const TagResult& finish_tag(const Impl& m, Buffers& b, const float* top, std::si
     for (std::size_t j = 0; j < C; ++j) tmp[j] = al[(T - 1) * C + j] + m.crf_end[j];
     const float log_z = log_sum_exp(tmp, C);
     for (std::size_t t = 0; t < T; ++t)
-      for (std::size_t j = 0; j < C; ++j) b.probs[t * C + j] = std::exp(al[t * C + j] + be[t * C + j] - log_z);
+      for (std::size_t j = 0; j < C; ++j)
+        b.probs[t * C + j] = std::exp(al[t * C + j] + be[t * C + j] - log_z);
   }
+  if (m.arch.output == Output::kCrf && b.calibrated && !m.arch.temperature.empty())
+    for (std::size_t t = 0; t < T; ++t) temper_distribution(b.probs.data() + t * C, C, m.arch.temperature[0]);
   extract_spans(m, b, T);
   b.tres.tags = Span<const std::uint32_t>(b.tags.data(), T);
   b.tres.probabilities = Span<const float>(b.probs.data(), T * C);
@@ -658,16 +661,65 @@ void tokens_to_ids(const Impl& m, Buffers& b, Span<const std::string> tokens) {
   for (std::size_t i = 0; i < tokens.size(); ++i) b.ids[i] = m.lookup(tokens[i]);
 }
 
+/// Character ids of the surface tokens into b.char_ids / b.char_off.
+void surfaces_to_chars(const Impl& m, Buffers& b, Span<const std::string> surfaces) {
+  b.char_ids.clear();
+  b.char_off.assign(1, 0);
+  for (const std::string& s : surfaces) {
+    m.characters.append_ids(s, b.char_ids, b.clusters);
+    b.char_off.push_back(static_cast<std::int32_t>(b.char_ids.size()));
+  }
+}
+
+/// A character-encoder model given tokens as written: the word of each is its normalized form
+/// (as for a tagging corpus in training, data::Encoder), the characters those of its NFKC form.
+void tokens_with_chars(const Impl& m, Buffers& b, Span<const std::string> tokens) {
+  ensure(b.ids, tokens.size());
+  b.surfaces.resize(tokens.size());
+  for (std::size_t i = 0; i < tokens.size(); ++i) {
+    b.ids[i] = m.lookup(m.tokenizer->normalize(tokens[i]));
+    b.surfaces[i] = m.surface_tokenizer->normalize(tokens[i]);
+  }
+  surfaces_to_chars(m, b, Span<const std::string>(b.surfaces.data(), tokens.size()));
+}
+
+/// A character-encoder model given text: b.tokens (words), b.ids and the characters.
+/// With `ranges`, also where each token came from in text.
+void text_with_chars(const Impl& m, Buffers& b, std::string_view text,
+                     std::vector<ByteRange>* ranges = nullptr) {
+  tokenize_with_surface(*m.tokenizer, *m.surface_tokenizer, text, b.tokens, b.surfaces, ranges);
+  tokens_to_ids(m, b, Span<const std::string>(b.tokens.data(), b.tokens.size()));
+  surfaces_to_chars(m, b, Span<const std::string>(b.surfaces.data(), b.surfaces.size()));
+}
+
+void check_chars(const Impl& m, std::size_t T, Span<const std::int32_t> char_ids,
+                 Span<const std::int32_t> char_offsets) {
+  if (!m.arch.has_char_encoder()) throw Error("character ids given, but this model has no character encoder");
+  if (char_offsets.size() != T + 1 || char_offsets[0] != 0 ||
+      static_cast<std::size_t>(char_offsets[T]) != char_ids.size())
+    throw Error(
+        "character offsets must be one more than the tokens, start at 0 and end at the number of "
+        "character ids");
+  for (std::size_t i = 0; i < T; ++i)
+    if (char_offsets[i + 1] < char_offsets[i]) throw Error("character offsets must not decrease");
+  for (const std::int32_t c : char_ids)
+    if (c < 0 || static_cast<std::size_t>(c) >= m.characters.size())
+      throw Error("character id " + std::to_string(c) + " is outside the character list");
+}
+
+void refuse_without_chars(const Impl& m, const char* what) {
+  if (m.arch.has_char_encoder())
+    throw Error(std::string(what) +
+                ": this model has a character encoder; pass the character ids too (or give text or tokens)");
+}
+
 }  // namespace
 
-const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids) {
-  const Impl& m = *model_.impl_;
-  if (m.arch.task != Task::kClassify) throw Error("classify: this model is a tagger; use tag()");
-  check_ids(m, ids);
-  Buffers& b = *b_;
-  const std::size_t T = ids.size(), H = m.arch.hidden_size, F = m.arch.features();
-  ensure(b.ids, T);
-  if (T) std::memcpy(b.ids.data(), ids.data(), T * sizeof(std::uint32_t));
+namespace {
+
+/// Classifies the T tokens in b.ids (and b.char_ids / b.char_off for a character encoder).
+const ClassifyResult& classify_prepared(const Impl& m, Buffers& b, std::size_t T) {
+  const std::size_t H = m.arch.hidden_size, F = m.arch.features();
   ensure(b.pooled, F);
   std::fill(b.pooled.begin(), b.pooled.begin() + static_cast<std::ptrdiff_t>(F), 0.0f);
   if (T > 0) {
@@ -692,39 +744,206 @@ const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids) {
   return finish_classify(m, b, T);
 }
 
+const TagResult& tag_prepared(const Impl& m, Buffers& b, std::size_t T) {
+  const float* top = T > 0 ? run_stack(m, b, T) : nullptr;
+  b.tres.tokens = {};
+  b.tres.token_bytes = {};
+  return finish_tag(m, b, top, T);
+}
+
+void check_task(const Impl& m, Task task) {
+  if (m.arch.task != task)
+    throw Error(task == Task::kClassify ? "classify: this model is a tagger; use tag()"
+                                        : "tag: this model is a classifier; use classify()");
+}
+
+void copy_ids(Buffers& b, Span<const std::uint32_t> ids) {
+  ensure(b.ids, ids.size());
+  if (!ids.empty()) std::memcpy(b.ids.data(), ids.data(), ids.size() * sizeof(std::uint32_t));
+}
+
+void copy_chars(Buffers& b, Span<const std::int32_t> char_ids, Span<const std::int32_t> char_offsets) {
+  b.char_ids.assign(char_ids.begin(), char_ids.end());
+  b.char_off.assign(char_offsets.begin(), char_offsets.end());
+}
+
+}  // namespace
+
+const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  refuse_without_chars(m, "classify_ids");
+  check_ids(m, ids);
+  copy_ids(*b_, ids);
+  return classify_prepared(m, *b_, ids.size());
+}
+
+const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                            Span<const std::int32_t> char_offsets) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  check_ids(m, ids);
+  check_chars(m, ids.size(), char_ids, char_offsets);
+  copy_ids(*b_, ids);
+  copy_chars(*b_, char_ids, char_offsets);
+  return classify_prepared(m, *b_, ids.size());
+}
+
 const ClassifyResult& Context::classify_tokens(Span<const std::string> tokens) {
-  tokens_to_ids(*model_.impl_, *b_, tokens);
-  return classify_ids(Span<const std::uint32_t>(b_->ids.data(), tokens.size()));
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  if (m.arch.has_char_encoder())
+    tokens_with_chars(m, *b_, tokens);
+  else
+    tokens_to_ids(m, *b_, tokens);
+  return classify_prepared(m, *b_, tokens.size());
 }
 
 const ClassifyResult& Context::classify(std::string_view text) {
-  model_.impl_->tokenizer->tokenize(text, b_->tokens);
-  return classify_tokens(Span<const std::string>(b_->tokens.data(), b_->tokens.size()));
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  if (!m.arch.has_char_encoder()) {
+    m.tokenizer->tokenize(text, b_->tokens);
+    return classify_tokens(Span<const std::string>(b_->tokens.data(), b_->tokens.size()));
+  }
+  text_with_chars(m, *b_, text);
+  return classify_prepared(m, *b_, b_->tokens.size());
+}
+
+namespace {
+
+void check_occlusion(const Impl& m, std::uint32_t target) {
+  if (m.arch.task != Task::kClassify) throw Error("occlusion: this model is a tagger; only classifiers");
+  if (target >= m.labels.size())
+    throw Error("occlusion: label " + std::to_string(target) + " is outside the model's " +
+                std::to_string(m.labels.size()) + " labels");
+}
+
+/// Occlusion scores of the T tokens in b.ids (and b.char_ids / b.char_off): token t is replaced
+/// by the padding id and, with a character encoder, by no characters (zero features).
+Span<const float> occlude_prepared(const Impl& m, Buffers& b, std::size_t T, std::uint32_t target) {
+  const bool chars = m.arch.has_char_encoder();
+  ensure(b.occlusion_ids, T);
+  if (T) std::memcpy(b.occlusion_ids.data(), b.ids.data(), T * sizeof(std::uint32_t));
+  if (chars) {
+    b.occlusion_chars = b.char_ids;
+    b.occlusion_char_off = b.char_off;
+  }
+  ensure(b.occlusion, T);
+  for (std::size_t t = 0; t < T; ++t) {
+    std::memcpy(b.ids.data(), b.occlusion_ids.data(), T * sizeof(std::uint32_t));
+    b.ids[t] = 0;  // padding id: zero embedding
+    if (chars) {
+      const auto from = static_cast<std::size_t>(b.occlusion_char_off[t]);
+      const auto to = static_cast<std::size_t>(b.occlusion_char_off[t + 1]);
+      const auto removed = static_cast<std::int32_t>(to - from);
+      b.char_ids.assign(b.occlusion_chars.begin(),
+                        b.occlusion_chars.begin() + static_cast<std::ptrdiff_t>(from));
+      b.char_ids.insert(b.char_ids.end(), b.occlusion_chars.begin() + static_cast<std::ptrdiff_t>(to),
+                        b.occlusion_chars.end());
+      for (std::size_t i = 0; i <= T; ++i) b.char_off[i] = b.occlusion_char_off[i] - (i > t ? removed : 0);
+    }
+    b.occlusion[t] = classify_prepared(m, b, T).probabilities[target];
+  }
+  if (T) std::memcpy(b.ids.data(), b.occlusion_ids.data(), T * sizeof(std::uint32_t));
+  if (chars) {
+    b.char_ids = b.occlusion_chars;
+    b.char_off = b.occlusion_char_off;
+  }
+  const float whole = classify_prepared(m, b, T).probabilities[target];
+  for (std::size_t t = 0; t < T; ++t) b.occlusion[t] = whole - b.occlusion[t];
+  return Span<const float>(b.occlusion.data(), T);
+}
+
+}  // namespace
+
+Span<const float> Context::occlusion_ids(Span<const std::uint32_t> ids, std::uint32_t target) {
+  const Impl& m = *model_.impl_;
+  check_occlusion(m, target);
+  refuse_without_chars(m, "occlusion_ids");
+  check_ids(m, ids);
+  copy_ids(*b_, ids);
+  return occlude_prepared(m, *b_, ids.size(), target);
+}
+
+Span<const float> Context::occlusion_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                         Span<const std::int32_t> char_offsets, std::uint32_t target) {
+  const Impl& m = *model_.impl_;
+  check_occlusion(m, target);
+  check_ids(m, ids);
+  check_chars(m, ids.size(), char_ids, char_offsets);
+  copy_ids(*b_, ids);
+  copy_chars(*b_, char_ids, char_offsets);
+  return occlude_prepared(m, *b_, ids.size(), target);
+}
+
+Span<const float> Context::occlusion(std::string_view text, std::uint32_t target) {
+  const Impl& m = *model_.impl_;
+  check_occlusion(m, target);
+  if (m.arch.has_char_encoder()) {
+    text_with_chars(m, *b_, text);
+  } else {
+    m.tokenizer->tokenize(text, b_->tokens);
+    tokens_to_ids(m, *b_, Span<const std::string>(b_->tokens.data(), b_->tokens.size()));
+  }
+  return occlude_prepared(m, *b_, b_->tokens.size(), target);
+}
+
+Span<const std::string> Context::tokens() const {
+  return Span<const std::string>(b_->tokens.data(), b_->tokens.size());
 }
 
 const TagResult& Context::tag_ids(Span<const std::uint32_t> ids) {
   const Impl& m = *model_.impl_;
-  if (m.arch.task != Task::kTag) throw Error("tag: this model is a classifier; use classify()");
+  check_task(m, Task::kTag);
+  refuse_without_chars(m, "tag_ids");
   check_ids(m, ids);
-  Buffers& b = *b_;
-  const std::size_t T = ids.size();
-  ensure(b.ids, T);
-  if (T) std::memcpy(b.ids.data(), ids.data(), T * sizeof(std::uint32_t));
-  const float* top = T > 0 ? run_stack(m, b, T) : nullptr;
-  b.tres.tokens = {};
-  return finish_tag(m, b, top, T);
+  copy_ids(*b_, ids);
+  return tag_prepared(m, *b_, ids.size());
+}
+
+const TagResult& Context::tag_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                  Span<const std::int32_t> char_offsets) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  check_ids(m, ids);
+  check_chars(m, ids.size(), char_ids, char_offsets);
+  copy_ids(*b_, ids);
+  copy_chars(*b_, char_ids, char_offsets);
+  return tag_prepared(m, *b_, ids.size());
 }
 
 const TagResult& Context::tag_tokens(Span<const std::string> tokens) {
-  tokens_to_ids(*model_.impl_, *b_, tokens);
-  tag_ids(Span<const std::uint32_t>(b_->ids.data(), tokens.size()));
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  if (m.arch.has_char_encoder())
+    tokens_with_chars(m, *b_, tokens);
+  else
+    tokens_to_ids(m, *b_, tokens);
+  tag_prepared(m, *b_, tokens.size());
   b_->tres.tokens = tokens;
   return b_->tres;
 }
 
 const TagResult& Context::tag(std::string_view text) {
-  model_.impl_->tokenizer->tokenize(text, b_->tokens);
-  return tag_tokens(Span<const std::string>(b_->tokens.data(), b_->tokens.size()));
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  Buffers& b = *b_;
+  if (!m.arch.has_char_encoder()) {
+    m.tokenizer->tokenize(text, b.tokens, b.token_bytes);
+    tag_tokens(Span<const std::string>(b.tokens.data(), b.tokens.size()));
+  } else {
+    text_with_chars(m, b, text, &b.token_bytes);
+    tag_prepared(m, b, b.tokens.size());
+    b.tres.tokens = Span<const std::string>(b.tokens.data(), b.tokens.size());
+  }
+  // A span's bytes run from its first token's first byte to its last token's last byte.
+  for (TagSpan& s : b.spans) {
+    s.byte_begin = b.token_bytes[s.begin].begin;
+    s.byte_end = b.token_bytes[s.end - 1].end;
+  }
+  b.tres.token_bytes = Span<const ByteRange>(b.token_bytes.data(), b.token_bytes.size());
+  return b.tres;
 }
 
 // ---- step-wise ----------------------------------------------------------------------------------
@@ -732,13 +951,14 @@ const TagResult& Context::tag(std::string_view text) {
 void Context::reset() {
   const Impl& m = *model_.impl_;
   if (m.arch.bidirectional)
-    throw Error("step-wise inference needs a unidirectional model; this one is bidirectional (use classify/tag)");
+    throw Error(
+        "step-wise inference needs a unidirectional model; this one is bidirectional (use classify/tag)");
   Buffers& b = *b_;
   const std::size_t L = m.arch.layers, H = m.arch.hidden_size, GH = m.arch.gates() * H;
   const std::size_t C = m.labels.size();
   ensure(b.sh, L * H);
   ensure(b.sc, L * H);
-  ensure(b.sx, std::max(m.arch.embedding_size, H));
+  ensure(b.sx, std::max(m.arch.input_size(), H));
   ensure(b.sproj, GH);
   ensure(b.spool, H);
   ensure(b.sdist, C);
@@ -753,15 +973,35 @@ void Context::reset() {
   b.steps = 0;
 }
 
-Span<const float> Context::push(std::string_view token) { return push_id(model_.impl_->lookup(token)); }
+Span<const float> Context::push(std::string_view token) {
+  // The same check as classify()/tag() make on text: a token an application pushes must be UTF-8.
+  const std::size_t bad = first_invalid_utf8(token);
+  if (bad != std::string_view::npos)
+    throw Error("invalid UTF-8 at byte " + std::to_string(bad + 1) + " of the token");
+  const Impl& m = *model_.impl_;
+  if (!m.arch.has_char_encoder()) return push_id(m.lookup(token));
+  Buffers& b = *b_;
+  if (b.sh.empty()) reset();  // first use
+  const std::string one(token);
+  tokens_with_chars(m, b, Span<const std::string>(&one, 1));
+  input_row(m, b, 0, b.sx.data());
+  return push_input();
+}
 
 Span<const float> Context::push_id(std::uint32_t id) {
   const Impl& m = *model_.impl_;
   Buffers& b = *b_;
+  refuse_without_chars(m, "push_id");
   if (b.sh.empty()) reset();  // first use
   if (id >= m.vocab_size()) throw Error("token id " + std::to_string(id) + " is outside the vocabulary");
-  const std::size_t H = m.arch.hidden_size, GH = m.arch.gates() * H;
   embed_row(m, id, b.sx.data());
+  return push_input();
+}
+
+Span<const float> Context::push_input() {
+  const Impl& m = *model_.impl_;
+  Buffers& b = *b_;
+  const std::size_t H = m.arch.hidden_size, GH = m.arch.gates() * H;
   const float* in = b.sx.data();
   for (std::size_t k = 0; k < m.arch.layers; ++k) {
     const Direction& dir = m.layers[k][0];
@@ -775,7 +1015,9 @@ Span<const float> Context::push_id(std::uint32_t id) {
   const std::size_t C = m.labels.size();
   if (m.arch.task == Task::kClassify) {
     switch (m.arch.pooling) {
-      case Pooling::kLast: std::memcpy(b.spool.data(), top, H * sizeof(float)); break;
+      case Pooling::kLast:
+        std::memcpy(b.spool.data(), top, H * sizeof(float));
+        break;
       case Pooling::kMean:
         for (std::size_t j = 0; j < H; ++j) b.spool[j] += top[j];
         break;
@@ -788,8 +1030,12 @@ Span<const float> Context::push_id(std::uint32_t id) {
   // Tagger: the newest token's scores.
   apply(m, m.head, top, 1, b.logits.data(), C, b);
   for (std::size_t i = 0; i < C; ++i) b.logits[i] += m.head_bias[i];
+  const bool tempered = b.calibrated && !m.arch.temperature.empty();
   if (m.arch.output != Output::kCrf) {
-    softmax(b.logits.data(), b.sdist.data(), C);
+    if (tempered)
+      tempered_softmax(b.logits.data(), C, m.arch.temperature[0], b.sdist.data());
+    else
+      softmax(b.logits.data(), b.sdist.data(), C);
   } else {
     // Forward recursion: alpha_t(j) = e_t(j) + logsumexp_i(alpha_{t-1}(i) + trans(i, j)).
     if (b.steps == 1) {
@@ -803,6 +1049,8 @@ Span<const float> Context::push_id(std::uint32_t id) {
     }
     softmax(b.alpha.data(), b.sdist.data(), C);
   }
+  if (m.arch.output == Output::kCrf && tempered)
+    temper_distribution(b.sdist.data(), C, m.arch.temperature[0]);
   return Span<const float>(b.sdist.data(), C);
 }
 
@@ -818,11 +1066,22 @@ Span<const float> Context::distribution() {
   const std::size_t H = m.arch.hidden_size;
   ensure(b.pooled, H);
   for (std::size_t j = 0; j < H; ++j)
-    b.pooled[j] = m.arch.pooling == Pooling::kMean && b.steps > 0 ? b.spool[j] / static_cast<float>(b.steps) : b.spool[j];
+    b.pooled[j] = m.arch.pooling == Pooling::kMean && b.steps > 0 ? b.spool[j] / static_cast<float>(b.steps)
+                                                                  : b.spool[j];
   const ClassifyResult& r = finish_classify(m, b, b.steps);
   return r.probabilities;
 }
 
-std::size_t Context::steps() const { return b_->steps; }
+void Context::set_calibrated(bool on) {
+  b_->calibrated = on;
+}
+
+bool Context::calibrated() const {
+  return b_->calibrated;
+}
+
+std::size_t Context::steps() const {
+  return b_->steps;
+}
 
 }  // namespace gyre::runtime

@@ -12,6 +12,7 @@
 #include <unicode/brkiter.h>
 #include <unicode/bytestream.h>
 #include <unicode/casemap.h>
+#include <unicode/edits.h>
 #include <unicode/locid.h>
 #include <unicode/normalizer2.h>
 #include <unicode/uchar.h>
@@ -19,56 +20,6 @@
 #endif
 
 namespace gyre::runtime {
-
-namespace detail {
-
-std::size_t first_invalid_utf8(std::string_view utf8) noexcept {
-  const auto* p = reinterpret_cast<const unsigned char*>(utf8.data());
-  const std::size_t n = utf8.size();
-  std::size_t i = 0;
-  while (i < n) {
-    // ASCII runs, 8 bytes at a time when aligned data allows (memcpy keeps it portable).
-    while (i + 8 <= n) {
-      std::uint64_t word;
-      std::memcpy(&word, p + i, 8);
-      if (word & 0x8080808080808080ULL) break;
-      i += 8;
-    }
-    if (i >= n) break;
-    const unsigned char c = p[i];
-    if (c < 0x80) {
-      ++i;
-      continue;
-    }
-    // Unicode 15.0 Table 3-7 "Well-Formed UTF-8 Byte Sequences".
-    std::size_t len = 0;
-    unsigned char lo = 0x80, hi = 0xBF;
-    if (c >= 0xC2 && c <= 0xDF) {
-      len = 2;
-    } else if (c == 0xE0) {
-      len = 3, lo = 0xA0;
-    } else if ((c >= 0xE1 && c <= 0xEC) || c == 0xEE || c == 0xEF) {
-      len = 3;
-    } else if (c == 0xED) {
-      len = 3, hi = 0x9F;
-    } else if (c == 0xF0) {
-      len = 4, lo = 0x90;
-    } else if (c >= 0xF1 && c <= 0xF3) {
-      len = 4;
-    } else if (c == 0xF4) {
-      len = 4, hi = 0x8F;
-    } else {
-      return i;
-    }
-    if (n - i < len || p[i + 1] < lo || p[i + 1] > hi) return i;
-    for (std::size_t k = 2; k < len; ++k)
-      if ((p[i + k] & 0xC0) != 0x80) return i;
-    i += len;
-  }
-  return std::string_view::npos;
-}
-
-}  // namespace detail
 
 namespace {
 
@@ -96,9 +47,9 @@ inline char32_t next_code_point(std::string_view s, std::size_t& i) {
 }
 
 void check_utf8(std::string_view utf8) {
-  const std::size_t bad = detail::first_invalid_utf8(utf8);
+  const std::size_t bad = first_invalid_utf8(utf8);
   if (bad != std::string_view::npos)
-    throw Error("invalid UTF-8 at byte " + std::to_string(bad) + " of the text");
+    throw Error("invalid UTF-8 at byte " + std::to_string(bad + 1) + " of the text");
   // ICU takes int32_t lengths.
   if (utf8.size() > static_cast<std::size_t>(std::numeric_limits<std::int32_t>::max() / 4))
     throw Error("text of " + std::to_string(utf8.size()) + " bytes is too long to tokenize (limit 512 MiB)");
@@ -144,44 +95,66 @@ SegmentClass classify(std::string_view seg) noexcept {
   return all_space ? SegmentClass::kWhitespace : SegmentClass::kPunctuation;
 }
 
-// Appends tokens to out while reusing the strings already in it (their capacity survives).
+// Appends tokens to out while reusing the strings already in it (their capacity survives), and
+// when asked their byte ranges in the segmented (normalized) text. Once max_tokens are out, the
+// next token offered marks the text as cut and is refused, so the segmenters stop one token past
+// the limit.
 class Emitter {
  public:
-  Emitter(std::vector<std::string>& out, std::size_t max_tokens) : out_(out), max_(max_tokens) {}
+  Emitter(std::vector<std::string>& out, std::size_t max_tokens, std::vector<ByteRange>* ranges)
+      : out_(out), max_(max_tokens), ranges_(ranges) {
+    if (ranges_) ranges_->clear();
+  }
   bool full() const noexcept { return max_ != 0 && count_ >= max_; }
+  bool cut() const noexcept { return cut_; }
+  void mark_cut() noexcept { cut_ = true; }
   std::size_t count() const noexcept { return count_; }
-  void emit(std::string_view token) {
+  /// Appends token, which is bytes [begin, end) of the segmented text; returns false (and records
+  /// the cut) when the limit was already reached.
+  bool offer(std::string_view token, std::size_t begin, std::size_t end) {
+    if (full()) {
+      cut_ = true;
+      return false;
+    }
     if (count_ < out_.size())
       out_[count_].assign(token.data(), token.size());
     else
       out_.emplace_back(token);
+    if (ranges_) ranges_->push_back({begin, end});
     ++count_;
+    return true;
   }
   void finish() { out_.resize(count_); }
+  bool wants_ranges() const noexcept { return ranges_ != nullptr; }
 
  private:
   std::vector<std::string>& out_;
   std::size_t max_;
+  std::vector<ByteRange>* ranges_;
   std::size_t count_ = 0;
+  bool cut_ = false;
 };
 
 void split_whitespace(std::string_view text, bool keep_punctuation, Emitter& emit) {
   std::size_t start = 0, i = 0;
+  // False once the emitter refused a token (the text is cut).
   auto flush = [&](std::size_t end) {
     if (end > start) {
       const std::string_view token = text.substr(start, end - start);
-      if (keep_punctuation || classify(token) != SegmentClass::kPunctuation) emit.emit(token);
+      if (keep_punctuation || classify(token) != SegmentClass::kPunctuation)
+        return emit.offer(token, start, end);
     }
+    return true;
   };
-  while (i < text.size() && !emit.full()) {
+  while (i < text.size()) {
     const std::size_t at = i;
     const char32_t cp = next_code_point(text, i);
     if (detail::is_white_space(cp)) {
-      flush(at);
+      if (!flush(at)) return;
       start = i;
     }
   }
-  if (!emit.full()) flush(text.size());
+  flush(text.size());
 }
 
 #ifdef GYRE_RUNTIME_HAS_ICU
@@ -196,6 +169,8 @@ struct IcuState {
   std::unique_ptr<icu::BreakIterator> word, grapheme;
   UText text = UTEXT_INITIALIZER;
   std::string buffers[2];
+  // Edits of one normalization step, and the composition of the steps so far (input -> result).
+  icu::Edits step, composed[2];
   IcuState() = default;
   IcuState(const IcuState&) = delete;
   IcuState& operator=(const IcuState&) = delete;
@@ -247,10 +222,65 @@ void for_each_segment(IcuState& state, detail::BreakKind kind, std::string_view 
     if (!fn(static_cast<std::size_t>(start), static_cast<std::size_t>(end))) break;
 }
 
+// Every decimal digit (Nd) -> '0', from in to out; edits (when given) records the length changes.
+void fold_digits_into(std::string_view in, std::string& out, icu::Edits* edits) {
+  out.reserve(in.size());
+  if (edits) edits->reset();
+  std::size_t unchanged = 0;
+  for (std::size_t i = 0; i < in.size();) {
+    const auto c = static_cast<unsigned char>(in[i]);
+    if (c < 0x80) {
+      out.push_back(c >= '0' && c <= '9' ? '0' : static_cast<char>(c));
+      ++i;
+      ++unchanged;
+      continue;
+    }
+    const std::size_t at = i;
+    const char32_t cp = next_code_point(in, i);
+    if (u_charType(static_cast<UChar32>(cp)) == U_DECIMAL_DIGIT_NUMBER) {
+      out.push_back('0');
+      if (edits) {
+        edits->addUnchanged(static_cast<std::int32_t>(unchanged));
+        edits->addReplace(static_cast<std::int32_t>(i - at), 1);
+        unchanged = 0;
+      }
+    } else {
+      out.append(in.data() + at, i - at);
+      unchanged += i - at;
+    }
+  }
+  if (edits) edits->addUnchanged(static_cast<std::int32_t>(unchanged));
+}
+
+// How byte offsets of the normalized text lead back to the input: the identity, or ICU edits
+// (fine granularity: every changed character or NFKC segment is its own edit).
+struct OffsetMap {
+  const icu::Edits* edits = nullptr;  // nullptr: identity
+};
+
 // NFKC, case fold, digit fold into the thread's buffers; returns a view of the result (valid
-// until the next call on this thread). Input must be well-formed UTF-8.
-std::string_view normalize_view(std::string_view in, const TokenizerSettings& settings, IcuState& state) {
+// until the next call on this thread). Input must be well-formed UTF-8. With map, also records
+// where each byte of the result came from (state.composed holds the edits).
+std::string_view normalize_view(std::string_view in, const TokenizerSettings& settings, IcuState& state,
+                                OffsetMap* map = nullptr) {
   std::string_view cur = in;
+  if (map) map->edits = nullptr;
+  int composed_next = 0;
+  // Folds state.step (cur before -> cur after the step just made) into the composition.
+  auto record_step = [&] {
+    if (!map) return;
+    if (!map->edits) {
+      state.composed[composed_next] = state.step;
+    } else {
+      icu::Edits& merged = state.composed[composed_next];
+      merged.reset();
+      UErrorCode status = U_ZERO_ERROR;
+      merged.mergeAndAppend(*map->edits, state.step, status);
+      check_icu(status, "mapping offsets through normalization");
+    }
+    map->edits = &state.composed[composed_next];
+    composed_next ^= 1;
+  };
   // ASCII is invariant under NFKC (UAX #15: every ASCII character is its own decomposition and
   // no composition starts from ASCII alone), and full case folding maps exactly A-Z to a-z in
   // ASCII (CaseFolding.txt), so ASCII-only text takes these shortcuts with identical results.
@@ -267,9 +297,10 @@ std::string_view normalize_view(std::string_view in, const TokenizerSettings& se
     icu::StringByteSink<std::string> sink(&t, static_cast<std::int32_t>(cur.size()));
     UErrorCode status = U_ZERO_ERROR;
     nfkc_instance().normalizeUTF8(0, icu::StringPiece(cur.data(), static_cast<std::int32_t>(cur.size())),
-                                  sink, nullptr, status);
+                                  sink, map ? &state.step : nullptr, status);
     check_icu(status, "NFKC normalization");
     cur = t;
+    record_step();
   }
   if (settings.case_fold) {
     std::string& t = target();
@@ -282,31 +313,46 @@ std::string_view normalize_view(std::string_view in, const TokenizerSettings& se
       UErrorCode status = U_ZERO_ERROR;
       icu::CaseMap::utf8Fold(U_FOLD_CASE_DEFAULT,
                              icu::StringPiece(cur.data(), static_cast<std::int32_t>(cur.size())), sink,
-                             nullptr, status);
+                             map ? &state.step : nullptr, status);
       check_icu(status, "case folding");
+      cur = t;
+      record_step();
     }
+    // ASCII folds byte for byte: offsets are unchanged.
     cur = t;
   }
   if (settings.fold_digits) {
     std::string& t = target();
-    t.reserve(cur.size());
-    for (std::size_t i = 0; i < cur.size();) {
-      const auto c = static_cast<unsigned char>(cur[i]);
-      if (c < 0x80) {
-        t.push_back(c >= '0' && c <= '9' ? '0' : static_cast<char>(c));
-        ++i;
-        continue;
-      }
-      const std::size_t at = i;
-      const char32_t cp = next_code_point(cur, i);
-      if (u_charType(static_cast<UChar32>(cp)) == U_DECIMAL_DIGIT_NUMBER)
-        t.push_back('0');
-      else
-        t.append(cur.data() + at, i - at);
-    }
+    // Only a multi-byte digit changes the length; ASCII digits fold in place.
+    const bool track = map && !ascii;
+    fold_digits_into(cur, t, track ? &state.step : nullptr);
     cur = t;
+    if (track) record_step();
   }
   return cur;
+}
+
+// Turns ranges of the normalized text into ranges of the input. A range edge inside a changed
+// piece widens to the whole piece (begin to its start, end to its end).
+void map_to_input(const OffsetMap& map, std::vector<ByteRange>& ranges) {
+  if (!map.edits || ranges.empty()) return;
+  icu::Edits::Iterator it = map.edits->getFineIterator();
+  UErrorCode status = U_ZERO_ERROR;
+  auto find = [&](std::size_t dest) {
+    if (!it.findDestinationIndex(static_cast<std::int32_t>(dest), status) || U_FAILURE(status))
+      throw Error("internal error: offset " + std::to_string(dest) + " lies outside the normalized text");
+  };
+  for (ByteRange& r : ranges) {
+    find(r.begin);  // tokens are ascending, so the iterator only moves forward
+    const auto src = static_cast<std::size_t>(it.sourceIndex());
+    const auto dst = static_cast<std::size_t>(it.destinationIndex());
+    const std::size_t begin = it.hasChange() ? src : src + (r.begin - dst);
+    find(r.end - 1);  // the edit holding the token's last byte
+    const auto src_e = static_cast<std::size_t>(it.sourceIndex());
+    const auto dst_e = static_cast<std::size_t>(it.destinationIndex());
+    r.end = it.hasChange() ? src_e + static_cast<std::size_t>(it.oldLength()) : src_e + (r.end - dst_e);
+    r.begin = begin;
+  }
 }
 
 #endif  // GYRE_RUNTIME_HAS_ICU
@@ -330,10 +376,6 @@ TokenizerMode tokenizer_mode_from_string(std::string_view name) {
   if (name == "chars") return TokenizerMode::kChars;
   if (name == "whitespace") return TokenizerMode::kWhitespace;
   throw Error("unknown tokenizer mode '" + std::string(name) + "' (expected words, chars or whitespace)");
-}
-
-bool is_valid_utf8(std::string_view text) noexcept {
-  return detail::first_invalid_utf8(text) == std::string_view::npos;
 }
 
 bool tokenizer_has_icu() noexcept {
@@ -374,13 +416,24 @@ std::string Tokenizer::normalize(std::string_view utf8) const {
 #endif
 }
 
-void Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) const {
-  Emitter emit(out, settings_.max_tokens);
+bool Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) const {
+  return tokenize_into(utf8, out, nullptr);
+}
+
+bool Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out,
+                         std::vector<ByteRange>& ranges) const {
+  return tokenize_into(utf8, out, &ranges);
+}
+
+bool Tokenizer::tokenize_into(std::string_view utf8, std::vector<std::string>& out,
+                              std::vector<ByteRange>* ranges) const {
+  Emitter emit(out, settings_.max_tokens, ranges);
   try {
     check_utf8(utf8);
 #ifdef GYRE_RUNTIME_HAS_ICU
     IcuState& state = icu_state();
-    const std::string_view text = normalize_view(utf8, settings_, state);
+    OffsetMap map;
+    const std::string_view text = normalize_view(utf8, settings_, state, ranges ? &map : nullptr);
     const bool keep_punct = settings_.keep_punctuation;
     switch (settings_.mode) {
       case TokenizerMode::kWords:
@@ -389,28 +442,32 @@ void Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) c
           const SegmentClass cls = classify(seg);
           if (cls == SegmentClass::kWhitespace || (cls == SegmentClass::kPunctuation && !keep_punct))
             return true;
-          emit.emit(seg);
-          return !emit.full();
+          return emit.offer(seg, begin, end);
         });
         break;
       case TokenizerMode::kChars: {
         bool pending_space = false;
+        std::size_t space_begin = 0, space_end = 0;  // the whitespace run the " " token stands for
         for_each_segment(state, detail::BreakKind::kGrapheme, text, [&](std::size_t begin, std::size_t end) {
           const std::string_view seg = text.substr(begin, end - begin);
           const SegmentClass cls = classify(seg);
           if (cls == SegmentClass::kWhitespace) {
+            if (!pending_space) space_begin = begin;
+            space_end = end;
             pending_space = pending_space || emit.count() > 0;
             return true;
           }
           if (cls == SegmentClass::kPunctuation && !keep_punct) return true;
           if (pending_space) {
             // A space needs a cluster after it: stop rather than end the tokens with " ".
-            if (settings_.max_tokens != 0 && emit.count() + 2 > settings_.max_tokens) return false;
-            emit.emit(" ");
+            if (settings_.max_tokens != 0 && emit.count() + 2 > settings_.max_tokens) {
+              emit.mark_cut();
+              return false;
+            }
+            emit.offer(" ", space_begin, space_end);
             pending_space = false;
           }
-          emit.emit(seg);
-          return !emit.full();
+          return emit.offer(seg, begin, end);
         });
         break;
       }
@@ -418,14 +475,17 @@ void Tokenizer::tokenize(std::string_view utf8, std::vector<std::string>& out) c
         split_whitespace(text, keep_punct, emit);
         break;
     }
+    if (ranges) map_to_input(map, *ranges);
 #else
-    split_whitespace(utf8, settings_.keep_punctuation, emit);
+    split_whitespace(utf8, settings_.keep_punctuation, emit);  // no normalization: offsets are the input's
 #endif
   } catch (...) {
     out.clear();
+    if (ranges) ranges->clear();
     throw;
   }
   emit.finish();
+  return emit.cut();
 }
 
 std::vector<std::string> Tokenizer::tokenize(std::string_view utf8) const {

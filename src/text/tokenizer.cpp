@@ -6,10 +6,10 @@
 
 namespace gyre::text {
 
-void tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_view path, std::size_t line,
+bool tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_view path, std::size_t line,
                  std::vector<std::string>& out) {
   try {
-    tokenizer.tokenize(text, out);
+    return tokenizer.tokenize(text, out);
   } catch (const runtime::Error& e) {
     throw ParseError(path, line, e.what());
   }

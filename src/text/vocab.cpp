@@ -7,6 +7,8 @@
 
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
+#include "gyre/runtime/char_tokens.hpp"
+#include "gyre/runtime/model_header.hpp"
 
 namespace gyre::text {
 
@@ -106,14 +108,35 @@ LabelSet::LabelSet(const LabelCounts& counts) {
     names_.push_back(name);
     counts_.push_back(count);
   }
+  index();
+}
+
+LabelSet::LabelSet(std::vector<std::string> names, std::vector<std::uint64_t> counts)
+    : names_(std::move(names)), counts_(std::move(counts)) {
+  GYRE_CHECK(names_.size() == counts_.size(), "LabelSet: names and counts differ in length");
+  index();
+  for (std::size_t i = 1; i < by_name_.size(); ++i)
+    if (names_[static_cast<std::size_t>(by_name_[i])] == names_[static_cast<std::size_t>(by_name_[i - 1])])
+      throw Error("LabelSet: duplicate label '" + names_[static_cast<std::size_t>(by_name_[i])] + "'");
+}
+
+void LabelSet::index() {
+  GYRE_CHECK(names_.size() <= static_cast<std::size_t>(std::numeric_limits<std::int32_t>::max()),
+             "LabelSet: too many labels for 32-bit ids");
+  by_name_.resize(names_.size());
+  for (std::size_t i = 0; i < by_name_.size(); ++i) by_name_[i] = static_cast<std::int32_t>(i);
+  std::sort(by_name_.begin(), by_name_.end(), [&](std::int32_t a, std::int32_t b) {
+    return names_[static_cast<std::size_t>(a)] < names_[static_cast<std::size_t>(b)];
+  });
 }
 
 std::optional<std::int32_t> LabelSet::find(std::string_view label) const {
   const auto it =
-      std::lower_bound(names_.begin(), names_.end(), label,
-                       [](const std::string& a, std::string_view b) { return std::string_view(a) < b; });
-  if (it == names_.end() || *it != label) return std::nullopt;
-  return static_cast<std::int32_t>(it - names_.begin());
+      std::lower_bound(by_name_.begin(), by_name_.end(), label, [&](std::int32_t id, std::string_view b) {
+        return std::string_view(names_[static_cast<std::size_t>(id)]) < b;
+      });
+  if (it == by_name_.end() || names_[static_cast<std::size_t>(*it)] != label) return std::nullopt;
+  return *it;
 }
 
 std::int32_t LabelSet::id(std::string_view label, std::string_view path, std::size_t line) const {
@@ -205,6 +228,27 @@ void from_json(const nlohmann::json& j, LabelSet& labels) {
   labels = LabelSet(map);
 }
 
+void CharacterListBuilder::add(std::string_view surface_token) {
+  runtime::grapheme_clusters(surface_token, scratch_);
+  const std::size_t n = std::min(scratch_.size(), runtime::kMaxTokenCharacters);
+  for (std::size_t i = 0; i < n; ++i) ++counts_[std::string(scratch_[i])];
+}
+
+std::vector<std::string> CharacterListBuilder::build(std::uint64_t min_count, std::size_t max_size) const {
+  std::vector<std::pair<std::string_view, std::uint64_t>> kept;
+  for (const auto& [c, n] : counts_)
+    if (n >= min_count) kept.emplace_back(c, n);
+  std::sort(kept.begin(), kept.end(), [](const auto& a, const auto& b) {
+    return a.second != b.second ? a.second > b.second : a.first < b.first;
+  });
+  std::vector<std::string> out{std::string(runtime::kPaddingToken), std::string(runtime::kUnknownToken)};
+  for (const auto& [c, n] : kept) {
+    if (max_size != 0 && out.size() >= max_size) break;
+    out.emplace_back(c);
+  }
+  return out;
+}
+
 void save_vocab_file(const std::filesystem::path& path, const VocabFile& file) {
   nlohmann::json j;
   j["format"] = kFormatName;
@@ -214,8 +258,9 @@ void save_vocab_file(const std::filesystem::path& path, const VocabFile& file) {
   j["tokens"] = file.vocab;
   // One [token, count] pair per line keeps big vocabularies readable and diffable.
   std::string out = "{\n";
-  for (const char* key : {"format", "version", "tokenizer", "labels"})
-    out += "  \"" + std::string(key) + "\": " + j[key].dump() + ",\n";
+  if (!file.characters.empty()) j["characters"] = file.characters;
+  for (const char* key : {"format", "version", "tokenizer", "labels", "characters"})
+    if (j.contains(key)) out += "  \"" + std::string(key) + "\": " + j[key].dump() + ",\n";
   out += "  \"tokens\": [\n";
   const auto& tokens = j["tokens"];
   for (std::size_t i = 0; i < tokens.size(); ++i)
@@ -254,6 +299,16 @@ VocabFile load_vocab_file(const std::filesystem::path& path) {
     file.labels = j["labels"].get<LabelSet>();
   } catch (const std::invalid_argument& e) {
     throw FormatError(where, e.what());
+  }
+  if (j.contains("characters")) {
+    const auto& c = j["characters"];
+    bool ok = c.is_array() && c.size() >= 2;
+    for (std::size_t i = 0; ok && i < c.size(); ++i)
+      ok = c[i].is_string() && !c[i].get<std::string>().empty();
+    if (ok) file.characters = c.get<std::vector<std::string>>();
+    if (!ok || file.characters[0] != runtime::kPaddingToken || file.characters[1] != runtime::kUnknownToken)
+      throw FormatError(where,
+                        "\"characters\" must be an array of strings starting with \"<pad>\", \"<unk>\"");
   }
   return file;
 }

@@ -1,16 +1,27 @@
 #include "gyre/train/compare.hpp"
 
 #include <algorithm>
+#include <cctype>
+#include <cerrno>
 #include <chrono>
+#include <cmath>
 #include <cstdio>
+#include <cstring>
+#include <map>
+#include <optional>
 #include <sstream>
 
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
+#include "gyre/core/rng.hpp"
+#include "gyre/core/version.hpp"
+#include "gyre/data/encoder.hpp"
 #include "gyre/data/reader.hpp"
 #include "gyre/io/model_io.hpp"
-#include "gyre/model/encoder.hpp"
+#include "gyre/runtime/model.hpp"
 #include "gyre/train/evaluate.hpp"
+#include "gyre/train/process_group.hpp"
+#include "gyre/train/progress.hpp"
 #include "gyre/train/trainer.hpp"
 
 namespace gyre::train {
@@ -31,6 +42,7 @@ struct LogTotals {
   int epochs = 0;
   double seconds = 0.0;
   double tokens_per_second = 0.0;
+  std::vector<json> dev;  // each epoch's dev summary
 };
 
 // Sums log.jsonl of a finished run: one JSON object per epoch.
@@ -53,6 +65,7 @@ LogTotals read_log(const fs::path& run_dir) {
       throw ParseError(path.string(), line_no, "expected an epoch object with \"seconds\"");
     ++t.epochs;
     t.seconds += j["seconds"].get<double>();
+    t.dev.push_back(j.contains("dev") ? j["dev"] : json(nullptr));
     if (j.contains("tokens_per_second") && j["tokens_per_second"].is_number())
       t.tokens_per_second += j["tokens_per_second"].get<double>();
   }
@@ -60,10 +73,89 @@ LogTotals read_log(const fs::path& run_dir) {
   return t;
 }
 
-// True when OUT/<run> holds a finished run of exactly this cell, size and seed.
-bool reusable(const fs::path& dir, const std::string& cell, int hidden, std::uint64_t seed) {
+// What a compare run was trained from: the requested configuration (cell, size and seed set;
+// "auto" settings as requested, so they resolve the same way again), fingerprints of the data
+// files' contents and the gyre version. Written as OUT/<run>/compare-run.json when the run
+// finishes; a later compare reuses the run only when all three match.
+constexpr const char* kRunRecord = "compare-run.json";
+
+// 64-bit FNV-1a (gyre::stable_hash) of a file's bytes, as 16 hex digits.
+std::string content_fingerprint(const std::string& path) {
+  const std::string bytes = read_file(path);
+  char buf[24];
+  std::snprintf(buf, sizeof buf, "%016llx",
+                static_cast<unsigned long long>(stable_hash(bytes.data(), bytes.size())));
+  return buf;
+}
+
+json run_record(const TrainConfig& c, const json& fingerprints) {
+  json config = config_to_json(c);
+  // The files are identified by their contents (below), not by how their paths were spelt.
+  config.erase("train");
+  config.erase("dev");
+  return json{{"format", "gyre-compare-run"},
+              {"version", 1},
+              {"gyre_version", std::string(gyre::version())},
+              {"config", config},
+              {"data", fingerprints}};
+}
+
+json data_fingerprints(const CompareSpec& spec) {
+  json d;
+  d["train"] = content_fingerprint(spec.base.train);
+  d["dev"] = content_fingerprint(spec.base.dev);
+  d["test"] = spec.test.empty() ? json(nullptr) : json(content_fingerprint(spec.test));
+  d["pretrained_embeddings"] = spec.base.pretrained_embeddings.empty()
+                                   ? json(nullptr)
+                                   : json(content_fingerprint(spec.base.pretrained_embeddings));
+  return d;
+}
+
+std::string short_value(const json& v) {
+  if (v.is_null()) return "none";
+  std::string s = v.is_string() ? v.get<std::string>() : v.dump();
+  if (s.size() > 40) s = s.substr(0, 37) + "...";
+  return s;
+}
+
+// Why the finished run recorded in `old` cannot stand for `wanted`: "" when it can, otherwise
+// every difference in plain words ("--epochs 1 -> 3, --layers 1 -> 2").
+std::string record_difference(const json& old, const json& wanted) {
+  if (!old.is_object() || old.value("format", "") != "gyre-compare-run")
+    return "it has no readable " + std::string(kRunRecord) + " (trained by hand or by an older gyre)";
+  std::vector<std::string> diffs;
+  if (old.value("gyre_version", "") != wanted["gyre_version"].get<std::string>())
+    diffs.push_back("trained by gyre " + old.value("gyre_version", std::string("?")) + ", this is gyre " +
+                    wanted["gyre_version"].get<std::string>());
+  const json& oc = old.contains("config") ? old["config"] : json::object();
+  const json& wc = wanted["config"];
+  for (const auto& [key, value] : wc.items()) {
+    std::string option = "--" + key;
+    std::replace(option.begin(), option.end(), '_', '-');
+    if (!oc.contains(key))
+      diffs.push_back(option + " (not recorded) -> " + short_value(value));
+    else if (oc[key] != value)
+      diffs.push_back(option + " " + short_value(oc[key]) + " -> " + short_value(value));
+  }
+  for (const auto& [key, value] : oc.items())
+    if (!wc.contains(key)) diffs.push_back("setting '" + key + "' no longer exists");
+  const json& od = old.contains("data") ? old["data"] : json::object();
+  for (const auto& [key, value] : wanted["data"].items())
+    if (!od.contains(key) || od[key] != value) diffs.push_back(key + " file contents differ");
+  std::string out;
+  for (const auto& d : diffs) out += (out.empty() ? "" : ", ") + d;
+  return out;
+}
+
+// The state of OUT/<run>: nothing there, a finished run trained from `wanted` (reusable), or a
+// finished run trained from something else (`why` says what differs). A directory holding an
+// unfinished or unrecognised run is refused (ConfigError): compare never deletes what it did not
+// write.
+enum class RunState { kAbsent, kReusable, kStale };
+RunState run_state(const fs::path& dir, const std::string& cell, int hidden, std::uint64_t seed,
+                   const json& wanted, std::string& why) {
   std::error_code ec;
-  if (!fs::exists(dir, ec) || fs::is_empty(dir, ec)) return false;
+  if (!fs::exists(dir, ec) || fs::is_empty(dir, ec)) return RunState::kAbsent;
   if (!fs::exists(dir / "metrics.json", ec))
     throw ConfigError(
         "out", dir.string() + " holds an unfinished run; finish it with `gyre train --resume` or delete it");
@@ -77,9 +169,41 @@ bool reusable(const fs::path& dir, const std::string& cell, int hidden, std::uin
                     c.value("seed", std::uint64_t{0}) == seed;
   if (!same)
     throw ConfigError("out", dir.string() +
-                                 " holds a run with other settings (cell, hidden_size or seed); "
+                                 " holds a run of another cell, hidden_size or seed than its name says; "
                                  "use another --out or delete it");
-  return true;
+  json old;
+  if (fs::exists(dir / kRunRecord, ec)) {
+    try {
+      old = json::parse(read_file(dir / kRunRecord));
+    } catch (const json::parse_error&) {
+      old = nullptr;
+    }
+  }
+  why = record_difference(old, wanted);
+  return why.empty() ? RunState::kReusable : RunState::kStale;
+}
+
+// Trains one run into a scratch directory beside its place and swaps it in only when it has
+// finished, so an interrupted retraining leaves the previous run as it was.
+TrainResult train_into(const fs::path& dir, const TrainConfig& c, const json& record, std::FILE* progress) {
+  const fs::path scratch = dir.parent_path() / ("." + dir.filename().string() + ".training");
+  const fs::path old = dir.parent_path() / ("." + dir.filename().string() + ".replaced");
+  std::error_code ec;
+  fs::remove_all(scratch, ec);  // left by an interrupted compare: ours, never finished
+  TrainOptions options;
+  options.out = scratch;
+  // The run's own progress: redrawn in place on a terminal, plain lines every few seconds in a log.
+  options.quiet = progress == nullptr;
+  options.progress = progress ? progress : stderr;
+  options.group = &local_group();  // a compare run trains on one process, also inside an MPI job
+  TrainResult tr = train(c, options);
+  if (tr.outcome == TrainOutcome::kInterrupted) return tr;
+  write_file_atomic(scratch / kRunRecord, record.dump(2) + "\n");
+  fs::remove_all(old, ec);
+  if (fs::exists(dir)) fs::rename(dir, old);
+  fs::rename(scratch, dir);
+  fs::remove_all(old, ec);
+  return tr;
 }
 
 std::string resolve_metric(const std::string& wanted, const model::ModelSpec& spec) {
@@ -102,17 +226,170 @@ std::vector<std::uint8_t> correctness(const EvaluationResult& r,
 
 std::vector<data::EncodedExample> encode_all(const std::vector<data::Example>& examples,
                                              const io::TrainedModel& m, const std::string& path) {
-  const model::Encoder encoder(m.vocab, m.spec.task);
+  const data::Encoder encoder(m.vocab, m.spec.task);
   std::vector<data::EncodedExample> out;
   out.reserve(examples.size());
   for (const auto& ex : examples) out.push_back(encoder.encode(ex, path));
   return out;
 }
 
-double mean_of(const std::vector<std::uint8_t>& v) {
-  double s = 0.0;
-  for (const auto x : v) s += x;
-  return v.empty() ? 0.0 : s / static_cast<double>(v.size());
+// The metric the head-to-head resamples: the compare metric, except that a loss ranking is
+// compared on accuracy (token accuracy for taggers), which has per-example counts.
+std::string head_to_head_metric(const std::string& metric, data::Task task) {
+  if (metric != "loss") return metric;
+  return task == data::Task::kTag ? "token_accuracy" : "accuracy";
+}
+
+// Per-example additive counts of `metric` (gyre/eval/significance.hpp, ExampleCounts): the
+// metric of any resample of examples is a function of the column sums.
+//   accuracy        [exact match, 1]
+//   token_accuracy  [right tokens, tokens]
+//   span_f1         [tp, fp, fn] over spans (CoNLL-2000 rules, as eval::TaggingScorer)
+//   macro_f1        [tp, fp, fn] per label
+eval::ExampleCounts example_counts(const EvaluationResult& r,
+                                   const std::vector<data::EncodedExample>& encoded,
+                                   const model::ModelSpec& spec, const std::string& metric) {
+  eval::ExampleCounts c;
+  const std::size_t n = encoded.size();
+  if (metric == "accuracy" && r.task == data::Task::kClassify) {
+    c.width = 2;
+    for (std::size_t i = 0; i < n; ++i) {
+      c.values.push_back(r.predictions[i].labels == encoded[i].targets ? 1.0 : 0.0);
+      c.values.push_back(1.0);
+    }
+  } else if (metric == "accuracy" || metric == "token_accuracy") {
+    c.width = 2;
+    for (std::size_t i = 0; i < n; ++i) {
+      double right = 0.0;
+      for (std::size_t t = 0; t < encoded[i].targets.size(); ++t)
+        right += r.predictions[i].tags[t] == encoded[i].targets[t] ? 1.0 : 0.0;
+      c.values.push_back(right);
+      c.values.push_back(static_cast<double>(encoded[i].targets.size()));
+    }
+  } else if (metric == "span_f1") {
+    c.width = 3;
+    std::vector<std::string> gold, predicted;
+    for (std::size_t i = 0; i < n; ++i) {
+      gold.clear();
+      predicted.clear();
+      for (std::size_t t = 0; t < encoded[i].targets.size(); ++t) {
+        gold.push_back(spec.labels[static_cast<std::size_t>(encoded[i].targets[t])]);
+        predicted.push_back(spec.labels[static_cast<std::size_t>(r.predictions[i].tags[t])]);
+      }
+      eval::TaggingScorer one;
+      one.add(gold, predicted);
+      const auto m = one.metrics();
+      c.values.push_back(static_cast<double>(m.correct_spans));
+      c.values.push_back(static_cast<double>(m.predicted_spans - m.correct_spans));
+      c.values.push_back(static_cast<double>(m.gold_spans - m.correct_spans));
+    }
+  } else if (metric == "macro_f1") {
+    const std::size_t labels = spec.labels.size();
+    c.width = 3 * labels;
+    c.values.assign(n * c.width, 0.0);
+    for (std::size_t i = 0; i < n; ++i) {
+      std::vector<std::uint8_t> gold(labels, 0), predicted(labels, 0);
+      for (const auto l : encoded[i].targets) gold[static_cast<std::size_t>(l)] = 1;
+      for (const auto l : r.predictions[i].labels) predicted[static_cast<std::size_t>(l)] = 1;
+      double* row = c.values.data() + i * c.width;
+      for (std::size_t l = 0; l < labels; ++l) {
+        row[3 * l] += gold[l] && predicted[l];
+        row[3 * l + 1] += !gold[l] && predicted[l];
+        row[3 * l + 2] += gold[l] && !predicted[l];
+      }
+    }
+  } else {
+    throw ConfigError("metric", "no per-example counts for '" + metric + "'");
+  }
+  return c;
+}
+
+// The metric as a function of summed counts (the same definitions as gyre/eval; zero division
+// gives 0). Single-label macro F1 averages over the labels seen in gold or predictions,
+// multi-label over all labels (DEVELOPERS.md, evaluation conventions).
+eval::CountMetric count_metric(const std::string& metric, bool multi_label) {
+  if (metric == "accuracy" || metric == "token_accuracy")
+    return [](std::span<const double> s) { return s[1] > 0 ? s[0] / s[1] : 0.0; };
+  if (metric == "span_f1")
+    return [](std::span<const double> s) {
+      const double d = 2 * s[0] + s[1] + s[2];
+      return d > 0 ? 2 * s[0] / d : 0.0;
+    };
+  return [multi_label](std::span<const double> s) {
+    double sum = 0.0;
+    std::size_t used = 0;
+    for (std::size_t l = 0; l + 2 < s.size(); l += 3) {
+      const double d = 2 * s[l] + s[l + 1] + s[l + 2];
+      if (!multi_label && d == 0) continue;  // label in neither gold nor predictions
+      sum += d > 0 ? 2 * s[l] / d : 0.0;
+      ++used;
+    }
+    return used ? sum / static_cast<double>(used) : 0.0;
+  };
+}
+
+std::string config_label(const CompareConfig& c) {
+  std::string cell = c.cell;
+  for (auto& ch : cell) ch = static_cast<char>(std::toupper(static_cast<unsigned char>(ch)));
+  return cell + " h" + std::to_string(c.hidden_size);
+}
+
+std::string pretty_metric(const std::string& metric) {
+  if (metric == "macro_f1") return "macro F1";
+  if (metric == "span_f1") return "span F1";
+  if (metric == "token_accuracy") return "token accuracy";
+  return metric;
+}
+
+// "1.2" for a share shown in points, "0.0123" otherwise.
+std::string amount(double v, bool points) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, points ? "%.1f" : "%.4f", points ? 100.0 * v : v);
+  return buf;
+}
+
+// Median milliseconds per text of the int8 model in the embedded runtime, batch 1, over the dev
+// texts (at most 200 of them, repeated until about 0.3 s have passed), after one warm-up pass.
+double runtime_latency_ms(const fs::path& model_path, const std::vector<data::EncodedExample>& texts,
+                          double& mean_tokens) {
+  const runtime::Model model = runtime::Model::load(model_path.string());
+  runtime::Context ctx(model);
+  const bool classify = model.architecture().task == runtime::Task::kClassify;
+  const std::size_t count = std::min<std::size_t>(texts.size(), 200);
+  std::vector<std::vector<std::uint32_t>> ids(count);
+  double tokens = 0.0;
+  for (std::size_t i = 0; i < count; ++i) {
+    for (const auto id : texts[i].ids) ids[i].push_back(static_cast<std::uint32_t>(id));
+    tokens += static_cast<double>(ids[i].size());
+  }
+  mean_tokens = count ? tokens / static_cast<double>(count) : 0.0;
+  // A model with a character encoder reads each token's characters too (from the encoded text).
+  const bool chars = model.architecture().has_char_encoder();
+  auto infer_one = [&](std::size_t i) {
+    const auto& x = ids[i];
+    const Span<const std::uint32_t> xs(x.data(), x.size());
+    if (chars && classify)
+      ctx.classify_ids(xs, texts[i].char_ids, texts[i].char_offsets);
+    else if (chars)
+      ctx.tag_ids(xs, texts[i].char_ids, texts[i].char_offsets);
+    else if (classify)
+      ctx.classify_ids(xs);
+    else
+      ctx.tag_ids(xs);
+  };
+  for (std::size_t i = 0; i < count; ++i) infer_one(i);  // warm-up: buffers sized, caches hot
+  std::vector<double> ms;
+  using Clock = std::chrono::steady_clock;
+  const auto start = Clock::now();
+  do {
+    for (std::size_t i = 0; i < count; ++i) {
+      const auto t0 = Clock::now();
+      infer_one(i);
+      ms.push_back(std::chrono::duration<double, std::milli>(Clock::now() - t0).count());
+    }
+  } while (Clock::now() - start < std::chrono::milliseconds(300) && ms.size() < 100000);
+  std::sort(ms.begin(), ms.end());
+  return ms.empty() ? 0.0 : ms[ms.size() / 2];
 }
 
 }  // namespace
@@ -129,6 +406,7 @@ void summarize_runs(CompareResult& result, bool lower_is_better) {
       speed.push_back(r.tokens_per_second);
       c.parameters = r.parameters;
       c.model_bytes = r.model_bytes;
+      c.int8_bytes = r.int8_bytes;
     }
     c.dev = eval::summarize(dev);
     c.test.reset();
@@ -143,10 +421,122 @@ void summarize_runs(CompareResult& result, bool lower_is_better) {
   }
 }
 
+void mark_pareto_front(CompareResult& result) {
+  const bool lower = result.metric == "loss";
+  auto score = [&](const CompareConfig& c) {
+    const double v = c.test ? c.test->mean : c.dev.mean;
+    return lower ? -v : v;  // higher is better from here on
+  };
+  for (auto& c : result.configs) {
+    c.pareto = true;
+    for (const auto& o : result.configs) {
+      if (&o == &c) continue;
+      const bool no_worse = score(o) >= score(c) && o.latency_ms <= c.latency_ms;
+      const bool better = score(o) > score(c) || o.latency_ms < c.latency_ms;
+      if (no_worse && better) {
+        c.pareto = false;
+        break;
+      }
+    }
+  }
+}
+
+HeadToHead head_to_head(const CompareResult& result, std::size_t ia, std::size_t ib, const std::string& set,
+                        const std::string& metric, int bootstrap_samples) {
+  const auto& ca = result.configs.at(ia);
+  const auto& cb = result.configs.at(ib);
+  HeadToHead h;
+  h.a = ca.name;
+  h.b = cb.name;
+  h.label_a = config_label(ca);
+  h.label_b = config_label(cb);
+  h.set = set;
+  h.metric = metric;
+  h.points = metric != "loss";
+  const bool multi_label = result.multi_label;
+  const auto fn = count_metric(metric, multi_label);
+  std::vector<eval::ExampleCounts> a, b;
+  for (const auto i : ca.runs) a.push_back(result.runs.at(i).counts);
+  for (const auto i : cb.runs) b.push_back(result.runs.at(i).counts);
+  for (const auto& x : a) h.scores_a.push_back(eval::metric_of(x, fn));
+  for (const auto& x : b) h.scores_b.push_back(eval::metric_of(x, fn));
+  h.seeds_a = a.size();
+  h.seeds_b = b.size();
+  h.examples = a.empty() ? 0 : a.front().examples();
+  h.summary_a = eval::summarize(h.scores_a);
+  h.summary_b = eval::summarize(h.scores_b);
+  h.interval = eval::hierarchical_bootstrap(a, b, fn, bootstrap_samples, 0.95, 1);
+  h.permutation = eval::permutation_test(h.scores_a, h.scores_b);
+  h.detected = h.interval.low > 0.0 || h.interval.high < 0.0;
+  const double diff = h.interval.difference;
+  if (h.seeds_a >= 2 && h.seeds_b >= 2)
+    h.seeds_needed = eval::seeds_to_detect(diff, h.summary_a.std, h.summary_b.std);
+  for (std::size_t k = 0; k < std::min(ca.runs.size(), cb.runs.size()); ++k) {
+    const auto& ra = result.runs.at(ca.runs[k]);
+    const auto& rb = result.runs.at(cb.runs[k]);
+    h.per_seed.push_back({ra.seed, eval::mcnemar_exact(ra.correct, rb.correct)});
+  }
+
+  // The verdict, in the metric's own direction (loss: lower is better).
+  const bool lower_better = metric == "loss";
+  const bool a_better = lower_better ? diff < 0 : diff > 0;
+  const std::string& winner = a_better ? h.label_a : h.label_b;
+  const std::string& loser = a_better ? h.label_b : h.label_a;
+  const double lo = a_better ? h.interval.low : -h.interval.high;
+  const double hi = a_better ? h.interval.high : -h.interval.low;
+  const double gap = std::fabs(diff);
+  const std::string what = (h.points ? " points of " : " of ") + set + " " + pretty_metric(metric);
+  char budget[160];
+  std::snprintf(budget, sizeof budget, "95%% interval %s to %s; %zu seed%s x %zu examples",
+                amount(lower_better ? -hi : lo, h.points).c_str(),
+                amount(lower_better ? -lo : hi, h.points).c_str(), std::min(h.seeds_a, h.seeds_b),
+                std::min(h.seeds_a, h.seeds_b) == 1 ? "" : "s", h.examples);
+  std::string seeds_text;
+  if (h.seeds_needed > 1000)
+    seeds_text = "more than 1000 seeds per configuration would be needed to detect a difference of this size";
+  else if (h.seeds_needed > 0)
+    seeds_text = "about " + std::to_string(h.seeds_needed) +
+                 " seeds per configuration would detect a difference of this size reliably";
+  else if (h.seeds_a < 2 || h.seeds_b < 2)
+    seeds_text = "with one seed the number of seeds needed cannot be estimated";
+  else
+    seeds_text = "the mean scores are equal: no number of seeds per configuration would detect a difference";
+  if (h.detected) {
+    h.verdict = winner + " beats " + loser + " by " + amount(gap, h.points) + what + " (" + budget + ")";
+  } else if (gap > 0) {
+    h.verdict = "no difference detectable at this budget: " + winner + " is ahead of " + loser + " by " +
+                amount(gap, h.points) + what + " (" + budget + ")";
+  } else {
+    h.verdict = "no difference detectable at this budget: " + h.label_a + " and " + h.label_b +
+                " have the same " + set + " " + pretty_metric(metric) + " (" + budget + ")";
+  }
+  if (!seeds_text.empty()) h.verdict += "; " + seeds_text;
+
+  char line[320];
+  if (h.detected && std::min(h.seeds_a, h.seeds_b) >= 2 && h.permutation.p_value > 0.05) {
+    std::snprintf(
+        line, sizeof line,
+        "the permutation test over the per-seed scores does not confirm it (p = %.3g; with %zu + %zu seeds "
+        "p cannot go below %.3g)",
+        h.permutation.p_value, h.seeds_a, h.seeds_b, 2.0 / static_cast<double>(h.permutation.relabellings));
+    h.notes.push_back(line);
+  }
+  if (set == "dev")
+    h.notes.push_back(
+        "WARNING: no --test file, so these are dev scores: dev chose every run's best epoch and each cell's "
+        "best configuration, so they are optimistic. Give --test FILE for an honest comparison.");
+  if (std::min(h.seeds_a, h.seeds_b) == 1)
+    h.notes.push_back(
+        "NOTE: one seed per configuration: nothing can be said about seed-to-seed variation, which often "
+        "decides LSTM-vs-GRU questions; the interval covers the choice of examples only. Use --seeds 3 or "
+        "more.");
+  return h;
+}
+
 json CompareResult::to_json(const CompareSpec& spec) const {
   json j;
   j["format"] = "gyre-compare";
-  j["version"] = 1;
+  j["version"] = 2;  // 2: "head_to_head" replaces "significance"
   j["metric"] = metric;
   j["train"] = spec.base.train;
   j["dev"] = spec.base.dev;
@@ -159,22 +549,27 @@ json CompareResult::to_json(const CompareSpec& spec) const {
   j["shared_config"] = base;
   j["runs"] = json::array();
   for (const auto& r : runs) {
-    j["runs"].push_back({{"name", r.name},
-                         {"config", r.config},
-                         {"cell", r.cell},
-                         {"hidden_size", r.hidden_size},
-                         {"seed", r.seed},
-                         {"dir", r.name},
-                         {"reused", r.reused},
-                         {"parameters", r.parameters},
-                         {"model_bytes", r.model_bytes},
-                         {"epochs", r.epochs},
-                         {"train_seconds", r.train_seconds},
-                         {"tokens_per_second", r.tokens_per_second},
-                         {"dev_metric", r.dev_metric},
-                         {"test_metric", r.test_metric ? json(*r.test_metric) : json(nullptr)},
-                         {"dev_scores", r.dev},
-                         {"test_scores", r.test}});
+    j["runs"].push_back(
+        {{"name", r.name},
+         {"config", r.config},
+         {"cell", r.cell},
+         {"hidden_size", r.hidden_size},
+         {"seed", r.seed},
+         {"dir", r.name},
+         {"reused", r.reused},
+         {"trained_by_rank", r.trained_by_rank < 0 ? json(nullptr) : json(r.trained_by_rank)},
+         {"retrained_because", r.retrain_reason.empty() ? json(nullptr) : json(r.retrain_reason)},
+         {"parameters", r.parameters},
+         {"model_bytes", r.model_bytes},
+         {"int8_bytes", r.int8_bytes},
+         {"epochs", r.epochs},
+         {"dev_curve", r.dev_curve},
+         {"train_seconds", r.train_seconds},
+         {"tokens_per_second", r.tokens_per_second},
+         {"dev_metric", r.dev_metric},
+         {"test_metric", r.test_metric ? json(*r.test_metric) : json(nullptr)},
+         {"dev_scores", r.dev},
+         {"test_scores", r.test}});
   }
   j["configs"] = json::array();
   for (const auto& c : configs) {
@@ -192,6 +587,10 @@ json CompareResult::to_json(const CompareSpec& spec) const {
                             {"hidden_size", c.hidden_size},
                             {"parameters", c.parameters},
                             {"model_bytes", c.model_bytes},
+                            {"int8_bytes", c.int8_bytes},
+                            {"latency_ms", c.latency_ms},
+                            {"latency_tokens", c.latency_tokens},
+                            {"pareto", c.pareto},
                             {"runs", names},
                             {"dev", summary_json(c.dev, dev)},
                             {"test", c.test ? summary_json(*c.test, test) : json(nullptr)},
@@ -199,29 +598,130 @@ json CompareResult::to_json(const CompareSpec& spec) const {
                             {"tokens_per_second", summary_json(c.tokens_per_second, speed)}});
   }
   j["best"] = configs.empty() ? json(nullptr) : json(configs[best].name);
-  if (significance) {
-    const auto& s = *significance;
-    j["significance"] = {
-        {"a", s.a},
-        {"b", s.b},
-        {"set", s.set},
-        {"seed", s.seed},
-        {"examples", s.examples},
-        {"correctness", "exact match per example"},
-        {"accuracy_a", s.accuracy_a},
-        {"accuracy_b", s.accuracy_b},
-        {"mcnemar_exact",
-         {{"only_a", s.mcnemar.only_a}, {"only_b", s.mcnemar.only_b}, {"p_value", s.mcnemar.p_value}}},
-        {"paired_bootstrap",
-         {{"samples", s.bootstrap.samples},
-          {"wins_a", s.bootstrap.wins_a},
-          {"wins_b", s.bootstrap.wins_b},
-          {"p_value", s.bootstrap.p_value}}}};
+  if (head_to_head) {
+    const auto& h = *head_to_head;
+    json seeds = json::array();
+    for (const auto& m : h.per_seed)
+      seeds.push_back({{"seed", m.seed},
+                       {"only_a", m.test.only_a},
+                       {"only_b", m.test.only_b},
+                       {"p_value", m.test.p_value}});
+    j["head_to_head"] = {
+        {"a", h.a},
+        {"b", h.b},
+        {"label_a", h.label_a},
+        {"label_b", h.label_b},
+        {"set", h.set},
+        {"metric", h.metric},
+        {"points", h.points},
+        {"examples", h.examples},
+        {"scores_a", h.scores_a},
+        {"scores_b", h.scores_b},
+        {"mean_a", h.summary_a.mean},
+        {"std_a", h.summary_a.std},
+        {"mean_b", h.summary_b.mean},
+        {"std_b", h.summary_b.std},
+        {"difference", h.interval.difference},
+        {"two_level_bootstrap",
+         {{"method", "resample runs of each configuration, then examples shared by all runs (percentile)"},
+          {"level", h.interval.level},
+          {"low", h.interval.low},
+          {"high", h.interval.high},
+          {"samples", h.interval.samples}}},
+        {"permutation_test",
+         {{"method", "two-sample permutation test of mean per-seed scores, two-sided"},
+          {"p_value", h.permutation.p_value},
+          {"exact", h.permutation.exact},
+          {"relabellings", h.permutation.relabellings}}},
+        {"detected", h.detected},
+        {"seeds_needed", h.seeds_needed == 0 ? json(nullptr) : json(h.seeds_needed)},
+        {"per_seed_mcnemar", seeds},
+        {"verdict", h.verdict},
+        {"notes", h.notes}};
   } else {
-    j["significance"] = nullptr;
+    j["head_to_head"] = nullptr;
   }
   return j;
 }
+
+namespace {
+
+// The settings of one run of the grid: the shared ones with this cell, size and seed.
+TrainConfig run_config(const CompareSpec& spec, const std::string& cell, int hidden, std::uint64_t seed) {
+  TrainConfig c = spec.base;
+  c.cell = model::parse_cell(cell);
+  c.hidden_size = hidden;
+  c.seed = seed;
+  return c;
+}
+
+// One run of the grid that a rank trained in this job, and why it was retrained (if it was).
+struct TrainedHere {
+  int rank = 0;
+  std::string reason;
+};
+
+// Spreads the runs that need training over the ranks of an MPI job, dynamically: each rank walks
+// the grid in order and claims the next run nobody has claimed (an exclusive create of
+// OUT/.claims-<job>/<run>, so OUT must be on a filesystem every rank sees) and trains it on its
+// own. Every rank returns the same map of the runs trained in this job.
+std::map<std::string, TrainedHere> train_grid_across_ranks(const CompareSpec& spec, ProcessGroup& group,
+                                                           const json& fingerprints) {
+  RankClaims claims(group, spec.out);
+  std::string mine;  // "name\treason\n" per run this rank trained
+  const int total = static_cast<int>(spec.cells.size() * spec.hidden_sizes.size()) * spec.seeds;
+  int index = 0;
+  for (const auto& cell : spec.cells)
+    for (const int hidden : spec.hidden_sizes)
+      for (int s = 1; s <= spec.seeds; ++s) {
+        ++index;
+        const std::string name = config_name(cell, hidden) + "-s" + std::to_string(s);
+        const TrainConfig c = run_config(spec, cell, hidden, static_cast<std::uint64_t>(s));
+        const json record = run_record(c, fingerprints);
+        std::string why;
+        if (run_state(spec.out / name, cell, hidden, c.seed, record, why) == RunState::kReusable) continue;
+        if (!claims.claim(name)) continue;  // another rank has it
+        const auto start = std::chrono::steady_clock::now();
+        if (!why.empty() && spec.messages) {
+          std::fprintf(spec.messages, "gyre compare: rank %d retraining %s: %s\n", group.rank(), name.c_str(),
+                       why.c_str());
+          std::fflush(spec.messages);
+        }
+        if (spec.progress) {
+          std::fprintf(spec.progress, "gyre compare: rank %d of %d trains run %d of %d: %s\n", group.rank(),
+                       group.size(), index, total, name.c_str());
+          std::fflush(spec.progress);
+        }
+        // Each run's own progress lines would interleave across ranks: the runs train quietly.
+        const TrainResult tr = train_into(spec.out / name, c, record, nullptr);
+        if (tr.outcome == TrainOutcome::kInterrupted)
+          throw Error("interrupted during " + name +
+                      "; finished runs are kept and reused by the next compare");
+        if (spec.progress) {
+          std::fprintf(
+              spec.progress, "gyre compare: rank %d finished %s in %s\n", group.rank(), name.c_str(),
+              format_duration(std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count())
+                  .c_str());
+          std::fflush(spec.progress);
+        }
+        mine += name + "\t" + why + "\n";
+      }
+  // Collective: returns when every rank has finished its runs.
+  const std::vector<std::string> all = all_gather_strings(group, mine);
+  std::map<std::string, TrainedHere> trained;
+  for (int r = 0; r < group.size(); ++r) {
+    std::istringstream lines(all[static_cast<std::size_t>(r)]);
+    std::string line;
+    while (std::getline(lines, line)) {
+      const auto tab = line.find('\t');
+      trained[line.substr(0, tab)] = TrainedHere{r, tab == std::string::npos ? "" : line.substr(tab + 1)};
+    }
+  }
+  claims.finish();
+  return trained;
+}
+
+}  // namespace
 
 CompareResult run_compare(const CompareSpec& spec) {
   if (spec.cells.empty()) throw ConfigError("cells", "give at least one cell (lstm, gru)");
@@ -254,24 +754,34 @@ CompareResult run_compare(const CompareSpec& spec) {
     validate(probe);
   }
   // Read the evaluation files once, before any training, so bad input fails fast.
-  data::ReadOptions read_options;
-  read_options.skip_bad_lines = spec.base.skip_bad_lines;
-  const std::vector<data::Example> dev_examples = data::load_corpus(spec.base.dev, read_options);
+  const data::ReadOptions reading = read_options(spec.base);
+  const std::vector<data::Example> dev_examples = data::load_corpus(spec.base.dev, reading);
   if (dev_examples.empty()) throw ParseError(spec.base.dev, 0, "no examples in the file");
   std::vector<data::Example> test_examples;
   if (!spec.test.empty()) {
-    test_examples = data::load_corpus(spec.test, read_options);
+    test_examples = data::load_corpus(spec.test, reading);
     if (test_examples.empty()) throw ParseError(spec.test, 0, "no examples in the file");
   }
   const bool with_test = !spec.test.empty();
+  const json fingerprints = data_fingerprints(spec);
 
   std::error_code ec;
   fs::create_directories(spec.out, ec);
   if (ec) throw IoError("cannot create directory " + spec.out.string() + ": " + ec.message());
 
+  ProcessGroup& group = spec.group ? *spec.group : process_group();
+  std::map<std::string, TrainedHere> trained_in_job;
+  if (group.size() > 1) {
+    trained_in_job = train_grid_across_ranks(spec, group, fingerprints);
+    if (group.rank() != 0) return {};  // rank 0 scores every run and writes the one table
+  }
+
   CompareResult result;
   const int total = static_cast<int>(spec.cells.size() * spec.hidden_sizes.size()) * spec.seeds;
   int done = 0;
+  int trained_runs = 0;
+  double trained_seconds = 0.0;
+  const auto grid_start = std::chrono::steady_clock::now();
   for (const auto& cell : spec.cells) {
     for (const int hidden : spec.hidden_sizes) {
       CompareConfig cfg;
@@ -288,16 +798,41 @@ CompareResult run_compare(const CompareSpec& spec) {
         run.seed = seed;
         const fs::path dir = spec.out / run.name;
         const auto start = std::chrono::steady_clock::now();
-        run.reused = reusable(dir, cell, hidden, seed);
-        if (!run.reused) {
-          TrainConfig c = spec.base;
-          c.cell = cell;
-          c.hidden_size = hidden;
-          c.seed = seed;
-          TrainOptions options;
-          options.out = dir;
-          options.quiet = true;
-          const TrainResult tr = train(c, options);
+        const TrainConfig c = run_config(spec, cell, hidden, seed);
+        const json record = run_record(c, fingerprints);
+        std::string why;
+        const RunState state = run_state(dir, cell, hidden, seed, record, why);
+        run.reused = state == RunState::kReusable;
+        if (const auto it = trained_in_job.find(run.name); it != trained_in_job.end()) {
+          // Trained by a rank of this MPI job a moment ago: not a reuse.
+          run.reused = false;
+          run.trained_by_rank = it->second.rank;
+          why = it->second.reason;
+        } else if (!run.reused) {
+          run.trained_by_rank = group.rank();
+        }
+        if (state == RunState::kStale && spec.messages) {
+          std::fprintf(spec.messages, "gyre compare: retraining %s: %s\n", run.name.c_str(), why.c_str());
+          std::fflush(spec.messages);
+        }
+        run.retrain_reason = why;
+        if (state != RunState::kReusable) {
+          if (spec.progress) {
+            // The grid line: where in the grid we are, time so far and a rough time to go
+            // (mean time of the runs trained so far x runs left; reused runs take no time).
+            const double elapsed =
+                std::chrono::duration<double>(std::chrono::steady_clock::now() - grid_start).count();
+            const std::string eta = trained_runs > 0
+                                        ? "ETA " + format_duration(trained_seconds / trained_runs *
+                                                                   static_cast<double>(total - done))
+                                        : "ETA unknown until one run has trained";
+            std::fprintf(spec.progress, "gyre compare: run %d of %d: %s (elapsed %s, %s)\n", done + 1, total,
+                         run.name.c_str(), format_duration(elapsed).c_str(), eta.c_str());
+            std::fflush(spec.progress);
+          }
+          const TrainResult tr = train_into(dir, c, record, spec.progress);
+          ++trained_runs;
+          trained_seconds += std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
           if (tr.outcome == TrainOutcome::kInterrupted)
             throw Error("interrupted during " + run.name +
                         "; finished runs are kept and reused by the next compare");
@@ -308,9 +843,21 @@ CompareResult run_compare(const CompareSpec& spec) {
         run.tokens_per_second = log.tokens_per_second;
 
         io::TrainedModel trained = io::load_trained_model(dir);
-        if (result.metric.empty()) result.metric = resolve_metric(spec.metric, trained.spec);
+        if (result.metric.empty()) {
+          result.metric = resolve_metric(spec.metric, trained.spec);
+          result.task = trained.spec.task;
+          result.multi_label = trained.spec.output == model::OutputKind::kSigmoid;
+        }
+        const std::string h2h_metric = head_to_head_metric(result.metric, trained.spec.task);
         run.parameters = trained.model->params().parameter_count();
         run.model_bytes = run.parameters * sizeof(float);
+        for (const auto& d : log.dev)
+          run.dev_curve.push_back(d.is_object() && d.contains(result.metric) && d[result.metric].is_number()
+                                      ? d[result.metric].get<double>()
+                                      : std::nan(""));
+        // Costs of the deployable form: the int8 model file and its batch-1 latency in the runtime.
+        const fs::path int8_path = dir / "model-int8.gyre";
+        run.int8_bytes = io::export_model(trained, int8_path, runtime::DType::kI8);
         const auto dev_encoded = encode_all(dev_examples, trained, spec.base.dev);
         const EvaluationResult dev = evaluate(*trained.model, dev_encoded, !with_test);
         run.dev_metric = dev.metric(result.metric);
@@ -322,8 +869,10 @@ CompareResult run_compare(const CompareSpec& spec) {
           run.test_metric = test.metric(result.metric);
           run.test = test.summary();
           run.correct = correctness(test, test_encoded, trained.spec.task);
+          run.counts = example_counts(test, test_encoded, trained.spec, h2h_metric);
         } else {
           run.correct = correctness(dev, dev_encoded, trained.spec.task);
+          run.counts = example_counts(dev, dev_encoded, trained.spec, h2h_metric);
         }
         ++done;
         if (spec.progress) {
@@ -335,6 +884,7 @@ CompareResult run_compare(const CompareSpec& spec) {
                        run.reused ? "  (reused)" : "");
           std::fflush(spec.progress);
         }
+        if (s == 1) cfg.latency_ms = runtime_latency_ms(int8_path, dev_encoded, cfg.latency_tokens);
         cfg.runs.push_back(result.runs.size());
         result.runs.push_back(std::move(run));
       }
@@ -342,41 +892,54 @@ CompareResult run_compare(const CompareSpec& spec) {
     }
   }
   summarize_runs(result, result.metric == "loss");
+  mark_pareto_front(result);
 
   if (result.configs.size() >= 2) {
-    // Runner-up by mean dev metric.
-    std::vector<std::size_t> order(result.configs.size());
-    for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
+    // Best LSTM against best GRU, each by mean dev metric; with one cell type, the best two.
     const bool lower = result.metric == "loss";
-    std::stable_sort(order.begin(), order.end(), [&](std::size_t a, std::size_t b) {
-      return lower ? result.configs[a].dev.mean < result.configs[b].dev.mean
-                   : result.configs[a].dev.mean > result.configs[b].dev.mean;
-    });
-    if (order[0] != result.best) std::swap(order[0], *std::find(order.begin(), order.end(), result.best));
-    const auto& ca = result.configs[order[0]];
-    const auto& cb = result.configs[order[1]];
-    const auto& ra = result.runs[ca.runs.front()];
-    const auto& rb = result.runs[cb.runs.front()];
-    CompareSignificance s;
-    s.a = ca.name;
-    s.b = cb.name;
-    s.set = with_test ? "test" : "dev";
-    s.seed = ra.seed;
-    s.examples = ra.correct.size();
-    s.accuracy_a = mean_of(ra.correct);
-    s.accuracy_b = mean_of(rb.correct);
-    s.mcnemar = eval::mcnemar_exact(ra.correct, rb.correct);
-    s.bootstrap = eval::paired_bootstrap(ra.correct, rb.correct, spec.bootstrap_samples, 1);
-    result.significance = s;
+    auto better = [&](std::size_t x, std::size_t y) {
+      return lower ? result.configs[x].dev.mean < result.configs[y].dev.mean
+                   : result.configs[x].dev.mean > result.configs[y].dev.mean;
+    };
+    std::optional<std::size_t> best_lstm, best_gru;
+    for (std::size_t i = 0; i < result.configs.size(); ++i) {
+      auto& slot = result.configs[i].cell == "lstm" ? best_lstm : best_gru;
+      if (!slot || better(i, *slot)) slot = i;
+    }
+    std::size_t ia = 0, ib = 0;
+    if (best_lstm && best_gru) {
+      ia = *best_lstm;
+      ib = *best_gru;
+    } else {
+      std::vector<std::size_t> order(result.configs.size());
+      for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
+      std::stable_sort(order.begin(), order.end(), better);
+      ia = order[0];
+      ib = order[1];
+    }
+    result.head_to_head =
+        head_to_head(result, ia, ib, with_test ? "test" : "dev",
+                     head_to_head_metric(result.metric, result.task), spec.bootstrap_samples);
   }
   write_file_atomic(spec.out / "compare.json", result.to_json(spec).dump(2) + "\n");
   return result;
 }
 
+std::string compare_verdict(const CompareResult& result) {
+  if (!result.head_to_head) return "verdict: one configuration only, nothing to compare\n";
+  std::string out = "verdict: " + result.head_to_head->verdict + "\n";
+  for (const auto& n : result.head_to_head->notes) out += n + "\n";
+  return out;
+}
+
 std::string compare_table(const CompareResult& result, bool with_test) {
+  // One seed: no spread to show, so no "±" (issue 14).
   auto pm = [](const eval::SampleSummary& s) {
     char buf[64];
-    std::snprintf(buf, sizeof buf, "%.4f ± %.4f", s.mean, s.std);
+    if (s.count < 2)
+      std::snprintf(buf, sizeof buf, "%.4f", s.mean);
+    else
+      std::snprintf(buf, sizeof buf, "%.4f ± %.4f", s.mean, s.std);
     return std::string(buf);
   };
   auto size_text = [](std::size_t bytes) {
@@ -387,46 +950,78 @@ std::string compare_table(const CompareResult& result, bool with_test) {
       std::snprintf(buf, sizeof buf, "%.0f KiB", static_cast<double>(bytes) / 1024.0);
     return std::string(buf);
   };
-  // Columns: name, parameters, size, dev, [test], seconds, tokens/s. "±" is 2 bytes, 1 column.
+  // Columns: name, parameters, int8 size, latency, dev, [test], seconds, tokens/s, front.
+  // "±" is 2 bytes, 1 column.
   std::ostringstream out;
-  char line[256];
+  char line[320];
   const std::string dev_head = "dev " + result.metric;
   const std::string test_head = "test " + result.metric;
-  std::snprintf(line, sizeof line, "  %-14s %10s %9s  %-17s", "config", "params", "f32 size",
+  std::snprintf(line, sizeof line, "  %-14s %9s %9s %8s  %-17s", "config", "params", "int8", "ms/text",
                 dev_head.c_str());
   out << line;
   if (with_test) {
     std::snprintf(line, sizeof line, "  %-17s", test_head.c_str());
     out << line;
   }
-  std::snprintf(line, sizeof line, "  %9s %10s\n", "train s", "tokens/s");
+  std::snprintf(line, sizeof line, "  %8s %9s  %s\n", "train s", "tokens/s", "front");
   out << line;
   for (std::size_t i = 0; i < result.configs.size(); ++i) {
     const auto& c = result.configs[i];
-    std::snprintf(line, sizeof line, "%s %-14s %10zu %9s  %-18s", i == result.best ? "*" : " ",
-                  c.name.c_str(), c.parameters, size_text(c.model_bytes).c_str(), pm(c.dev).c_str());
+    std::snprintf(line, sizeof line, "%s %-14s %9zu %9s %8.3f  %-18s", i == result.best ? "*" : " ",
+                  c.name.c_str(), c.parameters, size_text(c.int8_bytes).c_str(), c.latency_ms,
+                  pm(c.dev).c_str());
     out << line;
     if (with_test) {
       std::snprintf(line, sizeof line, "  %-18s", c.test ? pm(*c.test).c_str() : "-");
       out << line;
     }
-    std::snprintf(line, sizeof line, "  %9.1f %10.0f\n", c.train_seconds.mean, c.tokens_per_second.mean);
+    std::snprintf(line, sizeof line, "  %8.1f %9.0f  %s\n", c.train_seconds.mean, c.tokens_per_second.mean,
+                  c.pareto ? "yes" : "-");
     out << line;
   }
   const std::size_t seeds = result.configs.empty() ? 0 : result.configs.front().runs.size();
-  out << "  (mean ± sample std over " << seeds << " seed" << (seeds == 1 ? "" : "s") << "; * = best mean dev "
-      << result.metric << ")\n";
-  if (result.significance) {
-    const auto& s = *result.significance;
-    std::snprintf(line, sizeof line,
-                  "\n%s vs %s on %s (seed %llu, %zu examples, exact-match accuracy %.4f vs %.4f)\n"
-                  "  McNemar exact test:  %lld right only by %s, %lld right only by %s, p = %.4g\n"
-                  "  paired bootstrap:    %s better in %d of %d resamples, p = %.4g\n",
-                  s.a.c_str(), s.b.c_str(), s.set.c_str(), static_cast<unsigned long long>(s.seed),
-                  s.examples, s.accuracy_a, s.accuracy_b, static_cast<long long>(s.mcnemar.only_a),
-                  s.a.c_str(), static_cast<long long>(s.mcnemar.only_b), s.b.c_str(), s.mcnemar.p_value,
-                  s.a.c_str(), s.bootstrap.wins_a, s.bootstrap.samples, s.bootstrap.p_value);
+  if (seeds == 1)
+    out << "  (one seed: no spread over seeds; * = best dev " << result.metric << ")\n";
+  else
+    out << "  (mean ± sample std over " << seeds << " seeds; * = best mean dev " << result.metric << ")\n";
+  out << "  (int8: exported model file; ms/text: median batch-1 latency of that file in the embedded "
+         "runtime\n"
+         "   on this machine; front: on the "
+      << (with_test ? "test" : "dev") << " " << result.metric << " vs latency Pareto front)\n";
+  if (result.head_to_head) {
+    const auto& h = *result.head_to_head;
+    const bool pts = h.points;
+    std::snprintf(line, sizeof line, "\n%s vs %s on %s, %s per seed%s:\n", h.label_a.c_str(),
+                  h.label_b.c_str(), h.set.c_str(), pretty_metric(h.metric).c_str(), pts ? " (points)" : "");
     out << line;
+    auto scores = [&](const std::vector<double>& v) {
+      std::string t;
+      for (const double x : v) t += (t.empty() ? "" : " ") + amount(x, pts);
+      return t;
+    };
+    std::snprintf(line, sizeof line, "  %-12s %s\n  %-12s %s\n", h.label_a.c_str(),
+                  scores(h.scores_a).c_str(), h.label_b.c_str(), scores(h.scores_b).c_str());
+    out << line;
+    std::snprintf(line, sizeof line,
+                  "  difference %s %s, 95%% interval %s to %s (two-level bootstrap over seeds and examples, "
+                  "%d resamples)\n",
+                  amount(h.interval.difference, pts).c_str(), pts ? "points" : "",
+                  amount(h.interval.low, pts).c_str(), amount(h.interval.high, pts).c_str(),
+                  h.interval.samples);
+    out << line;
+    std::snprintf(
+        line, sizeof line, "  permutation test over per-seed scores: p = %.3g (%s, %zu relabellings)\n",
+        h.permutation.p_value, h.permutation.exact ? "exact" : "random", h.permutation.relabellings);
+    out << line;
+    out << "  per-seed McNemar, exact match (right only by " << h.label_a << " / only by " << h.label_b
+        << "):\n   ";
+    for (const auto& m : h.per_seed) {
+      std::snprintf(line, sizeof line, "  s%llu %lld/%lld p=%.3g", static_cast<unsigned long long>(m.seed),
+                    static_cast<long long>(m.test.only_a), static_cast<long long>(m.test.only_b),
+                    m.test.p_value);
+      out << line;
+    }
+    out << "\n";
   }
   return out.str();
 }

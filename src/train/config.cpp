@@ -2,9 +2,6 @@
 
 #include <nlohmann/json.hpp>
 
-#include <initializer_list>
-#include <set>
-
 #include "gyre/core/error.hpp"
 
 namespace gyre::train {
@@ -12,97 +9,323 @@ namespace {
 
 using nlohmann::json;
 
-// One table drives to_json, from_json and the unknown-key check.
-template <typename F>
-void for_each_field(TrainConfig& c, F&& f) {
-  f("train", c.train);
-  f("dev", c.dev);
-  f("task", c.task);
-  f("dev_fraction", c.dev_fraction);
-  f("skip_bad_lines", c.skip_bad_lines);
-  f("repair_tags", c.repair_tags);
-  f("tokenizer", c.tokenizer);
-  f("nfkc", c.nfkc);
-  f("case_fold", c.case_fold);
-  f("fold_digits", c.fold_digits);
-  f("keep_punctuation", c.keep_punctuation);
-  f("max_tokens", c.max_tokens);
-  f("min_count", c.min_count);
-  f("max_vocab_size", c.max_vocab_size);
-  f("cell", c.cell);
-  f("embedding_size", c.embedding_size);
-  f("hidden_size", c.hidden_size);
-  f("layers", c.layers);
-  f("bidirectional", c.bidirectional);
-  f("pooling", c.pooling);
-  f("output", c.output);
-  f("dropout", c.dropout);
-  f("embedding_dropout", c.embedding_dropout);
-  f("pretrained_embeddings", c.pretrained_embeddings);
-  f("freeze_embeddings", c.freeze_embeddings);
-  f("optimizer", c.optimizer);
-  f("learning_rate", c.learning_rate);
-  f("momentum", c.momentum);
-  f("nesterov", c.nesterov);
-  f("weight_decay", c.weight_decay);
-  f("schedule", c.schedule);
-  f("warmup_steps", c.warmup_steps);
-  f("clip_norm", c.clip_norm);
-  f("label_smoothing", c.label_smoothing);
-  f("class_weights", c.class_weights);
-  f("batch_size", c.batch_size);
-  f("epochs", c.epochs);
-  f("patience", c.patience);
-  f("early_stop_metric", c.early_stop_metric);
-  f("bptt_window", c.bptt_window);
-  f("max_length", c.max_length);
-  f("seed", c.seed);
-  f("threads", c.threads);
+// Groups, in --help and README order.
+constexpr const char* kData = "data";
+constexpr const char* kTokens = "tokenizer and vocabulary";
+constexpr const char* kModel = "model";
+constexpr const char* kTraining = "training";
+constexpr const char* kMachine = "machine";
+
+// Choice names come from each enum's own to_string, so the names in configs, model files and
+// messages are one spelling.
+template <typename E>
+ChoiceOf<E> named(E value, std::string name, std::string help) {
+  return {value, {std::move(name), std::move(help)}};
+}
+ChoiceOf<data::Task> opt(data::Task v, std::string help) {
+  return named(v, data::to_string(v), std::move(help));
+}
+ChoiceOf<text::TokenizerMode> opt(text::TokenizerMode v, std::string help) {
+  return named(v, text::to_string(v), std::move(help));
+}
+ChoiceOf<nn::CellType> opt(nn::CellType v, std::string help) {
+  return named(v, model::to_string(v), std::move(help));
+}
+ChoiceOf<nn::PoolingKind> opt(nn::PoolingKind v, std::string help) {
+  return named(v, model::to_string(v), std::move(help));
+}
+ChoiceOf<model::OutputKind> opt(model::OutputKind v, std::string help) {
+  return named(v, model::to_string(v), std::move(help));
+}
+ChoiceOf<optim::OptimizerKind> opt(optim::OptimizerKind v, std::string help) {
+  return named(v, optim::to_string(v), std::move(help));
+}
+ChoiceOf<optim::ScheduleKind> opt(optim::ScheduleKind v, std::string help) {
+  return named(v, optim::to_string(v), std::move(help));
+}
+ChoiceOf<ClassWeights> opt(ClassWeights v, std::string help) {
+  return named(v, to_string(v), std::move(help));
+}
+ChoiceOf<Metric> opt(Metric v, std::string help) {
+  return named(v, to_string(v), std::move(help));
 }
 
-template <typename T>
-void read_value(const json& j, const char* key, T& out) {
-  const json& v = j.at(key);
-  if constexpr (std::is_same_v<T, bool>) {
-    if (!v.is_boolean()) throw ConfigError(key, "expected true or false, got " + v.dump());
-    out = v.get<bool>();
-  } else if constexpr (std::is_same_v<T, std::string>) {
-    if (!v.is_string()) throw ConfigError(key, "expected a string, got " + v.dump());
-    out = v.get<std::string>();
-  } else if constexpr (std::is_integral_v<T>) {
-    if (!v.is_number_integer()) throw ConfigError(key, "expected an integer, got " + v.dump());
-    if constexpr (std::is_unsigned_v<T>) {
-      if (v.is_number_unsigned() || v.get<long long>() >= 0) {
-        out = v.get<T>();
-      } else {
-        throw ConfigError(key, "must not be negative");
-      }
-    } else {
-      out = v.get<T>();
-    }
-  } else {
-    if (!v.is_number()) throw ConfigError(key, "expected a number, got " + v.dump());
-    out = v.get<T>();
-  }
-}
+using C = TrainConfig;
 
-void require_one_of(const char* key, const std::string& value, std::initializer_list<const char*> allowed) {
-  std::string list;
-  for (const char* a : allowed) {
-    if (value == a) return;
-    list += list.empty() ? "" : ", ";
-    list += a;
-  }
-  throw ConfigError(key, "'" + value + "' is not one of: " + list);
+SettingTable<TrainConfig> make_table() {
+  std::vector<Setting<C>> t;
+  // ---- data
+  t.push_back(
+      text(&C::train, {.key = "train",
+                       .group = kData,
+                       .help = "labelled training file (TSV label<TAB>text, CSV with a header row, JSON "
+                               "Lines, or token<TAB>tag columns)",
+                       .value_name = "FILE",
+                       .required = true}));
+  t.push_back(text(&C::dev, {.key = "dev",
+                             .group = kData,
+                             .help = "labelled dev file, scored after every epoch (default: a share of the "
+                                     "training file, see --dev-fraction)",
+                             .value_name = "FILE"}));
+  t.push_back(choice(&C::task, {.key = "task", .group = kData, .help = "what to train"},
+                     {"auto", "from the file format"},
+                     {opt(data::Task::kClassify, "one label (or several) per text"),
+                      opt(data::Task::kTag, "one tag per token")}));
+  t.push_back(
+      real(&C::dev_fraction, {.key = "dev_fraction",
+                              .group = kData,
+                              .help = "share of the training file held out as dev when no --dev is given "
+                                      "(chosen by a hash of each example)",
+                              .min = 0,
+                              .max = 1,
+                              .min_exclusive = true,
+                              .max_exclusive = true}));
+  t.push_back(
+      flag(&C::skip_bad_lines, {.key = "skip_bad_lines",
+                                .group = kData,
+                                .help = "skip malformed records (counted, first line numbers reported) "
+                                        "instead of stopping"}));
+  t.push_back(
+      flag(&C::repair_tags, {.key = "repair_tags",
+                             .group = kData,
+                             .help = "repair invalid BIO/BIOES transitions in tagging data instead of "
+                                     "stopping"}));
+  t.push_back(
+      text(&C::text_column, {.key = "text_column",
+                             .group = kData,
+                             .help = "CSV files: the header name of the text column; JSON Lines: the key of "
+                                     "the text",
+                             .value_name = "NAME"}));
+  t.push_back(
+      text(&C::label_column, {.key = "label_column",
+                              .group = kData,
+                              .help = "CSV files: the header name of the label column; JSON Lines: the key "
+                                      "of the label (or array of labels)",
+                              .value_name = "NAME"}));
+  // ---- tokenizer and vocabulary
+  t.push_back(choice(&C::tokenizer,
+                     {.key = "tokenizer", .group = kTokens, .help = "how texts are cut into tokens"},
+                     {opt(text::TokenizerMode::kWords, "Unicode word boundaries (UAX #29)"),
+                      opt(text::TokenizerMode::kChars, "extended grapheme clusters"),
+                      opt(text::TokenizerMode::kWhitespace, "split at white space")}));
+  t.push_back(flag(&C::nfkc, {.key = "nfkc", .group = kTokens, .help = "Unicode NFKC normalization first"}));
+  t.push_back(
+      flag(&C::case_fold, {.key = "case_fold", .group = kTokens, .help = "Unicode full case folding"}));
+  t.push_back(
+      flag(&C::fold_digits, {.key = "fold_digits", .group = kTokens, .help = "map every digit to 0"}));
+  t.push_back(
+      flag(&C::keep_punctuation,
+           {.key = "keep_punctuation", .group = kTokens, .help = "keep tokens made only of punctuation"}));
+  t.push_back(integer(&C::max_tokens,
+                      {.key = "max_tokens",
+                       .group = kTokens,
+                       .help = "keep the first N tokens of each text or sentence, warn about longer ones",
+                       .min = 0,
+                       .note = "0 = all"}));
+  t.push_back(integer(&C::min_count, {.key = "min_count",
+                                      .group = kTokens,
+                                      .help = "tokens seen fewer times in the training data become <unk>",
+                                      .min = 1}));
+  t.push_back(integer(&C::max_vocab_size, {.key = "max_vocab_size",
+                                           .group = kTokens,
+                                           .help = "largest vocabulary, <pad> and <unk> included (the most "
+                                                   "frequent tokens are kept)",
+                                           .min = 0,
+                                           .max = 100000000,
+                                           .note = "0 = no limit, else >= 3"}));
+  t.push_back(
+      text(&C::vocab, {.key = "vocab",
+                       .group = kTokens,
+                       .help = "use this vocabulary file (written by gyre vocab with the same tokenizer "
+                               "settings) instead of building one from the training file",
+                       .value_name = "FILE"}));
+  // ---- model
+  t.push_back(choice(&C::cell, {.key = "cell", .group = kModel, .help = "recurrent cell"},
+                     {opt(nn::CellType::kLstm, "long short-term memory with forget gate"),
+                      opt(nn::CellType::kGru, "gated recurrent unit")}));
+  t.push_back(integer(
+      &C::embedding_size,
+      {.key = "embedding_size", .group = kModel, .help = "token embedding width", .min = 1, .max = 65536}));
+  t.push_back(integer(&C::hidden_size, {.key = "hidden_size",
+                                        .group = kModel,
+                                        .help = "recurrent state width per direction",
+                                        .min = 1,
+                                        .max = 65536}));
+  t.push_back(
+      integer(&C::layers,
+              {.key = "layers", .group = kModel, .help = "stacked recurrent layers", .min = 1, .max = 32}));
+  t.push_back(
+      auto_flag(&C::bidirectional, {.key = "bidirectional",
+                                    .group = kModel,
+                                    .help = "read each text in both directions (default: yes for taggers, "
+                                            "no for classifiers)",
+                                    .negative = "unidirectional"}));
+  t.push_back(choice(
+      &C::pooling,
+      {.key = "pooling", .group = kModel, .help = "classifiers: how the states of a text become one vector"},
+      {opt(nn::PoolingKind::kLast, "the final state of each direction"),
+       opt(nn::PoolingKind::kMean, "mean over the tokens"),
+       opt(nn::PoolingKind::kMax, "maximum over the tokens")}));
+  t.push_back(choice(&C::output, {.key = "output", .group = kModel, .help = "output layer"},
+                     {"auto", "softmax, or sigmoid when the training file is multi-label"},
+                     {opt(model::OutputKind::kSoftmax, "one label (taggers: per-token tags)"),
+                      opt(model::OutputKind::kSigmoid, "any number of labels (multi-label)"),
+                      opt(model::OutputKind::kCrf, "taggers: linear-chain CRF over the tags")}));
+  t.push_back(real(&C::multi_label_threshold,
+                   {.key = "multi_label_threshold",
+                    .group = kModel,
+                    .help = "output sigmoid: a label is chosen when its probability is at least this (stored "
+                            "in the model; eval and predict use it)",
+                    .min = 0,
+                    .max = 1,
+                    .min_exclusive = true,
+                    .max_exclusive = true}));
+  t.push_back(real(&C::dropout, {.key = "dropout",
+                                 .group = kModel,
+                                 .help = "dropout between recurrent layers and before the output layer",
+                                 .min = 0,
+                                 .max = 1,
+                                 .max_exclusive = true}));
+  t.push_back(real(&C::embedding_dropout, {.key = "embedding_dropout",
+                                           .group = kModel,
+                                           .help = "dropout on token embeddings",
+                                           .min = 0,
+                                           .max = 1,
+                                           .max_exclusive = true}));
+  t.push_back(auto_flag(&C::char_encoder, {.key = "char_encoder",
+                                           .group = kModel,
+                                           .help = "join a character CNN over each token's un-folded "
+                                                   "characters to its embedding (default: yes for taggers, "
+                                                   "no for classifiers)"}));
+  t.push_back(integer(&C::char_embedding_size, {.key = "char_embedding_size",
+                                                .group = kModel,
+                                                .help = "character encoder: character embedding width",
+                                                .min = 1,
+                                                .max = 65536}));
+  t.push_back(
+      integer(&C::char_filters, {.key = "char_filters",
+                                 .group = kModel,
+                                 .help = "character encoder: convolution filters (features per token)",
+                                 .min = 1,
+                                 .max = 65536}));
+  t.push_back(integer(&C::char_width, {.key = "char_width",
+                                       .group = kModel,
+                                       .help = "character encoder: convolution window in characters",
+                                       .min = 1,
+                                       .max = 31,
+                                       .note = "odd"}));
+  t.push_back(text(&C::pretrained_embeddings, {.key = "pretrained_embeddings",
+                                               .group = kModel,
+                                               .help = "text file of vectors, one 'token v1 v2 ...' per line",
+                                               .value_name = "FILE"}));
+  t.push_back(flag(
+      &C::freeze_embeddings,
+      {.key = "freeze_embeddings", .group = kModel, .help = "keep the embeddings fixed while training"}));
+  // ---- training
+  t.push_back(choice(
+      &C::optimizer, {.key = "optimizer", .group = kTraining, .help = "optimizer"},
+      {opt(optim::OptimizerKind::kSgd, "stochastic gradient descent with momentum"),
+       opt(optim::OptimizerKind::kAdam, "Adam (Kingma & Ba 2015)"),
+       opt(optim::OptimizerKind::kAdamW, "Adam with decoupled weight decay (Loshchilov & Hutter 2019)")}));
+  t.push_back(real(&C::learning_rate, {.key = "learning_rate",
+                                       .group = kTraining,
+                                       .help = "peak learning rate",
+                                       .min = 0,
+                                       .min_exclusive = true}));
+  t.push_back(real(&C::momentum, {.key = "momentum",
+                                  .group = kTraining,
+                                  .help = "sgd: momentum",
+                                  .min = 0,
+                                  .max = 1,
+                                  .max_exclusive = true}));
+  t.push_back(flag(&C::nesterov, {.key = "nesterov", .group = kTraining, .help = "sgd: Nesterov momentum"}));
+  t.push_back(real(&C::weight_decay, {.key = "weight_decay",
+                                      .group = kTraining,
+                                      .help = "L2 penalty (sgd, adam) or decoupled decay (adamw)",
+                                      .min = 0}));
+  t.push_back(choice(&C::schedule, {.key = "schedule", .group = kTraining, .help = "learning-rate schedule"},
+                     {opt(optim::ScheduleKind::kConstant, "the same rate throughout"),
+                      opt(optim::ScheduleKind::kLinear, "linear decay to 0 after warm-up"),
+                      opt(optim::ScheduleKind::kCosine, "cosine decay to 0 after warm-up"),
+                      opt(optim::ScheduleKind::kPlateau, "lowered when the dev metric stops improving")}));
+  t.push_back(integer(&C::warmup_steps, {.key = "warmup_steps",
+                                         .group = kTraining,
+                                         .help = "linear learning-rate warm-up, in optimizer steps",
+                                         .min = 0}));
+  t.push_back(real(&C::clip_norm, {.key = "clip_norm",
+                                   .group = kTraining,
+                                   .help = "clip the global gradient norm to this value",
+                                   .min = 0,
+                                   .note = "0 = off"}));
+  t.push_back(real(&C::label_smoothing, {.key = "label_smoothing",
+                                         .group = kTraining,
+                                         .help = "label smoothing for softmax outputs",
+                                         .min = 0,
+                                         .max = 1,
+                                         .max_exclusive = true}));
+  t.push_back(choice(&C::class_weights,
+                     {.key = "class_weights", .group = kTraining, .help = "loss weight per label"},
+                     {opt(ClassWeights::kNone, "every label weighs the same"),
+                      opt(ClassWeights::kBalanced, "inversely proportional to the label's frequency")}));
+  t.push_back(integer(&C::batch_size, {.key = "batch_size",
+                                       .group = kTraining,
+                                       .help = "texts per batch (training: per optimizer step)",
+                                       .min = 1,
+                                       .max = 1000000}));
+  t.push_back(integer(&C::epochs, {.key = "epochs",
+                                   .group = kTraining,
+                                   .help = "passes over the training data",
+                                   .min = 1,
+                                   .max = 1000000}));
+  t.push_back(integer(&C::patience, {.key = "patience",
+                                     .group = kTraining,
+                                     .help = "stop after this many epochs without a better dev score",
+                                     .min = 0,
+                                     .note = "0 = never stop early"}));
+  t.push_back(
+      choice(&C::metric,
+             {.key = "metric",
+              .group = kTraining,
+              .help = "dev score that picks the best epoch, stops early and ranks compare's configurations"},
+             {"auto", "accuracy; macro_f1 for multi-label; span_f1 for taggers"},
+             {opt(Metric::kAccuracy, "share of texts (taggers: tokens) labelled exactly right"),
+              opt(Metric::kMacroF1, "classifiers: F1 averaged over labels"),
+              opt(Metric::kSpanF1, "taggers: span F1 (CoNLL-2000 rules)"),
+              opt(Metric::kTokenAccuracy, "taggers: share of tokens tagged right"),
+              opt(Metric::kLoss, "dev loss per token (lower is better)")}));
+  t.push_back(integer(&C::bptt_window, {.key = "bptt_window",
+                                        .group = kTraining,
+                                        .help = "truncated backpropagation through time: window in tokens",
+                                        .min = 0,
+                                        .note = "0 = full"}));
+  t.push_back(integer(&C::max_length, {.key = "max_length",
+                                       .group = kTraining,
+                                       .help = "cut training texts to this many tokens",
+                                       .min = 0,
+                                       .note = "0 = keep all"}));
+  // ---- machine
+  t.push_back(integer(&C::seed, {.key = "seed",
+                                 .group = kMachine,
+                                 .help = "random seed (same seed and --threads: identical weights)",
+                                 .min = 0}));
+  t.push_back(integer(&C::threads,
+                      {.key = "threads", .group = kMachine, .help = "worker threads", .min = 1, .max = 256}));
+  return SettingTable<TrainConfig>(std::move(t));
 }
 
 }  // namespace
 
+const char* to_string(ClassWeights w) noexcept {
+  return w == ClassWeights::kBalanced ? "balanced" : "none";
+}
+
+const SettingTable<TrainConfig>& train_settings() {
+  static const SettingTable<TrainConfig> table = make_table();
+  return table;
+}
+
 json config_to_json(const TrainConfig& config) {
-  json j = json::object();
-  TrainConfig copy = config;
-  for_each_field(copy, [&](const char* key, auto& value) { j[key] = value; });
-  return j;
+  return train_settings().to_json(config);
 }
 
 json default_config_json() {
@@ -110,69 +333,51 @@ json default_config_json() {
 }
 
 TrainConfig config_from_json(const json& j) {
-  if (!j.is_object()) throw ConfigError("config", "expected a JSON object");
-  TrainConfig c;
-  std::set<std::string> known;
-  for_each_field(c, [&](const char* key, auto& value) {
-    known.insert(key);
-    if (j.contains(key) && !j.at(key).is_null()) read_value(j, key, value);
-  });
-  for (const auto& [key, value] : j.items()) {
-    if (!known.count(key))
-      throw ConfigError(key, "unknown setting (check the spelling; see `gyre train --help`)");
-  }
-  return c;
+  return train_settings().from_json(j);
+}
+
+data::ReadOptions read_options(const TrainConfig& c) {
+  data::ReadOptions options;
+  options.skip_bad_lines = c.skip_bad_lines;
+  options.text_column = c.text_column;
+  options.label_column = c.label_column;
+  return options;
 }
 
 void validate(const TrainConfig& c) {
-  if (c.train.empty()) throw ConfigError("train", "a training file is required");
-  require_one_of("task", c.task, {"auto", "classify", "tag"});
-  if (!(c.dev_fraction > 0.0 && c.dev_fraction < 1.0)) throw ConfigError("dev_fraction", "must be in (0, 1)");
-  require_one_of("tokenizer", c.tokenizer, {"words", "chars", "whitespace"});
-  if (c.max_tokens < 0) throw ConfigError("max_tokens", "must be >= 0");
-  if (c.min_count < 1) throw ConfigError("min_count", "must be >= 1");
-  if (c.max_vocab_size != 0 && c.max_vocab_size < 3)
-    throw ConfigError("max_vocab_size", "must be 0 (no limit) or >= 3");
-  require_one_of("cell", c.cell, {"lstm", "gru"});
-  if (c.embedding_size < 1) throw ConfigError("embedding_size", "must be >= 1");
-  if (c.hidden_size < 1) throw ConfigError("hidden_size", "must be >= 1");
-  if (c.layers < 1) throw ConfigError("layers", "must be >= 1");
-  require_one_of("bidirectional", c.bidirectional, {"auto", "yes", "no"});
-  require_one_of("pooling", c.pooling, {"last", "mean", "max"});
-  require_one_of("output", c.output, {"auto", "softmax", "sigmoid", "crf"});
-  if (!(c.dropout >= 0.0 && c.dropout < 1.0)) throw ConfigError("dropout", "must be in [0, 1)");
-  if (!(c.embedding_dropout >= 0.0 && c.embedding_dropout < 1.0))
-    throw ConfigError("embedding_dropout", "must be in [0, 1)");
-  require_one_of("optimizer", c.optimizer, {"sgd", "adam", "adamw"});
-  if (!(c.learning_rate > 0.0)) throw ConfigError("learning_rate", "must be > 0");
-  if (!(c.momentum >= 0.0 && c.momentum < 1.0)) throw ConfigError("momentum", "must be in [0, 1)");
-  if (!(c.weight_decay >= 0.0)) throw ConfigError("weight_decay", "must be >= 0");
-  require_one_of("schedule", c.schedule, {"constant", "linear", "cosine", "plateau"});
-  if (c.warmup_steps < 0) throw ConfigError("warmup_steps", "must be >= 0");
-  if (!(c.clip_norm >= 0.0)) throw ConfigError("clip_norm", "must be >= 0 (0 turns clipping off)");
-  if (!(c.label_smoothing >= 0.0 && c.label_smoothing < 1.0))
-    throw ConfigError("label_smoothing", "must be in [0, 1)");
-  require_one_of("class_weights", c.class_weights, {"none", "balanced"});
-  if (c.batch_size < 1) throw ConfigError("batch_size", "must be >= 1");
-  if (c.epochs < 1) throw ConfigError("epochs", "must be >= 1");
-  if (c.patience < 0) throw ConfigError("patience", "must be >= 0");
-  require_one_of("early_stop_metric", c.early_stop_metric,
-                 {"auto", "accuracy", "macro_f1", "loss", "span_f1"});
-  if (c.bptt_window < 0) throw ConfigError("bptt_window", "must be >= 0");
-  if (c.max_length < 0) throw ConfigError("max_length", "must be >= 0");
+  train_settings().check(c);
+  if (c.text_column.empty() || c.label_column.empty() || c.text_column == c.label_column)
+    throw ConfigError(
+        c.text_column.empty() || c.text_column == c.label_column ? "text_column" : "label_column",
+        "the text and label columns need two different, non-empty names");
+  if (c.train.empty()) throw ConfigError("train", "a training file is required (--train FILE)");
+  if (c.max_vocab_size == 1 || c.max_vocab_size == 2)
+    throw ConfigError("max_vocab_size", "must be 0 (no limit) or >= 3 (<pad>, <unk> and one token)");
   if (c.bptt_window > 0 && c.max_length > 0 && c.bptt_window > c.max_length)
     throw ConfigError("bptt_window", "window (" + std::to_string(c.bptt_window) +
                                          ") is longer than max_length (" + std::to_string(c.max_length) +
                                          "): no example would ever be cut");
-  if (c.bptt_window > 0 && c.bidirectional == "yes")
+  if (c.bptt_window > 0 && c.bidirectional.value_or(false))
     throw ConfigError("bptt_window",
                       "truncated BPTT needs a unidirectional model (the backward direction would "
                       "only ever see one window); drop --bidirectional or --bptt-window");
-  if (c.bptt_window > 0 && c.pooling != "last" && c.task == "classify")
+  if (c.bptt_window > 0 && c.pooling != nn::PoolingKind::kLast && c.task == data::Task::kClassify)
     throw ConfigError("bptt_window",
                       "a classifier trained with truncated BPTT must pool the last state "
                       "(--pooling last): mean/max pooling would span windows the gradient cannot reach");
-  if (c.threads < 1 || c.threads > 256) throw ConfigError("threads", "must be in 1..256");
+  if (c.task && c.metric && !metric_applies(*c.metric, *c.task))
+    throw ConfigError("metric", std::string("'") + to_string(*c.metric) + "' is not a " +
+                                    (*c.task == data::Task::kTag ? "tagger" : "classifier") + " metric");
+  if (c.output == model::OutputKind::kCrf && c.task == data::Task::kClassify)
+    throw ConfigError("output", "crf needs a tagging corpus");
+  if (c.char_width % 2 == 0)
+    throw ConfigError("char_width", "must be odd (the window is centred on each character); found " +
+                                        std::to_string(c.char_width));
+}
+
+bool resolve_char_encoder(const TrainConfig& c, data::Task task) {
+  if (c.char_encoder) return *c.char_encoder;
+  return task == data::Task::kTag;
 }
 
 }  // namespace gyre::train

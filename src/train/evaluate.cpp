@@ -11,7 +11,8 @@ namespace gyre::train {
 using nlohmann::json;
 
 std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
-                                           std::span<const data::EncodedExample> examples, int batch_size) {
+                                           std::span<const data::EncodedExample> examples, int batch_size,
+                                           bool with_features) {
   const auto& spec = model.spec();
   std::vector<ExamplePrediction> out(examples.size());
   // Sort by length so batches carry little padding; results do not depend on batching.
@@ -36,6 +37,9 @@ std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
         const auto top =
             static_cast<std::int32_t>(std::max_element(p.probs.begin(), p.probs.end()) - p.probs.begin());
         p.confidence = p.probs[static_cast<std::size_t>(top)];
+        if (with_features)
+          p.features.assign(&pred.features(static_cast<Eigen::Index>(b), 0),
+                            &pred.features(static_cast<Eigen::Index>(b), 0) + pred.features.cols());
         p.labels.clear();
         if (spec.output == model::OutputKind::kSigmoid) {
           for (std::size_t c = 0; c < C; ++c)
@@ -62,15 +66,63 @@ std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
   return out;
 }
 
+std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
+                                           std::span<const data::EncodedExample> examples, bool calibrated,
+                                           bool with_features) {
+  const runtime::Architecture& a = model.architecture();
+  const std::size_t C = model.labels().size();
+  runtime::Context ctx(model);
+  ctx.set_calibrated(calibrated);
+  std::vector<std::uint32_t> ids;
+  std::vector<ExamplePrediction> out(examples.size());
+  for (std::size_t i = 0; i < examples.size(); ++i) {
+    ids.assign(examples[i].ids.begin(), examples[i].ids.end());  // ids < vocabulary size (the encoder's)
+    const auto& chars = examples[i].char_ids;
+    const auto& offsets = examples[i].char_offsets;
+    const bool with_chars = a.has_char_encoder();
+    ExamplePrediction& p = out[i];
+    if (a.task == runtime::Task::kClassify) {
+      const runtime::ClassifyResult& r =
+          with_chars ? ctx.classify_ids(ids, chars, offsets) : ctx.classify_ids(ids);
+      p.probs.assign(r.probabilities.begin(), r.probabilities.end());
+      p.confidence = p.probs[r.best];
+      if (with_features) p.features.assign(r.features.begin(), r.features.end());
+      for (const std::uint32_t l : r.chosen) p.labels.push_back(static_cast<std::int32_t>(l));
+    } else {
+      const runtime::TagResult& r = with_chars ? ctx.tag_ids(ids, chars, offsets) : ctx.tag_ids(ids);
+      double sum = 0;
+      for (std::size_t t = 0; t < r.tags.size(); ++t) {
+        p.tags.push_back(static_cast<std::int32_t>(r.tags[t]));
+        p.tag_confidence.push_back(r.probabilities[t * C + r.tags[t]]);
+        sum += p.tag_confidence.back();
+      }
+      p.confidence = r.tags.size() > 0 ? static_cast<float>(sum / static_cast<double>(r.tags.size())) : 0.0f;
+    }
+  }
+  return out;
+}
+
 EvaluationResult evaluate(model::SequenceModel& model, std::span<const data::EncodedExample> examples,
                           bool keep_predictions, int batch_size) {
-  const auto& spec = model.spec();
+  GYRE_CHECK(!examples.empty(), "evaluate: no examples");
+  return score(model.spec(), examples, predict_all(model, examples, batch_size), keep_predictions);
+}
+
+EvaluationResult evaluate(const runtime::Model& model, std::span<const data::EncodedExample> examples,
+                          bool keep_predictions, bool calibrated) {
+  GYRE_CHECK(!examples.empty(), "evaluate: no examples");
+  const model::ModelSpec spec = model::spec_from_architecture(
+      model.architecture(), model.labels(), model.vocabulary_size(), model.character_count());
+  return score(spec, examples, predict_all(model, examples, calibrated), keep_predictions);
+}
+
+EvaluationResult score(const model::ModelSpec& spec, std::span<const data::EncodedExample> examples,
+                       std::vector<ExamplePrediction> preds, bool keep_predictions) {
+  GYRE_CHECK(!examples.empty() && preds.size() == examples.size(), "score: one prediction per example");
   EvaluationResult r;
   r.task = spec.task;
   r.multi_label = spec.output == model::OutputKind::kSigmoid;
   r.examples = examples.size();
-  GYRE_CHECK(!examples.empty(), "evaluate: no examples");
-  auto preds = predict_all(model, examples, batch_size);
   const auto C = static_cast<std::size_t>(spec.num_labels());
   // Probabilities are clipped at 1e-12 for the loss so one confident mistake cannot make it
   // infinite (common practice, no source; the eval metrics' log loss uses sklearn's clipping).
@@ -130,21 +182,59 @@ EvaluationResult evaluate(model::SequenceModel& model, std::span<const data::Enc
   return r;
 }
 
-double EvaluationResult::metric(std::string_view name) const {
-  if (name == "loss") return loss;
+const char* to_string(Metric m) noexcept {
+  switch (m) {
+    case Metric::kAccuracy:
+      return "accuracy";
+    case Metric::kMacroF1:
+      return "macro_f1";
+    case Metric::kSpanF1:
+      return "span_f1";
+    case Metric::kTokenAccuracy:
+      return "token_accuracy";
+    case Metric::kLoss:
+      return "loss";
+  }
+  return "?";
+}
+
+Metric metric_from_string(std::string_view name) {
+  for (const auto m :
+       {Metric::kAccuracy, Metric::kMacroF1, Metric::kSpanF1, Metric::kTokenAccuracy, Metric::kLoss})
+    if (name == to_string(m)) return m;
+  throw ConfigError("metric", "'" + std::string(name) +
+                                  "' is not one of accuracy, macro_f1, span_f1, token_accuracy, loss");
+}
+
+Metric default_metric(data::Task task, bool multi_label) noexcept {
+  if (task == data::Task::kTag) return Metric::kSpanF1;
+  return multi_label ? Metric::kMacroF1 : Metric::kAccuracy;
+}
+
+bool metric_applies(Metric m, data::Task task) noexcept {
+  if (task == data::Task::kTag) return m != Metric::kMacroF1;
+  return m != Metric::kSpanF1 && m != Metric::kTokenAccuracy;
+}
+
+double EvaluationResult::metric(Metric m) const {
+  if (m == Metric::kLoss) return loss;
   if (classification) {
-    if (name == "accuracy") return classification->accuracy;
-    if (name == "macro_f1") return classification->macro.f1;
+    if (m == Metric::kAccuracy) return classification->accuracy;
+    if (m == Metric::kMacroF1) return classification->macro.f1;
   }
   if (multilabel) {
-    if (name == "accuracy") return multilabel->exact_match;
-    if (name == "macro_f1") return multilabel->macro.f1;
+    if (m == Metric::kAccuracy) return multilabel->exact_match;
+    if (m == Metric::kMacroF1) return multilabel->macro.f1;
   }
   if (tagging) {
-    if (name == "span_f1") return tagging->micro.f1;
-    if (name == "token_accuracy" || name == "accuracy") return tagging->token_accuracy;
+    if (m == Metric::kSpanF1) return tagging->micro.f1;
+    if (m == Metric::kTokenAccuracy || m == Metric::kAccuracy) return tagging->token_accuracy;
   }
-  throw ConfigError("early_stop_metric", "'" + std::string(name) + "' is not available for this task");
+  throw ConfigError("metric", std::string("'") + to_string(m) + "' is not available for this task");
+}
+
+double EvaluationResult::metric(std::string_view name) const {
+  return metric(metric_from_string(name));
 }
 
 json EvaluationResult::summary() const {
@@ -161,9 +251,13 @@ json EvaluationResult::to_json() const {
   return j;
 }
 
-bool metric_improves(std::string_view metric, double candidate, double best) {
+bool metric_improves(Metric metric, double candidate, double best) {
   if (std::isnan(best)) return true;
-  return metric == "loss" ? candidate < best : candidate > best;
+  return metric == Metric::kLoss ? candidate < best : candidate > best;
+}
+
+bool metric_improves(std::string_view metric, double candidate, double best) {
+  return metric_improves(metric_from_string(metric), candidate, best);
 }
 
 }  // namespace gyre::train

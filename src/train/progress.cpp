@@ -77,13 +77,14 @@ void ProgressLine::draw(bool final) {
 
 void ProgressLine::finish_epoch(const std::string& summary) {
   if (quiet_) return;
-  if (interactive_) {
-    draw(true);
-    std::fprintf(out_, "  %s\n", summary.c_str());
-    line_open_ = false;
-  } else {
-    std::fprintf(out_, "epoch %d/%d done: %s\n", epoch_, epochs_, summary.c_str());
-  }
+  // One short line per epoch: where, how long, how fast, then the scores (the running loss of
+  // the step line is the train loss in the summary, so it is not repeated).
+  const double elapsed =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
+  const double tok_per_s = elapsed > 0 ? static_cast<double>(tokens_) / elapsed : 0.0;
+  std::fprintf(out_, "%sepoch %d/%d  %s  %.0f tok/s  %s\n", interactive_ ? "\r\033[K" : "", epoch_, epochs_,
+               format_duration(elapsed).c_str(), tok_per_s, summary.c_str());
+  line_open_ = false;
   std::fflush(out_);
 }
 
@@ -92,6 +93,13 @@ void ProgressLine::note(const std::string& message) {
   if (line_open_) std::fprintf(out_, "\r\033[K");
   std::fprintf(out_, "%s\n", message.c_str());
   if (line_open_) draw(false);
+  std::fflush(out_);
+}
+
+void ProgressLine::warn(const std::string& message) {
+  if (line_open_ && !quiet_) std::fprintf(out_, "\r\033[K");
+  std::fprintf(out_, "warning: %s\n", message.c_str());
+  if (line_open_ && !quiet_) draw(false);
   std::fflush(out_);
 }
 

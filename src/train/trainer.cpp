@@ -1,8 +1,13 @@
 #include "gyre/train/trainer.hpp"
 
+#include <sys/resource.h>
+#include <unistd.h>
+
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <cstdio>
+#include <cstring>
 #include <fstream>
 #include <map>
 #include <memory>
@@ -11,16 +16,20 @@
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
 #include "gyre/core/rng.hpp"
+#include "gyre/data/encoder.hpp"
 #include "gyre/data/reader.hpp"
-#include "gyre/eval/tag_scheme.hpp"
+#include "gyre/data/tag_scheme.hpp"
 #include "gyre/io/model_io.hpp"
-#include "gyre/model/encoder.hpp"
 #include "gyre/model/sequence_model.hpp"
 #include "gyre/optim/grad_clip.hpp"
 #include "gyre/optim/lr_schedule.hpp"
 #include "gyre/optim/optimizer.hpp"
+#include "gyre/train/baseline.hpp"
+#include "gyre/train/calibrate.hpp"
 #include "gyre/train/evaluate.hpp"
+#include "gyre/train/explain.hpp"
 #include "gyre/train/interrupt.hpp"
+#include "gyre/train/process_group.hpp"
 #include "gyre/train/progress.hpp"
 #include "gyre/train/reducer.hpp"
 #include "gyre/train/worker_pool.hpp"
@@ -32,7 +41,9 @@ using nlohmann::json;
 
 namespace {
 
-constexpr const char* kDevSplitName = "(dev split of the training file)";
+// Clusters seen once map to <unk>, so its row is trained on rare characters (common practice,
+// no source).
+constexpr std::uint64_t kMinCharacterCount = 2;
 
 // ---------------------------------------------------------------- data preparation
 
@@ -40,52 +51,253 @@ struct PreparedData {
   text::VocabFile vocab;
   data::Task task = data::Task::kClassify;
   bool multi_label = false;
-  std::string tag_scheme;
+  data::TagScheme tag_scheme = data::TagScheme::kNone;
   std::vector<data::EncodedExample> train, dev;
   std::uint64_t fingerprint = 0;  // of the encoded training data (resume checks it)
   std::size_t repaired = 0;
+  std::vector<data::Example> train_examples, dev_examples;  // as read (the linear baseline uses them)
+  json cut_examples = json::object();                       // examples max_tokens cut, by file
 };
 
 std::vector<data::Example> read_examples(const std::string& path, const TrainConfig& config,
                                          ProgressLine& progress, data::ReadReport& report) {
   std::vector<data::Example> examples;
-  data::ReadOptions options;
-  options.skip_bad_lines = config.skip_bad_lines;
+  const data::ReadOptions options = read_options(config);
   report = data::read_corpus(path, options, [&](data::Example&& ex) { examples.push_back(std::move(ex)); });
   if (report.skipped > 0) {
     std::string lines;
     for (const auto line : report.first_skipped_lines)
       lines += (lines.empty() ? "" : ", ") + std::to_string(line);
-    progress.note("warning: " + path + ": skipped " + std::to_string(report.skipped) +
-                  " bad record(s) (lines " + lines +
+    // A warning, so --quiet does not hide it: data was left out of training.
+    progress.warn(path + ": skipped " + std::to_string(report.skipped) + " bad record(s) (lines " + lines +
                   (report.skipped > report.first_skipped_lines.size() ? ", ..." : "") + ")");
   }
   if (examples.empty()) throw ParseError(path, 0, "no examples in the file");
   return examples;
 }
 
-std::uint64_t example_hash(const data::Example& ex) {
-  std::string key = ex.text;
-  for (const auto& l : ex.labels) key += "\t" + l;
-  for (const auto& t : ex.tags) key += "\t" + t;
-  return stable_hash(key.data(), key.size());
+// Names the examples that max_tokens cut (the model sees only their first max_tokens tokens);
+// returns the same as JSON for metrics.json: {path: {"count": n, "first_lines": [...]}}.
+json warn_about_cuts(const std::vector<data::EncodedExample>& train, const std::string& train_path,
+                     const std::vector<data::EncodedExample>& dev, const std::string& dev_path,
+                     std::size_t max_tokens, ProgressLine& progress) {
+  std::map<std::string, std::vector<std::size_t>> cut;  // path -> lines
+  for (const auto& ex : train)
+    if (ex.cut) cut[train_path].push_back(ex.source_line);
+  for (const auto& ex : dev)
+    if (ex.cut) cut[dev_path].push_back(ex.source_line);
+  json record = json::object();
+  for (auto& [path, lines] : cut) {
+    std::sort(lines.begin(), lines.end());
+    constexpr std::size_t kNamed = 10;
+    record[path] = {
+        {"count", lines.size()},
+        {"first_lines",
+         std::vector<std::size_t>(
+             lines.begin(), lines.begin() + static_cast<std::ptrdiff_t>(std::min(kNamed, lines.size())))}};
+    std::string named;
+    for (std::size_t i = 0; i < lines.size() && i < kNamed; ++i)
+      named += (i ? ", " : "") + std::to_string(lines[i]);
+    progress.warn(path + ": " + std::to_string(lines.size()) + " example(s) longer than " +
+                  std::to_string(max_tokens) + " tokens, cut to their first " + std::to_string(max_tokens) +
+                  " (line" + (lines.size() > 1 ? "s " : " ") + named +
+                  (lines.size() > kNamed ? ", ..." : "") + "); --max-tokens N sets the limit, 0 = none");
+  }
+  return record;
+}
+
+// The share of training tokens that map to <unk> beyond which the vocabulary is too small to
+// learn from: our own threshold (no source); a plain run has none, --min-count 2 on the demo
+// corpora about 4%.
+constexpr double kUnknownShareWarning = 0.5;
+
+// --min-count or --max-vocab-size that leave (almost) nothing to learn from train a model that
+// sees mostly <unk>: say so before the time is spent.
+void warn_about_small_vocabulary(const std::vector<data::EncodedExample>& train, const text::VocabFile& vocab,
+                                 const TrainConfig& config, ProgressLine& progress) {
+  std::size_t tokens = 0, unknown = 0;
+  for (const auto& ex : train) {
+    tokens += ex.ids.size();
+    for (const auto id : ex.ids) unknown += id == text::Vocab::kUnk;
+  }
+  if (tokens == 0 || static_cast<double>(unknown) <= kUnknownShareWarning * static_cast<double>(tokens))
+    return;
+  std::string cause;
+  if (config.min_count > 1) cause += "--min-count " + std::to_string(config.min_count);
+  if (config.max_vocab_size > 0 && vocab.vocab.size() >= static_cast<std::size_t>(config.max_vocab_size))
+    cause += (cause.empty() ? "" : " and ") + std::string("--max-vocab-size ") +
+             std::to_string(config.max_vocab_size);
+  if (cause.empty()) cause = "the vocabulary settings";
+  char share[32];
+  std::snprintf(share, sizeof share, "%.0f%%",
+                100.0 * static_cast<double>(unknown) / static_cast<double>(tokens));
+  progress.warn(cause + " leaves a vocabulary of " + std::to_string(vocab.vocab.size() - 2) +
+                " token(s) besides <pad> and <unk>: " + share + " of the training tokens (" +
+                std::to_string(unknown) + " of " + std::to_string(tokens) +
+                ") become <unk>; a lower --min-count keeps more words");
 }
 
 // Checks (and with repair_tags fixes) BIO/BIOES sequences; reports file:line of the token.
 std::size_t check_tag_sequences(std::vector<data::Example>& examples, const std::string& path,
-                                eval::TagScheme scheme, bool repair, bool columns_format) {
+                                data::TagScheme scheme, bool repair, bool columns_format) {
   std::size_t repaired = 0;
   for (auto& ex : examples) {
-    const auto issues = eval::check_tags(ex.tags, scheme);
+    const auto issues = data::check_tags(ex.tags, scheme);
     if (issues.empty()) continue;
     if (!repair) {
       const std::size_t line = columns_format ? ex.line + issues.front().position : ex.line;
       throw ParseError(path, line, issues.front().message + " (--repair-tags fixes such sequences)");
     }
-    ex.tags = eval::repair_tags(ex.tags, scheme);
+    ex.tags = data::repair_tags(ex.tags, scheme);
     ++repaired;
   }
   return repaired;
+}
+
+// The first tokenizer setting on which a vocabulary file and the run's settings differ.
+void check_vocab_tokenizer(const std::string& path, const text::TokenizerSettings& file,
+                           const text::TokenizerSettings& run) {
+  auto on_off = [](bool b) { return std::string(b ? "on" : "off"); };
+  auto differ = [&](const char* key, const std::string& in_file, const std::string& in_run) {
+    if (in_file != in_run)
+      throw ConfigError("vocab", path + " was built with " + key + " " + in_file + " but this run has " +
+                                     key + " " + in_run +
+                                     "; give gyre train the same tokenizer options as gyre vocab");
+  };
+  differ("tokenizer", text::to_string(file.mode), text::to_string(run.mode));
+  differ("nfkc", on_off(file.nfkc), on_off(run.nfkc));
+  differ("case_fold", on_off(file.case_fold), on_off(run.case_fold));
+  differ("fold_digits", on_off(file.fold_digits), on_off(run.fold_digits));
+  differ("keep_punctuation", on_off(file.keep_punctuation), on_off(run.keep_punctuation));
+  differ("max_tokens", std::to_string(file.max_tokens), std::to_string(run.max_tokens));
+}
+
+// The dev split: config.dev when given (same task as the training file), else a deterministic
+// split of train_examples by a hash of each example (independent of --seed, so runs with
+// different seeds share it).
+std::vector<data::Example> read_or_split_dev(const TrainConfig& config, ProgressLine& progress,
+                                             data::Task task, std::vector<data::Example>& train_examples,
+                                             data::ReadReport& dev_report) {
+  std::vector<data::Example> dev_examples;
+  if (!config.dev.empty()) {
+    dev_examples = read_examples(config.dev, config, progress, dev_report);
+    if (dev_report.task != task)
+      throw ConfigError("dev", config.dev + " is a " + std::string(data::to_string(dev_report.task)) +
+                                   " corpus but the training file is a " + data::to_string(task) + " corpus");
+  } else {
+    split_dev_by_hash(train_examples, config.dev_fraction, dev_examples);
+    if (dev_examples.empty() || train_examples.empty())
+      throw ConfigError("dev_fraction",
+                        "splitting " + config.train + " left an empty train or dev part; give --dev FILE");
+  }
+  return dev_examples;
+}
+
+// Taggers: the scheme the training tags use (BIOES if any E- or S- tag), and every sequence
+// checked against it (repaired with --repair-tags, else refused naming the line).
+void check_tagging(const TrainConfig& config, ProgressLine& progress, const data::ReadReport& train_report,
+                   const data::ReadReport& dev_report, std::vector<data::Example>& train_examples,
+                   std::vector<data::Example>& dev_examples, PreparedData& out) {
+  bool bioes = false;
+  for (const auto& ex : train_examples)
+    for (const auto& tag : ex.tags) {
+      const auto parts = data::split_tag(tag);
+      bioes = bioes || parts.prefix == 'E' || parts.prefix == 'S';
+    }
+  const auto scheme = bioes ? data::TagScheme::kBioes : data::TagScheme::kBio;
+  out.tag_scheme = scheme;
+  const bool columns = train_report.format == data::CorpusFormat::kColumns;
+  out.repaired = check_tag_sequences(train_examples, config.train, scheme, config.repair_tags, columns);
+  if (!config.dev.empty())
+    out.repaired += check_tag_sequences(dev_examples, config.dev, scheme, config.repair_tags,
+                                        dev_report.format == data::CorpusFormat::kColumns);
+  if (out.repaired > 0)
+    progress.note("repaired invalid tag transitions in " + std::to_string(out.repaired) + " sentence(s)");
+}
+
+// The run's vocabulary: a resumed run's own, a `gyre vocab` file given with --vocab, or built
+// from the training split only (the configured tokenizer, token and label counts).
+text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task,
+                              const std::vector<data::Example>& train_examples,
+                              const text::VocabFile* saved_vocab) {
+  const bool chars = config.char_encoder.value_or(false);  // resolved by prepare_data
+  if (saved_vocab != nullptr) {
+    if (saved_vocab->characters.empty() == chars)
+      throw FormatError("vocab.json", chars
+                                          ? "the run's config has a character encoder but its vocabulary no "
+                                            "character list"
+                                          : "the vocabulary has a character list but the run's config no "
+                                            "character encoder");
+    return *saved_vocab;
+  }
+  text::TokenizerSettings tokenizer;
+  tokenizer.mode = config.tokenizer;
+  tokenizer.nfkc = config.nfkc;
+  tokenizer.case_fold = config.case_fold;
+  tokenizer.fold_digits = config.fold_digits;
+  tokenizer.keep_punctuation = config.keep_punctuation;
+  tokenizer.max_tokens = static_cast<std::size_t>(config.max_tokens);
+  text::VocabFile vocab;
+  const bool given = !config.vocab.empty();
+  if (given) {
+    // A vocabulary from `gyre vocab`: its tokens only mean something with the tokenizer that
+    // counted them, so the settings must agree; labels are checked as the examples are encoded.
+    vocab = text::load_vocab_file(config.vocab);
+    check_vocab_tokenizer(config.vocab, vocab.tokenizer, tokenizer);
+    vocab.characters.clear();
+    if (!chars) return vocab;
+    // `gyre vocab` writes no character list: it is counted from the training split below.
+  } else {
+    vocab.tokenizer = tokenizer;
+  }
+  data::Encoder tokenizing(vocab, task);
+  text::VocabBuilder builder;
+  text::CharacterListBuilder characters;
+  text::LabelCounts labels;
+  std::vector<std::string> tokens, surfaces;
+  for (const auto& ex : train_examples) {
+    if (chars) {
+      tokenizing.tokens(ex, config.train, tokens, surfaces);
+      for (const auto& s : surfaces) characters.add(s);
+    } else {
+      tokenizing.tokens(ex, config.train, tokens);
+    }
+    if (given) continue;
+    builder.add(tokens);
+    for (const auto& l : task == data::Task::kClassify ? ex.labels : ex.tags) ++labels[l];
+  }
+  if (chars) vocab.characters = characters.build(kMinCharacterCount, 0);
+  if (given) return vocab;
+  vocab.vocab = builder.build(static_cast<std::uint64_t>(config.min_count),
+                              static_cast<std::size_t>(config.max_vocab_size));
+  vocab.labels = text::LabelSet(labels);
+  return vocab;
+}
+
+// Ids and targets of both splits, warnings about texts cut at max_tokens and about a vocabulary
+// too small to learn from, and the fingerprint of the encoded training data (a resumed run
+// checks it).
+void encode_splits(const TrainConfig& config, ProgressLine& progress, bool saved_vocab,
+                   const std::vector<data::Example>& train_examples,
+                   const std::vector<data::Example>& dev_examples, PreparedData& out) {
+  const data::Encoder encoder(out.vocab, out.task);
+  out.train.reserve(train_examples.size());
+  for (const auto& ex : train_examples) out.train.push_back(encoder.encode(ex, config.train));
+  out.dev.reserve(dev_examples.size());
+  const std::string& dev_source = config.dev.empty() ? config.train : config.dev;
+  for (const auto& ex : dev_examples) out.dev.push_back(encoder.encode(ex, dev_source));
+  out.cut_examples =
+      warn_about_cuts(out.train, config.train, out.dev, dev_source, out.vocab.tokenizer.max_tokens, progress);
+  if (!saved_vocab) warn_about_small_vocabulary(out.train, out.vocab, config, progress);
+
+  std::uint64_t h = 0;
+  for (const auto& ex : out.train) {
+    h = stable_hash(ex.ids.data(), ex.ids.size() * sizeof(std::int32_t), h);
+    h = stable_hash(ex.targets.data(), ex.targets.size() * sizeof(std::int32_t), h);
+    if (!ex.char_ids.empty())
+      h = stable_hash(ex.char_ids.data(), ex.char_ids.size() * sizeof(std::int32_t), h);
+  }
+  out.fingerprint = h;
 }
 
 PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const text::VocabFile* saved_vocab) {
@@ -93,121 +305,138 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
   data::ReadReport train_report;
   auto train_examples = read_examples(config.train, config, progress, train_report);
   out.task = train_report.task;
-  const std::string resolved_task = data::to_string(out.task);
-  if (config.task != "auto" && config.task != resolved_task)
-    throw ConfigError("task", "'" + config.task + "' does not fit " + config.train + ", which is a " +
-                                  resolved_task + " corpus (" + data::to_string(train_report.format) + ")");
-  config.task = resolved_task;
+  if (config.task && *config.task != out.task)
+    throw ConfigError("task", std::string("'") + data::to_string(*config.task) + "' does not fit " +
+                                  config.train + ", which is a " + data::to_string(out.task) + " corpus (" +
+                                  data::to_string(train_report.format) + ")");
+  config.task = out.task;
 
-  std::vector<data::Example> dev_examples;
-  std::string dev_path = config.dev;
   data::ReadReport dev_report;
-  if (!config.dev.empty()) {
-    dev_examples = read_examples(config.dev, config, progress, dev_report);
-    if (dev_report.task != out.task)
-      throw ConfigError("dev", config.dev + " is a " + std::string(data::to_string(dev_report.task)) +
-                                   " corpus but the training file is a " + resolved_task + " corpus");
-  } else {
-    // Deterministic split by a hash of each example (independent of --seed, so runs with
-    // different seeds share it).
-    const auto threshold = static_cast<std::uint64_t>(config.dev_fraction * 1e6);
-    std::vector<data::Example> keep;
-    for (auto& ex : train_examples)
-      (example_hash(ex) % 1000000 < threshold ? dev_examples : keep).push_back(std::move(ex));
-    train_examples = std::move(keep);
-    dev_path = kDevSplitName;
-    if (dev_examples.empty() || train_examples.empty())
-      throw ConfigError("dev_fraction",
-                        "splitting " + config.train + " left an empty train or dev part; give --dev FILE");
-  }
-
+  std::vector<data::Example> dev_examples =
+      read_or_split_dev(config, progress, out.task, train_examples, dev_report);
   for (const auto& ex : train_examples)
     if (ex.labels.size() != 1 && out.task == data::Task::kClassify) out.multi_label = true;
+  if (out.task == data::Task::kTag)
+    check_tagging(config, progress, train_report, dev_report, train_examples, dev_examples, out);
 
-  if (out.task == data::Task::kTag) {
-    bool bioes = false;
-    for (const auto& ex : train_examples)
-      for (const auto& tag : ex.tags) {
-        const auto parts = eval::split_tag(tag);
-        bioes = bioes || parts.prefix == 'E' || parts.prefix == 'S';
-      }
-    const auto scheme = bioes ? eval::TagScheme::bioes : eval::TagScheme::bio;
-    out.tag_scheme = std::string(eval::to_string(scheme));
-    const bool columns = train_report.format == data::CorpusFormat::kColumns;
-    out.repaired = check_tag_sequences(train_examples, config.train, scheme, config.repair_tags, columns);
-    if (!config.dev.empty())
-      out.repaired += check_tag_sequences(dev_examples, config.dev, scheme, config.repair_tags,
-                                          dev_report.format == data::CorpusFormat::kColumns);
-    if (out.repaired > 0)
-      progress.note("repaired invalid tag transitions in " + std::to_string(out.repaired) + " sentence(s)");
-  }
-
-  if (saved_vocab != nullptr) {
-    out.vocab = *saved_vocab;
-  } else {
-    out.vocab.tokenizer.mode = text::tokenizer_mode_from_string(config.tokenizer);
-    out.vocab.tokenizer.nfkc = config.nfkc;
-    out.vocab.tokenizer.case_fold = config.case_fold;
-    out.vocab.tokenizer.fold_digits = config.fold_digits;
-    out.vocab.tokenizer.keep_punctuation = config.keep_punctuation;
-    out.vocab.tokenizer.max_tokens = static_cast<std::size_t>(config.max_tokens);
-    model::Encoder tokenizing(out.vocab, out.task);
-    text::VocabBuilder builder;
-    text::LabelCounts labels;
-    std::vector<std::string> tokens;
-    for (const auto& ex : train_examples) {
-      tokenizing.tokens(ex, config.train, tokens);
-      builder.add(tokens);
-      for (const auto& l : out.task == data::Task::kClassify ? ex.labels : ex.tags) ++labels[l];
-    }
-    out.vocab.vocab = builder.build(static_cast<std::uint64_t>(config.min_count),
-                                    static_cast<std::size_t>(config.max_vocab_size));
-    out.vocab.labels = text::LabelSet(labels);
-  }
-  const model::Encoder encoder(out.vocab, out.task);
-  out.train.reserve(train_examples.size());
-  for (const auto& ex : train_examples) out.train.push_back(encoder.encode(ex, config.train));
-  out.dev.reserve(dev_examples.size());
-  for (const auto& ex : dev_examples)
-    out.dev.push_back(encoder.encode(ex, config.dev.empty() ? config.train : config.dev));
-
-  std::uint64_t h = 0;
-  for (const auto& ex : out.train) {
-    h = stable_hash(ex.ids.data(), ex.ids.size() * sizeof(std::int32_t), h);
-    h = stable_hash(ex.targets.data(), ex.targets.size() * sizeof(std::int32_t), h);
-  }
-  out.fingerprint = h;
+  config.char_encoder = resolve_char_encoder(config, out.task);
+  out.vocab = resolve_vocab(config, out.task, train_examples, saved_vocab);
+  encode_splits(config, progress, saved_vocab != nullptr, train_examples, dev_examples, out);
+  out.train_examples = std::move(train_examples);
+  out.dev_examples = std::move(dev_examples);
   return out;
+}
+
+// ---------------------------------------------------------------- memory, before allocating
+
+// A lower bound on the memory training needs: only buffers that certainly exist (per replica the
+// weights and their gradients, the optimizer's moments once, the gate values and states of the
+// batch with the longest example, kept for the backward pass), counted in float32. So a refusal is never
+// wrong; what passes may still need more (workspaces, the data, the vocabulary).
+struct MemoryEstimate {
+  double parameters = 0;
+  double parameter_bytes = 0;   // weights + gradients of every replica, optimizer state
+  double activation_bytes = 0;  // gates and states of the largest batch
+  double total() const { return parameter_bytes + activation_bytes; }
+};
+
+MemoryEstimate estimate_memory(const model::ModelSpec& spec, const TrainConfig& config, std::size_t longest,
+                               std::size_t examples) {
+  const double V = spec.vocab_size, E = spec.embedding_size, H = spec.hidden_size, L = spec.layers;
+  const double dirs = spec.directions(), C = spec.num_labels(), F = H * dirs;
+  const double G = spec.cell == nn::CellType::kLstm ? 4 : 3;
+  const double biases = spec.cell == nn::CellType::kLstm ? 1 : 2;
+  MemoryEstimate m;
+  m.parameters = V * E + C * F + C;
+  for (int k = 0; k < spec.layers; ++k)
+    m.parameters += dirs * (G * H * (k == 0 ? E : F) + G * H * H + biases * G * H);
+  if (spec.output == model::OutputKind::kCrf) m.parameters += C * C + 2 * C;
+  const double optimizer_slots =
+      config.optimizer == optim::OptimizerKind::kSgd ? (config.momentum > 0 ? 1 : 0) : 2;
+  const double threads = config.threads;
+  m.parameter_bytes = 4 * m.parameters * (2 * threads + optimizer_slots);
+  // The batch holding the longest example is padded to its length; the workers share its rows.
+  const double rows = static_cast<double>(std::min(static_cast<std::size_t>(config.batch_size), examples)) *
+                      static_cast<double>(longest);
+  m.activation_bytes = 4 * rows * (E + L * dirs * (G * H + 2 * H));
+  return m;
+}
+
+// Physical memory, or less when an address-space limit (ulimit -v) is set.
+double memory_limit_bytes() {
+  double limit =
+      static_cast<double>(::sysconf(_SC_PHYS_PAGES)) * static_cast<double>(::sysconf(_SC_PAGESIZE));
+  rlimit as{};
+  if (::getrlimit(RLIMIT_AS, &as) == 0 && as.rlim_cur != RLIM_INFINITY)
+    limit = std::min(limit, static_cast<double>(as.rlim_cur));
+  return limit;
+}
+
+std::string gib(double bytes) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.1f GiB", bytes / (1024.0 * 1024.0 * 1024.0));
+  return buf;
+}
+
+// Refuses (exit code 2) settings whose training cannot fit in this machine's memory, with what it
+// would need, instead of "out of memory" (exit 1) after minutes of allocation or swapping.
+void check_memory(const model::ModelSpec& spec, const TrainConfig& config, const PreparedData& data) {
+  std::size_t longest = 1;
+  for (const auto& ex : data.train) longest = std::max(longest, ex.ids.size());
+  if (config.max_length > 0) longest = std::min(longest, static_cast<std::size_t>(config.max_length));
+  const MemoryEstimate m = estimate_memory(spec, config, longest, data.train.size());
+  const double limit = memory_limit_bytes();
+  if (!(limit > 0) || m.total() <= limit) return;
+  char count[32];
+  std::snprintf(count, sizeof count, "%.3g", m.parameters);
+  const bool weights = m.parameter_bytes >= m.activation_bytes;
+  throw ConfigError(
+      weights ? "hidden_size" : "batch_size",
+      "training this model needs at least " + gib(m.total()) + " of memory (" + count +
+          " parameters: " + gib(m.parameter_bytes) + " for weights, gradients and optimizer state with " +
+          std::to_string(config.threads) + " thread(s); " + gib(m.activation_bytes) + " for batches of " +
+          std::to_string(config.batch_size) + " x " + std::to_string(longest) + " tokens), more than the " +
+          gib(limit) +
+          " available; choose a smaller --hidden-size, --layers, --embedding-size, --batch-size, "
+          "--max-tokens or --threads");
 }
 
 model::ModelSpec make_spec(TrainConfig& config, const PreparedData& data) {
   model::ModelSpec spec;
   spec.task = data.task;
-  spec.cell = model::parse_cell(config.cell);
+  spec.cell = config.cell;
   spec.vocab_size = static_cast<int>(data.vocab.vocab.size());
   spec.embedding_size = config.embedding_size;
   spec.hidden_size = config.hidden_size;
   spec.layers = config.layers;
-  if (config.bidirectional == "auto") config.bidirectional = data.task == data::Task::kTag ? "yes" : "no";
-  spec.bidirectional = config.bidirectional == "yes";
+  if (!config.bidirectional) config.bidirectional = data.task == data::Task::kTag;
+  spec.bidirectional = *config.bidirectional;
   spec.dropout = static_cast<float>(config.dropout);
   spec.embedding_dropout = static_cast<float>(config.embedding_dropout);
-  spec.pooling = nn::parse_pooling(config.pooling);
-  if (config.output == "auto")
-    config.output = data.task == data::Task::kTag ? "softmax" : (data.multi_label ? "sigmoid" : "softmax");
-  if (data.multi_label && config.output != "sigmoid")
+  // Taggers pool nothing, and the model header records pooling for classifiers only: a tagger's
+  // spec keeps the default, so a resumed tagger trained with --pooling max matches its checkpoint.
+  spec.pooling = data.task == data::Task::kClassify ? config.pooling : nn::PoolingKind::kMean;
+  if (!config.output)
+    config.output = data.multi_label ? model::OutputKind::kSigmoid : model::OutputKind::kSoftmax;
+  if (data.multi_label && config.output != model::OutputKind::kSigmoid)
     throw ConfigError("output", "the training file has multi-label examples; they need --output sigmoid");
-  spec.output = config.output == "crf"       ? model::OutputKind::kCrf
-                : config.output == "sigmoid" ? model::OutputKind::kSigmoid
-                                             : model::OutputKind::kSoftmax;
+  spec.output = *config.output;
+  spec.threshold = static_cast<float>(config.multi_label_threshold);
   spec.labels = data.vocab.labels.names();
   spec.tag_scheme = data.tag_scheme;
-  if (config.early_stop_metric == "auto")
-    config.early_stop_metric = data.task == data::Task::kTag ? "span_f1" : "macro_f1";
-  if (data.task == data::Task::kTag && (config.early_stop_metric == "macro_f1"))
-    throw ConfigError("early_stop_metric", "taggers stop on span_f1, accuracy or loss");
-  if (data.task == data::Task::kClassify && config.early_stop_metric == "span_f1")
-    throw ConfigError("early_stop_metric", "span_f1 needs a tagging corpus");
+  if (config.char_encoder.value_or(false)) {
+    spec.char_vocab_size = static_cast<int>(data.vocab.characters.size());
+    spec.char_embedding_size = config.char_embedding_size;
+    spec.char_filters = config.char_filters;
+    spec.char_width = config.char_width;
+  }
+  if (!config.metric) config.metric = default_metric(data.task, data.multi_label);
+  if (!metric_applies(*config.metric, data.task))
+    throw ConfigError("metric",
+                      std::string("'") + to_string(*config.metric) + "' is not a " +
+                          (data.task == data::Task::kTag ? "tagger metric (span_f1, token_accuracy, "
+                                                           "accuracy or loss)"
+                                                         : "classifier metric (accuracy, macro_f1 or loss)"));
   model::validate(spec);
   return spec;
 }
@@ -216,7 +445,7 @@ model::LossOptions make_loss_options(const TrainConfig& config, const PreparedDa
                                      const model::ModelSpec& spec) {
   model::LossOptions loss;
   loss.label_smoothing = static_cast<float>(config.label_smoothing);
-  if (config.class_weights == "balanced") {
+  if (config.class_weights == ClassWeights::kBalanced) {
     if (spec.output != model::OutputKind::kSoftmax)
       throw ConfigError("class_weights", "balanced class weights need a softmax output");
     // w_c = N / (C * n_c), the "balanced" heuristic of King & Zeng (2001) as sklearn's
@@ -250,7 +479,17 @@ struct RunState {
   double total_seconds = 0;
   std::size_t total_tokens = 0;
   bool finished = false;
+  // Divergence guard: the loss per unit of the run's first step, and a moving average since.
+  double loss_reference = NAN;
+  double loss_average = NAN;
 };
+
+/// The run has diverged when the moving average of the step loss exceeds this many times the
+/// loss of its first step (taken at initialisation, i.e. about the loss of guessing). A run
+/// that is learning stays far below; our choice, no source.
+constexpr double kLossGrowthLimit = 10.0;
+/// Weight of the newest step in the moving average (about the last 10 steps).
+constexpr double kLossAverageWeight = 0.1;
 
 json state_to_json(const RunState& s, const optim::LearningRateSchedule& schedule,
                    std::uint64_t fingerprint) {
@@ -269,25 +508,48 @@ json state_to_json(const RunState& s, const optim::LearningRateSchedule& schedul
               {"total_seconds", s.total_seconds},
               {"total_tokens", s.total_tokens},
               {"finished", s.finished},
+              {"loss_reference", std::isnan(s.loss_reference) ? json(nullptr) : json(s.loss_reference)},
+              {"loss_average", std::isnan(s.loss_average) ? json(nullptr) : json(s.loss_average)},
               {"schedule", sched},
               {"data_fingerprint", std::to_string(fingerprint)}};
 }
 
+std::string fmt_count(double v) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.0f", v);
+  return buf;
+}
+
 RunState state_from_json(const json& j) {
+  // Counts are whole numbers that fit their fields (a float or a huge value cast to int is
+  // undefined behaviour); a wrong one is named.
+  const auto count = [&](const char* key, double most) {
+    const json& v = j.at(key);
+    if (!v.is_number_integer() || v.get<double>() < 0 || v.get<double>() > most)
+      throw Error(std::string("\"trainer.") + key + "\" must be a whole number in [0, " + fmt_count(most) +
+                  "], not " + v.dump());
+    return v.get<double>();
+  };
   RunState s;
-  s.epoch = j.at("epoch").get<int>();
-  s.step = j.at("step").get<std::size_t>();
-  s.global_step = j.at("global_step").get<std::int64_t>();
+  s.epoch = static_cast<int>(count("epoch", 1e6));
+  s.step = static_cast<std::size_t>(count("step", 1e15));
+  s.global_step = static_cast<std::int64_t>(count("global_step", 1e15));
   s.best_metric = j.at("best_metric").is_null() ? NAN : j.at("best_metric").get<double>();
-  s.best_epoch = j.at("best_epoch").get<int>();
-  s.epochs_without_improvement = j.at("epochs_without_improvement").get<int>();
+  s.best_epoch = static_cast<int>(count("best_epoch", 1e6));
+  s.epochs_without_improvement = static_cast<int>(count("epochs_without_improvement", 1e6));
   s.epoch_loss_sum = j.at("epoch_loss_sum").get<double>();
   s.epoch_loss_units = j.at("epoch_loss_units").get<double>();
-  s.epoch_tokens = j.at("epoch_tokens").get<std::size_t>();
+  s.epoch_tokens = static_cast<std::size_t>(count("epoch_tokens", 1e18));
   s.epoch_seconds = j.at("epoch_seconds").get<double>();
   s.total_seconds = j.at("total_seconds").get<double>();
-  s.total_tokens = j.at("total_tokens").get<std::size_t>();
+  s.total_tokens = static_cast<std::size_t>(count("total_tokens", 1e18));
   s.finished = j.at("finished").get<bool>();
+  // Absent from checkpoints written before the guard existed: it restarts from the next step.
+  const auto optional_number = [&](const char* key) {
+    return j.contains(key) && j.at(key).is_number() ? j.at(key).get<double>() : NAN;
+  };
+  s.loss_reference = optional_number("loss_reference");
+  s.loss_average = optional_number("loss_average");
   return s;
 }
 
@@ -302,15 +564,43 @@ std::string fmt(double v, int decimals = 4) {
   return buf;
 }
 
+// Shortest form: 0.002, 1e+06.
+std::string fmt_general(double v) {
+  char buf[64];
+  std::snprintf(buf, sizeof buf, "%g", v);
+  return buf;
+}
+
 // ---------------------------------------------------------------- the run
+
+// Scratch of one training step, one entry per worker of this process, kept across the steps of
+// an epoch.
+struct StepBuffers {
+  explicit StepBuffers(int workers)
+      : sub(static_cast<std::size_t>(workers)),
+        losses(static_cast<std::size_t>(workers)),
+        slices(static_cast<std::size_t>(workers)) {}
+  std::vector<data::Batch> sub;                  // each worker's part of the batch
+  std::vector<double> losses;                    // each worker's summed loss
+  std::vector<std::vector<std::size_t>> slices;  // each worker's example indices
+};
 
 class Run {
  public:
-  Run(TrainConfig config, const TrainOptions& options, bool resuming)
+  // How the run starts: a new directory, from the resume checkpoint, or again from the beginning
+  // in the directory of a run that was killed before it wrote its first checkpoint.
+  enum class Start { kNew, kResume, kRestart };
+
+  Run(TrainConfig config, const TrainOptions& options, Start start, ProcessGroup& group)
       : config_(std::move(config)),
         options_(options),
-        resuming_(resuming),
-        progress_(options.progress, options.interactive, options.quiet) {}
+        start_(start),
+        resuming_(start == Start::kResume),
+        group_(group),
+        lead_(group.rank() == 0),
+        progress_(options.progress, options.interactive, options.quiet || !lead_) {
+    if (!lead_) options_.quiet = true;  // rank 0 alone speaks and writes the run directory
+  }
 
   TrainResult execute();
 
@@ -318,14 +608,32 @@ class Run {
   void setup_model();
   void load_resume_state();
   void run_epoch();
+  void workers_forward_backward(std::span<const std::size_t> indices, double normalizer, StepBuffers& buf);
+  void note_padding(std::size_t plan_steps, std::size_t padded, std::size_t tokens);
   void end_epoch();
   void save_last();
+  void optimizer_step(std::span<nn::ParameterStore* const> others);
+  void sync_replica(std::size_t w);
   void finish(TrainOutcome outcome, TrainResult& result);
+  json calibrate();
+  json dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev);
   [[noreturn]] void diverged(const std::string& what) const;
+  void check_loss_growth(double step_loss);
+  int global_workers() const { return group_.size() * config_.threads; }
+  // config.json: the settings, and the job's shape when it has several ranks.
+  json run_config_json() const {
+    json j = config_to_json(config_);
+    if (group_.size() > 1) j["job"] = {{"ranks", group_.size()}, {"threads_per_rank", config_.threads}};
+    return j;
+  }
+  bool exchange_gradients(std::span<const double> losses, bool interrupt, double& loss_sum);
 
   TrainConfig config_;
   TrainOptions options_;
+  Start start_;
   bool resuming_;
+  ProcessGroup& group_;
+  bool lead_;  // rank 0 (the only process of a plain run)
   ProgressLine progress_;
   fs::path dir_;
   PreparedData data_;
@@ -335,6 +643,17 @@ class Run {
   std::unique_ptr<optim::LearningRateSchedule> schedule_;
   std::unique_ptr<WorkerPool> pool_;
   InProcessReducer reducer_;
+  bool replicas_stale_ = false;  // replicas 1.. lag the master by the last optimizer step
+  std::vector<std::vector<std::int32_t>> stale_rows_;  // per parameter: sparse rows that step changed
+  std::vector<double> part_squares_;  // per global worker: sum of squared gradients of its part
+  // Ranks > 1: every global worker's gradient (1.. ; worker 0's goes into the master) and the
+  // exchange buffers, allocated once.
+  std::vector<nn::ParameterStore> peer_grads_;
+  std::vector<nn::ParameterStore*> peer_ptrs_;
+  std::vector<std::byte> send_, received_;
+  std::vector<std::size_t> offsets_;
+  double sent_bytes_ = 0;  // by this rank, over exchanges_ steps of this call
+  long long exchanges_ = 0;
   RunState state_;
   std::size_t steps_per_epoch_ = 0;
   long long steps_this_run_ = 0;
@@ -342,12 +661,15 @@ class Run {
   bool early_stopped_ = false;
   json last_dev_ = json::object();
   json best_dev_ = json::object();
+  json mistakes_;  // filled by calibrate() for single-label classifiers
   std::chrono::steady_clock::time_point epoch_start_;
 };
 
 void Run::setup_model() {
   spec_ = make_spec(config_, data_);
-  validate(config_);  // again, now that task/bidirectional/output are resolved
+  validate(config_);                     // again, now that task/bidirectional/output are resolved
+  io::model_header(spec_, data_.vocab);  // what a model file cannot hold is refused before training
+  check_memory(spec_, config_, data_);   // and what cannot fit in memory, before allocating it
   const auto loss = make_loss_options(config_, data_, spec_);
   for (int w = 0; w < config_.threads; ++w) {
     replicas_.push_back(std::make_unique<model::SequenceModel>(spec_));
@@ -370,7 +692,7 @@ void Run::setup_model() {
   for (std::size_t w = 1; w < replicas_.size(); ++w) replicas_[w]->copy_values_from(master);
 
   optim::OptimizerConfig oc;
-  oc.momentum = config_.optimizer == "sgd" ? static_cast<float>(config_.momentum) : 0.0f;
+  oc.momentum = config_.optimizer == optim::OptimizerKind::kSgd ? static_cast<float>(config_.momentum) : 0.0f;
   oc.nesterov = config_.nesterov;
   oc.weight_decay = static_cast<float>(config_.weight_decay);
   optimizer_ = optim::make_optimizer(config_.optimizer, oc);
@@ -385,25 +707,278 @@ void Run::setup_model() {
   sc.warmup_steps = config_.warmup_steps;
   sc.total_steps = static_cast<std::int64_t>(steps_per_epoch_) * config_.epochs;
   sc.plateau_goal =
-      config_.early_stop_metric == "loss" ? optim::PlateauGoal::kLower : optim::PlateauGoal::kHigher;
+      config_.metric == Metric::kLoss ? optim::PlateauGoal::kLower : optim::PlateauGoal::kHigher;
   schedule_ = optim::make_schedule(config_.schedule, sc);
   pool_ = std::make_unique<WorkerPool>(config_.threads);
+  if (group_.size() > 1) {
+    // Gradient holders for the other global workers (values unused), allocated once.
+    peer_grads_.assign(static_cast<std::size_t>(global_workers() - 1), master.params());
+    for (auto& store : peer_grads_) peer_ptrs_.push_back(&store);
+  }
 }
 
 void Run::save_last() {
-  io::write_checkpoint(dir_ / "checkpoint-last.bin", *replicas_[0], data_.vocab, optimizer_.get(),
+  if (!lead_) return;
+  io::write_checkpoint(dir_ / io::kResumeCheckpointFile, *replicas_[0], data_.vocab, optimizer_.get(),
                        state_to_json(state_, *schedule_, data_.fingerprint), config_to_json(config_));
 }
 
 void Run::diverged(const std::string& what) const {
+  // Say only what is true of the run directory: checkpoints are written at epoch ends.
+  std::error_code ec;
+  std::string kept;
+  if (state_.best_epoch > 0 && fs::exists(dir_ / io::kSelectedCheckpointFile, ec))
+    kept = "the best model so far (epoch " + std::to_string(state_.best_epoch) + ", dev " +
+           to_string(*config_.metric) + " " + fmt(state_.best_metric) + ") is in " +
+           (dir_ / io::kSelectedCheckpointFile).string();
+  else
+    kept = "no checkpoint was written (the first epoch did not end)";
   throw DivergenceError(what + " at epoch " + std::to_string(state_.epoch + 1) + ", step " +
-                        std::to_string(state_.step + 1) +
-                        ". Training stopped; checkpoint-best.bin is intact. Likely fixes: a lower "
-                        "--learning-rate (now " +
-                        fmt(config_.learning_rate, 6) +
-                        "), gradient clipping "
-                        "(--clip-norm, now " +
-                        fmt(config_.clip_norm, 2) + "), or --warmup-steps.");
+                        std::to_string(state_.step + 1) + ". Training stopped; " + kept +
+                        ". Likely fixes: a lower --learning-rate (now " + fmt_general(config_.learning_rate) +
+                        "), gradient clipping (--clip-norm, now " + fmt(config_.clip_norm, 2) +
+                        "), or --warmup-steps.");
+}
+
+void Run::check_loss_growth(double step_loss) {
+  if (std::isnan(state_.loss_reference) || std::isnan(state_.loss_average)) {
+    state_.loss_reference = step_loss;
+    state_.loss_average = step_loss;
+    return;
+  }
+  state_.loss_average = (1.0 - kLossAverageWeight) * state_.loss_average + kLossAverageWeight * step_loss;
+  if (state_.loss_reference > 0 && state_.loss_average > kLossGrowthLimit * state_.loss_reference)
+    diverged("the training loss grew to " + fmt(state_.loss_average) + " (average of the last steps), over " +
+             fmt(kLossGrowthLimit, 0) + " times its " + fmt(state_.loss_reference) + " at the first step");
+}
+
+void Run::sync_replica(std::size_t w) {
+  const nn::ParameterStore& from = replicas_[0]->params();
+  nn::ParameterStore& to = replicas_[w]->params();
+  for (std::size_t i = 0; i < from.size(); ++i) {
+    const nn::Parameter& src = from[i];
+    if (!src.trainable) continue;
+    nn::Parameter& dst = to[i];
+    if (src.sparse_rows) {
+      for (const auto row : stale_rows_[i]) dst.value.row(row) = src.value.row(row);
+    } else {
+      dst.value = src.value;
+    }
+  }
+}
+
+// Reduce, gradient norm (and clipping), optimizer update and zeroing of the gradients, each split
+// across the workers by element ranges of the dense parameters (sparse-row parameters go to worker
+// 0). Every operation is element-wise except the norm, whose parts are added in worker order, so
+// the result depends on the seed and the thread count only; with one thread it is the serial
+// reduce + clip_grad_norm + Optimizer::step.
+void Run::optimizer_step(std::span<nn::ParameterStore* const> others) {
+  auto& master = replicas_[0]->params();
+  const int parts = pool_->size();
+  // The norm is summed over as many element ranges as there are workers in the whole job, so R
+  // ranks of T threads add the same partial sums in the same order as one process of R*T threads.
+  const int norm_parts = global_workers();
+  part_squares_.assign(static_cast<std::size_t>(norm_parts), 0.0);
+  if (stale_rows_.size() != master.size()) stale_rows_.resize(master.size());
+  auto part_norm = [&](int part) {
+    double squares = 0.0;
+    for (nn::Parameter& p : master) {
+      if (!p.trainable) continue;
+      if (p.sparse_rows) {
+        if (part != 0) continue;
+        p.finalize_touched_rows();
+        const Eigen::Index cols = p.grad.cols();
+        for (const std::int32_t row : p.touched_rows)
+          squares += optim::sum_squares(p.grad.data() + row * cols, cols);
+        continue;
+      }
+      const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, norm_parts);
+      squares += optim::sum_squares(p.grad.data() + begin, end - begin);
+    }
+    part_squares_[static_cast<std::size_t>(part)] = squares;
+  };
+  if (norm_parts == parts) {
+    pool_->run([&](int part) {  // each worker reduces and measures the same element range
+      if (!others.empty()) reducer_.reduce_part(master, others, part, parts);
+      part_norm(part);
+    });
+  } else {
+    if (!others.empty()) pool_->run([&](int part) { reducer_.reduce_part(master, others, part, parts); });
+    pool_->run([&](int part) {
+      for (int p = part; p < norm_parts; p += parts) part_norm(p);
+    });
+  }
+  double total = 0.0;
+  for (const double s : part_squares_) total += s;
+  const double norm = std::sqrt(total);
+  if (!std::isfinite(norm)) diverged("the gradient norm became " + fmt(norm));
+  // Pascanu et al. 2013, Algorithm 1: g <- (threshold / |g|) g when |g| exceeds the threshold.
+  const bool clip = config_.clip_norm > 0 && norm > config_.clip_norm;
+  const auto scale = clip ? static_cast<float>(config_.clip_norm / norm) : 1.0f;
+  optimizer_->prepare_step(master, schedule_->rate(state_.global_step));
+  pool_->run([&](int part) {
+    for (std::size_t i = 0; i < master.size(); ++i) {
+      nn::Parameter& p = master[i];
+      if (!p.trainable) continue;
+      if (p.sparse_rows) {
+        if (part == 0 && clip)
+          for (const std::int32_t row : p.touched_rows) p.grad.row(row) *= scale;
+        continue;
+      }
+      if (!clip) continue;
+      const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
+      for (Eigen::Index k = begin; k < end; ++k) p.grad.data()[k] *= scale;
+    }
+    optimizer_->update_part(master, part, parts);
+    // Zero the gradients of every replica on this part; remember the sparse rows for the sync.
+    for (std::size_t i = 0; i < master.size(); ++i) {
+      nn::Parameter& p = master[i];
+      if (p.sparse_rows) {
+        if (part != 0) continue;
+        stale_rows_[i] = p.touched_rows;  // capacity is kept: no allocation once grown
+        for (auto& r : replicas_) {
+          nn::Parameter& q = r->params()[i];
+          for (const auto row : q.touched_rows) q.grad.row(row).setZero();
+          q.touched_rows.clear();
+        }
+        continue;
+      }
+      const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
+      for (auto& r : replicas_) {
+        float* g = r->params()[i].grad.data();
+        std::fill(g + begin, g + end, 0.0f);
+      }
+    }
+  });
+  ++state_.global_step;
+  replicas_stale_ = replicas_.size() > 1;
+}
+
+// Ranks > 1: every rank sends its workers' losses and gradients (dense tensors whole, sparse-row
+// tensors as their touched rows) and its interrupt flag; every rank then holds worker 0's gradient
+// in the master and worker g's in peer_grads_[g - 1], so the reduction that follows adds them in
+// worker order exactly as one process with all the workers as threads would. Returns whether any
+// rank saw an interrupt; `loss_sum` gets the workers' losses added in worker order.
+bool Run::exchange_gradients(std::span<const double> losses, bool interrupt, double& loss_sum) {
+  send_.clear();
+  auto put = [&](const void* data, std::size_t bytes) {
+    const auto* b = static_cast<const std::byte*>(data);
+    send_.insert(send_.end(), b, b + bytes);
+  };
+  const auto flag = static_cast<std::uint8_t>(interrupt ? 1 : 0);
+  put(&flag, 1);
+  for (std::size_t w = 0; w < replicas_.size(); ++w) {
+    put(&losses[w], sizeof(double));
+    for (const nn::Parameter& p : replicas_[w]->params()) {
+      if (!p.trainable) continue;
+      if (!p.sparse_rows) {
+        put(p.grad.data(), static_cast<std::size_t>(p.grad.size()) * sizeof(float));
+        continue;
+      }
+      const auto count = static_cast<std::uint32_t>(p.touched_rows.size());
+      const auto cols = static_cast<std::size_t>(p.grad.cols());
+      put(&count, sizeof count);
+      put(p.touched_rows.data(), count * sizeof(std::int32_t));
+      for (const std::int32_t row : p.touched_rows)
+        put(p.grad.data() + static_cast<std::size_t>(row) * cols, cols * sizeof(float));
+    }
+  }
+  group_.all_gather(send_, received_, offsets_);
+  sent_bytes_ += static_cast<double>(send_.size());
+  ++exchanges_;
+
+  bool any_interrupt = false;
+  loss_sum = 0;
+  std::size_t pos = 0, end = 0;
+  auto get = [&](void* data, std::size_t bytes) {
+    if (bytes > end - pos) throw Error("gradient exchange: a rank sent fewer bytes than this model needs");
+    std::memcpy(data, received_.data() + pos, bytes);
+    pos += bytes;
+  };
+  std::size_t g = 0;
+  for (int r = 0; r < group_.size(); ++r) {
+    pos = offsets_[static_cast<std::size_t>(r)];
+    end = offsets_[static_cast<std::size_t>(r) + 1];
+    std::uint8_t their_flag = 0;
+    get(&their_flag, 1);
+    any_interrupt = any_interrupt || their_flag != 0;
+    for (int w = 0; w < config_.threads; ++w, ++g) {
+      double loss = 0;
+      get(&loss, sizeof loss);
+      loss_sum += loss;
+      nn::ParameterStore& into = g == 0 ? replicas_[0]->params() : peer_grads_[g - 1];
+      for (nn::Parameter& p : into) {
+        if (!p.trainable) continue;
+        if (!p.sparse_rows) {
+          get(p.grad.data(), static_cast<std::size_t>(p.grad.size()) * sizeof(float));
+          continue;
+        }
+        for (const std::int32_t row : p.touched_rows) p.grad.row(row).setZero();
+        std::uint32_t count = 0;
+        get(&count, sizeof count);
+        if (count > static_cast<std::uint32_t>(p.grad.rows()) * 4u)
+          throw Error("gradient exchange: a rank sent a bad row count for " + p.name);
+        p.touched_rows.resize(count);
+        get(p.touched_rows.data(), count * sizeof(std::int32_t));
+        const auto cols = static_cast<std::size_t>(p.grad.cols());
+        for (const std::int32_t row : p.touched_rows) {
+          if (row < 0 || row >= p.grad.rows())
+            throw Error("gradient exchange: a rank sent a bad row of " + p.name);
+          get(p.grad.data() + static_cast<std::size_t>(row) * cols, cols * sizeof(float));
+        }
+      }
+    }
+    if (pos != end) throw Error("gradient exchange: a rank sent more bytes than this model needs");
+  }
+  return any_interrupt;
+}
+
+// One step's forward and backward passes over the batch `indices`: this process's share of it,
+// split between its workers; each worker's loss goes to buf.losses (not yet checked for being
+// finite).
+void Run::workers_forward_backward(std::span<const std::size_t> indices, double normalizer,
+                                   StepBuffers& buf) {
+  const int workers = config_.threads;  // in this process
+  const auto all_workers = static_cast<std::size_t>(global_workers());
+  const auto first_worker = static_cast<std::size_t>(group_.rank()) * static_cast<std::size_t>(workers);
+  // Worker g (of all the job's workers) takes examples g, g + workers, ... of the batch: a batch
+  // is cut from a run of length-sorted examples, so dealing them out like cards gives every
+  // worker about the same number of tokens (the step waits for the slowest worker).
+  for (int w = 0; w < workers; ++w) {
+    auto& mine = buf.slices[static_cast<std::size_t>(w)];
+    mine.clear();
+    for (std::size_t i = first_worker + static_cast<std::size_t>(w); i < indices.size(); i += all_workers)
+      mine.push_back(indices[i]);
+  }
+  // Phase 1, every worker: bring its replica up to the master's weights (the previous step's
+  // update), then forward and backward on its slice of the batch.
+  try {
+    pool_->run([&](int w) {
+      if (w > 0 && replicas_stale_) sync_replica(static_cast<std::size_t>(w));
+      const auto& slice = buf.slices[static_cast<std::size_t>(w)];
+      buf.losses[static_cast<std::size_t>(w)] = 0.0;
+      if (slice.empty()) return;
+      data::Batch& mine = buf.sub[static_cast<std::size_t>(w)];
+      data::fill_batch(data_.train, slice, mine, config_.max_length);
+      Rng dropout(mix_seed(config_.seed, static_cast<std::uint64_t>(state_.epoch), state_.step,
+                           first_worker + static_cast<std::uint64_t>(w)));
+      buf.losses[static_cast<std::size_t>(w)] = replicas_[static_cast<std::size_t>(w)]->train_batch(
+          mine, data_.train, config_.bptt_window, normalizer, dropout);
+    });
+  } catch (const DivergenceError& e) {
+    diverged(e.what());
+  }
+  replicas_stale_ = false;
+}
+
+// The share of the batch grid that was padding, once per run (only meaningful when the epoch
+// ran from its start).
+void Run::note_padding(std::size_t plan_steps, std::size_t padded, std::size_t tokens) {
+  if (state_.epoch != 0 && !resuming_) return;
+  if (padded > 0 && state_.step == plan_steps && tokens == state_.epoch_tokens)
+    progress_.note(
+        "padding: " + fmt(100.0 * (1.0 - static_cast<double>(tokens) / static_cast<double>(padded)), 1) +
+        "% of the batch grid (length bucketing on)");
 }
 
 void Run::run_epoch() {
@@ -413,10 +988,8 @@ void Run::run_epoch() {
       data::plan_batches(data_.train, plan_options, config_.seed, static_cast<std::uint64_t>(state_.epoch));
   progress_.start_epoch(state_.epoch + 1, config_.epochs, plan.size());
   epoch_start_ = std::chrono::steady_clock::now();
-  const int workers = config_.threads;
   data::Batch batch;
-  std::vector<data::Batch> sub(static_cast<std::size_t>(workers));
-  std::vector<double> losses(static_cast<std::size_t>(workers));
+  StepBuffers buf(config_.threads);
   std::vector<nn::ParameterStore*> others;
   for (std::size_t w = 1; w < replicas_.size(); ++w) others.push_back(&replicas_[w]->params());
   std::size_t padded = 0, tokens = 0;
@@ -424,50 +997,24 @@ void Run::run_epoch() {
     const auto& indices = plan[state_.step];
     data::fill_batch(data_.train, indices, batch, config_.max_length);
     const double normalizer = replicas_[0]->loss_units(batch);
-    // Contiguous slices of the batch, one per worker (the last ones may be empty).
-    const std::size_t per =
-        (indices.size() + static_cast<std::size_t>(workers) - 1) / static_cast<std::size_t>(workers);
-    try {
-      pool_->run([&](int w) {
-        const std::size_t begin = std::min(indices.size(), per * static_cast<std::size_t>(w));
-        const std::size_t end = std::min(indices.size(), begin + per);
-        losses[static_cast<std::size_t>(w)] = 0.0;
-        if (begin == end) return;
-        data::Batch& mine = sub[static_cast<std::size_t>(w)];
-        data::fill_batch(data_.train, std::span<const std::size_t>(indices).subspan(begin, end - begin), mine,
-                         config_.max_length);
-        Rng dropout(mix_seed(config_.seed, static_cast<std::uint64_t>(state_.epoch), state_.step,
-                             static_cast<std::uint64_t>(w)));
-        losses[static_cast<std::size_t>(w)] = replicas_[static_cast<std::size_t>(w)]->train_batch(
-            mine, data_.train, config_.bptt_window, normalizer, dropout);
-      });
-    } catch (const DivergenceError& e) {
-      diverged(e.what());
-    }
+    workers_forward_backward(indices, normalizer, buf);
     double loss_sum = 0;
-    for (const double l : losses) loss_sum += l;
+    const bool peer_interrupt =
+        group_.size() > 1 && exchange_gradients(buf.losses, interrupt_requested(), loss_sum);
+    if (group_.size() == 1)
+      for (const double l : buf.losses) loss_sum += l;
     if (!std::isfinite(loss_sum)) diverged("the training loss became " + fmt(loss_sum));
-    auto& master = replicas_[0]->params();
-    if (!others.empty()) {
-      reducer_.reduce(master, others);
-    } else {
-      for (auto& p : master)
-        if (p.sparse_rows) p.finalize_touched_rows();
-    }
-    if (config_.clip_norm > 0) {
-      const auto clip = optim::clip_grad_norm(master, config_.clip_norm);
-      if (!clip.finite) diverged("the gradient norm became " + fmt(clip.norm));
-    } else {
-      const double norm = optim::global_grad_norm(master);
-      if (!std::isfinite(norm)) diverged("the gradient norm became " + fmt(norm));
-    }
-    optimizer_->step(master, schedule_->rate(state_.global_step));
-    ++state_.global_step;
-    if (!others.empty()) reducer_.broadcast(master, others);
-    for (auto& r : replicas_) r->params().zero_grad();
+    // Per token for CRF taggers (their loss units are sentences, whose length varies by batch).
+    check_loss_growth(loss_sum / (spec_.output == model::OutputKind::kCrf
+                                      ? static_cast<double>(batch.tokens())
+                                      : normalizer));
+    optimizer_step(group_.size() > 1 ? std::span<nn::ParameterStore* const>(peer_ptrs_) : others);
 
     state_.epoch_loss_sum += loss_sum;
-    state_.epoch_loss_units += normalizer;
+    // The reported train loss is per token for every output, as the dev loss is (a CRF's loss
+    // units for the gradient are sentences).
+    state_.epoch_loss_units +=
+        spec_.output == model::OutputKind::kCrf ? static_cast<double>(batch.tokens()) : normalizer;
     state_.epoch_tokens += batch.tokens();
     tokens += batch.tokens();
     padded += batch.padded();
@@ -476,19 +1023,14 @@ void Run::run_epoch() {
     ++steps_this_run_;
     const bool step_hook =
         options_.interrupt_after_steps > 0 && steps_this_run_ == options_.interrupt_after_steps;
-    if (interrupt_requested() || step_hook) {
+    // Ranks stop together at the step where any of them saw the signal (told in the exchange).
+    if ((group_.size() > 1 ? peer_interrupt : interrupt_requested()) || step_hook) {
       ++state_.step;
       interrupted_ = true;
       return;
     }
   }
-  if (state_.epoch == 0 || resuming_) {
-    // Only meaningful when the epoch ran from its start.
-    if (padded > 0 && state_.step == plan.size() && tokens == state_.epoch_tokens)
-      progress_.note(
-          "padding: " + fmt(100.0 * (1.0 - static_cast<double>(tokens) / static_cast<double>(padded)), 1) +
-          "% of the batch grid (length bucketing on)");
-  }
+  note_padding(plan.size(), padded, tokens);
 }
 
 void Run::end_epoch() {
@@ -496,9 +1038,9 @@ void Run::end_epoch() {
       state_.epoch_seconds +
       std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
   const auto dev = evaluate(*replicas_[0], data_.dev);
-  const double metric = dev.metric(config_.early_stop_metric);
+  const double metric = dev.metric(*config_.metric);
   const double rate = schedule_->rate(std::max<std::int64_t>(state_.global_step - 1, 0));
-  const bool improved = metric_improves(config_.early_stop_metric, metric, state_.best_metric);
+  const bool improved = metric_improves(*config_.metric, metric, state_.best_metric);
   const double train_loss = state_.epoch_loss_sum / std::max(state_.epoch_loss_units, 1e-300);
   const double tok_s = seconds > 0 ? static_cast<double>(state_.epoch_tokens) / seconds : 0.0;
   state_.total_seconds += seconds;
@@ -507,7 +1049,7 @@ void Run::end_epoch() {
   json line{{"epoch", state_.epoch + 1}, {"train_loss", train_loss}, {"dev", last_dev_},
             {"learning_rate", rate},     {"seconds", seconds},       {"tokens_per_second", tok_s},
             {"improved", improved}};
-  {
+  if (lead_) {
     std::ofstream log(dir_ / "log.jsonl", std::ios::app);
     log << line.dump() << '\n';
     if (!log) throw IoError("cannot append to " + (dir_ / "log.jsonl").string());
@@ -520,10 +1062,16 @@ void Run::end_epoch() {
   } else {
     ++state_.epochs_without_improvement;
   }
-  if (config_.schedule == "plateau" && schedule_->observe(metric))
+  if (config_.schedule == optim::ScheduleKind::kPlateau && schedule_->observe(metric))
     progress_.note("learning rate lowered to " + fmt(schedule_->rate(state_.global_step), 6));
-  std::string summary = "train loss " + fmt(train_loss) + "  dev";
-  for (const auto& [k, v] : last_dev_.items()) summary += " " + k + " " + fmt(v.get<double>());
+  std::string summary =
+      "train loss " + fmt(train_loss) + "  dev loss " + fmt(last_dev_["loss"].get<double>());
+  for (const auto& [key, label] : {std::pair{"accuracy", "accuracy"},
+                                   {"macro_f1", "macro F1"},
+                                   {"token_accuracy", "token accuracy"},
+                                   {"span_f1", "span F1"}})
+    if (last_dev_.contains(key))
+      summary += std::string("  ") + label + " " + fmt(last_dev_[key].get<double>());
   summary += improved ? "  (best)" : "";
   progress_.finish_epoch(summary);
 
@@ -535,29 +1083,59 @@ void Run::end_epoch() {
   if (config_.patience > 0 && state_.epochs_without_improvement >= config_.patience &&
       state_.epoch < config_.epochs) {
     early_stopped_ = true;
-    progress_.note("early stop: dev " + config_.early_stop_metric + " did not improve for " +
+    progress_.note(std::string("early stop: dev ") + to_string(*config_.metric) + " did not improve for " +
                    std::to_string(config_.patience) + " epoch(s); best was epoch " +
                    std::to_string(state_.best_epoch));
   }
   state_.finished = early_stopped_ || state_.epoch >= config_.epochs;
-  if (improved) {
-    io::write_checkpoint(dir_ / "checkpoint-best.bin", *replicas_[0], data_.vocab, nullptr,
+  if (improved && lead_) {
+    io::write_checkpoint(dir_ / io::kSelectedCheckpointFile, *replicas_[0], data_.vocab, nullptr,
                          state_to_json(state_, *schedule_, data_.fingerprint), config_to_json(config_));
   }
   save_last();
-  if (best_dev_.is_object() && !best_dev_.empty())
+  if (lead_ && best_dev_.is_object() && !best_dev_.empty())
     write_file_atomic(dir_ / "best-dev-metrics.json", best_dev_.dump(2) + "\n");
 }
 
 void Run::load_resume_state() {
-  const json saved = io::restore_checkpoint(dir_ / "checkpoint-last.bin", *replicas_[0], optimizer_.get());
+  const json saved =
+      io::restore_checkpoint(dir_ / io::kResumeCheckpointFile, *replicas_[0], optimizer_.get());
   const json& trainer = saved.at("trainer");
-  if (trainer.value("data_fingerprint", "") != std::to_string(data_.fingerprint))
+  // The trainer state is JSON in a file that may have been edited or damaged: wrong types and
+  // values that would run past the configured epochs are a format error naming the checkpoint.
+  const std::string checkpoint = (dir_ / io::kResumeCheckpointFile).string();
+  std::vector<optim::StateScalar> sched;
+  std::string fingerprint;
+  try {
+    if (!trainer.is_object()) throw Error("\"trainer\" must be an object");
+    fingerprint = trainer.value("data_fingerprint", std::string());
+    state_ = state_from_json(trainer);
+    for (const auto& [k, v] : trainer.at("schedule").items()) sched.emplace_back(k, v.get<double>());
+  } catch (const json::exception& e) {
+    throw FormatError(checkpoint, std::string("header: bad \"trainer\" state: ") + e.what());
+  } catch (const Error& e) {
+    throw FormatError(checkpoint, std::string("header: ") + e.what());
+  }
+  if (fingerprint != std::to_string(data_.fingerprint))
     throw ConfigError("resume", "the training data of " + dir_.string() + " changed since the run started (" +
                                     config_.train + "); start a new run");
-  state_ = state_from_json(trainer);
-  std::vector<optim::StateScalar> sched;
-  for (const auto& [k, v] : trainer.at("schedule").items()) sched.emplace_back(k, v.get<double>());
+  if (options_.epochs > 0) {
+    if (options_.epochs < state_.epoch)
+      throw ConfigError("epochs", dir_.string() + " has already done " + std::to_string(state_.epoch) +
+                                      " epochs; give at least that many to extend it");
+    if (options_.epochs > state_.epoch) {
+      // Extending: a finished or early-stopped run trains on; patience counts from here.
+      state_.finished = false;
+      state_.epochs_without_improvement = 0;
+    }
+  }
+  if (state_.epoch < 0 || state_.epoch > config_.epochs || state_.step > steps_per_epoch_ ||
+      state_.global_step < 0 || state_.best_epoch < 0 || state_.best_epoch > state_.epoch ||
+      state_.epochs_without_improvement < 0)
+    throw FormatError(checkpoint, "header: the \"trainer\" state (epoch " + std::to_string(state_.epoch) +
+                                      ", step " + std::to_string(state_.step) + ") does not fit this run's " +
+                                      std::to_string(config_.epochs) + " epochs of " +
+                                      std::to_string(steps_per_epoch_) + " steps");
   schedule_->load_state(sched);
   optimizer_->set_step_count(state_.global_step);
   for (std::size_t w = 1; w < replicas_.size(); ++w) replicas_[w]->copy_values_from(*replicas_[0]);
@@ -572,7 +1150,7 @@ void Run::load_resume_state() {
     if (!j.is_discarded() && j.value("improved", false)) best_dev_ = j.at("dev");
     ++lines;
   }
-  write_file_atomic(log_path, kept);
+  if (lead_) write_file_atomic(log_path, kept);
   const fs::path best_metrics = dir_ / "best-dev-metrics.json";
   if (fs::exists(best_metrics)) best_dev_ = json::parse(read_file(best_metrics));
 }
@@ -581,7 +1159,7 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   result.outcome = outcome;
   result.epochs_completed = state_.epoch;
   result.best_epoch = state_.best_epoch;
-  result.metric = config_.early_stop_metric;
+  result.metric = to_string(*config_.metric);
   result.best_metric = state_.best_metric;
   result.seconds = state_.total_seconds;
   result.tokens_per_second =
@@ -589,11 +1167,11 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   result.peak_rss_bytes = peak_rss_bytes();
   if (outcome == TrainOutcome::kInterrupted) return;
   result.final_metrics =
-      json{{"task", config_.task},
+      json{{"task", data::to_string(*config_.task)},
            {"outcome", outcome == TrainOutcome::kEarlyStopped ? "early_stopped" : "finished"},
            {"epochs", state_.epoch},
            {"best_epoch", state_.best_epoch},
-           {"metric", config_.early_stop_metric},
+           {"metric", to_string(*config_.metric)},
            {"best_metric", state_.best_metric},
            {"dev", best_dev_},
            {"train_examples", data_.train.size()},
@@ -603,8 +1181,95 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
            {"seconds", state_.total_seconds},
            {"tokens_per_second", result.tokens_per_second},
            {"threads", config_.threads},
+           {"ranks", group_.size()},
            {"peak_rss_bytes", result.peak_rss_bytes}};
+  if (!data_.cut_examples.empty()) result.final_metrics["cut_to_max_tokens"] = data_.cut_examples;
+  if (exchanges_ > 0)  // what rank 0 sent per step; each rank receives the other ranks' share
+    result.final_metrics["exchange_bytes_per_step"] = sent_bytes_ / static_cast<double>(exchanges_);
+  if (!lead_) return;
+  if (options_.fit_baseline && !data_.multi_label) {
+    const auto start = std::chrono::steady_clock::now();
+    const std::string dev_path = config_.dev.empty() ? config_.train : config_.dev;
+    const auto baseline = LinearBaseline::fit(data_.vocab, data_.task, data_.train_examples, config_.train,
+                                              data_.dev_examples, dev_path);
+    result.final_metrics["baseline"] = {
+        {"name", baseline.description()},
+        {"c", baseline.c()},
+        {"features", baseline.feature_count()},
+        {"dev", baseline.score(data_.dev_examples, dev_path)},
+        {"seconds", std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count()}};
+  }
+  if (state_.best_epoch > 0) {
+    result.final_metrics["calibration"] = calibrate();
+    if (!mistakes_.is_null()) result.final_metrics["dev_mistakes"] = std::move(mistakes_);
+  }
   write_file_atomic(dir_ / "metrics.json", result.final_metrics.dump(2) + "\n");
+}
+
+// The most confident dev mistakes of the (calibrated) best model, each with its integrated-gradients
+// attribution (train/explain.hpp), for the report.
+json Run::dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev) {
+  constexpr std::size_t kShown = 8;  // enough to see a pattern, few enough to read (our choice)
+  std::vector<std::size_t> wrong;
+  for (std::size_t i = 0; i < data_.dev.size(); ++i)
+    if (dev.predictions[i].labels.at(0) != data_.dev[i].targets.at(0)) wrong.push_back(i);
+  std::stable_sort(wrong.begin(), wrong.end(), [&](std::size_t a, std::size_t b) {
+    return dev.predictions[a].confidence > dev.predictions[b].confidence;
+  });
+  if (wrong.size() > kShown) wrong.resize(kShown);
+  const data::Encoder encoder(data_.vocab, data::Task::kClassify);
+  json out = json::array();
+  for (const std::size_t i : wrong) {
+    const data::Example& ex = data_.dev_examples[i];
+    std::vector<std::string> tokens;
+    data::EncodedExample encoded;
+    encoder.encode_text(ex.text, tokens, encoded);
+    const int predicted = dev.predictions[i].labels.at(0);
+    const model::TokenAttribution a = m.integrated_gradients(encoded, predicted, kAttributionSteps);
+    json toks = json::array();
+    for (std::size_t t = 0; t < tokens.size(); ++t)
+      toks.push_back({{"token", tokens[t]}, {"score", a.scores[t]}});
+    out.push_back({{"line", ex.line},
+                   {"text", ex.text},
+                   {"gold", m.spec().labels[static_cast<std::size_t>(data_.dev[i].targets.at(0))]},
+                   {"predicted", m.spec().labels[static_cast<std::size_t>(predicted)]},
+                   {"probability", dev.predictions[i].confidence},
+                   {"why",
+                    {{"method", "integrated_gradients"},
+                     {"label", m.spec().labels[static_cast<std::size_t>(predicted)]},
+                     {"tokens", std::move(toks)},
+                     {"completeness",
+                      {{"output", a.output},
+                       {"baseline", a.baseline_output},
+                       {"sum", a.sum},
+                       {"gap", a.completeness_gap()},
+                       {"steps", a.steps}}}}}});
+  }
+  return out;
+}
+
+// Temperature scaling of the best checkpoint on dev (gyre/train/calibrate.hpp): the checkpoint is
+// rewritten (atomically) with the temperature in its header, so eval, predict and export use it.
+// A checkpoint that already has one (a finished run extended with --resume) is refitted.
+json Run::calibrate() {
+  const fs::path best = dir_ / io::kSelectedCheckpointFile;
+  io::TrainedModel trained = io::load_trained_model(best, io::Engine::kLibrary);
+  model::SequenceModel& m = *trained.model;
+  m.set_temperature({});
+  const auto before = evaluate(m, data_.dev, true);
+  const CalibrationFit fit = fit_calibration(m, data_.dev);
+  m.set_temperature(fit.temperature);
+  const auto after = evaluate(m, data_.dev, true);
+  const eval::Reliability r_before = reliability_of(m.spec(), data_.dev, before.predictions);
+  const eval::Reliability r_after = reliability_of(m.spec(), data_.dev, after.predictions);
+  io::write_checkpoint(best, m, data_.vocab, nullptr, trained.header.at("trainer"),
+                       trained.header.at("config"));
+  if (data_.task == data::Task::kClassify && !data_.multi_label) mistakes_ = dev_mistakes(m, after);
+  std::string temps;
+  for (const float t : fit.temperature) temps += (temps.empty() ? "" : " ") + fmt(t, 3);
+  progress_.note("calibration: temperature " + (fit.temperature.size() > 1 ? "per label " : std::string()) +
+                 temps + " fitted on dev; ECE " + fmt(r_before.error) + " -> " + fmt(r_after.error));
+  return calibration_json(fit, r_before, r_after);
 }
 
 TrainResult Run::execute() {
@@ -616,7 +1281,7 @@ TrainResult Run::execute() {
   if (resuming_) {
     loaded_vocab = text::load_vocab_file(dir_ / "vocab.json");
     saved_vocab = &loaded_vocab;
-  } else {
+  } else if (start_ == Start::kNew) {
     std::error_code ec;
     if (fs::exists(dir_, ec) && !(fs::is_directory(dir_, ec) && fs::is_empty(dir_, ec)))
       throw ConfigError("out", dir_.string() +
@@ -625,23 +1290,41 @@ TrainResult Run::execute() {
                                    dir_.string() + "`");
   }
   data_ = prepare_data(config_, progress_, saved_vocab);
-  setup_model();  // all checks done: nothing is created before this point
-  if (!resuming_) {
+  setup_model();     // all checks done: nothing is created before this point
+  group_.barrier();  // every rank has checked the run directory before rank 0 creates it
+  if (start_ != Start::kNew && lead_) {
+    // A process killed while writing (kill -9, power loss) leaves "<file>.tmp.<pid>" behind.
+    for (const auto& stale : remove_stale_temp_files(dir_))
+      progress_.note("removed " + stale.string() +
+                     ", left by an earlier process that did not finish writing it");
+  }
+  if (start_ == Start::kRestart && lead_) {
+    // Deterministic training makes starting again equal to resuming; drop what the killed run
+    // may have left of its first epoch.
+    std::error_code ec;
+    for (const char* name : {io::kSelectedCheckpointFile, "best-dev-metrics.json"})
+      fs::remove(dir_ / name, ec);
+  }
+  if (!resuming_ && lead_) {
     fs::create_directories(dir_);
-    write_file_atomic(dir_ / "config.json", config_to_json(config_).dump(2) + "\n");
+    write_file_atomic(dir_ / "config.json", run_config_json().dump(2) + "\n");
     text::save_vocab_file(dir_ / "vocab.json", data_.vocab);
     write_file_atomic(dir_ / "log.jsonl", "");
-  } else {
+  } else if (resuming_) {
     load_resume_state();
+    if (options_.epochs > 0 && lead_)
+      write_file_atomic(dir_ / "config.json", run_config_json().dump(2) + "\n");
   }
   if (!options_.quiet) {
     std::ostringstream head;
-    head << (resuming_ ? "resuming " : "training ") << config_.cell << " " << config_.task << " ("
-         << (spec_.bidirectional ? "bi, " : "") << spec_.layers << "x" << spec_.hidden_size << ", embedding "
-         << spec_.embedding_size << ", " << replicas_[0]->params().parameter_count() << " parameters) on "
-         << data_.train.size() << " examples, dev " << data_.dev.size() << ", vocabulary "
-         << data_.vocab.vocab.size() << ", " << spec_.num_labels() << " labels, " << config_.threads
-         << " thread(s), seed " << config_.seed;
+    head << (resuming_ ? "resuming " : "training ") << model::to_string(config_.cell) << " "
+         << data::to_string(*config_.task) << " (" << (spec_.bidirectional ? "bi, " : "") << spec_.layers
+         << "x" << spec_.hidden_size << ", embedding " << spec_.embedding_size << ", "
+         << replicas_[0]->params().parameter_count() << " parameters) on " << data_.train.size()
+         << " examples, dev " << data_.dev.size() << ", vocabulary " << data_.vocab.vocab.size() << ", "
+         << spec_.num_labels() << " labels, " << config_.threads << " thread(s)"
+         << (group_.size() > 1 ? " in each of " + std::to_string(group_.size()) + " MPI ranks" : "")
+         << ", seed " << config_.seed;
     if (resuming_) head << "; from epoch " << state_.epoch + 1 << " step " << state_.step + 1;
     progress_.note(head.str());
   }
@@ -653,7 +1336,7 @@ TrainResult Run::execute() {
       state_.epoch_seconds +=
           std::chrono::duration<double>(std::chrono::steady_clock::now() - epoch_start_).count();
       save_last();
-      progress_.note("\ninterrupted: saved " + (dir_ / "checkpoint-last.bin").string() +
+      progress_.note("\ninterrupted: saved " + (dir_ / io::kResumeCheckpointFile).string() +
                      "; continue with: gyre train --resume " + dir_.string());
       finish(TrainOutcome::kInterrupted, result);
       return result;
@@ -676,7 +1359,7 @@ TrainResult Run::execute() {
 
 TrainResult train(const TrainConfig& config, const TrainOptions& options) {
   reset_interrupt();
-  Run run(config, options, false);
+  Run run(config, options, Run::Start::kNew, options.group ? *options.group : process_group());
   return run.execute();
 }
 
@@ -684,15 +1367,38 @@ TrainResult resume(const TrainOptions& options) {
   reset_interrupt();
   const fs::path dir = options.out;
   const fs::path config_path = dir / "config.json";
-  if (!fs::exists(dir / "checkpoint-last.bin"))
-    throw ConfigError("resume", dir.string() + " has no checkpoint-last.bin to resume from");
+  io::refuse_version1_run(dir);
+  Run::Start start = Run::Start::kResume;
+  if (!fs::exists(dir / io::kResumeCheckpointFile)) {
+    // config.json is written first, metrics.json last: with the one and not the other, the run
+    // was stopped (kill -9, a crash) before its first checkpoint, and starts again from its saved
+    // settings, which reaches the same weights as resuming would have.
+    if (!fs::exists(config_path) || fs::exists(dir / "metrics.json"))
+      throw ConfigError("resume", dir.string() + " has no " + io::kResumeCheckpointFile + " to resume from");
+    start = Run::Start::kRestart;
+  }
   json j;
   try {
     j = json::parse(read_file(config_path));
   } catch (const json::exception& e) {
     throw FormatError(config_path.string(), std::string("not valid JSON: ") + e.what());
   }
-  Run run(config_from_json(j), options, true);
+  ProcessGroup& group = options.group ? *options.group : process_group();
+  // The job's shape is part of the arithmetic (which worker takes which example): resume with it.
+  const int ranks = j.contains("job") ? j["job"].value("ranks", 1) : 1;
+  if (ranks != group.size())
+    throw ConfigError("resume", dir.string() + " was trained by " + std::to_string(ranks) +
+                                    " MPI rank(s); resume it with the same number (now " +
+                                    std::to_string(group.size()) + ")");
+  j.erase("job");
+  TrainConfig config = config_from_json(j);
+  if (options.epochs > 0) config.epochs = options.epochs;
+  if (start == Run::Start::kRestart && !options.quiet && options.progress != nullptr && group.rank() == 0)
+    std::fprintf(options.progress,
+                 "%s has no checkpoint yet (the run stopped before its first epoch ended): starting it again "
+                 "from the beginning with its saved settings\n",
+                 dir.string().c_str());
+  Run run(config, options, start, group);
   return run.execute();
 }
 

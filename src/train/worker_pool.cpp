@@ -2,7 +2,38 @@
 
 #include "gyre/core/error.hpp"
 
+#if defined(__x86_64__) || defined(__i386__)
+#include <immintrin.h>
+#endif
+
 namespace gyre::train {
+
+namespace {
+
+inline void cpu_relax() noexcept {
+#if defined(__x86_64__) || defined(__i386__)
+  _mm_pause();
+#elif defined(__aarch64__)
+  asm volatile("yield");
+#endif
+}
+
+// Waits until `value` differs from `old`: spins first, then sleeps in atomic::wait.
+template <class T>
+T wait_change(const std::atomic<T>& value, T old) noexcept {
+  for (int i = 0; i < WorkerPool::kSpinRounds; ++i) {
+    const T now = value.load(std::memory_order_acquire);
+    if (now != old) return now;
+    cpu_relax();
+  }
+  for (;;) {
+    value.wait(old, std::memory_order_acquire);
+    const T now = value.load(std::memory_order_acquire);
+    if (now != old) return now;
+  }
+}
+
+}  // namespace
 
 WorkerPool::WorkerPool(int workers) : workers_(workers), errors_(static_cast<std::size_t>(workers)) {
   GYRE_CHECK(workers >= 1, "WorkerPool needs at least one worker");
@@ -10,54 +41,42 @@ WorkerPool::WorkerPool(int workers) : workers_(workers), errors_(static_cast<std
 }
 
 WorkerPool::~WorkerPool() {
-  {
-    std::lock_guard<std::mutex> lock(mutex_);
-    stop_ = true;
-  }
-  start_cv_.notify_all();
+  stop_.store(true, std::memory_order_release);
+  generation_.fetch_add(1, std::memory_order_acq_rel);
+  generation_.notify_all();
   for (auto& t : threads_) t.join();
 }
 
 void WorkerPool::loop(int worker) {
-  std::uint64_t seen = 0;
+  std::uint32_t seen = 0;
   for (;;) {
-    const std::function<void(int)>* job = nullptr;
-    {
-      std::unique_lock<std::mutex> lock(mutex_);
-      start_cv_.wait(lock, [&] { return stop_ || generation_ != seen; });
-      if (stop_) return;
-      seen = generation_;
-      job = job_;
-    }
+    seen = wait_change(generation_, seen);
+    if (stop_.load(std::memory_order_acquire)) return;
     try {
-      (*job)(worker);
+      (*job_)(worker);
     } catch (...) {
       errors_[static_cast<std::size_t>(worker)] = std::current_exception();
     }
-    {
-      std::lock_guard<std::mutex> lock(mutex_);
-      if (--pending_ == 0) done_cv_.notify_one();
-    }
+    if (pending_.fetch_sub(1, std::memory_order_acq_rel) == 1) pending_.notify_one();
   }
 }
 
 void WorkerPool::run(const std::function<void(int)>& job) {
   for (auto& e : errors_) e = nullptr;
-  {
-    std::lock_guard<std::mutex> lock(mutex_);
+  if (workers_ > 1) {
     job_ = &job;
-    pending_ = workers_ - 1;
-    ++generation_;
+    pending_.store(static_cast<std::uint32_t>(workers_ - 1), std::memory_order_relaxed);
+    generation_.fetch_add(1, std::memory_order_release);  // publishes job_ and pending_
+    generation_.notify_all();
   }
-  start_cv_.notify_all();
   try {
     job(0);
   } catch (...) {
     errors_[0] = std::current_exception();
   }
-  {
-    std::unique_lock<std::mutex> lock(mutex_);
-    done_cv_.wait(lock, [&] { return pending_ == 0; });
+  if (workers_ > 1) {
+    std::uint32_t left = pending_.load(std::memory_order_acquire);
+    while (left != 0) left = wait_change(pending_, left);
     job_ = nullptr;
   }
   for (auto& e : errors_)

@@ -10,6 +10,8 @@
 #include <fstream>
 #include <string>
 
+#include <nlohmann/json.hpp>
+
 #include "gyre/core/file.hpp"
 #include "gyre/core/rng.hpp"
 
@@ -65,11 +67,73 @@ TEST_CASE("gyre compare and gyre report from the command line", "[compare][cli]"
   REQUIRE(fs::exists(dir / "out" / "report.html"));
   REQUIRE(fs::exists(dir / "out" / "gru-h4-s2" / "metrics.json"));
 
+  // Regression (issue 14): a rerun into the same --out with other settings used to reuse the old
+  // runs because reuse looked only at cell, size and seed. Now every run is retrained and a line
+  // names what differs; the run directories then hold the new settings.
+  REQUIRE(run("compare " + data +
+                  " --cells lstm,gru --hidden-sizes 4 --seeds 2 --epochs 2 --layers 2 --embedding-size 4 "
+                  "--out '" +
+                  (dir / "out").string() + "' --quiet",
+              log) == 0);
+  {
+    const std::string again = gyre::read_file(log);
+    INFO(again);
+    for (const char* name : {"lstm-h4-s1", "lstm-h4-s2", "gru-h4-s1", "gru-h4-s2"}) {
+      INFO(name);
+      REQUIRE(again.find(std::string("retraining ") + name + ": --epochs 1 -> 2, --layers 1 -> 2") !=
+              std::string::npos);
+      const auto cfg = nlohmann::json::parse(gyre::read_file(dir / "out" / name / "config.json"));
+      REQUIRE(cfg["epochs"] == 2);
+      REQUIRE(cfg["layers"] == 2);
+    }
+    const auto cmp = nlohmann::json::parse(gyre::read_file(dir / "out" / "compare.json"));
+    for (const auto& r : cmp["runs"]) REQUIRE(r["reused"] == false);
+    REQUIRE(!fs::exists(dir / "out" / ".lstm-h4-s1.training"));
+  }
+  // The same command again reuses all four runs and retrains nothing.
+  REQUIRE(run("compare " + data +
+                  " --cells lstm,gru --hidden-sizes 4 --seeds 2 --epochs 2 --layers 2 --embedding-size 4 "
+                  "--out '" +
+                  (dir / "out").string() + "' --quiet",
+              log) == 0);
+  {
+    const std::string same = gyre::read_file(log);
+    INFO(same);
+    REQUIRE(same.find("retraining") == std::string::npos);
+    const auto cmp = nlohmann::json::parse(gyre::read_file(dir / "out" / "compare.json"));
+    for (const auto& r : cmp["runs"]) REQUIRE(r["reused"] == true);
+  }
+
   REQUIRE(run("report '" + (dir / "out" / "lstm-h4-s1").string() + "'", log) == 0);
   REQUIRE(fs::exists(dir / "out" / "lstm-h4-s1" / "report.html"));
   REQUIRE(run("report '" + (dir / "out").string() + "' --out '" + (dir / "cmp.html").string() + "'", log) ==
           0);
   REQUIRE(fs::exists(dir / "cmp.html"));
+
+  // Progress into a log (not a terminal): the grid line before each run (run k of n, elapsed,
+  // ETA), the run's own plain epoch lines, and one line per finished run.
+  REQUIRE(run("compare " + data +
+                  " --cells lstm,gru --hidden-sizes 4 --seeds 1 --epochs 2 --embedding-size 4 --out '" +
+                  (dir / "progress").string() + "'",
+              log) == 0);
+  {
+    const std::string text2 = gyre::read_file(log);
+    INFO(text2);
+    REQUIRE(text2.find("gyre compare: run 1 of 2: lstm-h4-s1 (elapsed ") != std::string::npos);
+    REQUIRE(text2.find("ETA unknown until one run has trained") != std::string::npos);
+    REQUIRE(text2.find("gyre compare: run 2 of 2: gru-h4-s1 (elapsed ") != std::string::npos);
+    REQUIRE(text2.find(", ETA ") != std::string::npos);
+    REQUIRE(text2.find("epoch 2/2") != std::string::npos);
+    REQUIRE(text2.find("[2/2] gru-h4-s1") != std::string::npos);
+    REQUIRE(text2.find('\r') == std::string::npos);  // no in-place redraws in a log
+    // One seed: the verdict says so and the table shows no spread.
+    REQUIRE(text2.find("one seed per configuration") != std::string::npos);
+    REQUIRE(text2.find("dev scores") != std::string::npos);
+    // Costs beside accuracy.
+    REQUIRE(text2.find("ms/text") != std::string::npos);
+    REQUIRE(text2.find("front") != std::string::npos);
+    REQUIRE(fs::exists(dir / "progress" / "lstm-h4-s1" / "model-int8.gyre"));
+  }
 
   // Bad usage and bad settings exit with 2.
   REQUIRE(run("compare " + data + " --cells lstm,elman --out '" + (dir / "bad").string() + "'", log) == 2);

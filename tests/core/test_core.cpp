@@ -1,6 +1,10 @@
 #include <catch2/catch.hpp>
 
+#include <sys/wait.h>
+#include <unistd.h>
+
 #include <filesystem>
+#include <fstream>
 #include <set>
 #include <vector>
 
@@ -92,4 +96,53 @@ TEST_CASE("ParseError names file and line", "[core]") {
   REQUIRE(e.line() == 17);
   const auto check_fails = [] { GYRE_CHECK(1 + 1 == 3, "arithmetic is broken"); };
   REQUIRE_THROWS_WITH(check_fails(), Contains("arithmetic is broken"));
+}
+
+TEST_CASE("FormatError names the path once", "[core]") {
+  // Issue 10 item 10: messages read 'm/x.gyre: m/x.gyre: ...'.
+  REQUIRE(std::string(gyre::FormatError("m/x.gyre", "file is truncated").what()) ==
+          "m/x.gyre: file is truncated");
+  // A message passed on from a reader that already named the file keeps one copy of the path.
+  REQUIRE(std::string(gyre::FormatError("m/x.gyre", "m/x.gyre: file is truncated").what()) ==
+          "m/x.gyre: file is truncated");
+  // Only an exact "path: " prefix counts: another file named in the message stays.
+  REQUIRE(std::string(gyre::FormatError("m/x.gyre", "m/x.gyre.bak: other").what()) ==
+          "m/x.gyre: m/x.gyre.bak: other");
+}
+
+TEST_CASE("stale temporaries of a process that no longer runs are removed, others kept", "[core]") {
+  namespace fs = std::filesystem;
+  const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "core_stale";
+  fs::remove_all(dir);
+  fs::create_directories(dir);
+  const pid_t child = ::fork();  // a pid that is certainly gone once reaped
+  if (child == 0) ::_exit(0);
+  int status = 0;
+  REQUIRE(::waitpid(child, &status, 0) == child);
+  const std::string dead = std::to_string(child);
+  const auto make = [&](const std::string& name) {
+    std::ofstream(dir / name) << "partial";
+    return dir / name;
+  };
+  const fs::path stale_a = make("checkpoint-last.bin.tmp." + dead);
+  const fs::path stale_b = make("log.jsonl.tmp." + dead);
+  const fs::path running = make("config.json.tmp.1");  // pid 1 always runs
+  const fs::path ours = make("vocab.json.tmp." + std::to_string(::getpid()));
+  const fs::path not_temp = make("notes.tmp.12ab");
+  const fs::path plain = make("data.tsv");
+
+  // Only the target's own temporaries...
+  auto removed = gyre::remove_stale_temp_files_of(dir / "checkpoint-last.bin");
+  REQUIRE(removed == std::vector<fs::path>{stale_a});
+  REQUIRE(fs::exists(stale_b));
+  // ... and, writing a file, its own stale temporaries go first.
+  gyre::write_file_atomic(dir / "log.jsonl", "ok\n");
+  REQUIRE_FALSE(fs::exists(stale_b));
+  make("metrics.json.tmp." + dead);
+  removed = gyre::remove_stale_temp_files(dir);
+  REQUIRE(removed == std::vector<fs::path>{dir / ("metrics.json.tmp." + dead)});
+  for (const fs::path& kept : {running, ours, not_temp, plain}) {
+    INFO(kept.string());
+    REQUIRE(fs::exists(kept));
+  }
 }

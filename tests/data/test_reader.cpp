@@ -126,7 +126,10 @@ TEST_CASE("format detection", "[reader]") {
   CHECK_THROWS_AS(detect_format(write_corpus("d6", "\n \n")), gyre::ParseError);
   CHECK_THROWS_AS(detect_format(std::filesystem::path(GYRE_TEST_TMP_DIR) / "no-such-file"), gyre::IoError);
   CHECK(corpus_format_from_string("tagged-jsonl") == CorpusFormat::kTaggedJsonl);
-  CHECK_THROWS_AS(corpus_format_from_string("csv"), gyre::ConfigError);
+  CHECK(corpus_format_from_string("csv") == CorpusFormat::kCsv);
+  CHECK_THROWS_AS(corpus_format_from_string("xml"), gyre::ConfigError);
+  // A first line with a comma and no TAB is a CSV header row.
+  CHECK(detect_format(write_corpus("d7", "text,label\n\"a, b\",x\n")) == CorpusFormat::kCsv);
 }
 
 TEST_CASE("bad records name file and line", "[reader]") {
@@ -159,6 +162,30 @@ TEST_CASE("bad records name file and line", "[reader]") {
   require_parse_error("e19.conll", "a\tO\n \tO\n", CorpusFormat::kColumns, 2, "empty token");
   require_parse_error("e20.conll", "a\t\n", CorpusFormat::kColumns, 1, "empty tag");
   require_parse_error("e21.conll", "a\tO\n\xC0\x80\tO\n", CorpusFormat::kColumns, 2, "invalid UTF-8");
+  // Tags must be O or B-/I-/E-/S- plus a type (issue 10 item 9: 'X-foo' exited 1 with no line).
+  require_parse_error("e22.conll", "a\tO\nb\tB-date\n\nc\tO\nd\tX-foo\n", CorpusFormat::kColumns, 5,
+                      "malformed tag 'X-foo'");
+  require_parse_error("e23.conll", "a\tB-\n", CorpusFormat::kColumns, 1, "malformed tag 'B-'");
+  require_parse_error("e24.jsonl",
+                      "{\"tokens\": [\"a\"], \"tags\": [\"O\"]}\n"
+                      "{\"tokens\": [\"a\", \"b\"], \"tags\": [\"O\", \"date\"]}\n",
+                      CorpusFormat::kTaggedJsonl, 2, "\"tags\"[1]: malformed tag 'date'");
+}
+
+TEST_CASE("a tagging file with one 3-column line stays a tagging file and names the line", "[reader]") {
+  // Issue 10 item 4: one line with a third column used to make detection call the whole file a
+  // classification TSV (its tags became 232 labels).
+  std::string content;
+  for (int s = 0; s < 30; ++s) content += "fix\tO\nthe\tO\nkettle\tB-appliance\n\n";
+  content += "on\tO\nfriday\tB-date\textra\n\n";
+  for (int s = 0; s < 30; ++s) content += "at\tO\nnine\tB-time\n\n";
+  const auto path = write_corpus("three-columns.conll", content);
+  CHECK(detect_format(path) == CorpusFormat::kColumns);
+  require_parse_error("three-columns-auto.conll", content, CorpusFormat::kAuto, 122, "exactly one TAB");
+  // A classification TSV with blank lines between records stays TSV.
+  CHECK(detect_format(write_corpus("blank-separated.tsv",
+                                   "book\tfix my kettle\n\ncancel\tno\n\npraise\tgreat work\n")) ==
+        CorpusFormat::kTsv);
 }
 
 TEST_CASE("skip_bad_lines counts skipped records and keeps the first 10 line numbers", "[reader]") {

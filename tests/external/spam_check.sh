@@ -35,7 +35,7 @@ for cell in gru lstm; do
   "$gyre" train --train "$work/data/train.tsv" --dev "$work/data/dev.tsv" --cell "$cell" --max-tokens 256 \
     --epochs 5 --threads 2 --out "$run" --quiet > "$work/train-$cell.txt"
   end=$(date +%s.%N)
-  "$gyre" eval "$run" --data "$work/data/test.tsv" --json "$work/eval-$cell.json" > /dev/null
+  "$gyre" eval "$run" --test "$work/data/test.tsv" --json "$work/eval-$cell.json" > /dev/null
   acc=$(sed -n 's/^  "accuracy": \([0-9.eE+-]*\),*$/\1/p' "$work/eval-$cell.json" | head -1)
   tps=$(sed -n 's/^tokens\/s *//p' "$work/train-$cell.txt")
   echo "$cell: test accuracy $acc, train time $(awk -v a="$start" -v b="$end" 'BEGIN { printf "%.1f", b - a }') s, $tps tokens/s"

@@ -78,12 +78,12 @@ TEST_CASE("classifier composed from nn pieces: end-to-end gradients match centra
   const std::vector<int> labels = {2, 0, 1};
   for (const CellType cell : {CellType::kLstm, CellType::kGru}) {
     for (const PoolingKind pool : {PoolingKind::kLast, PoolingKind::kMean, PoolingKind::kMax}) {
-      DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm " : "gru ") << pooling_name(pool)) {
+      DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm " : "gru ") << gyre::runtime::to_string(pool)) {
         Classifier model(cell, pool, V, E, H, C);
         Rng init_rng(31);
         model.init(init_rng);
         for (auto& p : model.store) p.value += random_matrix(p.value.rows(), p.value.cols(), init_rng, 0.2f);
-        model.store.at("embedding.weight").value.row(0).setZero();
+        model.store.at("tokens.vectors").value.row(0).setZero();
         // Re-seeding before each forward keeps the dropout masks fixed (training mode).
         auto loss = [&] {
           Rng rng(5);
@@ -93,8 +93,8 @@ TEST_CASE("classifier composed from nn pieces: end-to-end gradients match centra
         const double l = loss();
         CHECK(std::isfinite(l));
         model.backward();
-        model.store.at("embedding.weight").finalize_touched_rows();
-        CHECK(model.store.at("embedding.weight").touched_rows ==
+        model.store.at("tokens.vectors").finalize_touched_rows();
+        CHECK(model.store.at("tokens.vectors").touched_rows ==
               std::vector<std::int32_t>{1, 2, 3, 4, 5, 6, 7, 8});
         test::GradCheckOptions opt;
         opt.max_entries = 30;

@@ -23,7 +23,7 @@ TEST_CASE("embedding gathers rows, zero for padding, sparse accumulated gradient
   Embedding emb(store, 6, 3);
   Rng rng(1);
   emb.init_parameters(rng);
-  Parameter& w = store.at("embedding.weight");
+  Parameter& w = store.at("tokens.vectors");
   CHECK(w.sparse_rows);
   CHECK(w.value.row(0).isZero(0.0f));
   w.value.row(0).setConstant(9.0f);  // even a non-zero padding row must give a zero vector
@@ -77,7 +77,7 @@ TEST_CASE("pretrained vectors load by vocabulary lookup, bad files name file and
   const PretrainedStats st = emb.load_pretrained(good, lookup);
   CHECK(st.lines == 4);
   CHECK(st.matched == 2);
-  const Parameter& w = store.at("embedding.weight");
+  const Parameter& w = store.at("tokens.vectors");
   CHECK(w.value(2, 0) == 0.5f);
   CHECK(w.value(2, 1) == -1.0f);
   CHECK(w.value(2, 2) == 0.2f);
@@ -138,7 +138,7 @@ TEST_CASE("initialisers: Glorot bounds, orthogonality, determinism, LSTM forget 
     la.init_parameters(ra);
     lb.init_parameters(rb);
     for (std::size_t i = 0; i < a.size(); ++i) CHECK(a[i].value == b[i].value);
-    const Matrix& bias = a.at("x.bias").value;
+    const Matrix& bias = a.at("x.b_input").value;
     CHECK(bias.middleCols(0, 4).isZero(0.0f));
     CHECK(bias.middleCols(4, 4).isOnes(0.0f));
     CHECK(bias.middleCols(8, 8).isZero(0.0f));
@@ -147,7 +147,7 @@ TEST_CASE("initialisers: Glorot bounds, orthogonality, determinism, LSTM forget 
     ParameterStore s;
     Embedding emb(s, 2001, 50);
     emb.init_parameters(rng);
-    const Matrix& w = s.at("embedding.weight").value;
+    const Matrix& w = s.at("tokens.vectors").value;
     CHECK(w.row(0).isZero(0.0f));
     const double var = w.bottomRows(2000).cast<double>().array().square().mean();
     CHECK(var == Approx(0.01).epsilon(0.03));  // 100000 draws: relative sd of the estimate ~0.45%

@@ -25,7 +25,7 @@ TEST_CASE("Linear gradients match central differences", "[nn][gradcheck]") {
   Linear lin(store, 5, 3);
   Rng rng(4);
   lin.init_parameters(rng);
-  store.at("head.bias").value = random_matrix(1, 3, rng);
+  store.at("readout.b").value = random_matrix(1, 3, rng);
   Matrix x = random_matrix(6, 5, rng);
   const Matrix g = random_matrix(6, 3, rng);
   Matrix y, dx;
@@ -36,7 +36,7 @@ TEST_CASE("Linear gradients match central differences", "[nn][gradcheck]") {
   loss();
   // y = x W^T + b by definition
   CHECK(all_close(
-      y, (x * store.at("head.weight").value.transpose()).rowwise() + store.at("head.bias").value.row(0), 1e-6,
+      y, (x * store.at("readout.w").value.transpose()).rowwise() + store.at("readout.b").value.row(0), 1e-6,
       1e-6));
   lin.backward(g, &dx);
   for (auto& p : store) check_gradient(p.name, p.value, p.grad, loss);
@@ -49,7 +49,7 @@ TEST_CASE("pooling over valid steps: values and gradients", "[nn][gradcheck]") {
   const auto B = static_cast<Eigen::Index>(lengths.size());
   for (const PoolingKind kind : {PoolingKind::kLast, PoolingKind::kMean, PoolingKind::kMax}) {
     for (const int dirs : {1, 2}) {
-      DYNAMIC_SECTION(pooling_name(kind) << " directions " << dirs) {
+      DYNAMIC_SECTION(gyre::runtime::to_string(kind) << " directions " << dirs) {
         Rng rng(8);
         Matrix seq = random_matrix(T * B, H * dirs, rng);
         const Matrix g = random_matrix(B, H * dirs, rng);
@@ -85,8 +85,8 @@ TEST_CASE("pooling over valid steps: values and gradients", "[nn][gradcheck]") {
       }
     }
   }
-  CHECK_THROWS_AS(parse_pooling("median"), ConfigError);
-  CHECK(parse_pooling("max") == PoolingKind::kMax);
+  CHECK_THROWS_AS(gyre::runtime::pooling_from_string("median"), gyre::runtime::Error);
+  CHECK(gyre::runtime::pooling_from_string("max") == PoolingKind::kMax);
 }
 
 TEST_CASE("softmax cross-entropy: definition values and gradients", "[nn][gradcheck]") {

@@ -113,6 +113,46 @@ TEST_CASE("LSTM/GRU stacks match torch 1.13 on packed sequences", "[nn][parity]"
   }
 }
 
+// Hidden 32, input 20, 14 sequences of ragged lengths, one bidirectional layer: the shapes that
+// take the AVX-512 kernels (fused cell steps, register tiles plus row tails) where the CPU has
+// them. ctest runs this file again with GYRE_NN_KERNELS=portable (tests/nn/extra.cmake).
+TEST_CASE("wide LSTM/GRU layers match torch 1.13 on packed sequences", "[nn][parity]") {
+  for (const char* cell : {"lstm", "gru"}) {
+    DYNAMIC_SECTION(cell) {
+      const json fx = load_fixture(std::string(cell) + "_wide.json");
+      RnnStackConfig cfg;
+      cfg.cell = fx.at("cell") == "lstm" ? CellType::kLstm : CellType::kGru;
+      cfg.input_size = fx.at("input_size");
+      cfg.hidden_size = fx.at("hidden_size");
+      cfg.layers = fx.at("layers");
+      cfg.bidirectional = fx.at("bidirectional");
+      REQUIRE(cfg.hidden_size % 16 == 0);
+      ParameterStore store;
+      RnnStack stack(cfg, store);
+      REQUIRE(fx.at("params").size() == store.size());
+      for (auto& p : store)
+        p.value = to_matrix(fx.at("params").at(p.name).at("value"), p.value.rows(), p.value.cols());
+      const int T = fx.at("T"), B = fx.at("B");
+      const std::vector<int> lengths = fx.at("lengths").get<std::vector<int>>();
+      const Matrix x = to_matrix(fx.at("x"), T * B, cfg.input_size);
+      const Matrix g = to_matrix(fx.at("g"), T * B, stack.output_size());
+      Matrix out, dx;
+      RnnState final;
+      store.zero_grad();
+      stack.forward(x, T, lengths, out, false, nullptr, nullptr, &final);
+      stack.backward(g, dx);
+      check_close("out", out, fx.at("out"));
+      Matrix h_n(static_cast<Eigen::Index>(final.h.size()) * B, cfg.hidden_size);
+      for (std::size_t k = 0; k < final.h.size(); ++k)
+        h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k];
+      check_close("h_n", h_n, fx.at("h_n"));
+      check_close("d_x", dx, fx.at("d_x"));
+      for (const auto& p : store)
+        check_close(p.name + ".grad", p.grad, fx.at("params").at(p.name).at("grad"));
+    }
+  }
+}
+
 TEST_CASE("losses match torch 1.13 cross_entropy and binary_cross_entropy_with_logits", "[nn][parity]") {
   const json fx = load_fixture("loss.json");
   const int N = fx.at("N"), C = fx.at("C");

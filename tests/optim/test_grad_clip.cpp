@@ -55,7 +55,7 @@ TEST_CASE("global gradient norm and clipping", "[optim][clip]") {
 
 TEST_CASE("clipping reads and scales only touched rows of sparse parameters", "[optim][clip]") {
   ParameterStore s;
-  auto& emb = s.add("embedding.weight", 3, 2, true);
+  auto& emb = s.add("tokens.vectors", 3, 2, true);
   emb.grad << 1.0F, 2.0F,  //
       50.0F, 50.0F,        // row 1 is not listed: by contract zero, here poisoned to prove it is not read
       2.0F, 4.0F;

@@ -5,6 +5,7 @@
 #include <catch2/catch.hpp>
 
 #include <cmath>
+#include <cstring>
 #include <string>
 
 #include "gyre/core/error.hpp"
@@ -250,8 +251,8 @@ TEST_CASE("sparse-row update equals the dense update when every row is touched",
     gyre::Rng rng(seed);
     ParameterStore dense_store;
     ParameterStore sparse_store;
-    Parameter& dense = dense_store.add("embedding.weight", 5, 3);
-    Parameter& sparse = sparse_store.add("embedding.weight", 5, 3, true);
+    Parameter& dense = dense_store.add("tokens.vectors", 5, 3);
+    Parameter& sparse = sparse_store.add("tokens.vectors", 5, 3, true);
     random_fill(dense.value, rng);
     sparse.value = dense.value;
     auto dense_opt = gyre::optim::make_optimizer(cc.optimizer, cc.config);
@@ -272,7 +273,7 @@ TEST_CASE("sparse-row update equals the dense update when every row is touched",
 
 TEST_CASE("sparse-row Adam is lazy: untouched rows keep value and moments", "[optim][sparse]") {
   ParameterStore store;
-  Parameter& emb = store.add("embedding.weight", 3, 2, true);
+  Parameter& emb = store.add("tokens.vectors", 3, 2, true);
   emb.value.setConstant(1.0F);
   auto opt = gyre::optim::make_optimizer("adam", OptimizerConfig{});
   // Step 1 touches row 0 only.
@@ -309,9 +310,9 @@ TEST_CASE("saved and restored optimizer state continues bit-identically", "[opti
     INFO("optimizer " << cc.optimizer << ", momentum " << cc.config.momentum << ", seed " << seed);
     gyre::Rng rng(seed);
     const auto make_store = [](ParameterStore& s) {
-      s.add("embedding.weight", 4, 3, true);
+      s.add("tokens.vectors", 4, 3, true);
       s.add("rnn.l0.fwd.w_input", 6, 3);
-      s.add("head.bias", 1, 2);
+      s.add("readout.b", 1, 2);
     };
     ParameterStore a;
     make_store(a);
@@ -394,8 +395,58 @@ TEST_CASE("optimizer factory and misuse", "[optim][errors]") {
   CHECK_THROWS_WITH(opt->step(store, 0.1F), Catch::Contains("lost trainable") || Catch::Contains("extra"));
   // A sparse row outside the tensor is refused.
   ParameterStore emb_store;
-  Parameter& emb = emb_store.add("embedding.weight", 2, 2, true);
+  Parameter& emb = emb_store.add("tokens.vectors", 2, 2, true);
   emb.touched_rows = {5};
   auto sgd = gyre::optim::make_optimizer("sgd", c);
   CHECK_THROWS_WITH(sgd->step(emb_store, 0.1F), Catch::Contains("touched row 5"));
+}
+
+TEST_CASE("an update split into parts equals step() bit for bit", "[optim][parts]") {
+  // The trainer runs update_part() from several threads; the split must not change any value
+  // (the updates are element-wise). Sizes not multiples of 16 check the part boundaries.
+  for (const ConfigCase& cc : all_configs()) {
+    for (const int parts : {2, 3}) {
+      INFO("optimizer " << cc.optimizer << ", momentum " << cc.config.momentum << ", parts " << parts);
+      gyre::Rng rng(77);
+      ParameterStore whole, split;
+      for (ParameterStore* s : {&whole, &split}) {
+        s->add("tokens.vectors", 7, 5, true);
+        s->add("w", 37, 11);
+        s->add("b", 1, 3);
+      }
+      for (std::size_t i = 0; i < whole.size(); ++i) {
+        random_fill(whole[i].value, rng);
+        split[i].value = whole[i].value;
+      }
+      auto opt_whole = gyre::optim::make_optimizer(cc.optimizer, cc.config);
+      auto opt_split = gyre::optim::make_optimizer(cc.optimizer, cc.config);
+      for (int step = 0; step < 3; ++step) {
+        for (std::size_t i = 0; i < whole.size(); ++i) {
+          random_fill(whole[i].grad, rng);
+          split[i].grad = whole[i].grad;
+        }
+        whole[0].touched_rows = {6, 1, 3};
+        split[0].touched_rows = whole[0].touched_rows;
+        opt_whole->step(whole, 0.01F);
+        opt_split->prepare_step(split, 0.01F);
+        for (int part = parts - 1; part >= 0; --part) opt_split->update_part(split, part, parts);
+        for (std::size_t i = 0; i < whole.size(); ++i)
+          REQUIRE(std::memcmp(whole[i].value.data(), split[i].value.data(),
+                              static_cast<std::size_t>(whole[i].value.size()) * sizeof(float)) == 0);
+      }
+      REQUIRE(opt_whole->step_count() == opt_split->step_count());
+    }
+  }
+  // The ranges tile [0, size) in order, on multiples of 16.
+  for (const Eigen::Index size : {Eigen::Index{0}, Eigen::Index{5}, Eigen::Index{16}, Eigen::Index{1000}}) {
+    Eigen::Index next = 0;
+    for (int part = 0; part < 3; ++part) {
+      const auto [begin, end] = gyre::optim::Optimizer::part_range(size, part, 3);
+      REQUIRE(begin == next);
+      REQUIRE(end >= begin);
+      REQUIRE((begin % 16 == 0 || begin == size));
+      next = end;
+    }
+    REQUIRE(next == size);
+  }
 }

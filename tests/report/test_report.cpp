@@ -56,8 +56,9 @@ fs::path write_run(const std::string& name) {
   gyre::write_file_atomic(dir / "log.jsonl", log);
   gyre::write_file_atomic(dir / "metrics.json",
                           R"({"outcome": "finished", "epochs": 4, "best_epoch": 3, "metric": "accuracy",
-                              "best_metric": 0.8, "dev": {"loss": 0.9, "accuracy": 0.8, "macro_f1": 0.6},
-                              "parameters": 1234, "seconds": 6.0})");
+                              "best_metric": 0.8, "dev": {"loss": 0.9, "log_loss": 0.91234567, "accuracy": 0.8,
+                              "macro_f1": 0.6}, "parameters": 1234, "seconds": 6.04321,
+                              "tokens_per_second": 9123.456})");
   gyre::write_file_atomic(dir / "best-dev-metrics.json", R"({"task": "classification", "accuracy": 0.8,
     "classes": [{"name": "a<b>&c", "precision": 1.0, "recall": 0.5, "f1": 0.6667, "support": 2, "predicted": 1},
                 {"name": "plain", "precision": 0.75, "recall": 1.0, "f1": 0.8571, "support": 3, "predicted": 4}],
@@ -120,6 +121,17 @@ TEST_CASE("run report: settings, curves with one point per epoch, escaped labels
   REQUIRE(count(cm, "class=\"zero\">0<") == 1);
   REQUIRE(count(cm, "rgba(31,95,153,0.505)\">1<") == 2);
   REQUIRE(cm.find("rgba(31,95,153,0.930);color:#fff\">3<") != std::string::npos);
+  // The result table speaks in human labels with rounded numbers (issue 15): no raw keys, one
+  // dev loss (the clipped log_loss metric is left out beside the objective's loss).
+  const std::string result = between(html, "<h2>Result</h2>", "</table>");
+  CHECK(result.find("best_epoch") == std::string::npos);
+  CHECK(result.find("tokens_per_second") == std::string::npos);
+  CHECK(result.find(">best epoch</td><td>3<") != std::string::npos);
+  CHECK(result.find(">training time (s)</td><td>6.0<") != std::string::npos);
+  CHECK(result.find(">tokens per second</td><td>9123<") != std::string::npos);
+  CHECK(result.find(">dev accuracy (best epoch)</td><td>0.8000<") != std::string::npos);
+  CHECK(result.find(">dev macro F1 (best epoch)</td><td>0.6000<") != std::string::npos);
+  CHECK(count(result, "loss") == 1);
   // Self-contained: no links to anything, no scripts.
   REQUIRE(html.find("http") == std::string::npos);
   REQUIRE(html.find("<script") == std::string::npos);
@@ -131,27 +143,64 @@ TEST_CASE("run report: settings, curves with one point per epoch, escaped labels
   }
 }
 
-TEST_CASE("compare report: table, best marked, error-bar chart, significance", "[report]") {
+TEST_CASE("compare report: verdict first, costs, curves with bands, bars from zero, hue per cell, front",
+          "[report]") {
   const fs::path dir = fresh_dir("compare");
   gyre::write_file_atomic(dir / "compare.json",
-                          R"({"format": "gyre-compare", "version": 1, "metric": "accuracy",
+                          R"({"format": "gyre-compare", "version": 2, "metric": "accuracy",
     "train": "t.tsv", "dev": "d.tsv", "test": null, "seeds": 2, "best": "gru-h8",
     "configs": [
-      {"name": "lstm-h8", "parameters": 100, "model_bytes": 400, "dev": {"mean": 0.7, "std": 0.02, "values": [0.68, 0.72]},
+      {"name": "lstm-h8", "cell": "lstm", "parameters": 100, "model_bytes": 400, "int8_bytes": 2048,
+       "latency_ms": 0.05, "pareto": false,
+       "dev": {"mean": 0.7, "std": 0.02, "values": [0.68, 0.72]},
        "test": null, "train_seconds": {"mean": 1.0}, "tokens_per_second": {"mean": 5000}},
-      {"name": "gru-h8", "parameters": 80, "model_bytes": 320, "dev": {"mean": 0.75, "std": 0.0, "values": [0.75, 0.75]},
+      {"name": "gru-h8", "cell": "gru", "parameters": 80, "model_bytes": 320, "int8_bytes": 1024,
+       "latency_ms": 0.04, "pareto": true,
+       "dev": {"mean": 0.75, "std": 0.0, "values": [0.75, 0.75]},
        "test": null, "train_seconds": {"mean": 0.9}, "tokens_per_second": {"mean": 5500}}],
-    "runs": [{"name": "lstm-h8-s1", "seed": 1, "epochs": 2, "dev_metric": 0.68}],
-    "significance": {"a": "gru-h8", "b": "lstm-h8", "set": "dev", "seed": 1, "examples": 40, "accuracy_a": 0.75,
-      "accuracy_b": 0.68, "mcnemar_exact": {"only_a": 6, "only_b": 1, "p_value": 0.125},
-      "paired_bootstrap": {"samples": 1000, "wins_a": 930, "wins_b": 40, "p_value": 0.07}}})");
+    "runs": [{"name": "lstm-h8-s1", "config": "lstm-h8", "seed": 1, "epochs": 2, "dev_metric": 0.68,
+              "dev_curve": [0.6, 0.68]},
+             {"name": "lstm-h8-s2", "config": "lstm-h8", "seed": 2, "epochs": 2, "dev_metric": 0.72,
+              "dev_curve": [0.5, 0.72]},
+             {"name": "gru-h8-s1", "config": "gru-h8", "seed": 1, "epochs": 2, "dev_metric": 0.75,
+              "dev_curve": [0.7, 0.75]},
+             {"name": "gru-h8-s2", "config": "gru-h8", "seed": 2, "epochs": 1, "dev_metric": 0.75,
+              "dev_curve": [0.75]}],
+    "head_to_head": {"a": "lstm-h8", "b": "gru-h8", "label_a": "LSTM h8", "label_b": "GRU h8", "set": "dev",
+      "metric": "accuracy", "points": true, "examples": 40, "scores_a": [0.68, 0.72], "scores_b": [0.75, 0.75],
+      "mean_a": 0.7, "std_a": 0.028, "mean_b": 0.75, "std_b": 0.0, "difference": -0.05,
+      "two_level_bootstrap": {"low": -0.1, "high": 0.01, "samples": 2000},
+      "permutation_test": {"p_value": 0.333}, "detected": false,
+      "per_seed_mcnemar": [{"seed": 1, "only_a": 1, "only_b": 6, "p_value": 0.125}],
+      "verdict": "no difference detectable at this budget: <LSTM> and GRU differ",
+      "notes": ["WARNING: no --test file"]}})");
   const std::string html = gyre::read_file(write_report(dir));
-  REQUIRE(count(html, "<svg") == 1);
+  // The verdict comes before everything but the title; its text is escaped.
+  const auto verdict = html.find("class=\"verdict\"");
+  REQUIRE(verdict != std::string::npos);
+  REQUIRE(verdict < html.find("<h2>"));
+  REQUIRE(html.find("&lt;LSTM&gt; and GRU differ") != std::string::npos);
+  REQUIRE(html.find("class=\"warning\">WARNING: no --test file") != std::string::npos);
+  REQUIRE(count(html, "<svg") == 3);  // bars, curves, accuracy vs latency
   REQUIRE(count(html, "class=\"bar\"") == 2);
   REQUIRE(count(html, "class=\"err\"") == 3);  // gru has std 0: no whisker
   REQUIRE(count(html, "class=\"seed\"") == 4);
+  // One hue per cell type: the LSTM bar blue, the GRU bar orange.
+  REQUIRE(html.find("fill=\"#1f5f99\" fill-opacity=\"0.75\"><title>lstm-h8") != std::string::npos);
+  REQUIRE(html.find("fill=\"#c0562a\" fill-opacity=\"0.75\"><title>gru-h8") != std::string::npos);
+  // Bars start at zero: the lowest y tick of the bar chart is 0.
+  const std::string bars = between(html, "aria-label=\"Dev accuracy (bar", "</svg>");
+  REQUIRE(bars.find("text-anchor=\"end\">0.0</text>") != std::string::npos);
+  // Curves: one line and one seed-range band per config; the lstm band spans 0.5..0.6 at epoch 1.
+  const std::string curves = between(html, "aria-label=\"Dev accuracy per epoch", "</svg>");
+  REQUIRE(count(curves, "<polyline") == 2);
+  REQUIRE(count(curves, "class=\"band\"") == 2);
+  // Costs and the Pareto front.
+  REQUIRE(html.find("<td>2.0</td><td>0.050</td>") != std::string::npos);  // int8 KiB, ms/text of lstm-h8
+  REQUIRE(count(html, "<td class=\"k\">&#9670; front</td>") == 1);
+  REQUIRE(html.find("gru-h8 (front)") != std::string::npos);
   REQUIRE(html.find("<tr class=\"best\"><td class=\"k\">gru-h8") != std::string::npos);
-  REQUIRE(html.find("McNemar exact") != std::string::npos);
+  REQUIRE(html.find("McNemar exact, seed 1") != std::string::npos);
   REQUIRE(html.find("0.1250") != std::string::npos);
   REQUIRE(html.find("http") == std::string::npos);
 }
@@ -170,4 +219,43 @@ TEST_CASE("report refuses directories that are neither a run nor a comparison", 
   } catch (const gyre::ParseError& e) {
     REQUIRE(e.line() == 2);
   }
+}
+
+TEST_CASE("run report: reliability diagram and shaded tokens of dev mistakes (issue 17)", "[report]") {
+  const fs::path dir = write_run("calibrated");
+  gyre::write_file_atomic(dir / "metrics.json", R"({"outcome": "finished", "epochs": 4, "best_epoch": 3,
+    "metric": "accuracy", "best_metric": 0.8, "dev": {"loss": 0.9, "accuracy": 0.8},
+    "calibration": {"temperature": [1.5],
+      "before": {"error": 0.1, "predictions": 4, "bins": [{"count": 2, "confidence": 0.95, "accuracy": 0.5},
+                                                        {"count": 0, "confidence": 0, "accuracy": 0},
+                                                        {"count": 2, "confidence": 0.7, "accuracy": 1.0}]},
+      "after": {"error": 0.05, "predictions": 4, "bins": [{"count": 4, "confidence": 0.8, "accuracy": 0.75}]}},
+    "dev_mistakes": [{"line": 7, "gold": "cancel", "predicted": "praise", "probability": 0.97, "text": "x",
+      "why": {"method": "integrated_gradients", "label": "praise", "completeness": {"gap": 0.0001},
+              "tokens": [{"token": "thanks<3", "score": 0.6}, {"token": "cancel", "score": -0.3}]}}]})");
+  const std::string html = run_report_html(dir);
+  const std::string cal = between(html, "<h2>Calibration</h2>", "<h2>Why");
+  // Three series (diagonal, before, after); empty bins are not drawn: 2 + 2 + 1 points.
+  REQUIRE(count(cal, "<polyline") == 3);
+  REQUIRE(count(cal, "<circle") == 5);
+  REQUIRE(cal.find("T = 1.500") != std::string::npos);
+  const std::string why = between(html, "<h2>Why these dev mistakes</h2>", "<h2>Settings");
+  // The strongest token is fully shaded green, the other half as strongly red; text is escaped.
+  REQUIRE(why.find("rgba(46,125,50,1.00)\" title=\"0.6000\">thanks&lt;3</span>") != std::string::npos);
+  REQUIRE(why.find("rgba(198,40,40,0.50)\" title=\"-0.3000\">cancel</span>") != std::string::npos);
+}
+
+TEST_CASE("labelling trial report: one line per rule (issue 17)", "[report]") {
+  const fs::path dir = fresh_dir("trial");
+  gyre::write_file_atomic(dir / "labelling.json", R"({"train": "t.tsv", "test": "x.tsv", "examples": 100,
+    "start": 10, "step": 5, "rounds": 2, "measure": "margin",
+    "rules": [{"rule": "random", "points": [{"labelled": 10, "accuracy": 0.5}, {"labelled": 15, "accuracy": 0.6},
+                                            {"labelled": 20, "accuracy": 0.65}]},
+              {"rule": "diverse", "points": [{"labelled": 10, "accuracy": 0.5}, {"labelled": 15, "accuracy": 0.7},
+                                             {"labelled": 20, "accuracy": 0.75}]}]})");
+  const fs::path out = write_report(dir);
+  const std::string html = gyre::read_file(out);
+  REQUIRE(count(html, "<polyline") == 2);
+  REQUIRE(html.find("<td class=\"k\">diverse</td><td>0.5000</td><td>0.7000</td><td>0.7500</td>") !=
+          std::string::npos);
 }

@@ -9,12 +9,12 @@
 #include "gyre_runtime.h"
 
 static int failures = 0;
-#define CHECK(cond)                                                   \
-  do {                                                                \
-    if (!(cond)) {                                                    \
+#define CHECK(cond)                                                            \
+  do {                                                                         \
+    if (!(cond)) {                                                             \
       fprintf(stderr, "%s:%d: check failed: %s\n", __FILE__, __LINE__, #cond); \
-      ++failures;                                                     \
-    }                                                                 \
+      ++failures;                                                              \
+    }                                                                          \
   } while (0)
 
 static int run_model(const char* dir, const char* name) {
@@ -29,6 +29,11 @@ static int run_model(const char* dir, const char* name) {
     return -1;
   }
   CHECK(gyre_context_new(model, &ctx) == GYRE_OK);
+  /* These fixtures carry no temperature: calibration on or off gives the same raw outputs. */
+  CHECK(gyre_model_temperature_count(model) == 0);
+  CHECK(gyre_model_temperature(model, 0) == 0.0f);
+  CHECK(gyre_context_set_calibrated(ctx, 1) == GYRE_OK);
+  CHECK(gyre_context_set_calibrated(NULL, 1) == GYRE_ERROR);
   snprintf(path, sizeof path, "%s/torch_expected.tsv", dir);
   f = fopen(path, "r");
   CHECK(f != NULL);
@@ -50,20 +55,46 @@ static int run_model(const char* dir, const char* name) {
         CHECK(fabs(p[i] - want) <= 1e-5); /* ref: python3-torch float64 */
         if (p[i] > p[best]) CHECK(0);
       }
+      {
+        /* Occlusion: one finite score per token of the text, tokens readable. */
+        const float* scores = NULL;
+        size_t count = 0, k;
+        CHECK(gyre_explain(ctx, text, strlen(text), best, &scores, &count) == GYRE_OK);
+        CHECK(count >= 1 && scores != NULL);
+        for (k = 0; k < count; ++k) CHECK(isfinite(scores[k]) && fabs(scores[k]) <= 1.0);
+        CHECK(gyre_token(ctx, 0) != NULL && gyre_token(ctx, count) == NULL);
+        CHECK(gyre_explain(ctx, text, strlen(text), n, &scores, &count) == GYRE_ERROR);
+        CHECK(strstr(gyre_last_error(), "outside") != NULL);
+      }
     } else {
-      size_t label = 0;
+      size_t label = 0, ob = 0, oe = 0;
       CHECK(gyre_tag(ctx, text, strlen(text), &tokens, &spans) == GYRE_OK);
       CHECK(tokens >= 1);
       CHECK(gyre_tag_token(ctx, 0, &label) != NULL);
       CHECK(strncmp(gyre_tag_token(ctx, 0, &label), text, strlen(gyre_tag_token(ctx, 0, &label))) == 0);
       CHECK(label < gyre_model_label_count(model));
       CHECK(gyre_tag_token(ctx, tokens, &label) == NULL);
+      /* This model does not normalize (whitespace mode, nfkc off), so each token's bytes in the
+       * text are the token itself, and a span's bytes run from its first to its last token. */
+      for (i = 0; i < tokens; ++i) {
+        size_t tb = 0, te = 0;
+        const char* token = gyre_tag_token(ctx, i, &label);
+        CHECK(gyre_tag_token_bytes(ctx, i, &tb, &te) == GYRE_OK);
+        CHECK(te - tb == strlen(token) && memcmp(text + tb, token, te - tb) == 0);
+      }
+      CHECK(gyre_tag_token_bytes(ctx, tokens, &ob, &oe) == GYRE_ERROR);
+      CHECK(strstr(gyre_last_error(), "no token") != NULL);
       for (i = 0; i < spans; ++i) {
-        size_t b = 0, e = 0;
+        size_t b = 0, e = 0, sb = 0, se = 0, first_b = 0, first_e = 0, last_b = 0, last_e = 0;
         const char* type = gyre_tag_span(ctx, i, &b, &e);
         CHECK(type != NULL && b < e && e <= tokens);
         CHECK(strcmp(type, "date") == 0 || strcmp(type, "part") == 0);
+        CHECK(gyre_tag_span_bytes(ctx, i, &sb, &se) == GYRE_OK);
+        CHECK(gyre_tag_token_bytes(ctx, b, &first_b, &first_e) == GYRE_OK);
+        CHECK(gyre_tag_token_bytes(ctx, e - 1, &last_b, &last_e) == GYRE_OK);
+        CHECK(sb == first_b && se == last_e);
       }
+      CHECK(gyre_tag_span_bytes(ctx, spans, &ob, &oe) == GYRE_ERROR);
       CHECK(gyre_classify(ctx, text, strlen(text), &p, &n, &best) == GYRE_ERROR);
       CHECK(strstr(gyre_last_error(), "tagger") != NULL);
     }
@@ -79,6 +110,8 @@ int main(int argc, char** argv) {
   gyre_model* model = NULL;
   gyre_context* ctx = NULL;
   const float* d = NULL;
+  const float* p = NULL;
+  size_t n = 0, best = 0;
   static unsigned char junk[256];
   if (argc != 2) {
     fprintf(stderr, "usage: %s FIXTURES_DIR\n", argv[0]);
@@ -98,8 +131,19 @@ int main(int argc, char** argv) {
     CHECK(gyre_stream_push(ctx, "t2", 2, &d) == GYRE_OK);
     /* ref: torch_expected.tsv, "torch_lstm_uni_last<TAB>t2": 0.315395538 0.432718295 0.251886167 */
     CHECK(fabs(d[0] - 0.315395538) <= 1e-5 && fabs(d[1] - 0.432718295) <= 1e-5);
+    /* A token is UTF-8 as text is: the same refusal as gyre_classify, bytes counted from 1. */
+    CHECK(gyre_stream_push(ctx, "t\xC3", 2, &d) == GYRE_ERROR);
+    CHECK(strstr(gyre_last_error(), "invalid UTF-8 at byte 2") != NULL);
+    CHECK(gyre_classify(ctx, "t\xC3", 2, &p, &n, &best) == GYRE_ERROR);
+    CHECK(strstr(gyre_last_error(), "invalid UTF-8 at byte 2") != NULL);
     gyre_context_free(ctx);
   }
+
+  /* Every accessor checks a NULL model instead of crashing. */
+  CHECK(gyre_model_task(NULL) == GYRE_TASK_INVALID);
+  CHECK(strstr(gyre_last_error(), "must not be NULL") != NULL);
+  CHECK(gyre_model_label_count(NULL) == 0);
+  CHECK(gyre_model_label(NULL, 0) == NULL);
 
   /* Errors are reported, not crashed on. */
   CHECK(gyre_model_load("/nonexistent/model.gyre", &model) == GYRE_ERROR);

@@ -24,6 +24,7 @@ struct RefModel {
   bool normalize = false;  // nfkc + case_fold (need ICU)
   double threshold = 0.5;
   std::vector<std::string> labels = {"alpha", "beta", "gamma"};
+  std::vector<std::string> words;  // vocabulary from id 2 on (V = words.size() + 2); empty: w2 .. w{V-1}
   std::map<std::string, std::vector<double>> w;  // row-major
   std::map<std::string, std::pair<std::size_t, std::size_t>> shape;
 
@@ -43,17 +44,17 @@ struct RefModel {
   void randomize(std::uint32_t seed) {
     std::mt19937 rng(seed);
     w.clear();
-    add("embedding.weight", V, E, rng, 1.0);
+    add("tokens.vectors", V, E, rng, 1.0);
     for (std::size_t k = 0; k < L; ++k)
       for (std::size_t d = 0; d < dirs(); ++d) {
         const std::string p = "rnn.l" + std::to_string(k) + (d == 0 ? ".fwd." : ".bwd.");
         add(p + "w_input", G() * H, k == 0 ? E : F(), rng, 0.8);
         add(p + "w_hidden", G() * H, H, rng, 0.8);
-        add(p + "bias", 1, G() * H, rng, 0.5);
-        if (cell == "gru") add(p + "bias_hidden", 1, 3 * H, rng, 0.5);
+        add(p + "b_input", 1, G() * H, rng, 0.5);
+        if (cell == "gru") add(p + "b_hidden", 1, 3 * H, rng, 0.5);
       }
-    add("head.weight", C(), F(), rng, 1.5);
-    add("head.bias", 1, C(), rng, 0.5);
+    add("readout.w", C(), F(), rng, 1.5);
+    add("readout.b", 1, C(), rng, 0.5);
     if (output == "crf") {
       add("crf.transitions", C(), C(), rng, 1.0);
       add("crf.start", 1, C(), rng, 1.0);
@@ -94,7 +95,8 @@ struct RefModel {
     Json voc = Json::array();
     voc.push_back(Json::string("<pad>"));
     voc.push_back(Json::string("<unk>"));
-    for (std::size_t i = 2; i < V; ++i) voc.push_back(Json::string("w" + std::to_string(i)));
+    for (std::size_t i = 2; i < V; ++i)
+      voc.push_back(Json::string(words.empty() ? "w" + std::to_string(i) : words.at(i - 2)));
     h.set("vocabulary", std::move(voc));
     return h.dump();
   }
@@ -113,14 +115,16 @@ struct RefModel {
 
   // ---- double-precision reference --------------------------------------------------------------
   static double sig(double x) { return 1.0 / (1.0 + std::exp(-x)); }
-  double at(const std::string& n, std::size_t r, std::size_t c) const { return w.at(n)[r * shape.at(n).second + c]; }
+  double at(const std::string& n, std::size_t r, std::size_t c) const {
+    return w.at(n)[r * shape.at(n).second + c];
+  }
 
   /// Top-layer outputs [T][F].
   std::vector<std::vector<double>> stack(const std::vector<std::uint32_t>& ids) const {
     const std::size_t T = ids.size();
     std::vector<std::vector<double>> in(T);
     for (std::size_t t = 0; t < T; ++t)
-      for (std::size_t j = 0; j < E; ++j) in[t].push_back(at("embedding.weight", ids[t], j));
+      for (std::size_t j = 0; j < E; ++j) in[t].push_back(at("tokens.vectors", ids[t], j));
     for (std::size_t k = 0; k < L; ++k) {
       std::vector<std::vector<double>> out(T, std::vector<double>(F(), 0.0));
       for (std::size_t d = 0; d < dirs(); ++d) {
@@ -130,17 +134,18 @@ struct RefModel {
           const std::size_t t = d == 0 ? s : T - 1 - s;
           std::vector<double> wx(G() * H), uh(G() * H);
           for (std::size_t r = 0; r < G() * H; ++r) {
-            double a = at(p + "bias", 0, r), b = 0.0;
+            double a = at(p + "b_input", 0, r), b = 0.0;
             for (std::size_t j = 0; j < in[t].size(); ++j) a += at(p + "w_input", r, j) * in[t][j];
             for (std::size_t j = 0; j < H; ++j) b += at(p + "w_hidden", r, j) * h[j];
-            if (cell == "gru") b += at(p + "bias_hidden", 0, r);
+            if (cell == "gru") b += at(p + "b_hidden", 0, r);
             wx[r] = a;
             uh[r] = b;
           }
           for (std::size_t j = 0; j < H; ++j) {
             if (cell == "lstm") {
               const double i = sig(wx[j] + uh[j]), f = sig(wx[H + j] + uh[H + j]);
-              const double g = std::tanh(wx[2 * H + j] + uh[2 * H + j]), o = sig(wx[3 * H + j] + uh[3 * H + j]);
+              const double g = std::tanh(wx[2 * H + j] + uh[2 * H + j]),
+                           o = sig(wx[3 * H + j] + uh[3 * H + j]);
               c[j] = f * c[j] + i * g;
               h[j] = o * std::tanh(c[j]);
             } else {
@@ -160,8 +165,8 @@ struct RefModel {
   std::vector<double> head(const std::vector<double>& x) const {
     std::vector<double> y(C());
     for (std::size_t i = 0; i < C(); ++i) {
-      y[i] = at("head.bias", 0, i);
-      for (std::size_t j = 0; j < F(); ++j) y[i] += at("head.weight", i, j) * x[j];
+      y[i] = at("readout.b", 0, i);
+      for (std::size_t j = 0; j < F(); ++j) y[i] += at("readout.w", i, j) * x[j];
     }
     return y;
   }

@@ -13,14 +13,14 @@
 #include "model_builder.hpp"
 #include "runtime/detail/spans.hpp"
 
+using Catch::Matchers::Contains;
+using Catch::Matchers::WithinAbs;
 using gyre::Span;
 using gyre::runtime::Context;
 using gyre::runtime::DType;
 using gyre::runtime::Error;
 using gyre::runtime::Model;
 using gyre::test::RefModel;
-using Catch::Matchers::Contains;
-using Catch::Matchers::WithinAbs;
 
 namespace {
 
@@ -138,7 +138,8 @@ TEST_CASE("text goes through the tokenizer and the vocabulary", "[runtime][infer
   REQUIRE_THROWS_WITH(ctx.classify_ids(bad), Contains("token id 99 at position 1 is outside the vocabulary"));
 }
 
-TEST_CASE("tagger: softmax per token and CRF Viterbi + marginals against brute force", "[runtime][inference]") {
+TEST_CASE("tagger: softmax per token and CRF Viterbi + marginals against brute force",
+          "[runtime][inference]") {
   std::mt19937 rng(99);
   for (const char* output : {"softmax", "crf"})
     for (bool bidir : {false, true}) {
@@ -161,7 +162,8 @@ TEST_CASE("tagger: softmax per token and CRF Viterbi + marginals against brute f
         if (std::string(output) == "softmax") {
           for (std::size_t t = 0; t < T; ++t) {
             const auto p = RefModel::softmax(e[t]);
-            for (std::size_t i = 0; i < r.C(); ++i) REQUIRE_THAT(got.probabilities[t * r.C() + i], WithinAbs(p[i], 1e-5));
+            for (std::size_t i = 0; i < r.C(); ++i)
+              REQUIRE_THAT(got.probabilities[t * r.C() + i], WithinAbs(p[i], 1e-5));
           }
         } else {
           std::vector<std::uint32_t> best;
@@ -184,17 +186,18 @@ TEST_CASE("span extraction follows the CoNLL chunk rules", "[runtime][inference]
     std::vector<gyre::runtime::TagSpan> out;
     gyre::runtime::detail::extract_spans(prefix, type, tags.data(), tags.size(), out);
     std::string s;
-    for (const auto& sp : out) s += std::string(sp.type) + "[" + std::to_string(sp.begin) + "," + std::to_string(sp.end) + ")";
+    for (const auto& sp : out)
+      s += std::string(sp.type) + "[" + std::to_string(sp.begin) + "," + std::to_string(sp.end) + ")";
     return s;
   };
   REQUIRE(spans({1, 2, 0, 3}) == "date[0,2)time[3,4)");
-  REQUIRE(spans({0, 2, 2, 0}) == "date[1,3)");               // I after O starts a span
-  REQUIRE(spans({1, 4, 4}) == "date[0,1)time[1,3)");        // I of another type starts a new span
-  REQUIRE(spans({1, 1, 2}) == "date[0,1)date[1,3)");        // B always starts a new span
-  REQUIRE(spans({1, 5, 2}) == "date[0,2)date[2,3)");        // after E a span is closed
+  REQUIRE(spans({0, 2, 2, 0}) == "date[1,3)");                 // I after O starts a span
+  REQUIRE(spans({1, 4, 4}) == "date[0,1)time[1,3)");           // I of another type starts a new span
+  REQUIRE(spans({1, 1, 2}) == "date[0,1)date[1,3)");           // B always starts a new span
+  REQUIRE(spans({1, 5, 2}) == "date[0,2)date[2,3)");           // after E a span is closed
   REQUIRE(spans({6, 4, 6}) == "time[0,1)time[1,2)time[2,3)");  // S is a one-token span
   REQUIRE(spans({0, 0}) == "");
-  REQUIRE(spans({2}) == "date[0,1)");                         // span reaching the end
+  REQUIRE(spans({2}) == "date[0,1)");  // span reaching the end
 }
 
 TEST_CASE("tag() returns tokens and spans", "[runtime][inference]") {
@@ -236,7 +239,8 @@ TEST_CASE("step-wise inference equals the full-sequence pass", "[runtime][infere
         const auto ids = random_ids(rng, 7, r.V);
         for (std::size_t t = 0; t < ids.size(); ++t) {
           const auto d = step.push_id(ids[t]);
-          const auto want = r.classify(std::vector<std::uint32_t>(ids.begin(), ids.begin() + static_cast<long>(t) + 1));
+          const auto want =
+              r.classify(std::vector<std::uint32_t>(ids.begin(), ids.begin() + static_cast<long>(t) + 1));
           INFO(cell << " " << pooling << " step " << t);
           for (std::size_t i = 0; i < r.C(); ++i) REQUIRE_THAT(d[i], WithinAbs(want[i], 1e-5));
         }
@@ -298,13 +302,16 @@ TEST_CASE("f16 and int8 models stay close to f32", "[runtime][inference][quantiz
     const std::vector<float> p32(a.probabilities.begin(), a.probabilities.end());
     const auto best32 = a.best;
     const auto& b = c16.classify_ids(ids);
-    for (std::size_t i = 0; i < r.C(); ++i) max16 = std::max(max16, double(std::fabs(b.probabilities[i] - p32[i])));
+    for (std::size_t i = 0; i < r.C(); ++i)
+      max16 = std::max(max16, double(std::fabs(b.probabilities[i] - p32[i])));
     agree16 += b.best == best32;
     const auto& c = c8.classify_ids(ids);
-    for (std::size_t i = 0; i < r.C(); ++i) max8 = std::max(max8, double(std::fabs(c.probabilities[i] - p32[i])));
+    for (std::size_t i = 0; i < r.C(); ++i)
+      max8 = std::max(max8, double(std::fabs(c.probabilities[i] - p32[i])));
     agree8 += c.best == best32;
   }
-  INFO("max |p16 - p32| = " << max16 << ", max |p8 - p32| = " << max8 << ", agreement " << agree16 << ", " << agree8);
+  INFO("max |p16 - p32| = " << max16 << ", max |p8 - p32| = " << max8 << ", agreement " << agree16 << ", "
+                            << agree8);
   // Tolerances: binary16 has a 2^-11 relative step, int8 per-row ~1/254 of the row's range; these
   // bounds are what such errors give through a 2-layer net (measured, with margin), not a standard.
   REQUIRE(max16 < 5e-3);
@@ -321,7 +328,7 @@ TEST_CASE("model header and tensors are validated", "[runtime][inference][robust
   auto load_with = [&](const std::string& header, bool drop_head = false) {
     gyre::runtime::ModelFileWriter w(header);
     for (const auto& [name, v] : r.w) {
-      if (drop_head && name == "head.weight") continue;
+      if (drop_head && name == "readout.w") continue;
       std::vector<float> f(v.begin(), v.end());
       w.add_tensor(name, r.shape.at(name).first, r.shape.at(name).second, f);
     }
@@ -335,14 +342,16 @@ TEST_CASE("model header and tensors are validated", "[runtime][inference][robust
     REQUIRE(pos != std::string::npos);
     return h.replace(pos, from.size(), to);
   };
-  REQUIRE_THROWS_WITH(load_with(r.header(), true), Contains("m.gyre: missing tensor \"head.weight\""));
+  REQUIRE_THROWS_WITH(load_with(r.header(), true), Contains("m.gyre: tensor \"readout.w\" is missing"));
   REQUIRE_THROWS_WITH(load_with(replace("\"hidden_size\":4", "\"hidden_size\":5")),
-                      Contains("has shape [16 x 5], expected [20 x 5]"));
+                      Contains("has shape [16 x 5], the header needs [20 x 5]"));
   REQUIRE_THROWS_WITH(load_with(replace("\"cell\":\"lstm\"", "\"cell\":\"lstm\",\"peepholes\":true")),
                       Contains("unknown key \"architecture.peepholes\""));
   REQUIRE_THROWS_WITH(load_with(replace("\"pooling\":\"last\"", "\"pooling\":\"first\"")),
-                      Contains("expected one of last, mean, max"));
+                      Contains("'first' is not one of: last, mean, max"));
   REQUIRE_THROWS_WITH(load_with(replace("\"w3\"", "\"w2\"")), Contains("\"w2\" appears twice"));
-  REQUIRE_THROWS_WITH(load_with(replace("\"layers\":1", "\"layers\":1.5")), Contains("\"architecture.layers\" must be an integer"));
-  REQUIRE_THROWS_WITH(load_with(replace("\"mode\":\"whitespace\"", "\"mode\":\"bytes\"")), Contains("tokenizer.mode"));
+  REQUIRE_THROWS_WITH(load_with(replace("\"layers\":1", "\"layers\":1.5")),
+                      Contains("\"architecture.layers\" must be an integer"));
+  REQUIRE_THROWS_WITH(load_with(replace("\"mode\":\"whitespace\"", "\"mode\":\"bytes\"")),
+                      Contains("tokenizer.mode"));
 }

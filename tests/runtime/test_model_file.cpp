@@ -33,7 +33,9 @@ void store_u32(std::vector<unsigned char>& b, std::size_t at, std::uint32_t v) {
   for (int i = 0; i < 4; ++i) b[at + static_cast<std::size_t>(i)] = static_cast<unsigned char>(v >> (8 * i));
 }
 // Re-seals a deliberately edited file so that the structural checks (not the CRC) must catch it.
-void reseal(std::vector<unsigned char>& b) { store_u32(b, b.size() - 8, detail::crc32c(b.data(), b.size() - 8)); }
+void reseal(std::vector<unsigned char>& b) {
+  store_u32(b, b.size() - 8, detail::crc32c(b.data(), b.size() - 8));
+}
 
 std::vector<unsigned char> small_file() {
   ModelFileWriter w(R"({"kind":"test","labels":["a","b"]})");
@@ -75,13 +77,13 @@ TEST_CASE("binary16 conversion follows IEEE 754", "[runtime][format]") {
   // bits with bias 15, 10 fraction bits).
   REQUIRE(detail::float_to_half(1.0f) == 0x3C00);
   REQUIRE(detail::float_to_half(-2.0f) == 0xC000);
-  REQUIRE(detail::float_to_half(65504.0f) == 0x7BFF);           // largest finite half
-  REQUIRE(detail::float_to_half(65520.0f) == 0x7C00);           // halfway to 2^16 ties to even -> inf
+  REQUIRE(detail::float_to_half(65504.0f) == 0x7BFF);               // largest finite half
+  REQUIRE(detail::float_to_half(65520.0f) == 0x7C00);               // halfway to 2^16 ties to even -> inf
   REQUIRE(detail::float_to_half(std::ldexp(1.0f, -24)) == 0x0001);  // smallest subnormal
   REQUIRE(detail::float_to_half(std::ldexp(1.0f, -25)) == 0x0000);  // tie -> even (zero)
   REQUIRE(detail::float_to_half(std::ldexp(1.0f, -14)) == 0x0400);  // smallest normal
-  REQUIRE(detail::float_to_half(0.1f) == 0x2E66);               // 0.0999755859375
-  REQUIRE(detail::float_to_half(1.0f + std::ldexp(1.0f, -11)) == 0x3C00);  // tie, even mantissa stays
+  REQUIRE(detail::float_to_half(0.1f) == 0x2E66);                   // 0.0999755859375
+  REQUIRE(detail::float_to_half(1.0f + std::ldexp(1.0f, -11)) == 0x3C00);      // tie, even mantissa stays
   REQUIRE(detail::float_to_half(1.0f + 3 * std::ldexp(1.0f, -11)) == 0x3C02);  // tie, odd rounds up
   REQUIRE(std::isnan(detail::half_to_float(detail::float_to_half(std::nanf("")))));
   REQUIRE(detail::half_to_float(0x7BFF) == 65504.0f);
@@ -113,13 +115,14 @@ TEST_CASE("strict JSON reader", "[runtime][format]") {
   fails("\"\\ud800\"", "surrogate");
   fails("[1] 2", "after the JSON value");
   fails("[1e999]", "out of range");
-  REQUIRE_THROWS_WITH(detail::Json::parse(std::string(100, '[') + std::string(100, ']')), Contains("nesting deeper"));
+  REQUIRE_THROWS_WITH(detail::Json::parse(std::string(100, '[') + std::string(100, ']')),
+                      Contains("nesting deeper"));
 }
 
 TEST_CASE("writer and reader round-trip f32, f16 and i8 tensors", "[runtime][format]") {
   const std::vector<unsigned char> bytes = small_file();
   const ModelFile f = ModelFile::from_buffer(bytes.data(), bytes.size());
-  REQUIRE(f.format_version() == 1);
+  REQUIRE(f.format_version() == 2);
   REQUIRE(f.header_json() == R"({"kind":"test","labels":["a","b"]})");
   REQUIRE(f.tensors().size() == 3);
   const auto& m = f.tensor("m");
@@ -192,7 +195,15 @@ TEST_CASE("damaged files are refused with a clear error", "[runtime][format][rob
     std::vector<unsigned char> b = good;
     store_u32(b, 8, 3);
     reseal(b);
-    REQUIRE(error_of(b) == "f.gyre: file format version 3 is newer than this runtime (1); upgrade gyre");
+    REQUIRE(error_of(b) == "f.gyre: file format version 3 is newer than this runtime (2); upgrade gyre");
+  }
+  SECTION("format version 1 (tensor names before the rename) is refused, naming the file") {
+    std::vector<unsigned char> b = good;
+    store_u32(b, 8, 1);
+    reseal(b);
+    REQUIRE(error_of(b) ==
+            "f.gyre: file format version 1 was written by an older gyre; this one reads version 2, whose "
+            "tensor names differ: retrain with this gyre, then export again");
   }
   SECTION("big-endian byte-order mark") {
     std::vector<unsigned char> b = good;

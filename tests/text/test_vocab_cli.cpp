@@ -77,12 +77,15 @@ TEST_CASE("gyre vocab builds, reports and saves", "[cli]") {
   CHECK(file.vocab.id("kettle") > 1);
   CHECK(file.vocab.id("cancel") == gyre::text::Vocab::kUnk);
   CHECK(file.labels.size() == 2);
-  CHECK(file.tokenizer == gyre::text::TokenizerSettings{});
+  // gyre train's defaults (src/train/config.cpp): max_tokens 1000, the rest as TokenizerSettings{}.
+  gyre::text::TokenizerSettings train_defaults;
+  train_defaults.max_tokens = 1000;
+  CHECK(file.tokenizer == train_defaults);
 
   SECTION("tokenizer flags are saved") {
     const Run s = run_gyre(
         "vocab --train '" + train_path.string() + "' --out '" + out_path.string() +
-        "' --tokenizer chars --no-nfkc --no-case-fold --fold-digits --drop-punctuation --max-tokens 5");
+        "' --tokenizer chars --no-nfkc --no-case-fold --fold-digits --no-keep-punctuation --max-tokens 5");
     REQUIRE(s.exit_code == 0);
     const auto f = gyre::text::load_vocab_file(out_path);
     CHECK(f.tokenizer.mode == gyre::text::TokenizerMode::kChars);

@@ -6,3 +6,14 @@ if(TARGET gyre_cli)
   set_tests_properties("external: SpamAssassin GRU and LSTM vs sklearn baselines" PROPERTIES
     LABELS external TIMEOUT 2400 SKIP_RETURN_CODE 77)
 endif()
+
+# Open npm datasets (names, Brown Corpus genre and proper-noun spans): gyre's linear baseline
+# against python3-sklearn on the same features, and the default and the tuned (gyre hone) models
+# against the best sklearn baseline; see tests/external/datasets_check.sh.
+if(TARGET gyre_cli)
+  add_test(NAME "external: open datasets, linear baseline parity, default and tuned models vs sklearn"
+    COMMAND bash ${PROJECT_SOURCE_DIR}/tests/external/datasets_check.sh $<TARGET_FILE:gyre_cli> ${PROJECT_SOURCE_DIR}
+      ${CMAKE_CURRENT_BINARY_DIR}/tmp/datasets)
+  set_tests_properties("external: open datasets, linear baseline parity, default and tuned models vs sklearn" PROPERTIES
+    LABELS external TIMEOUT 3000 SKIP_RETURN_CODE 77 RESOURCE_LOCK external_cpu)
+endif()

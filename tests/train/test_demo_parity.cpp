@@ -7,10 +7,10 @@
 
 #include <filesystem>
 
+#include "gyre/data/encoder.hpp"
 #include "gyre/data/reader.hpp"
 #include "gyre/eval/span_metrics.hpp"
 #include "gyre/io/model_io.hpp"
-#include "gyre/model/encoder.hpp"
 #include "gyre/runtime/model.hpp"
 #include "gyre/train/evaluate.hpp"
 #include "gyre/train/trainer.hpp"
@@ -87,7 +87,7 @@ void check_corpus(const std::string& name) {
   const auto trained = gyre::io::load_trained_model(options.out);
   std::vector<gyre::data::Example> dev;
   gyre::data::read_corpus(config.dev, {}, [&](gyre::data::Example&& ex) { dev.push_back(std::move(ex)); });
-  const gyre::model::Encoder encoder(trained.vocab, trained.spec.task);
+  const gyre::data::Encoder encoder(trained.vocab, trained.spec.task);
   std::vector<gyre::data::EncodedExample> encoded;
   for (const auto& ex : dev) encoded.push_back(encoder.encode(ex, config.dev));
   const auto library = gyre::train::predict_all(*trained.model, encoded);

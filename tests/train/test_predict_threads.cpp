@@ -9,6 +9,7 @@
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
+#include <optional>
 #include <sstream>
 #include <string>
 
@@ -28,7 +29,8 @@ fs::path fresh_dir(const std::string& name) {
   return dir;
 }
 
-fs::path train_small(const std::string& name, const std::string& corpus, const std::string& output) {
+fs::path train_small(const std::string& name, const std::string& corpus,
+                     std::optional<gyre::model::OutputKind> output) {
   gyre::train::TrainConfig c;
   c.train = std::string(GYRE_SOURCE_DIR) + "/corpora/demo/" + corpus;
   c.embedding_size = 16;
@@ -58,7 +60,7 @@ std::size_t count_lines(const std::string& s) {
 
 }  // namespace
 
-TEST_CASE("predict --threads 2 and 3 write exactly the bytes of --threads 1", "[train][cli]") {
+TEST_CASE("predict --threads 2 and 3 write exactly the bytes of --threads 1", "[train][cli][slow]") {
   const fs::path dir = fresh_dir("predict_threads");
   fs::create_directories(dir);
   // Input: the demo intents test texts (label column dropped), plus an empty line and a line of
@@ -76,8 +78,9 @@ TEST_CASE("predict --threads 2 and 3 write exactly the bytes of --threads 1", "[
   const std::size_t input_lines = count_lines(text);
   REQUIRE(input_lines > 300);
 
-  const fs::path classifier = train_small("predict_threads_intents", "intents.train.tsv", "auto");
-  const fs::path tagger = train_small("predict_threads_slots", "slots.train.tsv", "crf");
+  const fs::path classifier = train_small("predict_threads_intents", "intents.train.tsv", std::nullopt);
+  const fs::path tagger =
+      train_small("predict_threads_slots", "slots.train.tsv", gyre::model::OutputKind::kCrf);
   for (const auto& model : {classifier, tagger}) {
     for (const std::string format : {"tsv", "jsonl"}) {
       // batch size 7: many groups, and a last group whose batches are partly empty.
@@ -99,7 +102,7 @@ TEST_CASE("predict --threads 2 --on-error fail writes the batches before the bad
           "[train][cli]") {
   const fs::path dir = fresh_dir("predict_threads_fail");
   fs::create_directories(dir);
-  const fs::path model = train_small("predict_threads_fail_model", "intents.train.tsv", "auto");
+  const fs::path model = train_small("predict_threads_fail_model", "intents.train.tsv", std::nullopt);
   std::string text;
   for (int i = 0; i < 20; ++i) text += "my kettle stopped heating\n";
   text += "\xff\n";

@@ -3,6 +3,7 @@
 
 #include <catch2/catch.hpp>
 
+#include <fcntl.h>
 #include <signal.h>
 #include <spawn.h>
 #include <sys/wait.h>
@@ -30,6 +31,7 @@ using gyre::train::TrainConfig;
 using gyre::train::TrainOptions;
 
 #include "support/learnable_corpus.hpp"
+#include "support/run_cli.hpp"
 
 namespace {
 
@@ -103,8 +105,14 @@ TEST_CASE("a classifier trained on a learnable corpus beats the majority class b
   const auto trained = gyre::io::load_trained_model(dir);
   const auto accuracy = result.final_metrics.at("dev").at("accuracy").get<double>();
   REQUIRE(accuracy > 0.85);
-  for (const char* file : {"config.json", "vocab.json", "checkpoint-best.bin", "checkpoint-last.bin",
-                           "log.jsonl", "metrics.json"})
+  // The linear baseline was fitted on the same split and recorded beside the model's score; the
+  // corpus's cue word is a unigram, so it learns the rule too.
+  const auto& baseline = result.final_metrics.at("baseline");
+  REQUIRE(baseline.at("dev").at("accuracy").get<double>() > 0.85);
+  REQUIRE(baseline.at("features").get<std::size_t>() > 0);
+  REQUIRE(baseline.at("c").get<double>() > 0);
+  for (const char* file :
+       {"config.json", "vocab.json", "selected.bin", "resume.bin", "log.jsonl", "metrics.json"})
     REQUIRE(fs::exists(dir / file));
   // One log line per epoch with the documented fields.
   std::ifstream log(dir / "log.jsonl");
@@ -123,8 +131,17 @@ TEST_CASE("a classifier trained on a learnable corpus beats the majority class b
   // The resolved config repeats the run exactly: every key is present.
   const auto saved = nlohmann::json::parse(gyre::read_file(dir / "config.json"));
   REQUIRE(saved.at("hidden_size") == 16);
-  REQUIRE(saved.at("bidirectional") == "no");
+  REQUIRE(saved.at("bidirectional") == false);
   REQUIRE(saved.at("task") == "classify");
+  // Temperature scaling was fitted on dev (gyre/train/calibrate.hpp) and stored in the best
+  // checkpoint; it lowers the dev NLL (it minimises it over T, and T = 1 is a candidate) and the
+  // arg-max labels stay (tests/train/test_parity.cpp).
+  const auto& cal = result.final_metrics.at("calibration");
+  REQUIRE(trained.spec.temperature.size() == 1);
+  REQUIRE(cal.at("temperature").at(0).get<float>() == trained.spec.temperature[0]);
+  const auto& fit = cal.at("fits").at(0);
+  REQUIRE(fit.at("nll_after").get<double>() <= fit.at("nll_before").get<double>() + 1e-12);
+  REQUIRE(cal.at("after").at("predictions").get<std::size_t>() == 120);
 }
 
 TEST_CASE("same seed and threads give identical weights, another seed differs", "[train]") {
@@ -137,11 +154,11 @@ TEST_CASE("same seed and threads give identical weights, another seed differs", 
     const fs::path b = tmp_dir("det_b" + std::to_string(threads));
     gyre::train::train(config, options_for(a));
     gyre::train::train(config, options_for(b));
-    REQUIRE(weights_of(a / "checkpoint-last.bin") == weights_of(b / "checkpoint-last.bin"));
+    REQUIRE(weights_of(a / "resume.bin") == weights_of(b / "resume.bin"));
     config.seed = 6;
     const fs::path c = tmp_dir("det_c" + std::to_string(threads));
     gyre::train::train(config, options_for(c));
-    REQUIRE(weights_of(a / "checkpoint-last.bin") != weights_of(c / "checkpoint-last.bin"));
+    REQUIRE(weights_of(a / "resume.bin") != weights_of(c / "resume.bin"));
   }
 }
 
@@ -168,8 +185,8 @@ TEST_CASE("an interrupted run resumes to bit-identical weights", "[train]") {
   REQUIRE_FALSE(fs::exists(cut / "metrics.json"));  // not looking finished
   const auto second = gyre::train::resume(options_for(cut));
   REQUIRE(second.outcome == gyre::train::TrainOutcome::kFinished);
-  REQUIRE(weights_of(whole / "checkpoint-last.bin") == weights_of(cut / "checkpoint-last.bin"));
-  REQUIRE(weights_of(whole / "checkpoint-best.bin") == weights_of(cut / "checkpoint-best.bin"));
+  REQUIRE(weights_of(whole / "resume.bin") == weights_of(cut / "resume.bin"));
+  REQUIRE(weights_of(whole / "selected.bin") == weights_of(cut / "selected.bin"));
   // The log has one line per epoch, as the uninterrupted run.
   std::ifstream log(cut / "log.jsonl");
   REQUIRE(std::count(std::istreambuf_iterator<char>(log), std::istreambuf_iterator<char>(), '\n') == 3);
@@ -180,7 +197,7 @@ TEST_CASE("early stopping stops after `patience` epochs without improvement", "[
   config.epochs = 10;
   config.patience = 2;
   config.learning_rate = 1e-12;  // nothing is learned: epoch 1 stays the best
-  config.optimizer = "sgd";
+  config.optimizer = gyre::optim::OptimizerKind::kSgd;
   config.dropout = 0;
   config.embedding_dropout = 0;
   const auto result = gyre::train::train(config, options_for(tmp_dir("early")));
@@ -191,14 +208,48 @@ TEST_CASE("early stopping stops after `patience` epochs without improvement", "[
 
 TEST_CASE("the divergence guard stops a run whose loss blows up", "[train]") {
   auto config = small_config();
-  config.optimizer = "sgd";
+  config.optimizer = gyre::optim::OptimizerKind::kSgd;
   config.learning_rate = 1e30;
   config.clip_norm = 0;
   const fs::path dir = tmp_dir("diverge");
+  // Nothing was saved before the first epoch ended, and the message must not claim otherwise.
   REQUIRE_THROWS_WITH(
       gyre::train::train(config, options_for(dir)),
-      Catch::Matchers::Contains("at epoch 1, step") && Catch::Matchers::Contains("learning-rate"));
+      Catch::Matchers::Contains("at epoch 1, step") && Catch::Matchers::Contains("learning-rate") &&
+          Catch::Matchers::Contains("no checkpoint was written") && !Catch::Matchers::Contains("intact"));
   REQUIRE_FALSE(fs::exists(dir / "metrics.json"));
+  REQUIRE_FALSE(fs::exists(dir / "selected.bin"));
+}
+
+TEST_CASE("the divergence guard stops a finite loss that grows, not only a non-finite one", "[train]") {
+  // Adam at learning rate 1e6 keeps every number finite (loss ~3e6, weights ~1e11 on the demo
+  // corpus) and used to finish with exit code 0 and a "best" checkpoint.
+  auto config = small_config();
+  config.learning_rate = 1e6;
+  const fs::path dir = tmp_dir("diverge_finite");
+  REQUIRE_THROWS_WITH(gyre::train::train(config, options_for(dir)),
+                      Catch::Matchers::Contains("the training loss grew to") &&
+                          Catch::Matchers::Contains("times its") &&
+                          Catch::Matchers::Contains("at epoch 1, step 2"));
+  REQUIRE_FALSE(fs::exists(dir / "selected.bin"));
+  REQUIRE_FALSE(fs::exists(dir / "metrics.json"));
+}
+
+TEST_CASE("after a divergence the message names the best checkpoint that exists", "[train]") {
+  // One sane epoch, then the run continues with its saved config changed to an absurd rate.
+  auto config = small_config();
+  const fs::path dir = tmp_dir("diverge_late");
+  auto opts = options_for(dir);
+  opts.interrupt_after_epochs = 1;
+  REQUIRE(gyre::train::train(config, opts).outcome == gyre::train::TrainOutcome::kInterrupted);
+  auto saved = nlohmann::json::parse(gyre::read_file(dir / "config.json"));
+  saved["learning_rate"] = 1e6;
+  gyre::write_file_atomic(dir / "config.json", saved.dump());
+  REQUIRE(fs::exists(dir / "selected.bin"));
+  REQUIRE_THROWS_WITH(gyre::train::resume(options_for(dir)),
+                      Catch::Matchers::Contains("at epoch 2, step") &&
+                          Catch::Matchers::Contains("the best model so far (epoch 1, dev ") &&
+                          Catch::Matchers::Contains((dir / "selected.bin").string()));
 }
 
 TEST_CASE("bad settings and bad data fail before anything is written", "[train]") {
@@ -212,7 +263,7 @@ TEST_CASE("bad settings and bad data fail before anything is written", "[train]"
     auto config = small_config();
     config.bptt_window = 20;
     config.max_length = 10;
-    config.pooling = "last";
+    config.pooling = gyre::nn::PoolingKind::kLast;
     REQUIRE_THROWS_WITH(gyre::train::train(config, options_for(dir)),
                         Catch::Matchers::Contains("bptt_window"));
   }
@@ -237,7 +288,7 @@ TEST_CASE("bad settings and bad data fail before anything is written", "[train]"
 TEST_CASE("truncated BPTT trains a classifier and a tagger", "[train]") {
   auto config = small_config();
   config.bptt_window = 4;
-  config.pooling = "last";
+  config.pooling = gyre::nn::PoolingKind::kLast;
   config.epochs = 4;
   const auto result = gyre::train::train(config, options_for(tmp_dir("tbptt")));
   REQUIRE(result.final_metrics.at("dev").at("accuracy").get<double>() > 0.6);
@@ -269,7 +320,7 @@ TEST_CASE("truncated BPTT trains a classifier and a tagger", "[train]") {
   tagger.epochs = 8;
   tagger.batch_size = 8;
   tagger.bptt_window = 5;
-  tagger.bidirectional = "no";
+  tagger.bidirectional = false;
   tagger.learning_rate = 0.02;
   const auto tagged = gyre::train::train(tagger, options_for(tmp_dir("tbptt_tag")));
   REQUIRE(tagged.final_metrics.at("dev").at("micro").at("f1").get<double>() > 0.8);
@@ -298,7 +349,7 @@ TEST_CASE("SIGINT saves a resumable run and exits with code 3", "[train]") {
   waitpid(pid, &status, 0);
   REQUIRE(WIFEXITED(status));
   REQUIRE(WEXITSTATUS(status) == 3);
-  REQUIRE(fs::exists(dir / "checkpoint-last.bin"));
+  REQUIRE(fs::exists(dir / "resume.bin"));
   REQUIRE_FALSE(fs::exists(dir / "metrics.json"));
   // The saved state is a valid checkpoint that the trainer accepts (resume it for one more step
   // via the library hook so the test stays short).
@@ -306,5 +357,236 @@ TEST_CASE("SIGINT saves a resumable run and exits with code 3", "[train]") {
   opts.interrupt_after_steps = 1;
   const auto again = gyre::train::resume(opts);
   REQUIRE(again.outcome == gyre::train::TrainOutcome::kInterrupted);
+}
+#endif
+
+#ifdef GYRE_CLI_PATH
+namespace {
+
+// Runs the gyre binary with `args`; returns its exit status. `interrupt` (optional) is called
+// with the child's pid while it runs and may signal it.
+template <typename Interrupt>
+int run_gyre(std::vector<std::string> args, Interrupt interrupt) {
+  args.insert(args.begin(), GYRE_CLI_PATH);
+  std::vector<char*> argv;
+  for (auto& a : args) argv.push_back(a.data());
+  argv.push_back(nullptr);
+  posix_spawn_file_actions_t actions;
+  posix_spawn_file_actions_init(&actions);
+  posix_spawn_file_actions_addopen(&actions, STDOUT_FILENO, "/dev/null", O_WRONLY, 0);
+  pid_t pid = 0;
+  const int rc = posix_spawn(&pid, GYRE_CLI_PATH, &actions, nullptr, argv.data(), environ);
+  posix_spawn_file_actions_destroy(&actions);
+  REQUIRE(rc == 0);
+  interrupt(pid);
+  int status = 0;
+  waitpid(pid, &status, 0);
+  REQUIRE(WIFEXITED(status));
+  return WEXITSTATUS(status);
+}
+
+std::size_t lines_in(const fs::path& file) {
+  std::ifstream in(file);
+  return static_cast<std::size_t>(
+      std::count(std::istreambuf_iterator<char>(in), std::istreambuf_iterator<char>(), '\n'));
+}
+
+}  // namespace
+
+// Issue 10, item 1: through the command line, at the default batch size (whose token counts per
+// batch reach the GEMM shapes where history-dependent blocking changed the summation order), an
+// interrupt in the middle of an epoch followed by --resume gives every tensor of both checkpoints,
+// optimizer moments included, bit for bit.
+TEST_CASE("gyre train --resume after a signal mid-epoch equals the uninterrupted run", "[train][cli][slow]") {
+  const std::string train = std::string(GYRE_SOURCE_DIR) + "/corpora/demo/intents.train.tsv";
+  const std::string dev = std::string(GYRE_SOURCE_DIR) + "/corpora/demo/intents.dev.tsv";
+  int signal_number = SIGINT;
+  std::vector<std::string> variant;
+  SECTION("SIGINT, one thread, Adam") {}
+  SECTION("SIGTERM, two threads, SGD") {
+    signal_number = SIGTERM;
+    variant = {"--threads", "2", "--optimizer", "sgd", "--learning-rate", "0.5"};
+  }
+  auto args_for = [&](const fs::path& out) {
+    std::vector<std::string> args{"train",  "--train", train,        "--dev", dev,     "--epochs",  "3",
+                                  "--seed", "7",       "--patience", "0",     "--out", out.string()};
+    args.insert(args.end(), variant.begin(), variant.end());
+    return args;
+  };
+  const fs::path whole = tmp_dir("cli_resume_whole");
+  REQUIRE(run_gyre(args_for(whole), [](pid_t) {}) == 0);
+
+  const fs::path cut = tmp_dir("cli_resume_cut");
+  const int interrupted = run_gyre(args_for(cut), [&](pid_t pid) {
+    // Epoch 1 is logged at its end; interrupt shortly after, inside epoch 2 (~0.6 s per epoch).
+    for (int i = 0; i < 1200 && lines_in(cut / "log.jsonl") < 1; ++i)
+      std::this_thread::sleep_for(std::chrono::milliseconds(10));
+    std::this_thread::sleep_for(std::chrono::milliseconds(150));
+    kill(pid, signal_number);
+  });
+  REQUIRE(interrupted == 3);
+  const auto saved = gyre::runtime::ModelFile::open((cut / "resume.bin").string());
+  const auto trainer = nlohmann::json::parse(saved.header_json()).at("trainer");
+  INFO("interrupted at epoch " << trainer.at("epoch") << ", step " << trainer.at("step"));
+  // A cut at an epoch boundary would not exercise the mid-epoch path (a slower machine may land
+  // there; the equality below must hold either way).
+  if (trainer.at("step").get<std::size_t>() == 0) WARN("interrupt landed on an epoch boundary");
+
+  REQUIRE(run_gyre({"train", "--resume", cut.string()}, [](pid_t) {}) == 0);
+  for (const char* file : {"resume.bin", "selected.bin"}) {
+    INFO(file);
+    const auto a = weights_of(whole / file), b = weights_of(cut / file);
+    REQUIRE(a.size() == b.size());
+    for (std::size_t i = 0; i < a.size(); ++i) {
+      INFO("tensor " << a[i].first);
+      REQUIRE(a[i].first == b[i].first);
+      const bool same_bits = a[i].second == b[i].second;  // not printed: binary
+      REQUIRE(same_bits);
+    }
+  }
+}
+#endif
+
+namespace {
+
+// Tagging corpus in which a word is a street name exactly when it is capitalised ("Mill Lane"
+// against "the mill"): the case-folded word vocabulary cannot tell them apart, the character
+// encoder (reading the un-folded token) can.
+fs::path capitalisation_corpus(const std::string& name, std::uint64_t seed, int sentences) {
+  const fs::path path = fs::path(GYRE_TEST_TMP_DIR) / "train" / name;
+  fs::create_directories(path.parent_path());
+  gyre::Rng rng(seed);
+  std::ofstream out(path);
+  const char* words[] = {"mill", "lane", "brook", "hill", "field", "gate"};
+  const char* filler[] = {"the", "by", "near", "a", "we", "saw"};
+  for (int s = 0; s < sentences; ++s) {
+    const auto len = 4 + rng.below(6);
+    for (std::uint64_t t = 0; t < len; ++t) {
+      std::string w = words[rng.below(6)];
+      if (rng.below(3) == 0) {
+        w[0] = static_cast<char>(w[0] - 'a' + 'A');
+        out << w << "\tB-street\n";
+      } else if (rng.below(2) == 0) {
+        out << w << "\tO\n";
+      } else {
+        out << filler[rng.below(6)] << "\tO\n";
+      }
+    }
+    out << '\n';
+  }
+  return path;
+}
+
+}  // namespace
+
+TEST_CASE("the character encoder reads capitalisation that case folding removes", "[train]") {
+  TrainConfig c;
+  c.train = capitalisation_corpus("caps_train.tsv", 31, 300).string();
+  c.dev = capitalisation_corpus("caps_dev.tsv", 32, 80).string();
+  c.embedding_size = 8;
+  c.hidden_size = 8;
+  c.epochs = 6;
+  c.batch_size = 8;
+  c.learning_rate = 0.02;
+  c.patience = 0;
+  c.char_encoder = false;
+  const auto off = gyre::train::train(c, options_for(tmp_dir("caps_off")));
+  c.char_encoder = true;
+  c.char_filters = 8;
+  c.char_embedding_size = 8;
+  const fs::path on_dir = tmp_dir("caps_on");
+  const auto on = gyre::train::train(c, options_for(on_dir));
+  const double f1_off = off.final_metrics.at("dev").at("micro").at("f1").get<double>();
+  const double f1_on = on.final_metrics.at("dev").at("micro").at("f1").get<double>();
+  INFO("span F1 without the character encoder " << f1_off << ", with it " << f1_on);
+  // Without it a folded "mill" is a street a third of the time at best: F1 stays near chance.
+  REQUIRE(f1_off < 0.7);
+  REQUIRE(f1_on > 0.95);
+  // The run directory's config says what was resolved, and vocab.json holds the character list.
+  const auto config = nlohmann::json::parse(gyre::read_file(on_dir / "config.json"));
+  REQUIRE(config.at("char_encoder") == true);
+  const auto vocab = nlohmann::json::parse(gyre::read_file(on_dir / "vocab.json"));
+  REQUIRE(vocab.at("characters").at(0) == "<pad>");
+  REQUIRE(vocab.at("characters").size() > 10);  // letters of both cases
+}
+
+TEST_CASE("with the character encoder: same seed gives identical weights and a resumed run equals the whole",
+          "[train]") {
+  auto config = small_config();
+  config.char_encoder = true;
+  config.char_filters = 6;
+  config.char_embedding_size = 5;
+  config.threads = 2;
+  config.dropout = 0.3;
+  config.epochs = 3;
+  const fs::path whole = tmp_dir("char_whole");
+  gyre::train::train(config, options_for(whole));
+  const fs::path again = tmp_dir("char_again");
+  gyre::train::train(config, options_for(again));
+  REQUIRE(weights_of(whole / "resume.bin") == weights_of(again / "resume.bin"));
+  const auto names = weights_of(whole / "resume.bin");
+  REQUIRE(std::any_of(names.begin(), names.end(), [](const auto& p) { return p.first == "chars.w_filter"; }));
+
+  const fs::path cut = tmp_dir("char_cut");
+  auto opts = options_for(cut);
+  opts.interrupt_after_steps = 30;  // in epoch 2
+  REQUIRE(gyre::train::train(config, opts).outcome == gyre::train::TrainOutcome::kInterrupted);
+  REQUIRE(gyre::train::resume(options_for(cut)).outcome == gyre::train::TrainOutcome::kFinished);
+  REQUIRE(weights_of(whole / "resume.bin") == weights_of(cut / "resume.bin"));
+}
+
+#ifdef GYRE_CLI_PATH
+TEST_CASE("a classifier with the character encoder: every command that encodes text passes the characters",
+          "[train]") {
+  // A weakly trained model (one epoch, small steps) so that dev has mistakes to explain.
+  auto config = small_config();
+  config.char_encoder = true;
+  config.char_filters = 6;
+  config.char_embedding_size = 5;
+  config.epochs = 1;
+  config.learning_rate = 0.002;
+  const fs::path dir = tmp_dir("char_classifier");
+  gyre::train::train(config, options_for(dir));
+  // The trainer's dev mistakes: integrated gradients over [word, characters] of each text.
+  const auto metrics = nlohmann::json::parse(gyre::read_file(dir / "metrics.json"));
+  REQUIRE(!metrics.at("dev_mistakes").empty());
+  for (const auto& m : metrics.at("dev_mistakes")) {
+    REQUIRE(!m.at("why").at("tokens").empty());
+    // Smooth path (mean pooling): the stated 2e-3 of tests/train/test_attribution.cpp.
+    REQUIRE(m.at("why").at("completeness").at("gap").get<double>() <= 2e-3);
+  }
+
+  const fs::path cli = dir / "cli";
+  const fs::path exported = dir / "model-f32.gyre";
+  const auto exp =
+      gyre::test::run_cli(cli, {"export", dir.string(), "--out", exported.string(), "--precision", "f32"});
+  INFO(exp.err);
+  REQUIRE(exp.exit_code == 0);
+  const fs::path pool = dir / "pool.txt";
+  {
+    std::ofstream out(pool);
+    out << "Red message today\nthe NAVY thing\nwe saw olive\nsome thing about it\nRed message today\n";
+  }
+  for (const fs::path& model : {dir, exported}) {
+    CAPTURE(model.string());
+    // eval --errors explains each mistake: integrated gradients (checkpoint) or occlusion (exported).
+    const auto ev =
+        gyre::test::run_cli(cli, {"eval", model.string(), "--test", corpus().dev.string(), "--errors", "3"});
+    INFO(ev.err);
+    REQUIRE(ev.exit_code == 0);
+    REQUIRE(ev.out.find("why ") != std::string::npos);
+    // predict --why, pick (with a labelled corpus for the diversity term).
+    const auto pr =
+        gyre::test::run_cli(cli, {"predict", model.string(), "--format", "jsonl", "--why"}, pool.string());
+    INFO(pr.err);
+    REQUIRE(pr.exit_code == 0);
+    REQUIRE(gyre::test::line_count(pr.out) == 5);
+    REQUIRE(pr.out.find("\"why\"") != std::string::npos);
+    const auto pk = gyre::test::run_cli(cli, {"pick", model.string(), "--pool", pool.string(), "--count", "2",
+                                              "--labelled", corpus().train.string()});
+    INFO(pk.err);
+    REQUIRE(pk.exit_code == 0);
+    REQUIRE(gyre::test::line_count(pk.out) == 2);
+  }
 }
 #endif

@@ -23,6 +23,7 @@ import time
 from torch_ref import blas_info, limit_threads
 
 MAGIC = b"gyre.mf\x00"
+TEMPERATURE = 1.0  # set from the model file's header in main()
 
 
 def read_model(path):
@@ -33,7 +34,7 @@ def read_model(path):
         sys.exit(f"infer_torch: {path}: not a gyre model file")
     version, bom, file_size, header_offset, header_size, table_offset, count, data_offset = \
         struct.unpack_from("<IIQQQQQQ", data, 8)
-    if version != 1 or bom != 0x0A0B0C0D or file_size != len(data) or header_offset != 64:
+    if version != 2 or bom != 0x0A0B0C0D or file_size != len(data) or header_offset != 64:
         sys.exit(f"infer_torch: {path}: unsupported preamble (version {version})")
     header = json.loads(data[64:64 + header_size].decode("utf-8"))
     tensors = {}
@@ -61,22 +62,22 @@ def build(torch, header, t):
     if arch["task"] != "classify" or arch["cell"] != "lstm" or arch["bidirectional"] or arch["layers"] != 1 \
             or arch["output"] != "softmax":
         sys.exit("infer_torch: only a 1-layer unidirectional LSTM softmax classifier is supported")
-    emb_w = torch.from_numpy(t["embedding.weight"])
+    emb_w = torch.from_numpy(t["tokens.vectors"])
     vocab, embed = emb_w.shape
     hidden = arch["hidden_size"]
     emb = torch.nn.Embedding(vocab, embed)
     lstm = torch.nn.LSTM(embed, hidden, batch_first=True)
-    head_w = torch.from_numpy(t["head.weight"])
+    head_w = torch.from_numpy(t["readout.w"])
     head = torch.nn.Linear(hidden, head_w.shape[0])
     with torch.no_grad():
         emb.weight.copy_(emb_w)
         # Gate rows [i f g o] in both (docs/model-format.md; torch.nn.LSTM documentation).
         lstm.weight_ih_l0.copy_(torch.from_numpy(t["rnn.l0.fwd.w_input"]))
         lstm.weight_hh_l0.copy_(torch.from_numpy(t["rnn.l0.fwd.w_hidden"]))
-        lstm.bias_ih_l0.copy_(torch.from_numpy(t["rnn.l0.fwd.bias"]).reshape(-1))
+        lstm.bias_ih_l0.copy_(torch.from_numpy(t["rnn.l0.fwd.b_input"]).reshape(-1))
         lstm.bias_hh_l0.zero_()  # gyre has a single LSTM bias
         head.weight.copy_(head_w)
-        head.bias.copy_(torch.from_numpy(t["head.bias"]).reshape(-1))
+        head.bias.copy_(torch.from_numpy(t["readout.b"]).reshape(-1))
     for m in (emb, lstm, head):
         m.eval()
     return emb, lstm, head, arch["pooling"]
@@ -91,7 +92,9 @@ def forward(torch, emb, lstm, head, pooling, ids):
         pooled = out.max(dim=1).values
     else:
         pooled = h[-1]
-    return torch.softmax(head(pooled), dim=-1)
+    # Temperature scaling fitted at the end of training (header "architecture.temperature",
+    # docs/model-format.md): gyre reports softmax(z / T), so the reference does too.
+    return torch.softmax(head(pooled) / TEMPERATURE, dim=-1)
 
 
 def percentile(xs, q):
@@ -116,6 +119,8 @@ def main():
     limit_threads(torch, args.threads)
     header, tensors = read_model(args.model)
     emb, lstm, head, pooling = build(torch, header, tensors)
+    global TEMPERATURE
+    TEMPERATURE = float(header["architecture"].get("temperature", [1.0])[0])
     vocab = header["vocabulary"]
     rng = random.Random(20261201)
 

@@ -50,7 +50,7 @@ bench_print_machine
 echo "gyre: $gyre (Release)"
 
 # The demo intents classifier with default settings (LSTM, embedding 64, hidden 128, mean pooling).
-if [[ ! -f $work/run/checkpoint-best.bin ]]; then
+if [[ ! -f $work/run/selected.bin ]]; then
   rm -rf "${work:?}/run"
   "$gyre" train --train "$demo/intents.train.tsv" --dev "$demo/intents.dev.tsv" --epochs "$epochs" \
     --quiet --out "$work/run" >/dev/null
@@ -91,13 +91,20 @@ for p in f32 int8; do
     | tee "$work/gyre.$p.txt"
   $py - "$work/gyre.$p.txt" "$p" >>"$out" <<'PYEOF'
 import json, re, sys
+# The three lines gyre bench prints per thread count (src/cli/bench.cpp).
 text = open(sys.argv[1]).read()
-for m in re.finditer(r"threads (\d+)\s+latency \(\d+ tokens\): p50 ([\d.]+) us, p99 ([\d.]+) us "
-                     r"\(([\d.]+) GFLOP/s per stream\)\s*\n"
-                     r"\s+throughput \(batch \d+\): ([\d.]+) texts/s, ([\d.]+) GFLOP/s total", text):
+pat = (r"threads (\d+)\s+latency, model only \(\d+ token ids in\): p50 ([\d.]+) us, p99 ([\d.]+) us "
+       r"\(([\d.]+) GFLOP/s per stream\)\s*\n"
+       r"\s+latency, end to end \(text in, \d+ tokens after tokenization\): p50 ([\d.]+) us, p99 ([\d.]+) us\s*\n"
+       r"\s+throughput, model only \(batch of \d+\): ([\d.]+) texts/s, ([\d.]+) GFLOP/s total")
+found = 0
+for m in re.finditer(pat, text):
+    found += 1
     print(json.dumps({"side": "gyre", "precision": sys.argv[2], "threads": int(m[1]), "p50_us": float(m[2]),
-                      "p99_us": float(m[3]), "latency_gflops": float(m[4]), "texts_per_s": float(m[5]),
-                      "batch_gflops": float(m[6])}))
+                      "p99_us": float(m[3]), "latency_gflops": float(m[4]), "text_p50_us": float(m[5]),
+                      "texts_per_s": float(m[7]), "batch_gflops": float(m[8])}))
+if not found:
+    sys.exit("run_infer_bench: gyre bench printed nothing this script can read (its output changed?)")
 PYEOF
   if [[ $p == f32 ]]; then
     for t in ${threads//,/ }; do

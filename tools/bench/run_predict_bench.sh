@@ -49,7 +49,7 @@ echo "gyre: $gyre (Release), batch size $batch_size, $lines input lines per mode
 # CRF), a few epochs; reused when --keep DIR already holds them.
 train_model() {  # name corpus extra-flags...
   local name=$1 corpus=$2; shift 2
-  if [[ ! -f $work/$name/checkpoint-best.bin ]]; then
+  if [[ ! -f $work/$name/selected.bin ]]; then
     rm -rf "${work:?}/$name"
     "$gyre" train --train "$demo/$corpus.train.tsv" --dev "$demo/$corpus.dev.tsv" --epochs "$epochs" \
       --quiet --out "$work/$name" "$@" >/dev/null

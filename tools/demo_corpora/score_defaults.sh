@@ -19,8 +19,8 @@ for corpus in intents sentiment slots; do
     "$gyre" train --train "$src/corpora/demo/$corpus.train.tsv" --dev "$src/corpora/demo/$corpus.dev.tsv" \
       --cell "$cell" --out "$run" --quiet > /dev/null
     end=$(date +%s.%N)
-    "$gyre" eval "$run" --data "$src/corpora/demo/$corpus.dev.tsv" --json "$run/dev.json" > /dev/null
-    "$gyre" eval "$run" --data "$src/corpora/demo/$corpus.test.tsv" --json "$run/test.json" > /dev/null
+    "$gyre" eval "$run" --test "$src/corpora/demo/$corpus.dev.tsv" --json "$run/dev.json" > /dev/null
+    "$gyre" eval "$run" --test "$src/corpora/demo/$corpus.test.tsv" --json "$run/test.json" > /dev/null
     if [ "$corpus" = slots ]; then
       dev=$(span_f1 "$run/dev.json"); test=$(span_f1 "$run/test.json"); what="span F1"
     else

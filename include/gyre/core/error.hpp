@@ -37,6 +37,14 @@ class FormatError : public Error {
 class ConfigError : public Error {
  public:
   ConfigError(std::string_view setting, std::string_view message);
+  /// The setting's key ("hidden_size").
+  const std::string& setting() const noexcept { return setting_; }
+  /// What is wrong, without the "setting 'x': " prefix of what().
+  const std::string& detail() const noexcept { return detail_; }
+
+ private:
+  std::string setting_;
+  std::string detail_;
 };
 
 /// Training stopped because the loss or a gradient stopped being finite.
@@ -58,7 +66,7 @@ namespace detail {
 }  // namespace gyre
 
 /// Argument check at API boundaries; always on (like DYNET_ARG_CHECK). Throws gyre::Error.
-#define GYRE_CHECK(cond, msg)                                                  \
-  do {                                                                         \
+#define GYRE_CHECK(cond, msg)                                                    \
+  do {                                                                           \
     if (!(cond)) ::gyre::detail::check_failed(#cond, (msg), __FILE__, __LINE__); \
   } while (false)

@@ -6,6 +6,7 @@
 #include <filesystem>
 #include <string>
 #include <string_view>
+#include <vector>
 
 namespace gyre {
 
@@ -37,6 +38,12 @@ class AtomicFile {
 
 /// Atomically replaces path with bytes.
 void write_file_atomic(const std::filesystem::path& path, std::string_view bytes);
+
+/// Removes the temporaries "<name>.tmp.<pid>" in `dir` (or only those of `target` when given)
+/// whose writing process no longer runs: what a `kill -9` during a write leaves behind. Files of
+/// a running process (and of this one) are kept. Returns the paths removed; never throws.
+std::vector<std::filesystem::path> remove_stale_temp_files(const std::filesystem::path& dir);
+std::vector<std::filesystem::path> remove_stale_temp_files_of(const std::filesystem::path& target);
 
 /// Reads a whole file; throws IoError naming the path if it cannot.
 std::string read_file(const std::filesystem::path& path);

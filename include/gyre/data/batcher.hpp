@@ -27,6 +27,12 @@ struct EncodedExample {
   /// classify: one label id (multi-label: all label ids); tag: one tag id per token.
   std::vector<std::int32_t> targets;
   std::size_t source_line = 0;  // line in the input file (for messages)
+  bool cut = false;             // the text had more than max_tokens tokens; the rest was dropped
+  /// Models with a character encoder: character ids of token i are
+  /// char_ids[char_offsets[i] .. char_offsets[i+1]) (gyre/runtime/char_tokens.hpp); both empty
+  /// otherwise. char_offsets has ids.size() + 1 entries.
+  std::vector<std::int32_t> char_ids;
+  std::vector<std::int32_t> char_offsets;
 };
 
 /// A padded batch in time-major layout: element (t, b) is at t * batch + b.
@@ -36,7 +42,12 @@ struct Batch {
   std::vector<std::int32_t> ids;      // [T * B], padding = 0
   std::vector<int> lengths;           // [B]
   std::vector<std::size_t> examples;  // [B] indices into the example list
-  std::size_t tokens() const;         // valid (non-padding) positions
+  /// Examples with characters: those of cell (t, b) are char_ids[char_offsets[t*B + b] ..
+  /// char_offsets[t*B + b + 1]) (none for padding cells); char_offsets has T*B + 1 entries.
+  /// Both empty when the examples have no characters.
+  std::vector<std::int32_t> char_ids;
+  std::vector<std::int32_t> char_offsets;
+  std::size_t tokens() const;  // valid (non-padding) positions
   std::size_t padded() const { return static_cast<std::size_t>(batch) * static_cast<std::size_t>(max_len); }
 };
 

@@ -8,6 +8,12 @@
 //                 (multi-label: "labels" may be empty, must not repeat a label; other keys are ignored)
 //   kColumns      token<TAB>tag per line, blank line(s) between sentences
 //   kTaggedJsonl  {"tokens": ["...", ...], "tags": ["...", ...]}
+//   kCsv          RFC 4180 comma-separated values (gyre/data/csv.hpp) with a header row; the text
+//                 and label are the columns named text_column and label_column
+// text_column and label_column also name the keys of kJsonl records (default "text", "label";
+// with the default label key, "labels": [...] is read as multi-label).
+// kTsv and kCsv files are checked for a label column that looks like free text (swapped columns)
+// and, in kTsv, for a header line with other names than label<TAB>text: ParseError with the line.
 // Every line may end in "\r\n" (the \r is stripped). Blank lines are ignored in kTsv/kJsonl/
 // kTaggedJsonl. A UTF-8 byte-order mark at the start of the file is skipped.
 // Bad records throw gyre::ParseError("path:line: what is wrong"); with skip_bad_lines they are
@@ -16,27 +22,28 @@
 #include <cstddef>
 #include <filesystem>
 #include <functional>
+#include <string>
 #include <string_view>
 #include <vector>
 
 #include "gyre/data/example.hpp"
+#include "gyre/data/task.hpp"
 
 namespace gyre::data {
 
-enum class CorpusFormat { kAuto, kTsv, kJsonl, kColumns, kTaggedJsonl };
-enum class Task { kClassify, kTag };
+enum class CorpusFormat { kAuto, kTsv, kJsonl, kColumns, kTaggedJsonl, kCsv };
 
-/// "auto", "tsv", "jsonl", "columns", "tagged-jsonl".
+/// "auto", "tsv", "jsonl", "columns", "tagged-jsonl", "csv".
 const char* to_string(CorpusFormat format);
 /// Inverse of to_string(CorpusFormat); throws gyre::ConfigError("format", ...) on other names.
 CorpusFormat corpus_format_from_string(std::string_view name);
-/// "classify", "tag".
-const char* to_string(Task task);
 Task task_of(CorpusFormat format);  // kAuto -> throws gyre::Error
 
 struct ReadOptions {
   CorpusFormat format = CorpusFormat::kAuto;
   bool skip_bad_lines = false;
+  std::string text_column = "text";    // CSV header name / JSON Lines key of the text
+  std::string label_column = "label";  // CSV header name / JSON Lines key of the label(s)
 };
 
 struct ReadReport {
@@ -61,6 +68,7 @@ std::vector<Example> load_corpus(const std::filesystem::path& path, const ReadOp
 /// Guesses the format from the content of the first 1000 lines (the extension is not used):
 ///   - the first non-blank line (after a BOM) starts with '{': JSON Lines; kTaggedJsonl when that
 ///     object has a "tokens" key, else kJsonl;
+///   - a first line without a TAB but with a comma: kCsv;
 ///   - otherwise kColumns when a blank line separates two non-blank lines and no sampled line has
 ///     a space after its first TAB (tags never contain spaces; texts almost always do);
 ///   - otherwise kTsv.

@@ -16,12 +16,19 @@
 // - Micro P/R/F1 pool true positives, predictions and gold over the averaged classes; for
 //   single-label data they all equal accuracy when every class is present.
 // - Weighted averages weight each class by its gold support.
+//
+// Many classes: memory is O(C + distinct (gold, predicted) pairs), never O(C^2) or O(N x C).
+// The confusion matrix is kept sparse; ClassificationAccumulator / MultiLabelAccumulator score
+// one example at a time, so a caller never has to hold an [N x C] probability matrix. Beyond
+// kDenseConfusionLimit classes, JSON and text show the kTopConfusions largest off-diagonal cells
+// instead of the full matrix.
 
 #include <cstddef>
 #include <cstdint>
 #include <optional>
 #include <span>
 #include <string>
+#include <unordered_map>
 #include <vector>
 
 #include <nlohmann/json_fwd.hpp>
@@ -37,6 +44,19 @@ inline constexpr double kLogLossEpsilon = 1.1920928955078125e-07;
 /// eq. 3) uses M = 15 equal-width confidence bins ((m-1)/M, m/M] — the bin count of that paper and
 /// the common choice since.
 inline constexpr int kCalibrationBins = 15;
+
+/// Up to this many classes, to_json() and confusion_table() give the whole C x C matrix (50 x 50
+/// is still readable as a table; our choice, no source).
+inline constexpr std::size_t kDenseConfusionLimit = 50;
+/// Beyond kDenseConfusionLimit classes: how many of the largest off-diagonal cells are shown.
+inline constexpr std::size_t kTopConfusions = 100;
+
+/// A non-zero cell of the confusion matrix.
+struct ConfusionCell {
+  std::int32_t gold = 0;
+  std::int32_t predicted = 0;
+  std::int64_t count = 0;
+};
 
 /// Scores of one class (or one label in multi-label data).
 struct ClassScores {
@@ -73,24 +93,58 @@ struct ClassificationMetrics {
   AverageScores macro;
   AverageScores micro;
   AverageScores weighted;
-  /// [C x C] row-major counts: row = gold id, column = predicted id.
-  std::vector<std::int64_t> confusion;
+  /// The non-zero cells of the C x C confusion matrix (row = gold id, column = predicted id),
+  /// sorted by (gold, predicted).
+  std::vector<ConfusionCell> confusion;
   /// Present only when probabilities were given.
   std::optional<double> log_loss;
   std::optional<double> calibration_error;
   std::vector<CalibrationBin> calibration_bins;  // empty without probabilities
 
   std::size_t num_classes() const noexcept { return classes.size(); }
+  /// Count of cell (gold, predicted); 0 for a cell never seen.
   std::int64_t confusion_at(std::size_t gold, std::size_t predicted) const;
+  /// The `limit` largest off-diagonal cells, largest first (ties: by gold, then predicted id).
+  std::vector<ConfusionCell> top_confusions(std::size_t limit) const;
   /// {"task":"classification","examples":..,"accuracy":..,"classes":[{name,precision,recall,
   ///  f1,support,predicted,correct,present}],"macro":{precision,recall,f1},"micro":..,
-  ///  "weighted":..,"confusion":{"labels":[..],"counts":[[..]]},"log_loss":..,
-  ///  "calibration":{"bins":15,"error":..,"reliability":[..]}} (last two only with probabilities)
+  ///  "weighted":..,"confusion":{..},"log_loss":..,"calibration":{"bins":15,"error":..,
+  ///  "reliability":[..]}} (last two only with probabilities). "confusion" is
+  ///  {"labels":[..],"counts":[[..]],"rows":"gold","columns":"predicted"} up to
+  ///  kDenseConfusionLimit classes, else {"top":[{"gold":name,"predicted":name,"count":n}],
+  ///  "off_diagonal_cells":n,"rows":"gold","columns":"predicted"} with the kTopConfusions
+  ///  largest off-diagonal cells.
   nlohmann::json to_json() const;
   /// Aligned plain-text table, one row per class, then the averages and accuracy; ends in '\n'.
   std::string to_table(int decimals = 4) const;
-  /// The confusion matrix as an aligned text table (gold down, predicted across).
+  /// The confusion matrix as an aligned text table (gold down, predicted across); beyond
+  /// kDenseConfusionLimit classes, a table of the kTopConfusions largest off-diagonal cells.
   std::string confusion_table() const;
+};
+
+/// Scores single-label predictions one example at a time (memory O(C + confusion cells)); gives
+/// exactly the numbers of classification_metrics on the same examples.
+class ClassificationAccumulator {
+ public:
+  /// with_probabilities: every add() passes the example's distribution (adds log loss and ECE).
+  ClassificationAccumulator(std::span<const std::string> class_names, bool with_probabilities);
+  /// Throws gyre::Error for an id outside [0, C), a probability row of the wrong size, or a
+  /// non-finite or negative probability.
+  void add(std::int32_t gold, std::int32_t predicted, std::span<const float> probabilities = {});
+  std::int64_t examples() const noexcept { return examples_; }
+  /// Throws gyre::Error when no example was added.
+  ClassificationMetrics finish() const;
+
+ private:
+  std::vector<std::string> names_;
+  bool with_probabilities_;
+  std::int64_t examples_ = 0;
+  std::vector<std::int64_t> support_, predicted_, correct_;
+  std::unordered_map<std::uint64_t, std::int64_t> cells_;  // gold * C + predicted -> count
+  double log_loss_sum_ = 0.0;
+  std::vector<CalibrationBin> bins_;
+  std::vector<double> bin_confidence_;
+  std::vector<std::int64_t> bin_hits_;
 };
 
 /// Computes every metric. gold and predicted hold class ids in [0, class_names.size()), one per
@@ -139,6 +193,29 @@ struct MultiLabelMetrics {
 
   nlohmann::json to_json() const;
   std::string to_table(int decimals = 4) const;
+};
+
+/// Scores multi-label examples one at a time (memory O(L)); same numbers as multilabel_metrics
+/// (or multilabel_metrics_from_decisions) on the same rows.
+class MultiLabelAccumulator {
+ public:
+  /// threshold: a label is predicted when its score >= threshold (add_scores); NaN when the
+  /// caller gives decisions (add_decisions).
+  MultiLabelAccumulator(std::span<const std::string> label_names, double threshold);
+  /// One example: gold 0/1 indicators [L] and scores [L]. Throws gyre::Error on a size
+  /// mismatch, an indicator other than 0/1 or a non-finite score.
+  void add_scores(std::span<const std::uint8_t> gold, std::span<const float> scores);
+  /// One example: gold and predicted 0/1 indicators [L].
+  void add_decisions(std::span<const std::uint8_t> gold, std::span<const std::uint8_t> predicted);
+  /// Throws gyre::Error when no example was added.
+  MultiLabelMetrics finish() const;
+
+ private:
+  std::vector<std::string> names_;
+  double threshold_;
+  std::int64_t examples_ = 0, exact_ = 0;
+  std::vector<std::int64_t> support_, predicted_, correct_;
+  std::vector<std::uint8_t> decisions_;  // scratch for add_scores
 };
 
 /// Multi-label scores. gold is a [N x L] row-major 0/1 indicator matrix; scores is [N x L] (e.g.

@@ -2,7 +2,7 @@
 // Tagging metrics: token accuracy and span precision/recall/F1 per type and averaged. A predicted
 // span is correct only if a gold span has the same type and both the same first and last token
 // (the exact-match convention of the CoNLL-2000 shared task, Tjong Kim Sang & Buchholz 2000).
-// Spans are read with extract_spans() (gyre/eval/tag_scheme.hpp). Zero division gives 0, as the
+// Spans are read with extract_spans() (gyre/data/tag_scheme.hpp). Zero division gives 0, as the
 // CoNLL evaluation script prints.
 
 #include <cstdint>

@@ -7,6 +7,7 @@
 
 #include <filesystem>
 #include <memory>
+#include <optional>
 #include <string>
 
 #include <nlohmann/json.hpp>
@@ -14,6 +15,7 @@
 #include "gyre/model/sequence_model.hpp"
 #include "gyre/model/spec.hpp"
 #include "gyre/optim/optimizer.hpp"
+#include "gyre/runtime/model.hpp"
 #include "gyre/runtime/model_file.hpp"
 #include "gyre/text/vocab.hpp"
 
@@ -22,21 +24,45 @@ namespace gyre::io {
 /// The model part of the header (docs/model-format.md "Model header schema").
 nlohmann::json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab);
 
-/// A trained model ready to run in the training library.
+/// A trained model, ready to run in the training library or (exported files) the runtime.
 struct TrainedModel {
   model::ModelSpec spec;
   text::VocabFile vocab;
-  std::unique_ptr<model::SequenceModel> model;
-  nlohmann::json header;       // the whole file header
-  std::filesystem::path path;  // the file that was read
+  std::unique_ptr<model::SequenceModel> model;  // null when loaded for the runtime only
+  std::optional<runtime::Model> runtime;        // exported files with Engine::kRuntimeForExported
+  nlohmann::json header;                        // the whole file header
+  std::filesystem::path path;                   // the file that was read
+
+  /// An exported model file ("format": "gyre-model"), not a training checkpoint.
+  bool exported() const;
 };
 
-/// Resolves MODEL_OR_RUN: a run directory means its checkpoint-best.bin.
+/// What runs a loaded model. Commands that score a file use kRuntimeForExported, so that what they
+/// print for an exported (f16, int8) file is what an application linking gyre::runtime gets.
+enum class Engine {
+  kLibrary,             // the training library's SequenceModel (f16/i8 weights dequantised)
+  kRuntimeForExported,  // exported files: runtime::Model only; checkpoints: the library
+};
+
+/// The two checkpoints of a run directory: the one of the epoch with the best dev score (what
+/// eval, predict and export use) and the latest one with the optimizer state (what resume
+/// continues from). Model-format version 1 called them checkpoint-best.bin / checkpoint-last.bin.
+inline constexpr const char* kSelectedCheckpointFile = "selected.bin";
+inline constexpr const char* kResumeCheckpointFile = "resume.bin";
+
+/// Resolves MODEL_OR_RUN: a run directory means its selected.bin. A run directory written by a
+/// gyre of model-format version 1 is refused with a message saying to retrain.
 std::filesystem::path resolve_model_path(const std::filesystem::path& model_or_run);
 
-/// Loads a checkpoint or an exported model (f16/i8 tensors are dequantised). Throws FormatError
-/// naming the file on anything missing or inconsistent, IoError if it cannot be read.
-TrainedModel load_trained_model(const std::filesystem::path& model_or_run);
+/// Throws IoError when DIR holds the checkpoints of a format-version-1 run (old file names) but
+/// not the current ones; a no-op otherwise.
+void refuse_version1_run(const std::filesystem::path& dir);
+
+/// Loads a checkpoint or an exported model. The header is read and validated by the runtime's
+/// one reader (runtime::parse_model_header), and every tensor the architecture needs is checked
+/// before anything is allocated from the header's sizes. Throws FormatError naming the file on
+/// anything missing or inconsistent, IoError if it cannot be read.
+TrainedModel load_trained_model(const std::filesystem::path& model_or_run, Engine engine = Engine::kLibrary);
 
 /// Writes a checkpoint atomically: parameters, optimizer state (if given), the trainer's state
 /// and the resolved config.
@@ -49,7 +75,7 @@ void write_checkpoint(const std::filesystem::path& path, const model::SequenceMo
 nlohmann::json restore_checkpoint(const std::filesystem::path& path, model::SequenceModel& model,
                                   optim::Optimizer* optimizer);
 
-/// Writes the compact model file: matrices (embedding, w_input, w_hidden, head.weight) in the
+/// Writes the compact model file: matrices (embedding, w_input, w_hidden, readout.w) in the
 /// given precision, biases and CRF scores in f32. `extra` is merged into the header (metrics,
 /// provenance). Returns the file size in bytes.
 std::size_t export_model(const TrainedModel& trained, const std::filesystem::path& out,

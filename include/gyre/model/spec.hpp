@@ -1,19 +1,22 @@
 #pragma once
 // ModelSpec: the architecture of a gyre model, everything needed to rebuild it from its tensors.
-// Stored as JSON in checkpoints and (through the exporter) in the model file header.
+// Its enums are the runtime's, and in files it is stored as the runtime's model header
+// (gyre/runtime/model_header.hpp): architecture() and spec_from_header() convert, so the training
+// library and the embedded runtime read and validate a model description the same way.
 
 #include <string>
 #include <vector>
 
-#include <nlohmann/json_fwd.hpp>
-
-#include "gyre/data/reader.hpp"
+#include "gyre/data/tag_scheme.hpp"
+#include "gyre/data/task.hpp"
 #include "gyre/nn/pooling.hpp"
 #include "gyre/nn/recurrent_layer.hpp"
+#include "gyre/runtime/model_header.hpp"
 
 namespace gyre::model {
 
-enum class OutputKind { kSoftmax, kSigmoid, kCrf };
+using OutputKind = runtime::Output;
+using runtime::to_string;
 
 struct ModelSpec {
   data::Task task = data::Task::kClassify;
@@ -27,23 +30,46 @@ struct ModelSpec {
   float embedding_dropout = 0.1f;                    // on embedding outputs
   nn::PoolingKind pooling = nn::PoolingKind::kMean;  // classifiers only
   OutputKind output = OutputKind::kSoftmax;
-  std::vector<std::string> labels;  // class names, or tag names for taggers (id order)
-  std::string tag_scheme;           // "bio" | "bioes" for taggers, empty otherwise
-  float threshold = 0.5f;           // sigmoid (multi-label) decision threshold
+  std::vector<std::string> labels;                      // class names, or tag names for taggers (id order)
+  data::TagScheme tag_scheme = data::TagScheme::kNone;  // taggers: kBio | kBioes (kNone: plain labels)
+  float threshold = 0.5f;                               // sigmoid (multi-label) decision threshold
+  /// Temperature scaling fitted on dev at the end of training (runtime::Architecture::temperature):
+  /// empty = none; 1 value (softmax, CRF) or one per label (sigmoid).
+  std::vector<float> temperature;
+
+  /// Character encoder (nn::CharCnn over each token's grapheme clusters, joined to the word
+  /// embedding): char_filters == 0 means none; then the other three are 0 too.
+  int char_vocab_size = 0;  // entries of the character list, "<pad>" and "<unk>" included
+  int char_embedding_size = 0;
+  int char_filters = 0;
+  int char_width = 0;
+
+  bool has_char_encoder() const noexcept { return char_filters > 0; }
+  /// Width of the recurrent stack's input.
+  int input_size() const noexcept { return embedding_size + char_filters; }
 
   int num_labels() const noexcept { return static_cast<int>(labels.size()); }
   int directions() const noexcept { return bidirectional ? 2 : 1; }
   int features() const noexcept { return hidden_size * directions(); }
+
+  /// Same architecture, labels and dropout.
+  bool operator==(const ModelSpec&) const = default;
 };
 
-const char* to_string(OutputKind kind) noexcept;
-const char* cell_name(nn::CellType cell) noexcept;
-nn::CellType parse_cell(const std::string& name);  // throws ConfigError("cell", ...)
+/// Throws ConfigError("cell", ...) unless name is "lstm" or "gru".
+nn::CellType parse_cell(const std::string& name);
 
-nlohmann::json spec_to_json(const ModelSpec& spec);
-/// Throws gyre::FormatError-free ConfigError naming the key on bad or missing fields.
-ModelSpec spec_from_json(const nlohmann::json& j);
-/// Shape and range checks (throws ConfigError naming the setting).
+/// The architecture part of the model header (sizes, enums; the classify-only and tag-only
+/// fields set only for their task).
+runtime::Architecture architecture(const ModelSpec& spec);
+/// The spec a model header describes (dropout 0: it is a training setting, kept elsewhere).
+ModelSpec spec_from_header(const runtime::ModelHeader& header);
+/// The same from a loaded runtime::Model's architecture, labels and vocabulary size.
+ModelSpec spec_from_architecture(const runtime::Architecture& arch, const std::vector<std::string>& labels,
+                                 std::size_t vocab_size, std::size_t char_vocab_size);
+
+/// Shape and range checks, including the model-file limits (runtime::ModelHeaderLimits), so that
+/// every model that trains can be saved and read back. Throws ConfigError naming the setting.
 void validate(const ModelSpec& spec);
 
 }  // namespace gyre::model

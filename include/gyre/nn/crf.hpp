@@ -47,7 +47,7 @@ class Crf {
   void reserve_workspace(std::size_t max_steps, std::size_t max_batch);
 
   /// Forbids transitions, first tags and last tags (1 = allowed, 0 = forbidden), e.g. from
-  /// gyre::eval::transition_rules(). Spans: transitions [T*T] row-major (i -> j), start [T],
+  /// gyre::data::transition_rules(). Spans: transitions [T*T] row-major (i -> j), start [T],
   /// end [T]. Forbidden moves get score -inf in decoding; with in_training also in the loss (the
   /// partition then sums over valid paths only, and a gold path using a forbidden move throws
   /// gyre::Error). Throws gyre::Error on a size mismatch or if no path of length 1 is allowed.

@@ -1,5 +1,5 @@
 #pragma once
-// Token embedding "<name>.weight" [V x E] with sparse row gradients: backward touches only the rows
+// Token embedding "<name>.vectors" [V x E] with sparse row gradients: backward touches only the rows
 // of ids seen in the batch and records them in Parameter::touched_rows. Row 0 is padding: its
 // output is always the zero vector and it never receives gradient. Row 1 is the unknown token.
 
@@ -22,7 +22,7 @@ struct PretrainedStats {
 
 class Embedding {
  public:
-  Embedding(ParameterStore& store, int vocab_size, int dim, const std::string& name = "embedding");
+  Embedding(ParameterStore& store, int vocab_size, int dim, const std::string& name = "tokens");
 
   /// N(0, 1) * 0.1 (common practice, no source), padding row 0 zero.
   void init_parameters(Rng& rng);

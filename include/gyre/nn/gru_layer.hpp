@@ -1,11 +1,12 @@
 #pragma once
-// GRU (Cho et al. 2014) in the "reset after" form (DEVELOPERS.md): rows stacked [r z n],
-//   r = sig(W_r x + b_ir + U_r h + b_hr),  z = sig(W_z x + b_iz + U_z h + b_hz)
-//   n = tanh(W_n x + b_in + r * (U_n h + b_hn)),  h' = (1 - z) * n + z * h
+// GRU (Cho et al. 2014: reset gate r, update gate z, candidate h~) in the "reset after" form
+// (DEVELOPERS.md): rows stacked [r z h~]; with W = w_input, U = w_hidden, v[g] = gate g's part of v,
+//   r  = sig(W[r] x + b_input[r] + U[r] h + b_hidden[r]),  z = sig(W[z] x + b_input[z] + U[z] h +
+//   b_hidden[z]) h~ = tanh(W[h~] x + b_input[h~] + r * (U[h~] h + b_hidden[h~])),  h' = (1 - z) * h~ + z * h
 // so the three recurrent gates come from one U h GEMM per step. Cho et al. apply r to h before
-// U_n; this variant is the one cuDNN-style implementations (and torch.nn.GRU) use.
-// Parameters "<prefix>.w_input" [3H x D], "<prefix>.w_hidden" [3H x H], "<prefix>.bias" [1 x 3H]
-// (input side b_i*), "<prefix>.bias_hidden" [1 x 3H] (hidden side b_h*).
+// U[h~]; this variant is the one cuDNN-style implementations (and torch.nn.GRU) use.
+// Parameters "<prefix>.w_input" [3H x D], "<prefix>.w_hidden" [3H x H], "<prefix>.b_input" [1 x 3H]
+// (input side), "<prefix>.b_hidden" [1 x 3H] (hidden side).
 
 #include <memory>
 #include <string>

@@ -1,5 +1,5 @@
 #pragma once
-// Affine layer y = x W^T + b with "<name>.weight" [out x in], "<name>.bias" [1 x out].
+// Affine layer y = x W^T + b with "<name>.w" [out x in], "<name>.b" [1 x out].
 
 #include <string>
 
@@ -11,7 +11,7 @@ namespace gyre::nn {
 
 class Linear {
  public:
-  Linear(ParameterStore& store, int input_size, int output_size, const std::string& name = "head");
+  Linear(ParameterStore& store, int input_size, int output_size, const std::string& name = "readout");
   /// Glorot uniform weight, zero bias (DEVELOPERS.md).
   void init_parameters(Rng& rng);
   int input_size() const noexcept { return static_cast<int>(weight_.value.cols()); }

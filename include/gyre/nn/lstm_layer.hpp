@@ -2,7 +2,7 @@
 // LSTM with forget gate (Hochreiter & Schmidhuber 1997; Gers et al. 2000), no peepholes:
 //   [i f g o] = [sig sig tanh sig](W x + b + U h)     (rows of W, U, b stacked [i f g o])
 //   c' = f * c + i * g,   h' = o * tanh(c')
-// Parameters "<prefix>.w_input" [4H x D], "<prefix>.w_hidden" [4H x H], "<prefix>.bias" [1 x 4H].
+// Parameters "<prefix>.w_input" [4H x D], "<prefix>.w_hidden" [4H x H], "<prefix>.b_input" [1 x 4H].
 
 #include <memory>
 #include <string>

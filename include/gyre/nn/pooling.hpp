@@ -9,14 +9,13 @@
 #include <vector>
 
 #include "gyre/nn/tensor.hpp"
+#include "gyre/runtime/model_header.hpp"
 
 namespace gyre::nn {
 
-enum class PoolingKind { kLast, kMean, kMax };
-
-/// "last", "mean", "max"; throws gyre::ConfigError otherwise.
-PoolingKind parse_pooling(std::string_view name);
-std::string_view pooling_name(PoolingKind kind) noexcept;
+/// The runtime's enum (one set of enums, gyre/runtime/model_header.hpp): runtime::to_string and
+/// runtime::pooling_from_string convert it.
+using PoolingKind = runtime::Pooling;
 
 class Pooling {
  public:

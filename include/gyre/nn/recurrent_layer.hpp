@@ -18,10 +18,12 @@
 #include "gyre/core/rng.hpp"
 #include "gyre/nn/parameter.hpp"
 #include "gyre/nn/tensor.hpp"
+#include "gyre/runtime/model_header.hpp"
 
 namespace gyre::nn {
 
-enum class CellType { kLstm, kGru };
+/// The runtime's enum (one set of enums, gyre/runtime/model_header.hpp).
+using CellType = runtime::Cell;
 
 class RecurrentLayer {
  public:

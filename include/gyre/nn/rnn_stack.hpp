@@ -1,7 +1,7 @@
 #pragma once
 // Stacked recurrent layers, unidirectional or bidirectional, with inverted dropout between layers
 // (on every layer's output except the last; off at inference). Parameters are named
-// "<prefix>.l{k}.{fwd,bwd}.{w_input,w_hidden,bias[,bias_hidden]}" (DEVELOPERS.md "Tensor names").
+// "<prefix>.l{k}.{fwd,bwd}.{w_input,w_hidden,b_input[,b_hidden]}" (DEVELOPERS.md "Tensor names").
 //
 // Usage per batch (time-major, see recurrent_layer.hpp):
 //   stack.forward(x, T, lengths, out, training, &rng);   // out [T*B x output_size()]

@@ -17,6 +17,9 @@ struct ClipResult {
 /// sparse-row parameters only touched rows are read (the others are zero by contract).
 /// Returns NaN or +inf when a gradient is not finite.
 double global_grad_norm(const nn::ParameterStore& params);
+/// Sum of squares of `count` floats, accumulated in double (the building block of
+/// global_grad_norm; the trainer's parallel step sums parts of parameters with it).
+double sum_squares(const float* data, Eigen::Index count);
 
 /// Computes the global norm and, when it is finite and greater than max_norm, scales the
 /// gradients of all trainable parameters (touched rows only for sparse ones) by max_norm / norm.

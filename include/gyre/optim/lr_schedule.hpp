@@ -114,8 +114,14 @@ class PlateauSchedule final : public LearningRateSchedule {
   std::int64_t misses_ = 0;
 };
 
-/// Builds "constant", "linear", "cosine" or "plateau". Throws gyre::ConfigError("schedule", ...)
-/// for another name or inconsistent settings (e.g. linear/cosine without total_steps > warmup).
+enum class ScheduleKind { kConstant, kLinear, kCosine, kPlateau };
+/// "constant", "linear", "cosine", "plateau".
+const char* to_string(ScheduleKind kind) noexcept;
+
+/// Builds the schedule. Throws gyre::ConfigError("schedule", ...) for inconsistent settings
+/// (e.g. linear/cosine without total_steps > warmup).
+std::unique_ptr<LearningRateSchedule> make_schedule(ScheduleKind kind, const ScheduleConfig& config);
+/// The same by name; throws gyre::ConfigError("schedule", ...) for another name.
 std::unique_ptr<LearningRateSchedule> make_schedule(std::string_view name, const ScheduleConfig& config);
 
 }  // namespace gyre::optim

@@ -28,7 +28,7 @@
 
 namespace gyre::optim {
 
-/// A named optimizer state tensor, e.g. {"optim.embedding.weight.m", &moment}. The pointer stays
+/// A named optimizer state tensor, e.g. {"optim.tokens.vectors.m", &moment}. The pointer stays
 /// valid until the optimizer is re-bound or destroyed; writing through it restores state.
 using StateTensor = std::pair<std::string, nn::Matrix*>;
 
@@ -42,6 +42,17 @@ class Optimizer {
   /// Binds to the store on first use (see bind()). Throws gyre::Error if the store's trainable
   /// parameters no longer match the bound ones (count or shape). Does not allocate after bind.
   void step(nn::ParameterStore& params, float learning_rate);
+
+  /// The same update split across threads: prepare_step() once (checks the store, applies the
+  /// bias corrections, counts the step), then update_part(params, part, parts) for every part in
+  /// 0..parts-1, from any threads at once. Dense parameters are split into disjoint element
+  /// ranges (multiples of 16), sparse-row parameters are updated whole by part 0. The updates are
+  /// element-wise, so the result is bit-identical to step() for any `parts`.
+  void prepare_step(nn::ParameterStore& params, float learning_rate);
+  void update_part(nn::ParameterStore& params, int part, int parts);
+  /// Elements [begin, end) of a dense parameter with `size` values that part `part` of `parts`
+  /// owns (the split update_part() uses; the trainer reduces and zeroes gradients by it too).
+  static std::pair<Eigen::Index, Eigen::Index> part_range(Eigen::Index size, int part, int parts) noexcept;
 
   /// Allocates zeroed state for every trainable parameter of the store, in registration order.
   /// Call it before restoring a checkpoint into state_tensors(). Re-binding discards the state and
@@ -98,8 +109,14 @@ struct OptimizerConfig {
   float weight_decay = 0.0F;  // SGD, Adam: L2 term added to the gradient; AdamW: decoupled decay
 };
 
-/// Builds "sgd", "adam" or "adamw". Throws gyre::ConfigError("optimizer", ...) for another name
-/// and for out-of-range hyperparameters.
+enum class OptimizerKind { kSgd, kAdam, kAdamW };
+/// "sgd", "adam", "adamw".
+const char* to_string(OptimizerKind kind) noexcept;
+
+/// Builds the optimizer. Throws gyre::ConfigError for out-of-range hyperparameters.
+std::unique_ptr<Optimizer> make_optimizer(OptimizerKind kind, const OptimizerConfig& config);
+/// The same by name ("sgd", "adam" or "adamw"); throws gyre::ConfigError("optimizer", ...) for
+/// another name.
 std::unique_ptr<Optimizer> make_optimizer(std::string_view name, const OptimizerConfig& config);
 
 }  // namespace gyre::optim

@@ -21,59 +21,41 @@
 
 #include "gyre/runtime/error.hpp"
 #include "gyre/runtime/model_file.hpp"
+#include "gyre/runtime/model_header.hpp"
 #include "gyre/runtime/span.hpp"
 #include "gyre/runtime/tokenizer.hpp"
 
 namespace gyre::runtime {
 
-enum class Task { kClassify, kTag };
-enum class Cell { kLstm, kGru };
-enum class Pooling { kLast, kMean, kMax };
-enum class Output { kSoftmax, kSigmoid, kCrf };
-enum class TagScheme { kNone, kBio, kBioes };
-
-const char* to_string(Task v);
-const char* to_string(Cell v);
-const char* to_string(Pooling v);
-const char* to_string(Output v);
-const char* to_string(TagScheme v);
-
-/// The "architecture" object of the model header (docs/model-format.md).
-struct Architecture {
-  Task task = Task::kClassify;
-  Cell cell = Cell::kLstm;
-  std::size_t embedding_size = 0;
-  std::size_t hidden_size = 0;
-  std::size_t layers = 1;
-  bool bidirectional = false;
-  Pooling pooling = Pooling::kLast;  // classify only
-  Output output = Output::kSoftmax;
-  float multi_label_threshold = 0.5f;  // sigmoid only
-  TagScheme tag_scheme = TagScheme::kNone;  // tag only
-
-  std::size_t directions() const { return bidirectional ? 2 : 1; }
-  std::size_t gates() const { return cell == Cell::kLstm ? 4 : 3; }
-  std::size_t features() const { return hidden_size * directions(); }
-};
-
 /// Classification of one text. Spans point into the Context.
 struct ClassifyResult {
-  Span<const float> probabilities;   // one per label, label order
+  /// One per label, label order; calibrated (temperature-scaled) when the model file holds a
+  /// temperature and the Context's set_calibrated is on (the default).
+  Span<const float> probabilities;
+  Span<const float> logits;          // the output layer's scores, before temperature and softmax/sigmoid
+  Span<const float> features;        // the pooled representation the output layer reads
   std::uint32_t best = 0;            // arg-max label
   Span<const std::uint32_t> chosen;  // softmax: {best}; sigmoid: labels with p >= threshold
   std::size_t token_count = 0;
 };
 
-/// One labelled span of a tagged text: tokens [begin, end) of type `type` (e.g. "date").
+/// One labelled span of a tagged text: tokens [begin, end) of type `type` (e.g. "date"). After
+/// tag(text), bytes [byte_begin, byte_end) of that text are the span as the user wrote it, from
+/// the first byte of its first token to the last byte of its last token, before normalization
+/// (text "on １４/03" gives "１４/03", not the tokens "14 / 03"); tag_tokens()/tag_ids() set 0, 0.
 struct TagSpan {
   std::uint32_t begin = 0;
   std::uint32_t end = 0;
   std::string_view type;
+  std::size_t byte_begin = 0;
+  std::size_t byte_end = 0;
 };
 
 /// Tagging of one text. Spans point into the Context (type strings into the Model).
 struct TagResult {
   Span<const std::string> tokens;  // empty for tag_ids()
+  /// tag(text) only (empty otherwise): per token, the bytes of the text it came from.
+  Span<const ByteRange> token_bytes;
   Span<const std::uint32_t> tags;  // label index per token
   /// [tokens x labels] row-major: softmax of the scores, or CRF posterior marginals
   /// (forward-backward) for output "crf".
@@ -85,7 +67,8 @@ class Context;
 
 class Model {
  public:
-  /// Memory-maps and validates a model file. Throws Error naming the file and the problem.
+  /// Memory-maps and validates an exported model file (header "format": "gyre-model"; a training
+  /// checkpoint is refused: export it first). Throws Error naming the file and the problem.
   static Model load(const std::string& path);
   /// Uses the caller's bytes (no copy): they must outlive the Model and every copy of it.
   static Model from_buffer(const void* data, std::size_t size, std::string name = "<buffer>");
@@ -99,6 +82,8 @@ class Model {
   std::string_view token(std::uint32_t id) const;
   /// Id of a token; 1 (unknown) when absent.
   std::uint32_t token_id(std::string_view token) const;
+  /// Character encoder only: entries of the character list ("<pad>", "<unk>" included), else 0.
+  std::size_t character_count() const;
   const ModelFile& file() const;
   /// Multiply-adds of the forward pass for a sequence of n tokens (for GFLOP/s reports).
   double flops(std::size_t n) const;
@@ -128,11 +113,44 @@ class Context {
   const ClassifyResult& classify(std::string_view text);
   const ClassifyResult& classify_tokens(Span<const std::string> tokens);
   const ClassifyResult& classify_ids(Span<const std::uint32_t> ids);
+  /// A model with a character encoder (architecture().has_char_encoder()) needs each token's
+  /// character ids too: those of token i are char_ids[char_offsets[i] .. char_offsets[i+1])
+  /// (ids.size() + 1 offsets; gyre/runtime/char_tokens.hpp). The overloads without them throw for
+  /// such a model. With a character encoder, classify_tokens()/tag_tokens()/push() take each given
+  /// token as written (un-folded): the word is looked up after the tokenizer's normalization.
+  const ClassifyResult& classify_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                     Span<const std::int32_t> char_offsets);
+
+  /// Why this label, without a backward pass: occlusion attribution (Zeiler & Fergus 2014,
+  /// "Visualizing and Understanding Convolutional Networks", section 4.2, applied to tokens). Score
+  /// t = p(target | ids) - p(target | ids with token t replaced by id 0), the padding id, whose
+  /// embedding is zero (with a character encoder the token also loses its characters, which gives
+  /// zero character features): the same baseline the library's integrated gradients use. Runs
+  /// ids.size() + 1 forward passes; the probabilities are calibrated when calibrated() is on.
+  /// Classify models only. The result (one score per token) stays valid until the next call;
+  /// the last classify result is that of the whole text afterwards. The overload without
+  /// characters throws for a model with a character encoder.
+  Span<const float> occlusion_ids(Span<const std::uint32_t> ids, std::uint32_t target);
+  Span<const float> occlusion_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                  Span<const std::int32_t> char_offsets, std::uint32_t target);
+  /// The same on text (tokenized as classify() does; tokens() gives them).
+  Span<const float> occlusion(std::string_view text, std::uint32_t target);
+  /// Tokens of the last call on text (classify, tag, occlusion).
+  Span<const std::string> tokens() const;
 
   /// Tag models only.
   const TagResult& tag(std::string_view text);
   const TagResult& tag_tokens(Span<const std::string> tokens);
   const TagResult& tag_ids(Span<const std::uint32_t> ids);
+  const TagResult& tag_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                           Span<const std::int32_t> char_offsets);
+
+  /// Temperature scaling (architecture().temperature, gyre/runtime/calibration.hpp) applied to
+  /// every probability this Context returns: on by default; off gives the raw model outputs. It
+  /// never changes a softmax arg-max, a tag or a span; multi-label decisions compare the
+  /// calibrated probabilities with the threshold. No effect when the file has no temperature.
+  void set_calibrated(bool on);
+  bool calibrated() const;
 
   /// Step-wise use (unidirectional models only; throws for bidirectional ones): start a sequence,
   /// feed tokens one at a time, read the distribution. For classifiers the distribution is that
@@ -148,6 +166,9 @@ class Context {
   struct Buffers;
 
  private:
+  /// One step from the input row already in the step buffer.
+  Span<const float> push_input();
+
   Model model_;
   std::unique_ptr<Buffers> b_;
 };

@@ -16,8 +16,10 @@
 
 namespace gyre::runtime {
 
-/// Current container version written by ModelFileWriter; readers refuse anything newer.
-inline constexpr std::uint32_t kModelFormatVersion = 1;
+/// Current container version written by ModelFileWriter; readers refuse any other. Version 2
+/// renamed the model tensors (docs/model-format.md, "Versions"), so version-1 files are refused
+/// with a message saying to retrain rather than misread.
+inline constexpr std::uint32_t kModelFormatVersion = 2;
 
 /// Element types. Numeric values are the on-disk codes.
 enum class DType : std::uint8_t {
@@ -42,7 +44,7 @@ struct TensorInfo {
   std::uint64_t bytes = 0;           // rows * cols * dtype_size
   std::uint64_t scales_offset = 0;   // i8 only: absolute offset of rows f32 scales
   const void* data = nullptr;
-  const float* scales = nullptr;     // i8 only
+  const float* scales = nullptr;  // i8 only
 
   std::uint64_t elements() const { return rows * cols; }
   /// "[4 x 8]" style.
@@ -53,7 +55,7 @@ struct TensorInfo {
 class ModelFile {
  public:
   /// Memory-maps the file. Throws Error ("PATH: what is wrong") if it is missing, truncated,
-  /// corrupt (checksum), of a newer format version or otherwise malformed.
+  /// corrupt (checksum), of another format version or otherwise malformed.
   /// verify_checksum = false records a CRC mismatch (checksum_ok()) instead of throwing, for
   /// diagnostics such as `gyre inspect`; never use such a file for inference.
   static ModelFile open(const std::string& path, bool verify_checksum = true);

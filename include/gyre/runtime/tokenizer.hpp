@@ -4,7 +4,8 @@
 // implementation uses ICU when GYRE_RUNTIME_HAS_ICU is defined (CMake: -DGYRE_RUNTIME_ICU=ON).
 //
 // Pipeline: validate UTF-8 -> normalize (NFKC, then ICU full case folding, then digit folding)
-// -> segment by mode -> drop whitespace (and punctuation if asked) -> cut at max_tokens.
+// -> segment by mode -> drop whitespace (and punctuation if asked) -> cut at max_tokens; on
+// request, each token's byte range in the original text (through the normalization's edits).
 //   words       ICU word boundaries (Unicode UAX #29 as tailored by CLDR root); segments made only
 //               of White_Space are dropped; punctuation-only segments (General_Category P*) are
 //               tokens unless keep_punctuation is false.
@@ -22,6 +23,7 @@
 #include <vector>
 
 #include "gyre/runtime/error.hpp"
+#include "gyre/runtime/utf8.hpp"
 
 namespace gyre::runtime {
 
@@ -42,13 +44,20 @@ struct TokenizerSettings {
   bool operator!=(const TokenizerSettings& o) const { return !(*this == o); }
 };
 
+/// Where a token came from: bytes [begin, end) of the text given to Tokenizer::tokenize, before
+/// any normalization, so text.substr(begin, end - begin) is the user's own spelling of it
+/// ("１４" for the token "14", "ﬁx" for "fix"). When NFKC or case folding turned several input
+/// characters into one piece of output and a token holds only part of that piece (never for
+/// well-formed words), the token gets the bytes of the whole piece.
+struct ByteRange {
+  std::size_t begin = 0;
+  std::size_t end = 0;
+};
+
 /// "words", "chars" or "whitespace".
 const char* to_string(TokenizerMode mode);
 /// Inverse of to_string; throws Error naming the accepted values.
 TokenizerMode tokenizer_mode_from_string(std::string_view name);
-
-/// True when text is well-formed UTF-8 (RFC 3629: no overlongs, no surrogates, <= U+10FFFF).
-bool is_valid_utf8(std::string_view text) noexcept;
 
 /// Turns UTF-8 text into tokens. Holds only its settings (per-thread ICU objects are cached
 /// internally), so it is cheap to copy and tokenize() may be called concurrently from several
@@ -64,11 +73,18 @@ class Tokenizer {
   std::string normalize(std::string_view utf8) const;
 
   /// Clears out, then appends the tokens of utf8 (normalized, then segmented). Reuses out's
-  /// capacity. Throws Error on invalid UTF-8.
-  void tokenize(std::string_view utf8, std::vector<std::string>& out) const;
+  /// capacity. Returns true when max_tokens cut the text (more tokens followed the last one
+  /// kept). Throws Error on invalid UTF-8.
+  bool tokenize(std::string_view utf8, std::vector<std::string>& out) const;
   std::vector<std::string> tokenize(std::string_view utf8) const;
+  /// The same tokens, and in ranges (cleared first) the bytes of utf8 each one came from:
+  /// ranges[i] belongs to out[i], ranges are ascending and do not overlap. In "chars" mode the
+  /// " " token standing for a run of whitespace gets the bytes of that run.
+  bool tokenize(std::string_view utf8, std::vector<std::string>& out, std::vector<ByteRange>& ranges) const;
 
  private:
+  bool tokenize_into(std::string_view utf8, std::vector<std::string>& out,
+                     std::vector<ByteRange>* ranges) const;
   TokenizerSettings settings_;
 };
 

@@ -19,6 +19,12 @@
 
 namespace gyre::text {
 
+/// Default cap on tokens per text for training (the `max_tokens` setting) and for `gyre predict`
+/// on a model whose settings set none: memory then depends on settings, not on the longest line
+/// of the input. 1000 tokens is well above the demo corpora's longest text (79) and typical
+/// messages and reviews (common practice, no source).
+inline constexpr std::size_t kDefaultMaxTokens = 1000;
+
 using runtime::is_valid_utf8;
 using runtime::to_string;
 using runtime::Tokenizer;
@@ -26,9 +32,9 @@ using runtime::tokenizer_mode_from_string;
 using runtime::TokenizerMode;
 using runtime::TokenizerSettings;
 
-/// tokenizer.tokenize(text, out), but a runtime::Error (invalid UTF-8 ...) becomes
-/// gyre::ParseError("path:line: ...").
-void tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_view path, std::size_t line,
+/// tokenizer.tokenize(text, out) (true when max_tokens cut the text), but a runtime::Error
+/// (invalid UTF-8 ...) becomes gyre::ParseError("path:line: ...").
+bool tokenize_at(const Tokenizer& tokenizer, std::string_view text, std::string_view path, std::size_t line,
                  std::vector<std::string>& out);
 
 /// Pre-tokenized input (tagging corpora): normalizes each given token (NFKC, case and digit

@@ -84,6 +84,9 @@ class LabelSet {
   LabelSet() = default;
   /// Names in byte order of the map; ids 0..size()-1.
   explicit LabelSet(const LabelCounts& counts);
+  /// Names in the given order (a model file's label order); counts parallel to names. Throws
+  /// gyre::Error on duplicates or a length mismatch.
+  LabelSet(std::vector<std::string> names, std::vector<std::uint64_t> counts);
 
   std::optional<std::int32_t> find(std::string_view label) const;
   /// Like find, but throws gyre::ParseError(path, line, "label 'x' was not seen in training").
@@ -97,8 +100,11 @@ class LabelSet {
   bool operator==(const LabelSet& other) const { return names_ == other.names_ && counts_ == other.counts_; }
 
  private:
+  void index();
+
   std::vector<std::string> names_;
   std::vector<std::uint64_t> counts_;
+  std::vector<std::int32_t> by_name_;  // ids sorted by name, for find()
 };
 
 /// Contents of vocab.json.
@@ -106,12 +112,29 @@ struct VocabFile {
   TokenizerSettings tokenizer;
   Vocab vocab;
   LabelSet labels;
+  /// A model with a character encoder: its grapheme clusters ([0] "<pad>", [1] "<unk>"; see
+  /// gyre/runtime/char_tokens.hpp). Empty otherwise.
+  std::vector<std::string> characters;
+};
+
+/// Character list of a training corpus: the clusters of its surface tokens seen at least
+/// min_count times, most frequent first (ties by bytes), at most max_size entries with "<pad>"
+/// and "<unk>" (0 = no limit).
+class CharacterListBuilder {
+ public:
+  void add(std::string_view surface_token);
+  std::vector<std::string> build(std::uint64_t min_count, std::size_t max_size) const;
+
+ private:
+  std::unordered_map<std::string, std::uint64_t> counts_;
+  std::vector<std::string_view> scratch_;
 };
 
 /// Writes vocab.json atomically. Format (version 1):
 ///   {"format": "gyre-vocab", "version": 1, "tokenizer": {...},
 ///    "tokens": [["<pad>", 0], ["<unk>", 0], [token, count], ...],
 ///    "labels": [[name, count], ...]}
+/// plus "characters": ["<pad>", "<unk>", cluster, ...] when the model has a character encoder.
 void save_vocab_file(const std::filesystem::path& path, const VocabFile& file);
 /// Reads vocab.json; throws gyre::FormatError (path + what is wrong) on any inconsistency,
 /// gyre::IoError when it cannot be read.

@@ -22,8 +22,11 @@ class ProgressLine {
   void step(std::size_t step, double mean_loss, std::size_t tokens);
   /// Ends the epoch's line with a summary (keeps it on screen).
   void finish_epoch(const std::string& summary);
-  /// A message on its own line (does not break the redrawn line).
+  /// A message on its own line (does not break the redrawn line); quiet hides it.
   void note(const std::string& message);
+  /// "warning: " + message on its own line, printed even when quiet: warnings are about the
+  /// data or the result, not progress.
+  void warn(const std::string& message);
 
   double plain_interval = 5.0;
 

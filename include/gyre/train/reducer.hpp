@@ -27,6 +27,12 @@ class InProcessReducer final : public GradientReducer {
  public:
   void reduce(nn::ParameterStore& into, std::span<nn::ParameterStore* const> others) override;
   void broadcast(const nn::ParameterStore& from, std::span<nn::ParameterStore* const> to) override;
+  /// reduce() split across threads: part `part` of `parts` adds the others' gradients into `into`
+  /// on its element range of every dense parameter (optim::Optimizer::part_range); part 0 also
+  /// does the sparse-row parameters. Same additions in the same order as reduce(), so the same
+  /// bits; the parts touch disjoint memory and may run at the same time.
+  void reduce_part(nn::ParameterStore& into, std::span<nn::ParameterStore* const> others, int part,
+                   int parts);
 };
 
 }  // namespace gyre::train

@@ -4,7 +4,7 @@
 // writes checkpoints atomically, and can resume an interrupted run bit-identically.
 //
 // Run directory (DESIGN.md "Files"): config.json (fully resolved), vocab.json,
-// checkpoint-last.bin, checkpoint-best.bin, log.jsonl (one object per epoch), metrics.json
+// resume.bin, selected.bin, log.jsonl (one object per epoch), metrics.json
 // (written last: its presence marks a finished run).
 
 #include <cstdio>
@@ -17,6 +17,8 @@
 
 namespace gyre::train {
 
+class ProcessGroup;
+
 struct TrainOptions {
   std::filesystem::path out;  // run directory
   bool quiet = false;         // no progress output
@@ -26,6 +28,16 @@ struct TrainOptions {
   int interrupt_after_epochs = 0;
   /// Test hook: behave as if SIGINT arrived after this many optimizer steps of this call (0 = never).
   long long interrupt_after_steps = 0;
+  /// Fit the linear baseline (gyre/train/baseline.hpp) on the same split when the run ends and
+  /// record it in metrics.json under "baseline" (single-label classifiers and taggers).
+  bool fit_baseline = true;
+  /// resume() only: the new total number of epochs (0 = the run's own). Extends a finished or
+  /// early-stopped run too; must not be below the epochs already done. The run's config.json is
+  /// updated, and schedules that depend on the total length use the new one from here on.
+  int epochs = 0;
+  /// The processes that train this run together (nullptr: process_group(), i.e. every rank of
+  /// an MPI job). local_group() trains on this process alone.
+  ProcessGroup* group = nullptr;
 };
 
 enum class TrainOutcome { kFinished, kEarlyStopped, kInterrupted };
@@ -47,7 +59,7 @@ struct TrainResult {
 /// DivergenceError when the loss or gradients stop being finite; IoError on I/O failures.
 TrainResult train(const TrainConfig& config, const TrainOptions& options);
 
-/// Continues the run in options.out from its checkpoint-last.bin, with the config saved there.
+/// Continues the run in options.out from its resume.bin, with the config saved there.
 TrainResult resume(const TrainOptions& options);
 
 }  // namespace gyre::train

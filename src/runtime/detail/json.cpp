@@ -67,13 +67,27 @@ void json_escape(std::string_view s, std::string& out) {
   for (char ch : s) {
     const auto c = static_cast<unsigned char>(ch);
     switch (c) {
-      case '"': out += "\\\""; break;
-      case '\\': out += "\\\\"; break;
-      case '\n': out += "\\n"; break;
-      case '\r': out += "\\r"; break;
-      case '\t': out += "\\t"; break;
-      case '\b': out += "\\b"; break;
-      case '\f': out += "\\f"; break;
+      case '"':
+        out += "\\\"";
+        break;
+      case '\\':
+        out += "\\\\";
+        break;
+      case '\n':
+        out += "\\n";
+        break;
+      case '\r':
+        out += "\\r";
+        break;
+      case '\t':
+        out += "\\t";
+        break;
+      case '\b':
+        out += "\\b";
+        break;
+      case '\f':
+        out += "\\f";
+        break;
       default:
         if (c < 0x20) {
           out += "\\u00";
@@ -89,8 +103,12 @@ void json_escape(std::string_view s, std::string& out) {
 
 void Json::dump_to(std::string& out) const {
   switch (type_) {
-    case Type::kNull: out += "null"; break;
-    case Type::kBool: out += bool_ ? "true" : "false"; break;
+    case Type::kNull:
+      out += "null";
+      break;
+    case Type::kBool:
+      out += bool_ ? "true" : "false";
+      break;
     case Type::kNumber: {
       char buf[64];
       std::to_chars_result r{};
@@ -102,7 +120,9 @@ void Json::dump_to(std::string& out) const {
       out.append(buf, r.ptr);
       break;
     }
-    case Type::kString: json_escape(string_, out); break;
+    case Type::kString:
+      json_escape(string_, out);
+      break;
     case Type::kArray:
       out.push_back('[');
       for (std::size_t i = 0; i < items_.size(); ++i) {
@@ -153,7 +173,8 @@ class JsonParser {
         ++col;
       }
     }
-    throw Error(std::string(what_) + ": line " + std::to_string(line) + ", column " + std::to_string(col) + ": " + msg);
+    throw Error(std::string(what_) + ": line " + std::to_string(line) + ", column " + std::to_string(col) +
+                ": " + msg);
   }
 
   void skip_ws() {
@@ -180,9 +201,12 @@ class JsonParser {
     if (pos_ >= text_.size()) fail("unexpected end of input, expected a value");
     const char c = text_[pos_];
     switch (c) {
-      case '{': return parse_object(depth);
-      case '[': return parse_array(depth);
-      case '"': return Json::string(parse_string());
+      case '{':
+        return parse_object(depth);
+      case '[':
+        return parse_array(depth);
+      case '"':
+        return Json::string(parse_string());
       case 't':
         if (consume("true")) return Json::boolean(true);
         break;
@@ -343,14 +367,30 @@ class JsonParser {
         if (pos_ >= text_.size()) fail("unterminated escape");
         const char e = text_[pos_++];
         switch (e) {
-          case '"': out.push_back('"'); break;
-          case '\\': out.push_back('\\'); break;
-          case '/': out.push_back('/'); break;
-          case 'b': out.push_back('\b'); break;
-          case 'f': out.push_back('\f'); break;
-          case 'n': out.push_back('\n'); break;
-          case 'r': out.push_back('\r'); break;
-          case 't': out.push_back('\t'); break;
+          case '"':
+            out.push_back('"');
+            break;
+          case '\\':
+            out.push_back('\\');
+            break;
+          case '/':
+            out.push_back('/');
+            break;
+          case 'b':
+            out.push_back('\b');
+            break;
+          case 'f':
+            out.push_back('\f');
+            break;
+          case 'n':
+            out.push_back('\n');
+            break;
+          case 'r':
+            out.push_back('\r');
+            break;
+          case 't':
+            out.push_back('\t');
+            break;
           case 'u': {
             std::uint32_t cp = parse_hex4();
             if (cp >= 0xD800 && cp <= 0xDBFF) {
@@ -364,7 +404,9 @@ class JsonParser {
             append_utf8(out, cp);
             break;
           }
-          default: --pos_; fail(std::string("invalid escape '\\") + printable(e) + "'");
+          default:
+            --pos_;
+            fail(std::string("invalid escape '\\") + printable(e) + "'");
         }
         continue;
       }
@@ -411,41 +453,8 @@ class JsonParser {
   std::size_t pos_ = 0;
 };
 
-Json Json::parse(std::string_view text, std::string_view what) { return JsonParser(text, what).parse_document(); }
-
-}  // namespace gyre::runtime::detail
-
-namespace gyre::runtime::detail {
-bool valid_utf8(std::string_view s) noexcept {
-  const auto* p = reinterpret_cast<const unsigned char*>(s.data());
-  const std::size_t n = s.size();
-  std::size_t i = 0;
-  auto cont = [&](std::size_t k, unsigned char lo = 0x80, unsigned char hi = 0xBF) {
-    return i + k < n && p[i + k] >= lo && p[i + k] <= hi;
-  };
-  while (i < n) {
-    const unsigned char c = p[i];
-    std::size_t len = 0;
-    if (c < 0x80) {
-      len = 1;
-    } else if (c >= 0xC2 && c <= 0xDF) {
-      len = cont(1) ? 2 : 0;
-    } else if (c == 0xE0) {
-      len = cont(1, 0xA0) && cont(2) ? 3 : 0;
-    } else if ((c >= 0xE1 && c <= 0xEC) || c == 0xEE || c == 0xEF) {
-      len = cont(1) && cont(2) ? 3 : 0;
-    } else if (c == 0xED) {
-      len = cont(1, 0x80, 0x9F) && cont(2) ? 3 : 0;
-    } else if (c == 0xF0) {
-      len = cont(1, 0x90) && cont(2) && cont(3) ? 4 : 0;
-    } else if (c >= 0xF1 && c <= 0xF3) {
-      len = cont(1) && cont(2) && cont(3) ? 4 : 0;
-    } else if (c == 0xF4) {
-      len = cont(1, 0x80, 0x8F) && cont(2) && cont(3) ? 4 : 0;
-    }
-    if (len == 0) return false;
-    i += len;
-  }
-  return true;
+Json Json::parse(std::string_view text, std::string_view what) {
+  return JsonParser(text, what).parse_document();
 }
+
 }  // namespace gyre::runtime::detail

@@ -70,8 +70,3 @@ class Json {
 void json_escape(std::string_view s, std::string& out);
 
 }  // namespace gyre::runtime::detail
-
-namespace gyre::runtime::detail {
-/// True when s is well-formed UTF-8 (RFC 3629: no overlongs, no surrogates, <= U+10FFFF).
-bool valid_utf8(std::string_view s) noexcept;
-}  // namespace gyre::runtime::detail

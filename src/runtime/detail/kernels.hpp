@@ -2,7 +2,9 @@
 // Inner kernels of the runtime: matrix x vectors for f32, f16 and i8 weights. One portable
 // implementation (plain loops with explicit 8-lane accumulators that compilers vectorise) and,
 // on x86-64, AVX2+FMA+F16C, AVX-512 and AVX-512 VNNI versions compiled with target attributes
-// and chosen at run time with __builtin_cpu_supports, so one binary runs on any x86-64 CPU.
+// and chosen at run time with __builtin_cpu_supports, so one binary runs on any x86-64 CPU; on
+// AArch64, NEON (base architecture) and NEON + SDOT (ARMv8.2 dot product, compiled with a target
+// attribute and chosen when getauxval(AT_HWCAP) has HWCAP_ASIMDDP).
 //
 // All kernels compute Y[t * ldy + r] = dot(W row r, X row t) for r < rows, t < n; W is
 // row-major [rows x cols], X is [n x cols] contiguous.
@@ -13,7 +15,8 @@
 
 namespace gyre::runtime::detail {
 
-enum class Isa { kPortable = 0, kAvx2 = 1, kAvx512 = 2, kAvx512Vnni = 3 };
+/// Ranked within a family: x86 1..3, AArch64 4..5 (a higher rank is faster on CPUs that have it).
+enum class Isa { kPortable = 0, kAvx2 = 1, kAvx512 = 2, kAvx512Vnni = 3, kNeon = 4, kNeonSdot = 5 };
 
 /// Activations quantised to int8 per row (symmetric, scale = max|x| / 127): xs holds q, xu holds
 /// q + 128 (unsigned, for the VNNI u8 x s8 instruction), scale[t] the row scale.
@@ -69,8 +72,8 @@ void pack_f16(const std::uint16_t* w, std::size_t rows, std::size_t cols, std::u
 bool isa_supported(Isa isa) noexcept;
 /// Kernels of one instruction set (must be supported).
 const Kernels& kernels_for(Isa isa) noexcept;
-/// The fastest supported set; GYRE_RUNTIME_ISA=portable|avx2|avx512|vnni in the environment
-/// caps the choice (for testing and benchmarking).
+/// The fastest supported set; GYRE_RUNTIME_ISA=portable|avx2|avx512|vnni (x86-64) or
+/// portable|neon|sdot (AArch64) in the environment caps the choice (for testing and benchmarking).
 const Kernels& best_kernels() noexcept;
 Isa best_isa() noexcept;
 

@@ -21,8 +21,4 @@ constexpr bool is_white_space(char32_t c) noexcept {
          c == 0x3000;
 }
 
-/// Offset of the first byte that makes utf8 ill-formed (RFC 3629, Unicode Table 3-7), or
-/// std::string_view::npos when it is well-formed.
-std::size_t first_invalid_utf8(std::string_view utf8) noexcept;
-
 }  // namespace gyre::runtime::detail

@@ -25,7 +25,7 @@ inline void extract_spans(const std::vector<char>& prefix, const std::vector<std
     const char p = prefix[tag];
     const bool continues = open && type[open_tag] == type[tag] && (p == 'I' || p == 'E') && prev != 'E' && prev != 'S';
     if (open && !continues) {
-      spans.push_back({begin, t, type[open_tag]});
+      spans.push_back({begin, t, type[open_tag], 0, 0});
       open = false;
     }
     if (p != 'O' && !continues) {
@@ -35,7 +35,7 @@ inline void extract_spans(const std::vector<char>& prefix, const std::vector<std
     }
     prev = p;
   }
-  if (open) spans.push_back({begin, static_cast<std::uint32_t>(n), type[open_tag]});
+  if (open) spans.push_back({begin, static_cast<std::uint32_t>(n), type[open_tag], 0, 0});
 }
 
 }  // namespace gyre::runtime::detail

@@ -1,4 +1,4 @@
-#include "gyre/eval/tag_scheme.hpp"
+#include "gyre/data/tag_scheme.hpp"
 
 #include <algorithm>
 #include <cctype>
@@ -6,7 +6,7 @@
 
 #include "gyre/core/error.hpp"
 
-namespace gyre::eval {
+namespace gyre::data {
 namespace {
 
 bool opens_or_continues(char prefix) {
@@ -47,13 +47,13 @@ std::string transition_problem(char prev, std::string_view prev_type, std::strin
       if (prev == 0)
         return std::string(cur_tag) + " at the sentence start; a span of type " + std::string(cur_type) +
                " must start with " + begin +
-               (scheme == TagScheme::bioes && cur == 'E' ? " or be S-" + std::string(cur_type) : "");
+               (scheme == TagScheme::kBioes && cur == 'E' ? " or be S-" + std::string(cur_type) : "");
       return std::string(cur_tag) + " follows " + std::string(prev_tag) + "; a span of type " +
              std::string(cur_type) + " must start with " + begin;
     }
     return "";
   }
-  if (scheme == TagScheme::bioes && opens_or_continues(prev))
+  if (scheme == TagScheme::kBioes && opens_or_continues(prev))
     return std::string(prev_tag) + " is followed by " + std::string(cur_tag) + "; the span of type " +
            std::string(prev_type) + " must go on with I-" + std::string(prev_type) + " or end with E-" +
            std::string(prev_type);
@@ -62,23 +62,19 @@ std::string transition_problem(char prev, std::string_view prev_type, std::strin
 
 }  // namespace
 
-std::string_view to_string(TagScheme scheme) noexcept {
-  return scheme == TagScheme::bio ? "bio" : "bioes";
-}
-
 TagScheme parse_tag_scheme(std::string_view text) {
   std::string lower(text);
   for (char& c : lower) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
-  if (lower == "bio") return TagScheme::bio;
-  if (lower == "bioes") return TagScheme::bioes;
+  if (lower == "bio") return TagScheme::kBio;
+  if (lower == "bioes") return TagScheme::kBioes;
   throw ConfigError("tag_scheme", "unknown tag scheme '" + std::string(text) + "' (expected bio or bioes)");
 }
 
 TagScheme infer_tag_scheme(std::span<const std::string> tag_names) {
-  TagScheme scheme = TagScheme::bio;
+  TagScheme scheme = TagScheme::kBio;
   for (const auto& name : tag_names) {
     const TagParts parts = split_tag(name);
-    if (parts.prefix == 'E' || parts.prefix == 'S') scheme = TagScheme::bioes;
+    if (parts.prefix == 'E' || parts.prefix == 'S') scheme = TagScheme::kBioes;
   }
   return scheme;
 }
@@ -91,6 +87,7 @@ TagParts split_tag(std::string_view tag) {
 }
 
 bool tag_in_scheme(std::string_view tag, TagScheme scheme) noexcept {
+  if (scheme == TagScheme::kNone) return false;
   if (tag == "O") return true;
   if (tag.size() < 3 || tag[1] != '-') return false;
   switch (tag[0]) {
@@ -99,14 +96,14 @@ bool tag_in_scheme(std::string_view tag, TagScheme scheme) noexcept {
       return true;
     case 'E':
     case 'S':
-      return scheme == TagScheme::bioes;
+      return scheme == TagScheme::kBioes;
     default:
       return false;
   }
 }
 
-std::vector<Span> extract_spans(std::span<const std::string> tags) {
-  std::vector<Span> spans;
+std::vector<TypedSpan> extract_spans(std::span<const std::string> tags) {
+  std::vector<TypedSpan> spans;
   char prev = 'O';
   std::string_view prev_type;
   bool open = false;
@@ -123,7 +120,7 @@ std::vector<Span> extract_spans(std::span<const std::string> tags) {
     }
     if (span_starts(prev, prev_type, cur.prefix, cur.type)) {
       // The rules above never start a span while one stays open (a start implies an end).
-      spans.push_back(Span{std::string(cur.type), i, i + 1});
+      spans.push_back(TypedSpan{std::string(cur.type), i, i + 1});
       open = true;
     }
     prev = cur.prefix;
@@ -133,7 +130,9 @@ std::vector<Span> extract_spans(std::span<const std::string> tags) {
   return spans;
 }
 
-std::vector<std::string> encode_spans(std::span<const Span> spans, std::size_t length, TagScheme scheme) {
+std::vector<std::string> encode_spans(std::span<const TypedSpan> spans, std::size_t length,
+                                      TagScheme scheme) {
+  GYRE_CHECK(scheme != TagScheme::kNone, "encode_spans needs the bio or bioes scheme");
   std::vector<std::string> tags(length, "O");
   std::size_t next_free = 0;
   for (const auto& s : spans) {
@@ -143,18 +142,19 @@ std::vector<std::string> encode_spans(std::span<const Span> spans, std::size_t l
                    " is empty or outside a sentence of " + std::to_string(length) + " tokens");
     GYRE_CHECK(s.begin >= next_free, "spans overlap or are not sorted at token " + std::to_string(s.begin));
     next_free = s.end;
-    if (scheme == TagScheme::bioes && s.end - s.begin == 1) {
+    if (scheme == TagScheme::kBioes && s.end - s.begin == 1) {
       tags[s.begin] = "S-" + s.type;
       continue;
     }
     tags[s.begin] = "B-" + s.type;
     for (std::size_t t = s.begin + 1; t < s.end; ++t) tags[t] = "I-" + s.type;
-    if (scheme == TagScheme::bioes) tags[s.end - 1] = "E-" + s.type;
+    if (scheme == TagScheme::kBioes) tags[s.end - 1] = "E-" + s.type;
   }
   return tags;
 }
 
 std::vector<TagIssue> check_tags(std::span<const std::string> tags, TagScheme scheme) {
+  GYRE_CHECK(scheme != TagScheme::kNone, "check_tags needs the bio or bioes scheme");
   std::vector<TagIssue> issues;
   char prev = 0;  // 0 = sentence start (or after a malformed tag: treated like a fresh start)
   std::string_view prev_type, prev_tag;
@@ -169,7 +169,7 @@ std::vector<TagIssue> check_tags(std::span<const std::string> tags, TagScheme sc
     }
     if (!tag_in_scheme(tags[i], scheme)) {
       issues.push_back({i, "'" + tags[i] + "' is not a " +
-                               std::string(scheme == TagScheme::bio ? "BIO" : "BIOES") +
+                               std::string(scheme == TagScheme::kBio ? "BIO" : "BIOES") +
                                " tag (BIO has only B-, I- and O)"});
       prev = 0;
       continue;
@@ -181,7 +181,7 @@ std::vector<TagIssue> check_tags(std::span<const std::string> tags, TagScheme sc
     prev_type = cur.type;
     prev_tag = tags[i];
   }
-  if (scheme == TagScheme::bioes && !tags.empty() && opens_or_continues(prev))
+  if (scheme == TagScheme::kBioes && !tags.empty() && opens_or_continues(prev))
     issues.push_back({tags.size() - 1, "the sentence ends on " + std::string(prev_tag) +
                                            "; the span of type " + std::string(prev_type) +
                                            " must end with E-" + std::string(prev_type) +
@@ -190,7 +190,7 @@ std::vector<TagIssue> check_tags(std::span<const std::string> tags, TagScheme sc
 }
 
 std::vector<std::string> repair_tags(std::span<const std::string> tags, TagScheme scheme) {
-  const std::vector<Span> spans = extract_spans(tags);
+  const std::vector<TypedSpan> spans = extract_spans(tags);
   return encode_spans(spans, tags.size(), scheme);
 }
 
@@ -201,6 +201,7 @@ std::vector<std::string> convert_tags(std::span<const std::string> tags, TagSche
 TransitionRules transition_rules(std::span<const std::string> tag_names, TagScheme scheme) {
   const std::size_t n = tag_names.size();
   GYRE_CHECK(n > 0, "transition rules need at least one tag");
+  GYRE_CHECK(scheme != TagScheme::kNone, "transition rules need the bio or bioes scheme");
   std::vector<TagParts> parts(n);
   for (std::size_t i = 0; i < n; ++i) {
     parts[i] = split_tag(tag_names[i]);
@@ -215,7 +216,7 @@ TransitionRules transition_rules(std::span<const std::string> tag_names, TagSche
   r.end.assign(n, 0);
   for (std::size_t j = 0; j < n; ++j) {
     r.start[j] = transition_problem(0, {}, {}, parts[j].prefix, parts[j].type, tag_names[j], scheme).empty();
-    r.end[j] = scheme == TagScheme::bio || !opens_or_continues(parts[j].prefix);
+    r.end[j] = scheme == TagScheme::kBio || !opens_or_continues(parts[j].prefix);
     for (std::size_t i = 0; i < n; ++i)
       r.allowed[i * n + j] = transition_problem(parts[i].prefix, parts[i].type, tag_names[i], parts[j].prefix,
                                                 parts[j].type, tag_names[j], scheme)
@@ -224,4 +225,4 @@ TransitionRules transition_rules(std::span<const std::string> tag_names, TagSche
   return r;
 }
 
-}  // namespace gyre::eval
+}  // namespace gyre::data

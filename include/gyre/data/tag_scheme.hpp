@@ -23,12 +23,16 @@
 #include <string_view>
 #include <vector>
 
-namespace gyre::eval {
+#include "gyre/runtime/model_header.hpp"
 
-enum class TagScheme { bio, bioes };
+namespace gyre::data {
 
-/// "bio" / "bioes".
-std::string_view to_string(TagScheme scheme) noexcept;
+/// The runtime's enum (one set of enums, gyre/runtime/model_header.hpp): kBio, kBioes, and
+/// kNone for a tagger whose labels are plain types. to_string(TagScheme) gives "bio", "bioes",
+/// "none". The functions below that take a scheme need kBio or kBioes (gyre::Error otherwise).
+using TagScheme = runtime::TagScheme;
+using runtime::to_string;
+
 /// Parses "bio" or "bioes" (case-insensitive); throws gyre::ConfigError("tag_scheme", ...) otherwise.
 TagScheme parse_tag_scheme(std::string_view text);
 
@@ -46,24 +50,25 @@ struct TagParts {
 /// Splits a tag; throws gyre::Error("malformed tag '...'") if it is neither "O" nor
 /// "<B|I|E|S>-<non-empty type>".
 TagParts split_tag(std::string_view tag);
-/// True if the tag is well-formed and its prefix belongs to the scheme (BIO has no E or S).
+/// True if the tag is well-formed and its prefix belongs to the scheme (BIO has no E or S; kNone
+/// has no prefixes, so false).
 bool tag_in_scheme(std::string_view tag, TagScheme scheme) noexcept;
 
 /// A labelled span of tokens [begin, end) within one sentence.
-struct Span {
+struct TypedSpan {
   std::string type;
   std::size_t begin = 0;
   std::size_t end = 0;
-  bool operator==(const Span&) const = default;
+  bool operator==(const TypedSpan&) const = default;
 };
 
 /// Spans of a tag sequence under the CoNLL-2000 reading above, in order of position. Accepts any
 /// well-formed tags of either scheme; throws gyre::Error (naming the position) on a malformed tag.
-std::vector<Span> extract_spans(std::span<const std::string> tags);
+std::vector<TypedSpan> extract_spans(std::span<const std::string> tags);
 
 /// Writes spans as tags of a sentence of `length` tokens in the given scheme. Spans must be
 /// non-empty, inside the sentence, sorted and non-overlapping (throws gyre::Error otherwise).
-std::vector<std::string> encode_spans(std::span<const Span> spans, std::size_t length, TagScheme scheme);
+std::vector<std::string> encode_spans(std::span<const TypedSpan> spans, std::size_t length, TagScheme scheme);
 
 /// One invalid tag or transition in a sentence. position is the 0-based token index (for an
 /// unfinished span at the sentence end: the index of the last token). The caller adds file:line.
@@ -101,4 +106,4 @@ struct TransitionRules {
 };
 TransitionRules transition_rules(std::span<const std::string> tag_names, TagScheme scheme);
 
-}  // namespace gyre::eval
+}  // namespace gyre::data

@@ -1,0 +1,133 @@
+#pragma once
+// Linear baselines fitted beside every recurrent model (issue 12 item 2):
+//  - NgramClassifier: bag of word unigrams + bigrams, each feature weighted 1 + ln(count)
+//    and every example's vector scaled to unit L2 norm ("sublinear tf", Manning, Raghavan &
+//    Schuetze 2008, section 6.4.1); n-grams kept if they occur in at least `min_df` training
+//    examples. Model: multinomial logistic regression with an L2 penalty.
+//  - WindowTagger: one multinomial logistic regression per token over one-hot features of the
+//    previous, current and next token (as the model sees them, e.g. case-folded) and the word
+//    shape of each of the three (from the un-folded token: capitals, digits and punctuation
+//    survive case folding). Tags are predicted token by token (no transition model).
+// Both are fitted by L-BFGS (Nocedal 1980; Liu & Nocedal 1989) on
+//   sum_i -log softmax(W x_i + b)[y_i] + ||W||^2 / (2 C)        (the bias b is not penalised)
+// in float64, single-threaded, so a fit is deterministic. This is the objective python3-sklearn's
+// LogisticRegression(penalty="l2", C=C, solver="lbfgs") minimises; with two classes sklearn
+// fits one weight vector w = w_1 - w_0 whose penalty ||w||^2/(2C) equals the softmax form's
+// with C/2, so two-class fits use C/2 (same decision function). Fixtures: tools/datasets/baselines.py.
+
+#include <cstddef>
+#include <cstdint>
+#include <span>
+#include <string>
+#include <string_view>
+#include <unordered_map>
+#include <vector>
+
+#include <nlohmann/json_fwd.hpp>
+
+namespace gyre::eval {
+
+/// Rows of a sparse matrix (compressed sparse rows), float64 values.
+struct SparseRows {
+  std::vector<std::size_t> row_start{0};  // row r spans [row_start[r], row_start[r+1])
+  std::vector<std::int32_t> columns;
+  std::vector<double> values;
+  std::size_t rows() const noexcept { return row_start.size() - 1; }
+  void add_row(std::span<const std::int32_t> cols, std::span<const double> vals);
+};
+
+struct LbfgsOptions {
+  double c = 10.0;                   // inverse penalty strength (sklearn's C)
+  int max_iterations = 1000;         // sklearn's max_iter
+  int history = 10;                  // L-BFGS memory m (common practice, Nocedal & Wright 2006 ch. 7)
+  double gradient_tolerance = 1e-6;  // stop when max |gradient| <= tol * max(1, |f|)
+};
+
+/// A fitted multinomial logistic regression: scores = W x + b, W stored feature-major
+/// ([features x classes]) so a sparse row touches contiguous memory.
+struct LinearModel {
+  int features = 0;
+  int classes = 0;
+  std::vector<double> weights;  // features * classes
+  std::vector<double> bias;     // classes
+  int iterations = 0;           // L-BFGS iterations used
+  double objective = 0.0;       // final value of the penalised loss
+  bool converged = false;
+
+  /// Class scores of one sparse row (entries with column >= features are ignored).
+  void scores(std::span<const std::int32_t> cols, std::span<const double> vals, std::span<double> out) const;
+  int predict(std::span<const std::int32_t> cols, std::span<const double> vals) const;
+};
+
+/// Fits by L-BFGS with a backtracking (Armijo) line search. labels[i] in [0, classes).
+/// Throws gyre::Error if rows and labels differ in count, a label is out of range or classes < 2.
+LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
+                                    int features, const LbfgsOptions& options);
+
+/// Bag-of-n-grams classifier over token lists (single-label).
+class NgramClassifier {
+ public:
+  explicit NgramClassifier(int min_df = 2) : min_df_(min_df) {}
+  /// Adds one training example; `label` is an index in [0, classes).
+  void add(std::span<const std::string> tokens, std::int32_t label);
+  /// Builds the feature index from the examples added and fits. Throws gyre::Error if fewer
+  /// than two classes occur.
+  void fit(int classes, const LbfgsOptions& options);
+  std::int32_t predict(std::span<const std::string> tokens) const;
+  /// Softmax probabilities, one per class.
+  std::vector<double> probabilities(std::span<const std::string> tokens) const;
+
+  std::size_t feature_count() const noexcept { return index_.size(); }
+  const LinearModel& model() const noexcept { return model_; }
+  double c() const noexcept { return c_; }
+
+  /// The unigram and bigram keys of a token list ("a", "a b"; bigrams join with U+0001).
+  static void ngrams(std::span<const std::string> tokens, std::vector<std::string>& out);
+
+ private:
+  void featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
+                 std::vector<double>& vals) const;
+  int min_df_;
+  std::vector<std::vector<std::string>> train_tokens_;
+  std::vector<std::int32_t> train_labels_;
+  std::unordered_map<std::string, std::int32_t> index_;
+  LinearModel model_;
+  double c_ = 0;
+};
+
+/// The word shape of a token: ASCII upper-case letters -> 'X', ASCII lower-case -> 'x', ASCII
+/// digits -> 'd', every other byte kept; runs of one symbol longer than 2 cut to 2
+/// ("Marrowby's" -> "Xxx'x", "12-B" -> "dd-X"). ASCII only on purpose: gyre_eval has no ICU,
+/// and the rule is trivial to mirror in the sklearn fixture script.
+std::string word_shape(std::string_view token);
+
+/// Token-window linear tagger.
+class WindowTagger {
+ public:
+  /// `tokens`: as the model sees them (normalised); `raw`: the same tokens un-folded (for the
+  /// shape features); tags as strings. Throws gyre::Error on length mismatch.
+  void add(std::span<const std::string> tokens, std::span<const std::string> raw,
+           std::span<const std::string> tags);
+  void fit(const LbfgsOptions& options);
+  std::vector<std::string> predict(std::span<const std::string> tokens,
+                                   std::span<const std::string> raw) const;
+
+  std::size_t feature_count() const noexcept { return index_.size(); }
+  const std::vector<std::string>& tag_names() const noexcept { return tag_names_; }
+  const LinearModel& model() const noexcept { return model_; }
+
+  /// Feature keys of position t ("w-1=..", "w0=..", "w+1=..", "s-1=..", "s0=..", "s+1=..";
+  /// "<s>"/"</s>" beyond the sentence).
+  static void features(std::span<const std::string> tokens, std::span<const std::string> raw, std::size_t t,
+                       std::vector<std::string>& out);
+
+ private:
+  std::vector<std::vector<std::string>> keys_;  // per training token: its feature keys
+  std::vector<std::int32_t> labels_;
+  std::vector<std::string> tag_names_;
+  std::unordered_map<std::string, std::int32_t> tag_ids_;
+  std::unordered_map<std::string, std::int32_t> index_;
+  LinearModel model_;
+};
+
+}  // namespace gyre::eval

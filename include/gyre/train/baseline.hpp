@@ -1,0 +1,68 @@
+#pragma once
+// The linear baseline fitted beside every recurrent model (issue 12 item 2), on the run's own
+// training split and tokens: a bag-of-n-grams logistic regression for single-label classifiers,
+// a token-window logistic regression for taggers (gyre/eval/linear_baseline.hpp has the
+// features and the solver). Its inverse penalty C is chosen on the dev split from
+// kBaselinePenaltyGrid (accuracy for classifiers, span F1 for taggers; ties: the smaller C).
+// Multi-label runs have none.
+
+#include <memory>
+#include <span>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "gyre/data/example.hpp"
+#include "gyre/data/reader.hpp"
+#include "gyre/text/vocab.hpp"
+#include "gyre/train/config.hpp"
+
+namespace gyre::train {
+
+inline constexpr double kBaselinePenaltyGrid[] = {1.0, 10.0, 100.0};
+
+/// Splits `examples` into (kept, dev) by a hash of each example exactly as `gyre train` does
+/// without --dev (independent of the seed): example goes to dev when hash % 1e6 < fraction * 1e6.
+void split_dev_by_hash(std::vector<data::Example>& examples, double dev_fraction,
+                       std::vector<data::Example>& dev);
+
+class LinearBaseline {
+ public:
+  ~LinearBaseline();
+  LinearBaseline(LinearBaseline&&) noexcept;
+  LinearBaseline& operator=(LinearBaseline&&) noexcept;
+
+  /// Fits on `train` with the tokens the model sees (vocab's tokenizer settings; tagging tokens
+  /// normalised, their raw form kept for shapes); with `c` > 0 uses that C, else picks C from
+  /// kBaselinePenaltyGrid on `dev`. Labels/tags are those of `vocab`. Throws ConfigError for a
+  /// multi-label task, ParseError naming path and line on bad text.
+  static LinearBaseline fit(const text::VocabFile& vocab, data::Task task,
+                            std::span<const data::Example> train, const std::string& train_path,
+                            std::span<const data::Example> dev, const std::string& dev_path, double c = 0);
+
+  /// Scores labelled examples: classifiers {"accuracy", "macro_f1"}, taggers {"span_f1",
+  /// "token_accuracy"} (the same keys as the model's dev summary).
+  nlohmann::json score(std::span<const data::Example> examples, const std::string& path) const;
+
+  /// "bag of token 1-2-grams, L2 logistic regression (C=10)" or the tagger's equivalent.
+  std::string description() const;
+  double c() const noexcept;
+  std::size_t feature_count() const noexcept;
+
+ private:
+  struct Impl;
+  explicit LinearBaseline(std::unique_ptr<Impl> impl);
+  std::unique_ptr<Impl> impl_;
+};
+
+/// The training and dev examples a run used, read again from the files in its config
+/// (the same hash split when it had no dev file).
+struct RunExamples {
+  std::vector<data::Example> train, dev;
+  std::string dev_path;
+  data::Task task = data::Task::kClassify;
+};
+RunExamples read_run_examples(const TrainConfig& config);
+
+}  // namespace gyre::train

@@ -1,0 +1,421 @@
+#include "gyre/eval/linear_baseline.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <map>
+
+#include "gyre/core/error.hpp"
+
+namespace gyre::eval {
+
+void SparseRows::add_row(std::span<const std::int32_t> cols, std::span<const double> vals) {
+  GYRE_CHECK(cols.size() == vals.size(), "sparse row: columns and values differ in length");
+  columns.insert(columns.end(), cols.begin(), cols.end());
+  values.insert(values.end(), vals.begin(), vals.end());
+  row_start.push_back(columns.size());
+}
+
+void LinearModel::scores(std::span<const std::int32_t> cols, std::span<const double> vals,
+                         std::span<double> out) const {
+  const auto k = static_cast<std::size_t>(classes);
+  std::copy(bias.begin(), bias.end(), out.begin());
+  for (std::size_t e = 0; e < cols.size(); ++e) {
+    if (cols[e] < 0 || cols[e] >= features) continue;
+    const double* w = weights.data() + static_cast<std::size_t>(cols[e]) * k;
+    for (std::size_t c = 0; c < k; ++c) out[c] += vals[e] * w[c];
+  }
+}
+
+int LinearModel::predict(std::span<const std::int32_t> cols, std::span<const double> vals) const {
+  std::vector<double> s(static_cast<std::size_t>(classes));
+  scores(cols, vals, s);
+  // First maximum wins (sklearn's argmax does the same).
+  return static_cast<int>(std::max_element(s.begin(), s.end()) - s.begin());
+}
+
+namespace {
+
+double dot(const std::vector<double>& a, const std::vector<double>& b) {
+  double s = 0;
+  for (std::size_t i = 0; i < a.size(); ++i) s += a[i] * b[i];
+  return s;
+}
+
+// Penalised multinomial log loss and its gradient at theta = [W (features x classes), b].
+struct Objective {
+  const SparseRows& x;
+  std::span<const std::int32_t> y;
+  std::size_t features, classes;
+  double inv_c;
+  std::vector<double> z;  // per-row scratch
+
+  double operator()(const std::vector<double>& theta, std::vector<double>& grad) {
+    std::fill(grad.begin(), grad.end(), 0.0);
+    const std::size_t k = classes;
+    const double* w = theta.data();
+    const double* b = theta.data() + features * k;
+    double* gw = grad.data();
+    double* gb = grad.data() + features * k;
+    z.resize(k);
+    double loss = 0;
+    for (std::size_t r = 0; r < x.rows(); ++r) {
+      const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
+      for (std::size_t c = 0; c < k; ++c) z[c] = b[c];
+      for (std::size_t e = begin; e < end; ++e) {
+        const double* wr = w + static_cast<std::size_t>(x.columns[e]) * k;
+        const double v = x.values[e];
+        for (std::size_t c = 0; c < k; ++c) z[c] += v * wr[c];
+      }
+      const double m = *std::max_element(z.begin(), z.end());
+      double sum = 0;
+      for (std::size_t c = 0; c < k; ++c) {
+        z[c] = std::exp(z[c] - m);
+        sum += z[c];
+      }
+      const auto label = static_cast<std::size_t>(y[r]);
+      loss += std::log(sum) - std::log(z[label]);
+      for (std::size_t c = 0; c < k; ++c) z[c] = z[c] / sum - (c == label ? 1.0 : 0.0);
+      for (std::size_t c = 0; c < k; ++c) gb[c] += z[c];
+      for (std::size_t e = begin; e < end; ++e) {
+        double* gr = gw + static_cast<std::size_t>(x.columns[e]) * k;
+        const double v = x.values[e];
+        for (std::size_t c = 0; c < k; ++c) gr[c] += v * z[c];
+      }
+    }
+    double penalty = 0;
+    for (std::size_t i = 0; i < features * k; ++i) {
+      penalty += w[i] * w[i];
+      gw[i] += inv_c * w[i];
+    }
+    return loss + 0.5 * inv_c * penalty;
+  }
+};
+
+double max_abs(const std::vector<double>& v) {
+  double m = 0;
+  for (const double a : v) m = std::max(m, std::abs(a));
+  return m;
+}
+
+}  // namespace
+
+LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
+                                    int features, const LbfgsOptions& options) {
+  GYRE_CHECK(classes >= 2, "logistic regression needs at least two classes");
+  GYRE_CHECK(features >= 0, "negative feature count");
+  GYRE_CHECK(x.rows() == labels.size(), "logistic regression: rows and labels differ in count");
+  GYRE_CHECK(options.c > 0 && std::isfinite(options.c), "logistic regression: C must be positive");
+  for (const auto l : labels) GYRE_CHECK(l >= 0 && l < classes, "logistic regression: label out of range");
+  for (const auto c : x.columns)
+    GYRE_CHECK(c >= 0 && c < features, "logistic regression: column out of range");
+
+  const auto k = static_cast<std::size_t>(classes);
+  const auto f = static_cast<std::size_t>(features);
+  const std::size_t n = f * k + k;
+  // Two classes: the softmax form with C/2 has the decision function of the one-vector form with C.
+  const double c = classes == 2 ? options.c / 2 : options.c;
+  Objective objective{x, labels, f, k, 1.0 / c, {}};
+
+  std::vector<double> theta(n, 0.0), grad(n), direction(n), next(n), next_grad(n);
+  double value = objective(theta, grad);
+  const auto m = static_cast<std::size_t>(std::max(1, options.history));
+  std::vector<std::vector<double>> s_hist, y_hist;
+  std::vector<double> rho_hist, alpha(m);
+  std::size_t oldest = 0;  // ring buffer start once full
+
+  LinearModel out;
+  out.features = features;
+  out.classes = classes;
+  int iteration = 0;
+  for (; iteration < options.max_iterations; ++iteration) {
+    if (max_abs(grad) <= options.gradient_tolerance * std::max(1.0, std::abs(value))) {
+      out.converged = true;
+      break;
+    }
+    // Two-loop recursion: direction = -H grad (Nocedal & Wright 2006, algorithm 7.4).
+    direction = grad;
+    const std::size_t count = s_hist.size();
+    for (std::size_t j = 0; j < count; ++j) {
+      const std::size_t i = (oldest + count - 1 - j) % count;
+      alpha[i] = rho_hist[i] * dot(s_hist[i], direction);
+      for (std::size_t p = 0; p < n; ++p) direction[p] -= alpha[i] * y_hist[i][p];
+    }
+    double gamma = 1.0;
+    if (count > 0) {
+      const std::size_t last = (oldest + count - 1) % count;
+      gamma = dot(s_hist[last], y_hist[last]) / dot(y_hist[last], y_hist[last]);
+    }
+    for (auto& d : direction) d *= gamma;
+    for (std::size_t j = 0; j < count; ++j) {
+      const std::size_t i = (oldest + j) % count;
+      const double beta = rho_hist[i] * dot(y_hist[i], direction);
+      for (std::size_t p = 0; p < n; ++p) direction[p] += s_hist[i][p] * (alpha[i] - beta);
+    }
+    for (auto& d : direction) d = -d;
+    double slope = dot(grad, direction);
+    if (!(slope < 0)) {  // not a descent direction: restart from steepest descent
+      s_hist.clear();
+      y_hist.clear();
+      rho_hist.clear();
+      oldest = 0;
+      for (std::size_t p = 0; p < n; ++p) direction[p] = -grad[p];
+      slope = dot(grad, direction);
+    }
+    // First step: unit length; later: the quasi-Newton step itself.
+    double step = count == 0 ? 1.0 / std::sqrt(dot(grad, grad)) : 1.0;
+    double next_value = 0;
+    bool accepted = false;
+    for (int ls = 0; ls < 60; ++ls) {
+      for (std::size_t p = 0; p < n; ++p) next[p] = theta[p] + step * direction[p];
+      next_value = objective(next, next_grad);
+      if (std::isfinite(next_value) && next_value <= value + 1e-4 * step * slope) {  // Armijo
+        accepted = true;
+        break;
+      }
+      step *= 0.5;
+    }
+    if (!accepted) break;  // no decrease possible at float64 precision: at the optimum
+    std::vector<double> s(n), yv(n);
+    for (std::size_t p = 0; p < n; ++p) {
+      s[p] = next[p] - theta[p];
+      yv[p] = next_grad[p] - grad[p];
+    }
+    const double sy = dot(s, yv);
+    const double decrease = value - next_value;
+    theta.swap(next);
+    grad.swap(next_grad);
+    value = next_value;
+    if (sy > 1e-12 * dot(yv, yv)) {  // curvature condition, else skip the pair
+      if (s_hist.size() < m) {
+        s_hist.push_back(std::move(s));
+        y_hist.push_back(std::move(yv));
+        rho_hist.push_back(1.0 / sy);
+      } else {
+        s_hist[oldest] = std::move(s);
+        y_hist[oldest] = std::move(yv);
+        rho_hist[oldest] = 1.0 / sy;
+        oldest = (oldest + 1) % m;
+      }
+    }
+    // Relative decrease at float64 resolution (scipy's L-BFGS-B uses ftol = 64 eps in sklearn).
+    if (decrease <= 64 * std::numeric_limits<double>::epsilon() * std::max({std::abs(value), 1.0})) {
+      out.converged = true;
+      ++iteration;
+      break;
+    }
+  }
+  out.iterations = iteration;
+  out.objective = value;
+  out.weights.assign(theta.begin(), theta.begin() + static_cast<std::ptrdiff_t>(f * k));
+  out.bias.assign(theta.begin() + static_cast<std::ptrdiff_t>(f * k), theta.end());
+  return out;
+}
+
+// ---------------------------------------------------------------- n-gram classifier
+
+void NgramClassifier::ngrams(std::span<const std::string> tokens, std::vector<std::string>& out) {
+  out.clear();
+  for (const auto& t : tokens) out.push_back(t);
+  for (std::size_t i = 1; i < tokens.size(); ++i) out.push_back(tokens[i - 1] + '\x01' + tokens[i]);
+}
+
+void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t label) {
+  GYRE_CHECK(label >= 0, "negative label");
+  train_tokens_.emplace_back(tokens.begin(), tokens.end());
+  train_labels_.push_back(label);
+}
+
+void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
+                                std::vector<double>& vals) const {
+  std::vector<std::string> keys;
+  ngrams(tokens, keys);
+  std::map<std::int32_t, int> counts;  // ordered: a row's columns ascending, deterministic sums
+  for (const auto& key : keys) {
+    const auto it = index_.find(key);
+    if (it != index_.end()) ++counts[it->second];
+  }
+  cols.clear();
+  vals.clear();
+  double norm = 0;
+  for (const auto& [col, count] : counts) {
+    const double v = 1.0 + std::log(static_cast<double>(count));  // sublinear tf
+    cols.push_back(col);
+    vals.push_back(v);
+    norm += v * v;
+  }
+  if (norm > 0) {
+    norm = std::sqrt(norm);
+    for (auto& v : vals) v /= norm;
+  }
+}
+
+void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
+  GYRE_CHECK(!train_tokens_.empty(), "linear baseline: no training examples");
+  // Document frequency of every n-gram; keep those in >= min_df examples. Column ids follow
+  // the sorted key order, so the fit does not depend on hash-map iteration order.
+  std::unordered_map<std::string, std::int32_t> df;
+  std::vector<std::string> keys;
+  for (const auto& tokens : train_tokens_) {
+    ngrams(tokens, keys);
+    std::sort(keys.begin(), keys.end());
+    keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
+    for (const auto& k : keys) ++df[k];
+  }
+  std::vector<std::string> kept;
+  for (const auto& [key, count] : df)
+    if (count >= min_df_) kept.push_back(key);
+  std::sort(kept.begin(), kept.end());
+  index_.clear();
+  for (std::size_t i = 0; i < kept.size(); ++i) index_.emplace(kept[i], static_cast<std::int32_t>(i));
+
+  SparseRows x;
+  std::vector<std::int32_t> cols;
+  std::vector<double> vals;
+  for (const auto& tokens : train_tokens_) {
+    featurize(tokens, cols, vals);
+    x.add_row(cols, vals);
+  }
+  model_ = fit_logistic_regression(x, train_labels_, classes, static_cast<int>(kept.size()), options);
+  c_ = options.c;
+}
+
+std::int32_t NgramClassifier::predict(std::span<const std::string> tokens) const {
+  std::vector<std::int32_t> cols;
+  std::vector<double> vals;
+  featurize(tokens, cols, vals);
+  return model_.predict(cols, vals);
+}
+
+std::vector<double> NgramClassifier::probabilities(std::span<const std::string> tokens) const {
+  std::vector<std::int32_t> cols;
+  std::vector<double> vals;
+  featurize(tokens, cols, vals);
+  std::vector<double> s(static_cast<std::size_t>(model_.classes));
+  model_.scores(cols, vals, s);
+  const double m = *std::max_element(s.begin(), s.end());
+  double sum = 0;
+  for (auto& v : s) sum += (v = std::exp(v - m));
+  for (auto& v : s) v /= sum;
+  return s;
+}
+
+// ---------------------------------------------------------------- window tagger
+
+std::string word_shape(std::string_view token) {
+  std::string out;
+  char last = 0;
+  int run = 0;
+  for (const char ch : token) {
+    const char s = (ch >= 'A' && ch <= 'Z')   ? 'X'
+                   : (ch >= 'a' && ch <= 'z') ? 'x'
+                   : (ch >= '0' && ch <= '9') ? 'd'
+                                              : ch;
+    run = s == last ? run + 1 : 1;
+    last = s;
+    if (run <= 2) out.push_back(s);
+  }
+  return out;
+}
+
+void WindowTagger::features(std::span<const std::string> tokens, std::span<const std::string> raw,
+                            std::size_t t, std::vector<std::string>& out) {
+  out.clear();
+  const auto word = [&](std::ptrdiff_t i) -> std::string {
+    if (i < 0) return "<s>";
+    if (static_cast<std::size_t>(i) >= tokens.size()) return "</s>";
+    return tokens[static_cast<std::size_t>(i)];
+  };
+  const auto shape = [&](std::ptrdiff_t i) -> std::string {
+    if (i < 0) return "<s>";
+    if (static_cast<std::size_t>(i) >= raw.size()) return "</s>";
+    return word_shape(raw[static_cast<std::size_t>(i)]);
+  };
+  const auto p = static_cast<std::ptrdiff_t>(t);
+  out.push_back("w-1=" + word(p - 1));
+  out.push_back("w0=" + word(p));
+  out.push_back("w+1=" + word(p + 1));
+  out.push_back("s-1=" + shape(p - 1));
+  out.push_back("s0=" + shape(p));
+  out.push_back("s+1=" + shape(p + 1));
+}
+
+void WindowTagger::add(std::span<const std::string> tokens, std::span<const std::string> raw,
+                       std::span<const std::string> tags) {
+  GYRE_CHECK(tokens.size() == raw.size() && tokens.size() == tags.size(),
+             "window tagger: tokens, raw tokens and tags differ in length");
+  std::vector<std::string> keys;
+  for (std::size_t t = 0; t < tokens.size(); ++t) {
+    features(tokens, raw, t, keys);
+    keys_.push_back(keys);
+    auto [it, fresh] = tag_ids_.try_emplace(tags[t], 0);
+    if (fresh) tag_names_.push_back(tags[t]);
+    labels_.push_back(-1 -
+                      static_cast<std::int32_t>(std::find(tag_names_.begin(), tag_names_.end(), tags[t]) -
+                                                tag_names_.begin()));
+  }
+}
+
+void WindowTagger::fit(const LbfgsOptions& options) {
+  GYRE_CHECK(!keys_.empty(), "window tagger: no training tokens");
+  GYRE_CHECK(tag_names_.size() >= 2, "window tagger: the training data has fewer than two tags");
+  // Tags and feature columns in sorted order (deterministic, independent of input order).
+  std::vector<std::string> sorted_tags = tag_names_;
+  std::sort(sorted_tags.begin(), sorted_tags.end());
+  std::vector<std::int32_t> remap(tag_names_.size());
+  for (std::size_t i = 0; i < tag_names_.size(); ++i)
+    remap[i] = static_cast<std::int32_t>(
+        std::lower_bound(sorted_tags.begin(), sorted_tags.end(), tag_names_[i]) - sorted_tags.begin());
+  std::vector<std::int32_t> labels(labels_.size());
+  for (std::size_t i = 0; i < labels_.size(); ++i)
+    labels[i] = remap[static_cast<std::size_t>(-1 - labels_[i])];
+  tag_names_ = sorted_tags;
+  tag_ids_.clear();
+  for (std::size_t i = 0; i < tag_names_.size(); ++i)
+    tag_ids_.emplace(tag_names_[i], static_cast<std::int32_t>(i));
+
+  std::vector<std::string> all;
+  for (const auto& keys : keys_) all.insert(all.end(), keys.begin(), keys.end());
+  std::sort(all.begin(), all.end());
+  all.erase(std::unique(all.begin(), all.end()), all.end());
+  index_.clear();
+  for (std::size_t i = 0; i < all.size(); ++i) index_.emplace(all[i], static_cast<std::int32_t>(i));
+
+  SparseRows x;
+  std::vector<std::int32_t> cols;
+  const std::vector<double> ones(6, 1.0);
+  for (const auto& keys : keys_) {
+    cols.clear();
+    for (const auto& k : keys) cols.push_back(index_.at(k));
+    std::sort(cols.begin(), cols.end());
+    x.add_row(cols, std::span<const double>(ones.data(), cols.size()));
+  }
+  model_ = fit_logistic_regression(x, labels, static_cast<int>(tag_names_.size()),
+                                   static_cast<int>(all.size()), options);
+  keys_.clear();
+  keys_.shrink_to_fit();
+  labels_.clear();
+}
+
+std::vector<std::string> WindowTagger::predict(std::span<const std::string> tokens,
+                                               std::span<const std::string> raw) const {
+  GYRE_CHECK(tokens.size() == raw.size(), "window tagger: tokens and raw tokens differ in length");
+  GYRE_CHECK(model_.classes > 0, "window tagger: predict() before fit()");
+  std::vector<std::string> out, keys;
+  std::vector<std::int32_t> cols;
+  const std::vector<double> ones(6, 1.0);
+  for (std::size_t t = 0; t < tokens.size(); ++t) {
+    features(tokens, raw, t, keys);
+    cols.clear();
+    for (const auto& k : keys) {
+      const auto it = index_.find(k);
+      if (it != index_.end()) cols.push_back(it->second);
+    }
+    std::sort(cols.begin(), cols.end());
+    out.push_back(tag_names_[static_cast<std::size_t>(
+        model_.predict(cols, std::span<const double>(ones.data(), cols.size())))]);
+  }
+  return out;
+}
+
+}  // namespace gyre::eval

@@ -1,0 +1,434 @@
+// AVX-512 training kernels (see fast_kernels.hpp). Every function that uses AVX-512 carries a
+// target attribute, so this file builds for plain x86-64 (and compiles to stubs elsewhere) and
+// the choice is made at run time from the CPU's features.
+
+#include "fast_kernels.hpp"
+
+#include "gyre/core/cpu_features.hpp"
+
+#include <algorithm>
+#include <cstdlib>
+#include <cstring>
+#include <new>
+#include <string_view>
+
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#include <immintrin.h>
+#define GYRE_NN_X86 1
+#endif
+
+namespace gyre::nn::detail::fast {
+
+float* AlignedBuffer::reserve(std::size_t n) {
+  if (n > size_) {
+    data_.reset(static_cast<float*>(::operator new (n * sizeof(float), std::align_val_t{64})));
+    size_ = n;
+  }
+  return data_.get();
+}
+
+void AlignedBuffer::Free::operator()(float* p) const noexcept {
+  ::operator delete (p, std::align_val_t{64});
+}
+
+bool available() noexcept {
+  return use_avx512_training_kernels();
+}
+
+const char* name() noexcept {
+  return available() ? "avx512" : "portable";
+}
+
+// ---- packing (plain C++: runs once per product or optimizer step) -----------------------------
+
+void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
+  constexpr std::ptrdiff_t nr = kGemmNr;
+  for (std::ptrdiff_t p0 = 0; p0 < n; p0 += nr) {
+    const std::ptrdiff_t w = std::min(nr, n - p0);
+    float* dst = out + p0 * k;  // panel p0 / nr starts at (p0 / nr) * nr * k
+    if (!trans) {
+      for (std::ptrdiff_t kk = 0; kk < k; ++kk) {
+        const float* src = b + kk * ldb + p0;
+        float* d = dst + kk * nr;
+        std::memcpy(d, src, static_cast<std::size_t>(w) * sizeof(float));
+        std::fill(d + w, d + nr, 0.0f);
+      }
+    } else {
+      // B^T stored [n x k]: column j of B is row j of the storage.
+      for (std::ptrdiff_t kk = 0; kk < k; ++kk) std::fill(dst + kk * nr + w, dst + kk * nr + nr, 0.0f);
+      for (std::ptrdiff_t j = 0; j < w; ++j) {
+        const float* src = b + (p0 + j) * ldb;
+        for (std::ptrdiff_t kk = 0; kk < k; ++kk) dst[kk * nr + j] = src[kk];
+      }
+    }
+  }
+}
+
+void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+  const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
+  const std::ptrdiff_t panels = hidden / kCellUnits;
+  for (std::ptrdiff_t p = 0; p < panels; ++p) {
+    float* dst = out + p * nr * hidden;
+    for (int g = 0; g < gates; ++g)
+      for (std::ptrdiff_t j = 0; j < kCellUnits; ++j) {
+        // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed).
+        const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits + j) * hidden;
+        float* d = dst + g * kCellUnits + j;
+        for (std::ptrdiff_t kk = 0; kk < hidden; ++kk) d[kk * nr] = src[kk];
+      }
+  }
+}
+
+#if defined(GYRE_NN_X86)
+
+#define GYRE_AVX512 __attribute__((target("avx512f,avx512dq,avx512bw,avx512vl,fma")))
+#define GYRE_AVX512_INLINE \
+  __attribute__((target("avx512f,avx512dq,avx512bw,avx512vl,fma"), always_inline)) inline
+
+namespace {
+
+// ---- activations ------------------------------------------------------------------------------
+// e^x after Cephes expf (S. Moshier): n = round(x log2 e), r = x - n ln2 (ln2 in two parts),
+// e^r by a degree-6 polynomial, times 2^n (vscalefps). Relative error about 1 ulp on [-87, 88].
+GYRE_AVX512_INLINE __m512 exp512(__m512 x) {
+  x = _mm512_max_ps(_mm512_min_ps(x, _mm512_set1_ps(88.3762626647949f)), _mm512_set1_ps(-87.3365447504f));
+  const __m512 n = _mm512_roundscale_ps(_mm512_mul_ps(x, _mm512_set1_ps(1.44269504088896341f)),
+                                        _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC);
+  __m512 r = _mm512_fnmadd_ps(n, _mm512_set1_ps(0.693359375f), x);
+  r = _mm512_fnmadd_ps(n, _mm512_set1_ps(-2.12194440e-4f), r);
+  __m512 y = _mm512_set1_ps(1.9875691500e-4f);
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(1.3981999507e-3f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(8.3334519073e-3f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(4.1665795894e-2f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(1.6666665459e-1f));
+  y = _mm512_fmadd_ps(y, r, _mm512_set1_ps(5.0000001201e-1f));
+  y = _mm512_fmadd_ps(y, _mm512_mul_ps(r, r), _mm512_add_ps(r, _mm512_set1_ps(1.0f)));
+  return _mm512_scalef_ps(y, n);
+}
+
+GYRE_AVX512_INLINE __m512 sigmoid512(__m512 x) {
+  const __m512 one = _mm512_set1_ps(1.0f);
+  return _mm512_div_ps(one, _mm512_add_ps(one, exp512(_mm512_sub_ps(_mm512_setzero_ps(), x))));
+}
+
+// tanh after Cephes tanhf: |x| < 0.625: x + x^3 P(x^2); else sign(x) (1 - 2 / (e^{2|x|} + 1)).
+// (Polynomial coefficients from Cephes tanhf.c, recalled from memory; the layer tests compare
+// with std::tanh through the parity fixtures.)
+GYRE_AVX512_INLINE __m512 tanh512(__m512 x) {
+  const __m512 ax = _mm512_abs_ps(x);
+  const __m512 one = _mm512_set1_ps(1.0f);
+  const __m512 e = exp512(_mm512_add_ps(ax, ax));
+  __m512 big = _mm512_sub_ps(one, _mm512_div_ps(_mm512_set1_ps(2.0f), _mm512_add_ps(e, one)));
+  big = _mm512_castsi512_ps(_mm512_or_si512(
+      _mm512_castps_si512(big), _mm512_and_si512(_mm512_castps_si512(x), _mm512_set1_epi32(INT32_MIN))));
+  const __m512 z = _mm512_mul_ps(x, x);
+  __m512 p = _mm512_set1_ps(-5.70498872745e-3f);
+  p = _mm512_fmadd_ps(p, z, _mm512_set1_ps(2.06390887954e-2f));
+  p = _mm512_fmadd_ps(p, z, _mm512_set1_ps(-5.37397155531e-2f));
+  p = _mm512_fmadd_ps(p, z, _mm512_set1_ps(1.33314422036e-1f));
+  p = _mm512_fmadd_ps(p, z, _mm512_set1_ps(-3.33332819422e-1f));
+  const __m512 small = _mm512_fmadd_ps(_mm512_mul_ps(p, z), x, x);
+  const __mmask16 is_small = _mm512_cmp_ps_mask(ax, _mm512_set1_ps(0.625f), _CMP_LT_OQ);
+  return _mm512_mask_blend_ps(is_small, big, small);
+}
+
+// ---- micro-kernel -----------------------------------------------------------------------------
+// acc[r][v] = sum_kk A(r, kk) * Bp[kk][16v .. 16v+15] for an M x (16 NV) tile; A(r, kk) is
+// a[r * rs + kk * ks] (rs = lda, ks = 1 for a row-major A; rs = 1, ks = lda for A stored transposed).
+// One FMA chain per accumulator, kk in order: the summation order is fixed by k alone.
+template <int M, int NV, bool TransA>
+GYRE_AVX512_INLINE void tile(std::ptrdiff_t k, const float* a, std::ptrdiff_t lda, const float* bp,
+                             __m512 (&acc)[M][NV]) {
+#pragma GCC unroll 16
+  for (int r = 0; r < M; ++r)
+#pragma GCC unroll 4
+    for (int v = 0; v < NV; ++v) acc[r][v] = _mm512_setzero_ps();
+  for (std::ptrdiff_t kk = 0; kk < k; ++kk) {
+    __m512 b[NV];
+#pragma GCC unroll 4
+    for (int v = 0; v < NV; ++v) b[v] = _mm512_load_ps(bp + kk * (16 * NV) + 16 * v);
+#pragma GCC unroll 16
+    for (int r = 0; r < M; ++r) {
+      const __m512 av = _mm512_set1_ps(TransA ? a[kk * lda + r] : a[r * lda + kk]);
+#pragma GCC unroll 4
+      for (int v = 0; v < NV; ++v) acc[r][v] = _mm512_fmadd_ps(av, b[v], acc[r][v]);
+    }
+  }
+}
+
+GYRE_AVX512_INLINE __mmask16 cols_mask(std::ptrdiff_t cols) {
+  return cols >= 16 ? __mmask16(0xFFFF) : cols <= 0 ? __mmask16(0) : __mmask16((1u << cols) - 1u);
+}
+
+// General GEMM tile: C (+)= acc for `cols` valid columns.
+template <int M, bool TransA>
+GYRE_AVX512 void gemm_tile(std::ptrdiff_t k, const float* a, std::ptrdiff_t lda, const float* bp, float* c,
+                           std::ptrdiff_t ldc, std::ptrdiff_t cols, bool accumulate) {
+  constexpr int NV = kGemmNr / 16;
+  __m512 acc[M][NV];
+  tile<M, NV, TransA>(k, a, lda, bp, acc);
+  if (cols == kGemmNr) {
+#pragma GCC unroll 16
+    for (int r = 0; r < M; ++r)
+#pragma GCC unroll 4
+      for (int v = 0; v < NV; ++v) {
+        float* p = c + r * ldc + 16 * v;
+        _mm512_storeu_ps(p, accumulate ? _mm512_add_ps(_mm512_loadu_ps(p), acc[r][v]) : acc[r][v]);
+      }
+    return;
+  }
+  for (int r = 0; r < M; ++r)
+    for (int v = 0; v < NV; ++v) {
+      const __mmask16 m = cols_mask(cols - 16 * v);
+      float* p = c + r * ldc + 16 * v;
+      _mm512_mask_storeu_ps(p, m,
+                            accumulate ? _mm512_add_ps(_mm512_maskz_loadu_ps(m, p), acc[r][v]) : acc[r][v]);
+    }
+}
+
+constexpr int kGemmMr = 12;
+
+template <bool TransA>
+GYRE_AVX512 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
+                           const float* bp, float* c, std::ptrdiff_t ldc, std::ptrdiff_t cols,
+                           bool accumulate) {
+  // a points at the tile's first row (row-major) or first column (transposed storage).
+  const std::ptrdiff_t row_step = TransA ? 1 : lda;
+  std::ptrdiff_t r = 0;
+  for (; r + kGemmMr <= rows; r += kGemmMr)
+    gemm_tile<kGemmMr, TransA>(k, a + r * row_step, lda, bp, c + r * ldc, ldc, cols, accumulate);
+  const float* ar = a + r * row_step;
+  float* cr = c + r * ldc;
+  switch (rows - r) {
+    case 0:
+      break;
+#define GYRE_TAIL(R)                                                 \
+  case R:                                                            \
+    gemm_tile<R, TransA>(k, ar, lda, bp, cr, ldc, cols, accumulate); \
+    break;
+      GYRE_TAIL(1)
+      GYRE_TAIL(2)
+      GYRE_TAIL(3)
+      GYRE_TAIL(4)
+      GYRE_TAIL(5) GYRE_TAIL(6) GYRE_TAIL(7) GYRE_TAIL(8) GYRE_TAIL(9) GYRE_TAIL(10) GYRE_TAIL(11)
+#undef GYRE_TAIL
+          default : break;
+  }
+}
+
+template <bool TransA>
+GYRE_AVX512 void gemm_avx512(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a,
+                             std::ptrdiff_t lda, const float* bp, float* c, std::ptrdiff_t ldc,
+                             bool accumulate) {
+  const std::ptrdiff_t panels = (n + kGemmNr - 1) / kGemmNr;
+  for (std::ptrdiff_t pc = 0; pc < k; pc += kGemmKc) {
+    const std::ptrdiff_t kb = std::min<std::ptrdiff_t>(kGemmKc, k - pc);
+    const bool acc = accumulate || pc > 0;
+    for (std::ptrdiff_t ic = 0; ic < m; ic += kGemmMc) {
+      const std::ptrdiff_t mb = std::min<std::ptrdiff_t>(kGemmMc, m - ic);
+      const float* ablk = TransA ? a + pc * lda + ic : a + ic * lda + pc;
+      for (std::ptrdiff_t p = 0; p < panels; ++p) {
+        const float* bpan = bp + p * kGemmNr * k + pc * kGemmNr;
+        gemm_rows<TransA>(mb, kb, ablk, lda, bpan, c + ic * ldc + p * kGemmNr, ldc,
+                          std::min<std::ptrdiff_t>(kGemmNr, n - p * kGemmNr), acc);
+      }
+    }
+  }
+}
+
+// ---- fused LSTM step --------------------------------------------------------------------------
+constexpr int kCellKc = 256;
+constexpr int kLstmMr = 6;
+
+template <int M>
+GYRE_AVX512 void lstm_tile(std::ptrdiff_t kb, bool first, bool last, std::ptrdiff_t H, const float* hp,
+                           std::ptrdiff_t ld, const float* bp, std::ptrdiff_t u0, const float* cp,
+                           float* gates, float* c_out, float* tanh_c_out, float* h_out) {
+  __m512 acc[M][4];
+  tile<M, 4, false>(kb, hp, ld, bp, acc);
+  (void)first;
+#pragma GCC unroll 8
+  for (int r = 0; r < M; ++r) {
+    float* g = gates + r * 4 * H + u0;
+    __m512 pre[4];
+#pragma GCC unroll 4
+    for (int v = 0; v < 4; ++v) pre[v] = _mm512_add_ps(_mm512_loadu_ps(g + v * H), acc[r][v]);
+    if (!last) {
+#pragma GCC unroll 4
+      for (int v = 0; v < 4; ++v) _mm512_storeu_ps(g + v * H, pre[v]);
+      continue;
+    }
+    const __m512 i = sigmoid512(pre[0]), f = sigmoid512(pre[1]), gg = tanh512(pre[2]), o = sigmoid512(pre[3]);
+    const __m512 c = _mm512_fmadd_ps(f, _mm512_loadu_ps(cp + r * ld + u0), _mm512_mul_ps(i, gg));
+    const __m512 tc = tanh512(c);
+    _mm512_storeu_ps(g, i);
+    _mm512_storeu_ps(g + H, f);
+    _mm512_storeu_ps(g + 2 * H, gg);
+    _mm512_storeu_ps(g + 3 * H, o);
+    _mm512_storeu_ps(c_out + r * H + u0, c);
+    _mm512_storeu_ps(tanh_c_out + r * H + u0, tc);
+    _mm512_storeu_ps(h_out + r * H + u0, _mm512_mul_ps(o, tc));
+  }
+}
+
+GYRE_AVX512 void lstm_step_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float* h_prev,
+                                  const float* c_prev, std::ptrdiff_t ld, const float* up, float* gates,
+                                  float* c_out, float* tanh_c_out, float* h_out) {
+  constexpr std::ptrdiff_t nr = 4 * kCellUnits;
+  const std::ptrdiff_t panels = H / kCellUnits;
+  for (std::ptrdiff_t pc = 0; pc < H; pc += kCellKc) {
+    const std::ptrdiff_t kb = std::min<std::ptrdiff_t>(kCellKc, H - pc);
+    const bool first = pc == 0, last = pc + kb >= H;
+    for (std::ptrdiff_t p = 0; p < panels; ++p) {
+      const float* bp = up + p * nr * H + pc * nr;
+      const std::ptrdiff_t u0 = p * kCellUnits;
+      std::ptrdiff_t r = 0;
+      for (; r + kLstmMr <= n; r += kLstmMr)
+        lstm_tile<kLstmMr>(kb, first, last, H, h_prev + r * ld + pc, ld, bp, u0, c_prev + r * ld,
+                           gates + r * 4 * H, c_out + r * H, tanh_c_out + r * H, h_out + r * H);
+      const float* hp = h_prev + r * ld + pc;
+      const float* cp = c_prev + r * ld;
+      float* g = gates + r * 4 * H;
+      switch (n - r) {
+        case 0:
+          break;
+#define GYRE_TAIL(R)                                                                           \
+  case R:                                                                                      \
+    lstm_tile<R>(kb, first, last, H, hp, ld, bp, u0, cp, g, c_out + r * H, tanh_c_out + r * H, \
+                 h_out + r * H);                                                               \
+    break;
+          GYRE_TAIL(1)
+          GYRE_TAIL(2)
+          GYRE_TAIL(3)
+          GYRE_TAIL(4)
+          GYRE_TAIL(5)
+#undef GYRE_TAIL
+              default : break;
+      }
+    }
+  }
+}
+
+// ---- fused GRU step ---------------------------------------------------------------------------
+constexpr int kGruMr = 8;
+
+template <int M>
+GYRE_AVX512 void gru_tile(std::ptrdiff_t kb, bool first, bool last, std::ptrdiff_t H, const float* hp_k,
+                          const float* hp, std::ptrdiff_t ld, const float* bp, std::ptrdiff_t u0,
+                          const float* bh, float* gates, float* hn_out, float* h_out) {
+  __m512 acc[M][3];
+  tile<M, 3, false>(kb, hp_k, ld, bp, acc);
+  const __m512 bh_r = _mm512_loadu_ps(bh + u0), bh_z = _mm512_loadu_ps(bh + H + u0),
+               bh_n = _mm512_loadu_ps(bh + 2 * H + u0);
+#pragma GCC unroll 8
+  for (int r = 0; r < M; ++r) {
+    float* g = gates + r * 3 * H + u0;
+    float* hn = hn_out + r * H + u0;
+    // Partial sums of earlier k blocks: r, z in the gate rows; U[h~] h in hn_out.
+    const __m512 sr = acc[r][0], sz = acc[r][1];
+    const __m512 sn = first ? acc[r][2] : _mm512_add_ps(_mm512_loadu_ps(hn), acc[r][2]);
+    if (!last) {
+      _mm512_storeu_ps(g, _mm512_add_ps(_mm512_loadu_ps(g), sr));
+      _mm512_storeu_ps(g + H, _mm512_add_ps(_mm512_loadu_ps(g + H), sz));
+      _mm512_storeu_ps(hn, sn);
+      continue;
+    }
+    const __m512 rg = sigmoid512(_mm512_add_ps(_mm512_loadu_ps(g), _mm512_add_ps(sr, bh_r)));
+    const __m512 zg = sigmoid512(_mm512_add_ps(_mm512_loadu_ps(g + H), _mm512_add_ps(sz, bh_z)));
+    const __m512 hnv = _mm512_add_ps(sn, bh_n);
+    const __m512 ng = tanh512(_mm512_fmadd_ps(rg, hnv, _mm512_loadu_ps(g + 2 * H)));
+    const __m512 h_old = _mm512_loadu_ps(hp + r * ld + u0);
+    // h' = (1 - z) n + z h
+    const __m512 h_new =
+        _mm512_fmadd_ps(_mm512_sub_ps(_mm512_set1_ps(1.0f), zg), ng, _mm512_mul_ps(zg, h_old));
+    _mm512_storeu_ps(g, rg);
+    _mm512_storeu_ps(g + H, zg);
+    _mm512_storeu_ps(g + 2 * H, ng);
+    _mm512_storeu_ps(hn, hnv);
+    _mm512_storeu_ps(h_out + r * H + u0, h_new);
+  }
+}
+
+GYRE_AVX512 void gru_step_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float* h_prev, std::ptrdiff_t ld,
+                                 const float* up, const float* bh, float* gates, float* hn_out,
+                                 float* h_out) {
+  constexpr std::ptrdiff_t nr = 3 * kCellUnits;
+  const std::ptrdiff_t panels = H / kCellUnits;
+  for (std::ptrdiff_t pc = 0; pc < H; pc += kCellKc) {
+    const std::ptrdiff_t kb = std::min<std::ptrdiff_t>(kCellKc, H - pc);
+    const bool first = pc == 0, last = pc + kb >= H;
+    for (std::ptrdiff_t p = 0; p < panels; ++p) {
+      const float* bp = up + p * nr * H + pc * nr;
+      const std::ptrdiff_t u0 = p * kCellUnits;
+      std::ptrdiff_t r = 0;
+      for (; r + kGruMr <= n; r += kGruMr)
+        gru_tile<kGruMr>(kb, first, last, H, h_prev + r * ld + pc, h_prev + r * ld, ld, bp, u0, bh,
+                         gates + r * 3 * H, hn_out + r * H, h_out + r * H);
+      const float* hk = h_prev + r * ld + pc;
+      const float* hp = h_prev + r * ld;
+      float* g = gates + r * 3 * H;
+      switch (n - r) {
+        case 0:
+          break;
+#define GYRE_TAIL(R)                                                                           \
+  case R:                                                                                      \
+    gru_tile<R>(kb, first, last, H, hk, hp, ld, bp, u0, bh, g, hn_out + r * H, h_out + r * H); \
+    break;
+          GYRE_TAIL(1)
+          GYRE_TAIL(2)
+          GYRE_TAIL(3)
+          GYRE_TAIL(4)
+          GYRE_TAIL(5) GYRE_TAIL(6) GYRE_TAIL(7)
+#undef GYRE_TAIL
+              default : break;
+      }
+    }
+  }
+}
+
+}  // namespace
+
+void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
+                 bool trans_a, const float* bp, float* c, std::ptrdiff_t ldc, bool accumulate,
+                 float* /*work*/) {
+  if (m <= 0 || n <= 0) return;
+  if (k <= 0) {
+    if (!accumulate)
+      for (std::ptrdiff_t i = 0; i < m; ++i) std::fill(c + i * ldc, c + i * ldc + n, 0.0f);
+    return;
+  }
+  if (trans_a)
+    gemm_avx512<true>(m, n, k, a, lda, bp, c, ldc, accumulate);
+  else
+    gemm_avx512<false>(m, n, k, a, lda, bp, c, ldc, accumulate);
+}
+
+void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, const float* c_prev,
+               std::ptrdiff_t ld_state, const float* up, float* gates, float* c_out, float* tanh_c_out,
+               float* h_out) {
+  lstm_step_avx512(n, hidden, h_prev, c_prev, ld_state, up, gates, c_out, tanh_c_out, h_out);
+}
+
+void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std::ptrdiff_t ld_state,
+              const float* up, const float* bias_hidden, float* gates, float* hn_out, float* h_out) {
+  gru_step_avx512(n, hidden, h_prev, ld_state, up, bias_hidden, gates, hn_out, h_out);
+}
+
+#else  // not x86-64: available() is false and these are never called.
+
+void gemm_packed(std::ptrdiff_t, std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, bool,
+                 const float*, float*, std::ptrdiff_t, bool, float*) {
+  std::abort();
+}
+void lstm_step(std::ptrdiff_t, std::ptrdiff_t, const float*, const float*, std::ptrdiff_t, const float*,
+               float*, float*, float*, float*) {
+  std::abort();
+}
+void gru_step(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, const float*, const float*,
+              float*, float*, float*) {
+  std::abort();
+}
+
+#endif
+
+}  // namespace gyre::nn::detail::fast

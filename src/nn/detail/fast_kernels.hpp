@@ -1,0 +1,94 @@
+#pragma once
+// Training kernels for x86-64 CPUs with AVX-512 (F, DQ, BW, VL), compiled with target attributes
+// in fast_kernels_avx512.cpp and chosen at run time (no -march flag needed): a register-blocked
+// single-precision GEMM on packed right-hand panels, and the LSTM/GRU time step with the gate
+// non-linearities fused into the GEMM's epilogue. On other CPUs `available()` is false and the
+// layers use their Eigen path (the portable path), which computes the same functions.
+//
+// Determinism: every product sums its k terms in blocks of kGemmKc, in order, each block from
+// zero with one FMA chain per output, then adds the block to the output. Nothing depends on the
+// history of calls or on buffer sizes, only on (m, n, k) and the operands, so a repeated product
+// gives the same bits (a resumed run equals an uninterrupted one). Results differ in the last
+// bits from the portable path; one machine always takes the same path.
+//
+// Packed panel layout ("packed B"): a [k x n] operand is stored as ceil(n / NR) panels, panel p
+// holding columns [p*NR, p*NR + NR) as k consecutive rows of NR floats ([p][k][NR]); columns
+// past n are zero. The fused cell kernels use the same layout with the columns permuted so that
+// one panel holds all gates of a group of hidden units (see pack_gates).
+
+#include <cstddef>
+#include <cstdint>
+#include <memory>
+
+namespace gyre::nn::detail::fast {
+
+/// Columns per panel of the general GEMM.
+inline constexpr int kGemmNr = 32;
+/// k-block size (part of the summation order: never derived from anything but this constant).
+inline constexpr int kGemmKc = 256;
+/// Rows of A per cache block in the general GEMM.
+inline constexpr int kGemmMc = 144;
+/// Hidden units per panel of the fused cell kernels (LSTM: 4 gates x 16, GRU: 3 gates x 16).
+inline constexpr int kCellUnits = 16;
+
+/// True when the AVX-512 kernels are used on this CPU (gyre::use_avx512_training_kernels():
+/// GYRE_NN_KERNELS=portable in the environment turns them off).
+bool available() noexcept;
+/// "avx512" or "portable".
+const char* name() noexcept;
+
+/// Floats of a packed [k x n] operand with `nr` columns per panel.
+inline std::size_t packed_size(std::ptrdiff_t k, std::ptrdiff_t n, int nr = kGemmNr) {
+  return static_cast<std::size_t>((n + nr - 1) / nr * nr) * static_cast<std::size_t>(k);
+}
+
+/// Packs op(B) [k x n] into panels of kGemmNr columns. trans = false: B is [k x n] row-major with
+/// row stride ldb; trans = true: B is stored as its transpose [n x k] with row stride ldb.
+void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out);
+
+/// Packs the recurrent weight U [G*H x H] (row-major, gate blocks of H rows) read transposed, as
+/// the [H x G*H] right operand of h U^T, with the columns of kCellUnits units of every gate in one
+/// panel: panel p, column g*16 + j = gate g, unit 16p + j. H must be a multiple of kCellUnits.
+void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out);
+
+/// C[m x n] = A B (or C += A B when accumulate). A: [m x k] row-major, row stride lda (or, with
+/// trans_a, stored as its transpose [k x m] with row stride lda). bp: op(B) packed by pack_b.
+/// work: at least work_size(m, k, trans_a) floats, 64-byte aligned (used for a transposed A).
+void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
+                 bool trans_a, const float* bp, float* c, std::ptrdiff_t ldc, bool accumulate, float* work);
+inline std::size_t work_size(bool trans_a) {
+  return trans_a ? static_cast<std::size_t>(kGemmMc) * kGemmKc : 0;
+}
+
+/// One LSTM time step for n sequences (rows), all row-major with the given strides:
+/// gates [n x 4H] holds W x + b on entry and the activations i f g o on return;
+/// h_prev, c_prev [n x H] (row stride ld_state); c_out, tanh_c_out, h_out [n x H] (row stride H).
+/// up: U packed by pack_gates(U, 4, H). Computes gates += h_prev U^T, then the cell equations of
+/// include/gyre/nn/lstm_layer.hpp.
+void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, const float* c_prev,
+               std::ptrdiff_t ld_state, const float* up, float* gates, float* c_out, float* tanh_c_out,
+               float* h_out);
+
+/// One GRU time step ("reset after", include/gyre/nn/gru_layer.hpp) for n rows:
+/// gates [n x 3H] holds W x + b_i on entry and the activations r z n on return; hn_out [n x H]
+/// receives U[h~] h + b_hidden[h~]; h_out [n x H] the new state. up: U packed by pack_gates(U, 3, H);
+/// bias_hidden [3H]. h_prev has row stride ld_state, the others their natural width.
+void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std::ptrdiff_t ld_state,
+              const float* up, const float* bias_hidden, float* gates, float* hn_out, float* h_out);
+
+/// 64-byte aligned grow-only float storage for packed operands (contents unspecified after growth).
+class AlignedBuffer {
+ public:
+  float* reserve(std::size_t n);
+  float* data() const noexcept { return data_.get(); }
+  std::size_t capacity_bytes() const noexcept { return size_ * sizeof(float); }
+
+ private:
+  struct Free {
+    void operator()(float* p) const noexcept;
+  };
+  std::unique_ptr<float, Free> data_;
+  std::size_t size_ = 0;
+};
+
+}  // namespace gyre::nn::detail::fast

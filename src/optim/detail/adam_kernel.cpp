@@ -1,0 +1,56 @@
+// Adam/AdamW block update with AVX-512 (chosen at run time; see gyre/core/cpu_features.hpp).
+// The same operations as the scalar loop in adam.cpp, 16 lanes at a time: square root and
+// division are correctly rounded in both, the multiply-adds may be fused differently, so the last
+// bit can differ from the portable path (one machine always takes the same path).
+
+#include "optim/detail/adam_kernel.hpp"
+
+#include <cstdlib>
+
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#include <immintrin.h>
+
+namespace gyre::optim::detail {
+
+#define GYRE_AVX512 __attribute__((target("avx512f,avx512dq,avx512bw,avx512vl,fma")))
+
+namespace {
+GYRE_AVX512 inline __mmask16 cols_mask(std::ptrdiff_t cols) {
+  return cols >= 16 ? __mmask16(0xFFFF) : __mmask16((1u << cols) - 1u);
+}
+}  // namespace
+
+GYRE_AVX512 void adam_update_avx512(const AdamStep& st, float* value, const float* grad, float* m, float* v,
+                                    std::ptrdiff_t count) {
+  const __m512 b1 = _mm512_set1_ps(st.beta1), b2 = _mm512_set1_ps(st.beta2);
+  const __m512 one_b1 = _mm512_set1_ps(1.0f - st.beta1), one_b2 = _mm512_set1_ps(1.0f - st.beta2);
+  const __m512 lr = _mm512_set1_ps(st.learning_rate), eps = _mm512_set1_ps(st.epsilon);
+  const __m512 l2 = _mm512_set1_ps(st.l2), decay = _mm512_set1_ps(st.decay);
+  const __m512 c1 = _mm512_set1_ps(st.inv_bias1), c2 = _mm512_set1_ps(st.inv_bias2);
+  for (std::ptrdiff_t i = 0; i < count; i += 16) {
+    const __mmask16 k = cols_mask(count - i);
+    const __m512 w = _mm512_maskz_loadu_ps(k, value + i);
+    const __m512 g = _mm512_fmadd_ps(l2, w, _mm512_maskz_loadu_ps(k, grad + i));
+    const __m512 mi = _mm512_fmadd_ps(b1, _mm512_maskz_loadu_ps(k, m + i), _mm512_mul_ps(one_b1, g));
+    const __m512 vi =
+        _mm512_fmadd_ps(b2, _mm512_maskz_loadu_ps(k, v + i), _mm512_mul_ps(one_b2, _mm512_mul_ps(g, g)));
+    const __m512 m_hat = _mm512_mul_ps(mi, c1), v_hat = _mm512_mul_ps(vi, c2);
+    const __m512 upd =
+        _mm512_fmadd_ps(decay, w, _mm512_div_ps(m_hat, _mm512_add_ps(_mm512_sqrt_ps(v_hat), eps)));
+    _mm512_mask_storeu_ps(m + i, k, mi);
+    _mm512_mask_storeu_ps(v + i, k, vi);
+    _mm512_mask_storeu_ps(value + i, k, _mm512_fnmadd_ps(lr, upd, w));
+  }
+}
+
+}  // namespace gyre::optim::detail
+
+#else
+
+namespace gyre::optim::detail {
+void adam_update_avx512(const AdamStep&, float*, const float*, float*, float*, std::ptrdiff_t) {
+  std::abort();
+}
+}  // namespace gyre::optim::detail
+
+#endif

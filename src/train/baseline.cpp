@@ -1,0 +1,174 @@
+#include "gyre/train/baseline.hpp"
+
+#include <cmath>
+#include <sstream>
+
+#include "gyre/core/error.hpp"
+#include "gyre/core/rng.hpp"
+#include "gyre/data/encoder.hpp"
+#include "gyre/eval/classification.hpp"
+#include "gyre/eval/linear_baseline.hpp"
+#include "gyre/eval/span_metrics.hpp"
+
+namespace gyre::train {
+
+using nlohmann::json;
+
+namespace {
+
+std::uint64_t example_hash(const data::Example& ex) {
+  std::string key = ex.text;
+  for (const auto& l : ex.labels) key += "\t" + l;
+  for (const auto& t : ex.tags) key += "\t" + t;
+  return stable_hash(key.data(), key.size());
+}
+
+std::string format_c(double c) {
+  std::ostringstream s;
+  s << c;
+  return s.str();
+}
+
+}  // namespace
+
+void split_dev_by_hash(std::vector<data::Example>& examples, double dev_fraction,
+                       std::vector<data::Example>& dev) {
+  const auto threshold = static_cast<std::uint64_t>(dev_fraction * 1e6);
+  std::vector<data::Example> keep;
+  for (auto& ex : examples) (example_hash(ex) % 1000000 < threshold ? dev : keep).push_back(std::move(ex));
+  examples = std::move(keep);
+}
+
+struct LinearBaseline::Impl {
+  const text::VocabFile* vocab_ptr = nullptr;
+  text::VocabFile vocab;
+  data::Task task = data::Task::kClassify;
+  std::unique_ptr<data::Encoder> encoder;
+  eval::NgramClassifier classifier;
+  eval::WindowTagger tagger;
+  double c = 0;
+
+  void tokens(const data::Example& ex, const std::string& path, std::vector<std::string>& out) const {
+    encoder->tokens(ex, path, out);
+  }
+
+  void fit_with(std::span<const data::Example> train, const std::string& path, double penalty) {
+    eval::LbfgsOptions options;
+    options.c = penalty;
+    std::vector<std::string> toks;
+    if (task == data::Task::kClassify) {
+      classifier = eval::NgramClassifier();
+      for (const auto& ex : train) {
+        tokens(ex, path, toks);
+        classifier.add(toks, vocab.labels.id(ex.labels.front(), path, ex.line));
+      }
+      classifier.fit(static_cast<int>(vocab.labels.size()), options);
+    } else {
+      tagger = eval::WindowTagger();
+      for (const auto& ex : train) {
+        tokens(ex, path, toks);
+        tagger.add(toks, ex.tokens, ex.tags);
+      }
+      tagger.fit(options);
+    }
+    c = penalty;
+  }
+
+  json score(std::span<const data::Example> examples, const std::string& path) const {
+    std::vector<std::string> toks;
+    if (task == data::Task::kClassify) {
+      std::vector<std::int32_t> gold, predicted;
+      for (const auto& ex : examples) {
+        tokens(ex, path, toks);
+        gold.push_back(vocab.labels.id(ex.labels.front(), path, ex.line));
+        predicted.push_back(classifier.predict(toks));
+      }
+      const auto names = vocab.labels.names();
+      const auto m = eval::classification_metrics(gold, predicted, names);
+      return json{{"accuracy", m.accuracy}, {"macro_f1", m.macro.f1}};
+    }
+    std::vector<std::vector<std::string>> gold, predicted;
+    for (const auto& ex : examples) {
+      tokens(ex, path, toks);
+      gold.push_back(ex.tags);
+      predicted.push_back(tagger.predict(toks, ex.tokens));
+    }
+    const auto m = eval::tagging_metrics(gold, predicted);
+    return json{{"span_f1", m.micro.f1}, {"token_accuracy", m.token_accuracy}};
+  }
+};
+
+LinearBaseline::LinearBaseline(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
+LinearBaseline::~LinearBaseline() = default;
+LinearBaseline::LinearBaseline(LinearBaseline&&) noexcept = default;
+LinearBaseline& LinearBaseline::operator=(LinearBaseline&&) noexcept = default;
+
+LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task,
+                                   std::span<const data::Example> train, const std::string& train_path,
+                                   std::span<const data::Example> dev, const std::string& dev_path,
+                                   double c) {
+  for (const auto& ex : train)
+    if (task == data::Task::kClassify && ex.labels.size() != 1)
+      throw ConfigError("baseline", "the linear baseline needs single-label examples (" + train_path +
+                                        " line " + std::to_string(ex.line) + " has " +
+                                        std::to_string(ex.labels.size()) + ")");
+  auto impl = std::make_unique<Impl>();
+  impl->vocab = vocab;
+  impl->task = task;
+  impl->encoder = std::make_unique<data::Encoder>(impl->vocab, task);
+  if (c > 0) {
+    impl->fit_with(train, train_path, c);
+    return LinearBaseline(std::move(impl));
+  }
+  GYRE_CHECK(!dev.empty(), "linear baseline: choosing C needs dev examples");
+  const char* metric = task == data::Task::kClassify ? "accuracy" : "span_f1";
+  double best_score = -1, best_c = kBaselinePenaltyGrid[0];
+  for (const double candidate : kBaselinePenaltyGrid) {
+    impl->fit_with(train, train_path, candidate);
+    const double s = impl->score(dev, dev_path).at(metric).get<double>();
+    if (s > best_score + 1e-12) {
+      best_score = s;
+      best_c = candidate;
+    }
+  }
+  if (impl->c != best_c) impl->fit_with(train, train_path, best_c);
+  return LinearBaseline(std::move(impl));
+}
+
+json LinearBaseline::score(std::span<const data::Example> examples, const std::string& path) const {
+  return impl_->score(examples, path);
+}
+
+std::string LinearBaseline::description() const {
+  if (impl_->task == data::Task::kClassify)
+    return "bag of token 1-2-grams, L2 logistic regression (C=" + format_c(impl_->c) + ")";
+  return "token window (previous/current/next token + shapes), L2 logistic regression (C=" +
+         format_c(impl_->c) + ")";
+}
+
+double LinearBaseline::c() const noexcept {
+  return impl_->c;
+}
+
+std::size_t LinearBaseline::feature_count() const noexcept {
+  return impl_->task == data::Task::kClassify ? impl_->classifier.feature_count()
+                                              : impl_->tagger.feature_count();
+}
+
+RunExamples read_run_examples(const TrainConfig& config) {
+  RunExamples out;
+  const data::ReadOptions options = read_options(config);
+  data::ReadReport report;
+  out.train = data::load_corpus(config.train, options, &report);
+  out.task = report.task;
+  if (!config.dev.empty()) {
+    out.dev = data::load_corpus(config.dev, options);
+    out.dev_path = config.dev;
+  } else {
+    split_dev_by_hash(out.train, config.dev_fraction, out.dev);
+    out.dev_path = config.train;
+  }
+  return out;
+}
+
+}  // namespace gyre::train

@@ -1,0 +1,349 @@
+// One reader and validator of the model description (runtime::parse_model_header) behind both the
+// training library's loader and the embedded runtime: crafted headers and tensors are refused by
+// both, with a FormatError (exit code 2) rather than an out-of-memory or a NaN prediction.
+
+#include <catch2/catch.hpp>
+
+#include <cmath>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <functional>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include <sys/wait.h>
+
+#include <nlohmann/json.hpp>
+
+#include "gyre/core/error.hpp"
+#include "gyre/io/model_io.hpp"
+#include "gyre/runtime/model.hpp"
+#include "runtime/detail/checksum.hpp"
+#include "support/random_model.hpp"
+
+namespace fs = std::filesystem;
+using Catch::Matchers::Contains;
+using nlohmann::json;
+
+namespace {
+
+fs::path tmp_dir() {
+  const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "model_io";
+  fs::create_directories(dir);
+  return dir;
+}
+
+gyre::model::ModelSpec classifier_spec() {
+  gyre::model::ModelSpec spec;
+  spec.embedding_size = 6;
+  spec.hidden_size = 5;
+  spec.labels = {"book", "cancel", "praise"};
+  return spec;
+}
+
+/// A small exported classifier (matrices in `precision`).
+fs::path exported(gyre::runtime::DType precision, const std::string& name) {
+  const auto trained = gyre::test::random_model(classifier_spec(), 7);
+  const fs::path file = tmp_dir() / name;
+  gyre::io::export_model(trained, file, precision);
+  return file;
+}
+
+/// A copy of `src` whose header JSON went through `edit` (tensors copied unchanged).
+fs::path with_header(const fs::path& src, const std::string& name, const std::function<void(json&)>& edit) {
+  const auto file = gyre::runtime::ModelFile::open(src.string());
+  json h = json::parse(file.header_json());
+  edit(h);
+  gyre::runtime::ModelFileWriter writer(h.dump());
+  for (const auto& t : file.tensors()) writer.add_tensor(t.name, t.shape, file.read_f32(t), t.dtype);
+  const fs::path out = tmp_dir() / name;
+  writer.write(out.string());
+  return out;
+}
+
+/// A copy of `src` with bytes changed by `edit` (given the parsed file for offsets) and the
+/// CRC-32C trailer recomputed, so that only the validator can object.
+fs::path with_bytes(
+    const fs::path& src, const std::string& name,
+    const std::function<void(std::vector<unsigned char>&, const gyre::runtime::ModelFile&)>& edit) {
+  std::ifstream in(src, std::ios::binary);
+  std::vector<unsigned char> bytes((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+  const auto file = gyre::runtime::ModelFile::from_bytes(bytes, "copy");
+  edit(bytes, file);
+  const std::uint32_t crc = gyre::runtime::detail::crc32c(bytes.data(), bytes.size() - 8);
+  for (int i = 0; i < 4; ++i)
+    bytes[bytes.size() - 8 + static_cast<std::size_t>(i)] = static_cast<unsigned char>(crc >> (8 * i));
+  const fs::path out = tmp_dir() / name;
+  std::ofstream(out, std::ios::binary)
+      .write(reinterpret_cast<const char*>(bytes.data()), static_cast<std::streamsize>(bytes.size()));
+  return out;
+}
+
+void put_f32(std::vector<unsigned char>& bytes, std::uint64_t offset, float v) {
+  std::memcpy(bytes.data() + offset, &v, sizeof v);
+}
+
+/// Both loaders refuse the file, and the library's message contains `what`.
+void refused_by_both(const fs::path& file, const std::string& what) {
+  CAPTURE(file.string());
+  REQUIRE_THROWS_WITH(gyre::io::load_trained_model(file), Contains(what));
+  REQUIRE_THROWS_AS(gyre::io::load_trained_model(file), gyre::FormatError);
+  REQUIRE_THROWS_WITH(gyre::runtime::Model::load(file.string()), Contains(what));
+}
+
+}  // namespace
+
+TEST_CASE("header sizes are bounded: huge values are a format error, not an allocation", "[io]") {
+  const fs::path good = exported(gyre::runtime::DType::kF32, "bounds.gyre");
+  REQUIRE_NOTHROW(gyre::io::load_trained_model(good));
+  SECTION("hidden_size 2^31-1 (issue 10 item 5: was 'out of memory', exit 1)") {
+    const auto f =
+        with_header(good, "hidden_max.gyre", [](json& h) { h["architecture"]["hidden_size"] = 2147483647; });
+    refused_by_both(f, "\"architecture.hidden_size\" must be an integer in [1, 65536]");
+  }
+  SECTION("one layer more than the limit (issue 10 item 5: 1000000 layers hung predict)") {
+    const auto f = with_header(good, "layers.gyre", [](json& h) { h["architecture"]["layers"] = 65; });
+    refused_by_both(f, "\"architecture.layers\" must be an integer in [1, 64]");
+  }
+  SECTION("a size that disagrees with the tensors is refused before the model is built") {
+    const auto f =
+        with_header(good, "embed.gyre", [](json& h) { h["architecture"]["embedding_size"] = 60000; });
+    refused_by_both(f, "has shape [23 x 6], the header needs [23 x 60000]");
+  }
+}
+
+TEST_CASE("one validator: the library refuses exactly what the runtime refuses (issue 10 item 7)", "[io]") {
+  const fs::path good = exported(gyre::runtime::DType::kF32, "strict.gyre");
+  struct Case {
+    const char* name;
+    std::function<void(json&)> edit;
+    const char* message;
+  };
+  const Case cases[] = {
+      {"fractional size", [](json& h) { h["architecture"]["hidden_size"] = 5.5; }, "must be an integer"},
+      {"unknown architecture key", [](json& h) { h["architecture"]["attention"] = true; },
+       "unknown key \"architecture.attention\""},
+      {"unknown tokenizer key", [](json& h) { h["tokenizer"]["lowercase"] = true; },
+       "unknown key \"tokenizer.lowercase\""},
+      {"missing tokenizer key", [](json& h) { h["tokenizer"].erase("nfkc"); }, "missing \"tokenizer.nfkc\""},
+      {"missing pooling", [](json& h) { h["architecture"].erase("pooling"); },
+       "missing \"architecture.pooling\""},
+      {"threshold on a softmax model", [](json& h) { h["architecture"]["multi_label_threshold"] = 0.5; },
+       "only for output \"sigmoid\""},
+      {"missing format", [](json& h) { h.erase("format"); }, "missing \"format\""},
+      {"other format", [](json& h) { h["format"] = "gyre-vocab"; }, "\"format\" is \"gyre-vocab\""},
+      {"vocabulary without the reserved tokens first",
+       [](json& h) { std::swap(h["vocabulary"][0], h["vocabulary"][1]); },
+       "must start with \"<pad>\", \"<unk>\""},
+      {"repeated token", [](json& h) { h["vocabulary"][3] = h["vocabulary"][2]; }, "appears twice"},
+      {"label with a NUL", [](json& h) { h["labels"][1] = std::string("can\0cel", 7); }, "control character"},
+      {"repeated label", [](json& h) { h["labels"][1] = h["labels"][0]; }, "appears twice"},
+      {"temperature count",
+       [](json& h) {
+         h["architecture"]["temperature"] = json::array({1.5, 2.0});
+       },
+       "\"architecture.temperature\" has 2 values; output softmax with 3 labels needs 1"},
+      {"temperature zero", [](json& h) { h["architecture"]["temperature"] = json::array({0.0}); },
+       "every temperature must be a number in"},
+      {"temperature not a list", [](json& h) { h["architecture"]["temperature"] = 1.5; },
+       "must be a non-empty array of numbers"},
+  };
+  for (const auto& c : cases) {
+    DYNAMIC_SECTION(c.name) {
+      refused_by_both(with_header(good, "strict-case.gyre", c.edit), c.message);
+    }
+  }
+}
+
+TEST_CASE("a temperature in the header survives export and loading, and is applied", "[io]") {
+  auto spec = classifier_spec();
+  spec.temperature = {1.75f};
+  const auto trained = gyre::test::random_model(spec, 11);
+  const fs::path file = tmp_dir() / "tempered.gyre";
+  gyre::io::export_model(trained, file, gyre::runtime::DType::kF32);
+  const auto loaded = gyre::io::load_trained_model(file);
+  REQUIRE(loaded.spec.temperature == std::vector<float>{1.75f});
+  const auto rt = gyre::runtime::Model::load(file.string());
+  REQUIRE(rt.architecture().temperature == std::vector<float>{1.75f});
+  // An untempered copy: the same file without the key loads and gives sharper probabilities.
+  const auto plain =
+      with_header(file, "untempered.gyre", [](json& h) { h["architecture"].erase("temperature"); });
+  const auto rt_plain = gyre::runtime::Model::load(plain.string());
+  gyre::runtime::Context a(rt), b(rt_plain);
+  const auto& pa = a.classify("kettle broken again");
+  const float top_calibrated = pa.probabilities[pa.best];
+  const auto& pb = b.classify("kettle broken again");
+  REQUIRE(pb.best == pa.best);
+  CHECK(top_calibrated <= pb.probabilities[pb.best] + 1e-7f);  // T > 1 softens
+}
+
+TEST_CASE("NaN or infinite weights and overflowing int8 scales are refused (issue 10 item 7)", "[io]") {
+  const fs::path f32 = exported(gyre::runtime::DType::kF32, "finite32.gyre");
+  const fs::path i8 = exported(gyre::runtime::DType::kI8, "finite8.gyre");
+  const fs::path f16 = exported(gyre::runtime::DType::kF16, "finite16.gyre");
+  SECTION("NaN bias") {
+    const auto f = with_bytes(f32, "nan.gyre", [](auto& b, const auto& file) {
+      put_f32(b, file.tensor("readout.b").offset + 4, std::numeric_limits<float>::quiet_NaN());
+    });
+    refused_by_both(f, "tensor \"readout.b\": element 1 is not a finite number");
+  }
+  SECTION("infinite weight") {
+    const auto f = with_bytes(f32, "inf.gyre", [](auto& b, const auto& file) {
+      put_f32(b, file.tensor("rnn.l0.fwd.w_hidden").offset, -std::numeric_limits<float>::infinity());
+    });
+    refused_by_both(f, "tensor \"rnn.l0.fwd.w_hidden\": element 0 is not a finite number");
+  }
+  SECTION("f16 infinity (exponent bits all ones)") {
+    const auto f = with_bytes(f16, "inf16.gyre", [](auto& b, const auto& file) {
+      const auto off = file.tensor("tokens.vectors").offset + 2 * 7;
+      b[off] = 0x00;
+      b[off + 1] = 0x7C;
+    });
+    refused_by_both(f, "tensor \"tokens.vectors\": element 7 is not a finite number");
+  }
+  SECTION("int8 scale of 3e38: finite, but 127 x scale is not") {
+    const auto f = with_bytes(i8, "scale.gyre", [](auto& b, const auto& file) {
+      put_f32(b, file.tensor("readout.w").scales_offset + 4, 3e38f);
+    });
+    refused_by_both(f, "scale of row 1 is 3e+38");
+  }
+}
+
+TEST_CASE("a file another writer made with labels in its own order loads in the library too", "[io]") {
+  // tools/make_runtime_fixtures.py writes labels in class order, not sorted ("O, B-date, I-date,
+  // B-part"); the library used to refuse such files while the runtime read them.
+  const fs::path fixture = fs::path(GYRE_FIXTURES_DIR) / "runtime" / "torch_gru_bi_tag.gyre";
+  const auto trained = gyre::io::load_trained_model(fixture);
+  REQUIRE(trained.spec.labels == std::vector<std::string>{"O", "B-date", "I-date", "B-part"});
+  REQUIRE(trained.vocab.labels.find("B-part") == 3);
+  REQUIRE(trained.spec.tag_scheme == gyre::data::TagScheme::kBio);
+}
+
+TEST_CASE("the runtime refuses a training checkpoint with a clear message", "[io]") {
+  const fs::path model = exported(gyre::runtime::DType::kF32, "ckpt-src.gyre");
+  const auto f = with_header(model, "as-checkpoint.bin", [](json& h) { h["format"] = "gyre-checkpoint"; });
+  REQUIRE_NOTHROW(gyre::io::load_trained_model(f));
+  REQUIRE_THROWS_WITH(gyre::runtime::Model::load(f.string()),
+                      Contains("a training checkpoint, not an exported model"));
+}
+
+TEST_CASE("format version 1 (tensor names before the rename) is refused with advice to retrain", "[io]") {
+  const fs::path good = exported(gyre::runtime::DType::kF32, "v2.gyre");
+  // The same bytes with version 1 in the preamble (offset 8, docs/model-format.md) and a fresh CRC.
+  const auto v1 = with_bytes(good, "v1.gyre", [](auto& b, const auto&) {
+    b[8] = 1;
+    b[9] = b[10] = b[11] = 0;
+  });
+  for (const auto& load : std::vector<std::function<void()>>{
+           [&] { gyre::io::load_trained_model(v1); }, [&] { gyre::runtime::Model::load(v1.string()); }}) {
+    REQUIRE_THROWS_WITH(load(),
+                        Contains(v1.string() + ": file format version 1 was written by an older gyre") &&
+                            Contains("retrain with this gyre"));
+  }
+  SECTION("a run directory with only the old checkpoint names names the file and says to retrain") {
+    const fs::path run = tmp_dir() / "v1-run";
+    fs::remove_all(run);  // a rerun must not find the selected.bin copied below
+    fs::create_directories(run);
+    fs::copy_file(v1, run / "checkpoint-best.bin", fs::copy_options::overwrite_existing);
+    REQUIRE_THROWS_WITH(gyre::io::resolve_model_path(run),
+                        Contains("its checkpoint-best.bin is model-format version 1") && Contains("retrain"));
+    fs::copy_file(good, run / gyre::io::kSelectedCheckpointFile, fs::copy_options::overwrite_existing);
+    REQUIRE(gyre::io::resolve_model_path(run) == run / "selected.bin");
+  }
+}
+
+#ifdef GYRE_CLI_PATH
+TEST_CASE("predict and eval exit with code 2 on a crafted model file", "[io][cli]") {
+  REQUIRE(fs::exists(GYRE_CLI_PATH));  // ctest runs after the whole build
+  const fs::path good = exported(gyre::runtime::DType::kF32, "cli.gyre");
+  const auto layers =
+      with_header(good, "cli-layers.gyre", [](json& h) { h["architecture"]["layers"] = 1000000; });
+  const auto nan = with_bytes(good, "cli-nan.gyre", [](auto& b, const auto& file) {
+    put_f32(b, file.tensor("readout.b").offset, std::numeric_limits<float>::quiet_NaN());
+  });
+  const fs::path data = tmp_dir() / "cli.tsv";
+  std::ofstream(data) << "book\tcan you come on monday\ncancel\tthanks\n";
+  for (const fs::path& f : {layers, nan}) {
+    CAPTURE(f.string());
+    const std::string predict =
+        "echo 'the kettle' | " + std::string(GYRE_CLI_PATH) + " predict " + f.string() + " 2>/dev/null";
+    REQUIRE(WEXITSTATUS(std::system(predict.c_str())) == 2);
+    const std::string eval =
+        std::string(GYRE_CLI_PATH) + " eval " + f.string() + " --test " + data.string() + " >/dev/null 2>&1";
+    REQUIRE(WEXITSTATUS(std::system(eval.c_str())) == 2);
+  }
+}
+#endif
+
+TEST_CASE("a character encoder in the header: keys, list and tensors are checked by both readers", "[io]") {
+  auto spec = classifier_spec();
+  spec.char_embedding_size = 3;
+  spec.char_filters = 4;
+  spec.char_width = 3;
+  const auto trained = gyre::test::random_model(spec, 9);
+  const fs::path good = tmp_dir() / "chars.gyre";
+  gyre::io::export_model(trained, good, gyre::runtime::DType::kF32);
+  REQUIRE_NOTHROW(gyre::io::load_trained_model(good));
+  REQUIRE(gyre::runtime::Model::load(good.string()).character_count() == trained.vocab.characters.size());
+  struct Case {
+    const char* name;
+    std::function<void(json&)> edit;
+    const char* message;
+  };
+  const Case cases[] = {
+      {"one size missing", [](json& h) { h["architecture"].erase("char_width"); },
+       "go together (all or none)"},
+      {"even width", [](json& h) { h["architecture"]["char_width"] = 4; },
+       "\"architecture.char_width\" must be odd"},
+      {"no character list", [](json& h) { h.erase("characters"); }, "\"characters\""},
+      {"repeated character", [](json& h) { h["characters"][3] = h["characters"][2]; },
+       "appears twice in \"characters\""},
+      {"reserved entries not first", [](json& h) { std::swap(h["characters"][0], h["characters"][1]); },
+       "\"characters\" must start with \"<pad>\", \"<unk>\""},
+      {"a list that disagrees with the tensor", [](json& h) { h["characters"].push_back("\xc3\xa9"); },
+       "tensor \"chars.vectors\" has shape"},
+  };
+  for (const auto& c : cases) {
+    DYNAMIC_SECTION(c.name) {
+      refused_by_both(with_header(good, "chars-case.gyre", c.edit), c.message);
+    }
+  }
+  SECTION("a character list without a character encoder") {
+    const fs::path plain = exported(gyre::runtime::DType::kF32, "plain-chars.gyre");
+    refused_by_both(with_header(plain, "plain-case.gyre",
+                                [](json& h) {
+                                  h["characters"] = json::array({"<pad>", "<unk>", "a"});
+                                }),
+                    "only for a model with a character encoder");
+  }
+  SECTION("int8 and f16 files run the encoder close to f32") {
+    // Tolerance 0.05 on probabilities: quantisation error of a small random model (our choice).
+    const auto f32 = gyre::runtime::Model::load(good.string());
+    gyre::runtime::Context c32(f32);
+    for (const auto precision : {gyre::runtime::DType::kF16, gyre::runtime::DType::kI8}) {
+      const fs::path q = tmp_dir() / "chars-q.gyre";
+      gyre::io::export_model(trained, q, precision);
+      const auto model = gyre::runtime::Model::load(q.string());
+      gyre::runtime::Context ctx(model);
+      for (const char* text : {"Can you come at 3pm?", "the KETTLE leaks", "zoë"}) {
+        const auto& a = c32.classify(text);
+        const std::vector<float> ref(a.probabilities.begin(), a.probabilities.end());
+        const auto& b = ctx.classify(text);
+        for (std::size_t k = 0; k < ref.size(); ++k)
+          REQUIRE_THAT(b.probabilities[k], Catch::Matchers::WithinAbs(ref[k], 0.05));
+      }
+    }
+  }
+  SECTION("the ids overloads without characters are refused for such a model") {
+    const auto model = gyre::runtime::Model::load(good.string());
+    gyre::runtime::Context ctx(model);
+    const std::vector<std::uint32_t> ids{2, 3};
+    REQUIRE_THROWS_WITH(ctx.classify_ids(ids), Contains("has a character encoder"));
+    const std::vector<std::int32_t> chars{2, 3, 4}, bad_offsets{0, 2};
+    REQUIRE_THROWS_WITH(ctx.classify_ids(ids, chars, bad_offsets), Contains("character offsets"));
+    const std::vector<std::int32_t> offsets{0, 2, 3};
+    REQUIRE(ctx.classify_ids(ids, chars, offsets).probabilities.size() == 3);
+  }
+}

@@ -1,0 +1,85 @@
+#!/usr/bin/env bash
+# Training cost as the corpus grows (issue 13): `gyre train` for one epoch on synthetic corpora of
+# increasing size (train_corpus.py, same generator and settings as run_train_bench.sh), reporting
+# the training loop's tokens/s and the process's peak RSS beside the size of the encoded corpus.
+# Targets: tokens/s flat within 10% across sizes; RSS growing only with the encoded corpus.
+#
+#   tools/bench/run_scale_bench.sh BUILD_DIR [--sizes "10000 100000 1000000"] [--threads 1]
+#                                            [--hidden 256] [--keep DIR]
+#
+# The 1M-example corpus is ~36M tokens (~250 MB of text); one epoch of it takes minutes.
+set -euo pipefail
+
+usage() { sed -n '2,10p' "$0" | sed 's/^# \{0,1\}//'; exit 2; }
+[[ $# -ge 1 ]] || usage
+build_dir=$1; shift
+sizes="10000 100000 1000000"
+threads=1
+hidden=256
+keep=
+while [[ $# -gt 0 ]]; do
+  case $1 in
+    --sizes) sizes=$2; shift 2 ;;
+    --threads) threads=$2; shift 2 ;;
+    --hidden) hidden=$2; shift 2 ;;
+    --keep) keep=$2; shift 2 ;;
+    *) usage ;;
+  esac
+done
+here=$(cd "$(dirname "$0")" && pwd)
+gyre=$build_dir/bin/gyre
+[[ -x $gyre ]] || { echo "run_scale_bench: $gyre not found; build it: cmake --build $build_dir --target gyre_cli" >&2; exit 2; }
+if [[ -n $keep ]]; then work=$keep; mkdir -p "$work"; else work=$(mktemp -d); trap 'rm -rf "$work"' EXIT; fi
+py=/usr/bin/python3
+out=$work/results.jsonl
+: > "$out"
+echo "== machine: $(nproc) cores, load average before: $(cut -d' ' -f1-3 /proc/loadavg)"
+for n in $sizes; do
+  corpus=$work/corpus-$n
+  if [[ ! -f $corpus/train.tsv ]]; then
+    mkdir -p "$corpus"
+    $py "$here/train_corpus.py" --out "$corpus" --examples "$n" --dev 500 --seed 7 >/dev/null
+  fi
+  run=$work/run-$n
+  rm -rf "$run"
+  /usr/bin/time -f '{"maxrss_kb": %M, "elapsed": %e, "cpu": %U, "sys": %S}' -o "$work/time-$n.json" \
+    "$gyre" train --train "$corpus/train.tsv" --dev "$corpus/dev.tsv" --cell lstm --embedding-size 128 \
+      --hidden-size "$hidden" --layers 1 --unidirectional --pooling mean --optimizer adam --learning-rate 0.002 \
+      --batch-size 32 --epochs 1 --dropout 0 --embedding-dropout 0 --clip-norm 0 --patience 0 --seed 1 --quiet \
+      --threads "$threads" --out "$run" >/dev/null
+  $py - "$n" "$run/metrics.json" "$work/time-$n.json" "$corpus/train.tsv" >> "$out" <<'PYEOF'
+import json, os, sys
+n, metrics, timing, train = sys.argv[1:5]
+m = json.load(open(metrics)); t = json.load(open(timing))
+tokens = m["seconds"] * m["tokens_per_second"]
+print(json.dumps({"examples": int(n), "tokens": round(tokens), "tokens_per_s": m["tokens_per_second"],
+                  "train_rss_bytes": m["peak_rss_bytes"], "loop_seconds": m["seconds"], "maxrss_kb": t["maxrss_kb"], "elapsed": t["elapsed"], "cpu": t["cpu"] + t["sys"],
+                  "text_bytes": os.path.getsize(train),
+                  # ids as int32 plus the label: the least any in-memory encoded corpus needs
+                  "encoded_min_bytes": 4 * round(tokens) + 4 * int(n)}))
+PYEOF
+  tail -1 "$out"
+done
+echo "== load average after: $(cut -d' ' -f1-3 /proc/loadavg)"
+$py - "$out" <<'PYEOF'
+import json, sys
+rows = [json.loads(l) for l in open(sys.argv[1])]
+base = rows[0]
+print("{:>9} {:>11} {:>10} {:>8} {:>12} {:>12} {:>9} {:>11} {:>9} {:>9}".format(
+    "examples", "tokens", "tok/s", "vs first", "train RSS MB", "proc RSS MB", "text MB", "encoded MB",
+    "growth/enc", "(process)"))
+for r in rows:
+    extra = max(1, r["encoded_min_bytes"] - base["encoded_min_bytes"])
+    growth = (r["train_rss_bytes"] - base["train_rss_bytes"]) / extra if r is not base else float("nan")
+    growth_p = (r["maxrss_kb"] - base["maxrss_kb"]) * 1024 / extra if r is not base else float("nan")
+    print(f"{r['examples']:>9} {r['tokens']:>11} {r['tokens_per_s']:>10.0f} {r['tokens_per_s'] / base['tokens_per_s']:>8.2f} "
+          f"{r['train_rss_bytes'] / 2**20:>12.0f} {r['maxrss_kb'] / 1024:>12.0f} {r['text_bytes'] / 2**20:>9.1f} "
+          f"{r['encoded_min_bytes'] / 2**20:>11.1f} {growth:>9.2f} {growth_p:>9.2f}")
+flat = all(abs(r["tokens_per_s"] / base["tokens_per_s"] - 1) <= 0.10 for r in rows)
+print(f"target tokens/s flat within 10%: {'met' if flat else 'MISSED'}")
+print("train RSS: peak RSS when training ends (metrics.json peak_rss_bytes); proc RSS: the whole process "
+      "(/usr/bin/time), which also covers the linear baseline fitted after training.")
+print("growth/enc: extra peak RSS over the smallest run per extra byte of the minimal encoded corpus (int32 ids "
+      "+ label); about 1 = memory follows the encoded corpus; much more = something else grows with the corpus "
+      "(raw text kept, per-example containers).")
+PYEOF
