@@ -45,9 +45,12 @@ Scores score_runtime(const fs::path& model_file, const gyre::io::TrainedModel& t
       correct += model.labels()[r.best] == ex.labels.at(0);
       ++total;
     } else {
-      // Pre-split tokens are looked up as they are: normalise them as training did.
+      // Without a character encoder, pre-split tokens are looked up as they are: normalise them as
+      // training did. With one, the runtime takes them as written (its characters see the case)
+      // and normalises the word lookup itself.
       std::vector<std::string> tokens;
-      for (const auto& t : ex.tokens) tokens.push_back(model.tokenizer().normalize(t));
+      for (const auto& t : ex.tokens)
+        tokens.push_back(model.architecture().has_char_encoder() ? t : model.tokenizer().normalize(t));
       const auto& r = ctx.tag_tokens(gyre::Span<const std::string>(tokens.data(), tokens.size()));
       std::vector<std::string> predicted;
       for (std::size_t t = 0; t < ex.tokens.size(); ++t) {
