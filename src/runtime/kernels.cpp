@@ -498,18 +498,26 @@ GYRE_AVX512 void matmul_packed_avx512(const W* p, std::size_t rows, std::size_t 
         _mm512_mask_storeu_ps(yt + base, static_cast<__mmask16>((1U << valid) - 1U), acc[k]);
       }
     }
-    for (; q < panels; ++q) {
-      const W* pq = p + q * stride;
-      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps();
-      std::size_t c = 0;
-      for (; c + 2 <= cols; c += 2) {
-        a0 = _mm512_fmadd_ps(load(pq + c * kPanelRows, all), _mm512_set1_ps(xt[c]), a0);
-        a1 = _mm512_fmadd_ps(load(pq + (c + 1) * kPanelRows, all), _mm512_set1_ps(xt[c + 1]), a1);
+    if (q < panels) {
+      // The last one to three panels: one accumulator per panel, column by column, as in the
+      // blocks above. Every output row is summed in the same order whichever path computes it,
+      // so a text's result never depends on how many other rows (batch mates) share the call.
+      const std::size_t np = panels - q;
+      const W* p0 = p + q * stride;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; ++c) {
+        const __m512 xv = _mm512_set1_ps(xt[c]);
+        const W* pc = p0 + c * kPanelRows;
+        a0 = _mm512_fmadd_ps(load(pc, all), xv, a0);
+        if (np > 1) a1 = _mm512_fmadd_ps(load(pc + stride, all), xv, a1);
+        if (np > 2) a2 = _mm512_fmadd_ps(load(pc + 2 * stride, all), xv, a2);
       }
-      if (c < cols) a0 = _mm512_fmadd_ps(load(pq + c * kPanelRows, all), _mm512_set1_ps(xt[c]), a0);
-      const std::size_t base = q * kPanelRows;
-      const std::size_t valid = std::min(kPanelRows, rows - base);
-      _mm512_mask_storeu_ps(yt + base, static_cast<__mmask16>((1U << valid) - 1U), _mm512_add_ps(a0, a1));
+      const __m512 acc[3] = {a0, a1, a2};
+      for (std::size_t k = 0; k < np; ++k) {
+        const std::size_t base = (q + k) * kPanelRows;
+        const std::size_t valid = std::min(kPanelRows, rows - base);
+        _mm512_mask_storeu_ps(yt + base, static_cast<__mmask16>((1U << valid) - 1U), acc[k]);
+      }
     }
   }
 }

@@ -328,6 +328,20 @@ struct Context::Buffers {
   ClassifyResult cres;
   TagResult tres;
   bool calibrated = true;  // apply the header's temperature (set_calibrated)
+  // Batched calls: per text its first token in the flat batch, its length and the order by
+  // length; the inputs, projections and outputs of all tokens [N x ...]; the states of the texts
+  // in length order [B x H]; the results.
+  std::vector<std::size_t> boff, blen, border;
+  std::size_t btotal = 0;  // tokens in the batch
+  std::vector<float> bx, bproj, bout_a, bout_b, bh, bc, bhp;
+  std::vector<float> bpooled, blogits, bprobs;
+  std::vector<std::uint32_t> bchosen, btags;
+  std::vector<std::string> btokens;  // tag_batch(texts): the tokens of every text, flat
+  std::vector<ByteRange> bbytes;
+  std::vector<TagSpan> bspans;
+  std::vector<std::size_t> bspan_off;
+  std::vector<ClassifyResult> bcres;
+  std::vector<TagResult> btres;
   // step-wise state
   std::size_t steps = 0;
   std::vector<float> sh, sc, sx, sproj, spool, sdist;
@@ -391,14 +405,14 @@ void embed_row(const Impl& m, std::uint32_t id, float* out) {
   }
 }
 
-/// One recurrent step of one direction: proj = W x + b (precomputed), hp = U h (+ b_h for GRU).
-/// The non-linearities run over whole gate blocks through the (vectorised) kernels.
-void cell_step(const Impl& m, const Direction& dir, const float* proj, float* h, float* c, Buffers& b) {
+/// The gate arithmetic of one recurrent step of one direction, given proj = W x + b and hp = U h
+/// (the GRU adds b_hidden here); g is scratch of G*H floats. The non-linearities run over whole
+/// gate blocks through the (vectorised) kernels. Shared by the one-text and the batched paths, so
+/// a text's state evolves identically in both.
+void cell_update(const Impl& m, const Direction& dir, const float* proj, const float* hp, float* h, float* c,
+                 float* g) {
   const std::size_t H = m.arch.hidden_size;
-  float* hp = b.hp.data();
-  float* g = b.gates.data();
   const auto& k = *m.kernels;
-  apply(m, dir.w_hidden, h, 1, hp, dir.w_hidden.rows, b);
   if (m.arch.cell == Cell::kLstm) {
     // Rows [i f g o]; c = f*c + i*g; h = o*tanh(c) (Gers et al. 2000).
     for (std::size_t j = 0; j < 4 * H; ++j) g[j] = proj[j] + hp[j];
@@ -422,15 +436,21 @@ void cell_step(const Impl& m, const Direction& dir, const float* proj, float* h,
   }
 }
 
-/// The character encoder's features of token t (b.char_ids[b.char_off[t] .. b.char_off[t+1])):
+/// One recurrent step of one direction: proj = W x + b (precomputed), hp = U h, then the gates.
+void cell_step(const Impl& m, const Direction& dir, const float* proj, float* h, float* c, Buffers& b) {
+  apply(m, dir.w_hidden, h, 1, b.hp.data(), dir.w_hidden.rows, b);
+  cell_update(m, dir, proj, b.hp.data(), h, c, b.gates.data());
+}
+
+/// The character encoder's features of token t (char_ids[char_off[t] .. char_off[t+1])):
 ///   out_f = tanh( max_p ( bias_f + sum_k W_f[k] . emb[c_{p-h+k}] ) ),  zero positions outside
 /// the token, w = 2h + 1 (Kim et al. 2016 eq. 1-2; nn::CharCnn in the training library). A token
 /// without characters gets zeros. Plain loops: the encoder is small next to the recurrent stack.
-void char_features(const Impl& m, Buffers& b, std::size_t t, float* out) {
+void char_features(const Impl& m, Buffers& b, const std::int32_t* char_ids, const std::int32_t* char_off,
+                   std::size_t t, float* out) {
   const auto& a = m.arch;
   const std::size_t Ec = a.char_embedding_size, Fc = a.char_filters, w = a.char_width, half = w / 2;
-  const auto begin = static_cast<std::size_t>(b.char_off[t]),
-             end = static_cast<std::size_t>(b.char_off[t + 1]);
+  const auto begin = static_cast<std::size_t>(char_off[t]), end = static_cast<std::size_t>(char_off[t + 1]);
   if (begin == end) {
     std::fill(out, out + Fc, 0.0f);
     return;
@@ -445,7 +465,7 @@ void char_features(const Impl& m, Buffers& b, std::size_t t, float* out) {
       if (q < half || q - half >= L) {
         std::fill(slot, slot + Ec, 0.0f);
       } else {
-        const auto id = static_cast<std::size_t>(b.char_ids[begin + q - half]);
+        const auto id = static_cast<std::size_t>(char_ids[begin + q - half]);
         std::memcpy(slot, m.char_embedding.data() + id * Ec, Ec * sizeof(float));
       }
     }
@@ -462,7 +482,8 @@ void char_features(const Impl& m, Buffers& b, std::size_t t, float* out) {
 /// Input row of token t: [word embedding, character features].
 void input_row(const Impl& m, Buffers& b, std::size_t t, float* out) {
   embed_row(m, b.ids[t], out);
-  if (m.arch.has_char_encoder()) char_features(m, b, t, out + m.arch.embedding_size);
+  if (m.arch.has_char_encoder())
+    char_features(m, b, b.char_ids.data(), b.char_off.data(), t, out + m.arch.embedding_size);
 }
 
 /// Runs the RNN stack over b.ids[0..T) (and their characters); returns the top layer's outputs
@@ -520,6 +541,38 @@ float log_sum_exp(const float* x, std::size_t n) {
   return static_cast<float>(static_cast<double>(mx) + std::log(sum));
 }
 
+/// Probabilities, arg-max and chosen labels of one text from its logits (head output plus bias).
+void decide_classify(const Impl& m, bool calibrated, const float* logits, float* probs, std::uint32_t* chosen,
+                     const float* features, std::size_t tokens, ClassifyResult& res) {
+  const std::size_t C = m.labels.size();
+  std::size_t n_chosen = 0;
+  std::uint32_t best = 0;
+  const std::vector<float>& temp = m.arch.temperature;
+  const bool tempered = calibrated && !temp.empty();
+  if (m.arch.output == Output::kSigmoid) {
+    for (std::size_t i = 0; i < C; ++i)
+      probs[i] = tempered ? tempered_sigmoid(logits[i], temp[i]) : sigmoid(logits[i]);
+  } else if (tempered) {
+    tempered_softmax(logits, C, temp[0], probs);
+  } else {
+    softmax(logits, probs, C);
+  }
+  for (std::uint32_t i = 1; i < C; ++i)
+    if (probs[i] > probs[best]) best = i;
+  if (m.arch.output == Output::kSigmoid) {
+    for (std::uint32_t i = 0; i < C; ++i)
+      if (probs[i] >= m.arch.multi_label_threshold) chosen[n_chosen++] = i;
+  } else {
+    chosen[n_chosen++] = best;
+  }
+  res.probabilities = Span<const float>(probs, C);
+  res.logits = Span<const float>(logits, C);
+  res.features = Span<const float>(features, m.arch.features());
+  res.best = best;
+  res.chosen = Span<const std::uint32_t>(chosen, n_chosen);
+  res.token_count = tokens;
+}
+
 /// Head over the pooled features in b.pooled -> b.probs, b.cres.
 const ClassifyResult& finish_classify(const Impl& m, Buffers& b, std::size_t tokens) {
   const std::size_t C = m.labels.size();
@@ -528,32 +581,8 @@ const ClassifyResult& finish_classify(const Impl& m, Buffers& b, std::size_t tok
   ensure(b.chosen, C);
   apply(m, m.head, b.pooled.data(), 1, b.logits.data(), C, b);
   for (std::size_t i = 0; i < C; ++i) b.logits[i] += m.head_bias[i];
-  std::size_t n_chosen = 0;
-  std::uint32_t best = 0;
-  const std::vector<float>& temp = m.arch.temperature;
-  const bool tempered = b.calibrated && !temp.empty();
-  if (m.arch.output == Output::kSigmoid) {
-    for (std::size_t i = 0; i < C; ++i)
-      b.probs[i] = tempered ? tempered_sigmoid(b.logits[i], temp[i]) : sigmoid(b.logits[i]);
-  } else if (tempered) {
-    tempered_softmax(b.logits.data(), C, temp[0], b.probs.data());
-  } else {
-    softmax(b.logits.data(), b.probs.data(), C);
-  }
-  for (std::uint32_t i = 1; i < C; ++i)
-    if (b.probs[i] > b.probs[best]) best = i;
-  if (m.arch.output == Output::kSigmoid) {
-    for (std::uint32_t i = 0; i < C; ++i)
-      if (b.probs[i] >= m.arch.multi_label_threshold) b.chosen[n_chosen++] = i;
-  } else {
-    b.chosen[n_chosen++] = best;
-  }
-  b.cres.probabilities = Span<const float>(b.probs.data(), C);
-  b.cres.logits = Span<const float>(b.logits.data(), C);
-  b.cres.features = Span<const float>(b.pooled.data(), m.arch.features());
-  b.cres.best = best;
-  b.cres.chosen = Span<const std::uint32_t>(b.chosen.data(), n_chosen);
-  b.cres.token_count = tokens;
+  decide_classify(m, b.calibrated, b.logits.data(), b.probs.data(), b.chosen.data(), b.pooled.data(), tokens,
+                  b.cres);
   return b.cres;
 }
 
@@ -573,26 +602,22 @@ void extract_spans(const Impl& m, Buffers& b, std::size_t T) {
   detail::extract_spans(m.tag_prefix, m.tag_type, b.tags.data(), T, b.spans);
 }
 
-const TagResult& finish_tag(const Impl& m, Buffers& b, const float* top, std::size_t T) {
+/// Tags and per-token distributions of one text from its emissions e [T x C] (head output plus
+/// bias): softmax and arg-max, or CRF Viterbi and posterior marginals; scratch from b.
+void decode_tags(const Impl& m, Buffers& b, const float* e, std::size_t T, float* probs,
+                 std::uint32_t* tags) {
   const std::size_t C = m.labels.size();
-  ensure(b.logits, T * C);
-  ensure(b.probs, T * C);
-  ensure(b.tags, T);
-  if (T > 0) apply(m, m.head, top, T, b.logits.data(), C, b);
-  for (std::size_t t = 0; t < T; ++t)
-    for (std::size_t i = 0; i < C; ++i) b.logits[t * C + i] += m.head_bias[i];
-  float* e = b.logits.data();
   if (m.arch.output != Output::kCrf) {
     const bool tempered = b.calibrated && !m.arch.temperature.empty();
     for (std::size_t t = 0; t < T; ++t) {
       if (tempered)
-        tempered_softmax(e + t * C, C, m.arch.temperature[0], b.probs.data() + t * C);
+        tempered_softmax(e + t * C, C, m.arch.temperature[0], probs + t * C);
       else
-        softmax(e + t * C, b.probs.data() + t * C, C);
+        softmax(e + t * C, probs + t * C, C);
       std::uint32_t best = 0;
       for (std::uint32_t i = 1; i < C; ++i)
         if (e[t * C + i] > e[t * C + best]) best = i;
-      b.tags[t] = best;
+      tags[t] = best;
     }
   } else if (T > 0) {
     // Viterbi (Lafferty et al. 2001): score(y) = start[y0] + sum e[t][yt] + sum trans[y(t-1)][yt] +
@@ -621,8 +646,8 @@ const TagResult& finish_tag(const Impl& m, Buffers& b, const float* top, std::si
     std::uint32_t last = 0;
     for (std::uint32_t j = 1; j < C; ++j)
       if (b.score[j] + m.crf_end[j] > b.score[last] + m.crf_end[last]) last = j;
-    b.tags[T - 1] = last;
-    for (std::size_t t = T - 1; t > 0; --t) b.tags[t - 1] = b.back[t * C + b.tags[t]];
+    tags[T - 1] = last;
+    for (std::size_t t = T - 1; t > 0; --t) tags[t - 1] = b.back[t * C + tags[t]];
     // Posterior marginals by forward-backward in log space.
     ensure(b.alpha, T * C);
     ensure(b.beta, T * C);
@@ -644,11 +669,21 @@ const TagResult& finish_tag(const Impl& m, Buffers& b, const float* top, std::si
     for (std::size_t j = 0; j < C; ++j) tmp[j] = al[(T - 1) * C + j] + m.crf_end[j];
     const float log_z = log_sum_exp(tmp, C);
     for (std::size_t t = 0; t < T; ++t)
-      for (std::size_t j = 0; j < C; ++j)
-        b.probs[t * C + j] = std::exp(al[t * C + j] + be[t * C + j] - log_z);
+      for (std::size_t j = 0; j < C; ++j) probs[t * C + j] = std::exp(al[t * C + j] + be[t * C + j] - log_z);
   }
   if (m.arch.output == Output::kCrf && b.calibrated && !m.arch.temperature.empty())
-    for (std::size_t t = 0; t < T; ++t) temper_distribution(b.probs.data() + t * C, C, m.arch.temperature[0]);
+    for (std::size_t t = 0; t < T; ++t) temper_distribution(probs + t * C, C, m.arch.temperature[0]);
+}
+
+const TagResult& finish_tag(const Impl& m, Buffers& b, const float* top, std::size_t T) {
+  const std::size_t C = m.labels.size();
+  ensure(b.logits, T * C);
+  ensure(b.probs, T * C);
+  ensure(b.tags, T);
+  if (T > 0) apply(m, m.head, top, T, b.logits.data(), C, b);
+  for (std::size_t t = 0; t < T; ++t)
+    for (std::size_t i = 0; i < C; ++i) b.logits[t * C + i] += m.head_bias[i];
+  decode_tags(m, b, b.logits.data(), T, b.probs.data(), b.tags.data());
   extract_spans(m, b, T);
   b.tres.tags = Span<const std::uint32_t>(b.tags.data(), T);
   b.tres.probabilities = Span<const float>(b.probs.data(), T * C);
@@ -717,30 +752,34 @@ void refuse_without_chars(const Impl& m, const char* what) {
 
 namespace {
 
+/// Pooling of a classifier over the top layer's outputs top [T x F] into pooled [F] (zeros when
+/// T = 0).
+void pool(const Impl& m, const float* top, std::size_t T, float* pooled) {
+  const std::size_t H = m.arch.hidden_size, F = m.arch.features();
+  std::fill(pooled, pooled + F, 0.0f);
+  if (T == 0) return;
+  switch (m.arch.pooling) {
+    case Pooling::kLast:
+      std::memcpy(pooled, top + (T - 1) * F, H * sizeof(float));
+      if (m.arch.bidirectional) std::memcpy(pooled + H, top + H, H * sizeof(float));
+      break;
+    case Pooling::kMean:
+      for (std::size_t t = 0; t < T; ++t)
+        for (std::size_t j = 0; j < F; ++j) pooled[j] += top[t * F + j];
+      for (std::size_t j = 0; j < F; ++j) pooled[j] /= static_cast<float>(T);
+      break;
+    case Pooling::kMax:
+      std::memcpy(pooled, top, F * sizeof(float));
+      for (std::size_t t = 1; t < T; ++t)
+        for (std::size_t j = 0; j < F; ++j) pooled[j] = std::max(pooled[j], top[t * F + j]);
+      break;
+  }
+}
+
 /// Classifies the T tokens in b.ids (and b.char_ids / b.char_off for a character encoder).
 const ClassifyResult& classify_prepared(const Impl& m, Buffers& b, std::size_t T) {
-  const std::size_t H = m.arch.hidden_size, F = m.arch.features();
-  ensure(b.pooled, F);
-  std::fill(b.pooled.begin(), b.pooled.begin() + static_cast<std::ptrdiff_t>(F), 0.0f);
-  if (T > 0) {
-    const float* top = run_stack(m, b, T);
-    switch (m.arch.pooling) {
-      case Pooling::kLast:
-        std::memcpy(b.pooled.data(), top + (T - 1) * F, H * sizeof(float));
-        if (m.arch.bidirectional) std::memcpy(b.pooled.data() + H, top + H, H * sizeof(float));
-        break;
-      case Pooling::kMean:
-        for (std::size_t t = 0; t < T; ++t)
-          for (std::size_t j = 0; j < F; ++j) b.pooled[j] += top[t * F + j];
-        for (std::size_t j = 0; j < F; ++j) b.pooled[j] /= static_cast<float>(T);
-        break;
-      case Pooling::kMax:
-        std::memcpy(b.pooled.data(), top, F * sizeof(float));
-        for (std::size_t t = 1; t < T; ++t)
-          for (std::size_t j = 0; j < F; ++j) b.pooled[j] = std::max(b.pooled[j], top[t * F + j]);
-        break;
-    }
-  }
+  ensure(b.pooled, m.arch.features());
+  pool(m, T > 0 ? run_stack(m, b, T) : nullptr, T, b.pooled.data());
   return finish_classify(m, b, T);
 }
 
@@ -944,6 +983,312 @@ const TagResult& Context::tag(std::string_view text) {
   }
   b.tres.token_bytes = Span<const ByteRange>(b.token_bytes.data(), b.token_bytes.size());
   return b.tres;
+}
+
+// ---- batched calls ------------------------------------------------------------------------------
+
+namespace {
+
+[[noreturn]] void fail_for_text(std::size_t i, const Error& e) {
+  throw Error("text " + std::to_string(i) + ": " + e.what());
+}
+
+/// Starts a batch of B texts (their inputs are appended by batch_add in input order).
+void batch_begin(Buffers& b, std::size_t B) {
+  ensure(b.boff, B);
+  ensure(b.blen, B);
+  b.btotal = 0;
+}
+
+/// Appends the input rows of text i: T tokens with these ids and, for a character encoder, their
+/// characters (token t's at char_ids[char_off[t] .. char_off[t+1])).
+void batch_add(const Impl& m, Buffers& b, std::size_t i, const std::uint32_t* ids, std::size_t T,
+               const std::int32_t* char_ids, const std::int32_t* char_off) {
+  const std::size_t E = m.arch.input_size();
+  b.boff[i] = b.btotal;
+  b.blen[i] = T;
+  ensure(b.bx, (b.btotal + T) * E);
+  for (std::size_t t = 0; t < T; ++t) {
+    float* row = b.bx.data() + (b.btotal + t) * E;
+    embed_row(m, ids[t], row);
+    if (m.arch.has_char_encoder()) char_features(m, b, char_ids, char_off, t, row + m.arch.embedding_size);
+  }
+  b.btotal += T;
+}
+
+/// The RNN stack over every text of the batch; returns the top layer's outputs [btotal x F], text
+/// i's tokens at rows boff[i] .. boff[i] + blen[i]. The texts run longest first, so those still
+/// running at step s are the first `live` of that order: their states are rows 0 .. live of bh/bc
+/// and one recurrent product per step covers them all; a text that has ended keeps its final
+/// state (its row is no longer read or written). Each text sees exactly the arithmetic of
+/// run_stack: the kernels sum every output in the same order for any number of rows.
+const float* batch_stack(const Impl& m, Buffers& b, std::size_t B) {
+  const auto& a = m.arch;
+  const std::size_t N = b.btotal, H = a.hidden_size, GH = a.gates() * H, F = a.features();
+  ensure(b.bproj, N * GH);
+  ensure(b.bout_a, N * F);
+  ensure(b.bout_b, N * F);
+  ensure(b.bh, B * H);
+  ensure(b.bc, B * H);
+  ensure(b.bhp, B * GH);
+  ensure(b.gates, GH);
+  ensure(b.border, B);
+  for (std::size_t i = 0; i < B; ++i) b.border[i] = i;
+  std::sort(
+      b.border.begin(), b.border.begin() + static_cast<std::ptrdiff_t>(B),
+      [&b](std::size_t x, std::size_t y) { return b.blen[x] != b.blen[y] ? b.blen[x] > b.blen[y] : x < y; });
+  const std::size_t steps = B > 0 ? b.blen[b.border[0]] : 0;
+  const float* in = b.bx.data();
+  float* out = b.bout_a.data();
+  for (std::size_t k = 0; k < a.layers; ++k) {
+    for (std::size_t d = 0; d < a.directions(); ++d) {
+      const Direction& dir = m.layers[k][d];
+      apply(m, dir.w_input, in, N, b.bproj.data(), GH, b);  // every token of the batch in one product
+      for (std::size_t r = 0; r < N; ++r) {
+        float* p = b.bproj.data() + r * GH;
+        for (std::size_t j = 0; j < GH; ++j) p[j] += dir.bias[j];
+      }
+      std::fill(b.bh.begin(), b.bh.begin() + static_cast<std::ptrdiff_t>(B * H), 0.0f);
+      std::fill(b.bc.begin(), b.bc.begin() + static_cast<std::ptrdiff_t>(B * H), 0.0f);
+      std::size_t live = B;
+      for (std::size_t s = 0; s < steps; ++s) {
+        while (b.blen[b.border[live - 1]] <= s) --live;  // the longest text runs to the end: live >= 1
+        apply(m, dir.w_hidden, b.bh.data(), live, b.bhp.data(), GH, b);
+        for (std::size_t j = 0; j < live; ++j) {
+          const std::size_t i = b.border[j];
+          const std::size_t row = b.boff[i] + (d == 0 ? s : b.blen[i] - 1 - s);
+          float* h = b.bh.data() + j * H;
+          cell_update(m, dir, b.bproj.data() + row * GH, b.bhp.data() + j * GH, h, b.bc.data() + j * H,
+                      b.gates.data());
+          std::memcpy(out + row * F + d * H, h, H * sizeof(float));
+        }
+      }
+    }
+    in = out;
+    out = out == b.bout_a.data() ? b.bout_b.data() : b.bout_a.data();
+  }
+  return in;
+}
+
+Span<const ClassifyResult> batch_classify(const Impl& m, Buffers& b, std::size_t B) {
+  const std::size_t F = m.arch.features(), C = m.labels.size();
+  const float* top = b.btotal > 0 ? batch_stack(m, b, B) : nullptr;
+  ensure(b.bpooled, B * F);
+  for (std::size_t i = 0; i < B; ++i)
+    pool(m, b.blen[i] > 0 ? top + b.boff[i] * F : nullptr, b.blen[i], b.bpooled.data() + i * F);
+  ensure(b.blogits, B * C);
+  ensure(b.bprobs, B * C);
+  ensure(b.bchosen, B * C);
+  ensure(b.bcres, B);
+  if (B > 0) apply(m, m.head, b.bpooled.data(), B, b.blogits.data(), C, b);
+  for (std::size_t i = 0; i < B; ++i) {
+    float* logits = b.blogits.data() + i * C;
+    for (std::size_t c = 0; c < C; ++c) logits[c] += m.head_bias[c];
+    decide_classify(m, b.calibrated, logits, b.bprobs.data() + i * C, b.bchosen.data() + i * C,
+                    b.bpooled.data() + i * F, b.blen[i], b.bcres[i]);
+  }
+  return Span<const ClassifyResult>(b.bcres.data(), B);
+}
+
+Span<const TagResult> batch_tag(const Impl& m, Buffers& b, std::size_t B) {
+  const std::size_t N = b.btotal, C = m.labels.size();
+  const float* top = N > 0 ? batch_stack(m, b, B) : nullptr;
+  ensure(b.blogits, N * C);
+  ensure(b.bprobs, N * C);
+  ensure(b.btags, N);
+  ensure(b.bspan_off, B + 1);
+  ensure(b.btres, B);
+  if (N > 0) apply(m, m.head, top, N, b.blogits.data(), C, b);
+  for (std::size_t r = 0; r < N; ++r)
+    for (std::size_t c = 0; c < C; ++c) b.blogits[r * C + c] += m.head_bias[c];
+  if (b.bspans.capacity() < N) b.bspans.reserve(N);  // at most one span per token: no growth later
+  b.bspans.clear();
+  for (std::size_t i = 0; i < B; ++i) {
+    const std::size_t off = b.boff[i], T = b.blen[i];
+    decode_tags(m, b, b.blogits.data() + off * C, T, b.bprobs.data() + off * C, b.btags.data() + off);
+    b.bspan_off[i] = b.bspans.size();
+    if (m.arch.tag_scheme != TagScheme::kNone) {
+      if (b.spans.capacity() < T) b.spans.reserve(T);
+      detail::extract_spans(m.tag_prefix, m.tag_type, b.btags.data() + off, T, b.spans);
+      b.bspans.insert(b.bspans.end(), b.spans.begin(), b.spans.end());
+    }
+    TagResult& r = b.btres[i];
+    r.tokens = {};
+    r.token_bytes = {};
+    r.tags = Span<const std::uint32_t>(b.btags.data() + off, T);
+    r.probabilities = Span<const float>(b.bprobs.data() + off * C, T * C);
+  }
+  b.bspan_off[B] = b.bspans.size();
+  for (std::size_t i = 0; i < B; ++i)
+    b.btres[i].spans =
+        Span<const TagSpan>(b.bspans.data() + b.bspan_off[i], b.bspan_off[i + 1] - b.bspan_off[i]);
+  return Span<const TagResult>(b.btres.data(), B);
+}
+
+void batch_ids(const Impl& m, Buffers& b, Span<const Span<const std::uint32_t>> texts) {
+  for (std::size_t i = 0; i < texts.size(); ++i) {
+    try {
+      check_ids(m, texts[i]);
+    } catch (const Error& e) {
+      fail_for_text(i, e);
+    }
+  }
+  batch_begin(b, texts.size());
+  for (std::size_t i = 0; i < texts.size(); ++i)
+    batch_add(m, b, i, texts[i].data(), texts[i].size(), nullptr, nullptr);
+}
+
+void batch_ids_chars(const Impl& m, Buffers& b, Span<const Span<const std::uint32_t>> texts,
+                     Span<const Span<const std::int32_t>> char_ids,
+                     Span<const Span<const std::int32_t>> char_offsets) {
+  if (!m.arch.has_char_encoder()) throw Error("character ids given, but this model has no character encoder");
+  if (char_ids.size() != texts.size() || char_offsets.size() != texts.size())
+    throw Error("a batch of " + std::to_string(texts.size()) +
+                " texts needs as many character id lists and offset lists (got " +
+                std::to_string(char_ids.size()) + " and " + std::to_string(char_offsets.size()) + ")");
+  for (std::size_t i = 0; i < texts.size(); ++i) {
+    try {
+      check_ids(m, texts[i]);
+      check_chars(m, texts[i].size(), char_ids[i], char_offsets[i]);
+    } catch (const Error& e) {
+      fail_for_text(i, e);
+    }
+  }
+  batch_begin(b, texts.size());
+  for (std::size_t i = 0; i < texts.size(); ++i)
+    batch_add(m, b, i, texts[i].data(), texts[i].size(), char_ids[i].data(), char_offsets[i].data());
+}
+
+void batch_tokens(const Impl& m, Buffers& b, Span<const Span<const std::string>> texts) {
+  batch_begin(b, texts.size());
+  for (std::size_t i = 0; i < texts.size(); ++i) {
+    const std::size_t T = texts[i].size();
+    if (m.arch.has_char_encoder()) {
+      try {
+        tokens_with_chars(m, b, texts[i]);
+      } catch (const Error& e) {
+        fail_for_text(i, e);
+      }
+      batch_add(m, b, i, b.ids.data(), T, b.char_ids.data(), b.char_off.data());
+    } else {
+      tokens_to_ids(m, b, texts[i]);
+      batch_add(m, b, i, b.ids.data(), T, nullptr, nullptr);
+    }
+  }
+}
+
+/// Tokenizes each text as classify()/tag() do; with keep_tokens the tokens and their bytes are
+/// kept in b.btokens / b.bbytes at the texts' rows (boff).
+void batch_texts(const Impl& m, Buffers& b, Span<const std::string_view> texts, bool keep_tokens) {
+  batch_begin(b, texts.size());
+  const bool chars = m.arch.has_char_encoder();
+  for (std::size_t i = 0; i < texts.size(); ++i) {
+    try {
+      if (chars)
+        text_with_chars(m, b, texts[i], keep_tokens ? &b.token_bytes : nullptr);
+      else if (keep_tokens)
+        m.tokenizer->tokenize(texts[i], b.tokens, b.token_bytes);
+      else
+        m.tokenizer->tokenize(texts[i], b.tokens);
+    } catch (const Error& e) {
+      fail_for_text(i, e);
+    }
+    const std::size_t T = b.tokens.size();
+    if (!chars) tokens_to_ids(m, b, Span<const std::string>(b.tokens.data(), T));
+    const std::size_t off = b.btotal;
+    batch_add(m, b, i, b.ids.data(), T, chars ? b.char_ids.data() : nullptr,
+              chars ? b.char_off.data() : nullptr);
+    if (keep_tokens) {
+      ensure(b.btokens, off + T);
+      ensure(b.bbytes, off + T);
+      for (std::size_t t = 0; t < T; ++t) {
+        b.btokens[off + t] = b.tokens[t];  // reuses the slot's capacity
+        b.bbytes[off + t] = b.token_bytes[t];
+      }
+    }
+  }
+}
+
+}  // namespace
+
+Span<const ClassifyResult> Context::classify_batch_ids(Span<const Span<const std::uint32_t>> texts) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  refuse_without_chars(m, "classify_batch_ids");
+  batch_ids(m, *b_, texts);
+  return batch_classify(m, *b_, texts.size());
+}
+
+Span<const ClassifyResult> Context::classify_batch_ids(Span<const Span<const std::uint32_t>> texts,
+                                                       Span<const Span<const std::int32_t>> char_ids,
+                                                       Span<const Span<const std::int32_t>> char_offsets) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  batch_ids_chars(m, *b_, texts, char_ids, char_offsets);
+  return batch_classify(m, *b_, texts.size());
+}
+
+Span<const ClassifyResult> Context::classify_batch_tokens(Span<const Span<const std::string>> texts) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  batch_tokens(m, *b_, texts);
+  return batch_classify(m, *b_, texts.size());
+}
+
+Span<const ClassifyResult> Context::classify_batch(Span<const std::string_view> texts) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  batch_texts(m, *b_, texts, /*keep_tokens=*/false);
+  return batch_classify(m, *b_, texts.size());
+}
+
+Span<const TagResult> Context::tag_batch_ids(Span<const Span<const std::uint32_t>> texts) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  refuse_without_chars(m, "tag_batch_ids");
+  batch_ids(m, *b_, texts);
+  return batch_tag(m, *b_, texts.size());
+}
+
+Span<const TagResult> Context::tag_batch_ids(Span<const Span<const std::uint32_t>> texts,
+                                             Span<const Span<const std::int32_t>> char_ids,
+                                             Span<const Span<const std::int32_t>> char_offsets) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  batch_ids_chars(m, *b_, texts, char_ids, char_offsets);
+  return batch_tag(m, *b_, texts.size());
+}
+
+Span<const TagResult> Context::tag_batch_tokens(Span<const Span<const std::string>> texts) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  Buffers& b = *b_;
+  batch_tokens(m, b, texts);
+  batch_tag(m, b, texts.size());
+  for (std::size_t i = 0; i < texts.size(); ++i) b.btres[i].tokens = texts[i];
+  return Span<const TagResult>(b.btres.data(), texts.size());
+}
+
+Span<const TagResult> Context::tag_batch(Span<const std::string_view> texts) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kTag);
+  Buffers& b = *b_;
+  batch_texts(m, b, texts, /*keep_tokens=*/true);
+  batch_tag(m, b, texts.size());
+  for (std::size_t i = 0; i < texts.size(); ++i) {
+    TagResult& r = b.btres[i];
+    const std::size_t off = b.boff[i], T = b.blen[i];
+    r.tokens = Span<const std::string>(b.btokens.data() + off, T);
+    r.token_bytes = Span<const ByteRange>(b.bbytes.data() + off, T);
+  }
+  // A span's bytes run from its first token's first byte to its last token's last byte.
+  for (std::size_t i = 0; i < texts.size(); ++i)
+    for (std::size_t k = b.bspan_off[i]; k < b.bspan_off[i + 1]; ++k) {
+      TagSpan& s = b.bspans[k];
+      s.byte_begin = b.bbytes[b.boff[i] + s.begin].begin;
+      s.byte_end = b.bbytes[b.boff[i] + s.end - 1].end;
+    }
+  return Span<const TagResult>(b.btres.data(), texts.size());
 }
 
 // ---- step-wise ----------------------------------------------------------------------------------

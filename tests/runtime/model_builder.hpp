@@ -24,7 +24,13 @@ struct RefModel {
   bool normalize = false;  // nfkc + case_fold (need ICU)
   double threshold = 0.5;
   std::vector<std::string> labels = {"alpha", "beta", "gamma"};
-  std::vector<std::string> words;  // vocabulary from id 2 on (V = words.size() + 2); empty: w2 .. w{V-1}
+  std::vector<std::string> words;   // vocabulary from id 2 on (V = words.size() + 2); empty: w2 .. w{V-1}
+  std::vector<double> temperature;  // architecture.temperature when not empty
+  // Character encoder when char_F > 0 (needs an ICU runtime): char_E-wide character vectors,
+  // char_F filters of width char_w over the character list `characters` ("<pad>", "<unk>" first).
+  // The double-precision reference below does not compute it.
+  std::size_t char_E = 0, char_F = 0, char_w = 3;
+  std::vector<std::string> characters;
   std::map<std::string, std::vector<double>> w;  // row-major
   std::map<std::string, std::pair<std::size_t, std::size_t>> shape;
 
@@ -32,6 +38,7 @@ struct RefModel {
   std::size_t dirs() const { return bidir ? 2 : 1; }
   std::size_t F() const { return H * dirs(); }
   std::size_t C() const { return labels.size(); }
+  std::size_t input() const { return E + char_F; }
 
   void add(const std::string& name, std::size_t r, std::size_t c, std::mt19937& rng, double scale) {
     std::uniform_real_distribution<double> u(-scale, scale);
@@ -48,11 +55,16 @@ struct RefModel {
     for (std::size_t k = 0; k < L; ++k)
       for (std::size_t d = 0; d < dirs(); ++d) {
         const std::string p = "rnn.l" + std::to_string(k) + (d == 0 ? ".fwd." : ".bwd.");
-        add(p + "w_input", G() * H, k == 0 ? E : F(), rng, 0.8);
+        add(p + "w_input", G() * H, k == 0 ? input() : F(), rng, 0.8);
         add(p + "w_hidden", G() * H, H, rng, 0.8);
         add(p + "b_input", 1, G() * H, rng, 0.5);
         if (cell == "gru") add(p + "b_hidden", 1, 3 * H, rng, 0.5);
       }
+    if (char_F > 0) {
+      add("chars.vectors", characters.size(), char_E, rng, 1.0);
+      add("chars.w_filter", char_F, char_w * char_E, rng, 0.8);
+      add("chars.b_filter", 1, char_F, rng, 0.5);
+    }
     add("readout.w", C(), F(), rng, 1.5);
     add("readout.b", 1, C(), rng, 0.5);
     if (output == "crf") {
@@ -78,6 +90,16 @@ struct RefModel {
       arch.set("tag_scheme", Json::string(scheme));
     }
     arch.set("output", Json::string(output));
+    if (!temperature.empty()) {
+      Json t = Json::array();
+      for (double v : temperature) t.push_back(Json::number(v));
+      arch.set("temperature", std::move(t));
+    }
+    if (char_F > 0) {
+      arch.set("char_embedding_size", Json::number(static_cast<double>(char_E)));
+      arch.set("char_filters", Json::number(static_cast<double>(char_F)));
+      arch.set("char_width", Json::number(static_cast<double>(char_w)));
+    }
     Json h = Json::object();
     h.set("format", Json::string("gyre-model"));
     h.set("architecture", std::move(arch));
@@ -98,6 +120,11 @@ struct RefModel {
     for (std::size_t i = 2; i < V; ++i)
       voc.push_back(Json::string(words.empty() ? "w" + std::to_string(i) : words.at(i - 2)));
     h.set("vocabulary", std::move(voc));
+    if (char_F > 0) {
+      Json ch = Json::array();
+      for (const auto& c : characters) ch.push_back(Json::string(c));
+      h.set("characters", std::move(ch));
+    }
     return h.dump();
   }
 

@@ -302,6 +302,67 @@ TEST_CASE("Context allocates nothing per call after warm-up", "[runtime][alloc]"
     }
   }
 }
+
+TEST_CASE("batched calls allocate nothing after warm-up", "[runtime][alloc]") {
+  using gyre::Span;
+  using gyre::runtime::Context;
+  using gyre::runtime::DType;
+  using gyre::runtime::Model;
+  for (DType dt : {DType::kF32, DType::kF16, DType::kI8}) {
+    for (const char* task : {"classify", "tag"}) {
+      const bool tag = std::string(task) == "tag";
+      gyre::test::RefModel r;
+      r.task = task;
+      r.E = 16;
+      r.H = 24;
+      r.L = 2;
+      r.bidir = true;
+      r.output = tag ? "crf" : "softmax";
+      if (tag) r.labels = {"O", "B-a", "I-a"};
+      r.randomize(9);
+      const auto bytes = r.file(dt);
+      const Model model = Model::from_buffer(bytes.data(), bytes.size());
+      Context ctx(model);
+      const std::vector<std::uint32_t> a = {2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 2, 3}, b = {4, 5, 6}, c = {};
+      const std::vector<Span<const std::uint32_t>> large = {a, b, c, a, b, a}, small = {b, c, b};
+      const std::vector<std::string> t1 = {"w2", "w9", "unknown", "w4"}, t2 = {"w3"};
+      const std::vector<Span<const std::string>> tokens = {t1, t2, t1, {}};
+      auto call = [&](const std::vector<Span<const std::uint32_t>>& ids) {
+        if (tag) {
+          ctx.tag_batch_ids(ids);
+          ctx.tag_batch_tokens(tokens);
+        } else {
+          ctx.classify_batch_ids(ids);
+          ctx.classify_batch_tokens(tokens);
+        }
+      };
+      call(large);  // warm-up
+      const long before = g_allocations.load();
+      for (int rep = 0; rep < 10; ++rep) {
+        call(small);
+        call(large);
+      }
+      const long during = g_allocations.load() - before;  // read before INFO, which allocates
+      INFO(task << " dtype " << gyre::runtime::to_string(dt));
+      REQUIRE(during == 0);
+      // Text with the whitespace tokenizer: the same once the largest batch has been seen.
+      const std::vector<std::string_view> texts = {"w2 w9 unknown w4 w2", "", "w3 w3"};
+      if (tag)
+        ctx.tag_batch(texts);
+      else
+        ctx.classify_batch(texts);
+      const long b1 = g_allocations.load();
+      for (int rep = 0; rep < 10; ++rep) {
+        if (tag)
+          ctx.tag_batch(texts);
+        else
+          ctx.classify_batch(texts);
+      }
+      const long text_path = g_allocations.load() - b1;
+      REQUIRE(text_path == 0);
+    }
+  }
+}
 #endif  // GYRE_COUNTING_NEW
 
 TEST_CASE("vectorised sigmoid and tanh match the C library", "[runtime][kernels]") {

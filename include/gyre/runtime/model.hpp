@@ -145,6 +145,32 @@ class Context {
   const TagResult& tag_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
                            Span<const std::int32_t> char_offsets);
 
+  /// Batched calls: many texts through the model together, one result per text in input order,
+  /// each equal to the matching one-text call (classify, classify_tokens, classify_ids, tag, ...)
+  /// within float rounding: the same tokens, probabilities, tags, spans with their byte offsets,
+  /// temperature and calibration. The texts are sorted by length, each layer's input product runs
+  /// once over all tokens of the batch and the recurrent product once per time step over the texts
+  /// still running (a shorter text keeps its final state), so the weights are read once per step
+  /// for the whole batch instead of once per text. Every output is summed in the same order
+  /// whatever else is in the batch, so a text's result does not depend on its batch mates.
+  /// Empty texts are allowed (a classifier then sees the empty text, as classify("") does). The
+  /// results, and the spans inside them, stay valid until the next call on this Context; after a
+  /// warm-up with the largest batch the token-id and token paths allocate nothing. An error names
+  /// the text ("text 3: ...").
+  Span<const ClassifyResult> classify_batch(Span<const std::string_view> texts);
+  Span<const ClassifyResult> classify_batch_tokens(Span<const Span<const std::string>> texts);
+  Span<const ClassifyResult> classify_batch_ids(Span<const Span<const std::uint32_t>> texts);
+  /// Character-encoder models: per text, the character ids and offsets that classify_ids takes.
+  Span<const ClassifyResult> classify_batch_ids(Span<const Span<const std::uint32_t>> texts,
+                                                Span<const Span<const std::int32_t>> char_ids,
+                                                Span<const Span<const std::int32_t>> char_offsets);
+  Span<const TagResult> tag_batch(Span<const std::string_view> texts);
+  Span<const TagResult> tag_batch_tokens(Span<const Span<const std::string>> texts);
+  Span<const TagResult> tag_batch_ids(Span<const Span<const std::uint32_t>> texts);
+  Span<const TagResult> tag_batch_ids(Span<const Span<const std::uint32_t>> texts,
+                                      Span<const Span<const std::int32_t>> char_ids,
+                                      Span<const Span<const std::int32_t>> char_offsets);
+
   /// Temperature scaling (architecture().temperature, gyre/runtime/calibration.hpp) applied to
   /// every probability this Context returns: on by default; off gives the raw model outputs. It
   /// never changes a softmax arg-max, a tag or a span; multi-label decisions compare the
