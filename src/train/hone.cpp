@@ -90,6 +90,7 @@ const std::vector<HoneDimension>& default_hone_space() {
       {.key = "embedding_size", .kind = K::kChoice, .choices = {32, 64, 128}},
       {.key = "dropout", .kind = K::kUniform, .choices = {}, .low = 0.0, .high = 0.5, .digits = 2},
       {.key = "pooling", .kind = K::kChoice, .choices = {"mean", "max", "last"}},
+      {.key = "char_encoder", .kind = K::kChoice, .choices = {false, true}},
   };
   return space;
 }

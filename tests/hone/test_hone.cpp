@@ -77,6 +77,7 @@ TEST_CASE("hone: sampled settings are deterministic, inside the space and valid 
   const auto& space = gyre::train::default_hone_space();
   gyre::Rng a(7), b(7), c(8);
   std::set<std::string> distinct;
+  std::set<bool> chars_seen;
   for (int i = 0; i < 200; ++i) {
     const auto sa = gyre::train::sample_settings(space, a);
     CHECK(sa == gyre::train::sample_settings(space, b));
@@ -87,12 +88,14 @@ TEST_CASE("hone: sampled settings are deterministic, inside the space and valid 
     const double dropout = sa.at("dropout").get<double>();
     CHECK(dropout >= 0.0);
     CHECK(dropout <= 0.5);
+    chars_seen.insert(sa.at("char_encoder").get<bool>());  // issue 12: the character encoder on/off
     // Every sample is a valid training config (the settings table checks types and ranges).
     auto j = gyre::train::default_config_json();
     j["train"] = "x.tsv";
     for (const auto& [k, v] : sa.items()) j[k] = v;
     CHECK_NOTHROW(gyre::train::validate(gyre::train::config_from_json(j)));
   }
-  CHECK(distinct.size() > 150);  // 4*3*3 choices times two continuous ranges: nearly all distinct
+  CHECK(chars_seen.size() == 2);
+  CHECK(distinct.size() > 150);  // 4*3*3*2 choices times two continuous ranges: nearly all distinct
   CHECK(gyre::train::sample_settings(space, c) != gyre::train::sample_settings(space, a));
 }
