@@ -15,12 +15,9 @@ for tool in aarch64-linux-gnu-g++ qemu-aarch64; do
 done
 werror=OFF
 if [ "${CI:-}" = true ]; then werror=ON; fi
-launcher=()
-if command -v ccache >/dev/null 2>&1; then
-  launcher=(-DCMAKE_CXX_COMPILER_LAUNCHER=ccache -DCMAKE_C_COMPILER_LAUNCHER=ccache)
-fi
+source tools/ccache-launcher.sh
 cmake -S tests/cross -B "$dir" -G Ninja -DCMAKE_BUILD_TYPE=Release \
   -DCMAKE_TOOLCHAIN_FILE="$PWD/cmake/toolchains/aarch64-linux-gnu.cmake" \
-  -DGYRE_WARNINGS_AS_ERRORS="$werror" "${launcher[@]}"
+  -DGYRE_WARNINGS_AS_ERRORS="$werror" "${ccache_launcher[@]}"
 cmake --build "$dir" -j 2
 ctest --test-dir "$dir" --output-on-failure -L cross -j 2
