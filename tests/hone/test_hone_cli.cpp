@@ -18,38 +18,16 @@
 #include <nlohmann/json.hpp>
 
 #include "gyre/core/file.hpp"
+#include "support/hone_args.hpp"
 #include "support/run_cli.hpp"
 
 namespace fs = std::filesystem;
+using gyre::test::hone_args;
 using nlohmann::json;
 
 namespace {
 
 const std::string kDemo = std::string(GYRE_SOURCE_DIR) + "/corpora/demo/";
-
-// Small and quick: tiny model, 5 settings, epoch cap 9 (bracket s = 2 cut to 5 trials:
-// 5 trials at 1 epoch, 1 at 3, 1 at 9).
-std::vector<std::string> hone_args(const fs::path& out, const std::string& corpus = "sentiment") {
-  return {"hone",
-          "--train",
-          kDemo + corpus + ".train.tsv",
-          "--dev",
-          kDemo + corpus + ".dev.tsv",
-          "--hidden-size",
-          "8",
-          "--embedding-size",
-          "8",
-          "--trials",
-          "5",
-          "--epoch-cap",
-          "9",
-          "--seed",
-          "3",
-          "--threads",
-          "1",
-          "--out",
-          out.string()};
-}
 
 json trials_of(const fs::path& out) {
   const json j = json::parse(gyre::read_file(out / "hone.json"));

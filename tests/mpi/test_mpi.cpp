@@ -20,11 +20,15 @@
 #include "gyre/core/file.hpp"
 #include "gyre/io/model_io.hpp"
 #include "gyre/runtime/model_file.hpp"
+#include "support/checkpoint_weights.hpp"
+#include "support/hone_args.hpp"
 #include "support/run_cli.hpp"
 
 namespace fs = std::filesystem;
+using gyre::test::hone_args;
 using gyre::test::run_cli;
 using gyre::test::shell_quote;
+using gyre::test::weights_of;
 
 namespace {
 
@@ -61,14 +65,6 @@ std::vector<std::string> train_args(const fs::path& out, int threads, int epochs
           std::to_string(threads),
           "--out",
           out.string()};
-}
-
-[[maybe_unused]] std::vector<std::pair<std::string, std::string>> weights_of(const fs::path& checkpoint) {
-  const auto file = gyre::runtime::ModelFile::open(checkpoint.string());
-  std::vector<std::pair<std::string, std::string>> out;
-  for (const auto& t : file.tensors())
-    out.emplace_back(t.name, std::string(static_cast<const char*>(t.data), t.bytes));
-  return out;
 }
 
 [[maybe_unused]] void require_same_weights(const fs::path& a, const fs::path& b) {
@@ -299,31 +295,10 @@ TEST_CASE("mpirun gyre hone spreads each rung's trials over the ranks and promot
   // one process (each trial trains alone with the same settings and seed).
   const fs::path alone = tmp_dir("hone_alone"), job = tmp_dir("hone_job"), log = tmp_dir("hone_log");
   fs::create_directories(log);
-  auto args_for = [&](const fs::path& out) {
-    return std::vector<std::string>{"hone",
-                                    "--train",
-                                    demo("sentiment.train.tsv"),
-                                    "--dev",
-                                    demo("sentiment.dev.tsv"),
-                                    "--hidden-size",
-                                    "8",
-                                    "--embedding-size",
-                                    "8",
-                                    "--trials",
-                                    "5",
-                                    "--epoch-cap",
-                                    "9",
-                                    "--seed",
-                                    "3",
-                                    "--threads",
-                                    "1",
-                                    "--out",
-                                    out.string()};
-  };
-  const auto one = run_cli(tmp_dir("hone_alone_cli"), args_for(alone));
+  const auto one = run_cli(tmp_dir("hone_alone_cli"), hone_args(alone));
   INFO(one.err);
   REQUIRE(one.exit_code == 0);
-  const int rc = run_mpi(2, args_for(job), log / "out.txt");
+  const int rc = run_mpi(2, hone_args(job), log / "out.txt");
   const std::string out = gyre::read_file(log / "out.txt");
   INFO(out);
   REQUIRE(rc == 0);

@@ -30,8 +30,11 @@ namespace fs = std::filesystem;
 using gyre::train::TrainConfig;
 using gyre::train::TrainOptions;
 
+#include "support/checkpoint_weights.hpp"
 #include "support/learnable_corpus.hpp"
 #include "support/run_cli.hpp"
+
+using gyre::test::weights_of;
 
 namespace {
 
@@ -80,16 +83,6 @@ TrainOptions options_for(const fs::path& dir) {
   o.out = dir;
   o.quiet = true;
   return o;
-}
-
-// All parameter tensors of a checkpoint, as raw bytes (bitwise comparison).
-std::vector<std::pair<std::string, std::string>> weights_of(const fs::path& checkpoint) {
-  const auto file = gyre::runtime::ModelFile::open(checkpoint.string());
-  std::vector<std::pair<std::string, std::string>> out;
-  for (const auto& t : file.tensors()) {
-    out.emplace_back(t.name, std::string(static_cast<const char*>(t.data), t.bytes));
-  }
-  return out;
 }
 
 }  // namespace
