@@ -721,9 +721,8 @@ std::map<std::string, TrainedHere> train_grid_across_ranks(const CompareSpec& sp
   return trained;
 }
 
-}  // namespace
-
-CompareResult run_compare(const CompareSpec& spec) {
+// Refuses a grid that cannot be run, before anything is read or trained.
+void check_compare_spec(const CompareSpec& spec) {
   if (spec.cells.empty()) throw ConfigError("cells", "give at least one cell (lstm, gru)");
   if (spec.hidden_sizes.empty()) throw ConfigError("hidden_sizes", "give at least one hidden size");
   if (spec.seeds < 1) throw ConfigError("seeds", "must be at least 1");
@@ -749,20 +748,170 @@ CompareResult run_compare(const CompareSpec& spec) {
     if (std::count(spec.hidden_sizes.begin(), spec.hidden_sizes.end(), h) > 1)
       throw ConfigError("hidden_sizes", std::to_string(h) + " given twice");
   }
-  {
-    TrainConfig probe = spec.base;
-    validate(probe);
-  }
-  // Read the evaluation files once, before any training, so bad input fails fast.
+  TrainConfig probe = spec.base;
+  validate(probe);
+}
+
+// The examples every run is scored on: dev, and test when given.
+struct ScoringSets {
+  std::vector<data::Example> dev, test;
+  bool with_test = false;
+};
+
+// Reads the evaluation files once, before any training, so bad input fails fast.
+ScoringSets read_scoring_sets(const CompareSpec& spec) {
   const data::ReadOptions reading = read_options(spec.base);
-  const std::vector<data::Example> dev_examples = data::load_corpus(spec.base.dev, reading);
-  if (dev_examples.empty()) throw ParseError(spec.base.dev, 0, "no examples in the file");
-  std::vector<data::Example> test_examples;
+  ScoringSets sets;
+  sets.dev = data::load_corpus(spec.base.dev, reading);
+  if (sets.dev.empty()) throw ParseError(spec.base.dev, 0, "no examples in the file");
   if (!spec.test.empty()) {
-    test_examples = data::load_corpus(spec.test, reading);
-    if (test_examples.empty()) throw ParseError(spec.test, 0, "no examples in the file");
+    sets.test = data::load_corpus(spec.test, reading);
+    if (sets.test.empty()) throw ParseError(spec.test, 0, "no examples in the file");
   }
-  const bool with_test = !spec.test.empty();
+  sets.with_test = !spec.test.empty();
+  return sets;
+}
+
+// Where the grid is, for the progress lines: runs done, and how long the trained ones took.
+struct GridClock {
+  int total = 0;
+  int done = 0;
+  int trained_runs = 0;
+  double trained_seconds = 0.0;
+  std::chrono::steady_clock::time_point start = std::chrono::steady_clock::now();
+};
+
+double seconds_since(std::chrono::steady_clock::time_point start) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+}
+
+// Whether `run` (in `dir`) can be reused, with the reason it must be retrained otherwise, and which
+// rank trains or trained it; says so when a stale run is retrained.
+RunState settle_run(const CompareSpec& spec, CompareRun& run, const fs::path& dir, const json& record,
+                    const std::map<std::string, TrainedHere>& trained_in_job, int rank) {
+  std::string why;
+  const RunState state = run_state(dir, run.cell, run.hidden_size, run.seed, record, why);
+  run.reused = state == RunState::kReusable;
+  if (const auto it = trained_in_job.find(run.name); it != trained_in_job.end()) {
+    // Trained by a rank of this MPI job a moment ago: not a reuse.
+    run.reused = false;
+    run.trained_by_rank = it->second.rank;
+    why = it->second.reason;
+  } else if (!run.reused) {
+    run.trained_by_rank = rank;
+  }
+  if (state == RunState::kStale && spec.messages) {
+    std::fprintf(spec.messages, "gyre compare: retraining %s: %s\n", run.name.c_str(), why.c_str());
+    std::fflush(spec.messages);
+  }
+  run.retrain_reason = why;
+  return state;
+}
+
+// Trains `run` into `dir` (started at `start`), after a line saying where in the grid it is.
+void train_run(const CompareSpec& spec, const CompareRun& run, const fs::path& dir, const TrainConfig& c,
+               const json& record, GridClock& clock, std::chrono::steady_clock::time_point start) {
+  if (spec.progress) {
+    // The grid line: where in the grid we are, time so far and a rough time to go
+    // (mean time of the runs trained so far x runs left; reused runs take no time).
+    const double elapsed = seconds_since(clock.start);
+    const std::string eta = clock.trained_runs > 0
+                                ? "ETA " + format_duration(clock.trained_seconds / clock.trained_runs *
+                                                           static_cast<double>(clock.total - clock.done))
+                                : "ETA unknown until one run has trained";
+    std::fprintf(spec.progress, "gyre compare: run %d of %d: %s (elapsed %s, %s)\n", clock.done + 1,
+                 clock.total, run.name.c_str(), format_duration(elapsed).c_str(), eta.c_str());
+    std::fflush(spec.progress);
+  }
+  const TrainResult tr = train_into(dir, c, record, spec.progress);
+  ++clock.trained_runs;
+  clock.trained_seconds += seconds_since(start);
+  if (tr.outcome == TrainOutcome::kInterrupted)
+    throw Error("interrupted during " + run.name + "; finished runs are kept and reused by the next compare");
+}
+
+// Scores the finished run in `dir` on the scoring sets: its log totals, size, int8 file
+// (`int8_path`), dev and test metrics and per-example results for the head-to-head. The first
+// run fixes the result's metric and task. Returns the encoded dev examples (for the latency).
+std::vector<data::EncodedExample> score_run(const CompareSpec& spec, const ScoringSets& sets,
+                                            const fs::path& dir, const fs::path& int8_path, CompareRun& run,
+                                            CompareResult& result) {
+  const LogTotals log = read_log(dir);
+  run.epochs = log.epochs;
+  run.train_seconds = log.seconds;
+  run.tokens_per_second = log.tokens_per_second;
+
+  io::TrainedModel trained = io::load_trained_model(dir);
+  if (result.metric.empty()) {
+    result.metric = resolve_metric(spec.metric, trained.spec);
+    result.task = trained.spec.task;
+    result.multi_label = trained.spec.output == model::OutputKind::kSigmoid;
+  }
+  const std::string h2h_metric = head_to_head_metric(result.metric, trained.spec.task);
+  run.parameters = trained.model->params().parameter_count();
+  run.model_bytes = run.parameters * sizeof(float);
+  for (const auto& d : log.dev)
+    run.dev_curve.push_back(d.is_object() && d.contains(result.metric) && d[result.metric].is_number()
+                                ? d[result.metric].get<double>()
+                                : std::nan(""));
+  // Costs of the deployable form: the int8 model file and its batch-1 latency in the runtime.
+  run.int8_bytes = io::export_model(trained, int8_path, runtime::DType::kI8);
+  auto dev_encoded = encode_all(sets.dev, trained, spec.base.dev);
+  const EvaluationResult dev = evaluate(*trained.model, dev_encoded, !sets.with_test);
+  run.dev_metric = dev.metric(result.metric);
+  run.dev = dev.summary();
+  run.test = nullptr;
+  if (sets.with_test) {
+    const auto test_encoded = encode_all(sets.test, trained, spec.test);
+    const EvaluationResult test = evaluate(*trained.model, test_encoded, true);
+    run.test_metric = test.metric(result.metric);
+    run.test = test.summary();
+    run.correct = correctness(test, test_encoded, trained.spec.task);
+    run.counts = example_counts(test, test_encoded, trained.spec, h2h_metric);
+  } else {
+    run.correct = correctness(dev, dev_encoded, trained.spec.task);
+    run.counts = example_counts(dev, dev_encoded, trained.spec, h2h_metric);
+  }
+  return dev_encoded;
+}
+
+// The line after each run: its scores and time.
+void report_run(const CompareSpec& spec, const CompareRun& run, const std::string& metric,
+                const GridClock& clock, double seconds) {
+  if (!spec.progress) return;
+  char test_text[48] = "";
+  if (run.test_metric) std::snprintf(test_text, sizeof test_text, "  test %.4f", *run.test_metric);
+  std::fprintf(spec.progress, "[%d/%d] %-18s dev %s %.4f%s  %.1f s%s\n", clock.done, clock.total,
+               run.name.c_str(), metric.c_str(), run.dev_metric, test_text, seconds,
+               run.reused ? "  (reused)" : "");
+  std::fflush(spec.progress);
+}
+
+// The two configurations the head-to-head compares: best LSTM against best GRU, each by mean dev
+// metric; with one cell type, the best two. Needs two configurations.
+std::pair<std::size_t, std::size_t> head_to_head_pair(const CompareResult& result) {
+  const bool lower = result.metric == "loss";
+  auto better = [&](std::size_t x, std::size_t y) {
+    return lower ? result.configs[x].dev.mean < result.configs[y].dev.mean
+                 : result.configs[x].dev.mean > result.configs[y].dev.mean;
+  };
+  std::optional<std::size_t> best_lstm, best_gru;
+  for (std::size_t i = 0; i < result.configs.size(); ++i) {
+    auto& slot = result.configs[i].cell == "lstm" ? best_lstm : best_gru;
+    if (!slot || better(i, *slot)) slot = i;
+  }
+  if (best_lstm && best_gru) return {*best_lstm, *best_gru};
+  std::vector<std::size_t> order(result.configs.size());
+  for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
+  std::stable_sort(order.begin(), order.end(), better);
+  return {order[0], order[1]};
+}
+
+}  // namespace
+
+CompareResult run_compare(const CompareSpec& spec) {
+  check_compare_spec(spec);
+  const ScoringSets sets = read_scoring_sets(spec);
   const json fingerprints = data_fingerprints(spec);
 
   std::error_code ec;
@@ -777,11 +926,8 @@ CompareResult run_compare(const CompareSpec& spec) {
   }
 
   CompareResult result;
-  const int total = static_cast<int>(spec.cells.size() * spec.hidden_sizes.size()) * spec.seeds;
-  int done = 0;
-  int trained_runs = 0;
-  double trained_seconds = 0.0;
-  const auto grid_start = std::chrono::steady_clock::now();
+  GridClock clock;
+  clock.total = static_cast<int>(spec.cells.size() * spec.hidden_sizes.size()) * spec.seeds;
   for (const auto& cell : spec.cells) {
     for (const int hidden : spec.hidden_sizes) {
       CompareConfig cfg;
@@ -800,90 +946,12 @@ CompareResult run_compare(const CompareSpec& spec) {
         const auto start = std::chrono::steady_clock::now();
         const TrainConfig c = run_config(spec, cell, hidden, seed);
         const json record = run_record(c, fingerprints);
-        std::string why;
-        const RunState state = run_state(dir, cell, hidden, seed, record, why);
-        run.reused = state == RunState::kReusable;
-        if (const auto it = trained_in_job.find(run.name); it != trained_in_job.end()) {
-          // Trained by a rank of this MPI job a moment ago: not a reuse.
-          run.reused = false;
-          run.trained_by_rank = it->second.rank;
-          why = it->second.reason;
-        } else if (!run.reused) {
-          run.trained_by_rank = group.rank();
-        }
-        if (state == RunState::kStale && spec.messages) {
-          std::fprintf(spec.messages, "gyre compare: retraining %s: %s\n", run.name.c_str(), why.c_str());
-          std::fflush(spec.messages);
-        }
-        run.retrain_reason = why;
-        if (state != RunState::kReusable) {
-          if (spec.progress) {
-            // The grid line: where in the grid we are, time so far and a rough time to go
-            // (mean time of the runs trained so far x runs left; reused runs take no time).
-            const double elapsed =
-                std::chrono::duration<double>(std::chrono::steady_clock::now() - grid_start).count();
-            const std::string eta = trained_runs > 0
-                                        ? "ETA " + format_duration(trained_seconds / trained_runs *
-                                                                   static_cast<double>(total - done))
-                                        : "ETA unknown until one run has trained";
-            std::fprintf(spec.progress, "gyre compare: run %d of %d: %s (elapsed %s, %s)\n", done + 1, total,
-                         run.name.c_str(), format_duration(elapsed).c_str(), eta.c_str());
-            std::fflush(spec.progress);
-          }
-          const TrainResult tr = train_into(dir, c, record, spec.progress);
-          ++trained_runs;
-          trained_seconds += std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-          if (tr.outcome == TrainOutcome::kInterrupted)
-            throw Error("interrupted during " + run.name +
-                        "; finished runs are kept and reused by the next compare");
-        }
-        const LogTotals log = read_log(dir);
-        run.epochs = log.epochs;
-        run.train_seconds = log.seconds;
-        run.tokens_per_second = log.tokens_per_second;
-
-        io::TrainedModel trained = io::load_trained_model(dir);
-        if (result.metric.empty()) {
-          result.metric = resolve_metric(spec.metric, trained.spec);
-          result.task = trained.spec.task;
-          result.multi_label = trained.spec.output == model::OutputKind::kSigmoid;
-        }
-        const std::string h2h_metric = head_to_head_metric(result.metric, trained.spec.task);
-        run.parameters = trained.model->params().parameter_count();
-        run.model_bytes = run.parameters * sizeof(float);
-        for (const auto& d : log.dev)
-          run.dev_curve.push_back(d.is_object() && d.contains(result.metric) && d[result.metric].is_number()
-                                      ? d[result.metric].get<double>()
-                                      : std::nan(""));
-        // Costs of the deployable form: the int8 model file and its batch-1 latency in the runtime.
+        if (settle_run(spec, run, dir, record, trained_in_job, group.rank()) != RunState::kReusable)
+          train_run(spec, run, dir, c, record, clock, start);
         const fs::path int8_path = dir / "model-int8.gyre";
-        run.int8_bytes = io::export_model(trained, int8_path, runtime::DType::kI8);
-        const auto dev_encoded = encode_all(dev_examples, trained, spec.base.dev);
-        const EvaluationResult dev = evaluate(*trained.model, dev_encoded, !with_test);
-        run.dev_metric = dev.metric(result.metric);
-        run.dev = dev.summary();
-        run.test = nullptr;
-        if (with_test) {
-          const auto test_encoded = encode_all(test_examples, trained, spec.test);
-          const EvaluationResult test = evaluate(*trained.model, test_encoded, true);
-          run.test_metric = test.metric(result.metric);
-          run.test = test.summary();
-          run.correct = correctness(test, test_encoded, trained.spec.task);
-          run.counts = example_counts(test, test_encoded, trained.spec, h2h_metric);
-        } else {
-          run.correct = correctness(dev, dev_encoded, trained.spec.task);
-          run.counts = example_counts(dev, dev_encoded, trained.spec, h2h_metric);
-        }
-        ++done;
-        if (spec.progress) {
-          const double secs = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-          char test_text[48] = "";
-          if (run.test_metric) std::snprintf(test_text, sizeof test_text, "  test %.4f", *run.test_metric);
-          std::fprintf(spec.progress, "[%d/%d] %-18s dev %s %.4f%s  %.1f s%s\n", done, total,
-                       run.name.c_str(), result.metric.c_str(), run.dev_metric, test_text, secs,
-                       run.reused ? "  (reused)" : "");
-          std::fflush(spec.progress);
-        }
+        const auto dev_encoded = score_run(spec, sets, dir, int8_path, run, result);
+        ++clock.done;
+        report_run(spec, run, result.metric, clock, seconds_since(start));
         if (s == 1) cfg.latency_ms = runtime_latency_ms(int8_path, dev_encoded, cfg.latency_tokens);
         cfg.runs.push_back(result.runs.size());
         result.runs.push_back(std::move(run));
@@ -895,30 +963,9 @@ CompareResult run_compare(const CompareSpec& spec) {
   mark_pareto_front(result);
 
   if (result.configs.size() >= 2) {
-    // Best LSTM against best GRU, each by mean dev metric; with one cell type, the best two.
-    const bool lower = result.metric == "loss";
-    auto better = [&](std::size_t x, std::size_t y) {
-      return lower ? result.configs[x].dev.mean < result.configs[y].dev.mean
-                   : result.configs[x].dev.mean > result.configs[y].dev.mean;
-    };
-    std::optional<std::size_t> best_lstm, best_gru;
-    for (std::size_t i = 0; i < result.configs.size(); ++i) {
-      auto& slot = result.configs[i].cell == "lstm" ? best_lstm : best_gru;
-      if (!slot || better(i, *slot)) slot = i;
-    }
-    std::size_t ia = 0, ib = 0;
-    if (best_lstm && best_gru) {
-      ia = *best_lstm;
-      ib = *best_gru;
-    } else {
-      std::vector<std::size_t> order(result.configs.size());
-      for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
-      std::stable_sort(order.begin(), order.end(), better);
-      ia = order[0];
-      ib = order[1];
-    }
+    const auto [ia, ib] = head_to_head_pair(result);
     result.head_to_head =
-        head_to_head(result, ia, ib, with_test ? "test" : "dev",
+        head_to_head(result, ia, ib, sets.with_test ? "test" : "dev",
                      head_to_head_metric(result.metric, result.task), spec.bootstrap_samples);
   }
   write_file_atomic(spec.out / "compare.json", result.to_json(spec).dump(2) + "\n");
