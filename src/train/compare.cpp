@@ -533,6 +533,100 @@ HeadToHead head_to_head(const CompareResult& result, std::size_t ia, std::size_t
   return h;
 }
 
+namespace {
+
+json run_json(const CompareRun& r) {
+  return {{"name", r.name},
+          {"config", r.config},
+          {"cell", r.cell},
+          {"hidden_size", r.hidden_size},
+          {"seed", r.seed},
+          {"dir", r.name},
+          {"reused", r.reused},
+          {"trained_by_rank", r.trained_by_rank < 0 ? json(nullptr) : json(r.trained_by_rank)},
+          {"retrained_because", r.retrain_reason.empty() ? json(nullptr) : json(r.retrain_reason)},
+          {"parameters", r.parameters},
+          {"model_bytes", r.model_bytes},
+          {"int8_bytes", r.int8_bytes},
+          {"epochs", r.epochs},
+          {"dev_curve", r.dev_curve},
+          {"train_seconds", r.train_seconds},
+          {"tokens_per_second", r.tokens_per_second},
+          {"dev_metric", r.dev_metric},
+          {"test_metric", r.test_metric ? json(*r.test_metric) : json(nullptr)},
+          {"dev_scores", r.dev},
+          {"test_scores", r.test}};
+}
+
+// One configuration with the summaries of its runs (`runs`: all runs of the grid).
+json config_json(const CompareConfig& c, const std::vector<CompareRun>& runs) {
+  std::vector<double> dev, test, seconds, speed;
+  std::vector<std::string> names;
+  for (const auto i : c.runs) {
+    dev.push_back(runs[i].dev_metric);
+    if (runs[i].test_metric) test.push_back(*runs[i].test_metric);
+    seconds.push_back(runs[i].train_seconds);
+    speed.push_back(runs[i].tokens_per_second);
+    names.push_back(runs[i].name);
+  }
+  return {{"name", c.name},
+          {"cell", c.cell},
+          {"hidden_size", c.hidden_size},
+          {"parameters", c.parameters},
+          {"model_bytes", c.model_bytes},
+          {"int8_bytes", c.int8_bytes},
+          {"latency_ms", c.latency_ms},
+          {"latency_tokens", c.latency_tokens},
+          {"pareto", c.pareto},
+          {"runs", names},
+          {"dev", summary_json(c.dev, dev)},
+          {"test", c.test ? summary_json(*c.test, test) : json(nullptr)},
+          {"train_seconds", summary_json(c.train_seconds, seconds)},
+          {"tokens_per_second", summary_json(c.tokens_per_second, speed)}};
+}
+
+json head_to_head_json(const HeadToHead& h) {
+  json seeds = json::array();
+  for (const auto& m : h.per_seed)
+    seeds.push_back({{"seed", m.seed},
+                     {"only_a", m.test.only_a},
+                     {"only_b", m.test.only_b},
+                     {"p_value", m.test.p_value}});
+  return {{"a", h.a},
+          {"b", h.b},
+          {"label_a", h.label_a},
+          {"label_b", h.label_b},
+          {"set", h.set},
+          {"metric", h.metric},
+          {"points", h.points},
+          {"examples", h.examples},
+          {"scores_a", h.scores_a},
+          {"scores_b", h.scores_b},
+          {"mean_a", h.summary_a.mean},
+          {"std_a", h.summary_a.std},
+          {"mean_b", h.summary_b.mean},
+          {"std_b", h.summary_b.std},
+          {"difference", h.interval.difference},
+          {"two_level_bootstrap",
+           {{"method", "resample runs of each configuration, then examples shared by all runs (percentile)"},
+            {"level", h.interval.level},
+            {"low", h.interval.low},
+            {"high", h.interval.high},
+            {"samples", h.interval.samples}}},
+          {"permutation_test",
+           {{"method", "two-sample permutation test of mean per-seed scores, two-sided"},
+            {"p_value", h.permutation.p_value},
+            {"exact", h.permutation.exact},
+            {"relabellings", h.permutation.relabellings}}},
+          {"detected", h.detected},
+          {"seeds_needed", h.seeds_needed == 0 ? json(nullptr) : json(h.seeds_needed)},
+          {"per_seed_mcnemar", seeds},
+          {"verdict", h.verdict},
+          {"notes", h.notes}};
+}
+
+}  // namespace
+
 json CompareResult::to_json(const CompareSpec& spec) const {
   json j;
   j["format"] = "gyre-compare";
@@ -548,99 +642,11 @@ json CompareResult::to_json(const CompareSpec& spec) const {
   for (const char* k : {"cell", "hidden_size", "seed"}) base.erase(k);
   j["shared_config"] = base;
   j["runs"] = json::array();
-  for (const auto& r : runs) {
-    j["runs"].push_back(
-        {{"name", r.name},
-         {"config", r.config},
-         {"cell", r.cell},
-         {"hidden_size", r.hidden_size},
-         {"seed", r.seed},
-         {"dir", r.name},
-         {"reused", r.reused},
-         {"trained_by_rank", r.trained_by_rank < 0 ? json(nullptr) : json(r.trained_by_rank)},
-         {"retrained_because", r.retrain_reason.empty() ? json(nullptr) : json(r.retrain_reason)},
-         {"parameters", r.parameters},
-         {"model_bytes", r.model_bytes},
-         {"int8_bytes", r.int8_bytes},
-         {"epochs", r.epochs},
-         {"dev_curve", r.dev_curve},
-         {"train_seconds", r.train_seconds},
-         {"tokens_per_second", r.tokens_per_second},
-         {"dev_metric", r.dev_metric},
-         {"test_metric", r.test_metric ? json(*r.test_metric) : json(nullptr)},
-         {"dev_scores", r.dev},
-         {"test_scores", r.test}});
-  }
+  for (const auto& r : runs) j["runs"].push_back(run_json(r));
   j["configs"] = json::array();
-  for (const auto& c : configs) {
-    std::vector<double> dev, test, seconds, speed;
-    std::vector<std::string> names;
-    for (const auto i : c.runs) {
-      dev.push_back(runs[i].dev_metric);
-      if (runs[i].test_metric) test.push_back(*runs[i].test_metric);
-      seconds.push_back(runs[i].train_seconds);
-      speed.push_back(runs[i].tokens_per_second);
-      names.push_back(runs[i].name);
-    }
-    j["configs"].push_back({{"name", c.name},
-                            {"cell", c.cell},
-                            {"hidden_size", c.hidden_size},
-                            {"parameters", c.parameters},
-                            {"model_bytes", c.model_bytes},
-                            {"int8_bytes", c.int8_bytes},
-                            {"latency_ms", c.latency_ms},
-                            {"latency_tokens", c.latency_tokens},
-                            {"pareto", c.pareto},
-                            {"runs", names},
-                            {"dev", summary_json(c.dev, dev)},
-                            {"test", c.test ? summary_json(*c.test, test) : json(nullptr)},
-                            {"train_seconds", summary_json(c.train_seconds, seconds)},
-                            {"tokens_per_second", summary_json(c.tokens_per_second, speed)}});
-  }
+  for (const auto& c : configs) j["configs"].push_back(config_json(c, runs));
   j["best"] = configs.empty() ? json(nullptr) : json(configs[best].name);
-  if (head_to_head) {
-    const auto& h = *head_to_head;
-    json seeds = json::array();
-    for (const auto& m : h.per_seed)
-      seeds.push_back({{"seed", m.seed},
-                       {"only_a", m.test.only_a},
-                       {"only_b", m.test.only_b},
-                       {"p_value", m.test.p_value}});
-    j["head_to_head"] = {
-        {"a", h.a},
-        {"b", h.b},
-        {"label_a", h.label_a},
-        {"label_b", h.label_b},
-        {"set", h.set},
-        {"metric", h.metric},
-        {"points", h.points},
-        {"examples", h.examples},
-        {"scores_a", h.scores_a},
-        {"scores_b", h.scores_b},
-        {"mean_a", h.summary_a.mean},
-        {"std_a", h.summary_a.std},
-        {"mean_b", h.summary_b.mean},
-        {"std_b", h.summary_b.std},
-        {"difference", h.interval.difference},
-        {"two_level_bootstrap",
-         {{"method", "resample runs of each configuration, then examples shared by all runs (percentile)"},
-          {"level", h.interval.level},
-          {"low", h.interval.low},
-          {"high", h.interval.high},
-          {"samples", h.interval.samples}}},
-        {"permutation_test",
-         {{"method", "two-sample permutation test of mean per-seed scores, two-sided"},
-          {"p_value", h.permutation.p_value},
-          {"exact", h.permutation.exact},
-          {"relabellings", h.permutation.relabellings}}},
-        {"detected", h.detected},
-        {"seeds_needed", h.seeds_needed == 0 ? json(nullptr) : json(h.seeds_needed)},
-        {"per_seed_mcnemar", seeds},
-        {"verdict", h.verdict},
-        {"notes", h.notes}};
-  } else {
-    j["head_to_head"] = nullptr;
-  }
+  j["head_to_head"] = head_to_head ? head_to_head_json(*head_to_head) : json(nullptr);
   return j;
 }
 
