@@ -985,6 +985,50 @@ std::string compare_verdict(const CompareResult& result) {
   return out;
 }
 
+namespace {
+
+// The head-to-head under the table: per-seed scores, the interval, the permutation test and the
+// per-seed McNemar tests.
+std::string head_to_head_table(const HeadToHead& h) {
+  std::ostringstream out;
+  char line[320];
+  const bool pts = h.points;
+  std::snprintf(line, sizeof line, "\n%s vs %s on %s, %s per seed%s:\n", h.label_a.c_str(), h.label_b.c_str(),
+                h.set.c_str(), pretty_metric(h.metric).c_str(), pts ? " (points)" : "");
+  out << line;
+  auto scores = [&](const std::vector<double>& v) {
+    std::string t;
+    for (const double x : v) t += (t.empty() ? "" : " ") + amount(x, pts);
+    return t;
+  };
+  std::snprintf(line, sizeof line, "  %-12s %s\n  %-12s %s\n", h.label_a.c_str(), scores(h.scores_a).c_str(),
+                h.label_b.c_str(), scores(h.scores_b).c_str());
+  out << line;
+  std::snprintf(line, sizeof line,
+                "  difference %s %s, 95%% interval %s to %s (two-level bootstrap over seeds and examples, "
+                "%d resamples)\n",
+                amount(h.interval.difference, pts).c_str(), pts ? "points" : "",
+                amount(h.interval.low, pts).c_str(), amount(h.interval.high, pts).c_str(),
+                h.interval.samples);
+  out << line;
+  std::snprintf(line, sizeof line,
+                "  permutation test over per-seed scores: p = %.3g (%s, %zu relabellings)\n",
+                h.permutation.p_value, h.permutation.exact ? "exact" : "random", h.permutation.relabellings);
+  out << line;
+  out << "  per-seed McNemar, exact match (right only by " << h.label_a << " / only by " << h.label_b
+      << "):\n   ";
+  for (const auto& m : h.per_seed) {
+    std::snprintf(line, sizeof line, "  s%llu %lld/%lld p=%.3g", static_cast<unsigned long long>(m.seed),
+                  static_cast<long long>(m.test.only_a), static_cast<long long>(m.test.only_b),
+                  m.test.p_value);
+    out << line;
+  }
+  out << "\n";
+  return out.str();
+}
+
+}  // namespace
+
 std::string compare_table(const CompareResult& result, bool with_test) {
   // One seed: no spread to show, so no "±" (issue 14).
   auto pm = [](const eval::SampleSummary& s) {
@@ -1041,41 +1085,7 @@ std::string compare_table(const CompareResult& result, bool with_test) {
          "runtime\n"
          "   on this machine; front: on the "
       << (with_test ? "test" : "dev") << " " << result.metric << " vs latency Pareto front)\n";
-  if (result.head_to_head) {
-    const auto& h = *result.head_to_head;
-    const bool pts = h.points;
-    std::snprintf(line, sizeof line, "\n%s vs %s on %s, %s per seed%s:\n", h.label_a.c_str(),
-                  h.label_b.c_str(), h.set.c_str(), pretty_metric(h.metric).c_str(), pts ? " (points)" : "");
-    out << line;
-    auto scores = [&](const std::vector<double>& v) {
-      std::string t;
-      for (const double x : v) t += (t.empty() ? "" : " ") + amount(x, pts);
-      return t;
-    };
-    std::snprintf(line, sizeof line, "  %-12s %s\n  %-12s %s\n", h.label_a.c_str(),
-                  scores(h.scores_a).c_str(), h.label_b.c_str(), scores(h.scores_b).c_str());
-    out << line;
-    std::snprintf(line, sizeof line,
-                  "  difference %s %s, 95%% interval %s to %s (two-level bootstrap over seeds and examples, "
-                  "%d resamples)\n",
-                  amount(h.interval.difference, pts).c_str(), pts ? "points" : "",
-                  amount(h.interval.low, pts).c_str(), amount(h.interval.high, pts).c_str(),
-                  h.interval.samples);
-    out << line;
-    std::snprintf(
-        line, sizeof line, "  permutation test over per-seed scores: p = %.3g (%s, %zu relabellings)\n",
-        h.permutation.p_value, h.permutation.exact ? "exact" : "random", h.permutation.relabellings);
-    out << line;
-    out << "  per-seed McNemar, exact match (right only by " << h.label_a << " / only by " << h.label_b
-        << "):\n   ";
-    for (const auto& m : h.per_seed) {
-      std::snprintf(line, sizeof line, "  s%llu %lld/%lld p=%.3g", static_cast<unsigned long long>(m.seed),
-                    static_cast<long long>(m.test.only_a), static_cast<long long>(m.test.only_b),
-                    m.test.p_value);
-      out << line;
-    }
-    out << "\n";
-  }
+  if (result.head_to_head) out << head_to_head_table(*result.head_to_head);
   return out.str();
 }
 
