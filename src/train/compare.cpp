@@ -441,6 +441,73 @@ void mark_pareto_front(CompareResult& result) {
   }
 }
 
+namespace {
+
+// The head-to-head's verdict in words, in the metric's own direction (loss: lower is better): who
+// is ahead by how much, the interval and budget, and how many seeds would settle it.
+std::string verdict_text(const HeadToHead& h) {
+  const double diff = h.interval.difference;
+  const bool lower_better = h.metric == "loss";
+  const bool a_better = lower_better ? diff < 0 : diff > 0;
+  const std::string& winner = a_better ? h.label_a : h.label_b;
+  const std::string& loser = a_better ? h.label_b : h.label_a;
+  const double lo = a_better ? h.interval.low : -h.interval.high;
+  const double hi = a_better ? h.interval.high : -h.interval.low;
+  const double gap = std::fabs(diff);
+  const std::string what = (h.points ? " points of " : " of ") + h.set + " " + pretty_metric(h.metric);
+  char budget[160];
+  std::snprintf(budget, sizeof budget, "95%% interval %s to %s; %zu seed%s x %zu examples",
+                amount(lower_better ? -hi : lo, h.points).c_str(),
+                amount(lower_better ? -lo : hi, h.points).c_str(), std::min(h.seeds_a, h.seeds_b),
+                std::min(h.seeds_a, h.seeds_b) == 1 ? "" : "s", h.examples);
+  std::string seeds_text;
+  if (h.seeds_needed > 1000)
+    seeds_text = "more than 1000 seeds per configuration would be needed to detect a difference of this size";
+  else if (h.seeds_needed > 0)
+    seeds_text = "about " + std::to_string(h.seeds_needed) +
+                 " seeds per configuration would detect a difference of this size reliably";
+  else if (h.seeds_a < 2 || h.seeds_b < 2)
+    seeds_text = "with one seed the number of seeds needed cannot be estimated";
+  else
+    seeds_text = "the mean scores are equal: no number of seeds per configuration would detect a difference";
+  std::string verdict;
+  if (h.detected) {
+    verdict = winner + " beats " + loser + " by " + amount(gap, h.points) + what + " (" + budget + ")";
+  } else if (gap > 0) {
+    verdict = "no difference detectable at this budget: " + winner + " is ahead of " + loser + " by " +
+              amount(gap, h.points) + what + " (" + budget + ")";
+  } else {
+    verdict = "no difference detectable at this budget: " + h.label_a + " and " + h.label_b +
+              " have the same " + h.set + " " + pretty_metric(h.metric) + " (" + budget + ")";
+  }
+  if (!seeds_text.empty()) verdict += "; " + seeds_text;
+  return verdict;
+}
+
+// Warnings that qualify the verdict: an unconfirmed permutation test, dev scores, one seed.
+void add_notes(HeadToHead& h) {
+  char line[320];
+  if (h.detected && std::min(h.seeds_a, h.seeds_b) >= 2 && h.permutation.p_value > 0.05) {
+    std::snprintf(
+        line, sizeof line,
+        "the permutation test over the per-seed scores does not confirm it (p = %.3g; with %zu + %zu seeds "
+        "p cannot go below %.3g)",
+        h.permutation.p_value, h.seeds_a, h.seeds_b, 2.0 / static_cast<double>(h.permutation.relabellings));
+    h.notes.push_back(line);
+  }
+  if (h.set == "dev")
+    h.notes.push_back(
+        "WARNING: no --test file, so these are dev scores: dev chose every run's best epoch and each cell's "
+        "best configuration, so they are optimistic. Give --test FILE for an honest comparison.");
+  if (std::min(h.seeds_a, h.seeds_b) == 1)
+    h.notes.push_back(
+        "NOTE: one seed per configuration: nothing can be said about seed-to-seed variation, which often "
+        "decides LSTM-vs-GRU questions; the interval covers the choice of examples only. Use --seeds 3 or "
+        "more.");
+}
+
+}  // namespace
+
 HeadToHead head_to_head(const CompareResult& result, std::size_t ia, std::size_t ib, const std::string& set,
                         const std::string& metric, int bootstrap_samples) {
   const auto& ca = result.configs.at(ia);
@@ -477,59 +544,8 @@ HeadToHead head_to_head(const CompareResult& result, std::size_t ia, std::size_t
     h.per_seed.push_back({ra.seed, eval::mcnemar_exact(ra.correct, rb.correct)});
   }
 
-  // The verdict, in the metric's own direction (loss: lower is better).
-  const bool lower_better = metric == "loss";
-  const bool a_better = lower_better ? diff < 0 : diff > 0;
-  const std::string& winner = a_better ? h.label_a : h.label_b;
-  const std::string& loser = a_better ? h.label_b : h.label_a;
-  const double lo = a_better ? h.interval.low : -h.interval.high;
-  const double hi = a_better ? h.interval.high : -h.interval.low;
-  const double gap = std::fabs(diff);
-  const std::string what = (h.points ? " points of " : " of ") + set + " " + pretty_metric(metric);
-  char budget[160];
-  std::snprintf(budget, sizeof budget, "95%% interval %s to %s; %zu seed%s x %zu examples",
-                amount(lower_better ? -hi : lo, h.points).c_str(),
-                amount(lower_better ? -lo : hi, h.points).c_str(), std::min(h.seeds_a, h.seeds_b),
-                std::min(h.seeds_a, h.seeds_b) == 1 ? "" : "s", h.examples);
-  std::string seeds_text;
-  if (h.seeds_needed > 1000)
-    seeds_text = "more than 1000 seeds per configuration would be needed to detect a difference of this size";
-  else if (h.seeds_needed > 0)
-    seeds_text = "about " + std::to_string(h.seeds_needed) +
-                 " seeds per configuration would detect a difference of this size reliably";
-  else if (h.seeds_a < 2 || h.seeds_b < 2)
-    seeds_text = "with one seed the number of seeds needed cannot be estimated";
-  else
-    seeds_text = "the mean scores are equal: no number of seeds per configuration would detect a difference";
-  if (h.detected) {
-    h.verdict = winner + " beats " + loser + " by " + amount(gap, h.points) + what + " (" + budget + ")";
-  } else if (gap > 0) {
-    h.verdict = "no difference detectable at this budget: " + winner + " is ahead of " + loser + " by " +
-                amount(gap, h.points) + what + " (" + budget + ")";
-  } else {
-    h.verdict = "no difference detectable at this budget: " + h.label_a + " and " + h.label_b +
-                " have the same " + set + " " + pretty_metric(metric) + " (" + budget + ")";
-  }
-  if (!seeds_text.empty()) h.verdict += "; " + seeds_text;
-
-  char line[320];
-  if (h.detected && std::min(h.seeds_a, h.seeds_b) >= 2 && h.permutation.p_value > 0.05) {
-    std::snprintf(
-        line, sizeof line,
-        "the permutation test over the per-seed scores does not confirm it (p = %.3g; with %zu + %zu seeds "
-        "p cannot go below %.3g)",
-        h.permutation.p_value, h.seeds_a, h.seeds_b, 2.0 / static_cast<double>(h.permutation.relabellings));
-    h.notes.push_back(line);
-  }
-  if (set == "dev")
-    h.notes.push_back(
-        "WARNING: no --test file, so these are dev scores: dev chose every run's best epoch and each cell's "
-        "best configuration, so they are optimistic. Give --test FILE for an honest comparison.");
-  if (std::min(h.seeds_a, h.seeds_b) == 1)
-    h.notes.push_back(
-        "NOTE: one seed per configuration: nothing can be said about seed-to-seed variation, which often "
-        "decides LSTM-vs-GRU questions; the interval covers the choice of examples only. Use --seeds 3 or "
-        "more.");
+  h.verdict = verdict_text(h);
+  add_notes(h);
   return h;
 }
 
