@@ -267,6 +267,12 @@ class Search {
     std::set<int> trained;  // trials that trained this rung on some rank
   };
   Spread train_rung_across_ranks(const std::vector<int>& alive, int rung, int target, int prev);
+  void start();
+  bool settle_trial(int id, const PlannedBracket& p, std::size_t rung, const Spread& spread,
+                    HoneResult& result);
+  bool train_rung(const PlannedBracket& p, std::size_t rung, const std::vector<int>& alive,
+                  HoneResult& result);
+  HoneResult finish(HoneResult result);
 
   const HoneSpec& spec_;
   ProcessGroup& group_;
@@ -488,7 +494,9 @@ json Search::write_best(int id) {
   return r.final_metrics.contains("baseline") ? r.final_metrics["baseline"] : json();
 }
 
-HoneResult Search::run() {
+// Checks the search, opens (or reopens) its output directory and state, and counts the planned
+// epochs for the progress lines.
+void Search::start() {
   if (spec_.max_trials <= 0 && spec_.max_minutes <= 0)
     throw ConfigError("trials", "give a budget: --trials N and/or --minutes M");
   if (spec_.base.schedule == optim::ScheduleKind::kLinear ||
@@ -521,7 +529,80 @@ HoneResult Search::run() {
       if (!p) break;
       units_total_ += p->units();
     }
+}
 
+// Trains trial `id` to rung `rung` of bracket `p` (or takes its saved outcome) and records the
+// outcome in the trial. Returns false when the search must stop here: the minute budget ran out,
+// Ctrl-C came, or (MPI) the ranks stopped before training it; `result` says which.
+bool Search::settle_trial(int id, const PlannedBracket& p, std::size_t rung, const Spread& spread,
+                          HoneResult& result) {
+  const int target = p.bracket.rungs[rung].epochs;
+  const int prev = rung == 0 ? 0 : p.bracket.rungs[rung - 1].epochs;
+  HoneTrial& t = trial(id);
+  t.iteration = p.iteration;
+  t.bracket = p.bracket.s;
+  const auto key = std::make_pair(id, static_cast<int>(rung));
+  auto it = done_.find(key);
+  const bool cached = it != done_.end();
+  if (!cached && claims_) {
+    // The ranks trained every trial of this rung unless the budget or Ctrl-C stopped them.
+    if (!spread.budget_exhausted && !spread.interrupted)
+      throw Error("hone: trial " + std::to_string(id) + " has no outcome after its rung was shared out");
+    result.budget_exhausted = spread.budget_exhausted;
+    result.interrupted = spread.interrupted;
+    return false;
+  }
+  if (!cached) {
+    if (spec_.max_minutes > 0 && elapsed() >= spec_.max_minutes * 60.0) {
+      result.budget_exhausted = true;
+      return false;
+    }
+    const auto start = std::chrono::steady_clock::now();
+    bool interrupted = false;
+    const RungOutcome o = run_rung(t, target, interrupted);
+    if (interrupted || interrupt_requested()) {
+      if (!interrupted) done_[key] = o;
+      save_state();
+      result.interrupted = true;
+      return false;
+    }
+    it = done_.emplace(key, o).first;
+    save_state();
+    units_trained_this_session_ += target - prev;
+    seconds_trained_this_session_ +=
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  }
+  const RungOutcome& o = it->second;
+  t.epochs = o.epochs;
+  t.score = o.score;
+  t.stopped_early = o.stopped_early;
+  t.finished = o.finished;
+  t.rung = static_cast<int>(rung);
+  // Counted for promotions only: a first rung cut by Ctrl-C also continues its resume.bin,
+  // but whether that happened depends on when the signal came.
+  t.rungs_continued += rung > 0 && o.continued ? 1 : 0;
+  units_done_ += target - prev;
+  note_progress(t, p, static_cast<int>(rung), cached && spread.trained.count(id) == 0);
+  return true;
+}
+
+// Trains every survivor `alive` of bracket `p` to rung `rung` (shared out over the ranks of an
+// MPI job first). Returns false when the search must stop (see settle_trial).
+bool Search::train_rung(const PlannedBracket& p, std::size_t rung, const std::vector<int>& alive,
+                        HoneResult& result) {
+  Spread spread;
+  if (claims_) {
+    const int target = p.bracket.rungs[rung].epochs;
+    const int prev = rung == 0 ? 0 : p.bracket.rungs[rung - 1].epochs;
+    spread = train_rung_across_ranks(alive, static_cast<int>(rung), target, prev);
+  }
+  for (const int id : alive)
+    if (!settle_trial(id, p, rung, spread, result)) return false;
+  return true;
+}
+
+HoneResult Search::run() {
+  start();
   HoneResult result;
   bool stop = false;
   for (std::size_t k = 0; !stop; ++k) {
@@ -532,61 +613,7 @@ HoneResult Search::run() {
     std::vector<int> alive;
     for (int i = 0; i < p->bracket.rungs[0].trials; ++i) alive.push_back(p->first_trial + i);
     for (std::size_t rung = 0; rung < p->bracket.rungs.size() && !stop; ++rung) {
-      const int target = p->bracket.rungs[rung].epochs;
-      const int prev = rung == 0 ? 0 : p->bracket.rungs[rung - 1].epochs;
-      Spread spread;
-      if (claims_) spread = train_rung_across_ranks(alive, static_cast<int>(rung), target, prev);
-      for (const int id : alive) {
-        HoneTrial& t = trial(id);
-        t.iteration = p->iteration;
-        t.bracket = p->bracket.s;
-        const auto key = std::make_pair(id, static_cast<int>(rung));
-        auto it = done_.find(key);
-        const bool cached = it != done_.end();
-        if (!cached && claims_) {
-          // The ranks trained every trial of this rung unless the budget or Ctrl-C stopped them.
-          if (!spread.budget_exhausted && !spread.interrupted)
-            throw Error("hone: trial " + std::to_string(id) +
-                        " has no outcome after its rung was shared out");
-          result.budget_exhausted = spread.budget_exhausted;
-          result.interrupted = spread.interrupted;
-          stop = true;
-          break;
-        }
-        if (!cached) {
-          if (spec_.max_minutes > 0 && elapsed() >= spec_.max_minutes * 60.0) {
-            result.budget_exhausted = true;
-            stop = true;
-            break;
-          }
-          const auto start = std::chrono::steady_clock::now();
-          bool interrupted = false;
-          const RungOutcome o = run_rung(t, target, interrupted);
-          if (interrupted || interrupt_requested()) {
-            if (!interrupted) done_[key] = o;
-            save_state();
-            result.interrupted = true;
-            stop = true;
-            break;
-          }
-          it = done_.emplace(key, o).first;
-          save_state();
-          units_trained_this_session_ += target - prev;
-          seconds_trained_this_session_ +=
-              std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-        }
-        const RungOutcome& o = it->second;
-        t.epochs = o.epochs;
-        t.score = o.score;
-        t.stopped_early = o.stopped_early;
-        t.finished = o.finished;
-        t.rung = static_cast<int>(rung);
-        // Counted for promotions only: a first rung cut by Ctrl-C also continues its resume.bin,
-        // but whether that happened depends on when the signal came.
-        t.rungs_continued += rung > 0 && o.continued ? 1 : 0;
-        units_done_ += target - prev;
-        note_progress(t, *p, static_cast<int>(rung), cached && spread.trained.count(id) == 0);
-      }
+      stop = !train_rung(*p, rung, alive, result);
       if (stop) break;
       // Keep the best floor(n_i / eta) for the next rung (its planned count, at least one).
       if (rung + 1 < p->bracket.rungs.size()) {
@@ -597,7 +624,12 @@ HoneResult Search::run() {
       }
     }
   }
+  return finish(std::move(result));
+}
 
+// The trials that ran, the best of them, and (rank 0 of a finished search) the best run and
+// hone.json.
+HoneResult Search::finish(HoneResult result) {
   result.metric = metric_;
   result.seconds = elapsed();
   for (const auto& t : trials_)
