@@ -36,6 +36,12 @@ class CsvReader {
   int get();
   int peek();
   [[noreturn]] void fail(std::size_t line, std::size_t column, const std::string& what) const;
+  void skip_byte_order_mark();
+  bool skip_blank_lines();
+  void append(std::string& field, int c);
+  int read_quoted(std::string& field, std::size_t line, std::size_t column);
+  int read_plain(std::string& field);
+  void end_record(int c);
 
   std::streambuf& in_;
   std::string name_;
