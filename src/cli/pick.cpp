@@ -68,6 +68,93 @@ std::vector<train::ExamplePrediction> run_model(const io::TrainedModel& trained,
                          : train::predict_all(*trained.model, encoded, 64, true);
 }
 
+// The pool's texts as the model reads them; a text the model cannot read is refused with its line.
+std::vector<data::EncodedExample> encode_pool(const data::Encoder& encoder, const std::vector<PoolText>& pool,
+                                              const std::string& path) {
+  std::vector<data::EncodedExample> encoded;
+  encoded.reserve(pool.size());
+  std::vector<std::string> tokens;
+  for (const auto& p : pool) {
+    data::EncodedExample ex;
+    try {
+      encoder.encode_text(p.text, tokens, ex);
+    } catch (const runtime::Error& e) {
+      throw ParseError(path, p.line, e.what());
+    }
+    if (ex.ids.empty()) throw ParseError(path, p.line, "no tokens in the text");
+    ex.source_line = p.line;
+    encoded.push_back(std::move(ex));
+  }
+  return encoded;
+}
+
+// The model's pooled representation of each already labelled text (texts without tokens left out).
+std::vector<std::vector<float>> labelled_features(const io::TrainedModel& trained,
+                                                  const data::Encoder& encoder, const std::string& path) {
+  std::vector<std::vector<float>> features;
+  std::vector<data::EncodedExample> labelled;
+  std::vector<std::string> tokens;
+  data::read_corpus(path, {}, [&](data::Example&& ex) {
+    data::EncodedExample e;
+    encoder.encode_text(ex.text, tokens, e);
+    if (!e.ids.empty()) labelled.push_back(std::move(e));
+  });
+  for (auto& p : run_model(trained, labelled)) features.push_back(std::move(p.features));
+  return features;
+}
+
+// The model's labels for a text, comma-separated.
+std::string guess_of(const train::ExamplePrediction& pr, const io::TrainedModel& trained) {
+  std::string guess;
+  for (const auto l : pr.labels)
+    guess += (guess.empty() ? "" : ",") + trained.spec.labels[static_cast<std::size_t>(l)];
+  return guess;
+}
+
+// The file to label: TSV rows "<TAB>text", or JSON Lines with the guess and the scores.
+std::string picks_file(const std::vector<train::Pick>& picks,
+                       const std::vector<train::ExamplePrediction>& preds, const std::vector<PoolText>& pool,
+                       const io::TrainedModel& trained, const train::PickOptions& po,
+                       const std::string& format) {
+  std::string body;
+  for (std::size_t r = 0; r < picks.size(); ++r) {
+    const auto& pk = picks[r];
+    const auto& pr = preds[pk.index];
+    if (format == "jsonl") {
+      json copies = json::array();
+      for (const auto c : pk.copies) copies.push_back(pool[c].line);
+      json rec{{"label", ""},
+               {"text", pool[pk.index].text},
+               {"guess", guess_of(pr, trained)},
+               {"probability", pr.confidence},
+               {"uncertainty", pk.uncertainty},
+               {"rank", r + 1},
+               {"line", pool[pk.index].line},
+               {"duplicates", copies}};
+      if (po.rule == train::PickRule::kDiverse) rec["distance"] = pk.distance;
+      body += rec.dump() + "\n";
+    } else {
+      body += "\t" + pool[pk.index].text + "\n";
+    }
+  }
+  return body;
+}
+
+// The picks as a table on stdout (when the file goes to --out).
+void print_picks(const std::vector<train::Pick>& picks, const std::vector<train::ExamplePrediction>& preds,
+                 const std::vector<PoolText>& pool, const io::TrainedModel& trained) {
+  std::printf("%4s  %6s  %-16s %6s  %5s  %s\n", "rank", "line", "guess", "p", "dups", "text");
+  for (std::size_t r = 0; r < picks.size(); ++r) {
+    const auto& pk = picks[r];
+    const auto& pr = preds[pk.index];
+    std::string text = pool[pk.index].text;
+    if (text.size() > 60) text = text.substr(0, 57) + "...";
+    std::printf("%4zu  %6zu  %-16s %6.3f  %5zu  %s\n", r + 1, pool[pk.index].line,
+                guess_of(pr, trained).c_str(), static_cast<double>(pr.confidence), pk.copies.size(),
+                text.c_str());
+  }
+}
+
 ExitCode run_pick(const PickOptions& o) {
   train::PickOptions po;
   po.rule = train::pick_rule_from_string(o.rule);
@@ -81,57 +168,13 @@ ExitCode run_pick(const PickOptions& o) {
   po.multi_label = trained.spec.output == model::OutputKind::kSigmoid;
   const data::Encoder encoder(trained.vocab, data::Task::kClassify);
   const std::vector<PoolText> pool = read_pool(o.pool);
-  std::vector<data::EncodedExample> encoded;
-  encoded.reserve(pool.size());
-  std::vector<std::string> tokens;
-  for (const auto& p : pool) {
-    data::EncodedExample ex;
-    try {
-      encoder.encode_text(p.text, tokens, ex);
-    } catch (const runtime::Error& e) {
-      throw ParseError(o.pool, p.line, e.what());
-    }
-    if (ex.ids.empty()) throw ParseError(o.pool, p.line, "no tokens in the text");
-    ex.source_line = p.line;
-    encoded.push_back(std::move(ex));
-  }
-  std::vector<std::vector<float>> labelled_features;
-  if (!o.labelled.empty()) {
-    std::vector<data::EncodedExample> labelled;
-    data::read_corpus(o.labelled, {}, [&](data::Example&& ex) {
-      data::EncodedExample e;
-      encoder.encode_text(ex.text, tokens, e);
-      if (!e.ids.empty()) labelled.push_back(std::move(e));
-    });
-    for (auto& p : run_model(trained, labelled)) labelled_features.push_back(std::move(p.features));
-  }
+  const std::vector<data::EncodedExample> encoded = encode_pool(encoder, pool, o.pool);
+  std::vector<std::vector<float>> features;
+  if (!o.labelled.empty()) features = labelled_features(trained, encoder, o.labelled);
   const auto preds = run_model(trained, encoded);
-  const auto picks = train::pick_to_label(encoded, preds, labelled_features, po);
+  const auto picks = train::pick_to_label(encoded, preds, features, po);
 
-  std::string body;
-  for (std::size_t r = 0; r < picks.size(); ++r) {
-    const auto& pk = picks[r];
-    const auto& pr = preds[pk.index];
-    std::string guess;
-    for (const auto l : pr.labels)
-      guess += (guess.empty() ? "" : ",") + trained.spec.labels[static_cast<std::size_t>(l)];
-    if (o.format == "jsonl") {
-      json copies = json::array();
-      for (const auto c : pk.copies) copies.push_back(pool[c].line);
-      json rec{{"label", ""},
-               {"text", pool[pk.index].text},
-               {"guess", guess},
-               {"probability", pr.confidence},
-               {"uncertainty", pk.uncertainty},
-               {"rank", r + 1},
-               {"line", pool[pk.index].line},
-               {"duplicates", copies}};
-      if (po.rule == train::PickRule::kDiverse) rec["distance"] = pk.distance;
-      body += rec.dump() + "\n";
-    } else {
-      body += "\t" + pool[pk.index].text + "\n";
-    }
-  }
+  const std::string body = picks_file(picks, preds, pool, trained, po, o.format);
   if (o.out.empty()) {
     std::cout << body;
     return ExitCode::kOk;
@@ -139,18 +182,7 @@ ExitCode run_pick(const PickOptions& o) {
   write_file_atomic(o.out, body);
   std::printf("picked %zu of %zu texts (%s, uncertainty by %s) -> %s\n", picks.size(), pool.size(),
               train::to_string(po.rule), train::to_string(po.measure), o.out.c_str());
-  std::printf("%4s  %6s  %-16s %6s  %5s  %s\n", "rank", "line", "guess", "p", "dups", "text");
-  for (std::size_t r = 0; r < picks.size(); ++r) {
-    const auto& pk = picks[r];
-    const auto& pr = preds[pk.index];
-    std::string text = pool[pk.index].text;
-    if (text.size() > 60) text = text.substr(0, 57) + "...";
-    std::string guess;
-    for (const auto l : pr.labels)
-      guess += (guess.empty() ? "" : ",") + trained.spec.labels[static_cast<std::size_t>(l)];
-    std::printf("%4zu  %6zu  %-16s %6.3f  %5zu  %s\n", r + 1, pool[pk.index].line, guess.c_str(),
-                static_cast<double>(pr.confidence), pk.copies.size(), text.c_str());
-  }
+  print_picks(picks, preds, pool, trained);
   return ExitCode::kOk;
 }
 
