@@ -613,6 +613,9 @@ class Run {
   void end_epoch();
   void save_last();
   void optimizer_step(std::span<nn::ParameterStore* const> others);
+  double reduce_and_measure(std::span<nn::ParameterStore* const> others);
+  void clip_part(int part, int parts, float scale);
+  void zero_gradients_part(int part, int parts);
   void sync_replica(std::size_t w);
   void finish(TrainOutcome outcome, TrainResult& result);
   json calibrate();
@@ -775,6 +778,26 @@ void Run::sync_replica(std::size_t w) {
 void Run::optimizer_step(std::span<nn::ParameterStore* const> others) {
   auto& master = replicas_[0]->params();
   const int parts = pool_->size();
+  const double norm = reduce_and_measure(others);
+  if (!std::isfinite(norm)) diverged("the gradient norm became " + fmt(norm));
+  // Pascanu et al. 2013, Algorithm 1: g <- (threshold / |g|) g when |g| exceeds the threshold.
+  const bool clip = config_.clip_norm > 0 && norm > config_.clip_norm;
+  const auto scale = clip ? static_cast<float>(config_.clip_norm / norm) : 1.0f;
+  optimizer_->prepare_step(master, schedule_->rate(state_.global_step));
+  pool_->run([&](int part) {
+    if (clip) clip_part(part, parts, scale);
+    optimizer_->update_part(master, part, parts);
+    zero_gradients_part(part, parts);
+  });
+  ++state_.global_step;
+  replicas_stale_ = replicas_.size() > 1;
+}
+
+// The reduction of the workers' gradients `others` into the master and the master gradient's
+// norm, split across the workers.
+double Run::reduce_and_measure(std::span<nn::ParameterStore* const> others) {
+  auto& master = replicas_[0]->params();
+  const int parts = pool_->size();
   // The norm is summed over as many element ranges as there are workers in the whole job, so R
   // ranks of T threads add the same partial sums in the same order as one process of R*T threads.
   const int norm_parts = global_workers();
@@ -810,48 +833,47 @@ void Run::optimizer_step(std::span<nn::ParameterStore* const> others) {
   }
   double total = 0.0;
   for (const double s : part_squares_) total += s;
-  const double norm = std::sqrt(total);
-  if (!std::isfinite(norm)) diverged("the gradient norm became " + fmt(norm));
-  // Pascanu et al. 2013, Algorithm 1: g <- (threshold / |g|) g when |g| exceeds the threshold.
-  const bool clip = config_.clip_norm > 0 && norm > config_.clip_norm;
-  const auto scale = clip ? static_cast<float>(config_.clip_norm / norm) : 1.0f;
-  optimizer_->prepare_step(master, schedule_->rate(state_.global_step));
-  pool_->run([&](int part) {
-    for (std::size_t i = 0; i < master.size(); ++i) {
-      nn::Parameter& p = master[i];
-      if (!p.trainable) continue;
-      if (p.sparse_rows) {
-        if (part == 0 && clip)
-          for (const std::int32_t row : p.touched_rows) p.grad.row(row) *= scale;
-        continue;
-      }
-      if (!clip) continue;
-      const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
-      for (Eigen::Index k = begin; k < end; ++k) p.grad.data()[k] *= scale;
+  return std::sqrt(total);
+}
+
+// Scales part `part` of `parts` of the master's gradient by `scale` (sparse rows: worker 0).
+void Run::clip_part(int part, int parts, float scale) {
+  auto& master = replicas_[0]->params();
+  for (std::size_t i = 0; i < master.size(); ++i) {
+    nn::Parameter& p = master[i];
+    if (!p.trainable) continue;
+    if (p.sparse_rows) {
+      if (part == 0)
+        for (const std::int32_t row : p.touched_rows) p.grad.row(row) *= scale;
+      continue;
     }
-    optimizer_->update_part(master, part, parts);
-    // Zero the gradients of every replica on this part; remember the sparse rows for the sync.
-    for (std::size_t i = 0; i < master.size(); ++i) {
-      nn::Parameter& p = master[i];
-      if (p.sparse_rows) {
-        if (part != 0) continue;
-        stale_rows_[i] = p.touched_rows;  // capacity is kept: no allocation once grown
-        for (auto& r : replicas_) {
-          nn::Parameter& q = r->params()[i];
-          for (const auto row : q.touched_rows) q.grad.row(row).setZero();
-          q.touched_rows.clear();
-        }
-        continue;
-      }
-      const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
+    const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
+    for (Eigen::Index k = begin; k < end; ++k) p.grad.data()[k] *= scale;
+  }
+}
+
+// Zeroes the gradients of every replica on part `part` of `parts`; remembers the sparse rows for
+// the sync.
+void Run::zero_gradients_part(int part, int parts) {
+  auto& master = replicas_[0]->params();
+  for (std::size_t i = 0; i < master.size(); ++i) {
+    nn::Parameter& p = master[i];
+    if (p.sparse_rows) {
+      if (part != 0) continue;
+      stale_rows_[i] = p.touched_rows;  // capacity is kept: no allocation once grown
       for (auto& r : replicas_) {
-        float* g = r->params()[i].grad.data();
-        std::fill(g + begin, g + end, 0.0f);
+        nn::Parameter& q = r->params()[i];
+        for (const auto row : q.touched_rows) q.grad.row(row).setZero();
+        q.touched_rows.clear();
       }
+      continue;
     }
-  });
-  ++state_.global_step;
-  replicas_stale_ = replicas_.size() > 1;
+    const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
+    for (auto& r : replicas_) {
+      float* g = r->params()[i].grad.data();
+      std::fill(g + begin, g + end, 0.0f);
+    }
+  }
 }
 
 // Ranks > 1: every rank sends its workers' losses and gradients (dense tensors whole, sparse-row
