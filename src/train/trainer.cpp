@@ -605,6 +605,9 @@ class Run {
   TrainResult execute();
 
  private:
+  void prepare();
+  void open_run_directory();
+  void note_start();
   void setup_model();
   void load_resume_state();
   void run_epoch();
@@ -1294,7 +1297,10 @@ json Run::calibrate() {
   return calibration_json(fit, r_before, r_after);
 }
 
-TrainResult Run::execute() {
+// Checks the settings and the run directory, reads and encodes the data (with the saved vocabulary
+// when resuming) and builds the model: everything that can refuse the run, before anything is
+// written.
+void Run::prepare() {
   dir_ = options_.out;
   if (dir_.empty()) throw ConfigError("out", "a run directory is required (--out DIR)");
   validate(config_);
@@ -1312,8 +1318,11 @@ TrainResult Run::execute() {
                                    dir_.string() + "`");
   }
   data_ = prepare_data(config_, progress_, saved_vocab);
-  setup_model();     // all checks done: nothing is created before this point
-  group_.barrier();  // every rank has checked the run directory before rank 0 creates it
+  setup_model();  // all checks done: nothing is created before this point
+}
+
+// Creates the run directory (rank 0) or tidies the one being continued and loads its state.
+void Run::open_run_directory() {
   if (start_ != Start::kNew && lead_) {
     // A process killed while writing (kill -9, power loss) leaves "<file>.tmp.<pid>" behind.
     for (const auto& stale : remove_stale_temp_files(dir_))
@@ -1337,19 +1346,28 @@ TrainResult Run::execute() {
     if (options_.epochs > 0 && lead_)
       write_file_atomic(dir_ / "config.json", run_config_json().dump(2) + "\n");
   }
-  if (!options_.quiet) {
-    std::ostringstream head;
-    head << (resuming_ ? "resuming " : "training ") << model::to_string(config_.cell) << " "
-         << data::to_string(*config_.task) << " (" << (spec_.bidirectional ? "bi, " : "") << spec_.layers
-         << "x" << spec_.hidden_size << ", embedding " << spec_.embedding_size << ", "
-         << replicas_[0]->params().parameter_count() << " parameters) on " << data_.train.size()
-         << " examples, dev " << data_.dev.size() << ", vocabulary " << data_.vocab.vocab.size() << ", "
-         << spec_.num_labels() << " labels, " << config_.threads << " thread(s)"
-         << (group_.size() > 1 ? " in each of " + std::to_string(group_.size()) + " MPI ranks" : "")
-         << ", seed " << config_.seed;
-    if (resuming_) head << "; from epoch " << state_.epoch + 1 << " step " << state_.step + 1;
-    progress_.note(head.str());
-  }
+}
+
+// The first progress line: what is trained on what, and from where when resuming.
+void Run::note_start() {
+  std::ostringstream head;
+  head << (resuming_ ? "resuming " : "training ") << model::to_string(config_.cell) << " "
+       << data::to_string(*config_.task) << " (" << (spec_.bidirectional ? "bi, " : "") << spec_.layers << "x"
+       << spec_.hidden_size << ", embedding " << spec_.embedding_size << ", "
+       << replicas_[0]->params().parameter_count() << " parameters) on " << data_.train.size()
+       << " examples, dev " << data_.dev.size() << ", vocabulary " << data_.vocab.vocab.size() << ", "
+       << spec_.num_labels() << " labels, " << config_.threads << " thread(s)"
+       << (group_.size() > 1 ? " in each of " + std::to_string(group_.size()) + " MPI ranks" : "")
+       << ", seed " << config_.seed;
+  if (resuming_) head << "; from epoch " << state_.epoch + 1 << " step " << state_.step + 1;
+  progress_.note(head.str());
+}
+
+TrainResult Run::execute() {
+  prepare();
+  group_.barrier();  // every rank has checked the run directory before rank 0 creates it
+  open_run_directory();
+  if (!options_.quiet) note_start();
   install_interrupt_handlers();
   TrainResult result;
   while (!state_.finished && state_.epoch < config_.epochs) {
