@@ -209,104 +209,123 @@ class BatchWorker {
     if (!p.error.empty()) {
       // already malformed
     } else if (json_input) {
-      const char* key = o_.input_format == "jsonl" ? o_.text_column.c_str() : "tokens";
-      const json j = in.bytes_cut ? json() : json::parse(raw, nullptr, false);
-      if (in.bytes_cut) {
-        // Half a JSON object cannot be read.
-        p.error = "line longer than " + std::to_string(o_.effective_max_tokens * kLineBytesPerToken) +
-                  " bytes, the limit for --max-tokens " + std::to_string(o_.effective_max_tokens) + " (" +
-                  std::to_string(kLineBytesPerToken) + " bytes per token)";
-      } else if (j.is_discarded() || !j.is_object() || !j.contains(key)) {
-        p.error = std::string("expected a JSON object with a \"") + key + "\" " +
-                  (o_.input_format == "jsonl" ? "string" : "array of strings");
-      } else if (o_.input_format == "jsonl") {
-        if (!j[key].is_string())
-          p.error = std::string("\"") + key + "\" must be a string, got " + j[key].type_name();
-        else
-          raw = j[key].get<std::string>();
-      } else {
-        pretokenized = true;
-        if (!j[key].is_array()) {
-          p.error = "\"tokens\" must be an array of strings";
-        } else {
-          for (const auto& t : j[key]) {
-            if (!t.is_string() || t.get<std::string>().empty()) {
-              p.error = "\"tokens\" must be an array of non-empty strings";
-              break;
-            }
-            given_tokens.push_back(t.get<std::string>());
-          }
-        }
-      }
+      pretokenized = o_.input_format != "jsonl";
+      read_json_line(in.bytes_cut, raw, given_tokens, p.error);
     } else if (o_.input_format == "tsv") {
-      // Labelled TSV: the label column is ignored, the text is everything after the first TAB.
-      const std::size_t tab = raw.find('\t');
-      if (tab == std::string::npos) {
-        p.error = "expected label<TAB>text (--input-format tsv reads the text after the first TAB)";
-      } else if (line == 1 && raw.find_first_of(" \t", tab + 1) == std::string::npos &&
-                 std::find(spec_.labels.begin(), spec_.labels.end(), raw.substr(0, tab)) ==
-                     spec_.labels.end()) {
-        // "label<TAB>text" itself is skipped by the reader; another first line whose label the
-        // model does not know and whose text is one word is most likely a header too.
-        p.error = "looks like a header line ('" + tsv_field(raw.substr(0, tab)) + "<TAB>" +
-                  tsv_field(raw.substr(tab + 1)) + "'); a header must read label<TAB>text";
-      } else {
-        raw.erase(0, tab + 1);
-      }
+      read_tsv_line(line, raw, p.error);
     } else if (o_.input_format == "columns") {
-      // One sentence: token<TAB>anything per line (the tag column, if any, is ignored).
       pretokenized = true;
-      std::size_t start = 0;
-      while (start <= raw.size()) {
-        const std::size_t end = std::min(raw.find('\n', start), raw.size());
-        const std::string_view row(raw.data() + start, end - start);
-        const std::string token(row.substr(0, row.find('\t')));
-        if (token.find_first_not_of(' ') == std::string::npos) {
-          p.error = "empty token (a line of the sentence starts with a TAB)";
-          break;
-        }
-        given_tokens.push_back(token);
-        start = end + 1;
-      }
+      read_columns(raw, given_tokens, p.error);
     }
     p.text = std::move(raw);
-    if (p.error.empty()) {
-      bool valid = pretokenized ? std::all_of(given_tokens.begin(), given_tokens.end(),
-                                              [](const std::string& t) { return text::is_valid_utf8(t); })
-                                : text::is_valid_utf8(p.text);
-      if (!valid) {
-        p.error = "invalid UTF-8";
-      } else {
-        data::EncodedExample ex;
-        try {
-          if (pretokenized) {
-            data::Example given;
-            given.tokens = given_tokens;
-            std::vector<std::string> normalized, surfaces;
-            if (token_encoder_.tokens(given, input_name(), normalized, surfaces)) p.cut = Cut::kTokens;
-            for (const auto& t : normalized) ex.ids.push_back(trained_.vocab.vocab.id(t));
-            if (token_encoder_.has_characters()) token_encoder_.add_characters(surfaces, ex);
-            given_tokens.resize(normalized.size());
-            p.tokens = std::move(given_tokens);  // printed as the user wrote them; no byte ranges
-          } else if (encoder_.encode_text(p.text, p.tokens, ex, &p.token_bytes)) {
-            // A line cut by bytes usually has more tokens than the cap too: name the cap that bit.
-            p.cut = Cut::kTokens;
-          }
-        } catch (const runtime::Error& e) {
-          p.error = e.what();
-        } catch (const ParseError& e) {
-          p.error = e.what();
-        }
-        if (p.error.empty() && ex.ids.empty()) p.error = "no tokens in the line (empty text)";
-        if (p.error.empty()) {
-          p.encoded = encoded_.size();
-          ex.source_line = line;
-          encoded_.push_back(std::move(ex));
-        }
-      }
-    }
+    if (p.error.empty()) encode(p, pretokenized, given_tokens);
     if (!p.error.empty() && o_.on_error == "fail") throw ParseError(input_name(), line, p.error);
     pending_.push_back(std::move(p));
+  }
+
+  // --input-format jsonl / tagged-jsonl: the text (into `raw`) or the tokens of a JSON object.
+  void read_json_line(bool bytes_cut, std::string& raw, std::vector<std::string>& given_tokens,
+                      std::string& error) const {
+    const char* key = o_.input_format == "jsonl" ? o_.text_column.c_str() : "tokens";
+    const json j = bytes_cut ? json() : json::parse(raw, nullptr, false);
+    if (bytes_cut) {
+      // Half a JSON object cannot be read.
+      error = "line longer than " + std::to_string(o_.effective_max_tokens * kLineBytesPerToken) +
+              " bytes, the limit for --max-tokens " + std::to_string(o_.effective_max_tokens) + " (" +
+              std::to_string(kLineBytesPerToken) + " bytes per token)";
+    } else if (j.is_discarded() || !j.is_object() || !j.contains(key)) {
+      error = std::string("expected a JSON object with a \"") + key + "\" " +
+              (o_.input_format == "jsonl" ? "string" : "array of strings");
+    } else if (o_.input_format == "jsonl") {
+      if (!j[key].is_string())
+        error = std::string("\"") + key + "\" must be a string, got " + j[key].type_name();
+      else
+        raw = j[key].get<std::string>();
+    } else if (!j[key].is_array()) {
+      error = "\"tokens\" must be an array of strings";
+    } else {
+      for (const auto& t : j[key]) {
+        if (!t.is_string() || t.get<std::string>().empty()) {
+          error = "\"tokens\" must be an array of non-empty strings";
+          break;
+        }
+        given_tokens.push_back(t.get<std::string>());
+      }
+    }
+  }
+
+  // --input-format tsv: labelled TSV; the label column is ignored, the text (left in `raw`) is
+  // everything after the first TAB.
+  void read_tsv_line(std::size_t line, std::string& raw, std::string& error) const {
+    const std::size_t tab = raw.find('\t');
+    if (tab == std::string::npos) {
+      error = "expected label<TAB>text (--input-format tsv reads the text after the first TAB)";
+    } else if (line == 1 && raw.find_first_of(" \t", tab + 1) == std::string::npos &&
+               std::find(spec_.labels.begin(), spec_.labels.end(), raw.substr(0, tab)) ==
+                   spec_.labels.end()) {
+      // "label<TAB>text" itself is skipped by the reader; another first line whose label the
+      // model does not know and whose text is one word is most likely a header too.
+      error = "looks like a header line ('" + tsv_field(raw.substr(0, tab)) + "<TAB>" +
+              tsv_field(raw.substr(tab + 1)) + "'); a header must read label<TAB>text";
+    } else {
+      raw.erase(0, tab + 1);
+    }
+  }
+
+  // --input-format columns: one sentence, token<TAB>anything per line (the tag column, if any, is
+  // ignored).
+  static void read_columns(const std::string& raw, std::vector<std::string>& given_tokens,
+                           std::string& error) {
+    std::size_t start = 0;
+    while (start <= raw.size()) {
+      const std::size_t end = std::min(raw.find('\n', start), raw.size());
+      const std::string_view row(raw.data() + start, end - start);
+      const std::string token(row.substr(0, row.find('\t')));
+      if (token.find_first_not_of(' ') == std::string::npos) {
+        error = "empty token (a line of the sentence starts with a TAB)";
+        break;
+      }
+      given_tokens.push_back(token);
+      start = end + 1;
+    }
+  }
+
+  // Checks the UTF-8 of the line's text (or of the user's tokens) and encodes it for the model;
+  // what goes wrong goes to p.error.
+  void encode(Pending& p, bool pretokenized, std::vector<std::string>& given_tokens) {
+    const bool valid = pretokenized ? std::all_of(given_tokens.begin(), given_tokens.end(),
+                                                  [](const std::string& t) { return text::is_valid_utf8(t); })
+                                    : text::is_valid_utf8(p.text);
+    if (!valid) {
+      p.error = "invalid UTF-8";
+      return;
+    }
+    data::EncodedExample ex;
+    try {
+      if (pretokenized) {
+        data::Example given;
+        given.tokens = given_tokens;
+        std::vector<std::string> normalized, surfaces;
+        if (token_encoder_.tokens(given, input_name(), normalized, surfaces)) p.cut = Cut::kTokens;
+        for (const auto& t : normalized) ex.ids.push_back(trained_.vocab.vocab.id(t));
+        if (token_encoder_.has_characters()) token_encoder_.add_characters(surfaces, ex);
+        given_tokens.resize(normalized.size());
+        p.tokens = std::move(given_tokens);  // printed as the user wrote them; no byte ranges
+      } else if (encoder_.encode_text(p.text, p.tokens, ex, &p.token_bytes)) {
+        // A line cut by bytes usually has more tokens than the cap too: name the cap that bit.
+        p.cut = Cut::kTokens;
+      }
+    } catch (const runtime::Error& e) {
+      p.error = e.what();
+    } catch (const ParseError& e) {
+      p.error = e.what();
+    }
+    if (p.error.empty() && ex.ids.empty()) p.error = "no tokens in the line (empty text)";
+    if (p.error.empty()) {
+      p.encoded = encoded_.size();
+      ex.source_line = p.line;
+      encoded_.push_back(std::move(ex));
+    }
   }
 
   std::string input_name() const { return o_.input == "-" ? "<stdin>" : o_.input; }
