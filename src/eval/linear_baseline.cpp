@@ -98,10 +98,83 @@ double max_abs(const std::vector<double>& v) {
   return m;
 }
 
-}  // namespace
+// The last `capacity` curvature pairs (s, y) of L-BFGS in a ring buffer, and the two-loop recursion over
+// them.
+struct LbfgsHistory {
+  explicit LbfgsHistory(std::size_t pairs) : capacity(pairs), alpha(pairs) {}
 
-LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
-                                    int features, const LbfgsOptions& options) {
+  std::size_t size() const { return s.size(); }
+
+  // direction = -H grad (Nocedal & Wright 2006, algorithm 7.4).
+  void direction(const std::vector<double>& grad, std::vector<double>& d) {
+    const std::size_t n = grad.size();
+    d = grad;
+    const std::size_t count = s.size();
+    for (std::size_t j = 0; j < count; ++j) {
+      const std::size_t i = (oldest + count - 1 - j) % count;
+      alpha[i] = rho[i] * dot(s[i], d);
+      for (std::size_t p = 0; p < n; ++p) d[p] -= alpha[i] * y[i][p];
+    }
+    double gamma = 1.0;
+    if (count > 0) {
+      const std::size_t last = (oldest + count - 1) % count;
+      gamma = dot(s[last], y[last]) / dot(y[last], y[last]);
+    }
+    for (auto& v : d) v *= gamma;
+    for (std::size_t j = 0; j < count; ++j) {
+      const std::size_t i = (oldest + j) % count;
+      const double beta = rho[i] * dot(y[i], d);
+      for (std::size_t p = 0; p < n; ++p) d[p] += s[i][p] * (alpha[i] - beta);
+    }
+    for (auto& v : d) v = -v;
+  }
+
+  void clear() {
+    s.clear();
+    y.clear();
+    rho.clear();
+    oldest = 0;
+  }
+
+  // Adds the pair when it satisfies the curvature condition (sy = s.y), else skips it.
+  void add(std::vector<double>&& sv, std::vector<double>&& yv, double sy) {
+    if (!(sy > 1e-12 * dot(yv, yv))) return;
+    if (s.size() < capacity) {
+      s.push_back(std::move(sv));
+      y.push_back(std::move(yv));
+      rho.push_back(1.0 / sy);
+    } else {
+      s[oldest] = std::move(sv);
+      y[oldest] = std::move(yv);
+      rho[oldest] = 1.0 / sy;
+      oldest = (oldest + 1) % capacity;
+    }
+  }
+
+  std::size_t capacity;
+  std::vector<std::vector<double>> s, y;
+  std::vector<double> rho, alpha;
+  std::size_t oldest = 0;  // ring buffer start once full
+};
+
+// Backtracking line search from `theta` along `direction` (Armijo condition, c1 = 1e-4), starting
+// at `step` and halving up to 60 times; the point, its value and gradient go to next, next_value,
+// next_grad. False when no step decreases the objective.
+bool armijo_search(Objective& objective, const std::vector<double>& theta, double value,
+                   const std::vector<double>& direction, double slope, double step, std::vector<double>& next,
+                   double& next_value, std::vector<double>& next_grad) {
+  const std::size_t n = theta.size();
+  for (int ls = 0; ls < 60; ++ls) {
+    for (std::size_t p = 0; p < n; ++p) next[p] = theta[p] + step * direction[p];
+    next_value = objective(next, next_grad);
+    if (std::isfinite(next_value) && next_value <= value + 1e-4 * step * slope) return true;
+    step *= 0.5;
+  }
+  return false;
+}
+
+void check_problem(const SparseRows& x, std::span<const std::int32_t> labels, int classes, int features,
+                   const LbfgsOptions& options) {
   GYRE_CHECK(classes >= 2, "logistic regression needs at least two classes");
   GYRE_CHECK(features >= 0, "negative feature count");
   GYRE_CHECK(x.rows() == labels.size(), "logistic regression: rows and labels differ in count");
@@ -109,7 +182,13 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
   for (const auto l : labels) GYRE_CHECK(l >= 0 && l < classes, "logistic regression: label out of range");
   for (const auto c : x.columns)
     GYRE_CHECK(c >= 0 && c < features, "logistic regression: column out of range");
+}
 
+}  // namespace
+
+LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
+                                    int features, const LbfgsOptions& options) {
+  check_problem(x, labels, classes, features, options);
   const auto k = static_cast<std::size_t>(classes);
   const auto f = static_cast<std::size_t>(features);
   const std::size_t n = f * k + k;
@@ -119,10 +198,7 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
 
   std::vector<double> theta(n, 0.0), grad(n), direction(n), next(n), next_grad(n);
   double value = objective(theta, grad);
-  const auto m = static_cast<std::size_t>(std::max(1, options.history));
-  std::vector<std::vector<double>> s_hist, y_hist;
-  std::vector<double> rho_hist, alpha(m);
-  std::size_t oldest = 0;  // ring buffer start once full
+  LbfgsHistory history(static_cast<std::size_t>(std::max(1, options.history)));
 
   LinearModel out;
   out.features = features;
@@ -133,49 +209,19 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
       out.converged = true;
       break;
     }
-    // Two-loop recursion: direction = -H grad (Nocedal & Wright 2006, algorithm 7.4).
-    direction = grad;
-    const std::size_t count = s_hist.size();
-    for (std::size_t j = 0; j < count; ++j) {
-      const std::size_t i = (oldest + count - 1 - j) % count;
-      alpha[i] = rho_hist[i] * dot(s_hist[i], direction);
-      for (std::size_t p = 0; p < n; ++p) direction[p] -= alpha[i] * y_hist[i][p];
-    }
-    double gamma = 1.0;
-    if (count > 0) {
-      const std::size_t last = (oldest + count - 1) % count;
-      gamma = dot(s_hist[last], y_hist[last]) / dot(y_hist[last], y_hist[last]);
-    }
-    for (auto& d : direction) d *= gamma;
-    for (std::size_t j = 0; j < count; ++j) {
-      const std::size_t i = (oldest + j) % count;
-      const double beta = rho_hist[i] * dot(y_hist[i], direction);
-      for (std::size_t p = 0; p < n; ++p) direction[p] += s_hist[i][p] * (alpha[i] - beta);
-    }
-    for (auto& d : direction) d = -d;
+    const std::size_t count = history.size();
+    history.direction(grad, direction);
     double slope = dot(grad, direction);
     if (!(slope < 0)) {  // not a descent direction: restart from steepest descent
-      s_hist.clear();
-      y_hist.clear();
-      rho_hist.clear();
-      oldest = 0;
+      history.clear();
       for (std::size_t p = 0; p < n; ++p) direction[p] = -grad[p];
       slope = dot(grad, direction);
     }
     // First step: unit length; later: the quasi-Newton step itself.
-    double step = count == 0 ? 1.0 / std::sqrt(dot(grad, grad)) : 1.0;
+    const double step = count == 0 ? 1.0 / std::sqrt(dot(grad, grad)) : 1.0;
     double next_value = 0;
-    bool accepted = false;
-    for (int ls = 0; ls < 60; ++ls) {
-      for (std::size_t p = 0; p < n; ++p) next[p] = theta[p] + step * direction[p];
-      next_value = objective(next, next_grad);
-      if (std::isfinite(next_value) && next_value <= value + 1e-4 * step * slope) {  // Armijo
-        accepted = true;
-        break;
-      }
-      step *= 0.5;
-    }
-    if (!accepted) break;  // no decrease possible at float64 precision: at the optimum
+    if (!armijo_search(objective, theta, value, direction, slope, step, next, next_value, next_grad))
+      break;  // no decrease possible at float64 precision: at the optimum
     std::vector<double> s(n), yv(n);
     for (std::size_t p = 0; p < n; ++p) {
       s[p] = next[p] - theta[p];
@@ -186,18 +232,7 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
     theta.swap(next);
     grad.swap(next_grad);
     value = next_value;
-    if (sy > 1e-12 * dot(yv, yv)) {  // curvature condition, else skip the pair
-      if (s_hist.size() < m) {
-        s_hist.push_back(std::move(s));
-        y_hist.push_back(std::move(yv));
-        rho_hist.push_back(1.0 / sy);
-      } else {
-        s_hist[oldest] = std::move(s);
-        y_hist[oldest] = std::move(yv);
-        rho_hist[oldest] = 1.0 / sy;
-        oldest = (oldest + 1) % m;
-      }
-    }
+    history.add(std::move(s), std::move(yv), sy);
     // Relative decrease at float64 resolution (scipy's L-BFGS-B uses ftol = 64 eps in sklearn).
     if (decrease <= 64 * std::numeric_limits<double>::epsilon() * std::max({std::abs(value), 1.0})) {
       out.converged = true;
