@@ -113,14 +113,10 @@ double jaccard(const std::vector<std::int32_t>& a, const std::vector<std::int32_
   return uni == 0 ? 1.0 : static_cast<double>(common) / static_cast<double>(uni);
 }
 
-}  // namespace
-
-std::vector<Pick> pick_to_label(std::span<const data::EncodedExample> pool,
-                                std::span<const ExamplePrediction> predictions,
-                                std::span<const std::vector<float>> labelled_features, const PickOptions& o) {
-  GYRE_CHECK(pool.size() == predictions.size(), "pick_to_label: one prediction per pool text");
-  // 1. Exact duplicates (same model input: token ids and, for a character encoder, the tokens'
-  // characters) collapse onto their first occurrence.
+// 1. Exact duplicates (same model input: token ids and, for a character encoder, the tokens'
+// characters) collapse onto their first occurrence; each kept text gets its uncertainty.
+std::vector<Pick> collapse_duplicates(std::span<const data::EncodedExample> pool,
+                                      std::span<const ExamplePrediction> predictions, const PickOptions& o) {
   std::map<std::vector<std::int32_t>, std::size_t> first_of;
   std::vector<Pick> unique;
   std::vector<std::int32_t> key;
@@ -141,19 +137,16 @@ std::vector<Pick> pick_to_label(std::span<const data::EncodedExample> pool,
     p.uncertainty = uncertainty(predictions[i].probs, o.multi_label, o.measure);
     unique.push_back(std::move(p));
   }
-  // 2. Order: random permutation, or most uncertain first (ties: pool order).
-  if (o.rule == PickRule::kRandom) {
-    Rng rng(o.seed);
-    rng.shuffle(std::span<Pick>(unique));
-  } else {
-    std::stable_sort(unique.begin(), unique.end(),
-                     [](const Pick& a, const Pick& b) { return a.uncertainty > b.uncertainty; });
-  }
-  // 3. Shortlist, with near-exact duplicates (token-set Jaccard) joining the earlier kept text.
-  const std::size_t want = o.rule == PickRule::kDiverse ? o.count * kShortlistFactor : o.count;
+  return unique;
+}
+
+// 3. The first `want` of the ordered texts, with near-exact duplicates (token-set Jaccard) joining
+// the earlier kept text.
+std::vector<Pick> shortlist_of(std::span<const data::EncodedExample> pool, std::vector<Pick>& ordered,
+                               std::size_t want) {
   std::vector<Pick> shortlist;
   std::vector<std::vector<std::int32_t>> sets;
-  for (auto& p : unique) {
+  for (auto& p : ordered) {
     if (shortlist.size() >= want) break;
     std::vector<std::int32_t> set = pool[p.index].ids;
     std::sort(set.begin(), set.end());
@@ -169,9 +162,13 @@ std::vector<Pick> pick_to_label(std::span<const data::EncodedExample> pool,
     sets.push_back(std::move(set));
     shortlist.push_back(std::move(p));
   }
-  if (o.rule != PickRule::kDiverse) return shortlist;
-  // 4. Greedy k-center over the shortlist (Sener & Savarese 2018, Algorithm 1): min_dist[i] is the
-  // distance of candidate i to the nearest labelled or picked text.
+  return shortlist;
+}
+
+// 4. Greedy k-center over the shortlist (Sener & Savarese 2018, Algorithm 1): min_dist[i] is the
+// distance of candidate i to the nearest labelled or picked text.
+std::vector<Pick> k_center(const std::vector<Pick>& shortlist, std::span<const ExamplePrediction> predictions,
+                           std::span<const std::vector<float>> labelled_features, std::size_t count) {
   std::vector<std::vector<float>> f;
   f.reserve(shortlist.size());
   for (const auto& p : shortlist) {
@@ -187,7 +184,7 @@ std::vector<Pick> pick_to_label(std::span<const data::EncodedExample> pool,
   }
   std::vector<Pick> out;
   std::vector<bool> taken(shortlist.size(), false);
-  while (out.size() < o.count && out.size() < shortlist.size()) {
+  while (out.size() < count && out.size() < shortlist.size()) {
     // Farthest candidate; with nothing labelled yet every distance is infinite and the first
     // (most uncertain) wins the tie.
     std::size_t best = shortlist.size();
@@ -201,6 +198,27 @@ std::vector<Pick> pick_to_label(std::span<const data::EncodedExample> pool,
       if (!taken[i]) min_dist[i] = std::min(min_dist[i], feature_distance(f[i], f[best]));
   }
   return out;
+}
+
+}  // namespace
+
+std::vector<Pick> pick_to_label(std::span<const data::EncodedExample> pool,
+                                std::span<const ExamplePrediction> predictions,
+                                std::span<const std::vector<float>> labelled_features, const PickOptions& o) {
+  GYRE_CHECK(pool.size() == predictions.size(), "pick_to_label: one prediction per pool text");
+  std::vector<Pick> unique = collapse_duplicates(pool, predictions, o);
+  // 2. Order: random permutation, or most uncertain first (ties: pool order).
+  if (o.rule == PickRule::kRandom) {
+    Rng rng(o.seed);
+    rng.shuffle(std::span<Pick>(unique));
+  } else {
+    std::stable_sort(unique.begin(), unique.end(),
+                     [](const Pick& a, const Pick& b) { return a.uncertainty > b.uncertainty; });
+  }
+  const std::size_t want = o.rule == PickRule::kDiverse ? o.count * kShortlistFactor : o.count;
+  std::vector<Pick> shortlist = shortlist_of(pool, unique, want);
+  if (o.rule != PickRule::kDiverse) return shortlist;
+  return k_center(shortlist, predictions, labelled_features, o.count);
 }
 
 }  // namespace gyre::train
