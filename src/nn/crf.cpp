@@ -24,6 +24,20 @@ inline double log_sum_exp(const double* v, std::size_t n) {
   return m + std::log(s);
 }
 
+// Gold tags [steps x batch], time-major: one per step, each in [0, n) on the valid steps.
+void check_gold(std::span<const std::int32_t> gold, std::span<const std::int32_t> lengths, std::size_t steps,
+                std::size_t batch, std::size_t n) {
+  GYRE_CHECK(gold.size() == steps * batch, "CRF: gold holds " + std::to_string(gold.size()) +
+                                               " tags, expected " + std::to_string(steps * batch));
+  for (std::size_t b = 0; b < batch; ++b)
+    for (std::size_t t = 0; t < static_cast<std::size_t>(lengths[b]); ++t) {
+      const std::int32_t g = gold[t * batch + b];
+      GYRE_CHECK(g >= 0 && static_cast<std::size_t>(g) < n,
+                 "CRF: gold tag " + std::to_string(g) + " of sequence " + std::to_string(b) + " at step " +
+                     std::to_string(t) + " is outside [0, " + std::to_string(n) + ")");
+    }
+}
+
 }  // namespace
 
 Crf::Crf(ParameterStore& store, std::size_t num_tags, const std::string& prefix) : num_tags_(num_tags) {
@@ -259,16 +273,7 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
                  std::span<const std::int32_t> gold, Matrix* d_emissions, float loss_scale) {
   const Shape shape = check_batch(emissions, lengths);
   const std::size_t n = num_tags_, batch = shape.batch;
-  GYRE_CHECK(gold.size() == shape.steps * batch, "CRF: gold holds " + std::to_string(gold.size()) +
-                                                     " tags, expected " +
-                                                     std::to_string(shape.steps * batch));
-  for (std::size_t b = 0; b < batch; ++b)
-    for (std::size_t t = 0; t < static_cast<std::size_t>(lengths[b]); ++t) {
-      const std::int32_t g = gold[t * batch + b];
-      GYRE_CHECK(g >= 0 && static_cast<std::size_t>(g) < n,
-                 "CRF: gold tag " + std::to_string(g) + " of sequence " + std::to_string(b) + " at step " +
-                     std::to_string(t) + " is outside [0, " + std::to_string(n) + ")");
-    }
+  check_gold(gold, lengths, shape.steps, batch, n);
   reserve(shape);
   load_scores(constrain_training_);
   run_forward(emissions, lengths, shape);
