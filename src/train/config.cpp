@@ -52,9 +52,8 @@ ChoiceOf<Metric> opt(Metric v, std::string help) {
 
 using C = TrainConfig;
 
-SettingTable<TrainConfig> make_table() {
-  std::vector<Setting<C>> t;
-  // ---- data
+// The input files and how they are read.
+void add_data_settings(std::vector<Setting<C>>& t) {
   t.push_back(
       text(&C::train, {.key = "train",
                        .group = kData,
@@ -102,7 +101,10 @@ SettingTable<TrainConfig> make_table() {
                               .help = "CSV files: the header name of the label column; JSON Lines: the key "
                                       "of the label (or array of labels)",
                               .value_name = "NAME"}));
-  // ---- tokenizer and vocabulary
+}
+
+// How texts become tokens, and the vocabulary.
+void add_tokenizer_settings(std::vector<Setting<C>>& t) {
   t.push_back(choice(&C::tokenizer,
                      {.key = "tokenizer", .group = kTokens, .help = "how texts are cut into tokens"},
                      {opt(text::TokenizerMode::kWords, "Unicode word boundaries (UAX #29)"),
@@ -139,7 +141,10 @@ SettingTable<TrainConfig> make_table() {
                        .help = "use this vocabulary file (written by gyre vocab with the same tokenizer "
                                "settings) instead of building one from the training file",
                        .value_name = "FILE"}));
-  // ---- model
+}
+
+// The network: cell, sizes, pooling, output, dropout.
+void add_model_settings(std::vector<Setting<C>>& t) {
   t.push_back(choice(&C::cell, {.key = "cell", .group = kModel, .help = "recurrent cell"},
                      {opt(nn::CellType::kLstm, "long short-term memory with forget gate"),
                       opt(nn::CellType::kGru, "gated recurrent unit")}));
@@ -192,6 +197,10 @@ SettingTable<TrainConfig> make_table() {
                                            .min = 0,
                                            .max = 1,
                                            .max_exclusive = true}));
+}
+
+// The character encoder and the token embeddings.
+void add_char_encoder_settings(std::vector<Setting<C>>& t) {
   t.push_back(auto_flag(&C::char_encoder, {.key = "char_encoder",
                                            .group = kModel,
                                            .help = "join a character CNN over each token's un-folded "
@@ -221,7 +230,10 @@ SettingTable<TrainConfig> make_table() {
   t.push_back(flag(
       &C::freeze_embeddings,
       {.key = "freeze_embeddings", .group = kModel, .help = "keep the embeddings fixed while training"}));
-  // ---- training
+}
+
+// Optimizer, learning-rate schedule, clipping and loss.
+void add_optimizer_settings(std::vector<Setting<C>>& t) {
   t.push_back(choice(
       &C::optimizer, {.key = "optimizer", .group = kTraining, .help = "optimizer"},
       {opt(optim::OptimizerKind::kSgd, "stochastic gradient descent with momentum"),
@@ -267,6 +279,10 @@ SettingTable<TrainConfig> make_table() {
                      {.key = "class_weights", .group = kTraining, .help = "loss weight per label"},
                      {opt(ClassWeights::kNone, "every label weighs the same"),
                       opt(ClassWeights::kBalanced, "inversely proportional to the label's frequency")}));
+}
+
+// Batches, epochs, early stopping and sequence lengths.
+void add_epoch_settings(std::vector<Setting<C>>& t) {
   t.push_back(integer(&C::batch_size, {.key = "batch_size",
                                        .group = kTraining,
                                        .help = "texts per batch (training: per optimizer step)",
@@ -303,13 +319,28 @@ SettingTable<TrainConfig> make_table() {
                                        .help = "cut training texts to this many tokens",
                                        .min = 0,
                                        .note = "0 = keep all"}));
-  // ---- machine
+}
+
+// Seed and threads.
+void add_machine_settings(std::vector<Setting<C>>& t) {
   t.push_back(integer(&C::seed, {.key = "seed",
                                  .group = kMachine,
                                  .help = "random seed (same seed and --threads: identical weights)",
                                  .min = 0}));
   t.push_back(integer(&C::threads,
                       {.key = "threads", .group = kMachine, .help = "worker threads", .min = 1, .max = 256}));
+}
+
+// Every training setting, group by group (the order of the table is kept).
+SettingTable<TrainConfig> make_table() {
+  std::vector<Setting<C>> t;
+  add_data_settings(t);
+  add_tokenizer_settings(t);
+  add_model_settings(t);
+  add_char_encoder_settings(t);
+  add_optimizer_settings(t);
+  add_epoch_settings(t);
+  add_machine_settings(t);
   return SettingTable<TrainConfig>(std::move(t));
 }
 
