@@ -61,6 +61,27 @@ std::size_t LstmLayer::workspace_capacity() const noexcept {
          w.u_step.capacity_bytes() + w.u_back.capacity_bytes();
 }
 
+namespace {
+
+// The state after each sequence's last valid step (the initial state for an empty sequence), in
+// input order: `initial` [B x H] in sorted order, `states` [N x H] in packed rows (see
+// detail/sequence_layout.hpp). Nothing when `out_state` is null.
+void final_state(const detail::SequenceLayout& lay, const MatrixMap& initial, const MatrixMap& states,
+                 Matrix* out_state) {
+  if (out_state == nullptr) return;
+  const Eigen::Index B = initial.rows(), H = initial.cols();
+  if (out_state->rows() != B || out_state->cols() != H) out_state->resize(B, H);
+  for (int j = 0; j < B; ++j) {
+    const int b = lay.sequence(j), len = lay.length(j);
+    if (len == 0)
+      out_state->row(b) = initial.row(j);
+    else
+      out_state->row(b) = states.row(lay.offset(len - 1) + j);
+  }
+}
+
+}  // namespace
+
 void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
                         const Matrix* h0, const Matrix* c0, Matrix* h_final, Matrix* c_final) {
   const Eigen::Index B = detail::check_batch("LstmLayer::forward", x.rows(), T, lengths, 0);
@@ -136,24 +157,8 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
 
   out.setZero();  // padding rows
   for (Eigen::Index p = 0; p < N; ++p) out.row(lay.source(p)) = hs.row(p);
-  if (h_final != nullptr && (h_final->rows() != B || h_final->cols() != H)) h_final->resize(B, H);
-  if (c_final != nullptr && (c_final->rows() != B || c_final->cols() != H)) c_final->resize(B, H);
-  for (int j = 0; j < B; ++j) {
-    const int b = lay.sequence(j), len = lay.length(j);
-    const Eigen::Index last = len == 0 ? -1 : lay.offset(len - 1) + j;
-    if (h_final != nullptr) {
-      if (last < 0)
-        h_final->row(b) = hi.row(j);
-      else
-        h_final->row(b) = hs.row(last);
-    }
-    if (c_final != nullptr) {
-      if (last < 0)
-        c_final->row(b) = ci.row(j);
-      else
-        c_final->row(b) = cs.row(last);
-    }
-  }
+  final_state(lay, hi, hs, h_final);
+  final_state(lay, ci, cs, c_final);
 }
 
 void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx, Matrix* d_h0,
