@@ -259,3 +259,16 @@ TEST_CASE("labelling trial report: one line per rule (issue 17)", "[report]") {
   REQUIRE(html.find("<td class=\"k\">diverse</td><td>0.5000</td><td>0.7000</td><td>0.7500</td>") !=
           std::string::npos);
 }
+
+TEST_CASE("report: the last x tick label of the cost chart ends at the chart's right edge", "[report]") {
+  // Latencies near 2 us give an axis 0 .. 0.0025 ms in steps of 0.0005: the last label, "0.0025",
+  // is wider than twice the 16 px right margin, so centred on its tick it ran out of the chart
+  // (headless Chromium's layout check caught it, tools/check_report_layout.py).
+  const std::string svg = front_chart_svg("Test accuracy vs batch-1 latency", "ms/text", "accuracy",
+                                          {"lstm-h8", "gru-h8"}, {0.0021, 0.0019}, {0.8, 0.82},
+                                          {"#1f5f99", "#c0562a"}, {false, true});
+  // x = kWidth - kRight = 520 - 16 (the chart's right edge).
+  REQUIRE(svg.find("x=\"504.0\" y=\"268\" text-anchor=\"end\">0.0025</text>") != std::string::npos);
+  // Every other x tick stays centred on its tick.
+  REQUIRE(count(svg, "y=\"268\" text-anchor=\"middle\">") == 5);
+}
