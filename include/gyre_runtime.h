@@ -101,6 +101,36 @@ gyre_status gyre_tag_token_bytes(const gyre_context* context, size_t i, size_t* 
 gyre_status gyre_tag_span_bytes(const gyre_context* context, size_t i, size_t* byte_begin,
                                 size_t* byte_end) GYRE_NOEXCEPT;
 
+/* Batched calls: n texts (texts[i], lengths[i] bytes; a text may be empty, with texts[i] NULL
+ * when lengths[i] is 0) go through the model together. Text i's results equal what gyre_classify
+ * / gyre_tag give for it, within 1e-5 (the same tokens, tags, spans and byte offsets; the
+ * context's calibration setting applies). On larger batches this is faster per text than n single
+ * calls: the weights are read once per time step for the whole batch. Read the results with the
+ * accessors below; they stay valid until the next batched call of either kind on the context.
+ * Once the context has seen its largest batch these calls allocate nothing more themselves (the
+ * tokenizer may). On failure the message names the text ("text 3: invalid UTF-8 at byte 2 ..."). */
+gyre_status gyre_classify_batch(gyre_context* context, const char* const* texts, const size_t* lengths,
+                                size_t n) GYRE_NOEXCEPT;
+/* Text i of the last gyre_classify_batch: probabilities[0..count) in label order, best = arg-max
+ * label. GYRE_ERROR if there was no such call or i >= n. */
+gyre_status gyre_classify_batch_result(const gyre_context* context, size_t i, const float** probabilities,
+                                       size_t* count, size_t* best) GYRE_NOEXCEPT;
+gyre_status gyre_tag_batch(gyre_context* context, const char* const* texts, const size_t* lengths,
+                           size_t n) GYRE_NOEXCEPT;
+/* Text `text` of the last gyre_tag_batch: its numbers of tokens and spans (GYRE_ERROR if there was
+ * no such call or text >= n); then its token i, span i and their bytes in that text, as
+ * gyre_tag_token, gyre_tag_span, gyre_tag_token_bytes and gyre_tag_span_bytes give them for one. */
+gyre_status gyre_tag_batch_counts(const gyre_context* context, size_t text, size_t* token_count,
+                                  size_t* span_count) GYRE_NOEXCEPT;
+const char* gyre_tag_batch_token(const gyre_context* context, size_t text, size_t i,
+                                 size_t* label) GYRE_NOEXCEPT;
+const char* gyre_tag_batch_span(const gyre_context* context, size_t text, size_t i, size_t* begin,
+                                size_t* end) GYRE_NOEXCEPT;
+gyre_status gyre_tag_batch_token_bytes(const gyre_context* context, size_t text, size_t i, size_t* byte_begin,
+                                       size_t* byte_end) GYRE_NOEXCEPT;
+gyre_status gyre_tag_batch_span_bytes(const gyre_context* context, size_t text, size_t i, size_t* byte_begin,
+                                      size_t* byte_end) GYRE_NOEXCEPT;
+
 /* Step-wise (unidirectional models): reset, then push tokens (not text) one at a time; the
  * returned distribution has gyre_model_label_count() entries. */
 gyre_status gyre_stream_reset(gyre_context* context) GYRE_NOEXCEPT;

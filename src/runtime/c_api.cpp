@@ -9,6 +9,7 @@
 #include <new>
 #include <string>
 #include <string_view>
+#include <vector>
 
 #include "gyre/runtime/model.hpp"
 
@@ -19,6 +20,11 @@ struct gyre_model {
 struct gyre_context {
   gyre::runtime::Context context;
   const gyre::runtime::TagResult* last_tag = nullptr;
+  // Batched calls: the texts as views (kept, so a repeated batch allocates nothing) and the
+  // results of the last successful call.
+  std::vector<std::string_view> views = {};
+  gyre::Span<const gyre::runtime::ClassifyResult> classify_batch = {};
+  gyre::Span<const gyre::runtime::TagResult> tag_batch = {};
 };
 
 namespace {
@@ -68,6 +74,36 @@ gyre_status out_of_range(const char* function, const char* what, std::size_t i) 
   std::snprintf(g_last_error, sizeof g_last_error, "%s: no %s %zu in the last gyre_tag call", function, what,
                 i);
   return GYRE_ERROR;
+}
+
+gyre_status no_batch_text(const char* function, const char* call, std::size_t text) noexcept {
+  std::snprintf(g_last_error, sizeof g_last_error, "%s: no text %zu in the last %s call", function, text,
+                call);
+  return GYRE_ERROR;
+}
+
+gyre_status no_batch_item(const char* function, const char* what, std::size_t i, std::size_t text) noexcept {
+  std::snprintf(g_last_error, sizeof g_last_error,
+                "%s: no %s %zu in text %zu of the last gyre_tag_batch call", function, what, i, text);
+  return GYRE_ERROR;
+}
+
+/// The texts of a batched call as views in context->views; false (message set) on NULL misuse.
+bool batch_views(gyre_context* context, const char* const* texts, const size_t* lengths, size_t n) noexcept {
+  if (n > 0 && (!texts || !lengths)) {
+    null_argument("texts and lengths (with n > 0)");
+    return false;
+  }
+  for (size_t i = 0; i < n; ++i)
+    if (!texts[i] && lengths[i] > 0) {
+      std::snprintf(g_last_error, sizeof g_last_error, "text %zu: NULL with length %zu", i, lengths[i]);
+      return false;
+    }
+  return guarded([&] {
+           context->views.resize(n);
+           for (size_t i = 0; i < n; ++i)
+             context->views[i] = std::string_view(texts[i] ? texts[i] : "", lengths[i]);
+         }) == GYRE_OK;
 }
 
 }  // namespace
@@ -199,6 +235,88 @@ gyre_status gyre_tag_span_bytes(const gyre_context* context, size_t i, size_t* b
     return out_of_range("gyre_tag_span_bytes", "span", i);
   *byte_begin = context->last_tag->spans[i].byte_begin;
   *byte_end = context->last_tag->spans[i].byte_end;
+  return GYRE_OK;
+}
+
+gyre_status gyre_classify_batch(gyre_context* context, const char* const* texts, const size_t* lengths,
+                                size_t n) noexcept {
+  if (!context) return null_argument("context");
+  context->classify_batch = {};  // either call may reuse the other's buffers
+  context->tag_batch = {};
+  if (!batch_views(context, texts, lengths, n)) return GYRE_ERROR;
+  return guarded([&] { context->classify_batch = context->context.classify_batch(context->views); });
+}
+
+gyre_status gyre_classify_batch_result(const gyre_context* context, size_t i, const float** probabilities,
+                                       size_t* count, size_t* best) noexcept {
+  if (!context || !probabilities || !count || !best)
+    return null_argument("context, probabilities, count and best");
+  if (i >= context->classify_batch.size())
+    return no_batch_text("gyre_classify_batch_result", "gyre_classify_batch", i);
+  const auto& r = context->classify_batch[i];
+  *probabilities = r.probabilities.data();
+  *count = r.probabilities.size();
+  *best = r.best;
+  return GYRE_OK;
+}
+
+gyre_status gyre_tag_batch(gyre_context* context, const char* const* texts, const size_t* lengths,
+                           size_t n) noexcept {
+  if (!context) return null_argument("context");
+  context->classify_batch = {};  // either call may reuse the other's buffers
+  context->tag_batch = {};
+  if (!batch_views(context, texts, lengths, n)) return GYRE_ERROR;
+  return guarded([&] { context->tag_batch = context->context.tag_batch(context->views); });
+}
+
+gyre_status gyre_tag_batch_counts(const gyre_context* context, size_t text, size_t* token_count,
+                                  size_t* span_count) noexcept {
+  if (!context || !token_count || !span_count) return null_argument("context, token_count and span_count");
+  if (text >= context->tag_batch.size())
+    return no_batch_text("gyre_tag_batch_counts", "gyre_tag_batch", text);
+  *token_count = context->tag_batch[text].tags.size();
+  *span_count = context->tag_batch[text].spans.size();
+  return GYRE_OK;
+}
+
+const char* gyre_tag_batch_token(const gyre_context* context, size_t text, size_t i, size_t* label) noexcept {
+  if (!context || text >= context->tag_batch.size() || i >= context->tag_batch[text].tokens.size())
+    return nullptr;
+  if (label) *label = context->tag_batch[text].tags[i];
+  return context->tag_batch[text].tokens[i].c_str();
+}
+
+const char* gyre_tag_batch_span(const gyre_context* context, size_t text, size_t i, size_t* begin,
+                                size_t* end) noexcept {
+  if (!context || text >= context->tag_batch.size() || i >= context->tag_batch[text].spans.size())
+    return nullptr;
+  const auto& s = context->tag_batch[text].spans[i];
+  if (begin) *begin = s.begin;
+  if (end) *end = s.end;
+  return s.type.data();  // views a std::string held by the model: NUL-terminated
+}
+
+gyre_status gyre_tag_batch_token_bytes(const gyre_context* context, size_t text, size_t i, size_t* byte_begin,
+                                       size_t* byte_end) noexcept {
+  if (!context || !byte_begin || !byte_end) return null_argument("context, byte_begin and byte_end");
+  if (text >= context->tag_batch.size())
+    return no_batch_text("gyre_tag_batch_token_bytes", "gyre_tag_batch", text);
+  const auto& r = context->tag_batch[text];
+  if (i >= r.token_bytes.size()) return no_batch_item("gyre_tag_batch_token_bytes", "token", i, text);
+  *byte_begin = r.token_bytes[i].begin;
+  *byte_end = r.token_bytes[i].end;
+  return GYRE_OK;
+}
+
+gyre_status gyre_tag_batch_span_bytes(const gyre_context* context, size_t text, size_t i, size_t* byte_begin,
+                                      size_t* byte_end) noexcept {
+  if (!context || !byte_begin || !byte_end) return null_argument("context, byte_begin and byte_end");
+  if (text >= context->tag_batch.size())
+    return no_batch_text("gyre_tag_batch_span_bytes", "gyre_tag_batch", text);
+  const auto& r = context->tag_batch[text];
+  if (i >= r.spans.size()) return no_batch_item("gyre_tag_batch_span_bytes", "span", i, text);
+  *byte_begin = r.spans[i].byte_begin;
+  *byte_end = r.spans[i].byte_end;
   return GYRE_OK;
 }
 

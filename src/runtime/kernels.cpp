@@ -455,10 +455,41 @@ GYRE_AVX512 void matmul_packed_avx512(const W* p, std::size_t rows, std::size_t 
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   const std::size_t stride = kPanelRows * cols;
   std::size_t t0 = 0;
-  // Several activation rows (time steps): each weight vector loaded once feeds four rows.
+  // Several activation rows (time steps, or texts of a batch): each weight vector loaded once
+  // feeds four rows; two panels per pass give eight independent FMA chains.
   for (; t0 + 4 <= n; t0 += 4) {
     const float* x0 = x + t0 * cols;
-    for (std::size_t q = 0; q < panels; ++q) {
+    std::size_t q = 0;
+    for (; q + 2 <= panels; q += 2) {
+      const W* pq = p + q * stride;
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
+      __m512 b0 = _mm512_setzero_ps(), b1 = _mm512_setzero_ps(), b2 = _mm512_setzero_ps(), b3 = _mm512_setzero_ps();
+      for (std::size_t c = 0; c < cols; ++c) {
+        const __m512 w0 = load(pq + c * kPanelRows, all);
+        const __m512 w1 = load(pq + stride + c * kPanelRows, all);
+        const __m512 x0v = _mm512_set1_ps(x0[c]), x1v = _mm512_set1_ps(x0[cols + c]);
+        const __m512 x2v = _mm512_set1_ps(x0[2 * cols + c]), x3v = _mm512_set1_ps(x0[3 * cols + c]);
+        a0 = _mm512_fmadd_ps(w0, x0v, a0);
+        b0 = _mm512_fmadd_ps(w1, x0v, b0);
+        a1 = _mm512_fmadd_ps(w0, x1v, a1);
+        b1 = _mm512_fmadd_ps(w1, x1v, b1);
+        a2 = _mm512_fmadd_ps(w0, x2v, a2);
+        b2 = _mm512_fmadd_ps(w1, x2v, b2);
+        a3 = _mm512_fmadd_ps(w0, x3v, a3);
+        b3 = _mm512_fmadd_ps(w1, x3v, b3);
+      }
+      const std::size_t base = q * kPanelRows;  // panel q is full: panel q + 1 follows it
+      _mm512_storeu_ps(y + t0 * ldy + base, a0);
+      _mm512_storeu_ps(y + (t0 + 1) * ldy + base, a1);
+      _mm512_storeu_ps(y + (t0 + 2) * ldy + base, a2);
+      _mm512_storeu_ps(y + (t0 + 3) * ldy + base, a3);
+      const auto m = static_cast<__mmask16>((1U << std::min(kPanelRows, rows - base - kPanelRows)) - 1U);
+      _mm512_mask_storeu_ps(y + t0 * ldy + base + kPanelRows, m, b0);
+      _mm512_mask_storeu_ps(y + (t0 + 1) * ldy + base + kPanelRows, m, b1);
+      _mm512_mask_storeu_ps(y + (t0 + 2) * ldy + base + kPanelRows, m, b2);
+      _mm512_mask_storeu_ps(y + (t0 + 3) * ldy + base + kPanelRows, m, b3);
+    }
+    for (; q < panels; ++q) {
       const W* pq = p + q * stride;
       __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
       for (std::size_t c = 0; c < cols; ++c) {
@@ -589,59 +620,85 @@ GYRE_VNNI void matmul_i8_vnni(const std::int8_t* w, const float* w_scale, const 
 }
 
 // Packed weights: 16 rows x 4 columns per 64-byte operand, the 4 activation bytes broadcast;
-// four panels per pass keep four independent dpbusd chains. No horizontal sums.
-GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale, const std::int32_t* w_sum,
-                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
-                                     std::size_t ldy) {
+// four panels per pass keep four independent dpbusd chains per activation row, and R rows
+// (time steps, or texts of a batch) share each weight load. No horizontal sums; the integer sums
+// are exact, so a row's result is the same for any R.
+template <std::size_t R>
+GYRE_VNNI inline void packed_i8_vnni_rows(const std::int8_t* p, const float* w_scale, const std::int32_t* w_sum,
+                                          std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t t0,
+                                          float* y, std::size_t ldy) {
   const std::size_t panels = (rows + 15) / 16;
   const std::size_t groups = (cols + 3) / 4;
   const std::size_t full = cols / 4;
   const std::size_t stride = groups * 64;
   const __m512i c128 = _mm512_set1_epi32(128);
-  for (std::size_t t = 0; t < n; ++t) {
-    const std::uint8_t* xt = x.xu + t * cols;
-    std::uint32_t tail = 0x80808080U;  // padded columns: any value (their weights are 0)
-    for (std::size_t k = 0; k < cols - full * 4; ++k) tail = (tail & ~(0xFFU << (8 * k))) | (std::uint32_t{xt[full * 4 + k]} << (8 * k));
-    const __m512 xs = _mm512_set1_ps(x.scale[t]);
-    for (std::size_t q = 0; q < panels; q += 4) {
-      const std::size_t np = std::min<std::size_t>(4, panels - q);
-      const std::int8_t* p0 = p + q * stride;
-      __m512i a[4] = {_mm512_setzero_si512(), _mm512_setzero_si512(), _mm512_setzero_si512(), _mm512_setzero_si512()};
-      if (np == 4) {
-        for (std::size_t g = 0; g < full; ++g) {
+  const std::uint8_t* xt[R];
+  std::uint32_t tail[R];
+  for (std::size_t r = 0; r < R; ++r) {
+    xt[r] = x.xu + (t0 + r) * cols;
+    tail[r] = 0x80808080U;  // padded columns: any value (their weights are 0)
+    for (std::size_t k = 0; k < cols - full * 4; ++k)
+      tail[r] = (tail[r] & ~(0xFFU << (8 * k))) | (std::uint32_t{xt[r][full * 4 + k]} << (8 * k));
+  }
+  for (std::size_t q = 0; q < panels; q += 4) {
+    const std::size_t np = std::min<std::size_t>(4, panels - q);
+    const std::int8_t* p0 = p + q * stride;
+    __m512i a[R][4];
+    for (std::size_t r = 0; r < R; ++r)
+      for (std::size_t k = 0; k < 4; ++k) a[r][k] = _mm512_setzero_si512();
+    if (np == 4) {
+      for (std::size_t g = 0; g < full; ++g) {
+        const std::int8_t* pg = p0 + g * 64;
+        const __m512i w0 = _mm512_loadu_si512(pg), w1 = _mm512_loadu_si512(pg + stride);
+        const __m512i w2 = _mm512_loadu_si512(pg + 2 * stride), w3 = _mm512_loadu_si512(pg + 3 * stride);
+        for (std::size_t r = 0; r < R; ++r) {
           std::uint32_t xb;
-          std::memcpy(&xb, xt + 4 * g, 4);
+          std::memcpy(&xb, xt[r] + 4 * g, 4);
           const __m512i xv = _mm512_set1_epi32(static_cast<int>(xb));
-          const std::int8_t* pg = p0 + g * 64;
-          a[0] = _mm512_dpbusd_epi32(a[0], xv, _mm512_loadu_si512(pg));
-          a[1] = _mm512_dpbusd_epi32(a[1], xv, _mm512_loadu_si512(pg + stride));
-          a[2] = _mm512_dpbusd_epi32(a[2], xv, _mm512_loadu_si512(pg + 2 * stride));
-          a[3] = _mm512_dpbusd_epi32(a[3], xv, _mm512_loadu_si512(pg + 3 * stride));
-        }
-      } else {
-        for (std::size_t g = 0; g < full; ++g) {
-          std::uint32_t xb;
-          std::memcpy(&xb, xt + 4 * g, 4);
-          const __m512i xv = _mm512_set1_epi32(static_cast<int>(xb));
-          for (std::size_t k = 0; k < np; ++k) a[k] = _mm512_dpbusd_epi32(a[k], xv, _mm512_loadu_si512(p0 + k * stride + g * 64));
+          a[r][0] = _mm512_dpbusd_epi32(a[r][0], xv, w0);
+          a[r][1] = _mm512_dpbusd_epi32(a[r][1], xv, w1);
+          a[r][2] = _mm512_dpbusd_epi32(a[r][2], xv, w2);
+          a[r][3] = _mm512_dpbusd_epi32(a[r][3], xv, w3);
         }
       }
-      if (full < groups) {
-        const __m512i xv = _mm512_set1_epi32(static_cast<int>(tail));
+    } else {
+      for (std::size_t g = 0; g < full; ++g)
+        for (std::size_t r = 0; r < R; ++r) {
+          std::uint32_t xb;
+          std::memcpy(&xb, xt[r] + 4 * g, 4);
+          const __m512i xv = _mm512_set1_epi32(static_cast<int>(xb));
+          for (std::size_t k = 0; k < np; ++k)
+            a[r][k] = _mm512_dpbusd_epi32(a[r][k], xv, _mm512_loadu_si512(p0 + k * stride + g * 64));
+        }
+    }
+    if (full < groups)
+      for (std::size_t r = 0; r < R; ++r) {
+        const __m512i xv = _mm512_set1_epi32(static_cast<int>(tail[r]));
         for (std::size_t k = 0; k < np; ++k)
-          a[k] = _mm512_dpbusd_epi32(a[k], xv, _mm512_loadu_si512(p0 + k * stride + full * 64));
+          a[r][k] = _mm512_dpbusd_epi32(a[r][k], xv, _mm512_loadu_si512(p0 + k * stride + full * 64));
       }
-      for (std::size_t k = 0; k < np; ++k) {
-        const std::size_t base = (q + k) * 16;
-        const std::size_t valid = std::min<std::size_t>(16, rows - base);
-        const __mmask16 m = static_cast<__mmask16>((1U << valid) - 1U);
-        const __m512i sums = _mm512_maskz_loadu_epi32(m, w_sum + base);
-        const __m512 ws = _mm512_maskz_loadu_ps(m, w_scale + base);
-        const __m512i exact = _mm512_sub_epi32(a[k], _mm512_mullo_epi32(sums, c128));
-        _mm512_mask_storeu_ps(y + t * ldy + base, m, _mm512_mul_ps(_mm512_cvtepi32_ps(exact), _mm512_mul_ps(ws, xs)));
+    for (std::size_t k = 0; k < np; ++k) {
+      const std::size_t base = (q + k) * 16;
+      const std::size_t valid = std::min<std::size_t>(16, rows - base);
+      const __mmask16 m = static_cast<__mmask16>((1U << valid) - 1U);
+      const __m512i corr = _mm512_mullo_epi32(_mm512_maskz_loadu_epi32(m, w_sum + base), c128);
+      const __m512 ws = _mm512_maskz_loadu_ps(m, w_scale + base);
+      for (std::size_t r = 0; r < R; ++r) {
+        const __m512i exact = _mm512_sub_epi32(a[r][k], corr);
+        const __m512 xs = _mm512_set1_ps(x.scale[t0 + r]);
+        _mm512_mask_storeu_ps(y + (t0 + r) * ldy + base, m,
+                              _mm512_mul_ps(_mm512_cvtepi32_ps(exact), _mm512_mul_ps(ws, xs)));
       }
     }
   }
+}
+
+GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale, const std::int32_t* w_sum,
+                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
+                                     std::size_t ldy) {
+  std::size_t t = 0;
+  for (; t + 4 <= n; t += 4) packed_i8_vnni_rows<4>(p, w_scale, w_sum, rows, cols, x, t, y, ldy);
+  for (; t < n; ++t) packed_i8_vnni_rows<1>(p, w_scale, w_sum, rows, cols, x, t, y, ldy);
 }
 
 constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni, sigmoid_avx512,

@@ -38,6 +38,14 @@ static_assert(noexcept(gyre_stream_reset(nullptr)));
 static_assert(noexcept(gyre_stream_push(nullptr, nullptr, 0, nullptr)));
 static_assert(noexcept(gyre_explain(nullptr, nullptr, 0, 0, nullptr, nullptr)));
 static_assert(noexcept(gyre_token(nullptr, 0)));
+static_assert(noexcept(gyre_classify_batch(nullptr, nullptr, nullptr, 0)));
+static_assert(noexcept(gyre_classify_batch_result(nullptr, 0, nullptr, nullptr, nullptr)));
+static_assert(noexcept(gyre_tag_batch(nullptr, nullptr, nullptr, 0)));
+static_assert(noexcept(gyre_tag_batch_counts(nullptr, 0, nullptr, nullptr)));
+static_assert(noexcept(gyre_tag_batch_token(nullptr, 0, 0, nullptr)));
+static_assert(noexcept(gyre_tag_batch_span(nullptr, 0, 0, nullptr, nullptr)));
+static_assert(noexcept(gyre_tag_batch_token_bytes(nullptr, 0, 0, nullptr, nullptr)));
+static_assert(noexcept(gyre_tag_batch_span_bytes(nullptr, 0, 0, nullptr, nullptr)));
 
 namespace {
 int failures = 0;
@@ -83,6 +91,15 @@ int main(int argc, char** argv) {
   size_t tokens = 0, spans = 0;
   CHECK(gyre_tag(ctx, "t2", 2, &tokens, &spans) == GYRE_ERROR);
   CHECK(gyre_tag_token(ctx, 0, nullptr) == nullptr);
+  // A batched call: the runtime's exception for ill-formed UTF-8 in text 1 arrives as a status.
+  const char* batch[2] = {"t16 t19", "t\xC3"};
+  const size_t batch_len[2] = {7, 2};
+  CHECK(gyre_classify_batch(ctx, batch, batch_len, 2) == GYRE_ERROR);
+  CHECK(contains(gyre_last_error(), "text 1: invalid UTF-8 at byte 2"));
+  CHECK(gyre_classify_batch(ctx, batch, batch_len, 1) == GYRE_OK);
+  CHECK(gyre_classify_batch_result(ctx, 0, &p, &n, &best) == GYRE_OK);
+  // ref: tests/fixtures/runtime/torch_expected.tsv (python3-torch float64), "t16 t19".
+  CHECK(n == 3 && std::fabs(p[1] - 0.455523937) <= 1e-5 && best == 1);
   std::vector<char> damaged = bytes;
   damaged[damaged.size() / 2] = static_cast<char>(damaged[damaged.size() / 2] ^ 0x5A);
   gyre_model* bad = nullptr;

@@ -4,6 +4,7 @@
 
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <atomic>
 #include <cmath>
 #include <cstdlib>
@@ -177,7 +178,7 @@ TEST_CASE("packed f32 and f16 kernels equal the row-major portable product", "[r
     const rd::Kernels& k = rd::kernels_for(isa);
     for (std::size_t rows : {1u, 15u, 16u, 33u, 64u, 80u, 512u})
       for (std::size_t cols : {1u, 3u, 64u, 129u})
-        for (std::size_t n : {1u, 3u}) {
+        for (std::size_t n : {1u, 3u, 4u, 9u}) {
           INFO(k.name << " rows=" << rows << " cols=" << cols << " n=" << n);
           std::vector<float> w(rows * cols), x(n * cols), y_ref(n * rows), y(n * rows, -7.0f),
               abs_sum(n * rows, 0.0f);
@@ -202,6 +203,65 @@ TEST_CASE("packed f32 and f16 kernels equal the row-major portable product", "[r
           for (std::size_t i = 0; i < y.size(); ++i)
             REQUIRE_THAT(y[i], WithinAbs(y_ref[i], 1e-6 * (abs_sum[i] + 1.0f)));
         }
+  }
+}
+
+// The batched calls rely on this: every output row of a product is summed in the same order
+// whether the call has one activation row or many, so a text's result never depends on the other
+// texts of its batch. Checked for exact equality, per instruction set, across the kernels'
+// multi-row blocks and tails.
+TEST_CASE("each output row is the same for any number of rows in the call", "[runtime][kernels]") {
+  std::mt19937 rng(4242);
+  std::uniform_real_distribution<float> u(-1.0f, 1.0f);
+  for (rd::Isa isa : {rd::Isa::kPortable, rd::Isa::kAvx2, rd::Isa::kAvx512, rd::Isa::kAvx512Vnni,
+                      rd::Isa::kNeon, rd::Isa::kNeonSdot}) {
+    if (!rd::isa_supported(isa)) continue;
+    const rd::Kernels& k = rd::kernels_for(isa);
+    for (std::size_t rows : {16u, 40u, 80u, 112u, 512u})
+      for (std::size_t cols : {3u, 20u, 64u, 130u}) {
+        const std::size_t n = 13;  // blocks of 8 and 4 rows plus a tail
+        std::vector<float> w(rows * cols), x(n * cols), y_all(n * rows), y_one(rows);
+        for (auto& v : w) v = u(rng);
+        for (auto& v : x) v = u(rng);
+        std::vector<float> packed(rd::packed_size_f32(rows, cols));
+        rd::pack_f32(w.data(), rows, cols, packed.data());
+        std::vector<std::uint16_t> wh(w.size()), packed_h(rd::packed_size_f32(rows, cols));
+        for (std::size_t i = 0; i < w.size(); ++i) wh[i] = rd::float_to_half(w[i]);
+        rd::pack_f16(wh.data(), rows, cols, packed_h.data());
+        std::vector<std::int8_t> wq(w.size());
+        std::vector<float> ws(rows, 0.01f);
+        std::vector<std::int32_t> wsum(rows, 0);
+        for (std::size_t i = 0; i < w.size(); ++i) {
+          wq[i] = static_cast<std::int8_t>(std::lround(w[i] * 127.0f));
+          wsum[i / cols] += wq[i];
+        }
+        std::vector<std::int8_t> packed_q(rd::packed_size_i8(rows, cols));
+        rd::pack_i8(wq.data(), rows, cols, packed_q.data());
+        std::vector<std::int8_t> xs(n * cols);
+        std::vector<std::uint8_t> xu(n * cols);
+        std::vector<float> xscale(n);
+        rd::quantize_rows(x.data(), n, cols, xs.data(), xu.data(), xscale.data());
+        for (int kind = 0; kind < 3; ++kind) {
+          if (kind == 2 && k.matmul_packed_i8 == nullptr) continue;
+          auto run = [&](std::size_t first, std::size_t count, float* y) {
+            if (kind == 0)
+              k.matmul_packed_f32(packed.data(), rows, cols, x.data() + first * cols, count, y, rows);
+            if (kind == 1)
+              k.matmul_packed_f16(packed_h.data(), rows, cols, x.data() + first * cols, count, y, rows);
+            if (kind == 2)
+              k.matmul_packed_i8(packed_q.data(), ws.data(), wsum.data(), rows, cols,
+                                 {xs.data() + first * cols, xu.data() + first * cols, xscale.data() + first},
+                                 count, y, rows);
+          };
+          run(0, n, y_all.data());
+          for (std::size_t t = 0; t < n; ++t) {
+            run(t, 1, y_one.data());
+            INFO(k.name << " kind " << kind << " rows=" << rows << " cols=" << cols << " row " << t);
+            REQUIRE(std::equal(y_one.begin(), y_one.end(),
+                               y_all.begin() + static_cast<std::ptrdiff_t>(t * rows)));
+          }
+        }
+      }
   }
 }
 
