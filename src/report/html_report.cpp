@@ -709,8 +709,8 @@ void dev_mistakes_section(std::ostringstream& b, const json& metrics) {
   }
 }
 
-void settings_section(std::ostringstream& b, const json& config) {
-  b << "<h2>Settings</h2>\n<table><tr><th class=\"k\">setting</th><th class=\"k\">value</th></tr>\n";
+void settings_section(std::ostringstream& b, const json& config, const char* heading = "Settings") {
+  b << "<h2>" << heading << "</h2>\n<table><tr><th class=\"k\">setting</th><th class=\"k\">value</th></tr>\n";
   for (const auto& [k, v] : config.items())
     b << "<tr><td class=\"k\">" << html_escape(k) << "</td><td class=\"k\">" << html_escape(value_text(v))
       << "</td></tr>\n";
@@ -748,17 +748,16 @@ std::string run_report_html(const fs::path& run_dir) {
   return page(title, b.str());
 }
 
-std::string compare_report_html(const fs::path& compare_dir) {
-  const fs::path path = compare_dir / "compare.json";
-  const json c = read_json_file(path);
-  if (!c.is_object() || c.value("format", "") != "gyre-compare" || !c.contains("configs") ||
-      !c["configs"].is_array())
-    throw FormatError(path.string(), "not a gyre compare summary (format \"gyre-compare\" with \"configs\")");
-  const std::string metric = c.value("metric", "score");
-  const std::string best = c.contains("best") && c["best"].is_string() ? c["best"].get<std::string>() : "";
-  const bool with_test = c.contains("test") && c["test"].is_string();
-  const std::string title = "gyre comparison: " + compare_dir.filename().string();
-  std::ostringstream b;
+namespace {
+
+// One hue per cell type; hidden sizes of a cell differ by dash pattern in the curves.
+std::string cell_color(const std::string& cell) {
+  return cell == "lstm" ? kColors[0] : cell == "gru" ? kColors[1] : kColors[2];
+}
+const char* const kDashes[] = {"", "7 4", "2 3", "9 3 2 3"};
+
+// The title line, what was compared on what, and the verdict with its warnings.
+void compare_heading(std::ostringstream& b, const json& c, const std::string& title, bool with_test) {
   b << "<h1>" << html_escape(title) << "</h1>\n<p class=\"sub\">" << c["configs"].size()
     << " configurations x " << html_escape(value_text(c.value("seeds", json(nullptr))))
     << " seeds, trained on " << html_escape(c.value("train", "?")) << ", scored on "
@@ -771,28 +770,31 @@ std::string compare_report_html(const fs::path& compare_dir) {
       for (const auto& n : h["notes"])
         if (n.is_string()) b << "<p class=\"warning\">" << html_escape(n.get<std::string>()) << "</p>\n";
   }
+}
 
-  // One hue per cell type; hidden sizes of a cell differ by dash pattern in the curves.
-  auto cell_color = [](const std::string& cell) -> std::string {
-    return cell == "lstm" ? kColors[0] : cell == "gru" ? kColors[1] : kColors[2];
-  };
-  const char* const kDashes[] = {"", "7 4", "2 3", "9 3 2 3"};
+// What the charts show per configuration, in table order.
+struct ConfigSeries {
+  std::vector<std::string> names, colors;
+  std::vector<double> means, errors, latency, accuracy;
+  std::vector<bool> front;
+  std::vector<std::vector<double>> points;
   std::map<std::string, int> size_rank;  // per cell: 0, 1, 2 ... in order of appearance
-  std::map<std::string, int> per_cell;
+};
 
+// The table of configurations; returns what the charts need of them.
+ConfigSeries configurations_section(std::ostringstream& b, const json& c, const std::string& metric,
+                                    const std::string& best, bool with_test) {
+  ConfigSeries s;
+  std::map<std::string, int> per_cell;
   b << "<h2>Configurations</h2>\n<table><tr><th class=\"k\">config</th><th>parameters</th><th>int8 "
        "KiB</th><th>ms/text</th><th>dev "
     << html_escape(metric) << " mean</th><th>&#177; std</th>";
   if (with_test) b << "<th>test " << html_escape(metric) << " mean</th><th>&#177; std</th>";
   b << "<th>train s</th><th>tokens/s</th><th class=\"k\">front</th></tr>\n";
-  std::vector<std::string> names, colors;
-  std::vector<double> means, errors, latency, accuracy;
-  std::vector<bool> front;
-  std::vector<std::vector<double>> points;
   for (const auto& cfg : c["configs"]) {
     const std::string name = cfg.value("name", "?");
     const std::string cell = cfg.value("cell", "");
-    if (!size_rank.count(name)) size_rank[name] = per_cell[cell]++;
+    if (!s.size_rank.count(name)) s.size_rank[name] = per_cell[cell]++;
     b << "<tr" << (name == best ? " class=\"best\"" : "") << "><td class=\"k\">" << html_escape(name)
       << (name == best ? " &#9733;" : "") << "</td><td>" << fmt_or_dash(get_num(cfg, {"parameters"}), 0)
       << "</td><td>" << fmt_or_dash(get_num(cfg, {"int8_bytes"}) / 1024.0, 1) << "</td><td>"
@@ -806,18 +808,18 @@ std::string compare_report_html(const fs::path& compare_dir) {
     b << "<td>" << fmt_or_dash(get_num(cfg, {"train_seconds", "mean"}), 1) << "</td><td>"
       << fmt_or_dash(get_num(cfg, {"tokens_per_second", "mean"}), 0) << "</td><td class=\"k\">"
       << (on_front ? "&#9670; front" : "") << "</td></tr>\n";
-    names.push_back(name);
-    colors.push_back(cell_color(cell));
-    means.push_back(get_num(cfg, {"dev", "mean"}));
-    errors.push_back(std::isfinite(get_num(cfg, {"dev", "std"})) ? get_num(cfg, {"dev", "std"}) : 0.0);
-    latency.push_back(get_num(cfg, {"latency_ms"}));
-    accuracy.push_back(with_test ? get_num(cfg, {"test", "mean"}) : get_num(cfg, {"dev", "mean"}));
-    front.push_back(on_front);
+    s.names.push_back(name);
+    s.colors.push_back(cell_color(cell));
+    s.means.push_back(get_num(cfg, {"dev", "mean"}));
+    s.errors.push_back(std::isfinite(get_num(cfg, {"dev", "std"})) ? get_num(cfg, {"dev", "std"}) : 0.0);
+    s.latency.push_back(get_num(cfg, {"latency_ms"}));
+    s.accuracy.push_back(with_test ? get_num(cfg, {"test", "mean"}) : get_num(cfg, {"dev", "mean"}));
+    s.front.push_back(on_front);
     std::vector<double> vals;
     if (cfg.contains("dev") && cfg["dev"].contains("values"))
       for (const auto& v : cfg["dev"]["values"])
         if (v.is_number()) vals.push_back(v.get<double>());
-    points.push_back(vals);
+    s.points.push_back(vals);
   }
   b << "</table>\n<p class=\"note\">Mean and sample standard deviation over seeds; &#9733; = best mean dev "
     << html_escape(metric)
@@ -825,114 +827,139 @@ std::string compare_report_html(const fs::path& compare_dir) {
        "runtime "
        "on the machine that ran the comparison; &#9670; front: no other configuration is both as accurate ("
     << (with_test ? "test" : "dev") << ") and as fast.</p>\n";
+  return s;
+}
 
-  // Dev curves: mean over seeds per epoch, band from the lowest to the highest seed.
+// Dev curves: mean over seeds per epoch, band from the lowest to the highest seed; one series per
+// configuration (none without runs).
+void dev_curves(const json& c, const ConfigSeries& s, std::vector<Series>& curves,
+                std::vector<SeriesStyle>& styles) {
+  if (!c.contains("runs") || !c["runs"].is_array()) return;
+  for (const auto& cfg : c["configs"]) {
+    const std::string name = cfg.value("name", "?");
+    std::vector<std::vector<double>> by_epoch;
+    for (const auto& r : c["runs"]) {
+      if (r.value("config", "") != name || !r.contains("dev_curve") || !r["dev_curve"].is_array()) continue;
+      for (std::size_t e = 0; e < r["dev_curve"].size(); ++e) {
+        if (by_epoch.size() <= e) by_epoch.resize(e + 1);
+        if (r["dev_curve"][e].is_number()) by_epoch[e].push_back(r["dev_curve"][e].get<double>());
+      }
+    }
+    Series line;
+    line.name = name;
+    SeriesStyle st;
+    st.color = cell_color(cfg.value("cell", ""));
+    st.dash = kDashes[static_cast<std::size_t>(s.size_rank.at(name)) % std::size(kDashes)];
+    for (std::size_t e = 0; e < by_epoch.size(); ++e) {
+      if (by_epoch[e].empty()) continue;
+      double sum = 0.0;
+      for (const double v : by_epoch[e]) sum += v;
+      line.x.push_back(static_cast<double>(e + 1));
+      line.y.push_back(sum / static_cast<double>(by_epoch[e].size()));
+      st.lo.push_back(*std::min_element(by_epoch[e].begin(), by_epoch[e].end()));
+      st.hi.push_back(*std::max_element(by_epoch[e].begin(), by_epoch[e].end()));
+    }
+    curves.push_back(std::move(line));
+    styles.push_back(std::move(st));
+  }
+}
+
+void compare_charts_section(std::ostringstream& b, const json& c, const std::string& metric, bool with_test,
+                            const ConfigSeries& s) {
   std::vector<Series> curves;
   std::vector<SeriesStyle> styles;
-  if (c.contains("runs") && c["runs"].is_array()) {
-    for (const auto& cfg : c["configs"]) {
-      const std::string name = cfg.value("name", "?");
-      std::vector<std::vector<double>> by_epoch;
-      for (const auto& r : c["runs"]) {
-        if (r.value("config", "") != name || !r.contains("dev_curve") || !r["dev_curve"].is_array()) continue;
-        for (std::size_t e = 0; e < r["dev_curve"].size(); ++e) {
-          if (by_epoch.size() <= e) by_epoch.resize(e + 1);
-          if (r["dev_curve"][e].is_number()) by_epoch[e].push_back(r["dev_curve"][e].get<double>());
-        }
-      }
-      Series line;
-      line.name = name;
-      SeriesStyle st;
-      st.color = cell_color(cfg.value("cell", ""));
-      st.dash = kDashes[static_cast<std::size_t>(size_rank[name]) % std::size(kDashes)];
-      for (std::size_t e = 0; e < by_epoch.size(); ++e) {
-        if (by_epoch[e].empty()) continue;
-        double sum = 0.0;
-        for (const double v : by_epoch[e]) sum += v;
-        line.x.push_back(static_cast<double>(e + 1));
-        line.y.push_back(sum / static_cast<double>(by_epoch[e].size()));
-        st.lo.push_back(*std::min_element(by_epoch[e].begin(), by_epoch[e].end()));
-        st.hi.push_back(*std::max_element(by_epoch[e].begin(), by_epoch[e].end()));
-      }
-      curves.push_back(std::move(line));
-      styles.push_back(std::move(st));
-    }
-  }
+  dev_curves(c, s, curves, styles);
   b << "<h2>Dev " << html_escape(metric) << " per configuration</h2>\n<div class=\"charts\">\n"
-    << bar_chart_svg("Dev " + metric + " (bar: mean, whiskers: \u00b1 1 std, dots: seeds)", metric, names,
-                     means, errors, points, colors);
+    << bar_chart_svg("Dev " + metric + " (bar: mean, whiskers: \u00b1 1 std, dots: seeds)", metric, s.names,
+                     s.means, s.errors, s.points, s.colors);
   if (!curves.empty())
     b << band_chart_svg("Dev " + metric + " per epoch (line: mean, band: seed range)", "epoch", metric,
                         curves, styles);
   b << "</div>\n";
   b << "<h2>Accuracy and latency</h2>\n<div class=\"charts\">\n"
     << front_chart_svg(std::string(with_test ? "Test " : "Dev ") + metric + " vs batch-1 latency",
-                       "ms per text (int8, embedded runtime)", metric, names, latency, accuracy, colors,
-                       front)
+                       "ms per text (int8, embedded runtime)", metric, s.names, s.latency, s.accuracy,
+                       s.colors, s.front)
     << "</div>\n<p class=\"note\">Blue: LSTM, orange: GRU.</p>\n";
+}
 
-  if (c.contains("head_to_head") && c["head_to_head"].is_object()) {
-    const auto& h = c["head_to_head"];
-    const bool pts = h.value("points", true);
-    const double scale = pts ? 100.0 : 1.0;
-    const int dec = pts ? 1 : 4;
-    const std::string la = h.value("label_a", ""), lb = h.value("label_b", "");
-    b << "<h2>Head-to-head: " << html_escape(la) << " vs " << html_escape(lb) << "</h2>\n";
-    b << "<table><tr><th class=\"k\">config</th><th class=\"k\">" << html_escape(h.value("set", "")) << " "
-      << html_escape(h.value("metric", "")) << " per seed" << (pts ? " (points)" : "")
-      << "</th><th>mean</th><th>&#177; std</th></tr>\n";
-    for (const auto& [label, key, mean, sd] :
-         {std::tuple{la, "scores_a", "mean_a", "std_a"}, std::tuple{lb, "scores_b", "mean_b", "std_b"}}) {
-      std::string seeds;
-      if (h.contains(key))
-        for (const auto& v : h[key])
-          if (v.is_number()) seeds += (seeds.empty() ? "" : " ") + num(scale * v.get<double>(), dec);
-      b << "<tr><td class=\"k\">" << html_escape(label) << "</td><td class=\"k\">" << seeds << "</td><td>"
-        << fmt_or_dash(scale * get_num(h, {mean}), dec) << "</td><td>"
-        << fmt_or_dash(scale * get_num(h, {sd}), dec) << "</td></tr>\n";
-    }
-    b << "</table>\n<table><tr><th class=\"k\">method</th><th class=\"k\">result</th></tr>\n";
-    b << "<tr><td class=\"k\">two-level bootstrap (runs, then examples shared by all runs), "
-      << fmt_or_dash(get_num(h, {"two_level_bootstrap", "samples"}), 0) << " resamples</td><td class=\"k\">"
-      << "difference " << fmt_or_dash(scale * get_num(h, {"difference"}), dec) << ", 95% interval "
-      << fmt_or_dash(scale * get_num(h, {"two_level_bootstrap", "low"}), dec) << " to "
-      << fmt_or_dash(scale * get_num(h, {"two_level_bootstrap", "high"}), dec) << "</td></tr>\n";
-    b << "<tr><td class=\"k\">permutation test over the per-seed scores</td><td class=\"k\">p = "
-      << fmt_or_dash(get_num(h, {"permutation_test", "p_value"})) << "</td></tr>\n";
-    if (h.contains("per_seed_mcnemar") && h["per_seed_mcnemar"].is_array())
-      for (const auto& m : h["per_seed_mcnemar"])
-        b << "<tr><td class=\"k\">McNemar exact, seed "
-          << html_escape(value_text(m.value("seed", json(nullptr)))) << "</td><td class=\"k\">"
-          << fmt_or_dash(get_num(m, {"only_a"}), 0) << " right only by " << html_escape(la) << ", "
-          << fmt_or_dash(get_num(m, {"only_b"}), 0) << " only by " << html_escape(lb)
-          << "; p = " << fmt_or_dash(get_num(m, {"p_value"})) << "</td></tr>\n";
-    b << "</table>\n<p class=\"note\">The interval counts both sources of chance: which seeds were drawn and "
-         "which test examples. Per-seed McNemar tests look at examples only.</p>\n";
+// The head-to-head object of compare.json `h`: per-seed scores, then each test's result.
+void head_to_head_section(std::ostringstream& b, const json& h) {
+  const bool pts = h.value("points", true);
+  const double scale = pts ? 100.0 : 1.0;
+  const int dec = pts ? 1 : 4;
+  const std::string la = h.value("label_a", ""), lb = h.value("label_b", "");
+  b << "<h2>Head-to-head: " << html_escape(la) << " vs " << html_escape(lb) << "</h2>\n";
+  b << "<table><tr><th class=\"k\">config</th><th class=\"k\">" << html_escape(h.value("set", "")) << " "
+    << html_escape(h.value("metric", "")) << " per seed" << (pts ? " (points)" : "")
+    << "</th><th>mean</th><th>&#177; std</th></tr>\n";
+  for (const auto& [label, key, mean, sd] :
+       {std::tuple{la, "scores_a", "mean_a", "std_a"}, std::tuple{lb, "scores_b", "mean_b", "std_b"}}) {
+    std::string seeds;
+    if (h.contains(key))
+      for (const auto& v : h[key])
+        if (v.is_number()) seeds += (seeds.empty() ? "" : " ") + num(scale * v.get<double>(), dec);
+    b << "<tr><td class=\"k\">" << html_escape(label) << "</td><td class=\"k\">" << seeds << "</td><td>"
+      << fmt_or_dash(scale * get_num(h, {mean}), dec) << "</td><td>"
+      << fmt_or_dash(scale * get_num(h, {sd}), dec) << "</td></tr>\n";
   }
+  b << "</table>\n<table><tr><th class=\"k\">method</th><th class=\"k\">result</th></tr>\n";
+  b << "<tr><td class=\"k\">two-level bootstrap (runs, then examples shared by all runs), "
+    << fmt_or_dash(get_num(h, {"two_level_bootstrap", "samples"}), 0) << " resamples</td><td class=\"k\">"
+    << "difference " << fmt_or_dash(scale * get_num(h, {"difference"}), dec) << ", 95% interval "
+    << fmt_or_dash(scale * get_num(h, {"two_level_bootstrap", "low"}), dec) << " to "
+    << fmt_or_dash(scale * get_num(h, {"two_level_bootstrap", "high"}), dec) << "</td></tr>\n";
+  b << "<tr><td class=\"k\">permutation test over the per-seed scores</td><td class=\"k\">p = "
+    << fmt_or_dash(get_num(h, {"permutation_test", "p_value"})) << "</td></tr>\n";
+  if (h.contains("per_seed_mcnemar") && h["per_seed_mcnemar"].is_array())
+    for (const auto& m : h["per_seed_mcnemar"])
+      b << "<tr><td class=\"k\">McNemar exact, seed "
+        << html_escape(value_text(m.value("seed", json(nullptr)))) << "</td><td class=\"k\">"
+        << fmt_or_dash(get_num(m, {"only_a"}), 0) << " right only by " << html_escape(la) << ", "
+        << fmt_or_dash(get_num(m, {"only_b"}), 0) << " only by " << html_escape(lb)
+        << "; p = " << fmt_or_dash(get_num(m, {"p_value"})) << "</td></tr>\n";
+  b << "</table>\n<p class=\"note\">The interval counts both sources of chance: which seeds were drawn and "
+       "which test examples. Per-seed McNemar tests look at examples only.</p>\n";
+}
 
-  if (c.contains("runs") && c["runs"].is_array()) {
-    b << "<h2>Runs</h2>\n<table><tr><th class=\"k\">run</th><th>seed</th><th>epochs</th><th>dev "
-      << html_escape(metric) << "</th>"
-      << (with_test ? "<th>test " + html_escape(metric) + "</th>" : std::string())
-      << "<th>train s</th><th>tokens/s</th></tr>\n";
-    for (const auto& r : c["runs"]) {
-      b << "<tr><td class=\"k\">" << html_escape(r.value("name", "?"))
-        << (r.value("reused", false) ? " (reused)" : "") << "</td><td>"
-        << fmt_or_dash(get_num(r, {"seed"}), 0) << "</td><td>" << fmt_or_dash(get_num(r, {"epochs"}), 0)
-        << "</td><td>" << fmt_or_dash(get_num(r, {"dev_metric"})) << "</td>";
-      if (with_test) b << "<td>" << fmt_or_dash(get_num(r, {"test_metric"})) << "</td>";
-      b << "<td>" << fmt_or_dash(get_num(r, {"train_seconds"}), 1) << "</td><td>"
-        << fmt_or_dash(get_num(r, {"tokens_per_second"}), 0) << "</td></tr>\n";
-    }
-    b << "</table>\n";
+void compare_runs_section(std::ostringstream& b, const json& runs, const std::string& metric,
+                          bool with_test) {
+  b << "<h2>Runs</h2>\n<table><tr><th class=\"k\">run</th><th>seed</th><th>epochs</th><th>dev "
+    << html_escape(metric) << "</th>"
+    << (with_test ? "<th>test " + html_escape(metric) + "</th>" : std::string())
+    << "<th>train s</th><th>tokens/s</th></tr>\n";
+  for (const auto& r : runs) {
+    b << "<tr><td class=\"k\">" << html_escape(r.value("name", "?"))
+      << (r.value("reused", false) ? " (reused)" : "") << "</td><td>" << fmt_or_dash(get_num(r, {"seed"}), 0)
+      << "</td><td>" << fmt_or_dash(get_num(r, {"epochs"}), 0) << "</td><td>"
+      << fmt_or_dash(get_num(r, {"dev_metric"})) << "</td>";
+    if (with_test) b << "<td>" << fmt_or_dash(get_num(r, {"test_metric"})) << "</td>";
+    b << "<td>" << fmt_or_dash(get_num(r, {"train_seconds"}), 1) << "</td><td>"
+      << fmt_or_dash(get_num(r, {"tokens_per_second"}), 0) << "</td></tr>\n";
   }
-  if (c.contains("shared_config") && c["shared_config"].is_object()) {
-    b << "<h2>Shared settings</h2>\n<table><tr><th class=\"k\">setting</th><th class=\"k\">value</th></tr>\n";
-    for (const auto& [k, v] : c["shared_config"].items())
-      b << "<tr><td class=\"k\">" << html_escape(k) << "</td><td class=\"k\">" << html_escape(value_text(v))
-        << "</td></tr>\n";
-    b << "</table>\n";
-  }
+  b << "</table>\n";
+}
+
+}  // namespace
+
+std::string compare_report_html(const fs::path& compare_dir) {
+  const fs::path path = compare_dir / "compare.json";
+  const json c = read_json_file(path);
+  if (!c.is_object() || c.value("format", "") != "gyre-compare" || !c.contains("configs") ||
+      !c["configs"].is_array())
+    throw FormatError(path.string(), "not a gyre compare summary (format \"gyre-compare\" with \"configs\")");
+  const std::string metric = c.value("metric", "score");
+  const std::string best = c.contains("best") && c["best"].is_string() ? c["best"].get<std::string>() : "";
+  const bool with_test = c.contains("test") && c["test"].is_string();
+  const std::string title = "gyre comparison: " + compare_dir.filename().string();
+  std::ostringstream b;
+  compare_heading(b, c, title, with_test);
+  const ConfigSeries series = configurations_section(b, c, metric, best, with_test);
+  compare_charts_section(b, c, metric, with_test, series);
+  if (c.contains("head_to_head") && c["head_to_head"].is_object()) head_to_head_section(b, c["head_to_head"]);
+  if (c.contains("runs") && c["runs"].is_array()) compare_runs_section(b, c["runs"], metric, with_test);
+  if (c.contains("shared_config") && c["shared_config"].is_object())
+    settings_section(b, c["shared_config"], "Shared settings");
   return page(title, b.str());
 }
 
