@@ -268,14 +268,10 @@ std::string html_escape(std::string_view text) {
   return out;
 }
 
-std::string line_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
-                           const std::vector<Series>& series) {
-  return band_chart_svg(title, x_label, y_label, series, {});
-}
+namespace {
 
-std::string band_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
-                           const std::vector<Series>& series, const std::vector<SeriesStyle>& styles) {
-  GYRE_CHECK(styles.empty() || styles.size() == series.size(), "chart styles: one per series or none");
+// Axes that hold every finite point and band value (integer ticks on x when the range allows).
+Frame band_chart_frame(const std::vector<Series>& series, const std::vector<SeriesStyle>& styles) {
   double xlo = INFINITY, xhi = -INFINITY, ylo = INFINITY, yhi = -INFINITY;
   for (const auto& s : series) {
     GYRE_CHECK(s.x.size() == s.y.size(), "chart series needs as many x as y values");
@@ -302,9 +298,10 @@ std::string band_chart_svg(std::string_view title, std::string_view x_label, std
   f.x = nice_axis(xlo, xhi, std::min(8, std::max(1, static_cast<int>(xhi - xlo))));
   if (f.x.step < 1.0 && xhi - xlo >= 1.0) f.x = {std::floor(xlo), std::ceil(xhi), 1.0};
   f.y = nice_axis(ylo, yhi);
-  std::ostringstream o;
-  svg_open(o, title);
-  y_axis(o, f, y_label);
+  return f;
+}
+
+void x_axis(std::ostringstream& o, const Frame& f, std::string_view x_label) {
   const int nx = static_cast<int>(std::lround((f.x.hi - f.x.lo) / f.x.step));
   for (int i = 0; i <= nx; ++i) {
     const double v = f.x.lo + i * f.x.step;
@@ -317,7 +314,11 @@ std::string band_chart_svg(std::string_view title, std::string_view x_label, std
     << kHeight - kBottom << "\" y2=\"" << kHeight - kBottom << "\"/>\n";
   o << "<text class=\"label\" x=\"" << (kLeft + kWidth - kRight) / 2 << "\" y=\"" << kHeight - 10
     << "\" text-anchor=\"middle\">" << html_escape(x_label) << "</text>\n";
-  // Bands first, so every line is drawn over them.
+}
+
+// The shaded low-high bands of the styled series.
+void bands(std::ostringstream& o, const Frame& f, const std::vector<Series>& series,
+           const std::vector<SeriesStyle>& styles) {
   for (std::size_t k = 0; k < styles.size(); ++k) {
     const auto& st = styles[k];
     const auto& s = series[k];
@@ -333,38 +334,60 @@ std::string band_chart_svg(std::string_view title, std::string_view x_label, std
       o << "<polygon class=\"band\" fill=\"" << color << "\" fill-opacity=\"0.15\" stroke=\"none\" points=\""
         << upper << ' ' << lower << "\"/>\n";
   }
-  for (std::size_t k = 0; k < series.size(); ++k) {
-    const auto& s = series[k];
-    const std::string color =
-        k < styles.size() && !styles[k].color.empty() ? styles[k].color : kColors[k % std::size(kColors)];
-    const std::string dash = k < styles.size() ? styles[k].dash : "";
-    o << "<polyline class=\"series\" stroke=\"" << color << "\""
-      << (dash.empty() ? "" : " stroke-dasharray=\"" + dash + "\"") << " points=\"";
-    bool first = true;
-    for (std::size_t i = 0; i < s.x.size(); ++i) {
-      if (!std::isfinite(s.x[i]) || !std::isfinite(s.y[i])) continue;
-      o << (first ? "" : " ") << num(f.sx(s.x[i]), 1) << ',' << num(f.sy(s.y[i]), 1);
-      first = false;
-    }
-    o << "\"/>\n";
-    for (std::size_t i = 0; i < s.x.size(); ++i) {
-      if (!std::isfinite(s.x[i]) || !std::isfinite(s.y[i])) continue;
-      o << "<circle cx=\"" << num(f.sx(s.x[i]), 1) << "\" cy=\"" << num(f.sy(s.y[i]), 1)
-        << "\" r=\"3\" fill=\"" << color << "\"><title>" << html_escape(s.name) << " @ "
-        << tick_text(s.x[i], 1.0) << ": " << num(s.y[i]) << "</title></circle>\n";
-    }
-    // Legend at the right, one entry per series: at the top for plain charts (falling losses
-    // leave it free), at the bottom for styled score curves (rising scores leave that free).
-    const double lx = kWidth - kRight - 150;
-    const double ly = styles.empty()
-                          ? kTop + 4 + 16.0 * static_cast<double>(k)
-                          : kHeight - kBottom - 12 - 16.0 * static_cast<double>(series.size() - 1 - k);
-    o << "<line x1=\"" << lx << "\" x2=\"" << lx + 14 << "\" y1=\"" << ly + 1.5 << "\" y2=\"" << ly + 1.5
-      << "\" stroke=\"" << color << "\" stroke-width=\"2\""
-      << (dash.empty() ? "" : " stroke-dasharray=\"" + dash + "\"") << "/>"
-      << "<text class=\"tick\" x=\"" << lx + 18 << "\" y=\"" << ly + 5 << "\">" << html_escape(s.name)
-      << "</text>\n";
+}
+
+// Series k: its line, its points (with a tooltip each) and its legend entry.
+void series_line(std::ostringstream& o, const Frame& f, const std::vector<Series>& series,
+                 const std::vector<SeriesStyle>& styles, std::size_t k) {
+  const auto& s = series[k];
+  const std::string color =
+      k < styles.size() && !styles[k].color.empty() ? styles[k].color : kColors[k % std::size(kColors)];
+  const std::string dash = k < styles.size() ? styles[k].dash : "";
+  o << "<polyline class=\"series\" stroke=\"" << color << "\""
+    << (dash.empty() ? "" : " stroke-dasharray=\"" + dash + "\"") << " points=\"";
+  bool first = true;
+  for (std::size_t i = 0; i < s.x.size(); ++i) {
+    if (!std::isfinite(s.x[i]) || !std::isfinite(s.y[i])) continue;
+    o << (first ? "" : " ") << num(f.sx(s.x[i]), 1) << ',' << num(f.sy(s.y[i]), 1);
+    first = false;
   }
+  o << "\"/>\n";
+  for (std::size_t i = 0; i < s.x.size(); ++i) {
+    if (!std::isfinite(s.x[i]) || !std::isfinite(s.y[i])) continue;
+    o << "<circle cx=\"" << num(f.sx(s.x[i]), 1) << "\" cy=\"" << num(f.sy(s.y[i]), 1) << "\" r=\"3\" fill=\""
+      << color << "\"><title>" << html_escape(s.name) << " @ " << tick_text(s.x[i], 1.0) << ": "
+      << num(s.y[i]) << "</title></circle>\n";
+  }
+  // Legend at the right, one entry per series: at the top for plain charts (falling losses
+  // leave it free), at the bottom for styled score curves (rising scores leave that free).
+  const double lx = kWidth - kRight - 150;
+  const double ly = styles.empty()
+                        ? kTop + 4 + 16.0 * static_cast<double>(k)
+                        : kHeight - kBottom - 12 - 16.0 * static_cast<double>(series.size() - 1 - k);
+  o << "<line x1=\"" << lx << "\" x2=\"" << lx + 14 << "\" y1=\"" << ly + 1.5 << "\" y2=\"" << ly + 1.5
+    << "\" stroke=\"" << color << "\" stroke-width=\"2\""
+    << (dash.empty() ? "" : " stroke-dasharray=\"" + dash + "\"") << "/>"
+    << "<text class=\"tick\" x=\"" << lx + 18 << "\" y=\"" << ly + 5 << "\">" << html_escape(s.name)
+    << "</text>\n";
+}
+
+}  // namespace
+
+std::string line_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
+                           const std::vector<Series>& series) {
+  return band_chart_svg(title, x_label, y_label, series, {});
+}
+
+std::string band_chart_svg(std::string_view title, std::string_view x_label, std::string_view y_label,
+                           const std::vector<Series>& series, const std::vector<SeriesStyle>& styles) {
+  GYRE_CHECK(styles.empty() || styles.size() == series.size(), "chart styles: one per series or none");
+  const Frame f = band_chart_frame(series, styles);
+  std::ostringstream o;
+  svg_open(o, title);
+  y_axis(o, f, y_label);
+  x_axis(o, f, x_label);
+  bands(o, f, series, styles);  // first, so every line is drawn over them
+  for (std::size_t k = 0; k < series.size(); ++k) series_line(o, f, series, styles, k);
   o << "</svg>\n";
   return o.str();
 }
