@@ -52,8 +52,10 @@ print(d)" "$1" "$2"; }
 status=0
 # Known gaps (test scores with --threads 2, the seeds above; README table): the floor is the
 # figure minus 0.03. Results depend on the thread count, not on the load.
-declare -A known_gap_default=([names]=0.8527 [brown-genre]=0.8170 [brown-names]=0.4940)
-declare -A known_gap_tuned=([names]=0.8535 [brown-genre]=0.8038 [brown-names]=0.4870)
+# brown-names meets the bar since the character encoder (default 0.8385 +- 0.0205, tuned 0.7813
+# vs 0.7583): a hard check.
+declare -A known_gap_default=([names]=0.8527 [brown-genre]=0.8349)
+declare -A known_gap_tuned=([names]=0.8680 [brown-genre]=0.8110)
 # The search budget per dataset (seed 1, --threads 2) and what it chose on dev (OUT/best/config.json).
 declare -A hone_budget=([names]="--trials 12 --epoch-cap 27" [brown-genre]="--trials 4 --epoch-cap 3"
   [brown-names]="--trials 5 --epoch-cap 9")
