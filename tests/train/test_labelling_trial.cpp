@@ -16,9 +16,12 @@ namespace fs = std::filesystem;
 TEST_CASE("demo intents: diverse picks beat random picks", "[slow][label-next]") {
   const std::string demo = std::string(GYRE_SOURCE_DIR) + "/corpora/demo/";
   // Mean test accuracy over the rounds after picking (round 0 is shared by both rules), averaged
-  // over three trial seeds (three different first 10%): one seed's margin is within noise.
+  // over six trial seeds (six different first 10%): one seed's margin is within noise, and so was
+  // three seeds' (numerically small code changes moved their mean margin from 0.0275 to
+  // 0.0100). Per seed on this build: margins +0.026, +0.006, -0.002, +0.033, +0.047, +0.004.
+  constexpr int kSeeds = 6;
   double random = 0, diverse = 0;
-  for (const std::uint64_t seed : {1, 2, 3}) {
+  for (std::uint64_t seed = 1; seed <= kSeeds; ++seed) {
     gyre::train::TrialOptions o;
     o.config.train = demo + "intents.train.tsv";
     o.config.dev = demo + "intents.dev.tsv";
@@ -39,11 +42,11 @@ TEST_CASE("demo intents: diverse picks beat random picks", "[slow][label-next]")
       for (std::size_t i = 1; i < points.size(); ++i) sum += points[i]["accuracy"].get<double>();
       return sum / static_cast<double>(points.size() - 1);
     };
-    random += mean_after_picks(0) / 3.0;
-    diverse += mean_after_picks(1) / 3.0;
+    random += mean_after_picks(0) / kSeeds;
+    diverse += mean_after_picks(1) / kSeeds;
   }
   INFO("mean test accuracy after picks: random " << random << ", diverse " << diverse);
   // Margin: 0.01 accuracy (our requirement, no source). Measured on x86-64 (AVX-512 kernels):
-  // random 0.7211, diverse 0.7486, a margin of 0.0275 (README, "Which texts to label next").
+  // random 0.7154, diverse 0.7344, a margin of 0.0190 (README, "Which texts to label next").
   CHECK(diverse >= random + 0.01);
 }
