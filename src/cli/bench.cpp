@@ -2,6 +2,8 @@
 // Latency of one text of --tokens tokens (p50/p99), model-only (token ids in) and end to end
 // (UTF-8 text in: normalisation and tokenization included), and throughput of --batch-size texts,
 // at each thread count in --threads; each thread owns a Context (the Model is shared, read-only).
+// With --batched the throughput batch is also timed through the batched call
+// (Context::classify_batch_ids / tag_batch_ids): each thread passes its share in one call.
 // MODEL may be a run directory or a checkpoint: it is then exported at f32 to a temporary file
 // first, so the figures are those of `gyre export --precision f32`.
 
@@ -36,6 +38,7 @@ struct BenchOptions {
   std::size_t batch_size = 64;
   double seconds = 2.0;
   std::vector<int> threads = {1, 2};
+  bool batched = false;
 };
 
 // Deterministic "texts": vocabulary tokens chosen by a fixed linear congruential sequence.
@@ -94,6 +97,45 @@ void infer(runtime::Context& ctx, const std::vector<std::uint32_t>& ids) {
     ctx.classify_ids(ids);
   } else {
     ctx.tag_ids(ids);
+  }
+}
+
+// One thread's share of the batch through the batched call: ids (or, for a character encoder,
+// the tokens' spellings, as infer() passes them).
+struct BatchShare {
+  std::vector<Span<const std::uint32_t>> ids;
+  std::vector<std::vector<std::string>> tokens;
+  std::vector<Span<const std::string>> token_spans;
+};
+
+BatchShare make_share(const runtime::Model& m, const std::vector<std::vector<std::uint32_t>>& batch,
+                      std::size_t first, std::size_t step) {
+  BatchShare s;
+  for (std::size_t i = first; i < batch.size(); i += step)
+    s.ids.emplace_back(batch[i].data(), batch[i].size());
+  if (m.architecture().has_char_encoder()) {
+    for (const auto& ids : s.ids) {
+      std::vector<std::string> t;
+      for (const auto id : ids) t.emplace_back(m.token(id));
+      s.tokens.push_back(std::move(t));
+    }
+    for (const auto& t : s.tokens) s.token_spans.emplace_back(t.data(), t.size());
+  }
+  return s;
+}
+
+void infer_batch(runtime::Context& ctx, const BatchShare& share) {
+  const runtime::Model& m = ctx.model();
+  const bool classify = m.architecture().task == runtime::Task::kClassify;
+  if (m.architecture().has_char_encoder()) {
+    if (classify)
+      ctx.classify_batch_tokens(share.token_spans);
+    else
+      ctx.tag_batch_tokens(share.token_spans);
+  } else if (classify) {
+    ctx.classify_batch_ids(share.ids);
+  } else {
+    ctx.tag_batch_ids(share.ids);
   }
 }
 
@@ -210,36 +252,43 @@ ExitCode run_bench(const BenchOptions& o) {
   const std::size_t text_tokens = model.tokenizer().tokenize(one_text).size();
   for (int nthreads : o.threads) {
     if (nthreads < 1) throw ConfigError("--threads", "thread counts must be >= 1");
-    // Latency: a third of the time model-only, a third end to end, a third for throughput.
-    const Timing ids =
-        latency(nthreads, o.seconds / 3, model, [&](runtime::Context& c) { infer(c, one[0]); });
-    const Timing text =
-        latency(nthreads, o.seconds / 3, model, [&](runtime::Context& c) { infer_text(c, one_text); });
-    std::vector<std::thread> pool;
-    const auto budget = std::chrono::duration<double>(o.seconds / 3);
+    // Latency: a third of the time model-only, a third end to end, a third for throughput (a
+    // quarter each, and a quarter for the batched call, with --batched).
+    const double part = o.seconds / (o.batched ? 4 : 3);
+    const Timing ids = latency(nthreads, part, model, [&](runtime::Context& c) { infer(c, one[0]); });
+    const Timing text = latency(nthreads, part, model, [&](runtime::Context& c) { infer_text(c, one_text); });
+    const auto budget = std::chrono::duration<double>(part);
     // Throughput: the batch split across the threads (text i goes to thread i % n), repeated.
-    std::atomic<std::size_t> texts_done{0};
-    const auto t0 = Clock::now();
-    for (int t = 0; t < nthreads; ++t)
-      pool.emplace_back([&, t] {
-        runtime::Context ctx(model);
-        for (std::size_t i = static_cast<std::size_t>(t); i < batch.size();
-             i += static_cast<std::size_t>(nthreads))
-          infer(ctx, batch[i]);  // warm-up pass
-        std::size_t done = 0;
-        const auto start = Clock::now();
-        while (Clock::now() - start < budget) {
-          for (std::size_t i = static_cast<std::size_t>(t); i < batch.size();
-               i += static_cast<std::size_t>(nthreads)) {
-            infer(ctx, batch[i]);
-            ++done;
-          }
-        }
-        texts_done += done;
-      });
-    for (auto& th : pool) th.join();
-    const double elapsed = std::chrono::duration<double>(Clock::now() - t0).count();
-    const double per_sec = static_cast<double>(texts_done.load()) / elapsed;
+    auto throughput = [&](bool batched_call) {
+      std::vector<std::thread> pool;
+      std::atomic<std::size_t> texts_done{0};
+      const auto t0 = Clock::now();
+      for (int t = 0; t < nthreads; ++t)
+        pool.emplace_back([&, t] {
+          runtime::Context ctx(model);
+          const auto first = static_cast<std::size_t>(t), step = static_cast<std::size_t>(nthreads);
+          const BatchShare share = batched_call ? make_share(model, batch, first, step) : BatchShare{};
+          auto pass = [&] {
+            if (batched_call) {
+              infer_batch(ctx, share);
+              return share.ids.size();
+            }
+            std::size_t n = 0;
+            for (std::size_t i = first; i < batch.size(); i += step, ++n) infer(ctx, batch[i]);
+            return n;
+          };
+          pass();  // warm-up pass
+          std::size_t done = 0;
+          const auto start = Clock::now();
+          while (Clock::now() - start < budget) done += pass();
+          texts_done += done;
+        });
+      for (auto& th : pool) th.join();
+      const double elapsed = std::chrono::duration<double>(Clock::now() - t0).count();
+      return static_cast<double>(texts_done.load()) / elapsed;
+    };
+    const double per_sec = throughput(false);
+    const double batched_per_sec = o.batched ? throughput(true) : 0.0;
     std::printf(
         "threads %d  latency, model only (%zu token ids in): p50 %.1f us, p99 %.1f us (%.2f GFLOP/s per "
         "stream)\n",
@@ -249,6 +298,9 @@ ExitCode run_bench(const BenchOptions& o) {
         text_tokens, text.p50, text.p99);
     std::printf("           throughput, model only (batch of %zu): %.0f texts/s, %.2f GFLOP/s total\n",
                 o.batch_size, per_sec, per_sec * flops_text / 1e9);
+    if (o.batched)
+      std::printf("           throughput, batched call (batch of %zu): %.0f texts/s, %.2f GFLOP/s total\n",
+                  o.batch_size, batched_per_sec, batched_per_sec * flops_text / 1e9);
   }
   std::printf(
       "note      model only: token ids in, probabilities out; end to end: UTF-8 text in (normalisation,\n"
@@ -279,8 +331,12 @@ const RegisterCommand registration{
       sub.add_option("--threads", o->threads, "thread counts to measure, comma-separated")
           ->capture_default_str()
           ->delimiter(',');
+      sub.add_flag("--batched", o->batched,
+                   "also time the throughput batch through the batched call (one call per thread for its "
+                   "share of the batch)");
       sub.footer(
           "Examples:\n  gyre bench intents.gyre --threads 1,2\n  gyre bench runs/intents-lstm\n"
+          "  gyre bench intents.gyre --threads 1 --batched\n"
           "Set GYRE_RUNTIME_ISA=portable|avx2|avx512 to cap the kernels used.");
       return [o] { return run_bench(*o); };
     }};

@@ -97,6 +97,13 @@ TEST_CASE("bench takes a run directory and times text-in as well as ids-in", "[c
   CHECK_THAT(r.out, Contains("latency, model only (6 token ids in): p50"));
   CHECK_THAT(r.out, Contains("latency, end to end (text in,") && Contains("tokens after tokenization): p50"));
   CHECK_THAT(r.out, Contains("throughput, model only (batch of 4)"));
+  CHECK_THAT(r.out, !Contains("batched call"));
+  // --batched adds the batch through Context::classify_batch_ids.
+  const auto batched = gyre_cli({"bench", run, "--seconds", "0.3", "--threads", "1,2", "--batch-size", "5",
+                                 "--tokens", "6", "--batched"});
+  INFO(batched.err);
+  REQUIRE(batched.exit_code == 0);
+  CHECK_THAT(batched.out, Contains("threads 2") && Contains("throughput, batched call (batch of 5): "));
   // The old spelling is gone: one vocabulary (--batch-size everywhere).
   const auto old = gyre_cli({"bench", run, "--batch", "4"});
   require_one_line_error(old);

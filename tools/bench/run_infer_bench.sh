@@ -1,7 +1,9 @@
 #!/usr/bin/env bash
 # Inference benchmark: `gyre bench` (f32 and int8 model files) against the same weights in
 # Debian's python3-torch eager inference, batch-1 latency and batch-64 throughput at 1 and 2
-# threads. See tools/bench/README.md ("Inference latency and throughput").
+# threads, the throughput both one text per call and through the batched call (gyre bench
+# --batched: Context::classify_batch_ids). See tools/bench/README.md ("Inference latency and
+# throughput").
 #
 #   tools/bench/run_infer_bench.sh BUILD_DIR [--seconds S] [--threads 1,2] [--epochs 2] [--keep DIR]
 #                                            [--no-malloc-tuning]
@@ -87,22 +89,25 @@ echo "== torch BLAS setup"
 # Interleave the sides so both see similar background load.
 for p in f32 int8; do
   echo "== gyre bench $p.gyre --threads $threads"
-  env "${common_env[@]}" "$gyre" bench "$work/$p.gyre" --threads "$threads" --seconds "$seconds" \
+  env "${common_env[@]}" "$gyre" bench "$work/$p.gyre" --threads "$threads" --seconds "$seconds" --batched \
     | tee "$work/gyre.$p.txt"
   $py - "$work/gyre.$p.txt" "$p" >>"$out" <<'PYEOF'
 import json, re, sys
-# The three lines gyre bench prints per thread count (src/cli/bench.cpp).
+# The lines gyre bench prints per thread count (src/cli/bench.cpp; the fourth with --batched).
 text = open(sys.argv[1]).read()
 pat = (r"threads (\d+)\s+latency, model only \(\d+ token ids in\): p50 ([\d.]+) us, p99 ([\d.]+) us "
        r"\(([\d.]+) GFLOP/s per stream\)\s*\n"
        r"\s+latency, end to end \(text in, \d+ tokens after tokenization\): p50 ([\d.]+) us, p99 ([\d.]+) us\s*\n"
-       r"\s+throughput, model only \(batch of \d+\): ([\d.]+) texts/s, ([\d.]+) GFLOP/s total")
+       r"\s+throughput, model only \(batch of \d+\): ([\d.]+) texts/s, ([\d.]+) GFLOP/s total"
+       r"(?:\s*\n\s+throughput, batched call \(batch of \d+\): ([\d.]+) texts/s, ([\d.]+) GFLOP/s total)?")
 found = 0
 for m in re.finditer(pat, text):
     found += 1
     print(json.dumps({"side": "gyre", "precision": sys.argv[2], "threads": int(m[1]), "p50_us": float(m[2]),
                       "p99_us": float(m[3]), "latency_gflops": float(m[4]), "text_p50_us": float(m[5]),
-                      "texts_per_s": float(m[7]), "batch_gflops": float(m[8])}))
+                      "texts_per_s": float(m[7]), "batch_gflops": float(m[8]),
+                      "batched_texts_per_s": float(m[9]) if m[9] else None,
+                      "batched_gflops": float(m[10]) if m[10] else None}))
 if not found:
     sys.exit("run_infer_bench: gyre bench printed nothing this script can read (its output changed?)")
 PYEOF
@@ -165,12 +170,18 @@ for n in sorted(t):
     for p, r in (("f32", f), ("int8", q)):
         x = r["texts_per_s"] / ref["texts_per_s"]
         print(f"threads {n}: {p} batch-64 throughput >= torch: {x:.2f}x {mark(x >= 1)}")
+    for p, r in (("f32", f), ("int8", q)):  # issue 13: the batched call
+        if r.get("batched_texts_per_s"):
+            x = r["batched_texts_per_s"] / ref["texts_per_s"]
+            print(f"threads {n}: {p} batch-64 throughput of the batched call >= 1.5x torch: {x:.2f}x "
+                  f"({r['batched_texts_per_s'] / r['texts_per_s']:.2f}x our one-by-one) {mark(x >= 1.5)}")
 peak = next(r for r in rows if "peak_gflops" in r)["peak_gflops"]
 print(f"== GFLOP/s vs this machine's single-core SGEMM peak ({peak:.1f} GFLOP/s, torch/numpy 2048^2, wall clock)")
 for (p, n), r in sorted(g.items(), key=lambda kv: (kv[0][0] != "f32", kv[0][1])):
     print(f"{p:<5} threads {n}: batch-1 {r['latency_gflops']:.1f} GFLOP/s ({100 * r['latency_gflops'] / peak:.0f}% of "
           f"1-core peak), batch-64 {r['batch_gflops']:.1f} GFLOP/s ({100 * r['batch_gflops'] / peak / n:.0f}% of "
-          f"{n}-core peak)")
+          f"{n}-core peak)" + (f", batched call {r['batched_gflops']:.1f} GFLOP/s "
+                                f"({100 * r['batched_gflops'] / peak / n:.0f}%)" if r.get("batched_gflops") else ""))
 files = next(r for r in rows if r["side"] == "files")
 share = files["int8_bytes"] / files["f32_bytes"]
 print(f"int8 file {files['int8_bytes']} B = {100 * share:.1f}% of f32 {files['f32_bytes']} B (target <= 30%): "
