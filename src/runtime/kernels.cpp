@@ -289,7 +289,45 @@ GYRE_AVX2 void matmul_packed_avx2(const W* p, std::size_t rows, std::size_t cols
   const std::size_t panels = (rows + kPanelRows - 1) / kPanelRows;
   const std::size_t stride = kPanelRows * cols;
   alignas(32) float out[2 * kPanelRows];
-  for (std::size_t t = 0; t < n; ++t) {
+  std::size_t t = 0;
+  // Two activation rows (texts of a batch) share each weight load; every output keeps the
+  // one-row loop's accumulation order (one accumulator per 8 rows, column by column).
+  for (; t + 2 <= n; t += 2) {
+    const float* x0 = x + t * cols;
+    const float* x1 = x0 + cols;
+    for (std::size_t q = 0; q < panels; q += 2) {
+      const bool two = q + 1 < panels;
+      const W* p0 = p + q * stride;
+      const W* p1 = two ? p0 + stride : p0;
+      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(), a3 = _mm256_setzero_ps();
+      __m256 b0 = _mm256_setzero_ps(), b1 = _mm256_setzero_ps(), b2 = _mm256_setzero_ps(), b3 = _mm256_setzero_ps();
+      for (std::size_t c = 0; c < cols; ++c) {
+        const __m256 w0 = load(p0 + c * kPanelRows), w1 = load(p0 + c * kPanelRows + 8);
+        const __m256 w2 = load(p1 + c * kPanelRows), w3 = load(p1 + c * kPanelRows + 8);
+        const __m256 x0v = _mm256_broadcast_ss(x0 + c), x1v = _mm256_broadcast_ss(x1 + c);
+        a0 = _mm256_fmadd_ps(w0, x0v, a0);
+        a1 = _mm256_fmadd_ps(w1, x0v, a1);
+        a2 = _mm256_fmadd_ps(w2, x0v, a2);
+        a3 = _mm256_fmadd_ps(w3, x0v, a3);
+        b0 = _mm256_fmadd_ps(w0, x1v, b0);
+        b1 = _mm256_fmadd_ps(w1, x1v, b1);
+        b2 = _mm256_fmadd_ps(w2, x1v, b2);
+        b3 = _mm256_fmadd_ps(w3, x1v, b3);
+      }
+      const std::size_t valid = std::min((two ? 2 : 1) * kPanelRows, rows - q * kPanelRows);
+      _mm256_store_ps(out, a0);
+      _mm256_store_ps(out + 8, a1);
+      _mm256_store_ps(out + 16, a2);
+      _mm256_store_ps(out + 24, a3);
+      for (std::size_t r = 0; r < valid; ++r) y[t * ldy + q * kPanelRows + r] = out[r];
+      _mm256_store_ps(out, b0);
+      _mm256_store_ps(out + 8, b1);
+      _mm256_store_ps(out + 16, b2);
+      _mm256_store_ps(out + 24, b3);
+      for (std::size_t r = 0; r < valid; ++r) y[(t + 1) * ldy + q * kPanelRows + r] = out[r];
+    }
+  }
+  for (; t < n; ++t) {
     const float* xt = x + t * cols;
     for (std::size_t q = 0; q < panels; q += 2) {
       const bool two = q + 1 < panels;
