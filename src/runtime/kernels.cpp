@@ -299,8 +299,10 @@ GYRE_AVX2 void matmul_packed_avx2(const W* p, std::size_t rows, std::size_t cols
       const bool two = q + 1 < panels;
       const W* p0 = p + q * stride;
       const W* p1 = two ? p0 + stride : p0;
-      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(), a3 = _mm256_setzero_ps();
-      __m256 b0 = _mm256_setzero_ps(), b1 = _mm256_setzero_ps(), b2 = _mm256_setzero_ps(), b3 = _mm256_setzero_ps();
+      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(),
+             a3 = _mm256_setzero_ps();
+      __m256 b0 = _mm256_setzero_ps(), b1 = _mm256_setzero_ps(), b2 = _mm256_setzero_ps(),
+             b3 = _mm256_setzero_ps();
       for (std::size_t c = 0; c < cols; ++c) {
         const __m256 w0 = load(p0 + c * kPanelRows), w1 = load(p0 + c * kPanelRows + 8);
         const __m256 w2 = load(p1 + c * kPanelRows), w3 = load(p1 + c * kPanelRows + 8);
@@ -500,8 +502,10 @@ GYRE_AVX512 void matmul_packed_avx512(const W* p, std::size_t rows, std::size_t 
     std::size_t q = 0;
     for (; q + 2 <= panels; q += 2) {
       const W* pq = p + q * stride;
-      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
-      __m512 b0 = _mm512_setzero_ps(), b1 = _mm512_setzero_ps(), b2 = _mm512_setzero_ps(), b3 = _mm512_setzero_ps();
+      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(),
+             a3 = _mm512_setzero_ps();
+      __m512 b0 = _mm512_setzero_ps(), b1 = _mm512_setzero_ps(), b2 = _mm512_setzero_ps(),
+             b3 = _mm512_setzero_ps();
       for (std::size_t c = 0; c < cols; ++c) {
         const __m512 w0 = load(pq + c * kPanelRows, all);
         const __m512 w1 = load(pq + stride + c * kPanelRows, all);
@@ -662,9 +666,9 @@ GYRE_VNNI void matmul_i8_vnni(const std::int8_t* w, const float* w_scale, const 
 // (time steps, or texts of a batch) share each weight load. No horizontal sums; the integer sums
 // are exact, so a row's result is the same for any R.
 template <std::size_t R>
-GYRE_VNNI inline void packed_i8_vnni_rows(const std::int8_t* p, const float* w_scale, const std::int32_t* w_sum,
-                                          std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t t0,
-                                          float* y, std::size_t ldy) {
+GYRE_VNNI inline void packed_i8_vnni_rows(const std::int8_t* p, const float* w_scale,
+                                          const std::int32_t* w_sum, std::size_t rows, std::size_t cols,
+                                          QuantizedRows x, std::size_t t0, float* y, std::size_t ldy) {
   const std::size_t panels = (rows + 15) / 16;
   const std::size_t groups = (cols + 3) / 4;
   const std::size_t full = cols / 4;
@@ -732,8 +736,8 @@ GYRE_VNNI inline void packed_i8_vnni_rows(const std::int8_t* p, const float* w_s
 }
 
 GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale, const std::int32_t* w_sum,
-                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
-                                     std::size_t ldy) {
+                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n,
+                                     float* y, std::size_t ldy) {
   std::size_t t = 0;
   for (; t + 4 <= n; t += 4) packed_i8_vnni_rows<4>(p, w_scale, w_sum, rows, cols, x, t, y, ldy);
   for (; t < n; ++t) packed_i8_vnni_rows<1>(p, w_scale, w_sum, rows, cols, x, t, y, ldy);
