@@ -5,6 +5,7 @@
 #include <limits>
 #include <nlohmann/json.hpp>
 #include <string>
+#include <utility>
 
 #include "eval/detail/table.hpp"
 #include "gyre/core/error.hpp"
@@ -435,6 +436,16 @@ MultiLabelAccumulator::MultiLabelAccumulator(std::span<const std::string> label_
   GYRE_CHECK(!names_.empty(), "multi-label metrics need at least one label name");
 }
 
+MultiLabelAccumulator::MultiLabelAccumulator(std::span<const std::string> label_names, double threshold,
+                                             std::span<const float> label_thresholds)
+    : MultiLabelAccumulator(label_names, threshold) {
+  if (label_thresholds.empty()) return;
+  GYRE_CHECK(label_thresholds.size() == names_.size(), std::to_string(label_thresholds.size()) +
+                                                           " thresholds for " +
+                                                           std::to_string(names_.size()) + " labels");
+  label_thresholds_.assign(label_thresholds.begin(), label_thresholds.end());
+}
+
 void MultiLabelAccumulator::add_scores(std::span<const std::uint8_t> gold, std::span<const float> scores) {
   GYRE_CHECK(scores.size() == names_.size(), "example " + std::to_string(examples_) + " has " +
                                                  std::to_string(scores.size()) + " scores for " +
@@ -444,7 +455,8 @@ void MultiLabelAccumulator::add_scores(std::span<const std::uint8_t> gold, std::
     if (!std::isfinite(scores[l]))
       throw Error("score " + std::to_string(static_cast<std::size_t>(examples_) * names_.size() + l) +
                   " is not finite");
-    decisions_[l] = static_cast<double>(scores[l]) >= threshold_ ? 1 : 0;
+    const double t = label_thresholds_.empty() ? threshold_ : label_thresholds_[l];
+    decisions_[l] = static_cast<double>(scores[l]) >= t ? 1 : 0;
   }
   add_decisions(gold, decisions_);
 }
@@ -477,6 +489,7 @@ MultiLabelMetrics MultiLabelAccumulator::finish() const {
   MultiLabelMetrics r;
   r.examples = examples_;
   r.threshold = threshold_;
+  r.label_thresholds = label_thresholds_;
   r.labels.resize(names_.size());
   for (std::size_t l = 0; l < names_.size(); ++l) {
     ClassScores& c = r.labels[l];
@@ -511,6 +524,12 @@ MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t
 
 MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
                                      std::span<const std::string> label_names, double threshold) {
+  return multilabel_metrics(gold, scores, label_names, threshold, {});
+}
+
+MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
+                                     std::span<const std::string> label_names, double threshold,
+                                     std::span<const float> label_thresholds) {
   GYRE_CHECK(scores.size() == gold.size(), "scores hold " + std::to_string(scores.size()) +
                                                " values, gold indicator matrix " +
                                                std::to_string(gold.size()));
@@ -519,10 +538,86 @@ MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::sp
   GYRE_CHECK(!gold.empty() && gold.size() % num_labels == 0,
              "gold indicator matrix has " + std::to_string(gold.size()) +
                  " values, not a positive multiple of " + std::to_string(num_labels) + " labels");
-  MultiLabelAccumulator acc(label_names, threshold);
+  MultiLabelAccumulator acc(label_names, threshold, label_thresholds);
   for (std::size_t i = 0; i < gold.size(); i += num_labels)
     acc.add_scores(gold.subspan(i, num_labels), scores.subspan(i, num_labels));
   return acc.finish();
+}
+
+namespace {
+
+// F1 = 2TP / (2TP + FP + FN) as an exact fraction (0/0 counts as 0), compared by cross
+// multiplication: counts are below 2^31 rows, so the products fit in 64 bits.
+struct F1Fraction {
+  std::int64_t num = 0, den = 0;
+  static F1Fraction of(std::int64_t tp, std::int64_t fp, std::int64_t positives) {
+    return {2 * tp, 2 * tp + fp + (positives - tp)};
+  }
+  // Value order with 0/0 == 0.
+  int compare(const F1Fraction& o) const {
+    const std::int64_t a = den == 0 ? 0 : num * (o.den == 0 ? 1 : o.den);
+    const std::int64_t b = o.den == 0 ? 0 : o.num * (den == 0 ? 1 : den);
+    return a < b ? -1 : a > b ? 1 : 0;
+  }
+};
+
+}  // namespace
+
+std::vector<float> tune_label_thresholds(std::span<const std::uint8_t> gold, std::span<const float> scores,
+                                         std::size_t num_labels, float global) {
+  GYRE_CHECK(num_labels > 0, "threshold tuning needs at least one label");
+  GYRE_CHECK(scores.size() == gold.size() && gold.size() % num_labels == 0,
+             "threshold tuning: " + std::to_string(gold.size()) + " gold indicators and " +
+                 std::to_string(scores.size()) + " scores for " + std::to_string(num_labels) + " labels");
+  GYRE_CHECK(global > 0.0f && global < 1.0f, "threshold tuning: the global threshold must be in (0, 1)");
+  GYRE_CHECK(gold.size() / num_labels < (std::size_t{1} << 30), "threshold tuning: too many rows");
+  const std::size_t n = gold.size() / num_labels;
+  std::vector<float> out(num_labels, global);
+  std::vector<std::pair<float, std::uint8_t>> column(n);
+  for (std::size_t l = 0; l < num_labels; ++l) {
+    std::int64_t positives = 0, tp_global = 0, fp_global = 0;
+    for (std::size_t i = 0; i < n; ++i) {
+      const float s = scores[i * num_labels + l];
+      const std::uint8_t g = gold[i * num_labels + l];
+      if (g > 1) throw Error("threshold tuning: indicator of row " + std::to_string(i) + " is not 0 or 1");
+      if (!(s >= 0.0f && s <= 1.0f))
+        throw Error("threshold tuning: score of row " + std::to_string(i) + " is not a probability");
+      column[i] = {s, g};
+      positives += g;
+      if (s >= global) (g ? tp_global : fp_global) += 1;
+    }
+    const F1Fraction at_global = F1Fraction::of(tp_global, fp_global, positives);
+    // Distinct scores, highest first; choosing the first k groups = a threshold in
+    // (next score, k-th score]. k = 0 chooses nothing: a threshold in (highest score, 1).
+    std::sort(column.begin(), column.end(), [](const auto& a, const auto& b) { return a.first > b.first; });
+    F1Fraction best = at_global;
+    bool improved = false;
+    float chosen = global;
+    double chosen_distance = 0;
+    std::int64_t tp = 0, fp = 0;
+    for (std::size_t i = 0;;) {
+      // Candidate: rows [0, i) chosen, by any threshold in (lo, hi] (below 1, above 0).
+      const double hi = i == 0 ? 1.0 : static_cast<double>(column[i - 1].first);
+      const double lo = i == n ? 0.0 : static_cast<double>(column[i].first);
+      float t = static_cast<float>((lo + hi) / 2);
+      if (!(t > lo && t <= hi)) t = static_cast<float>(hi);  // adjacent floats: hi itself
+      if (t > lo && t <= hi && t > 0.0f && t < 1.0f) {
+        const int c = F1Fraction::of(tp, fp, positives).compare(best);
+        const double distance = std::min(std::fabs(global - lo), std::fabs(global - hi));
+        if (c > 0 || (c == 0 && improved && distance < chosen_distance)) {
+          best = F1Fraction::of(tp, fp, positives);
+          improved = true;
+          chosen = t;
+          chosen_distance = distance;
+        }
+      }
+      if (i == n) break;
+      const float group = column[i].first;
+      while (i < n && column[i].first == group) (column[i++].second ? tp : fp) += 1;
+    }
+    out[l] = chosen;
+  }
+  return out;
 }
 
 nlohmann::json MultiLabelMetrics::to_json() const {
@@ -530,6 +625,7 @@ nlohmann::json MultiLabelMetrics::to_json() const {
   j["task"] = "multilabel";
   j["examples"] = examples;
   if (std::isfinite(threshold)) j["threshold"] = threshold;
+  if (!label_thresholds.empty()) j["label_thresholds"] = label_thresholds;
   j["exact_match"] = exact_match;
   j["labels"] = nlohmann::json::array();
   for (const auto& c : labels) j["labels"].push_back(scores_json(c));
@@ -546,7 +642,13 @@ std::string MultiLabelMetrics::to_table(int decimals) const {
   std::string out = table.render();
   out += "exact label-set match " + detail::fixed(exact_match, decimals) + " over " +
          std::to_string(examples) + " examples";
-  if (std::isfinite(threshold)) out += ", decision threshold " + detail::fixed(threshold, 2);
+  if (!label_thresholds.empty()) {
+    out += ", decision thresholds per label:";
+    for (std::size_t l = 0; l < labels.size() && l < label_thresholds.size(); ++l)
+      out += (l ? ", " : " ") + labels[l].name + " " + detail::fixed(label_thresholds[l], 2);
+  } else if (std::isfinite(threshold)) {
+    out += ", decision threshold " + detail::fixed(threshold, 2);
+  }
   out += "\n";
   return out;
 }

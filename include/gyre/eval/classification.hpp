@@ -185,6 +185,8 @@ struct MultiLabelMetrics {
   std::vector<ClassScores> labels;  // one per label id; all take part in the averages
   std::int64_t examples = 0;
   double threshold = 0.5;  // label predicted when score >= threshold (NaN when decisions given)
+  /// Per-label thresholds when the decisions used them (label order); empty otherwise.
+  std::vector<double> label_thresholds;
   AverageScores macro;
   AverageScores micro;
   AverageScores weighted;
@@ -202,6 +204,9 @@ class MultiLabelAccumulator {
   /// threshold: a label is predicted when its score >= threshold (add_scores); NaN when the
   /// caller gives decisions (add_decisions).
   MultiLabelAccumulator(std::span<const std::string> label_names, double threshold);
+  /// Label l is predicted when its score >= label_thresholds[l] (one per label, else Error).
+  MultiLabelAccumulator(std::span<const std::string> label_names, double threshold,
+                        std::span<const float> label_thresholds);
   /// One example: gold 0/1 indicators [L] and scores [L]. Throws gyre::Error on a size
   /// mismatch, an indicator other than 0/1 or a non-finite score.
   void add_scores(std::span<const std::uint8_t> gold, std::span<const float> scores);
@@ -213,6 +218,7 @@ class MultiLabelAccumulator {
  private:
   std::vector<std::string> names_;
   double threshold_;
+  std::vector<double> label_thresholds_;  // empty: threshold_ for every label
   std::int64_t examples_ = 0, exact_ = 0;
   std::vector<std::int64_t> support_, predicted_, correct_;
   std::vector<std::uint8_t> decisions_;  // scratch for add_scores
@@ -222,6 +228,23 @@ class MultiLabelAccumulator {
 /// per-label sigmoid probabilities); a label is predicted when its score >= threshold.
 MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
                                      std::span<const std::string> label_names, double threshold = 0.5);
+/// The same with a threshold per label (label_thresholds[l] for label l; empty = threshold for all).
+MultiLabelMetrics multilabel_metrics(std::span<const std::uint8_t> gold, std::span<const float> scores,
+                                     std::span<const std::string> label_names, double threshold,
+                                     std::span<const float> label_thresholds);
+
+/// Per-label decision thresholds tuned on labelled rows (gold [N x L] 0/1, scores [N x L]
+/// probabilities): for each label, a threshold in (0, 1) whose decisions (score >= threshold)
+/// give that label the highest F1 over the rows (F1 = 2TP / (2TP + FP + FN), the harmonic mean
+/// of precision and recall, van Rijsbergen 1979; 0 when it has no true positive). Every distinct
+/// set of decisions is tried once, represented by the midpoint of its interval of thresholds
+/// (between two adjacent distinct scores). Ties: `global` is kept whenever its F1 is the best
+/// (so a label never seen in the rows keeps it); otherwise the best interval nearest to `global`.
+/// Exact integer comparisons, so the result does not depend on rounding. Throws gyre::Error on a
+/// size mismatch, an indicator other than 0/1, a score outside [0, 1] or global outside (0, 1).
+std::vector<float> tune_label_thresholds(std::span<const std::uint8_t> gold, std::span<const float> scores,
+                                         std::size_t num_labels, float global);
+
 /// Same from already-made 0/1 decisions [N x L].
 MultiLabelMetrics multilabel_metrics_from_decisions(std::span<const std::uint8_t> gold,
                                                     std::span<const std::uint8_t> predicted,
