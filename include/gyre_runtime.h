@@ -76,6 +76,11 @@ const char* gyre_model_label(const gyre_model* model, size_t index) GYRE_NOEXCEP
 size_t gyre_model_temperature_count(const gyre_model* model) GYRE_NOEXCEPT;
 float gyre_model_temperature(const gyre_model* model, size_t index) GYRE_NOEXCEPT;
 
+/* Multi-label classifiers: the threshold label index is chosen at (probability >= threshold): the
+ * label's own threshold, tuned on dev when the model was trained, or the model's multi-label
+ * threshold when the file holds none. 0 for other models or when index is out of range. */
+float gyre_model_label_threshold(const gyre_model* model, size_t index) GYRE_NOEXCEPT;
+
 gyre_status gyre_context_new(const gyre_model* model, gyre_context** out) GYRE_NOEXCEPT;
 /* Probabilities from this context use the model's temperature (on != 0, the default) or are the
  * raw model outputs (on == 0). Never changes the best label, a tag or a span. */
@@ -85,6 +90,13 @@ void gyre_context_free(gyre_context* context) GYRE_NOEXCEPT;
 /* Classifier: probabilities[0..count) in label order, best = arg-max label. */
 gyre_status gyre_classify(gyre_context* context, const char* text, size_t length, const float** probabilities,
                           size_t* count, size_t* best) GYRE_NOEXCEPT;
+
+/* Labels chosen by the last gyre_classify on this context, in label order: the best label
+ * (softmax), or every label whose probability reaches its threshold (multi-label, see
+ * gyre_model_label_threshold; possibly none). Count, then label i (GYRE_ERROR if out of range or
+ * there was no gyre_classify call). */
+size_t gyre_classify_chosen_count(const gyre_context* context) GYRE_NOEXCEPT;
+gyre_status gyre_classify_chosen(const gyre_context* context, size_t i, size_t* label) GYRE_NOEXCEPT;
 
 /* Tagger: tokenizes and tags; then read tokens, tags and spans with the accessors below. */
 gyre_status gyre_tag(gyre_context* context, const char* text, size_t length, size_t* token_count,

@@ -195,6 +195,17 @@ TrainedModel load_trained_model(const fs::path& model_or_run, Engine engine) {
   return out;
 }
 
+void set_multi_label_threshold(TrainedModel& trained, float threshold) {
+  if (trained.spec.task != data::Task::kClassify || trained.spec.output != model::OutputKind::kSigmoid)
+    throw ConfigError("multi_label_threshold", trained.path.string() +
+                                                   " is not a multi-label model (its output is " +
+                                                   model::to_string(trained.spec.output) + ")");
+  trained.spec.threshold = threshold;
+  trained.spec.label_thresholds.clear();
+  model::validate(trained.spec);
+  if (trained.model) trained.model->set_thresholds(threshold, {});
+}
+
 void write_checkpoint(const fs::path& path, const model::SequenceModel& model, const text::VocabFile& vocab,
                       optim::Optimizer* optimizer, const json& trainer_state, const json& config) {
   json header = model_header(model.spec(), vocab);

@@ -296,6 +296,15 @@ void SequenceModel::set_temperature(std::vector<float> temperature) {
   spec_.temperature = std::move(s.temperature);
 }
 
+void SequenceModel::set_thresholds(float threshold, std::vector<float> label_thresholds) {
+  ModelSpec s = spec_;
+  s.threshold = threshold;
+  s.label_thresholds = std::move(label_thresholds);
+  validate(s);
+  spec_.threshold = s.threshold;
+  spec_.label_thresholds = std::move(s.label_thresholds);
+}
+
 void SequenceModel::embed(const data::Batch& batch) {
   if (!chars_) {
     embedding_->forward(ids_, x_);

@@ -25,7 +25,10 @@ runtime::Architecture architecture(const ModelSpec& s) {
   a.temperature = s.temperature;
   if (s.task == data::Task::kClassify) {
     a.pooling = s.pooling;
-    if (s.output == OutputKind::kSigmoid) a.multi_label_threshold = s.threshold;
+    if (s.output == OutputKind::kSigmoid) {
+      a.multi_label_threshold = s.threshold;
+      a.label_thresholds = s.label_thresholds;
+    }
   } else {
     a.tag_scheme = s.tag_scheme;
   }
@@ -56,6 +59,7 @@ ModelSpec spec_from_architecture(const runtime::Architecture& a, const std::vect
   if (a.task == data::Task::kClassify) {
     s.pooling = a.pooling;
     s.threshold = a.output == OutputKind::kSigmoid ? a.multi_label_threshold : 0.5f;
+    if (a.output == OutputKind::kSigmoid) s.label_thresholds = a.label_thresholds;
   } else {
     s.tag_scheme = a.tag_scheme;
   }
@@ -101,6 +105,15 @@ void validate(const ModelSpec& s) {
   if (s.task == data::Task::kClassify && s.tag_scheme != data::TagScheme::kNone)
     throw ConfigError("tag_scheme", "only taggers have a tag scheme");
   if (!(s.threshold > 0.0f && s.threshold < 1.0f)) throw ConfigError("threshold", "must be in (0, 1)");
+  if (!s.label_thresholds.empty()) {
+    if (s.output != OutputKind::kSigmoid)
+      throw ConfigError("label_thresholds", "only a multi-label (sigmoid) model has per-label thresholds");
+    if (s.label_thresholds.size() != s.labels.size())
+      throw ConfigError("label_thresholds", "needs " + std::to_string(s.labels.size()) + " values, found " +
+                                                std::to_string(s.label_thresholds.size()));
+    for (const float t : s.label_thresholds)
+      if (!(t > 0.0f && t < 1.0f)) throw ConfigError("label_thresholds", "every threshold must be in (0, 1)");
+  }
   const std::size_t temperatures = s.output == OutputKind::kSigmoid ? s.labels.size() : 1;
   if (!s.temperature.empty() && s.temperature.size() != temperatures)
     throw ConfigError("temperature", "needs " + std::to_string(temperatures) + " value(s), found " +

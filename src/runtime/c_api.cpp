@@ -20,6 +20,7 @@ struct gyre_model {
 struct gyre_context {
   gyre::runtime::Context context;
   const gyre::runtime::TagResult* last_tag = nullptr;
+  const gyre::runtime::ClassifyResult* last_classify = nullptr;
   // Batched calls: the texts as views (kept, so a repeated batch allocates nothing) and the
   // results of the last successful call.
   std::vector<std::string_view> views = {};
@@ -70,9 +71,10 @@ gyre_status null_argument(const char* what) noexcept {
 
 // An index past the last gyre_tag call's tokens or spans (or no call yet); formatted into the
 // fixed buffer, so it does not allocate either.
-gyre_status out_of_range(const char* function, const char* what, std::size_t i) noexcept {
-  std::snprintf(g_last_error, sizeof g_last_error, "%s: no %s %zu in the last gyre_tag call", function, what,
-                i);
+gyre_status out_of_range(const char* function, const char* what, std::size_t i,
+                         const char* call = "gyre_tag") noexcept {
+  std::snprintf(g_last_error, sizeof g_last_error, "%s: no %s %zu in the last %s call", function, what, i,
+                call);
   return GYRE_ERROR;
 }
 
@@ -170,6 +172,13 @@ float gyre_model_temperature(const gyre_model* model, size_t index) noexcept {
   return model->model.architecture().temperature[index];
 }
 
+float gyre_model_label_threshold(const gyre_model* model, size_t index) noexcept {
+  if (!model) return 0.0f;
+  const auto& a = model->model.architecture();
+  if (a.output != gyre::runtime::Output::kSigmoid || index >= model->model.labels().size()) return 0.0f;
+  return a.threshold_of(index);
+}
+
 gyre_status gyre_context_set_calibrated(gyre_context* context, int on) noexcept {
   if (!context) return null_argument("context");
   return guarded([&] { context->context.set_calibrated(on != 0); });
@@ -183,12 +192,26 @@ gyre_status gyre_classify(gyre_context* context, const char* text, size_t length
                           size_t* count, size_t* best) noexcept {
   if (!context || (!text && length) || !probabilities || !count || !best)
     return null_argument("context, text, probabilities, count and best");
+  context->last_classify = nullptr;
   return guarded([&] {
     const auto& r = context->context.classify(std::string_view(text ? text : "", length));
+    context->last_classify = &r;
     *probabilities = r.probabilities.data();
     *count = r.probabilities.size();
     *best = r.best;
   });
+}
+
+size_t gyre_classify_chosen_count(const gyre_context* context) noexcept {
+  return context && context->last_classify ? context->last_classify->chosen.size() : 0;
+}
+
+gyre_status gyre_classify_chosen(const gyre_context* context, size_t i, size_t* label) noexcept {
+  if (!context || !label) return null_argument("context and label");
+  if (!context->last_classify || i >= context->last_classify->chosen.size())
+    return out_of_range("gyre_classify_chosen", "chosen label", i, "gyre_classify");
+  *label = context->last_classify->chosen[i];
+  return GYRE_OK;
 }
 
 gyre_status gyre_tag(gyre_context* context, const char* text, size_t length, size_t* token_count,
@@ -243,6 +266,7 @@ gyre_status gyre_classify_batch(gyre_context* context, const char* const* texts,
   if (!context) return null_argument("context");
   context->classify_batch = {};  // either call may reuse the other's buffers
   context->tag_batch = {};
+  context->last_classify = nullptr;  // and those of gyre_classify
   if (!batch_views(context, texts, lengths, n)) return GYRE_ERROR;
   return guarded([&] { context->classify_batch = context->context.classify_batch(context->views); });
 }
@@ -265,6 +289,7 @@ gyre_status gyre_tag_batch(gyre_context* context, const char* const* texts, cons
   if (!context) return null_argument("context");
   context->classify_batch = {};  // either call may reuse the other's buffers
   context->tag_batch = {};
+  context->last_classify = nullptr;  // and those of gyre_classify
   if (!batch_views(context, texts, lengths, n)) return GYRE_ERROR;
   return guarded([&] { context->tag_batch = context->context.tag_batch(context->views); });
 }

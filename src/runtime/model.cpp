@@ -561,7 +561,7 @@ void decide_classify(const Impl& m, bool calibrated, const float* logits, float*
     if (probs[i] > probs[best]) best = i;
   if (m.arch.output == Output::kSigmoid) {
     for (std::uint32_t i = 0; i < C; ++i)
-      if (probs[i] >= m.arch.multi_label_threshold) chosen[n_chosen++] = i;
+      if (probs[i] >= m.arch.threshold_of(i)) chosen[n_chosen++] = i;
   } else {
     chosen[n_chosen++] = best;
   }

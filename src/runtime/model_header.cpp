@@ -176,7 +176,8 @@ Architecture read_architecture(const Fields& a) {
   arch.task = a.choice("task", kTasks, {Task::kClassify, Task::kTag});
   if (arch.task == Task::kClassify) {
     a.only({"task", "cell", "embedding_size", "hidden_size", "layers", "bidirectional", "pooling", "output",
-            "multi_label_threshold", "temperature", "char_embedding_size", "char_filters", "char_width"});
+            "multi_label_threshold", "label_thresholds", "temperature", "char_embedding_size", "char_filters",
+            "char_width"});
   } else {
     a.only({"task", "cell", "embedding_size", "hidden_size", "layers", "bidirectional", "output",
             "tag_scheme", "temperature", "char_embedding_size", "char_filters", "char_width"});
@@ -194,8 +195,22 @@ Architecture read_architecture(const Fields& a) {
       if (!t.is_number() || !(t.as_number() > 0.0 && t.as_number() < 1.0))
         a.fail(a.path("multi_label_threshold") + " must be a number in (0, 1)");
       arch.multi_label_threshold = static_cast<float>(t.as_number());
+      if (a.has("label_thresholds")) {
+        // Its length (one per label) is checked once the labels are read (parse_model_header).
+        const Json& l = a.get("label_thresholds");
+        if (!l.is_array() || l.size() == 0 || l.size() > ModelHeaderLimits::kMaxLabels)
+          a.fail(a.path("label_thresholds") + " must be a non-empty array of numbers");
+        for (const Json& v : l.items()) {
+          if (!v.is_number() || !(v.as_number() > 0.0 && v.as_number() < 1.0))
+            a.fail(a.path("label_thresholds") + " holds " + v.dump() +
+                   "; every threshold must be a number in (0, 1)");
+          arch.label_thresholds.push_back(static_cast<float>(v.as_number()));
+        }
+      }
     } else if (a.has("multi_label_threshold")) {
       a.fail(a.path("multi_label_threshold") + " is only for output \"sigmoid\"");
+    } else if (a.has("label_thresholds")) {
+      a.fail(a.path("label_thresholds") + " is only for output \"sigmoid\"");
     }
   } else {
     arch.output = a.choice("output", kOutputs, {Output::kSoftmax, Output::kCrf});
@@ -346,6 +361,10 @@ ModelHeader parse_model_header(std::string_view header_json, const std::string& 
     top.fail("\"architecture.temperature\" has " + std::to_string(temperatures) + " values; output " +
              to_string(out.architecture.output) + " with " + std::to_string(out.labels.size()) +
              " labels needs " + std::to_string(expected));
+  const std::size_t thresholds = out.architecture.label_thresholds.size();
+  if (thresholds != 0 && thresholds != out.labels.size())
+    top.fail("\"architecture.label_thresholds\" has " + std::to_string(thresholds) + " values for " +
+             std::to_string(out.labels.size()) + " labels");
   const Json& tok = top.get("tokenizer");
   if (!tok.is_object()) top.fail("\"tokenizer\" must be an object");
   out.tokenizer = read_tokenizer(Fields(name, tok, "tokenizer."));
@@ -385,6 +404,11 @@ std::string model_header_json(const ModelHeader& h) {
   arch.set("output", Json::string(to_string(a.output)));
   if (a.task == Task::kClassify && a.output == Output::kSigmoid)
     arch.set("multi_label_threshold", Json::number(shortest(a.multi_label_threshold)));
+  if (a.task == Task::kClassify && a.output == Output::kSigmoid && !a.label_thresholds.empty()) {
+    Json t = Json::array();
+    for (const float v : a.label_thresholds) t.push_back(Json::number(shortest(v)));
+    arch.set("label_thresholds", std::move(t));
+  }
   if (a.task == Task::kTag) arch.set("tag_scheme", Json::string(to_string(a.tag_scheme)));
   if (!a.temperature.empty()) {
     Json t = Json::array();

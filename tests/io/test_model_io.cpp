@@ -4,6 +4,7 @@
 
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <cmath>
 #include <cstring>
 #include <filesystem>
@@ -132,6 +133,11 @@ TEST_CASE("one validator: the library refuses exactly what the runtime refuses (
        "missing \"architecture.pooling\""},
       {"threshold on a softmax model", [](json& h) { h["architecture"]["multi_label_threshold"] = 0.5; },
        "only for output \"sigmoid\""},
+      {"label thresholds on a softmax model",
+       [](json& h) {
+         h["architecture"]["label_thresholds"] = json::array({0.5, 0.5, 0.5});
+       },
+       "\"architecture.label_thresholds\" is only for output \"sigmoid\""},
       {"missing format", [](json& h) { h.erase("format"); }, "missing \"format\""},
       {"other format", [](json& h) { h["format"] = "gyre-vocab"; }, "\"format\" is \"gyre-vocab\""},
       {"vocabulary without the reserved tokens first",
@@ -177,6 +183,115 @@ TEST_CASE("a temperature in the header survives export and loading, and is appli
   const auto& pb = b.classify("kettle broken again");
   REQUIRE(pb.best == pa.best);
   CHECK(top_calibrated <= pb.probabilities[pb.best] + 1e-7f);  // T > 1 softens
+}
+
+TEST_CASE("per-label thresholds: stored, read back, applied alike by the library and the runtime", "[io]") {
+  auto spec = classifier_spec();
+  spec.output = gyre::model::OutputKind::kSigmoid;
+  auto trained = gyre::test::random_model(spec, 13);
+  // Texts as vocabulary ids; the library's sigmoid probabilities for each.
+  const std::vector<std::vector<std::string>> texts = {{"the", "kettle", "please"},
+                                                       {"can", "you", "come", "on", "monday", "?"},
+                                                       {"oven", "!"},
+                                                       {"washer", "at", "3pm", "is", "fine"},
+                                                       {"thanks", "."},
+                                                       {"fridge", "dryer", "kettle"},
+                                                       {"please", "come", "at", "3pm"},
+                                                       {"the", "oven", "is", "fine", ","}};
+  std::vector<gyre::data::EncodedExample> encoded;
+  for (const auto& t : texts) {
+    gyre::data::EncodedExample ex;
+    for (const auto& token : t) ex.ids.push_back(trained.vocab.vocab.id(token));
+    ex.targets = {0};
+    encoded.push_back(std::move(ex));
+  }
+  std::vector<std::size_t> all(encoded.size());
+  for (std::size_t i = 0; i < all.size(); ++i) all[i] = i;
+  gyre::data::Batch batch;
+  gyre::data::fill_batch(encoded, all, batch);
+  gyre::model::Prediction pred;
+  trained.model->predict(batch, pred);
+  const std::size_t C = trained.spec.labels.size();
+  // Per label, a threshold midway between the 4th and 5th highest probabilities: four texts
+  // chosen per label, a different threshold for each label, none near a probability.
+  std::vector<float> thresholds;
+  std::vector<std::vector<float>> probs(encoded.size());
+  for (std::size_t c = 0; c < C; ++c) {
+    std::vector<float> column;
+    for (std::size_t b = 0; b < encoded.size(); ++b) {
+      const auto row = static_cast<Eigen::Index>(std::find(batch.examples.begin(), batch.examples.end(), b) -
+                                                 batch.examples.begin());
+      column.push_back(pred.probs(row, static_cast<Eigen::Index>(c)));
+      probs[b].push_back(column.back());
+    }
+    std::sort(column.begin(), column.end(), std::greater<>());
+    REQUIRE(column[3] - column[4] > 1e-4f);
+    thresholds.push_back((column[3] + column[4]) / 2);
+  }
+  trained.model->set_thresholds(0.5f, thresholds);
+  trained.spec = trained.model->spec();
+  const fs::path file = tmp_dir() / "label-thresholds.gyre";
+  gyre::io::export_model(trained, file, gyre::runtime::DType::kF32);
+
+  // Read back exactly by both readers (shortest decimal that reads back as the same float).
+  CHECK(gyre::io::load_trained_model(file).spec.label_thresholds == thresholds);
+  const auto rt = gyre::runtime::Model::load(file.string());
+  CHECK(rt.architecture().label_thresholds == thresholds);
+  // The runtime's chosen labels are the library's probabilities decided at each label's threshold.
+  gyre::runtime::Context ctx(rt);
+  std::size_t differs_from_global = 0;
+  for (std::size_t b = 0; b < encoded.size(); ++b) {
+    const std::vector<std::uint32_t> ids(encoded[b].ids.begin(), encoded[b].ids.end());
+    const auto& r = ctx.classify_ids(ids);
+    std::vector<std::uint32_t> expected;
+    for (std::uint32_t c = 0; c < C; ++c) {
+      CHECK(std::fabs(r.probabilities[c] - probs[b][c]) < 1e-5f);
+      if (probs[b][c] >= trained.spec.threshold_of(c)) expected.push_back(c);
+      differs_from_global += (probs[b][c] >= thresholds[c]) != (probs[b][c] >= 0.5f);
+    }
+    CHECK(std::vector<std::uint32_t>(r.chosen.begin(), r.chosen.end()) == expected);
+  }
+  CHECK(differs_from_global > 0);  // the test would not tell the thresholds apart otherwise
+
+  SECTION("a file without the key (written before it existed) loads; every label uses the global threshold") {
+    const auto old = with_header(file, "no-label-thresholds.gyre",
+                                 [](json& h) { h["architecture"].erase("label_thresholds"); });
+    const auto lib = gyre::io::load_trained_model(old);
+    CHECK(lib.spec.label_thresholds.empty());
+    const auto rt_old = gyre::runtime::Model::load(old.string());
+    gyre::runtime::Context c_old(rt_old);
+    for (std::size_t b = 0; b < encoded.size(); ++b) {
+      const std::vector<std::uint32_t> ids(encoded[b].ids.begin(), encoded[b].ids.end());
+      const auto& r = c_old.classify_ids(ids);
+      for (std::uint32_t c = 0; c < C; ++c) {
+        CHECK(rt_old.architecture().threshold_of(c) == 0.5f);
+        const bool chosen = std::find(r.chosen.begin(), r.chosen.end(), c) != r.chosen.end();
+        CHECK(chosen == (r.probabilities[c] >= 0.5f));
+      }
+    }
+  }
+  SECTION("a bad list is refused by both readers") {
+    refused_by_both(with_header(file, "lt-count.gyre",
+                                [](json& h) {
+                                  h["architecture"]["label_thresholds"] = json::array({0.2, 0.4});
+                                }),
+                    "\"architecture.label_thresholds\" has 2 values for 3 labels");
+    refused_by_both(
+        with_header(file, "lt-one.gyre", [](json& h) { h["architecture"]["label_thresholds"][1] = 1.0; }),
+        "every threshold must be a number in (0, 1)");
+    refused_by_both(with_header(file, "lt-empty.gyre",
+                                [](json& h) { h["architecture"]["label_thresholds"] = json::array(); }),
+                    "must be a non-empty array of numbers");
+  }
+  SECTION("eval and predict --multi-label-threshold: one threshold replaces them all") {
+    auto lib = gyre::io::load_trained_model(file);
+    gyre::io::set_multi_label_threshold(lib, 0.25f);
+    CHECK(lib.spec.label_thresholds.empty());
+    CHECK(lib.model->spec().threshold_of(2) == 0.25f);
+    auto softmax = gyre::io::load_trained_model(exported(gyre::runtime::DType::kF32, "softmax-lt.gyre"));
+    CHECK_THROWS_WITH(gyre::io::set_multi_label_threshold(softmax, 0.25f),
+                      Contains("is not a multi-label model"));
+  }
 }
 
 TEST_CASE("NaN or infinite weights and overflowing int8 scales are refused (issue 10 item 7)", "[io]") {

@@ -56,6 +56,14 @@ static int run_model(const char* dir, const char* name) {
         if (p[i] > p[best]) CHECK(0);
       }
       {
+        /* Softmax classifiers choose the best label only and have no multi-label thresholds. */
+        size_t chosen = n;
+        CHECK(gyre_classify_chosen_count(ctx) == 1);
+        CHECK(gyre_classify_chosen(ctx, 0, &chosen) == GYRE_OK && chosen == best);
+        CHECK(gyre_classify_chosen(ctx, 1, &chosen) == GYRE_ERROR);
+        CHECK(gyre_model_label_threshold(model, 0) == 0.0f);
+      }
+      {
         /* Occlusion: one finite score per token of the text, tokens readable. */
         const float* scores = NULL;
         size_t count = 0, k;

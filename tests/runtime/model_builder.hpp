@@ -23,6 +23,7 @@ struct RefModel {
   std::string tokenizer_mode = "whitespace";
   bool normalize = false;  // nfkc + case_fold (need ICU)
   double threshold = 0.5;
+  std::vector<double> label_thresholds;  // sigmoid: "architecture.label_thresholds" when not empty
   std::vector<std::string> labels = {"alpha", "beta", "gamma"};
   std::vector<std::string> words;   // vocabulary from id 2 on (V = words.size() + 2); empty: w2 .. w{V-1}
   std::vector<double> temperature;  // architecture.temperature when not empty
@@ -86,6 +87,11 @@ struct RefModel {
     if (task == "classify") {
       arch.set("pooling", Json::string(pooling));
       if (output == "sigmoid") arch.set("multi_label_threshold", Json::number(threshold));
+      if (output == "sigmoid" && !label_thresholds.empty()) {
+        Json t = Json::array();
+        for (const double v : label_thresholds) t.push_back(Json::number(v));
+        arch.set("label_thresholds", std::move(t));
+      }
     } else {
       arch.set("tag_scheme", Json::string(scheme));
     }

@@ -10,6 +10,7 @@
 #include <vector>
 
 #include "gyre/runtime/model.hpp"
+#include "gyre_runtime.h"
 #include "model_builder.hpp"
 #include "runtime/detail/spans.hpp"
 
@@ -119,6 +120,65 @@ TEST_CASE("multi-label sigmoid classifier", "[runtime][inference]") {
     }
     REQUIRE(std::vector<std::uint32_t>(got.chosen.begin(), got.chosen.end()) == chosen);
   }
+}
+
+TEST_CASE("multi-label classifier with a threshold per label, through C++ and the C API",
+          "[runtime][inference]") {
+  // Reference: the plain-loop model of model_builder.hpp; a label is chosen when its probability
+  // reaches its own threshold (architecture.label_thresholds, docs/model-format.md).
+  RefModel r;
+  r.output = "sigmoid";
+  r.threshold = 0.5;
+  r.labels = {"a", "b", "c", "d", "e"};
+  r.label_thresholds = {0.2, 0.35, 0.5, 0.65, 0.8};
+  r.randomize(7);
+  Loaded l(r);
+  REQUIRE(l.model.architecture().label_thresholds == std::vector<float>{0.2f, 0.35f, 0.5f, 0.65f, 0.8f});
+  Context ctx(l.model);
+  gyre_model* cm = nullptr;
+  REQUIRE(gyre_model_load_buffer(l.bytes.data(), l.bytes.size(), &cm) == GYRE_OK);
+  for (std::size_t i = 0; i < r.C(); ++i)
+    CHECK(gyre_model_label_threshold(cm, i) == static_cast<float>(r.label_thresholds[i]));
+  CHECK(gyre_model_label_threshold(cm, r.C()) == 0.0f);
+  gyre_context* cc = nullptr;
+  REQUIRE(gyre_context_new(cm, &cc) == GYRE_OK);
+  size_t label = 0;
+  CHECK(gyre_classify_chosen_count(cc) == 0);
+  CHECK(gyre_classify_chosen(cc, 0, &label) == GYRE_ERROR);  // no gyre_classify call yet
+  std::mt19937 rng(8);
+  std::size_t unlike_global = 0;
+  for (int rep = 0; rep < 20; ++rep) {
+    const auto ids = random_ids(rng, 6, r.V);
+    const auto want = r.classify(ids);
+    const auto& got = ctx.classify_ids(ids);
+    std::vector<std::uint32_t> chosen;
+    for (std::uint32_t i = 0; i < r.C(); ++i) {
+      REQUIRE_THAT(got.probabilities[i], WithinAbs(want[i], 1e-5));
+      if (want[i] >= r.label_thresholds[i]) chosen.push_back(i);
+      unlike_global += (want[i] >= r.label_thresholds[i]) != (want[i] >= 0.5);
+    }
+    CHECK(std::vector<std::uint32_t>(got.chosen.begin(), got.chosen.end()) == chosen);
+    // The C API on the text of these ids ("w<id>", the builder's vocabulary; "zzz" is unknown,
+    // id 1) decides the same.
+    std::string text;
+    for (const auto id : ids)
+      text += (text.empty() ? "" : " ") + (id == 1 ? "zzz" : std::string(l.model.token(id)));
+    const float* probs = nullptr;
+    size_t count = 0, best = 0;
+    REQUIRE(gyre_classify(cc, text.data(), text.size(), &probs, &count, &best) == GYRE_OK);
+    std::vector<std::uint32_t> c_chosen;
+    for (size_t i = 0; i < gyre_classify_chosen_count(cc); ++i) {
+      REQUIRE(gyre_classify_chosen(cc, i, &label) == GYRE_OK);
+      c_chosen.push_back(static_cast<std::uint32_t>(label));
+    }
+    CHECK(c_chosen == chosen);
+    CHECK(gyre_classify_chosen(cc, c_chosen.size(), &label) == GYRE_ERROR);
+    CHECK_THAT(gyre_last_error(), Contains("no chosen label " + std::to_string(c_chosen.size()) +
+                                           " in the last gyre_classify call"));
+  }
+  CHECK(unlike_global > 0);  // the thresholds changed some decisions
+  gyre_context_free(cc);
+  gyre_model_free(cm);
 }
 
 TEST_CASE("text goes through the tokenizer and the vocabulary", "[runtime][inference]") {

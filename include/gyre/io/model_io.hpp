@@ -64,6 +64,12 @@ void refuse_version1_run(const std::filesystem::path& dir);
 /// anything missing or inconsistent, IoError if it cannot be read.
 TrainedModel load_trained_model(const std::filesystem::path& model_or_run, Engine engine = Engine::kLibrary);
 
+/// Replaces a multi-label model's decision thresholds (its global one and any tuned per label)
+/// by `threshold` for every label, in spec and, when loaded, the library model (eval and predict
+/// --multi-label-threshold; runtime predictions are re-decided with train::decide_labels).
+/// Throws ConfigError("multi_label_threshold", ...) for a model that is not multi-label.
+void set_multi_label_threshold(TrainedModel& trained, float threshold);
+
 /// Writes a checkpoint atomically: parameters, optimizer state (if given), the trainer's state
 /// and the resolved config.
 void write_checkpoint(const std::filesystem::path& path, const model::SequenceModel& model,

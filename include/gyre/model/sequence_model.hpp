@@ -112,6 +112,10 @@ class SequenceModel {
   /// Sets the temperature scaling (see ModelSpec::temperature; empty removes it). Throws
   /// ConfigError on a wrong count or a value outside [0.01, 100].
   void set_temperature(std::vector<float> temperature);
+  /// Sets the multi-label decision thresholds (ModelSpec::threshold and label_thresholds; an
+  /// empty per-label list means every label uses `threshold`). Throws ConfigError when they do
+  /// not fit the spec (a softmax model, a wrong count, a value outside (0, 1)).
+  void set_thresholds(float threshold, std::vector<float> label_thresholds);
   /// predict() applies the temperature (on, the default) or gives the raw outputs (off).
   void set_calibrated(bool on) noexcept { calibrated_ = on; }
   bool calibrated() const noexcept { return calibrated_; }

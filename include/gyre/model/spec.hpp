@@ -33,6 +33,9 @@ struct ModelSpec {
   std::vector<std::string> labels;                      // class names, or tag names for taggers (id order)
   data::TagScheme tag_scheme = data::TagScheme::kNone;  // taggers: kBio | kBioes (kNone: plain labels)
   float threshold = 0.5f;                               // sigmoid (multi-label) decision threshold
+  /// Sigmoid only: one threshold per label, tuned on dev (runtime::Architecture::label_thresholds);
+  /// empty = every label uses `threshold`.
+  std::vector<float> label_thresholds;
   /// Temperature scaling fitted on dev at the end of training (runtime::Architecture::temperature):
   /// empty = none; 1 value (softmax, CRF) or one per label (sigmoid).
   std::vector<float> temperature;
@@ -47,6 +50,11 @@ struct ModelSpec {
   bool has_char_encoder() const noexcept { return char_filters > 0; }
   /// Width of the recurrent stack's input.
   int input_size() const noexcept { return embedding_size + char_filters; }
+
+  /// Sigmoid: the threshold label `label` is chosen at (probability >= it).
+  float threshold_of(std::size_t label) const noexcept {
+    return label < label_thresholds.size() ? label_thresholds[label] : threshold;
+  }
 
   int num_labels() const noexcept { return static_cast<int>(labels.size()); }
   int directions() const noexcept { return bidirectional ? 2 : 1; }

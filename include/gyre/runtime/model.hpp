@@ -35,7 +35,8 @@ struct ClassifyResult {
   Span<const float> logits;          // the output layer's scores, before temperature and softmax/sigmoid
   Span<const float> features;        // the pooled representation the output layer reads
   std::uint32_t best = 0;            // arg-max label
-  Span<const std::uint32_t> chosen;  // softmax: {best}; sigmoid: labels with p >= threshold
+  Span<const std::uint32_t> chosen;  // softmax: {best}; sigmoid: labels with p >= their threshold
+                                     // (Architecture::threshold_of)
   std::size_t token_count = 0;
 };
 

@@ -52,9 +52,14 @@ struct Architecture {
   std::size_t hidden_size = 0;
   std::size_t layers = 1;
   bool bidirectional = false;
-  Pooling pooling = Pooling::kLast;         // classify only
-  Output output = Output::kSoftmax;         // classify: softmax | sigmoid; tag: softmax | crf
-  float multi_label_threshold = 0.5f;       // output sigmoid only, in (0, 1)
+  Pooling pooling = Pooling::kLast;    // classify only
+  Output output = Output::kSoftmax;    // classify: softmax | sigmoid; tag: softmax | crf
+  float multi_label_threshold = 0.5f;  // output sigmoid only, in (0, 1)
+  /// Output sigmoid only: one decision threshold per label (label order), each in (0, 1), tuned
+  /// on dev at the end of training (gyre/eval/classification.hpp tune_label_thresholds). Empty =
+  /// every label uses multi_label_threshold. Optional header key "architecture.label_thresholds"
+  /// (files written before it existed have none).
+  std::vector<float> label_thresholds;
   TagScheme tag_scheme = TagScheme::kNone;  // tag only
   /// Temperature scaling fitted on dev (gyre/runtime/calibration.hpp): empty = none; one value
   /// for softmax and CRF outputs, one per label for sigmoid. Optional header key
@@ -67,6 +72,10 @@ struct Architecture {
   std::size_t char_width = 0;  // odd
 
   bool has_char_encoder() const { return char_filters > 0; }
+  /// Output sigmoid: the threshold label `label` is chosen at (probability >= it).
+  float threshold_of(std::size_t label) const {
+    return label < label_thresholds.size() ? label_thresholds[label] : multi_label_threshold;
+  }
   /// Width of the recurrent stack's input: the word embedding, then the character features.
   std::size_t input_size() const { return embedding_size + char_filters; }
   std::size_t directions() const { return bidirectional ? 2 : 1; }
