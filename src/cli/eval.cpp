@@ -218,10 +218,14 @@ json confident_mistakes(const EvalOptions& o, const io::TrainedModel& trained, c
 
 ExitCode run_eval(const EvalOptions& o) {
   // An exported file is scored by the embedded runtime: what an application gets, int8 included.
-  const io::TrainedModel trained = io::load_trained_model(o.model, io::Engine::kRuntimeForExported);
+  io::TrainedModel trained = io::load_trained_model(o.model, io::Engine::kRuntimeForExported);
+  if (o.given->given.contains("multi_label_threshold"))
+    io::set_multi_label_threshold(trained, o.given->given["multi_label_threshold"].get<float>());
   const LabelledData data = load_labelled(o.test, trained, model_read_options(trained, o.given->given));
-  auto result = trained.runtime ? train::evaluate(*trained.runtime, data.encoded, true)
-                                : train::evaluate(*trained.model, data.encoded, true);
+  auto predictions = trained.runtime ? train::predict_all(*trained.runtime, data.encoded)
+                                     : train::predict_all(*trained.model, data.encoded);
+  train::decide_labels(trained.spec, predictions);  // the thresholds in use (--multi-label-threshold)
+  auto result = train::score(trained.spec, data.encoded, std::move(predictions), true);
   json report = result.to_json();
   report["model"] = trained.path.string();
   report["data"] = o.test;
@@ -270,7 +274,8 @@ const RegisterCommand kRegister{
           "--no-baseline", o->no_baseline,
           "skip the baselines (the linear one refitted on the run's training split, and for taggers the "
           "most-frequent-tag one)");
-      add_train_setting_options(sub, o->given, {}, {"text_column", "label_column", "skip_bad_lines"});
+      add_train_setting_options(sub, o->given, {},
+                                {"text_column", "label_column", "skip_bad_lines", "multi_label_threshold"});
       return [o] { return run_eval(*o); };
     }};
 

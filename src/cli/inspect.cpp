@@ -53,6 +53,12 @@ void print_description(const runtime::ModelHeader& header, const runtime::ModelF
     std::cout << ", multi-label threshold " << a.multi_label_threshold;
   if (a.task == runtime::Task::kTag) std::cout << ", tag scheme " << runtime::to_string(a.tag_scheme);
   std::cout << '\n';
+  if (!a.label_thresholds.empty()) {
+    std::cout << "thresholds   per label (tuned on dev):";
+    for (std::size_t i = 0; i < a.label_thresholds.size() && i < header.labels.size(); ++i)
+      std::cout << (i ? ", " : " ") << header.labels[i] << ' ' << a.label_thresholds[i];
+    std::cout << '\n';
+  }
   std::cout << "calibration  ";
   if (a.temperature.empty()) std::cout << "none (raw probabilities)";
   for (std::size_t i = 0; i < a.temperature.size(); ++i)

@@ -162,9 +162,16 @@ void append(std::string& out, const std::string& line) {
 // One worker: a model replica and a tokenizer; turns one batch of raw lines into its output
 // records (appended to a string, written by the caller in input order).
 class BatchWorker {
+  // --multi-label-threshold replaces the model's thresholds.
+  static io::TrainedModel with_threshold(io::TrainedModel trained, const PredictOptions& o) {
+    if (o.given->given.contains("multi_label_threshold"))
+      io::set_multi_label_threshold(trained, o.given->given["multi_label_threshold"].get<float>());
+    return trained;
+  }
+
  public:
   BatchWorker(io::TrainedModel trained, const PredictOptions& o)
-      : trained_(std::move(trained)),
+      : trained_(with_threshold(std::move(trained), o)),
         o_(o),
         encoder_(trained_.vocab, data::Task::kClassify, o.effective_max_tokens),
         token_encoder_(trained_.vocab, data::Task::kTag, o.effective_max_tokens),
@@ -181,6 +188,7 @@ class BatchWorker {
     if (!encoded_.empty())
       preds = trained_.runtime ? train::predict_all(*trained_.runtime, encoded_)
                                : train::predict_all(*trained_.model, encoded_, o_.batch_size);
+    train::decide_labels(spec_, preds);  // the thresholds in use (--multi-label-threshold)
     for (const auto& p : pending_) {
       if (p.cut != Cut::kNone && p.error.empty()) cuts.emplace_back(p.line, p.cut);
       if (!p.error.empty()) {
@@ -640,7 +648,7 @@ const RegisterCommand kRegister{
                      "columns and tagged-jsonl keep your tokens")
           ->check(one_of({"text", "tsv", "csv", "jsonl", "columns", "tagged-jsonl"}))
           ->default_str("text");
-      add_train_setting_options(sub, o->given, {}, {"text_column"});
+      add_train_setting_options(sub, o->given, {}, {"text_column", "multi_label_threshold"});
       sub.add_option("--top-k", o->top_k, "classifiers: how many labels to print")
           ->check(CLI::PositiveNumber)
           ->default_str("1");

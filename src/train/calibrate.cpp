@@ -88,7 +88,7 @@ eval::Reliability reliability_of(const model::ModelSpec& spec, std::span<const d
       for (std::size_t c = 0; c < C; ++c) {
         const bool gold = std::find(examples[i].targets.begin(), examples[i].targets.end(),
                                     static_cast<std::int32_t>(c)) != examples[i].targets.end();
-        const bool chosen = p.probs[c] >= spec.threshold;
+        const bool chosen = p.probs[c] >= spec.threshold_of(c);
         confidence.push_back(chosen ? p.probs[c] : 1.0f - p.probs[c]);
         correct.push_back(chosen == gold ? 1 : 0);
       }

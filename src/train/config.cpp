@@ -179,12 +179,18 @@ void add_model_settings(std::vector<Setting<C>>& t) {
   t.push_back(real(&C::multi_label_threshold,
                    {.key = "multi_label_threshold",
                     .group = kModel,
-                    .help = "output sigmoid: a label is chosen when its probability is at least this (stored "
-                            "in the model; eval and predict use it)",
+                    .help = "output sigmoid: a label is chosen when its probability is at least this (train "
+                            "stores it in the model for labels without a tuned threshold; given to eval or "
+                            "predict, it replaces every threshold of the model)",
                     .min = 0,
                     .max = 1,
                     .min_exclusive = true,
                     .max_exclusive = true}));
+  t.push_back(flag(&C::tune_label_thresholds,
+                   {.key = "tune_label_thresholds",
+                    .group = kModel,
+                    .help = "output sigmoid: after training, give each label the threshold with its best dev "
+                            "F1 (ties keep --multi-label-threshold), stored in the model"}));
   t.push_back(real(&C::dropout, {.key = "dropout",
                                  .group = kModel,
                                  .help = "dropout between recurrent layers and before the output layer",

@@ -43,7 +43,7 @@ std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
         p.labels.clear();
         if (spec.output == model::OutputKind::kSigmoid) {
           for (std::size_t c = 0; c < C; ++c)
-            if (p.probs[c] >= spec.threshold) p.labels.push_back(static_cast<std::int32_t>(c));
+            if (p.probs[c] >= spec.threshold_of(c)) p.labels.push_back(static_cast<std::int32_t>(c));
         } else {
           p.labels.push_back(top);
         }
@@ -102,6 +102,15 @@ std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
   return out;
 }
 
+void decide_labels(const model::ModelSpec& spec, std::span<ExamplePrediction> predictions) {
+  if (spec.task != data::Task::kClassify || spec.output != model::OutputKind::kSigmoid) return;
+  for (ExamplePrediction& p : predictions) {
+    p.labels.clear();
+    for (std::size_t c = 0; c < p.probs.size(); ++c)
+      if (p.probs[c] >= spec.threshold_of(c)) p.labels.push_back(static_cast<std::int32_t>(c));
+  }
+}
+
 EvaluationResult evaluate(model::SequenceModel& model, std::span<const data::EncodedExample> examples,
                           bool keep_predictions, int batch_size) {
   GYRE_CHECK(!examples.empty(), "evaluate: no examples");
@@ -141,7 +150,7 @@ EvaluationResult score(const model::ModelSpec& spec, std::span<const data::Encod
       scores.insert(scores.end(), preds[i].probs.begin(), preds[i].probs.end());
     }
     r.loss = nll / static_cast<double>(examples.size());
-    r.multilabel = eval::multilabel_metrics(gold, scores, spec.labels, spec.threshold);
+    r.multilabel = eval::multilabel_metrics(gold, scores, spec.labels, spec.threshold, spec.label_thresholds);
   } else if (spec.task == data::Task::kClassify) {
     std::vector<std::int32_t> gold, predicted;
     std::vector<float> probs;

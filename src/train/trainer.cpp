@@ -622,6 +622,7 @@ class Run {
   void sync_replica(std::size_t w);
   void finish(TrainOutcome outcome, TrainResult& result);
   json calibrate();
+  json tune_thresholds(model::SequenceModel& m, const EvaluationResult& calibrated);
   json dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev);
   [[noreturn]] void diverged(const std::string& what) const;
   void check_loss_growth(double step_loss);
@@ -667,7 +668,8 @@ class Run {
   bool early_stopped_ = false;
   json last_dev_ = json::object();
   json best_dev_ = json::object();
-  json mistakes_;  // filled by calibrate() for single-label classifiers
+  json mistakes_;          // filled by calibrate() for single-label classifiers
+  json label_thresholds_;  // filled by calibrate() for multi-label classifiers that tune them
   std::chrono::steady_clock::time_point epoch_start_;
 };
 
@@ -1227,6 +1229,7 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   if (state_.best_epoch > 0) {
     result.final_metrics["calibration"] = calibrate();
     if (!mistakes_.is_null()) result.final_metrics["dev_mistakes"] = std::move(mistakes_);
+    if (!label_thresholds_.is_null()) result.final_metrics["label_thresholds"] = std::move(label_thresholds_);
   }
   write_file_atomic(dir_ / "metrics.json", result.final_metrics.dump(2) + "\n");
 }
@@ -1281,12 +1284,16 @@ json Run::calibrate() {
   io::TrainedModel trained = io::load_trained_model(best, io::Engine::kLibrary);
   model::SequenceModel& m = *trained.model;
   m.set_temperature({});
+  if (m.spec().output == model::OutputKind::kSigmoid)  // a refit starts from the global threshold
+    m.set_thresholds(static_cast<float>(config_.multi_label_threshold), {});
   const auto before = evaluate(m, data_.dev, true);
   const CalibrationFit fit = fit_calibration(m, data_.dev);
   m.set_temperature(fit.temperature);
   const auto after = evaluate(m, data_.dev, true);
   const eval::Reliability r_before = reliability_of(m.spec(), data_.dev, before.predictions);
   const eval::Reliability r_after = reliability_of(m.spec(), data_.dev, after.predictions);
+  if (m.spec().output == model::OutputKind::kSigmoid && config_.tune_label_thresholds)
+    label_thresholds_ = tune_thresholds(m, after);
   io::write_checkpoint(best, m, data_.vocab, nullptr, trained.header.at("trainer"),
                        trained.header.at("config"));
   if (data_.task == data::Task::kClassify && !data_.multi_label) mistakes_ = dev_mistakes(m, after);
@@ -1295,6 +1302,44 @@ json Run::calibrate() {
   progress_.note("calibration: temperature " + (fit.temperature.size() > 1 ? "per label " : std::string()) +
                  temps + " fitted on dev; ECE " + fmt(r_before.error) + " -> " + fmt(r_after.error));
   return calibration_json(fit, r_before, r_after);
+}
+
+// Per-label decision thresholds of a multi-label model, tuned on the calibrated dev probabilities
+// (eval::tune_label_thresholds: each label's best dev F1; ties keep the global threshold) and
+// set in the model, which calibrate() then writes. The dev scores after tuning are optimistic:
+// they are measured on the rows the thresholds were chosen on.
+json Run::tune_thresholds(model::SequenceModel& m, const EvaluationResult& calibrated) {
+  const std::size_t C = m.spec().labels.size();
+  std::vector<std::uint8_t> gold(data_.dev.size() * C, 0);
+  std::vector<float> scores;
+  scores.reserve(gold.size());
+  for (std::size_t i = 0; i < data_.dev.size(); ++i) {
+    for (const auto l : data_.dev[i].targets) gold[i * C + static_cast<std::size_t>(l)] = 1;
+    scores.insert(scores.end(), calibrated.predictions[i].probs.begin(),
+                  calibrated.predictions[i].probs.end());
+  }
+  const float global = m.spec().threshold;
+  std::vector<float> tuned = eval::tune_label_thresholds(gold, scores, C, global);
+  const bool any = std::any_of(tuned.begin(), tuned.end(), [&](float t) { return t != global; });
+  if (any) m.set_thresholds(global, tuned);
+  const auto after = evaluate(m, data_.dev);
+  json per_label = json::object();
+  std::string shown;
+  for (std::size_t l = 0; l < C; ++l) {
+    const float t = m.spec().threshold_of(l);
+    per_label[m.spec().labels[l]] = t;
+    if (t != global) shown += (shown.empty() ? "" : ", ") + m.spec().labels[l] + " " + fmt(t, 3);
+  }
+  progress_.note("label thresholds: " + (shown.empty() ? "every label keeps " + fmt(global, 3) : shown) +
+                 " (tuned on dev); dev macro F1 " + fmt(calibrated.multilabel->macro.f1) + " -> " +
+                 fmt(after.multilabel->macro.f1));
+  return {{"method", "per label, the threshold with the best dev F1; ties keep the global threshold"},
+          {"global", global},
+          {"thresholds", std::move(per_label)},
+          {"dev_macro_f1_before", calibrated.multilabel->macro.f1},
+          {"dev_macro_f1_after", after.multilabel->macro.f1},
+          {"dev_micro_f1_before", calibrated.multilabel->micro.f1},
+          {"dev_micro_f1_after", after.multilabel->micro.f1}};
 }
 
 // Checks the settings and the run directory, reads and encodes the data (with the saved vocabulary

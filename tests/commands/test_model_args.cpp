@@ -9,6 +9,9 @@
 
 #include <cmath>
 #include <filesystem>
+#include <map>
+#include <set>
+#include <sstream>
 #include <string>
 
 #include <nlohmann/json.hpp>
@@ -431,6 +434,157 @@ TEST_CASE("the multi-label threshold is a setting stored in the model", "[cli]")
   const auto bad = gyre_cli({"train", "--train", path, "--multi-label-threshold", "1", "--out", out + "-x"});
   require_one_line_error(bad);
   CHECK_THAT(bad.err, Contains("--multi-label-threshold"));
+}
+
+TEST_CASE(
+    "multi-label thresholds are tuned per label on dev, stored, and used alike by eval, predict and "
+    "the runtime, and --multi-label-threshold replaces them",
+    "[cli]") {
+  using nlohmann::json;
+  fs::create_directories(dir());
+  // Invented service messages: "billing" on most, "repair" on half, "urgent" on a quarter. One epoch
+  // of a tiny model leaves "urgent" below 0.5 everywhere (F1 0 at 0.5), so tuning must move it.
+  auto corpus_of = [](int from, int to) {
+    std::string jsonl;
+    for (int i = from; i < to; ++i) {
+      const std::string n = std::to_string(i);
+      std::vector<std::string> labels;
+      if (i % 5 != 0) labels.push_back("billing");
+      if (i % 2 == 0) labels.push_back("repair");
+      if (i % 4 == 1) labels.push_back("urgent");
+      if (labels.empty()) labels.push_back("billing");
+      json line{{"text", (i % 2 == 0 ? "the kettle leaks again " : "the invoice is wrong ") + n +
+                             (i % 4 == 1 ? " asap please" : "")},
+                {"labels", labels}};
+      jsonl += line.dump() + "\n";
+    }
+    return jsonl;
+  };
+  const auto train = (dir() / "ml-train.jsonl").string(), dev = (dir() / "ml-dev.jsonl").string();
+  gyre::write_file_atomic(train, corpus_of(0, 48));
+  gyre::write_file_atomic(dev, corpus_of(100, 140));
+  const auto out = (dir() / "ml-tuned").string();
+  fs::remove_all(out);
+  const auto t = gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
+                           "--embedding-size", "8", "--out", out});
+  INFO(t.err);
+  REQUIRE(t.exit_code == 0);
+  CHECK_THAT(t.err, Contains("label thresholds: ") && Contains("(tuned on dev); dev macro F1 "));
+  const json metrics = json::parse(gyre::read_file(fs::path(out) / "metrics.json"));
+  REQUIRE(metrics.contains("label_thresholds"));
+  const json& tuned = metrics["label_thresholds"]["thresholds"];
+  const std::vector<std::string> labels = {"billing", "repair", "urgent"};
+  REQUIRE(tuned.size() == labels.size());
+
+  // Every dev probability (calibrated, as the thresholds were tuned on), by the run's library model.
+  const auto p = gyre_cli(
+      {"predict", out, "--input", dev, "--input-format", "jsonl", "--format", "jsonl", "--top-k", "3"});
+  INFO(p.err);
+  REQUIRE(p.exit_code == 0);
+  std::vector<std::map<std::string, float>> probs;
+  std::vector<std::set<std::string>> chosen;
+  {
+    std::istringstream lines(p.out);
+    for (std::string line; std::getline(lines, line);) {
+      const json r = json::parse(line);
+      probs.emplace_back();
+      for (const auto& e : r["top"])
+        probs.back()[e["label"].get<std::string>()] = e["probability"].get<float>();
+      chosen.emplace_back(r["labels"].begin(), r["labels"].end());
+    }
+  }
+  REQUIRE(probs.size() == 40);
+  std::vector<std::set<std::string>> gold;
+  {
+    std::istringstream lines(gyre::read_file(dev));
+    for (std::string line; std::getline(lines, line);) {
+      const json r = json::parse(line);
+      gold.emplace_back(r["labels"].begin(), r["labels"].end());
+    }
+  }
+  // Brute-force reference: per label, F1 = 2TP / (2TP + FP + FN) (van Rijsbergen 1979) at every
+  // threshold that changes a decision (each dev probability, and one above them all); the tuned
+  // threshold must reach the best, and keep 0.5 when 0.5 reaches it.
+  auto f1_at = [&](const std::string& label, float threshold) {
+    double tp = 0, fp = 0, fn = 0;
+    for (std::size_t i = 0; i < probs.size(); ++i) {
+      const bool g = gold[i].count(label) > 0, c = probs[i].at(label) >= threshold;
+      tp += g && c;
+      fp += !g && c;
+      fn += g && !c;
+    }
+    return tp == 0 ? 0.0 : 2 * tp / (2 * tp + fp + fn);
+  };
+  std::size_t moved = 0;
+  for (const auto& label : labels) {
+    const float threshold = tuned.at(label).get<float>();
+    double best = f1_at(label, 0.999999f);
+    for (const auto& row : probs) best = std::max(best, f1_at(label, row.at(label)));
+    INFO(label << " threshold " << threshold << " best F1 " << best);
+    CHECK(threshold > 0.0f);
+    CHECK(threshold < 1.0f);
+    CHECK_THAT(f1_at(label, threshold), Catch::Matchers::WithinAbs(best, 1e-12));
+    if (f1_at(label, 0.5f) == best) CHECK(threshold == 0.5f);
+    moved += threshold != 0.5f;
+    // predict chose exactly the labels at or above their own threshold.
+    for (std::size_t i = 0; i < probs.size(); ++i)
+      CHECK((chosen[i].count(label) > 0) == (probs[i].at(label) >= threshold));
+  }
+  CHECK(moved > 0);
+  const auto i = gyre_cli({"inspect", out, "--no-tensors"});
+  REQUIRE(i.exit_code == 0);
+  CHECK_THAT(i.out, Contains("thresholds   per label (tuned on dev): billing "));
+
+  // The exported model (run by the embedded runtime) chooses the same labels.
+  const auto exported = (dir() / "ml-tuned.gyre").string();
+  REQUIRE(gyre_cli({"export", out, "--out", exported, "--no-check"}).exit_code == 0);
+  const auto pe = gyre_cli(
+      {"predict", exported, "--input", dev, "--input-format", "jsonl", "--format", "jsonl", "--top-k", "3"});
+  REQUIRE(pe.exit_code == 0);
+  {
+    std::istringstream lines(pe.out);
+    std::size_t n = 0;
+    for (std::string line; std::getline(lines, line); ++n) {
+      const json r = json::parse(line);
+      CHECK(std::set<std::string>(r["labels"].begin(), r["labels"].end()) == chosen.at(n));
+    }
+    CHECK(n == chosen.size());
+  }
+
+  // eval shows the thresholds in use; --multi-label-threshold replaces them (library and runtime).
+  const auto e = gyre_cli({"eval", out, "--test", dev});
+  INFO(e.err);
+  REQUIRE(e.exit_code == 0);
+  CHECK_THAT(e.out, Contains("decision thresholds per label: billing "));
+  for (const auto& model : {out, exported}) {
+    const auto g = gyre_cli({"eval", model, "--test", dev, "--multi-label-threshold", "0.5"});
+    INFO(g.err);
+    REQUIRE(g.exit_code == 0);
+    CHECK_THAT(g.out, Contains("decision threshold 0.50") && !Contains("per label"));
+    const auto q = gyre_cli({"predict", model, "--input", dev, "--input-format", "jsonl", "--format", "jsonl",
+                             "--top-k", "3", "--multi-label-threshold", "0.5"});
+    REQUIRE(q.exit_code == 0);
+    std::istringstream lines(q.out);
+    std::size_t n = 0;
+    for (std::string line; std::getline(lines, line); ++n) {
+      const json r = json::parse(line);
+      std::set<std::string> want;
+      for (const auto& label : labels)
+        if (probs.at(n).at(label) >= 0.5f) want.insert(label);
+      CHECK(std::set<std::string>(r["labels"].begin(), r["labels"].end()) == want);
+    }
+  }
+  // Only multi-label models take it; and train can keep one threshold for all labels.
+  const auto softmax = gyre_cli({"predict", trained_run(), "--multi-label-threshold", "0.4"});
+  require_one_line_error(softmax);
+  CHECK_THAT(softmax.err, Contains("--multi-label-threshold: ") && Contains("is not a multi-label model"));
+  const auto plain = (dir() / "ml-plain").string();
+  fs::remove_all(plain);
+  REQUIRE(gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
+                    "--embedding-size", "8", "--no-tune-label-thresholds", "--quiet", "--out", plain})
+              .exit_code == 0);
+  CHECK_FALSE(json::parse(gyre::read_file(fs::path(plain) / "metrics.json")).contains("label_thresholds"));
+  CHECK_THAT(gyre_cli({"inspect", plain, "--no-tensors"}).out, !Contains("per label (tuned on dev)"));
 }
 
 TEST_CASE("a misspelt value of any command's option gets the closest value, a renamed option its new name",

@@ -55,7 +55,10 @@ struct TrainConfig {
   nn::PoolingKind pooling = nn::PoolingKind::kMean;  // classifiers
   std::optional<model::OutputKind> output;           // empty: softmax, or sigmoid for multi-label data
   double multi_label_threshold = 0.5;                // sigmoid output: a label is chosen at p >= this
-  double dropout = 0.2;                              // between recurrent layers and before the head
+  /// Sigmoid output: after training, give each label the threshold with its best dev F1
+  /// (eval::tune_label_thresholds; ties keep multi_label_threshold), stored in the model.
+  bool tune_label_thresholds = true;
+  double dropout = 0.2;  // between recurrent layers and before the head
   double embedding_dropout = 0.1;
   /// Character encoder over each token's un-folded grapheme clusters (CNN, Ma & Hovy 2016);
   /// empty: decided by the task (see resolve_char_encoder).

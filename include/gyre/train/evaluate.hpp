@@ -82,6 +82,11 @@ std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
                                            std::span<const data::EncodedExample> examples,
                                            bool calibrated = true, bool with_features = false);
 
+/// Multi-label (sigmoid) classifiers: sets each prediction's labels to those whose probability
+/// reaches the spec's threshold for them (ModelSpec::threshold_of); other models are left alone.
+/// What predict_all does; callers that change the thresholds after predicting use it.
+void decide_labels(const model::ModelSpec& spec, std::span<ExamplePrediction> predictions);
+
 /// True when `candidate` is better than `best` for this metric (loss: lower is better; a NaN
 /// best means nothing was seen yet).
 bool metric_improves(Metric metric, double candidate, double best);
