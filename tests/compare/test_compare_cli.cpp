@@ -141,3 +141,50 @@ TEST_CASE("gyre compare and gyre report from the command line", "[compare][cli]"
   REQUIRE(run("compare --train x.tsv", log) == 2);
   REQUIRE(run("report '" + dir.string() + "'", log) != 0);
 }
+
+TEST_CASE("gyre compare reads CSV with the text and label columns chosen by header name", "[compare][cli]") {
+  // Spreadsheet-style exports of the same invented corpus: quoted texts holding commas and quotes,
+  // the label in a column named "direction", the text in "note", an id column first.
+  const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "compare" / "csv";
+  fs::remove_all(dir);
+  fs::create_directories(dir);
+  auto to_csv = [&](const fs::path& tsv, const fs::path& csv) {
+    std::ifstream in(tsv);
+    std::ofstream out(csv);
+    out << "id,note,direction\r\n";
+    std::size_t id = 0;
+    for (std::string line; std::getline(in, line); ++id) {
+      const auto tab = line.find('\t');
+      out << id << ",\"" << line.substr(tab + 1) << ", \"\"noted\"\"\"," << line.substr(0, tab) << "\r\n";
+    }
+  };
+  write_corpus(dir / "train.tsv", 80, 5);
+  write_corpus(dir / "dev.tsv", 30, 6);
+  write_corpus(dir / "test.tsv", 30, 7);
+  for (const char* name : {"train", "dev", "test"})
+    to_csv(dir / (std::string(name) + ".tsv"), dir / (std::string(name) + ".csv"));
+  const fs::path log = dir / "stdout.txt";
+  const std::string data = "--train '" + (dir / "train.csv").string() + "' --dev '" +
+                           (dir / "dev.csv").string() + "' --test '" + (dir / "test.csv").string() + "'";
+  REQUIRE(run("compare " + data +
+                  " --text-column note --label-column direction --cells gru --hidden-sizes 4 --seeds 1 "
+                  "--epochs 1 --embedding-size 4 --out '" +
+                  (dir / "out").string() + "' --quiet",
+              log) == 0);
+  const auto cmp = nlohmann::json::parse(gyre::read_file(dir / "out" / "compare.json"));
+  REQUIRE(cmp["runs"].size() == 1);
+  const auto metrics = nlohmann::json::parse(gyre::read_file(dir / "out" / "gru-h4-s1" / "metrics.json"));
+  CHECK(metrics["train_examples"] == 80);
+  CHECK(metrics["dev_examples"] == 30);
+  CHECK(cmp["runs"][0]["test_metric"].is_number());
+
+  // Without the column options the header has no "text" column: exit 2, file, line and the columns.
+  REQUIRE(run("compare " + data + " --cells gru --hidden-sizes 4 --seeds 1 --epochs 1 --out '" +
+                  (dir / "bad").string() + "' --quiet",
+              log) == 2);
+  const std::string err = gyre::read_file(log);
+  INFO(err);
+  CHECK(err.find(":1: no column named 'text' in the header (columns: id, note, direction)") !=
+        std::string::npos);
+  CHECK(err.rfind("gyre: error: ", 0) == 0);
+}
