@@ -91,7 +91,8 @@ void gyre_context_free(gyre_context* context) GYRE_NOEXCEPT;
 gyre_status gyre_classify(gyre_context* context, const char* text, size_t length, const float** probabilities,
                           size_t* count, size_t* best) GYRE_NOEXCEPT;
 
-/* Labels chosen by the last gyre_classify on this context, in label order: the best label
+/* Labels chosen by the last gyre_classify on this context (a batched call clears them; its own
+ * results carry probabilities), in label order: the best label
  * (softmax), or every label whose probability reaches its threshold (multi-label, see
  * gyre_model_label_threshold; possibly none). Count, then label i (GYRE_ERROR if out of range or
  * there was no gyre_classify call). */
