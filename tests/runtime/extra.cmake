@@ -55,7 +55,9 @@ foreach(isa portable avx2)
 endforeach()
 
 # 5. Code size the runtime adds to a program (tools/footprint.py, README "Embedding"): the budget
-#    is 360 KiB of loaded code and data (293 KiB measured with ICU on x86-64, December 2026).
+#    is 420 KiB of loaded code and data (measured with ICU on x86-64: 293 KiB on 1 December 2026,
+#    358.6 KiB on 2 December after the character encoder, calibration and the batched calls; the
+#    budget keeps ~15% headroom over that, our choice).
 #    Optimised, uninstrumented builds only: a sanitizer or debug build measures its
 #    instrumentation, not what ships.
 if(NOT GYRE_SANITIZE AND CMAKE_BUILD_TYPE MATCHES "^(Release|MinSizeRel|RelWithDebInfo)$")
@@ -65,9 +67,9 @@ if(NOT GYRE_SANITIZE AND CMAKE_BUILD_TYPE MATCHES "^(Release|MinSizeRel|RelWithD
   add_executable(footprint_baseline ${CMAKE_CURRENT_SOURCE_DIR}/runtime/footprint_probe.c)
   target_compile_definitions(footprint_baseline PRIVATE GYRE_FOOTPRINT_BASELINE=1)
   set_target_properties(footprint_probe footprint_baseline PROPERTIES C_STANDARD 99 LINKER_LANGUAGE CXX)
-  add_test(NAME "runtime: code size stays under the budget (360 KiB)"
+  add_test(NAME "runtime: code size stays under the budget (420 KiB)"
     COMMAND Python3::Interpreter ${PROJECT_SOURCE_DIR}/tools/footprint.py $<TARGET_FILE:footprint_probe>
-      $<TARGET_FILE:footprint_baseline> --budget-kib 360 --label "runtime (x86-64, ICU)")
+      $<TARGET_FILE:footprint_baseline> --budget-kib 420 --label "runtime (x86-64, ICU)")
   add_test(NAME "runtime: footprint probe classifies through the C API"
     COMMAND footprint_probe ${GYRE_FIXTURES_DIR}/runtime/torch_lstm_uni_last.gyre "t16 t19")
   # ref: tests/fixtures/runtime/torch_expected.tsv (python3-torch): label 1 of ("t16 t19") 0.455523937
