@@ -46,8 +46,8 @@ struct Axis {
 // it than half a long label ("0.0025" is ~33 px; kRight is 16): it ends at the tick instead of
 // centring on it, so it stays inside the chart.
 void x_tick_label(std::ostream& o, double x, const std::string& text, bool last) {
-  o << "<text class=\"tick\" x=\"" << num(x, 1) << "\" y=\"" << kHeight - kBottom + 16
-    << "\" text-anchor=\"" << (last ? "end" : "middle") << "\">" << text << "</text>\n";
+  o << "<text class=\"tick\" x=\"" << num(x, 1) << "\" y=\"" << kHeight - kBottom + 16 << "\" text-anchor=\""
+    << (last ? "end" : "middle") << "\">" << text << "</text>\n";
 }
 
 // Ticks at multiples of 1, 2 or 5 x 10^k covering [lo, hi] with about `target` intervals.
@@ -695,6 +695,26 @@ void calibration_section(std::ostringstream& b, const json& metrics) {
   }
 }
 
+// Per-label decision thresholds of a multi-label run (metrics.json "label_thresholds").
+void label_thresholds_section(std::ostringstream& b, const json& metrics) {
+  if (!metrics.contains("label_thresholds") || !metrics["label_thresholds"].is_object()) return;
+  const json& lt = metrics["label_thresholds"];
+  const double global = get_num(lt, {"global"});
+  b << "<h2>Label thresholds</h2>\n<p>Each label is chosen when its probability reaches its threshold, "
+       "the one with the label's best F1 on dev (ties keep the global "
+    << fmt_or_dash(global, 2)
+    << "). Dev scores after tuning are measured on the rows the thresholds were chosen on.</p>\n"
+       "<table><tr><th class=\"k\">label</th><th>threshold</th></tr>\n";
+  const json thresholds = lt.value("thresholds", json::object());  // items() must not outlive it
+  for (const auto& [label, t] : thresholds.items())
+    b << "<tr><td class=\"k\">" << html_escape(label) << "</td><td>"
+      << fmt_or_dash(t.is_number() ? t.get<double>() : std::nan(""), 3) << "</td></tr>\n";
+  b << "<tr><td class=\"k\">dev macro F1</td><td>" << fmt_or_dash(get_num(lt, {"dev_macro_f1_before"}))
+    << " &rarr; " << fmt_or_dash(get_num(lt, {"dev_macro_f1_after"})) << "</td></tr>\n"
+    << "<tr><td class=\"k\">dev micro F1</td><td>" << fmt_or_dash(get_num(lt, {"dev_micro_f1_before"}))
+    << " &rarr; " << fmt_or_dash(get_num(lt, {"dev_micro_f1_after"})) << "</td></tr>\n</table>\n";
+}
+
 // Confident dev mistakes with per-token attributions (metrics.json "dev_mistakes").
 void dev_mistakes_section(std::ostringstream& b, const json& metrics) {
   if (metrics.contains("dev_mistakes") && metrics["dev_mistakes"].is_array() &&
@@ -766,6 +786,7 @@ std::string run_report_html(const fs::path& run_dir) {
   epochs_section(b, epochs, tagging);
   best_epoch_scores_section(b, full_dev);
   calibration_section(b, metrics);
+  label_thresholds_section(b, metrics);
   dev_mistakes_section(b, metrics);
   settings_section(b, config);
   return page(title, b.str());

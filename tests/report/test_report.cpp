@@ -264,11 +264,29 @@ TEST_CASE("report: the last x tick label of the cost chart ends at the chart's r
   // Latencies near 2 us give an axis 0 .. 0.0025 ms in steps of 0.0005: the last label, "0.0025",
   // is wider than twice the 16 px right margin, so centred on its tick it ran out of the chart
   // (headless Chromium's layout check caught it, tools/check_report_layout.py).
-  const std::string svg = front_chart_svg("Test accuracy vs batch-1 latency", "ms/text", "accuracy",
-                                          {"lstm-h8", "gru-h8"}, {0.0021, 0.0019}, {0.8, 0.82},
-                                          {"#1f5f99", "#c0562a"}, {false, true});
+  const std::string svg =
+      front_chart_svg("Test accuracy vs batch-1 latency", "ms/text", "accuracy", {"lstm-h8", "gru-h8"},
+                      {0.0021, 0.0019}, {0.8, 0.82}, {"#1f5f99", "#c0562a"}, {false, true});
   // x = kWidth - kRight = 520 - 16 (the chart's right edge).
   REQUIRE(svg.find("x=\"504.0\" y=\"268\" text-anchor=\"end\">0.0025</text>") != std::string::npos);
   // Every other x tick stays centred on its tick.
   REQUIRE(count(svg, "y=\"268\" text-anchor=\"middle\">") == 5);
+}
+
+TEST_CASE("run report: a multi-label run's tuned label thresholds", "[report]") {
+  const fs::path dir = write_run("thresholds");
+  gyre::write_file_atomic(dir / "metrics.json", R"({"outcome": "finished", "epochs": 2, "best_epoch": 2,
+    "metric": "macro_f1", "best_metric": 0.5, "dev": {"loss": 0.9, "macro_f1": 0.5},
+    "label_thresholds": {"global": 0.5, "thresholds": {"billing": 0.5, "urgent<1>": 0.2893},
+      "dev_macro_f1_before": 0.4, "dev_macro_f1_after": 0.6, "dev_micro_f1_before": 0.7,
+      "dev_micro_f1_after": 0.72}})");
+  const std::string html = run_report_html(dir);
+  const std::string lt = between(html, "<h2>Label thresholds</h2>", "<h2>Settings");
+  CHECK(lt.find("ties keep the global 0.50") != std::string::npos);
+  CHECK(lt.find(">billing</td><td>0.500<") != std::string::npos);
+  CHECK(lt.find(">urgent&lt;1&gt;</td><td>0.289<") != std::string::npos);  // escaped, rounded
+  CHECK(lt.find(">dev macro F1</td><td>0.4000 &rarr; 0.6000<") != std::string::npos);
+  // A run without tuned thresholds has no such section.
+  const fs::path plain = write_run("no-thresholds");
+  CHECK(run_report_html(plain).find("Label thresholds") == std::string::npos);
 }
