@@ -444,8 +444,7 @@ std::string bar_chart_svg(std::string_view title, std::string_view y_label,
     for (const double p : points[i])
       o << "<circle class=\"seed\" cx=\"" << num(cx + w / 2 + 8, 1) << "\" cy=\"" << num(f.sy(p), 1)
         << "\" r=\"2.5\" fill=\"#1d2330\"/>";
-    o << "<text class=\"tick\" x=\"" << num(cx, 1) << "\" y=\"" << kHeight - kBottom + 16
-      << "\" text-anchor=\"middle\">" << html_escape(names[i]) << "</text>\n";
+    x_tick_label(o, cx, html_escape(names[i]), false);  // bars sit inside the chart: centred
   }
   o << "</svg>\n";
   return o.str();
