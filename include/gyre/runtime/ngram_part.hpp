@@ -1,0 +1,88 @@
+#pragma once
+// The n-gram part of a classifier (docs/model-format.md "N-gram part"), shared by training and the
+// embedded runtime so both compute the same scores. C++17, standard library only.
+//
+// A single-label classifier may carry, beside its recurrent network, a multinomial logistic
+// regression over a bag of token n-grams. Its scores are added to the network's logits before the
+// softmax (and before temperature scaling):
+//     logits = network_logits + mix * (W x + b)
+// the joint linear + deep form of Cheng et al. 2016 ("Wide & Deep Learning for Recommender
+// Systems"); gyre fits W, b on the training split first (L-BFGS, src/eval/linear_baseline.cpp)
+// and chooses `mix` on the dev split, as stacking chooses its combiner on held-out data
+// (Wolpert 1992). mix = 0 means no n-gram part (the model file then has none).
+//
+// Features x of a token list (tokens as the word vocabulary sees them, i.e. normalized/folded):
+//  - keys: every token (order 1) and, for n = 2..order, every n consecutive items of the list
+//    padded with one begin marker before the first token and one end marker after the last,
+//    items joined by U+0001 (the markers are the strings "\x02" and "\x03"; padding with boundary
+//    symbols is common practice, e.g. character n-grams within word boundaries);
+//  - value of a key present in the part's key list: 1 + ln(count of the key in the text)
+//    ("sublinear tf", Manning, Raghavan & Schuetze 2008, section 6.4.1); keys absent from the list
+//    are dropped; the vector is then scaled to unit L2 norm (a text with no known key: x = 0).
+// Evaluated in float, features summed in increasing key index (keys are sorted bytewise), so the
+// training library and the runtime give identical scores.
+
+#include <cstddef>
+#include <cstdint>
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace gyre::runtime {
+
+inline constexpr char kNgramJoin = '\x01';
+inline constexpr std::string_view kNgramBegin = "\x02";
+inline constexpr std::string_view kNgramEnd = "\x03";
+/// Highest n-gram order a model may use (our choice: character 1-4-grams are the longest in
+/// common use for short-text classification; 6 leaves room).
+inline constexpr int kMaxNgramOrder = 6;
+
+/// Appends the keys of `tokens` for orders 1..order (see above), in order of appearance, with
+/// repeats. Throws Error when order is outside [1, kMaxNgramOrder].
+void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<std::string>& out);
+
+/// Reusable buffers of NgramPart::features / add_scores (one per thread).
+struct NgramScratch {
+  std::vector<std::string> keys;
+  std::vector<std::int32_t> ids;    // ids of the known keys, with repeats
+  std::vector<std::int32_t> index;  // add_scores: x's indices
+  std::vector<float> values;        // add_scores: x's values
+};
+
+class NgramPart {
+ public:
+  NgramPart() = default;
+  /// keys: sorted bytewise, unique, non-empty strings; weights: keys.size() x classes,
+  /// feature-major (row f = the weights of key f); bias: classes values; mix > 0 and finite.
+  /// Throws Error naming what is wrong otherwise.
+  NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights, std::vector<float> bias,
+            float mix);
+
+  bool empty() const noexcept { return classes_ == 0; }
+  int order() const noexcept { return order_; }
+  int classes() const noexcept { return classes_; }
+  std::size_t features() const noexcept { return keys_.size(); }
+  float mix() const noexcept { return mix_; }
+  const std::vector<std::string>& keys() const noexcept { return keys_; }
+  const std::vector<float>& weights() const noexcept { return weights_; }
+  const std::vector<float>& bias() const noexcept { return bias_; }
+
+  /// Index of key in keys(), or -1.
+  std::int32_t find(std::string_view key) const noexcept;
+  /// x of `tokens` as (index, value) pairs, indices increasing (see above). Uses scratch.keys and
+  /// scratch.ids only, so index/value may be scratch.index/scratch.values.
+  void features(const std::vector<std::string>& tokens, std::vector<std::int32_t>& index,
+                std::vector<float>& value, NgramScratch& scratch) const;
+  /// logits[c] += mix * (W x + b)[c] for c < classes(). An empty part adds nothing.
+  void add_scores(const std::vector<std::string>& tokens, float* logits, NgramScratch& scratch) const;
+
+ private:
+  int order_ = 0;
+  int classes_ = 0;
+  float mix_ = 0.0F;
+  std::vector<std::string> keys_;
+  std::vector<float> weights_;
+  std::vector<float> bias_;
+};
+
+}  // namespace gyre::runtime
