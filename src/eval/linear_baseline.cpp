@@ -257,8 +257,26 @@ void NgramClassifier::ngrams(std::span<const std::string> tokens, std::vector<st
 
 void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t label) {
   GYRE_CHECK(label >= 0, "negative label");
-  train_tokens_.emplace_back(tokens.begin(), tokens.end());
-  train_labels_.push_back(label);
+  std::vector<std::string> keys;
+  ngrams(tokens, keys);
+  std::vector<std::int32_t> ids;
+  ids.reserve(keys.size());
+  for (auto& key : keys) {
+    const auto [it, fresh] = key_ids_.try_emplace(std::move(key), static_cast<std::int32_t>(key_ids_.size()));
+    if (fresh) key_df_.push_back(0);
+    ids.push_back(it->second);
+  }
+  std::sort(ids.begin(), ids.end());
+  for (std::size_t i = 0; i < ids.size();) {
+    std::size_t j = i + 1;
+    while (j < ids.size() && ids[j] == ids[i]) ++j;
+    entry_keys_.push_back(ids[i]);
+    entry_counts_.push_back(static_cast<std::int32_t>(j - i));
+    ++key_df_[static_cast<std::size_t>(ids[i])];
+    i = j;
+  }
+  entry_start_.push_back(entry_keys_.size());
+  labels_.push_back(label);
 }
 
 void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
@@ -286,33 +304,71 @@ void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector
 }
 
 void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
-  GYRE_CHECK(!train_tokens_.empty(), "linear baseline: no training examples");
-  // Document frequency of every n-gram; keep those in >= min_df examples. Column ids follow
-  // the sorted key order, so the fit does not depend on hash-map iteration order.
-  std::unordered_map<std::string, std::int32_t> df;
-  std::vector<std::string> keys;
-  for (const auto& tokens : train_tokens_) {
-    ngrams(tokens, keys);
-    std::sort(keys.begin(), keys.end());
-    keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
-    for (const auto& k : keys) ++df[k];
-  }
-  std::vector<std::string> kept;
-  for (const auto& [key, count] : df)
-    if (count >= min_df_) kept.push_back(key);
-  std::sort(kept.begin(), kept.end());
+  GYRE_CHECK(!labels_.empty(), "linear baseline: no training examples");
+  // Keep the keys held by >= min_df examples. Column ids follow the sorted key order, so the fit
+  // depends neither on hash-map iteration order nor on the order keys were first seen.
+  std::vector<const std::string*> key_of(key_ids_.size());
+  for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
+  std::vector<std::int32_t> kept;
+  for (std::size_t id = 0; id < key_df_.size(); ++id)
+    if (key_df_[id] >= min_df_) kept.push_back(static_cast<std::int32_t>(id));
+  std::sort(kept.begin(), kept.end(), [&](std::int32_t a, std::int32_t b) {
+    return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
+  });
+  std::vector<std::int32_t> column(key_ids_.size(), -1);
   index_.clear();
-  for (std::size_t i = 0; i < kept.size(); ++i) index_.emplace(kept[i], static_cast<std::int32_t>(i));
+  index_.reserve(kept.size());
+  for (std::size_t c = 0; c < kept.size(); ++c) {
+    const auto id = static_cast<std::size_t>(kept[c]);
+    column[id] = static_cast<std::int32_t>(c);
+    index_.emplace(*key_of[id], static_cast<std::int32_t>(c));
+  }
 
+  // Rows as featurize() makes them: kept columns ascending, 1 + ln(count), unit L2 norm summed in
+  // column order.
   SparseRows x;
+  x.row_start.reserve(labels_.size() + 1);
+  std::size_t entries = 0;
+  for (const auto k : entry_keys_) entries += column[static_cast<std::size_t>(k)] >= 0;
+  x.columns.reserve(entries);
+  x.values.reserve(entries);
+  std::vector<std::pair<std::int32_t, std::int32_t>> row;  // (column, count)
   std::vector<std::int32_t> cols;
   std::vector<double> vals;
-  for (const auto& tokens : train_tokens_) {
-    featurize(tokens, cols, vals);
+  for (std::size_t r = 0; r < labels_.size(); ++r) {
+    row.clear();
+    for (std::size_t e = entry_start_[r]; e < entry_start_[r + 1]; ++e) {
+      const std::int32_t col = column[static_cast<std::size_t>(entry_keys_[e])];
+      if (col >= 0) row.emplace_back(col, entry_counts_[e]);
+    }
+    std::sort(row.begin(), row.end());
+    cols.clear();
+    vals.clear();
+    double norm = 0;
+    for (const auto& [col, count] : row) {
+      const double v = 1.0 + std::log(static_cast<double>(count));  // sublinear tf
+      cols.push_back(col);
+      vals.push_back(v);
+      norm += v * v;
+    }
+    if (norm > 0) {
+      norm = std::sqrt(norm);
+      for (auto& v : vals) v /= norm;
+    }
     x.add_row(cols, vals);
   }
-  model_ = fit_logistic_regression(x, train_labels_, classes, static_cast<int>(kept.size()), options);
+  model_ = fit_logistic_regression(x, labels_, classes, static_cast<int>(kept.size()), options);
   c_ = options.c;
+}
+
+void NgramClassifier::release_examples() {
+  // swap with empty containers: clear() keeps the capacity (and a hash map its buckets).
+  std::unordered_map<std::string, std::int32_t>().swap(key_ids_);
+  std::vector<std::int32_t>().swap(key_df_);
+  std::vector<std::size_t>{0}.swap(entry_start_);
+  std::vector<std::int32_t>().swap(entry_keys_);
+  std::vector<std::int32_t>().swap(entry_counts_);
+  std::vector<std::int32_t>().swap(labels_);
 }
 
 std::int32_t NgramClassifier::predict(std::span<const std::string> tokens) const {
@@ -382,54 +438,66 @@ void WindowTagger::add(std::span<const std::string> tokens, std::span<const std:
   std::vector<std::string> keys;
   for (std::size_t t = 0; t < tokens.size(); ++t) {
     features(tokens, raw, t, keys);
-    keys_.push_back(keys);
-    auto [it, fresh] = tag_ids_.try_emplace(tags[t], 0);
-    if (fresh) tag_names_.push_back(tags[t]);
-    labels_.push_back(-1 -
-                      static_cast<std::int32_t>(std::find(tag_names_.begin(), tag_names_.end(), tags[t]) -
-                                                tag_names_.begin()));
+    GYRE_CHECK(keys.size() == kKeysPerToken, "window tagger: a token needs six feature keys");
+    for (auto& key : keys)
+      token_keys_.push_back(
+          key_ids_.try_emplace(std::move(key), static_cast<std::int32_t>(key_ids_.size())).first->second);
+    const auto [it, fresh] = seen_tag_ids_.try_emplace(tags[t], static_cast<std::int32_t>(seen_tags_.size()));
+    if (fresh) seen_tags_.push_back(tags[t]);
+    labels_.push_back(it->second);
   }
 }
 
 void WindowTagger::fit(const LbfgsOptions& options) {
-  GYRE_CHECK(!keys_.empty(), "window tagger: no training tokens");
-  GYRE_CHECK(tag_names_.size() >= 2, "window tagger: the training data has fewer than two tags");
+  GYRE_CHECK(!labels_.empty(), "window tagger: no training tokens");
+  GYRE_CHECK(seen_tags_.size() >= 2, "window tagger: the training data has fewer than two tags");
   // Tags and feature columns in sorted order (deterministic, independent of input order).
-  std::vector<std::string> sorted_tags = tag_names_;
-  std::sort(sorted_tags.begin(), sorted_tags.end());
-  std::vector<std::int32_t> remap(tag_names_.size());
-  for (std::size_t i = 0; i < tag_names_.size(); ++i)
+  tag_names_ = seen_tags_;
+  std::sort(tag_names_.begin(), tag_names_.end());
+  std::vector<std::int32_t> remap(seen_tags_.size());
+  for (std::size_t i = 0; i < seen_tags_.size(); ++i)
     remap[i] = static_cast<std::int32_t>(
-        std::lower_bound(sorted_tags.begin(), sorted_tags.end(), tag_names_[i]) - sorted_tags.begin());
+        std::lower_bound(tag_names_.begin(), tag_names_.end(), seen_tags_[i]) - tag_names_.begin());
   std::vector<std::int32_t> labels(labels_.size());
-  for (std::size_t i = 0; i < labels_.size(); ++i)
-    labels[i] = remap[static_cast<std::size_t>(-1 - labels_[i])];
-  tag_names_ = sorted_tags;
-  tag_ids_.clear();
-  for (std::size_t i = 0; i < tag_names_.size(); ++i)
-    tag_ids_.emplace(tag_names_[i], static_cast<std::int32_t>(i));
+  for (std::size_t i = 0; i < labels_.size(); ++i) labels[i] = remap[static_cast<std::size_t>(labels_[i])];
 
-  std::vector<std::string> all;
-  for (const auto& keys : keys_) all.insert(all.end(), keys.begin(), keys.end());
-  std::sort(all.begin(), all.end());
-  all.erase(std::unique(all.begin(), all.end()), all.end());
+  std::vector<const std::string*> key_of(key_ids_.size());
+  for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
+  std::vector<std::int32_t> order(key_ids_.size());
+  for (std::size_t i = 0; i < order.size(); ++i) order[i] = static_cast<std::int32_t>(i);
+  std::sort(order.begin(), order.end(), [&](std::int32_t a, std::int32_t b) {
+    return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
+  });
+  std::vector<std::int32_t> column(key_ids_.size());
   index_.clear();
-  for (std::size_t i = 0; i < all.size(); ++i) index_.emplace(all[i], static_cast<std::int32_t>(i));
+  index_.reserve(order.size());
+  for (std::size_t c = 0; c < order.size(); ++c) {
+    const auto id = static_cast<std::size_t>(order[c]);
+    column[id] = static_cast<std::int32_t>(c);
+    index_.emplace(*key_of[id], static_cast<std::int32_t>(c));
+  }
 
   SparseRows x;
+  x.row_start.reserve(labels_.size() + 1);
+  x.columns.reserve(token_keys_.size());
+  x.values.reserve(token_keys_.size());
   std::vector<std::int32_t> cols;
-  const std::vector<double> ones(6, 1.0);
-  for (const auto& keys : keys_) {
+  const std::vector<double> ones(kKeysPerToken, 1.0);
+  for (std::size_t t = 0; t < labels_.size(); ++t) {
     cols.clear();
-    for (const auto& k : keys) cols.push_back(index_.at(k));
+    for (std::size_t k = 0; k < kKeysPerToken; ++k)
+      cols.push_back(column[static_cast<std::size_t>(token_keys_[t * kKeysPerToken + k])]);
     std::sort(cols.begin(), cols.end());
     x.add_row(cols, std::span<const double>(ones.data(), cols.size()));
   }
   model_ = fit_logistic_regression(x, labels, static_cast<int>(tag_names_.size()),
-                                   static_cast<int>(all.size()), options);
-  keys_.clear();
-  keys_.shrink_to_fit();
-  labels_.clear();
+                                   static_cast<int>(order.size()), options);
+}
+
+void WindowTagger::release_examples() {
+  std::unordered_map<std::string, std::int32_t>().swap(key_ids_);
+  std::vector<std::int32_t>().swap(token_keys_);
+  std::vector<std::int32_t>().swap(labels_);
 }
 
 std::vector<std::string> WindowTagger::predict(std::span<const std::string> tokens,

@@ -39,8 +39,13 @@ void split_dev_by_hash(std::vector<data::Example>& examples, double dev_fraction
   examples = std::move(keep);
 }
 
+ExampleStream stream_of(std::span<const data::Example> examples) {
+  return [examples](const ExampleVisitor& visit) {
+    for (const auto& ex : examples) visit(ex);
+  };
+}
+
 struct LinearBaseline::Impl {
-  const text::VocabFile* vocab_ptr = nullptr;
   text::VocabFile vocab;
   data::Task task = data::Task::kClassify;
   std::unique_ptr<data::Encoder> encoder;
@@ -52,47 +57,57 @@ struct LinearBaseline::Impl {
     encoder->tokens(ex, path, out);
   }
 
-  void fit_with(std::span<const data::Example> train, const std::string& path, double penalty) {
+  void add_all(const ExampleStream& train, const std::string& path) {
+    std::vector<std::string> toks;
+    classifier = eval::NgramClassifier();
+    tagger = eval::WindowTagger();
+    train([&](const data::Example& ex) {
+      if (task == data::Task::kClassify && ex.labels.size() != 1)
+        throw ConfigError("baseline", "the linear baseline needs single-label examples (" + path + " line " +
+                                          std::to_string(ex.line) + " has " +
+                                          std::to_string(ex.labels.size()) + ")");
+      tokens(ex, path, toks);
+      if (task == data::Task::kClassify)
+        classifier.add(toks, vocab.labels.id(ex.labels.front(), path, ex.line));
+      else
+        tagger.add(toks, ex.tokens, ex.tags);
+    });
+  }
+
+  void fit_with(double penalty) {
     eval::LbfgsOptions options;
     options.c = penalty;
-    std::vector<std::string> toks;
-    if (task == data::Task::kClassify) {
-      classifier = eval::NgramClassifier();
-      for (const auto& ex : train) {
-        tokens(ex, path, toks);
-        classifier.add(toks, vocab.labels.id(ex.labels.front(), path, ex.line));
-      }
+    if (task == data::Task::kClassify)
       classifier.fit(static_cast<int>(vocab.labels.size()), options);
-    } else {
-      tagger = eval::WindowTagger();
-      for (const auto& ex : train) {
-        tokens(ex, path, toks);
-        tagger.add(toks, ex.tokens, ex.tags);
-      }
+    else
       tagger.fit(options);
-    }
     c = penalty;
   }
 
-  json score(std::span<const data::Example> examples, const std::string& path) const {
+  void release_examples() {
+    classifier.release_examples();
+    tagger.release_examples();
+  }
+
+  json score(const ExampleStream& examples, const std::string& path) const {
     std::vector<std::string> toks;
     if (task == data::Task::kClassify) {
       std::vector<std::int32_t> gold, predicted;
-      for (const auto& ex : examples) {
+      examples([&](const data::Example& ex) {
         tokens(ex, path, toks);
         gold.push_back(vocab.labels.id(ex.labels.front(), path, ex.line));
         predicted.push_back(classifier.predict(toks));
-      }
+      });
       const auto names = vocab.labels.names();
       const auto m = eval::classification_metrics(gold, predicted, names);
       return json{{"accuracy", m.accuracy}, {"macro_f1", m.macro.f1}};
     }
     std::vector<std::vector<std::string>> gold, predicted;
-    for (const auto& ex : examples) {
+    examples([&](const data::Example& ex) {
       tokens(ex, path, toks);
       gold.push_back(ex.tags);
       predicted.push_back(tagger.predict(toks, ex.tokens));
-    }
+    });
     const auto m = eval::tagging_metrics(gold, predicted);
     return json{{"span_f1", m.micro.f1}, {"token_accuracy", m.token_accuracy}};
   }
@@ -103,6 +118,33 @@ LinearBaseline::~LinearBaseline() = default;
 LinearBaseline::LinearBaseline(LinearBaseline&&) noexcept = default;
 LinearBaseline& LinearBaseline::operator=(LinearBaseline&&) noexcept = default;
 
+LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
+                                   const std::string& train_path, const ExampleStream& dev,
+                                   const std::string& dev_path, double c) {
+  auto impl = std::make_unique<Impl>();
+  impl->vocab = vocab;
+  impl->task = task;
+  impl->encoder = std::make_unique<data::Encoder>(impl->vocab, task);
+  impl->add_all(train, train_path);
+  if (c > 0) {
+    impl->fit_with(c);
+  } else {
+    const char* metric = task == data::Task::kClassify ? "accuracy" : "span_f1";
+    double best_score = -1, best_c = kBaselinePenaltyGrid[0];
+    for (const double candidate : kBaselinePenaltyGrid) {
+      impl->fit_with(candidate);
+      const double s = impl->score(dev, dev_path).at(metric).get<double>();
+      if (s > best_score + 1e-12) {
+        best_score = s;
+        best_c = candidate;
+      }
+    }
+    if (impl->c != best_c) impl->fit_with(best_c);  // a fit is deterministic: the same model again
+  }
+  impl->release_examples();
+  return LinearBaseline(std::move(impl));
+}
+
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task,
                                    std::span<const data::Example> train, const std::string& train_path,
                                    std::span<const data::Example> dev, const std::string& dev_path,
@@ -112,31 +154,16 @@ LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task
       throw ConfigError("baseline", "the linear baseline needs single-label examples (" + train_path +
                                         " line " + std::to_string(ex.line) + " has " +
                                         std::to_string(ex.labels.size()) + ")");
-  auto impl = std::make_unique<Impl>();
-  impl->vocab = vocab;
-  impl->task = task;
-  impl->encoder = std::make_unique<data::Encoder>(impl->vocab, task);
-  if (c > 0) {
-    impl->fit_with(train, train_path, c);
-    return LinearBaseline(std::move(impl));
-  }
-  GYRE_CHECK(!dev.empty(), "linear baseline: choosing C needs dev examples");
-  const char* metric = task == data::Task::kClassify ? "accuracy" : "span_f1";
-  double best_score = -1, best_c = kBaselinePenaltyGrid[0];
-  for (const double candidate : kBaselinePenaltyGrid) {
-    impl->fit_with(train, train_path, candidate);
-    const double s = impl->score(dev, dev_path).at(metric).get<double>();
-    if (s > best_score + 1e-12) {
-      best_score = s;
-      best_c = candidate;
-    }
-  }
-  if (impl->c != best_c) impl->fit_with(train, train_path, best_c);
-  return LinearBaseline(std::move(impl));
+  GYRE_CHECK(c > 0 || !dev.empty(), "linear baseline: choosing C needs dev examples");
+  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c);
+}
+
+json LinearBaseline::score(const ExampleStream& examples, const std::string& path) const {
+  return impl_->score(examples, path);
 }
 
 json LinearBaseline::score(std::span<const data::Example> examples, const std::string& path) const {
-  return impl_->score(examples, path);
+  return impl_->score(stream_of(examples), path);
 }
 
 std::string LinearBaseline::description() const {
@@ -169,6 +196,23 @@ RunExamples read_run_examples(const TrainConfig& config) {
     out.dev_path = config.train;
   }
   return out;
+}
+
+ExampleStream read_run_split(const TrainConfig& config, bool dev_split, data::TagScheme scheme) {
+  const data::ReadOptions options = read_options(config);
+  const bool from_dev_file = dev_split && !config.dev.empty();
+  const std::string path = from_dev_file ? config.dev : config.train;
+  const bool split = config.dev.empty();
+  const auto threshold = static_cast<std::uint64_t>(config.dev_fraction * 1e6);
+  // Training repairs the training split, and the dev split only when it comes from its own file.
+  const bool repair = config.repair_tags && scheme != data::TagScheme::kNone && (!dev_split || from_dev_file);
+  return [=](const ExampleVisitor& visit) {
+    data::read_corpus(path, options, [&](data::Example&& ex) {
+      if (split && (example_hash(ex) % 1000000 < threshold) != dev_split) return;
+      if (repair && !data::check_tags(ex.tags, scheme).empty()) ex.tags = data::repair_tags(ex.tags, scheme);
+      visit(ex);
+    });
+  };
 }
 
 }  // namespace gyre::train

@@ -55,8 +55,8 @@ struct PreparedData {
   std::vector<data::EncodedExample> train, dev;
   std::uint64_t fingerprint = 0;  // of the encoded training data (resume checks it)
   std::size_t repaired = 0;
-  std::vector<data::Example> train_examples, dev_examples;  // as read (the linear baseline uses them)
-  json cut_examples = json::object();                       // examples max_tokens cut, by file
+  std::vector<data::Example> dev_examples;  // as read (for the texts of dev mistakes)
+  json cut_examples = json::object();       // examples max_tokens cut, by file
 };
 
 std::vector<data::Example> read_examples(const std::string& path, const TrainConfig& config,
@@ -322,7 +322,6 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
   config.char_encoder = resolve_char_encoder(config, out.task);
   out.vocab = resolve_vocab(config, out.task, train_examples, saved_vocab);
   encode_splits(config, progress, saved_vocab != nullptr, train_examples, dev_examples, out);
-  out.train_examples = std::move(train_examples);
   out.dev_examples = std::move(dev_examples);
   return out;
 }
@@ -1217,8 +1216,24 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   if (options_.fit_baseline && !data_.multi_label) {
     const auto start = std::chrono::steady_clock::now();
     const std::string dev_path = config_.dev.empty() ? config_.train : config_.dev;
-    const auto baseline = LinearBaseline::fit(data_.vocab, data_.task, data_.train_examples, config_.train,
-                                              data_.dev_examples, dev_path);
+    // The training split is read again from its file, one example at a time: the run holds only
+    // its encoded examples, and the baseline only its interned n-gram rows.
+    const ExampleStream train_split = read_run_split(config_, false, data_.tag_scheme);
+    std::size_t examples_read = 0;
+    const auto baseline = LinearBaseline::fit(
+        data_.vocab, data_.task,
+        [&](const ExampleVisitor& visit) {
+          train_split([&](const data::Example& ex) {
+            ++examples_read;
+            visit(ex);
+          });
+        },
+        config_.train, stream_of(data_.dev_examples), dev_path);
+    if (examples_read != data_.train.size())
+      throw IoError(config_.train +
+                    ": the file changed during training: read again for the linear baseline, it has " +
+                    std::to_string(examples_read) + " training examples instead of " +
+                    std::to_string(data_.train.size()));
     result.final_metrics["baseline"] = {
         {"name", baseline.description()},
         {"c", baseline.c()},

@@ -1,8 +1,11 @@
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <cmath>
 #include <fstream>
+#include <map>
 #include <nlohmann/json.hpp>
+#include <set>
 #include <sstream>
 #include <string>
 #include <vector>
@@ -155,4 +158,174 @@ TEST_CASE("n-gram classifier and window tagger learn a separable rule", "[baseli
   CHECK(tagger.predict(t1, r1) == g1);
   CHECK(tagger.predict(t2, r2) == g2);
   CHECK_THROWS_AS(tagger.add(t1, r2, std::vector<std::string>{"O"}), gyre::Error);
+}
+
+namespace {
+
+// The fit as it was made before the examples were interned (every example's token strings kept,
+// document frequencies counted over string keys, rows featurised by string lookups): the interned
+// storage must give this exact model. Written from the header's definition of the features.
+gyre::eval::LinearModel fit_from_strings(const std::vector<std::vector<std::string>>& texts,
+                                         const std::vector<std::int32_t>& labels, int classes, int min_df,
+                                         const LbfgsOptions& options, std::size_t& features) {
+  std::map<std::string, int> df;
+  std::vector<std::string> keys;
+  for (const auto& t : texts) {
+    gyre::eval::NgramClassifier::ngrams(t, keys);
+    std::sort(keys.begin(), keys.end());
+    keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
+    for (const auto& k : keys) ++df[k];
+  }
+  std::map<std::string, std::int32_t> index;  // std::map: sorted keys, columns in that order
+  for (const auto& [k, n] : df)
+    if (n >= min_df) index.emplace(k, static_cast<std::int32_t>(index.size()));
+  SparseRows x;
+  for (const auto& t : texts) {
+    gyre::eval::NgramClassifier::ngrams(t, keys);
+    std::map<std::int32_t, int> counts;
+    for (const auto& k : keys)
+      if (const auto it = index.find(k); it != index.end()) ++counts[it->second];
+    std::vector<std::int32_t> cols;
+    std::vector<double> vals;
+    double norm = 0;
+    for (const auto& [c, n] : counts) {
+      cols.push_back(c);
+      vals.push_back(1.0 + std::log(static_cast<double>(n)));
+      norm += vals.back() * vals.back();
+    }
+    if (norm > 0)
+      for (auto& v : vals) v /= std::sqrt(norm);
+    x.add_row(cols, vals);
+  }
+  features = index.size();
+  return gyre::eval::fit_logistic_regression(x, labels, classes, static_cast<int>(index.size()), options);
+}
+
+// Seeded synthetic texts over a small vocabulary (repeated tokens, so counts > 1 and min_df
+// pruning both occur); labels follow a few marker tokens. Invented data, not a check value.
+void synthetic_texts(std::vector<std::vector<std::string>>& texts, std::vector<std::int32_t>& labels) {
+  std::uint64_t s = 12345;
+  auto next = [&] {
+    s = s * 6364136223846793005ULL + 1442695040888963407ULL;
+    return static_cast<std::uint32_t>(s >> 33);
+  };
+  for (int i = 0; i < 300; ++i) {
+    const auto label = static_cast<std::int32_t>(next() % 3);
+    std::vector<std::string> t;
+    const auto len = 3 + next() % 12;
+    for (std::uint32_t j = 0; j < len; ++j) t.push_back("w" + std::to_string(next() % 60));
+    t.push_back("mark" + std::to_string(label * 2 + static_cast<std::int32_t>(next() % 2)));
+    texts.push_back(std::move(t));
+    labels.push_back(label);
+  }
+}
+
+bool same_model(const gyre::eval::LinearModel& a, const gyre::eval::LinearModel& b) {
+  // Tolerance 0 on purpose: the contract is the same model, bit for bit.
+  return a.features == b.features && a.classes == b.classes && a.weights == b.weights && a.bias == b.bias &&
+         a.iterations == b.iterations;
+}
+
+}  // namespace
+
+TEST_CASE("n-gram classifier: interned rows give the model the string features give", "[baseline]") {
+  std::vector<std::vector<std::string>> texts;
+  std::vector<std::int32_t> labels;
+  synthetic_texts(texts, labels);
+  for (const int min_df : {1, 2, 5}) {
+    SECTION("min_df " + std::to_string(min_df)) {
+      gyre::eval::NgramClassifier clf(min_df);
+      for (std::size_t i = 0; i < texts.size(); ++i) clf.add(texts[i], labels[i]);
+      // Storage: one (key, count) entry per distinct n-gram of each example, one copy of each key.
+      std::set<std::string> all;
+      std::size_t entries = 0;
+      std::vector<std::string> keys;
+      for (const auto& t : texts) {
+        gyre::eval::NgramClassifier::ngrams(t, keys);
+        const std::set<std::string> distinct(keys.begin(), keys.end());
+        entries += distinct.size();
+        all.insert(distinct.begin(), distinct.end());
+      }
+      CHECK(clf.example_count() == texts.size());
+      CHECK(clf.entry_count() == entries);
+      CHECK(clf.key_count() == all.size());
+      // Fitting again with another C on the same stored examples gives a fresh fit's model.
+      for (const double c : {1.0, 100.0, 10.0}) {
+        LbfgsOptions options;
+        options.c = c;
+        clf.fit(3, options);
+        std::size_t features = 0;
+        const auto expected = fit_from_strings(texts, labels, 3, min_df, options, features);
+        CHECK(clf.feature_count() == features);
+        CHECK(same_model(clf.model(), expected));
+      }
+      const auto before = clf.probabilities(texts[7]);
+      clf.release_examples();
+      CHECK(clf.example_count() == 0);
+      CHECK(clf.entry_count() == 0);
+      CHECK(clf.key_count() == 0);
+      CHECK(clf.probabilities(texts[7]) == before);  // the fitted model is kept (exact)
+      CHECK_THROWS_AS(clf.fit(3, LbfgsOptions{}), gyre::Error);
+    }
+  }
+}
+
+TEST_CASE("window tagger: interned keys give the model the string features give", "[baseline]") {
+  const std::vector<std::vector<std::string>> sentences{{"book", "a", "fix", "in", "marrowby"},
+                                                        {"the", "kettle", "on", "elm", "street"},
+                                                        {"in", "marrowby", "now"}};
+  const std::vector<std::vector<std::string>> raws{{"Book", "a", "fix", "in", "Marrowby"},
+                                                   {"The", "KC-20", "on", "Elm", "Street"},
+                                                   {"in", "Marrowby", "now"}};
+  const std::vector<std::vector<std::string>> tags{
+      {"O", "O", "O", "O", "B-town"}, {"O", "B-item", "O", "B-street", "I-street"}, {"O", "B-town", "O"}};
+  gyre::eval::WindowTagger tagger;
+  for (int rep = 0; rep < 2; ++rep)
+    for (std::size_t i = 0; i < sentences.size(); ++i) tagger.add(sentences[i], raws[i], tags[i]);
+  // Reference: rows of the string keys, columns in sorted key order, tags sorted.
+  std::set<std::string> all;
+  std::vector<std::vector<std::string>> token_keys;
+  std::vector<std::string> token_tags;
+  std::vector<std::string> keys;
+  for (int rep = 0; rep < 2; ++rep)
+    for (std::size_t i = 0; i < sentences.size(); ++i)
+      for (std::size_t t = 0; t < sentences[i].size(); ++t) {
+        gyre::eval::WindowTagger::features(sentences[i], raws[i], t, keys);
+        all.insert(keys.begin(), keys.end());
+        token_keys.push_back(keys);
+        token_tags.push_back(tags[i][t]);
+      }
+  CHECK(tagger.token_count() == token_keys.size());
+  CHECK(tagger.key_count() == all.size());
+  const std::vector<std::string> sorted_all(all.begin(), all.end());
+  const std::set<std::string> tag_set(token_tags.begin(), token_tags.end());
+  const std::vector<std::string> tag_names(tag_set.begin(), tag_set.end());
+  SparseRows x;
+  std::vector<std::int32_t> labels;
+  const std::vector<double> ones(6, 1.0);
+  for (std::size_t r = 0; r < token_keys.size(); ++r) {
+    std::vector<std::int32_t> cols;
+    for (const auto& k : token_keys[r])
+      cols.push_back(static_cast<std::int32_t>(std::lower_bound(sorted_all.begin(), sorted_all.end(), k) -
+                                               sorted_all.begin()));
+    std::sort(cols.begin(), cols.end());
+    x.add_row(cols, ones);
+    labels.push_back(static_cast<std::int32_t>(
+        std::lower_bound(tag_names.begin(), tag_names.end(), token_tags[r]) - tag_names.begin()));
+  }
+  for (const double c : {10.0, 1.0}) {
+    LbfgsOptions options;
+    options.c = c;
+    tagger.fit(options);
+    const auto expected = gyre::eval::fit_logistic_regression(x, labels, static_cast<int>(tag_names.size()),
+                                                              static_cast<int>(sorted_all.size()), options);
+    CHECK(tagger.tag_names() == tag_names);
+    CHECK(tagger.feature_count() == sorted_all.size());
+    CHECK(same_model(tagger.model(), expected));
+  }
+  const auto predicted = tagger.predict(sentences[2], raws[2]);
+  tagger.release_examples();
+  CHECK(tagger.token_count() == 0);
+  CHECK(tagger.key_count() == 0);
+  CHECK(tagger.predict(sentences[2], raws[2]) == predicted);
 }

@@ -65,14 +65,22 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
                                     int features, const LbfgsOptions& options);
 
 /// Bag-of-n-grams classifier over token lists (single-label).
+///
+/// Training examples are stored compactly, not as strings: add() interns each n-gram key to an
+/// id (one copy of every distinct key) and keeps the example as (key id, count) rows; fit()
+/// prunes by min_df and numbers the kept keys in sorted order, so the fitted model is the one
+/// a fit over the examples' strings gives. fit() may be called again (another C) on the same
+/// examples; release_examples() frees them once no more fits are needed.
 class NgramClassifier {
  public:
   explicit NgramClassifier(int min_df = 2) : min_df_(min_df) {}
   /// Adds one training example; `label` is an index in [0, classes).
   void add(std::span<const std::string> tokens, std::int32_t label);
   /// Builds the feature index from the examples added and fits. Throws gyre::Error if fewer
-  /// than two classes occur.
+  /// than two classes occur, or when no examples were added (or they were released).
   void fit(int classes, const LbfgsOptions& options);
+  /// Frees the training examples and the keys fit() did not keep; predict() still works.
+  void release_examples();
   std::int32_t predict(std::span<const std::string> tokens) const;
   /// Softmax probabilities, one per class.
   std::vector<double> probabilities(std::span<const std::string> tokens) const;
@@ -80,6 +88,10 @@ class NgramClassifier {
   std::size_t feature_count() const noexcept { return index_.size(); }
   const LinearModel& model() const noexcept { return model_; }
   double c() const noexcept { return c_; }
+  /// Training examples held, their (key, count) entries and distinct keys (memory checks).
+  std::size_t example_count() const noexcept { return labels_.size(); }
+  std::size_t entry_count() const noexcept { return entry_keys_.size(); }
+  std::size_t key_count() const noexcept { return key_ids_.size(); }
 
   /// The unigram and bigram keys of a token list ("a", "a b"; bigrams join with U+0001).
   static void ngrams(std::span<const std::string> tokens, std::vector<std::string>& out);
@@ -88,9 +100,14 @@ class NgramClassifier {
   void featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
                  std::vector<double>& vals) const;
   int min_df_;
-  std::vector<std::vector<std::string>> train_tokens_;
-  std::vector<std::int32_t> train_labels_;
-  std::unordered_map<std::string, std::int32_t> index_;
+  // Training examples: example i's keys are entry_keys_[entry_start_[i] .. entry_start_[i+1])
+  // (key ids ascending), each with its count in that example.
+  std::unordered_map<std::string, std::int32_t> key_ids_;  // key -> id, in order of first sight
+  std::vector<std::int32_t> key_df_;                       // per key id: examples holding it
+  std::vector<std::size_t> entry_start_{0};
+  std::vector<std::int32_t> entry_keys_, entry_counts_;
+  std::vector<std::int32_t> labels_;
+  std::unordered_map<std::string, std::int32_t> index_;  // kept key -> feature column
   LinearModel model_;
   double c_ = 0;
 };
@@ -101,7 +118,8 @@ class NgramClassifier {
 /// and the rule is trivial to mirror in the sklearn fixture script.
 std::string word_shape(std::string_view token);
 
-/// Token-window linear tagger.
+/// Token-window linear tagger. Like NgramClassifier, it keeps each training token as the ids
+/// of its six interned feature keys, may be fitted again, and release_examples() frees them.
 class WindowTagger {
  public:
   /// `tokens`: as the model sees them (normalised); `raw`: the same tokens un-folded (for the
@@ -109,12 +127,15 @@ class WindowTagger {
   void add(std::span<const std::string> tokens, std::span<const std::string> raw,
            std::span<const std::string> tags);
   void fit(const LbfgsOptions& options);
+  void release_examples();
   std::vector<std::string> predict(std::span<const std::string> tokens,
                                    std::span<const std::string> raw) const;
 
   std::size_t feature_count() const noexcept { return index_.size(); }
   const std::vector<std::string>& tag_names() const noexcept { return tag_names_; }
   const LinearModel& model() const noexcept { return model_; }
+  std::size_t token_count() const noexcept { return labels_.size(); }
+  std::size_t key_count() const noexcept { return key_ids_.size(); }
 
   /// Feature keys of position t ("w-1=..", "w0=..", "w+1=..", "s-1=..", "s0=..", "s+1=..";
   /// "<s>"/"</s>" beyond the sentence).
@@ -122,10 +143,13 @@ class WindowTagger {
                        std::vector<std::string>& out);
 
  private:
-  std::vector<std::vector<std::string>> keys_;  // per training token: its feature keys
-  std::vector<std::int32_t> labels_;
-  std::vector<std::string> tag_names_;
-  std::unordered_map<std::string, std::int32_t> tag_ids_;
+  static constexpr std::size_t kKeysPerToken = 6;
+  std::unordered_map<std::string, std::int32_t> key_ids_;  // key -> id, in order of first sight
+  std::vector<std::int32_t> token_keys_;                   // kKeysPerToken key ids per training token
+  std::vector<std::int32_t> labels_;                       // per training token: index in seen_tags_
+  std::vector<std::string> seen_tags_;                     // tags in order of first sight
+  std::unordered_map<std::string, std::int32_t> seen_tag_ids_;
+  std::vector<std::string> tag_names_;  // sorted; the model's classes (after fit)
   std::unordered_map<std::string, std::int32_t> index_;
   LinearModel model_;
 };

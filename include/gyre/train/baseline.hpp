@@ -6,6 +6,7 @@
 // kBaselinePenaltyGrid (accuracy for classifiers, span F1 for taggers; ties: the smaller C).
 // Multi-label runs have none.
 
+#include <functional>
 #include <memory>
 #include <span>
 #include <string>
@@ -15,6 +16,7 @@
 
 #include "gyre/data/example.hpp"
 #include "gyre/data/reader.hpp"
+#include "gyre/data/tag_scheme.hpp"
 #include "gyre/text/vocab.hpp"
 #include "gyre/train/config.hpp"
 
@@ -27,6 +29,12 @@ inline constexpr double kBaselinePenaltyGrid[] = {1.0, 10.0, 100.0};
 void split_dev_by_hash(std::vector<data::Example>& examples, double dev_fraction,
                        std::vector<data::Example>& dev);
 
+/// Calls its argument once per example, in order: examples are read one at a time (from a file
+/// read again, or from a vector) so a fit need not hold them all.
+using ExampleVisitor = std::function<void(const data::Example&)>;
+using ExampleStream = std::function<void(const ExampleVisitor&)>;
+ExampleStream stream_of(std::span<const data::Example> examples);
+
 class LinearBaseline {
  public:
   ~LinearBaseline();
@@ -37,12 +45,19 @@ class LinearBaseline {
   /// normalised, their raw form kept for shapes); with `c` > 0 uses that C, else picks C from
   /// kBaselinePenaltyGrid on `dev`. Labels/tags are those of `vocab`. Throws ConfigError for a
   /// multi-label task, ParseError naming path and line on bad text.
+  /// The training examples are read once (tokenized and stored as interned n-gram or feature
+  /// ids, gyre/eval/linear_baseline.hpp), whatever the number of C values tried; the dev
+  /// examples once per C value.
+  static LinearBaseline fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
+                            const std::string& train_path, const ExampleStream& dev,
+                            const std::string& dev_path, double c = 0);
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task,
                             std::span<const data::Example> train, const std::string& train_path,
                             std::span<const data::Example> dev, const std::string& dev_path, double c = 0);
 
   /// Scores labelled examples: classifiers {"accuracy", "macro_f1"}, taggers {"span_f1",
   /// "token_accuracy"} (the same keys as the model's dev summary).
+  nlohmann::json score(const ExampleStream& examples, const std::string& path) const;
   nlohmann::json score(std::span<const data::Example> examples, const std::string& path) const;
 
   /// "bag of token 1-2-grams, L2 logistic regression (C=10)" or the tagger's equivalent.
@@ -64,5 +79,12 @@ struct RunExamples {
   data::Task task = data::Task::kClassify;
 };
 RunExamples read_run_examples(const TrainConfig& config);
+
+/// The training (`dev_split` false) or dev split of a run as `gyre train` prepared it, read again
+/// from the files in its config one example at a time: the same hash split when it had no dev
+/// file, and with `scheme` != kNone and config.repair_tags the tag sequences repaired as training
+/// repaired them (the training split, and the dev file when one was given). Throws what reading
+/// throws (ParseError naming file and line).
+ExampleStream read_run_split(const TrainConfig& config, bool dev_split, data::TagScheme scheme);
 
 }  // namespace gyre::train
