@@ -9,6 +9,7 @@
 #include "gyre/core/file.hpp"
 #include "gyre/data/tag_scheme.hpp"
 #include "gyre/runtime/error.hpp"
+#include "gyre/runtime/ngram_part_file.hpp"
 
 namespace gyre::io {
 
@@ -25,9 +26,11 @@ FormatError format_error(const std::string& path, const std::exception& e) {
   return FormatError(path, msg);
 }
 
-runtime::ModelHeader description(const model::ModelSpec& spec, const text::VocabFile& vocab) {
+runtime::ModelHeader description(const model::ModelSpec& spec, const text::VocabFile& vocab,
+                                 const runtime::NgramPart* ngram_part) {
   runtime::ModelHeader h;
   h.architecture = model::architecture(spec);
+  if (ngram_part != nullptr) runtime::describe_ngram_part(*ngram_part, h.architecture);
   h.labels = spec.labels;
   h.tokenizer = vocab.tokenizer;
   h.vocabulary.reserve(vocab.vocab.size());
@@ -39,9 +42,10 @@ runtime::ModelHeader description(const model::ModelSpec& spec, const text::Vocab
 
 }  // namespace
 
-json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab) {
+json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab,
+                  const runtime::NgramPart* ngram_part) {
   try {
-    return json::parse(runtime::model_header_json(description(spec, vocab)));
+    return json::parse(runtime::model_header_json(description(spec, vocab, ngram_part)));
   } catch (const runtime::Error& e) {
     throw Error(std::string("this model cannot be stored in a model file: ") + e.what());
   }
@@ -79,6 +83,7 @@ std::vector<std::uint64_t> optional_counts(const json& header, const char* key, 
 struct ParsedHeader {
   model::ModelSpec spec;
   text::VocabFile vocab;
+  runtime::NgramPart ngram_part;
   json header;  // the whole header, with the checkpoint's extra members
 };
 
@@ -95,6 +100,11 @@ ParsedHeader parse_header(const runtime::ModelFile& file) {
     throw format_error(path, e);
   }
   ParsedHeader out;
+  try {
+    out.ngram_part = runtime::read_ngram_part(h, file);
+  } catch (const runtime::Error& e) {
+    throw format_error(path, e);
+  }
   try {
     out.header = json::parse(file.header_json());
     out.spec = model::spec_from_header(h);
@@ -182,6 +192,7 @@ TrainedModel load_trained_model(const fs::path& model_or_run, Engine engine) {
   out.spec = std::move(parsed.spec);
   out.vocab = std::move(parsed.vocab);
   out.header = std::move(parsed.header);
+  out.ngram_part = std::move(parsed.ngram_part);
   if (engine == Engine::kRuntimeForExported && out.exported()) {
     try {
       out.runtime = runtime::Model::from_file(file);
@@ -207,8 +218,9 @@ void set_multi_label_threshold(TrainedModel& trained, float threshold) {
 }
 
 void write_checkpoint(const fs::path& path, const model::SequenceModel& model, const text::VocabFile& vocab,
-                      optim::Optimizer* optimizer, const json& trainer_state, const json& config) {
-  json header = model_header(model.spec(), vocab);
+                      optim::Optimizer* optimizer, const json& trainer_state, const json& config,
+                      const runtime::NgramPart* ngram_part) {
+  json header = model_header(model.spec(), vocab, ngram_part);
   header["format"] = "gyre-checkpoint";
   header["training"] = {{"dropout", model.spec().dropout},
                         {"embedding_dropout", model.spec().embedding_dropout}};
@@ -234,6 +246,7 @@ void write_checkpoint(const fs::path& path, const model::SequenceModel& model, c
                           static_cast<std::uint64_t>(tensor->cols()),
                           gyre::Span<const float>(tensor->data(), static_cast<std::size_t>(tensor->size())));
     }
+    if (ngram_part != nullptr) runtime::add_ngram_part(writer, *ngram_part, runtime::DType::kF32);
     remove_stale_temp_files_of(path);  // what a killed earlier writer left
     writer.write(path.string());
   } catch (const runtime::Error& e) {
@@ -265,7 +278,7 @@ json restore_checkpoint(const fs::path& path, model::SequenceModel& model, optim
 
 std::size_t export_model(const TrainedModel& trained, const fs::path& out, runtime::DType precision,
                          const json& extra) {
-  json header = model_header(trained.spec, trained.vocab);
+  json header = model_header(trained.spec, trained.vocab, &trained.ngram_part);
   header["format"] = "gyre-model";
   for (const auto& [key, value] : extra.items())
     if (!header.contains(key)) header[key] = value;
@@ -279,7 +292,7 @@ std::size_t export_model(const TrainedModel& trained, const fs::path& out, runti
     if (trained.spec.output == model::OutputKind::kCrf && trained.spec.tag_scheme != data::TagScheme::kNone)
       rules = data::transition_rules(trained.spec.labels, trained.spec.tag_scheme);
     std::set<std::string, std::less<>> matrices;
-    for (const auto& t : runtime::model_tensors(description(trained.spec, trained.vocab)))
+    for (const auto& t : runtime::model_tensors(description(trained.spec, trained.vocab, nullptr)))
       if (t.matrix) matrices.insert(t.name);
     for (const auto& p : trained.model->params()) {
       const runtime::DType dtype = matrices.count(p.name) ? precision : runtime::DType::kF32;
@@ -297,6 +310,7 @@ std::size_t export_model(const TrainedModel& trained, const fs::path& out, runti
           p.name, static_cast<std::uint64_t>(values.rows()), static_cast<std::uint64_t>(values.cols()),
           gyre::Span<const float>(values.data(), static_cast<std::size_t>(values.size())), dtype);
     }
+    runtime::add_ngram_part(writer, trained.ngram_part, precision);
     remove_stale_temp_files_of(out);  // what a killed earlier writer left
     writer.write(out.string());
   } catch (const runtime::Error& e) {

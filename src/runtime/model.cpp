@@ -12,6 +12,8 @@
 
 #include "gyre/runtime/calibration.hpp"
 #include "gyre/runtime/char_tokens.hpp"
+#include "gyre/runtime/ngram_part.hpp"
+#include "gyre/runtime/ngram_part_file.hpp"
 #include "runtime/detail/half.hpp"
 #include "runtime/detail/kernels.hpp"
 #include "runtime/detail/spans.hpp"
@@ -82,6 +84,8 @@ struct Model::Impl {
   std::vector<float> char_embedding;  // [Vc x Ec]
   std::vector<float> char_conv;       // [Fc x w*Ec], window slot k at columns [k*Ec, (k+1)*Ec)
   std::vector<float> char_bias;       // [Fc]
+  // N-gram part (arch.has_ngram_part()): keys and f32 weights decoded at load.
+  NgramPart ngram;
 
   std::size_t vocab_size() const { return vocab_off.size() - 1; }
   std::string_view vocab(std::uint32_t id) const {
@@ -110,6 +114,7 @@ void Model::Impl::parse_header() {
   if (h.format != "gyre-model")
     fail("a training checkpoint, not an exported model (run `gyre export` on it for the runtime)");
   check_model_tensors(h, file);  // before anything below allocates from the header's sizes
+  ngram = read_ngram_part(h, file);
   arch = h.architecture;
   labels = std::move(h.labels);
   tok_settings = h.tokenizer;
@@ -325,6 +330,12 @@ struct Context::Buffers {
   std::vector<std::int32_t> occlusion_chars, occlusion_char_off;  // the whole text's characters
   std::vector<float> occlusion;
   std::vector<TagSpan> spans;
+  // N-gram part: the words it reads when the caller gave tokens as written (character encoder) or
+  // pushed them one by one, its scratch, and mix * (W x + b) of the current text [C] / of each
+  // text of a batch [B x C].
+  std::vector<std::string> words, swords;
+  NgramScratch nscratch;
+  std::vector<float> ngram, bngram;
   ClassifyResult cres;
   TagResult tres;
   bool calibrated = true;  // apply the header's temperature (set_calibrated)
@@ -381,6 +392,8 @@ void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float
       }
       break;
     }
+    case DType::kU8:  // refused for weights by check_model_tensors
+      break;
   }
 }
 
@@ -402,6 +415,8 @@ void embed_row(const Impl& m, std::uint32_t id, float* out) {
       for (std::size_t j = 0; j < E; ++j) out[j] = static_cast<float>(q[j]) * s;
       break;
     }
+    case DType::kU8:  // refused for weights by check_model_tensors
+      break;
   }
 }
 
@@ -573,7 +588,17 @@ void decide_classify(const Impl& m, bool calibrated, const float* logits, float*
   res.token_count = tokens;
 }
 
-/// Head over the pooled features in b.pooled -> b.probs, b.cres.
+/// out[c] = mix * (W x + b)[c] of the n-gram part over words[0 .. T) (without the n-grams of word
+/// `skip`, see NgramPart::add_scores); the logits then get out added, which gives the same floats as
+/// adding the scores to the logits directly.
+void ngram_scores(const Impl& m, Buffers& b, const std::string* words, std::size_t T, float* out,
+                  std::size_t skip = NgramPart::kKeepAll) {
+  std::fill(out, out + m.labels.size(), 0.0f);
+  m.ngram.add_scores(words, T, out, b.nscratch, skip);
+}
+
+/// Head over the pooled features in b.pooled -> b.probs, b.cres; with an n-gram part, b.ngram
+/// (ngram_scores of the same text) is added to the logits.
 const ClassifyResult& finish_classify(const Impl& m, Buffers& b, std::size_t tokens) {
   const std::size_t C = m.labels.size();
   ensure(b.logits, C);
@@ -581,6 +606,8 @@ const ClassifyResult& finish_classify(const Impl& m, Buffers& b, std::size_t tok
   ensure(b.chosen, C);
   apply(m, m.head, b.pooled.data(), 1, b.logits.data(), C, b);
   for (std::size_t i = 0; i < C; ++i) b.logits[i] += m.head_bias[i];
+  if (!m.ngram.empty())
+    for (std::size_t i = 0; i < C; ++i) b.logits[i] += b.ngram[i];
   decide_classify(m, b.calibrated, b.logits.data(), b.probs.data(), b.chosen.data(), b.pooled.data(), tokens,
                   b.cres);
   return b.cres;
@@ -711,8 +738,10 @@ void surfaces_to_chars(const Impl& m, Buffers& b, Span<const std::string> surfac
 void tokens_with_chars(const Impl& m, Buffers& b, Span<const std::string> tokens) {
   ensure(b.ids, tokens.size());
   b.surfaces.resize(tokens.size());
+  ensure(b.words, tokens.size());
   for (std::size_t i = 0; i < tokens.size(); ++i) {
-    b.ids[i] = m.lookup(m.tokenizer->normalize(tokens[i]));
+    b.words[i] = m.tokenizer->normalize(tokens[i]);
+    b.ids[i] = m.lookup(b.words[i]);
     b.surfaces[i] = m.surface_tokenizer->normalize(tokens[i]);
   }
   surfaces_to_chars(m, b, Span<const std::string>(b.surfaces.data(), tokens.size()));
@@ -748,6 +777,22 @@ void refuse_without_chars(const Impl& m, const char* what) {
                 ": this model has a character encoder; pass the character ids too (or give text or tokens)");
 }
 
+/// The n-gram part reads tokens (strings), which ids alone do not give back: a token outside the
+/// vocabulary has id 1 whatever it was. Calls without the words are refused, never run without
+/// the part.
+void refuse_without_words(const Impl& m, const char* what) {
+  if (!m.ngram.empty())
+    throw Error(std::string(what) +
+                ": this model has an n-gram part, which reads the tokens; give text or tokens, or the "
+                "words with the ids");
+}
+
+void check_words(const Impl& m, std::size_t T, Span<const std::string> words) {
+  if (m.ngram.empty()) throw Error("words given, but this model has no n-gram part");
+  if (words.size() != T)
+    throw Error(std::to_string(words.size()) + " words given for " + std::to_string(T) + " token ids");
+}
+
 }  // namespace
 
 namespace {
@@ -776,7 +821,15 @@ void pool(const Impl& m, const float* top, std::size_t T, float* pooled) {
   }
 }
 
-/// Classifies the T tokens in b.ids (and b.char_ids / b.char_off for a character encoder).
+/// With an n-gram part: b.ngram = its scores of words[0 .. T).
+void prepare_ngram(const Impl& m, Buffers& b, const std::string* words, std::size_t T) {
+  if (m.ngram.empty()) return;
+  ensure(b.ngram, m.labels.size());
+  ngram_scores(m, b, words, T, b.ngram.data());
+}
+
+/// Classifies the T tokens in b.ids (and b.char_ids / b.char_off for a character encoder; with an
+/// n-gram part, b.ngram holds its scores, prepare_ngram).
 const ClassifyResult& classify_prepared(const Impl& m, Buffers& b, std::size_t T) {
   ensure(b.pooled, m.arch.features());
   pool(m, T > 0 ? run_stack(m, b, T) : nullptr, T, b.pooled.data());
@@ -812,6 +865,7 @@ const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids) {
   const Impl& m = *model_.impl_;
   check_task(m, Task::kClassify);
   refuse_without_chars(m, "classify_ids");
+  refuse_without_words(m, "classify_ids");
   check_ids(m, ids);
   copy_ids(*b_, ids);
   return classify_prepared(m, *b_, ids.size());
@@ -821,10 +875,26 @@ const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids, Span<
                                             Span<const std::int32_t> char_offsets) {
   const Impl& m = *model_.impl_;
   check_task(m, Task::kClassify);
+  refuse_without_words(m, "classify_ids");
   check_ids(m, ids);
   check_chars(m, ids.size(), char_ids, char_offsets);
   copy_ids(*b_, ids);
   copy_chars(*b_, char_ids, char_offsets);
+  return classify_prepared(m, *b_, ids.size());
+}
+
+const ClassifyResult& Context::classify_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                            Span<const std::int32_t> char_offsets,
+                                            Span<const std::string> words) {
+  const Impl& m = *model_.impl_;
+  check_task(m, Task::kClassify);
+  check_ids(m, ids);
+  check_words(m, ids.size(), words);
+  if (m.arch.has_char_encoder() || !char_ids.empty() || !char_offsets.empty())
+    check_chars(m, ids.size(), char_ids, char_offsets);
+  copy_ids(*b_, ids);
+  if (m.arch.has_char_encoder()) copy_chars(*b_, char_ids, char_offsets);
+  prepare_ngram(m, *b_, words.data(), ids.size());
   return classify_prepared(m, *b_, ids.size());
 }
 
@@ -835,6 +905,7 @@ const ClassifyResult& Context::classify_tokens(Span<const std::string> tokens) {
     tokens_with_chars(m, *b_, tokens);
   else
     tokens_to_ids(m, *b_, tokens);
+  prepare_ngram(m, *b_, m.arch.has_char_encoder() ? b_->words.data() : tokens.data(), tokens.size());
   return classify_prepared(m, *b_, tokens.size());
 }
 
@@ -846,6 +917,7 @@ const ClassifyResult& Context::classify(std::string_view text) {
     return classify_tokens(Span<const std::string>(b_->tokens.data(), b_->tokens.size()));
   }
   text_with_chars(m, *b_, text);
+  prepare_ngram(m, *b_, b_->tokens.data(), b_->tokens.size());
   return classify_prepared(m, *b_, b_->tokens.size());
 }
 
@@ -859,8 +931,11 @@ void check_occlusion(const Impl& m, std::uint32_t target) {
 }
 
 /// Occlusion scores of the T tokens in b.ids (and b.char_ids / b.char_off): token t is replaced
-/// by the padding id and, with a character encoder, by no characters (zero features).
-Span<const float> occlude_prepared(const Impl& m, Buffers& b, std::size_t T, std::uint32_t target) {
+/// by the padding id and, with a character encoder, by no characters (zero features); with an
+/// n-gram part (words: the T words it reads), every n-gram holding token t is left out.
+Span<const float> occlude_prepared(const Impl& m, Buffers& b, std::size_t T, std::uint32_t target,
+                                   const std::string* words) {
+  if (!m.ngram.empty()) ensure(b.ngram, m.labels.size());
   const bool chars = m.arch.has_char_encoder();
   ensure(b.occlusion_ids, T);
   if (T) std::memcpy(b.occlusion_ids.data(), b.ids.data(), T * sizeof(std::uint32_t));
@@ -882,6 +957,7 @@ Span<const float> occlude_prepared(const Impl& m, Buffers& b, std::size_t T, std
                         b.occlusion_chars.end());
       for (std::size_t i = 0; i <= T; ++i) b.char_off[i] = b.occlusion_char_off[i] - (i > t ? removed : 0);
     }
+    if (!m.ngram.empty()) ngram_scores(m, b, words, T, b.ngram.data(), t);
     b.occlusion[t] = classify_prepared(m, b, T).probabilities[target];
   }
   if (T) std::memcpy(b.ids.data(), b.occlusion_ids.data(), T * sizeof(std::uint32_t));
@@ -889,6 +965,7 @@ Span<const float> occlude_prepared(const Impl& m, Buffers& b, std::size_t T, std
     b.char_ids = b.occlusion_chars;
     b.char_off = b.occlusion_char_off;
   }
+  prepare_ngram(m, b, words, T);
   const float whole = classify_prepared(m, b, T).probabilities[target];
   for (std::size_t t = 0; t < T; ++t) b.occlusion[t] = whole - b.occlusion[t];
   return Span<const float>(b.occlusion.data(), T);
@@ -900,20 +977,36 @@ Span<const float> Context::occlusion_ids(Span<const std::uint32_t> ids, std::uin
   const Impl& m = *model_.impl_;
   check_occlusion(m, target);
   refuse_without_chars(m, "occlusion_ids");
+  refuse_without_words(m, "occlusion_ids");
   check_ids(m, ids);
   copy_ids(*b_, ids);
-  return occlude_prepared(m, *b_, ids.size(), target);
+  return occlude_prepared(m, *b_, ids.size(), target, nullptr);
 }
 
 Span<const float> Context::occlusion_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
                                          Span<const std::int32_t> char_offsets, std::uint32_t target) {
   const Impl& m = *model_.impl_;
   check_occlusion(m, target);
+  refuse_without_words(m, "occlusion_ids");
   check_ids(m, ids);
   check_chars(m, ids.size(), char_ids, char_offsets);
   copy_ids(*b_, ids);
   copy_chars(*b_, char_ids, char_offsets);
-  return occlude_prepared(m, *b_, ids.size(), target);
+  return occlude_prepared(m, *b_, ids.size(), target, nullptr);
+}
+
+Span<const float> Context::occlusion_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                         Span<const std::int32_t> char_offsets, Span<const std::string> words,
+                                         std::uint32_t target) {
+  const Impl& m = *model_.impl_;
+  check_occlusion(m, target);
+  check_ids(m, ids);
+  check_words(m, ids.size(), words);
+  if (m.arch.has_char_encoder() || !char_ids.empty() || !char_offsets.empty())
+    check_chars(m, ids.size(), char_ids, char_offsets);
+  copy_ids(*b_, ids);
+  if (m.arch.has_char_encoder()) copy_chars(*b_, char_ids, char_offsets);
+  return occlude_prepared(m, *b_, ids.size(), target, words.data());
 }
 
 Span<const float> Context::occlusion(std::string_view text, std::uint32_t target) {
@@ -925,7 +1018,7 @@ Span<const float> Context::occlusion(std::string_view text, std::uint32_t target
     m.tokenizer->tokenize(text, b_->tokens);
     tokens_to_ids(m, *b_, Span<const std::string>(b_->tokens.data(), b_->tokens.size()));
   }
-  return occlude_prepared(m, *b_, b_->tokens.size(), target);
+  return occlude_prepared(m, *b_, b_->tokens.size(), target, b_->tokens.data());
 }
 
 Span<const std::string> Context::tokens() const {
@@ -1084,6 +1177,8 @@ Span<const ClassifyResult> batch_classify(const Impl& m, Buffers& b, std::size_t
   for (std::size_t i = 0; i < B; ++i) {
     float* logits = b.blogits.data() + i * C;
     for (std::size_t c = 0; c < C; ++c) logits[c] += m.head_bias[c];
+    if (!m.ngram.empty())  // batch_tokens / batch_texts computed them
+      for (std::size_t c = 0; c < C; ++c) logits[c] += b.bngram[i * C + c];
     decide_classify(m, b.calibrated, logits, b.bprobs.data() + i * C, b.bchosen.data() + i * C,
                     b.bpooled.data() + i * F, b.blen[i], b.bcres[i]);
   }
@@ -1159,6 +1254,14 @@ void batch_ids_chars(const Impl& m, Buffers& b, Span<const Span<const std::uint3
     batch_add(m, b, i, texts[i].data(), texts[i].size(), char_ids[i].data(), char_offsets[i].data());
 }
 
+/// With an n-gram part, text i's scores into row i of b.bngram.
+void batch_ngram(const Impl& m, Buffers& b, std::size_t i, const std::string* words, std::size_t T) {
+  if (m.ngram.empty()) return;
+  const std::size_t C = m.labels.size();
+  ensure(b.bngram, (i + 1) * C);
+  ngram_scores(m, b, words, T, b.bngram.data() + i * C);
+}
+
 void batch_tokens(const Impl& m, Buffers& b, Span<const Span<const std::string>> texts) {
   batch_begin(b, texts.size());
   for (std::size_t i = 0; i < texts.size(); ++i) {
@@ -1170,9 +1273,11 @@ void batch_tokens(const Impl& m, Buffers& b, Span<const Span<const std::string>>
         fail_for_text(i, e);
       }
       batch_add(m, b, i, b.ids.data(), T, b.char_ids.data(), b.char_off.data());
+      batch_ngram(m, b, i, b.words.data(), T);
     } else {
       tokens_to_ids(m, b, texts[i]);
       batch_add(m, b, i, b.ids.data(), T, nullptr, nullptr);
+      batch_ngram(m, b, i, texts[i].data(), T);
     }
   }
 }
@@ -1198,6 +1303,7 @@ void batch_texts(const Impl& m, Buffers& b, Span<const std::string_view> texts, 
     const std::size_t off = b.btotal;
     batch_add(m, b, i, b.ids.data(), T, chars ? b.char_ids.data() : nullptr,
               chars ? b.char_off.data() : nullptr);
+    batch_ngram(m, b, i, b.tokens.data(), T);
     if (keep_tokens) {
       ensure(b.btokens, off + T);
       ensure(b.bbytes, off + T);
@@ -1215,6 +1321,7 @@ Span<const ClassifyResult> Context::classify_batch_ids(Span<const Span<const std
   const Impl& m = *model_.impl_;
   check_task(m, Task::kClassify);
   refuse_without_chars(m, "classify_batch_ids");
+  refuse_without_words(m, "classify_batch_ids");
   batch_ids(m, *b_, texts);
   return batch_classify(m, *b_, texts.size());
 }
@@ -1224,6 +1331,7 @@ Span<const ClassifyResult> Context::classify_batch_ids(Span<const Span<const std
                                                        Span<const Span<const std::int32_t>> char_offsets) {
   const Impl& m = *model_.impl_;
   check_task(m, Task::kClassify);
+  refuse_without_words(m, "classify_batch_ids");
   batch_ids_chars(m, *b_, texts, char_ids, char_offsets);
   return batch_classify(m, *b_, texts.size());
 }
@@ -1324,11 +1432,22 @@ Span<const float> Context::push(std::string_view token) {
   if (bad != std::string_view::npos)
     throw Error("invalid UTF-8 at byte " + std::to_string(bad + 1) + " of the token");
   const Impl& m = *model_.impl_;
-  if (!m.arch.has_char_encoder()) return push_id(m.lookup(token));
   Buffers& b = *b_;
+  if (!m.arch.has_char_encoder()) {
+    if (m.ngram.empty()) return push_id(m.lookup(token));
+    if (b.sh.empty()) reset();  // first use
+    ensure(b.swords, b.steps + 1);
+    b.swords[b.steps].assign(token);  // the word the n-gram part reads; reuses the slot's capacity
+    embed_row(m, m.lookup(token), b.sx.data());
+    return push_input();
+  }
   if (b.sh.empty()) reset();  // first use
   const std::string one(token);
   tokens_with_chars(m, b, Span<const std::string>(&one, 1));
+  if (!m.ngram.empty()) {
+    ensure(b.swords, b.steps + 1);
+    b.swords[b.steps].assign(b.words[0]);
+  }
   input_row(m, b, 0, b.sx.data());
   return push_input();
 }
@@ -1337,6 +1456,7 @@ Span<const float> Context::push_id(std::uint32_t id) {
   const Impl& m = *model_.impl_;
   Buffers& b = *b_;
   refuse_without_chars(m, "push_id");
+  refuse_without_words(m, "push_id");
   if (b.sh.empty()) reset();  // first use
   if (id >= m.vocab_size()) throw Error("token id " + std::to_string(id) + " is outside the vocabulary");
   embed_row(m, id, b.sx.data());
@@ -1413,6 +1533,7 @@ Span<const float> Context::distribution() {
   for (std::size_t j = 0; j < H; ++j)
     b.pooled[j] = m.arch.pooling == Pooling::kMean && b.steps > 0 ? b.spool[j] / static_cast<float>(b.steps)
                                                                   : b.spool[j];
+  prepare_ngram(m, b, b.swords.data(), b.steps);
   const ClassifyResult& r = finish_classify(m, b, b.steps);
   return r.probabilities;
 }

@@ -93,6 +93,8 @@ const char* to_string(DType dtype) {
       return "f16";
     case DType::kI8:
       return "i8";
+    case DType::kU8:
+      return "u8";
   }
   return "?";
 }
@@ -111,6 +113,7 @@ std::size_t dtype_size(DType dtype) {
     case DType::kF16:
       return 2;
     case DType::kI8:
+    case DType::kU8:
       return 1;
   }
   return 0;
@@ -315,7 +318,7 @@ std::uint64_t read_entry(const Reader& r, const unsigned char* b, const Layout& 
   if (load_u16(b + pos + 6) != 0) r.fail(where + ": reserved field is not zero");
   if (name_len == 0 || name_len > ModelFileLimits::kMaxNameBytes)
     r.fail(where + ": invalid name length " + std::to_string(name_len));
-  if (dtype_code > 2) r.fail(where + ": unknown dtype code " + std::to_string(dtype_code));
+  if (dtype_code > 3) r.fail(where + ": unknown dtype code " + std::to_string(dtype_code));
   if (rank == 0 || rank > ModelFileLimits::kMaxRank) r.fail(where + ": invalid rank " + std::to_string(rank));
   const std::uint64_t entry_bytes = 8 + 8 * rank + 24 + align_up(name_len, 8);
   if (table_end - pos < entry_bytes) r.fail(where + " runs past the table");
@@ -417,6 +420,7 @@ const TensorInfo& ModelFile::tensor(std::string_view name) const {
 }
 
 void ModelFile::read_f32(const TensorInfo& t, Span<float> out) const {
+  if (t.dtype == DType::kU8) throw Error(name_ + ": tensor \"" + t.name + "\" holds bytes (u8), not numbers");
   if (out.size() != t.elements())
     throw Error(name_ + ": read_f32: output size does not match tensor \"" + t.name + "\"");
   const std::size_t n = out.size();
@@ -436,6 +440,8 @@ void ModelFile::read_f32(const TensorInfo& t, Span<float> out) const {
           out[row * t.cols + c] = static_cast<float>(q[row * t.cols + c]) * t.scales[row];
       break;
     }
+    case DType::kU8:
+      break;
   }
 }
 
@@ -475,6 +481,7 @@ void ModelFileWriter::add_tensor(std::string name, std::vector<std::uint64_t> sh
   for (std::size_t i = 0; i < values.size(); ++i)
     if (!std::isfinite(values[i]))
       throw Error("tensor \"" + name + "\": value " + std::to_string(i) + " is not finite");
+  if (dtype == DType::kU8) throw Error("tensor \"" + name + "\": numbers cannot be stored as u8 (bytes)");
   Pending p;
   p.name = std::move(name);
   p.dtype = dtype;
@@ -515,7 +522,27 @@ void ModelFileWriter::add_tensor(std::string name, std::vector<std::uint64_t> sh
         }
       }
       break;
+    case DType::kU8:
+      break;
   }
+  tensors_.push_back(std::move(p));
+}
+
+void ModelFileWriter::add_bytes(std::string name, Span<const unsigned char> bytes) {
+  if (name.empty() || name.size() > ModelFileLimits::kMaxNameBytes || !is_valid_utf8(name))
+    throw Error("tensor name must be 1.." + std::to_string(ModelFileLimits::kMaxNameBytes) +
+                " bytes of UTF-8");
+  for (const auto& t : tensors_)
+    if (t.name == name) throw Error("duplicate tensor name \"" + name + "\"");
+  if (bytes.empty() || bytes.size() > ModelFileLimits::kMaxElements)
+    throw Error("tensor \"" + name + "\": 1 to 2^36 bytes");
+  Pending p;
+  p.name = std::move(name);
+  p.dtype = DType::kU8;
+  p.rows = 1;
+  p.cols = bytes.size();
+  p.shape = {p.cols};
+  p.payload.assign(bytes.begin(), bytes.end());
   tensors_.push_back(std::move(p));
 }
 

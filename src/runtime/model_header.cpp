@@ -12,6 +12,7 @@
 
 #include "gyre/runtime/calibration.hpp"
 #include "gyre/runtime/model_file.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 #include "runtime/detail/json.hpp"
 
 namespace gyre::runtime {
@@ -113,6 +114,7 @@ class Fields {
       : file_(file), obj_(obj), where_(std::move(where)) {}
 
   [[noreturn]] void fail(const std::string& msg) const { throw Error(file_ + ": header: " + msg); }
+  const std::string& file() const { return file_; }
   std::string path(const char* key) const { return "\"" + where_ + key + "\""; }
 
   bool has(const char* key) const { return obj_.find(key) != nullptr; }
@@ -177,7 +179,7 @@ Architecture read_architecture(const Fields& a) {
   if (arch.task == Task::kClassify) {
     a.only({"task", "cell", "embedding_size", "hidden_size", "layers", "bidirectional", "pooling", "output",
             "multi_label_threshold", "label_thresholds", "temperature", "char_embedding_size", "char_filters",
-            "char_width"});
+            "char_width", "ngram"});
   } else {
     a.only({"task", "cell", "embedding_size", "hidden_size", "layers", "bidirectional", "output",
             "tag_scheme", "temperature", "char_embedding_size", "char_filters", "char_width"});
@@ -238,6 +240,21 @@ Architecture read_architecture(const Fields& a) {
     arch.char_filters = a.integer("char_filters", 1, L::kMaxEmbeddingSize);
     arch.char_width = a.integer("char_width", 1, L::kMaxCharWidth);
     if (arch.char_width % 2 == 0) a.fail(a.path("char_width") + " must be odd");
+  }
+  if (a.has("ngram")) {
+    if (arch.task != Task::kClassify || arch.output != Output::kSoftmax)
+      a.fail(a.path("ngram") + " (an n-gram part) is only for classifiers with output \"softmax\"");
+    const Json& g = a.get("ngram");
+    if (!g.is_object()) a.fail(a.path("ngram") + " must be an object");
+    const Fields n(a.file(), g, "architecture.ngram.");
+    n.only({"order", "mix", "keys"});
+    arch.ngram_order = static_cast<int>(n.integer("order", 1, static_cast<std::size_t>(kMaxNgramOrder)));
+    const Json& mix = n.get("mix");
+    if (!mix.is_number() || !(mix.as_number() > 0.0 && mix.as_number() <= L::kMaxNgramMix))
+      n.fail(n.path("mix") + " must be a number in (0, " + std::to_string(static_cast<int>(L::kMaxNgramMix)) +
+             "]");
+    arch.ngram_mix = static_cast<float>(mix.as_number());
+    arch.ngram_keys = n.integer("keys", 1, L::kMaxNgramKeys);
   }
   return arch;
 }
@@ -420,6 +437,13 @@ std::string model_header_json(const ModelHeader& h) {
     arch.set("char_filters", Json::number(static_cast<double>(a.char_filters)));
     arch.set("char_width", Json::number(static_cast<double>(a.char_width)));
   }
+  if (a.has_ngram_part()) {
+    Json g = Json::object();
+    g.set("order", Json::number(static_cast<double>(a.ngram_order)));
+    g.set("mix", Json::number(shortest(a.ngram_mix)));
+    g.set("keys", Json::number(static_cast<double>(a.ngram_keys)));
+    arch.set("ngram", std::move(g));
+  }
   Json labels = Json::array();
   for (const auto& l : h.labels) labels.push_back(Json::string(l));
   const TokenizerSettings& s = h.tokenizer;
@@ -477,6 +501,13 @@ std::vector<ModelTensor> model_tensors(const ModelHeader& h) {
     out.push_back({"crf.start", 1, C, false});
     out.push_back({"crf.end", 1, C, false});
   }
+  if (a.has_ngram_part()) {
+    // Keys front-coded (at least 3 bytes each, gyre/runtime/ngram_part_file.hpp); weights stored
+    // class-major, so an i8 file has one scale per class.
+    out.push_back({"ngram.keys", 1, 3 * static_cast<std::uint64_t>(a.ngram_keys), false, true});
+    out.push_back({"ngram.w", C, a.ngram_keys, true});
+    out.push_back({"ngram.b", 1, C, false});
+  }
   return out;
 }
 
@@ -486,6 +517,14 @@ void check_model_tensors(const ModelHeader& h, const ModelFile& file) {
     if (t == nullptr)
       throw Error(file.name() + ": tensor \"" + m.name + "\" is missing (the header describes a " +
                   to_string(h.architecture.cell) + " " + to_string(h.architecture.task) + " model)");
+    if (m.bytes) {
+      if (t->dtype != DType::kU8 || t->shape.size() != 1 || t->cols < m.cols)
+        throw Error(file.name() + ": tensor \"" + m.name + "\" must be u8 bytes of shape [n], n >= " +
+                    std::to_string(m.cols) + "; it is " + to_string(t->dtype) + " " + t->shape_string());
+      continue;
+    }
+    if (t->dtype == DType::kU8)
+      throw Error(file.name() + ": tensor \"" + m.name + "\" holds bytes (u8); the model needs numbers");
     if (t->shape.size() != 2 || t->rows != m.rows || t->cols != m.cols)
       throw Error(file.name() + ": tensor \"" + m.name + "\" has shape " + t->shape_string() +
                   ", the header needs [" + std::to_string(m.rows) + " x " + std::to_string(m.cols) + "]");

@@ -9,29 +9,51 @@
 
 namespace gyre::runtime {
 
-void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<std::string>& out) {
+namespace {
+
+void check_order(int order) {
   if (order < 1 || order > kMaxNgramOrder) {
     throw Error("n-gram order " + std::to_string(order) + " is outside 1.." + std::to_string(kMaxNgramOrder));
   }
-  for (const auto& token : tokens) out.push_back(token);
-  if (tokens.empty()) return;
-  // Items of the padded list: -1 = begin marker, tokens.size() = end marker, else a token.
-  const auto padded = static_cast<std::ptrdiff_t>(tokens.size()) + 2;
-  auto item = [&](std::ptrdiff_t i) -> std::string_view {
+}
+
+// Calls f(key) for every key of tokens[0..n) for orders 1..order (see the header), in order of
+// appearance, with repeats, building each key in `key` (reused: no allocation once it has held the
+// longest key). Keys that contain token `skip` are left out.
+template <class F>
+void for_each_key(const std::string* tokens, std::size_t n, int order, std::size_t skip, std::string& key,
+                  F&& f) {
+  for (std::size_t i = 0; i < n; ++i)
+    if (i != skip) f(std::string_view(tokens[i]));
+  if (n == 0) return;
+  // Items of the padded list: 0 = begin marker, n + 1 = end marker, i = token i - 1.
+  const std::size_t padded = n + 2;
+  auto item = [&](std::size_t i) -> std::string_view {
     if (i == 0) return kNgramBegin;
     if (i == padded - 1) return kNgramEnd;
-    return tokens[static_cast<std::size_t>(i - 1)];
+    return tokens[i - 1];
   };
-  for (int n = 2; n <= order; ++n) {
-    for (std::ptrdiff_t start = 0; start + n <= padded; ++start) {
-      std::string key(item(start));
-      for (std::ptrdiff_t k = 1; k < n; ++k) {
+  for (std::size_t len = 2; len <= static_cast<std::size_t>(order); ++len) {
+    for (std::size_t start = 0; start + len <= padded; ++start) {
+      // Padded items start .. start+len-1 hold token skip (item skip + 1)?
+      if (skip < n && start <= skip + 1 && skip + 1 < start + len) continue;
+      key.assign(item(start));
+      for (std::size_t k = 1; k < len; ++k) {
         key += kNgramJoin;
         key += item(start + k);
       }
-      out.push_back(std::move(key));
+      f(std::string_view(key));
     }
   }
+}
+
+}  // namespace
+
+void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<std::string>& out) {
+  check_order(order);
+  std::string key;
+  for_each_key(tokens.data(), tokens.size(), order, NgramPart::kKeepAll, key,
+               [&](std::string_view k) { out.emplace_back(k); });
 }
 
 NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights,
@@ -72,16 +94,19 @@ std::int32_t NgramPart::find(std::string_view key) const noexcept {
 
 void NgramPart::features(const std::vector<std::string>& tokens, std::vector<std::int32_t>& index,
                          std::vector<float>& value, NgramScratch& scratch) const {
+  features(tokens.data(), tokens.size(), index, value, scratch);
+}
+
+void NgramPart::features(const std::string* tokens, std::size_t n, std::vector<std::int32_t>& index,
+                         std::vector<float>& value, NgramScratch& scratch, std::size_t skip) const {
   index.clear();
   value.clear();
   if (empty()) return;
-  scratch.keys.clear();
-  ngram_keys(tokens, order_, scratch.keys);
   scratch.ids.clear();
-  for (const auto& key : scratch.keys) {
+  for_each_key(tokens, n, order_, skip, scratch.key, [&](std::string_view key) {
     const std::int32_t id = find(key);
     if (id >= 0) scratch.ids.push_back(id);
-  }
+  });
   std::sort(scratch.ids.begin(), scratch.ids.end());
   float norm2 = 0.0F;
   for (std::size_t i = 0; i < scratch.ids.size();) {
@@ -101,8 +126,13 @@ void NgramPart::features(const std::vector<std::string>& tokens, std::vector<std
 
 void NgramPart::add_scores(const std::vector<std::string>& tokens, float* logits,
                            NgramScratch& scratch) const {
+  add_scores(tokens.data(), tokens.size(), logits, scratch);
+}
+
+void NgramPart::add_scores(const std::string* tokens, std::size_t n, float* logits, NgramScratch& scratch,
+                           std::size_t skip) const {
   if (empty()) return;
-  features(tokens, scratch.index, scratch.values, scratch);
+  features(tokens, n, scratch.index, scratch.values, scratch, skip);
   const auto classes = static_cast<std::size_t>(classes_);
   for (std::size_t c = 0; c < classes; ++c) {
     float z = bias_[c];

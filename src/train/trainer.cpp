@@ -1310,7 +1310,7 @@ json Run::calibrate() {
   if (m.spec().output == model::OutputKind::kSigmoid && config_.tune_label_thresholds)
     label_thresholds_ = tune_thresholds(m, after);
   io::write_checkpoint(best, m, data_.vocab, nullptr, trained.header.at("trainer"),
-                       trained.header.at("config"));
+                       trained.header.at("config"), &trained.ngram_part);
   if (data_.task == data::Task::kClassify && !data_.multi_label) mistakes_ = dev_mistakes(m, after);
   std::string temps;
   for (const float t : fit.temperature) temps += (temps.empty() ? "" : " ") + fmt(t, 3);

@@ -21,6 +21,7 @@
 #include "gyre/core/error.hpp"
 #include "gyre/io/model_io.hpp"
 #include "gyre/runtime/model.hpp"
+#include "gyre/runtime/ngram_part_file.hpp"
 #include "runtime/detail/checksum.hpp"
 #include "support/random_model.hpp"
 
@@ -58,7 +59,13 @@ fs::path with_header(const fs::path& src, const std::string& name, const std::fu
   json h = json::parse(file.header_json());
   edit(h);
   gyre::runtime::ModelFileWriter writer(h.dump());
-  for (const auto& t : file.tensors()) writer.add_tensor(t.name, t.shape, file.read_f32(t), t.dtype);
+  for (const auto& t : file.tensors()) {
+    if (t.dtype == gyre::runtime::DType::kU8)
+      writer.add_bytes(t.name,
+                       {static_cast<const unsigned char*>(t.data), static_cast<std::size_t>(t.bytes)});
+    else
+      writer.add_tensor(t.name, t.shape, file.read_f32(t), t.dtype);
+  }
   const fs::path out = tmp_dir() / name;
   writer.write(out.string());
   return out;
@@ -460,5 +467,215 @@ TEST_CASE("a character encoder in the header: keys, list and tensors are checked
     REQUIRE_THROWS_WITH(ctx.classify_ids(ids, chars, bad_offsets), Contains("character offsets"));
     const std::vector<std::int32_t> offsets{0, 2, 3};
     REQUIRE(ctx.classify_ids(ids, chars, offsets).probabilities.size() == 3);
+  }
+}
+
+// ---- n-gram part (docs/model-format.md "N-gram part") ------------------------------------------
+
+namespace {
+
+const std::vector<std::vector<std::string>> kNgramTexts = {
+    {"the", "kettle", "please"},
+    {"can", "you", "come", "on", "monday", "?"},
+    {"oven", "!"},
+    {"washer", "at", "3pm", "is", "fine"},
+    {"zo\xc3\xab", "says", "the", "oven", "is", "fine"}};
+
+/// Keys that share more than 255 bytes with the key before them (the format's cap on `shared`).
+std::vector<std::string> long_keys() {
+  const std::string stem(300, 'k');
+  return {stem + "a", stem + "b", stem + "b" + std::string(40, 'z'), stem + "c"};
+}
+
+gyre::io::TrainedModel with_part(std::uint64_t seed, float mix = 0.8f) {
+  auto trained = gyre::test::random_model(classifier_spec(), seed);
+  trained.ngram_part = gyre::test::random_ngram_part(kNgramTexts, 2, 3, seed + 1, mix, long_keys());
+  return trained;
+}
+
+void same_part(const gyre::runtime::NgramPart& a, const gyre::runtime::NgramPart& b) {
+  REQUIRE(a.order() == b.order());
+  REQUIRE(a.mix() == b.mix());
+  REQUIRE(a.keys() == b.keys());
+  REQUIRE(a.weights() == b.weights());
+  REQUIRE(a.bias() == b.bias());
+}
+
+}  // namespace
+
+TEST_CASE("n-gram keys: front coding round trip, and every malformed list refused", "[io][ngram]") {
+  std::vector<std::string> keys = long_keys();
+  for (const auto& t : kNgramTexts) gyre::runtime::ngram_keys(t, 3, keys);
+  keys.push_back(std::string("\xff\xfe", 2));  // bytes above 0x7F sort after ASCII (unsigned)
+  keys.push_back(std::string(200, 'x'));       // a length that needs two LEB128 bytes
+  std::sort(keys.begin(), keys.end());
+  keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
+  const auto blob = gyre::runtime::encode_ngram_keys(keys);
+  CHECK(gyre::runtime::decode_ngram_keys(blob.data(), blob.size(), keys.size(), "k") == keys);
+  std::size_t plain = 0;
+  for (const auto& k : keys) plain += k.size();
+  CHECK(blob.size() < plain);  // sorted keys share prefixes
+  using gyre::runtime::Error;
+  auto decode = [](std::vector<unsigned char> b, std::size_t n) {
+    return gyre::runtime::decode_ngram_keys(b.data(), b.size(), n, "keys");
+  };
+  // {shared, length, bytes...} per key.
+  CHECK(decode({0, 1, 'a', 0, 1, 'b'}, 2) == std::vector<std::string>{"a", "b"});
+  CHECK(decode({0, 2, 'a', 'b', 1, 1, 'c'}, 2) == std::vector<std::string>{"ab", "ac"});
+  CHECK_THROWS_WITH(decode({0, 1, 'b', 0, 1, 'a'}, 2), Contains("key 1") && Contains("sorted"));
+  CHECK_THROWS_WITH(decode({0, 1, 'a', 0, 1, 'a'}, 2), Contains("sorted bytewise and unique"));
+  CHECK_THROWS_WITH(decode({0, 2, 'a', 'b', 1, 1, 'a'}, 2), Contains("sorted"));  // "aa" after "ab"
+  CHECK(decode({0, 2, 'a', 'b', 2, 1, 'a'}, 2) == std::vector<std::string>{"ab", "aba"});
+  CHECK_THROWS_WITH(decode({0, 1, 'a', 2, 1, 'b'}, 2), Contains("shares more bytes"));
+  CHECK_THROWS_WITH(decode({0, 0, 'x', 0, 1, 'a'}, 2), Contains("outside 1.."));  // empty key
+  CHECK_THROWS_WITH(decode({0, 5, 'a', 'b'}, 1), Contains("runs past the end"));  // truncated
+  CHECK_THROWS_WITH(decode({0, 1, 'a', 0, 1, 'b', 7}, 2), Contains("1 bytes left"));
+  CHECK_THROWS_WITH(decode({0, 1, 'a'}, 2), Contains("cannot fit"));
+  CHECK_THROWS_WITH(decode({0, 0x80, 0x80, 0x80, 0x80, 0x01, 'a'}, 1), Contains("length field too long"));
+  CHECK_THROWS_AS(gyre::runtime::encode_ngram_keys({"b", "a"}), Error);
+  CHECK_THROWS_AS(gyre::runtime::encode_ngram_keys({""}), Error);
+}
+
+TEST_CASE("n-gram part: checkpoints and exported files keep it, and files without one still load",
+          "[io][ngram]") {
+  const auto trained = with_part(31);
+  REQUIRE(trained.ngram_part.features() > 40);
+  SECTION("checkpoint (f32, exact)") {
+    const fs::path ckpt = tmp_dir() / "ngram-ckpt.bin";
+    gyre::io::write_checkpoint(ckpt, *trained.model, trained.vocab, nullptr, json::object(), json::object(),
+                               &trained.ngram_part);
+    const auto back = gyre::io::load_trained_model(ckpt);
+    same_part(back.ngram_part, trained.ngram_part);
+    CHECK(back.header["architecture"]["ngram"] ==
+          json({{"order", 2}, {"mix", 0.8}, {"keys", trained.ngram_part.features()}}));
+    // A checkpoint rewritten without the part (as before the part existed) has none.
+    gyre::io::write_checkpoint(ckpt, *trained.model, trained.vocab, nullptr, json::object(), json::object());
+    CHECK(gyre::io::load_trained_model(ckpt).ngram_part.empty());
+  }
+  SECTION("exported f32 (exact), and the runtime reads the same part") {
+    const fs::path file = tmp_dir() / "ngram-f32.gyre";
+    gyre::io::export_model(trained, file, gyre::runtime::DType::kF32);
+    same_part(gyre::io::load_trained_model(file).ngram_part, trained.ngram_part);
+    const auto rt = gyre::runtime::Model::load(file.string());
+    CHECK(rt.architecture().has_ngram_part());
+    CHECK(rt.architecture().ngram_keys == trained.ngram_part.features());
+    const auto f = gyre::runtime::ModelFile::open(file.string());
+    CHECK(f.tensor("ngram.keys").dtype == gyre::runtime::DType::kU8);
+    CHECK(f.tensor("ngram.w").rows == 3);  // class-major
+    CHECK(f.tensor("ngram.b").dtype == gyre::runtime::DType::kF32);
+  }
+  SECTION("f16 and int8: weights stored in the precision, within its rounding") {
+    for (const auto dtype : {gyre::runtime::DType::kF16, gyre::runtime::DType::kI8}) {
+      CAPTURE(gyre::runtime::to_string(dtype));
+      const fs::path file = tmp_dir() / "ngram-q.gyre";
+      gyre::io::export_model(trained, file, dtype);
+      CHECK(gyre::runtime::ModelFile::open(file.string()).tensor("ngram.w").dtype == dtype);
+      const auto back = gyre::io::load_trained_model(file).ngram_part;
+      REQUIRE(back.keys() == trained.ngram_part.keys());
+      REQUIRE(back.bias() == trained.ngram_part.bias());  // f32 always
+      // |w| <= 2: f16 rounds to within 2^-11 relative (IEEE 754 binary16, 11-bit significand);
+      // int8 to within half a step of max|column| / 127 (one scale per class).
+      const double tol = dtype == gyre::runtime::DType::kF16 ? 2.0 * std::ldexp(1.0, -11) : 0.5 * 2.0 / 127.0;
+      for (std::size_t i = 0; i < back.weights().size(); ++i)
+        REQUIRE(std::abs(back.weights()[i] - trained.ngram_part.weights()[i]) <= tol + 1e-7);
+    }
+  }
+  SECTION("a file written without a part has none (old files load unchanged)") {
+    const fs::path file = exported(gyre::runtime::DType::kF32, "ngram-none.gyre");
+    CHECK(gyre::io::load_trained_model(file).ngram_part.empty());
+    CHECK_FALSE(gyre::runtime::Model::load(file.string()).architecture().has_ngram_part());
+  }
+}
+
+TEST_CASE("n-gram part: malformed or truncated parts are refused by both loaders", "[io][ngram]") {
+  const auto trained = with_part(41);
+  const fs::path good = tmp_dir() / "ngram-good.gyre";
+  gyre::io::export_model(trained, good, gyre::runtime::DType::kF32);
+  REQUIRE_NOTHROW(gyre::io::load_trained_model(good));
+  const auto K = trained.ngram_part.features();
+  SECTION("header: keys count disagrees with ngram.w") {
+    refused_by_both(
+        with_header(good, "ng1.gyre", [&](json& h) { h["architecture"]["ngram"]["keys"] = K + 1; }),
+        "tensor \"ngram.w\" has shape [3 x " + std::to_string(K) + "]");
+  }
+  SECTION("header: fewer keys than the list holds") {
+    refused_by_both(with_header(good, "ng2.gyre", [&](json& h) { h["architecture"]["ngram"]["keys"] = 1; }),
+                    "tensor \"ngram.w\" has shape");
+  }
+  SECTION("header: bounds and keys") {
+    refused_by_both(with_header(good, "ng3.gyre", [](json& h) { h["architecture"]["ngram"]["order"] = 7; }),
+                    "\"architecture.ngram.order\" must be an integer in [1, 6]");
+    refused_by_both(with_header(good, "ng4.gyre", [](json& h) { h["architecture"]["ngram"]["mix"] = 0; }),
+                    "\"architecture.ngram.mix\" must be a number in (0, 1000]");
+    refused_by_both(with_header(good, "ng5.gyre", [](json& h) { h["architecture"]["ngram"]["idf"] = true; }),
+                    "unknown key \"architecture.ngram.idf\"");
+    refused_by_both(with_header(good, "ng6.gyre", [](json& h) { h["architecture"]["ngram"] = 2; }),
+                    "\"architecture.ngram\" must be an object");
+  }
+  SECTION("a part on a multi-label model") {
+    refused_by_both(with_header(good, "ng7.gyre",
+                                [](json& h) {
+                                  h["architecture"]["output"] = "sigmoid";
+                                  h["architecture"]["multi_label_threshold"] = 0.5;
+                                }),
+                    "only for classifiers with output \"softmax\"");
+  }
+  SECTION("tensors: missing, numbers as bytes, bytes as numbers") {
+    const auto file = gyre::runtime::ModelFile::open(good.string());
+    auto rewrite =
+        [&](const std::string& name,
+            const std::function<void(gyre::runtime::ModelFileWriter&, const gyre::runtime::TensorInfo&)>& f) {
+          gyre::runtime::ModelFileWriter w{std::string(file.header_json())};
+          for (const auto& t : file.tensors()) f(w, t);
+          const fs::path out = tmp_dir() / name;
+          w.write(out.string());
+          return out;
+        };
+    auto copy = [&](gyre::runtime::ModelFileWriter& w, const gyre::runtime::TensorInfo& t) {
+      if (t.dtype == gyre::runtime::DType::kU8)
+        w.add_bytes(t.name, {static_cast<const unsigned char*>(t.data), static_cast<std::size_t>(t.bytes)});
+      else
+        w.add_tensor(t.name, t.shape, file.read_f32(t), t.dtype);
+    };
+    refused_by_both(rewrite("ng8.gyre",
+                            [&](auto& w, const auto& t) {
+                              if (t.name != "ngram.keys") copy(w, t);
+                            }),
+                    "tensor \"ngram.keys\" is missing");
+    refused_by_both(rewrite("ng9.gyre",
+                            [&](auto& w, const auto& t) {
+                              if (t.name == "ngram.keys")
+                                w.add_tensor(t.name, 1, t.bytes, std::vector<float>(t.bytes, 1.0f));
+                              else
+                                copy(w, t);
+                            }),
+                    "tensor \"ngram.keys\" must be u8 bytes");
+    refused_by_both(rewrite("ng10.gyre",
+                            [&](auto& w, const auto& t) {
+                              if (t.name == "readout.b")
+                                w.add_bytes(t.name, std::vector<unsigned char>(12, 0));
+                              else
+                                copy(w, t);
+                            }),
+                    "tensor \"readout.b\" holds bytes (u8)");
+    refused_by_both(rewrite("ng11.gyre",
+                            [&](auto& w, const auto& t) {
+                              if (t.name == "ngram.keys") {
+                                // The list cut short: its last key is gone.
+                                const auto* p = static_cast<const unsigned char*>(t.data);
+                                w.add_bytes(t.name, {p, static_cast<std::size_t>(t.bytes) - 2});
+                              } else {
+                                copy(w, t);
+                              }
+                            }),
+                    "n-gram part: ngram.keys: key " + std::to_string(K - 1));
+  }
+  SECTION("key bytes changed in place (checksum recomputed): unsorted keys") {
+    const auto f = with_bytes(good, "ng12.gyre", [](std::vector<unsigned char>& b, const auto& file) {
+      const auto& t = file.tensor("ngram.keys");
+      // Key 0 is {0, len, bytes}; make its first byte 0xFF so key 1 sorts before it.
+      b[t.offset + 2] = 0xFF;
+    });
+    refused_by_both(f, "is not greater than the key before it");
   }
 }

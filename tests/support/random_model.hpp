@@ -3,6 +3,7 @@
 // runtime: a fixed 21-token vocabulary, the spec's labels, weights from a seeded Rng (and a fixed
 // character list when the spec has a character encoder: set its sizes, char_vocab_size is filled).
 
+#include <algorithm>
 #include <cstdint>
 #include <memory>
 #include <string>
@@ -10,6 +11,7 @@
 
 #include "gyre/core/rng.hpp"
 #include "gyre/io/model_io.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 
 namespace gyre::test {
 
@@ -52,6 +54,23 @@ inline io::TrainedModel random_model(const model::ModelSpec& spec_in, std::uint6
       for (Eigen::Index i = 0; i < p.value.size(); ++i) p.value.data()[i] = rng.uniform(-1.0f, 1.0f);
   }
   return t;
+}
+
+/// An n-gram part over the keys (orders 1..order) of `texts` (token lists as the vocabulary sees
+/// them) plus `extra` keys, with weights uniform in [-2, 2] and biases in [-0.5, 0.5] from a seeded
+/// Rng: built by hand, as training would fit it (gyre/runtime/ngram_part.hpp).
+inline runtime::NgramPart random_ngram_part(const std::vector<std::vector<std::string>>& texts, int order,
+                                            std::size_t classes, std::uint64_t seed, float mix,
+                                            const std::vector<std::string>& extra = {}) {
+  std::vector<std::string> keys = extra;
+  for (const auto& t : texts) runtime::ngram_keys(t, order, keys);
+  std::sort(keys.begin(), keys.end());
+  keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
+  Rng rng(seed);
+  std::vector<float> weights(keys.size() * classes), bias(classes);
+  for (float& w : weights) w = rng.uniform(-2.0f, 2.0f);
+  for (float& b : bias) b = rng.uniform(-0.5f, 0.5f);
+  return runtime::NgramPart(order, std::move(keys), std::move(weights), std::move(bias), mix);
 }
 
 }  // namespace gyre::test

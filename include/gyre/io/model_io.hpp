@@ -17,12 +17,15 @@
 #include "gyre/optim/optimizer.hpp"
 #include "gyre/runtime/model.hpp"
 #include "gyre/runtime/model_file.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 #include "gyre/text/vocab.hpp"
 
 namespace gyre::io {
 
-/// The model part of the header (docs/model-format.md "Model header schema").
-nlohmann::json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab);
+/// The model part of the header (docs/model-format.md "Model header schema"), with the n-gram
+/// part's description (architecture.ngram) when one is given and not empty.
+nlohmann::json model_header(const model::ModelSpec& spec, const text::VocabFile& vocab,
+                            const runtime::NgramPart* ngram_part = nullptr);
 
 /// A trained model, ready to run in the training library or (exported files) the runtime.
 struct TrainedModel {
@@ -30,8 +33,13 @@ struct TrainedModel {
   text::VocabFile vocab;
   std::unique_ptr<model::SequenceModel> model;  // null when loaded for the runtime only
   std::optional<runtime::Model> runtime;        // exported files with Engine::kRuntimeForExported
-  nlohmann::json header;                        // the whole file header
-  std::filesystem::path path;                   // the file that was read
+  /// The n-gram part (single-label classifiers; docs/model-format.md "N-gram part"): empty when
+  /// the file has none. Its scores are added to the network's logits before the softmax and the
+  /// temperature (runtime::NgramPart::add_scores). Read from checkpoints and exported files (the
+  /// runtime of an exported file holds its own copy and applies it itself).
+  runtime::NgramPart ngram_part;
+  nlohmann::json header;       // the whole file header
+  std::filesystem::path path;  // the file that was read
 
   /// An exported model file ("format": "gyre-model"), not a training checkpoint.
   bool exported() const;
@@ -70,19 +78,21 @@ TrainedModel load_trained_model(const std::filesystem::path& model_or_run, Engin
 /// Throws ConfigError("multi_label_threshold", ...) for a model that is not multi-label.
 void set_multi_label_threshold(TrainedModel& trained, float threshold);
 
-/// Writes a checkpoint atomically: parameters, optimizer state (if given), the trainer's state
-/// and the resolved config.
+/// Writes a checkpoint atomically: parameters, optimizer state (if given), the trainer's state,
+/// the resolved config and the n-gram part (if given and not empty; f32).
 void write_checkpoint(const std::filesystem::path& path, const model::SequenceModel& model,
                       const text::VocabFile& vocab, optim::Optimizer* optimizer,
-                      const nlohmann::json& trainer_state, const nlohmann::json& config);
+                      const nlohmann::json& trainer_state, const nlohmann::json& config,
+                      const runtime::NgramPart* ngram_part = nullptr);
 
 /// Restores parameters and (if given) optimizer state from a checkpoint into a model of the same
 /// spec; returns {"trainer": ..., "config": ...}. Throws FormatError on any mismatch.
 nlohmann::json restore_checkpoint(const std::filesystem::path& path, model::SequenceModel& model,
                                   optim::Optimizer* optimizer);
 
-/// Writes the compact model file: matrices (embedding, w_input, w_hidden, readout.w) in the
-/// given precision, biases and CRF scores in f32. `extra` is merged into the header (metrics,
+/// Writes the compact model file: matrices (embedding, w_input, w_hidden, readout.w, the n-gram
+/// part's weights) in the given precision, biases and CRF scores in f32; trained.ngram_part when
+/// it is not empty. `extra` is merged into the header (metrics,
 /// provenance). Returns the file size in bytes.
 std::size_t export_model(const TrainedModel& trained, const std::filesystem::path& out,
                          runtime::DType precision, const nlohmann::json& extra = nlohmann::json::object());

@@ -121,6 +121,18 @@ class Context {
   /// token as written (un-folded): the word is looked up after the tokenizer's normalization.
   const ClassifyResult& classify_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
                                      Span<const std::int32_t> char_offsets);
+  /// A model with an n-gram part (architecture().has_ngram_part(); docs/model-format.md "N-gram
+  /// part") adds the scores of a linear model over the text's word n-grams to the network's logits
+  /// (before the softmax and the temperature). It reads words, which ids cannot give back (every
+  /// token outside the vocabulary is id 1): classify(), classify_tokens(), the batched calls on
+  /// text or tokens and push() apply it; the id-only calls (classify_ids, classify_batch_ids,
+  /// occlusion_ids, push_id) throw for such a model rather than run without it. This overload
+  /// takes the words with the ids: words[i] is token i as the vocabulary sees it (normalized, i.e.
+  /// tokens() after a call on text, or Tokenizer::normalize of a token as written), one per id;
+  /// char_ids / char_offsets are empty for a model without a character encoder. Throws for a model
+  /// without an n-gram part.
+  const ClassifyResult& classify_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                     Span<const std::int32_t> char_offsets, Span<const std::string> words);
 
   /// Why this label, without a backward pass: occlusion attribution (Zeiler & Fergus 2014,
   /// "Visualizing and Understanding Convolutional Networks", section 4.2, applied to tokens). Score
@@ -134,6 +146,11 @@ class Context {
   Span<const float> occlusion_ids(Span<const std::uint32_t> ids, std::uint32_t target);
   Span<const float> occlusion_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
                                   Span<const std::int32_t> char_offsets, std::uint32_t target);
+  /// With the words an n-gram part reads (see classify_ids above); occluding token t also leaves
+  /// out every n-gram that contains it.
+  Span<const float> occlusion_ids(Span<const std::uint32_t> ids, Span<const std::int32_t> char_ids,
+                                  Span<const std::int32_t> char_offsets, Span<const std::string> words,
+                                  std::uint32_t target);
   /// The same on text (tokenized as classify() does; tokens() gives them).
   Span<const float> occlusion(std::string_view text, std::uint32_t target);
   /// Tokens of the last call on text (classify, tag, occlusion).

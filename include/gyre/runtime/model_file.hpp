@@ -26,9 +26,10 @@ enum class DType : std::uint8_t {
   kF32 = 0,  // IEEE 754 binary32, little-endian
   kF16 = 1,  // IEEE 754 binary16, little-endian
   kI8 = 2,   // signed 8-bit, symmetric, one f32 scale per row: value = q * scale[row]
+  kU8 = 3,   // raw bytes, not numbers (the n-gram part's key list); read_f32 refuses them
 };
 const char* to_string(DType dtype);
-/// "f32", "f16" or "i8"/"int8"; throws Error otherwise.
+/// "f32", "f16" or "i8"/"int8" (precisions; u8 is not one); throws Error otherwise.
 DType dtype_from_string(std::string_view name);
 std::size_t dtype_size(DType dtype);
 
@@ -79,7 +80,7 @@ class ModelFile {
   const TensorInfo* find(std::string_view name) const;
   /// Throws Error naming the file and tensor when absent.
   const TensorInfo& tensor(std::string_view name) const;
-  /// The values of a tensor converted to f32 (i8: q * scale[row]).
+  /// The values of a tensor converted to f32 (i8: q * scale[row]). Throws Error for u8 (bytes).
   std::vector<float> read_f32(const TensorInfo& t) const;
   void read_f32(const TensorInfo& t, Span<float> out) const;
   /// Raw bytes of the whole file.
@@ -116,6 +117,8 @@ class ModelFileWriter {
                   DType dtype = DType::kF32) {
     add_tensor(std::move(name), std::vector<std::uint64_t>{rows, cols}, values, dtype);
   }
+  /// A tensor of raw bytes (dtype u8, shape [bytes.size()]), e.g. an encoded key list.
+  void add_bytes(std::string name, Span<const unsigned char> bytes);
   std::size_t tensor_count() const { return tensors_.size(); }
 
   /// The complete file.

@@ -70,8 +70,16 @@ struct Architecture {
   std::size_t char_embedding_size = 0;
   std::size_t char_filters = 0;
   std::size_t char_width = 0;  // odd
+  /// N-gram part (gyre/runtime/ngram_part.hpp; single-label classifiers, output softmax): its
+  /// n-gram order, mix and number of keys; all 0 when the model has none. Optional header object
+  /// "architecture.ngram" {"order", "mix", "keys"}; the keys and weights are tensors
+  /// (read_ngram_part in gyre/runtime/ngram_part_file.hpp).
+  int ngram_order = 0;
+  float ngram_mix = 0.0f;
+  std::size_t ngram_keys = 0;
 
   bool has_char_encoder() const { return char_filters > 0; }
+  bool has_ngram_part() const { return ngram_order > 0; }
   /// Output sigmoid: the threshold label `label` is chosen at (probability >= it).
   float threshold_of(std::size_t label) const {
     return label < label_thresholds.size() ? label_thresholds[label] : multi_label_threshold;
@@ -96,6 +104,8 @@ struct ModelHeaderLimits {
   static constexpr std::size_t kMaxTokensSetting = 1000000000;
   static constexpr std::size_t kMaxCharacters = 1U << 20;
   static constexpr std::size_t kMaxCharWidth = 31;
+  static constexpr std::size_t kMaxNgramKeys = 1U << 28;
+  static constexpr double kMaxNgramMix = 1000.0;  // our choice: mix is chosen on dev near 1
 };
 
 /// What the header says. `format` is "gyre-model" (exported) or "gyre-checkpoint" (training).
@@ -136,6 +146,9 @@ struct ModelTensor {
   /// A weight matrix (embedding, w_input, w_hidden, the output layer's weights): what
   /// `gyre export` stores in the chosen precision; biases and CRF scores stay f32.
   bool matrix = false;
+  /// Raw bytes (dtype u8, rank 1) of a size the header does not fix: the n-gram part's encoded
+  /// keys, of at least `cols` bytes. Every other tensor holds numbers (f32, f16 or i8).
+  bool bytes = false;
 };
 
 /// The tensors of a model with this header, in a fixed order (docs/model-format.md "Tensors").

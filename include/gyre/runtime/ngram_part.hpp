@@ -41,9 +41,11 @@ inline constexpr int kMaxNgramOrder = 6;
 /// repeats. Throws Error when order is outside [1, kMaxNgramOrder].
 void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<std::string>& out);
 
-/// Reusable buffers of NgramPart::features / add_scores (one per thread).
+/// Reusable buffers of NgramPart::features / add_scores (one per thread). Once they have seen the
+/// longest text and key, the calls allocate nothing.
 struct NgramScratch {
-  std::vector<std::string> keys;
+  std::string key;                  // the key being looked up
+  std::vector<std::string> keys;    // unused by NgramPart (kept for callers' ngram_keys)
   std::vector<std::int32_t> ids;    // ids of the known keys, with repeats
   std::vector<std::int32_t> index;  // add_scores: x's indices
   std::vector<float> values;        // add_scores: x's values
@@ -75,6 +77,15 @@ class NgramPart {
                 std::vector<float>& value, NgramScratch& scratch) const;
   /// logits[c] += mix * (W x + b)[c] for c < classes(). An empty part adds nothing.
   void add_scores(const std::vector<std::string>& tokens, float* logits, NgramScratch& scratch) const;
+
+  /// Value meaning "leave no token out" for the overloads below.
+  static constexpr std::size_t kKeepAll = static_cast<std::size_t>(-1);
+  /// The same over tokens[0 .. n). With skip < n, every key that contains token `skip` is left
+  /// out, as if that token carried no n-grams (occlusion of one token, runtime::Context).
+  void features(const std::string* tokens, std::size_t n, std::vector<std::int32_t>& index,
+                std::vector<float>& value, NgramScratch& scratch, std::size_t skip = kKeepAll) const;
+  void add_scores(const std::string* tokens, std::size_t n, float* logits, NgramScratch& scratch,
+                  std::size_t skip = kKeepAll) const;
 
  private:
   int order_ = 0;
