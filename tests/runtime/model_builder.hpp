@@ -12,6 +12,8 @@
 #include <vector>
 
 #include "gyre/runtime/model_file.hpp"
+#include "gyre/runtime/ngram_part.hpp"
+#include "gyre/runtime/ngram_part_file.hpp"
 #include "runtime/detail/json.hpp"
 
 namespace gyre::test {
@@ -32,6 +34,9 @@ struct RefModel {
   // The double-precision reference below does not compute it.
   std::size_t char_E = 0, char_F = 0, char_w = 3;
   std::vector<std::string> characters;
+  // N-gram part (classify, softmax) when not empty: written with runtime::add_ngram_part, its
+  // weights in the file's precision. classify_words() below adds it in double precision.
+  runtime::NgramPart ngram;
   std::map<std::string, std::vector<double>> w;  // row-major
   std::map<std::string, std::pair<std::size_t, std::size_t>> shape;
 
@@ -106,6 +111,13 @@ struct RefModel {
       arch.set("char_filters", Json::number(static_cast<double>(char_F)));
       arch.set("char_width", Json::number(static_cast<double>(char_w)));
     }
+    if (!ngram.empty()) {
+      Json g = Json::object();
+      g.set("order", Json::number(ngram.order()));
+      g.set("mix", Json::number(static_cast<double>(ngram.mix())));
+      g.set("keys", Json::number(static_cast<double>(ngram.features())));
+      arch.set("ngram", std::move(g));
+    }
     Json h = Json::object();
     h.set("format", Json::string("gyre-model"));
     h.set("architecture", std::move(arch));
@@ -143,6 +155,7 @@ struct RefModel {
       const bool matrix = r > 1 && name.rfind("crf.", 0) != 0;
       wr.add_tensor(name, r, c, f, matrix ? dtype : runtime::DType::kF32);
     }
+    runtime::add_ngram_part(wr, ngram, dtype);
     return wr.to_bytes();
   }
 
@@ -236,6 +249,82 @@ struct RefModel {
       return logits;
     }
     return softmax(logits);
+  }
+
+  /// mix * (W x + b) of the n-gram part for the tokens `text`, in double, written from the definition in
+  /// gyre/runtime/ngram_part.hpp without its code: items = [begin, tokens..., end]; keys = every token,
+  /// and every run of n = 2..order consecutive items joined by U+0001; a key's value 1 + ln(count)
+  /// when it is in the key list, then unit L2 norm. Keys holding token `skip` are left out.
+  std::vector<double> ngram_scores(const std::vector<std::string>& text,
+                                   std::size_t skip = static_cast<std::size_t>(-1)) const {
+    std::vector<double> out(C(), 0.0);
+    if (ngram.empty()) return out;
+    std::map<std::size_t, double> count;  // key index -> count
+    auto add = [&](const std::string& key) {
+      const auto& keys = ngram.keys();
+      for (std::size_t k = 0; k < keys.size(); ++k)
+        if (keys[k] == key) count[k] += 1.0;
+    };
+    const std::size_t n = text.size();
+    for (std::size_t i = 0; i < n; ++i)
+      if (i != skip) add(text[i]);
+    if (n > 0) {
+      std::vector<std::string> items = {std::string("\x02")};
+      items.insert(items.end(), text.begin(), text.end());
+      items.emplace_back("\x03");
+      for (std::size_t len = 2; len <= static_cast<std::size_t>(ngram.order()); ++len)
+        for (std::size_t s = 0; s + len <= items.size(); ++s) {
+          if (skip < n && s <= skip + 1 && skip + 1 < s + len) continue;  // item skip+1 = word skip
+          std::string key = items[s];
+          for (std::size_t k = 1; k < len; ++k) key += std::string("\x01") + items[s + k];
+          add(key);
+        }
+    }
+    double norm2 = 0.0;
+    for (auto& [k, c] : count) {
+      c = 1.0 + std::log(c);
+      norm2 += c * c;
+    }
+    for (std::size_t c = 0; c < C(); ++c) {
+      double z = ngram.bias()[c];
+      for (const auto& [k, v] : count) z += v / std::sqrt(norm2) * ngram.weights()[k * C() + c];
+      out[c] = static_cast<double>(ngram.mix()) * z;
+    }
+    return out;
+  }
+
+  /// Network logits (pooled head output) of ids.
+  std::vector<double> logits(const std::vector<std::uint32_t>& ids) const {
+    const auto top = stack(ids);
+    const std::size_t T = ids.size();
+    std::vector<double> pooled(F(), 0.0);
+    if (T > 0) {
+      if (pooling == "last") {
+        for (std::size_t j = 0; j < H; ++j) pooled[j] = top[T - 1][j];
+        if (bidir)
+          for (std::size_t j = 0; j < H; ++j) pooled[H + j] = top[0][H + j];
+      } else if (pooling == "mean") {
+        for (const auto& row : top)
+          for (std::size_t j = 0; j < F(); ++j) pooled[j] += row[j] / static_cast<double>(T);
+      } else {
+        pooled = top[0];
+        for (const auto& row : top)
+          for (std::size_t j = 0; j < F(); ++j) pooled[j] = std::max(pooled[j], row[j]);
+      }
+    }
+    return head(pooled);
+  }
+
+  /// Softmax classifier with the n-gram part: softmax((network logits + part scores) / T), T the
+  /// header temperature when `calibrated` (Guo et al. 2017).
+  std::vector<double> classify_words(const std::vector<std::uint32_t>& ids,
+                                     const std::vector<std::string>& text, bool calibrated = true,
+                                     std::size_t skip = static_cast<std::size_t>(-1)) const {
+    auto z = logits(ids);
+    const auto s = ngram_scores(text, skip);
+    const double t = calibrated && !temperature.empty() ? temperature[0] : 1.0;
+    for (std::size_t c = 0; c < C(); ++c) z[c] = (z[c] + s[c]) / t;
+    return softmax(z);
   }
 
   std::vector<std::vector<double>> emissions(const std::vector<std::uint32_t>& ids) const {

@@ -423,6 +423,53 @@ TEST_CASE("batched calls allocate nothing after warm-up", "[runtime][alloc]") {
     }
   }
 }
+
+TEST_CASE("a model with an n-gram part allocates nothing per call after warm-up", "[runtime][alloc][ngram]") {
+  using gyre::Span;
+  // Words longer than a std::string's inline buffer, so that keys (two words and a separator) live
+  // on the heap: the part builds each key in one reused string.
+  gyre::test::RefModel r;
+  r.words = {"descalingservice", "appointmentslot", "kettlerepairs", "marrowbyoffice", "tomorrowmorning"};
+  r.V = r.words.size() + 2;
+  r.randomize(17);
+  std::vector<std::string> keys;
+  gyre::runtime::ngram_keys({"descalingservice", "appointmentslot", "kettlerepairs", "outsidevocabulary"}, 3,
+                            keys);
+  gyre::runtime::ngram_keys({"marrowbyoffice", "tomorrowmorning", "kettlerepairs"}, 3, keys);
+  std::sort(keys.begin(), keys.end());
+  keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
+  std::vector<float> w(keys.size() * r.C());
+  for (std::size_t i = 0; i < w.size(); ++i) w[i] = static_cast<float>(i % 7) * 0.25f - 0.75f;
+  r.ngram = gyre::runtime::NgramPart(3, keys, w, std::vector<float>(r.C(), 0.1f), 1.0f);
+  const auto bytes = r.file();
+  const auto model = gyre::runtime::Model::from_buffer(bytes.data(), bytes.size());
+  gyre::runtime::Context ctx(model);
+  const std::vector<std::string> longest = {"descalingservice",  "appointmentslot", "kettlerepairs",
+                                            "outsidevocabulary", "marrowbyoffice",  "tomorrowmorning",
+                                            "kettlerepairs",     "descalingservice"};
+  const std::vector<std::string> shorter = {"marrowbyoffice", "tomorrowmorning", "kettlerepairs"};
+  const std::vector<Span<const std::string>> batch = {longest, shorter, {}, longest};
+  // Text: words of at most 15 bytes (the tokenizer keeps a string per token slot, but a shorter
+  // text gives up the slots after it, so a longer word in them would be allocated again).
+  const std::vector<std::string_view> texts = {
+      "kettlerepairs appointmentslot marrowbyoffice", "",
+      "marrowbyoffice tomorrowmorning kettlerepairs appointmentslot"};
+  auto call = [&] {
+    ctx.classify_tokens(shorter);
+    ctx.classify_tokens(longest);
+    ctx.classify(texts[2]);
+    ctx.classify_batch_tokens(batch);
+    ctx.classify_batch(texts);
+    ctx.reset();
+    for (const auto& word : longest) ctx.push(word);
+    ctx.distribution();
+  };
+  call();  // warm-up
+  const long before = g_allocations.load();
+  for (int rep = 0; rep < 10; ++rep) call();
+  const long during = g_allocations.load() - before;
+  REQUIRE(during == 0);
+}
 #endif  // GYRE_COUNTING_NEW
 
 TEST_CASE("vectorised sigmoid and tanh match the C library", "[runtime][kernels]") {
