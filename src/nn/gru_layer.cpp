@@ -156,6 +156,15 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
+    if (fast) {
+      // Element-wise part in one AVX-512 pass (d_out rows gathered in it), then dh += dG_h U.
+      detail::fast::gru_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
+                                      gates.row(o).data(), hn.row(o).data(), h_prev.row(o).data(),
+                                      dgi.row(o).data(), dgh.row(o).data());
+      detail::fast::gemm_packed(n, H, 3 * H, dgh.row(o).data(), 3 * H, false, w.u_back.data(), dh.data(), H,
+                                true, nullptr);
+      continue;
+    }
     for (Eigen::Index j = 0; j < n; ++j) dh.row(j) += d_out.row(lay.source(o + j));
     const auto a = gates.middleRows(o, n).array();
     const auto r = a.leftCols(H), z = a.middleCols(H, H), nn = a.rightCols(H);
@@ -168,17 +177,13 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
     gh.leftCols(2 * H) = gi.leftCols(2 * H);
     gh.rightCols(H) = gi.rightCols(H) * r;
     dH *= z;  // direct path h' = ... + z * h
-    if (fast)
-      detail::fast::gemm_packed(n, H, 3 * H, dgh.row(o).data(), 3 * H, false, w.u_back.data(), dh.data(), H,
-                                true, nullptr);
-    else
-      w.gemm_back.run(dh.topRows(n), dgh.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, true);
+    w.gemm_back.run(dh.topRows(n), dgh.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, true);
   }
 
   w.gemm_dw_input.run(w_input_.grad, dgi, detail::Op::kT, xs, detail::Op::kN, true);
   w.gemm_dw_hidden.run(w_hidden_.grad, dgh, detail::Op::kT, h_prev, detail::Op::kN, true);
-  bias_.grad.row(0).noalias() += dgi.colwise().sum();
-  bias_hidden_.grad.row(0).noalias() += dgh.colwise().sum();
+  detail::add_column_sums(dgi, bias_.grad.row(0).data());
+  detail::add_column_sums(dgh, bias_hidden_.grad.row(0).data());
   if (d_x != nullptr) {
     if (accumulate_dx) {
       GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "GruLayer::backward: d_x has the wrong shape");

@@ -186,6 +186,15 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
+    if (fast) {
+      // Element-wise part in one AVX-512 pass (d_out rows gathered in it), then dh = dG U.
+      detail::fast::lstm_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
+                                       dc.data(), gates.row(o).data(), tanh_c.row(o).data(),
+                                       c_prev.row(o).data(), dgates.row(o).data());
+      detail::fast::gemm_packed(n, H, 4 * H, dgates.row(o).data(), 4 * H, false, w.u_back.data(), dh.data(),
+                                H, false, nullptr);
+      continue;
+    }
     for (Eigen::Index j = 0; j < n; ++j) dh.row(j) += d_out.row(lay.source(o + j));
     const auto a = gates.middleRows(o, n).array();
     const auto i = a.leftCols(H), f = a.middleCols(H, H), g = a.middleCols(2 * H, H), og = a.rightCols(H);
@@ -201,16 +210,12 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
     dC *= f;
     // Sequences not running at step s have had no step yet in this backward sweep: their
     // gradients are still zero and stay so.
-    if (fast)
-      detail::fast::gemm_packed(n, H, 4 * H, dgates.row(o).data(), 4 * H, false, w.u_back.data(), dh.data(),
-                                H, false, nullptr);
-    else
-      w.gemm_back.run(dh.topRows(n), dgates.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, false);
+    w.gemm_back.run(dh.topRows(n), dgates.middleRows(o, n), detail::Op::kN, U, detail::Op::kN, false);
   }
 
   w.gemm_dw_input.run(w_input_.grad, dgates, detail::Op::kT, xs, detail::Op::kN, true);
   w.gemm_dw_hidden.run(w_hidden_.grad, dgates, detail::Op::kT, h_prev, detail::Op::kN, true);
-  bias_.grad.row(0).noalias() += dgates.colwise().sum();
+  detail::add_column_sums(dgates, bias_.grad.row(0).data());
   if (d_x != nullptr) {
     if (accumulate_dx) {
       GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "LstmLayer::backward: d_x has the wrong shape");

@@ -7,6 +7,7 @@
 #include <span>
 #include <vector>
 
+#include "fast_kernels.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/nn/tensor.hpp"
 
@@ -27,6 +28,18 @@ class GrowBuffer {
  private:
   std::vector<float> data_;
 };
+
+/// out[c] += the sum of column c of a (the bias gradients). AVX-512 path: fast::add_column_sums,
+/// which walks the rows in order and adds them in the order Eigen's vectorised colwise().sum()
+/// uses; otherwise that Eigen expression itself (a row-major map is summed packet-wise too).
+inline void add_column_sums(const Eigen::Ref<const Matrix>& a, float* out) {
+  if (a.rows() == 0) return;
+  if (fast::available()) {
+    fast::add_column_sums(a.data(), a.rows(), a.cols(), a.outerStride(), out);
+    return;
+  }
+  Eigen::Map<Eigen::Matrix<float, 1, Eigen::Dynamic>>(out, a.cols()).noalias() += a.colwise().sum();
+}
 
 /// Checks a time-major batch description; returns B. Throws gyre::Error naming `who`.
 /// min_length is 1 for pooling and losses; recurrent layers accept 0 (a sequence with no step in

@@ -39,9 +39,12 @@ const char* name() noexcept {
   return available() ? "avx512" : "portable";
 }
 
-// ---- packing (plain C++: runs once per product or optimizer step) -----------------------------
+// ---- packing (plain C++ here; the AVX-512 versions below are used when available()) -----------
 
-void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
+namespace {
+
+void pack_b_plain(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n,
+                  float* out) {
   constexpr std::ptrdiff_t nr = kGemmNr;
   for (std::ptrdiff_t p0 = 0; p0 < n; p0 += nr) {
     const std::ptrdiff_t w = std::min(nr, n - p0);
@@ -64,7 +67,7 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
   }
 }
 
-void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
   const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
   const std::ptrdiff_t panels = hidden / kCellUnits;
   for (std::ptrdiff_t p = 0; p < panels; ++p) {
@@ -78,6 +81,8 @@ void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
       }
   }
 }
+
+}  // namespace
 
 #if defined(GYRE_NN_X86)
 
@@ -210,7 +215,12 @@ GYRE_AVX512 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* a
       GYRE_TAIL(2)
       GYRE_TAIL(3)
       GYRE_TAIL(4)
-      GYRE_TAIL(5) GYRE_TAIL(6) GYRE_TAIL(7) GYRE_TAIL(8) GYRE_TAIL(9) GYRE_TAIL(10) GYRE_TAIL(11)
+      GYRE_TAIL(5)
+      GYRE_TAIL(6)
+      GYRE_TAIL(7)
+      GYRE_TAIL(8)
+      GYRE_TAIL(9)
+      GYRE_TAIL(10) GYRE_TAIL(11)
 #undef GYRE_TAIL
           default : break;
   }
@@ -303,7 +313,8 @@ GYRE_AVX512 void lstm_step_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const floa
           GYRE_TAIL(4)
           GYRE_TAIL(5)
 #undef GYRE_TAIL
-              default : break;
+        default:
+          break;
       }
     }
   }
@@ -378,15 +389,214 @@ GYRE_AVX512 void gru_step_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float
           GYRE_TAIL(2)
           GYRE_TAIL(3)
           GYRE_TAIL(4)
-          GYRE_TAIL(5) GYRE_TAIL(6) GYRE_TAIL(7)
+          GYRE_TAIL(5)
+          GYRE_TAIL(6)
+          GYRE_TAIL(7)
 #undef GYRE_TAIL
-              default : break;
+        default:
+          break;
       }
     }
   }
 }
 
+// ---- packing ----------------------------------------------------------------------------------
+GYRE_AVX512 void pack_b_avx512(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k,
+                               std::ptrdiff_t n, float* out) {
+  constexpr std::ptrdiff_t nr = kGemmNr;
+  static_assert(nr == 32, "two vectors per packed row");
+  const __m512i lane = _mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15);
+  for (std::ptrdiff_t p0 = 0; p0 < n; p0 += nr) {
+    const std::ptrdiff_t w = std::min(nr, n - p0);
+    const __mmask16 m0 = cols_mask(w), m1 = cols_mask(w - 16);
+    float* dst = out + p0 * k;
+    if (!trans) {
+      const float* src = b + p0;
+      for (std::ptrdiff_t kk = 0; kk < k; ++kk, src += ldb) {
+        _mm512_storeu_ps(dst + kk * nr, _mm512_maskz_loadu_ps(m0, src));
+        _mm512_storeu_ps(dst + kk * nr + 16, _mm512_maskz_loadu_ps(m1, src + 16));
+      }
+    } else {
+      // B^T stored [n x k]: packed row kk gathers element kk of storage rows p0 .. p0 + 31.
+      // ldb * 31 fits an int32 index for every layer size gyre allows (checked by the caller's
+      // shapes: ldb is a layer width).
+      const __m512i idx0 = _mm512_mullo_epi32(lane, _mm512_set1_epi32(static_cast<int>(ldb)));
+      const __m512i idx1 = _mm512_add_epi32(idx0, _mm512_set1_epi32(static_cast<int>(16 * ldb)));
+      const float* src = b + p0 * ldb;
+      for (std::ptrdiff_t kk = 0; kk < k; ++kk) {
+        _mm512_storeu_ps(dst + kk * nr, _mm512_mask_i32gather_ps(_mm512_setzero_ps(), m0, idx0, src + kk, 4));
+        _mm512_storeu_ps(dst + kk * nr + 16,
+                         _mm512_mask_i32gather_ps(_mm512_setzero_ps(), m1, idx1, src + kk, 4));
+      }
+    }
+  }
+}
+
+GYRE_AVX512 void pack_gates_avx512(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+  const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
+  const std::ptrdiff_t panels = hidden / kCellUnits;
+  const __m512i idx =
+      _mm512_mullo_epi32(_mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15),
+                         _mm512_set1_epi32(static_cast<int>(hidden)));
+  for (std::ptrdiff_t p = 0; p < panels; ++p) {
+    float* dst = out + p * nr * hidden;
+    for (int g = 0; g < gates; ++g) {
+      // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed).
+      const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits) * hidden;
+      for (std::ptrdiff_t kk = 0; kk < hidden; ++kk)
+        _mm512_storeu_ps(dst + kk * nr + g * kCellUnits, _mm512_i32gather_ps(idx, src + kk, 4));
+    }
+  }
+}
+
+// ---- backward element-wise parts --------------------------------------------------------------
+// Each product and sum is rounded as the portable path's Eigen expressions round them (left to
+// right, no fused multiply-add: the optimize attribute keeps the compiler from contracting the
+// intrinsics), so the gradients have the same bits as before these kernels existed.
+#define GYRE_AVX512_EXACT GYRE_AVX512 __attribute__((optimize("fp-contract=off")))
+
+GYRE_AVX512_EXACT void lstm_cell_backward_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float* d_out,
+                                                 std::ptrdiff_t ld_out, const int* source, const float* dh,
+                                                 float* dc, const float* acts, const float* tanh_c,
+                                                 const float* c_prev, float* dgates) {
+  const __m512 one = _mm512_set1_ps(1.0f);
+  for (std::ptrdiff_t r = 0; r < n; ++r) {
+    const float* dhr = dh + r * H;
+    const float* dor = d_out != nullptr ? d_out + static_cast<std::ptrdiff_t>(source[r]) * ld_out : nullptr;
+    float* dcr = dc + r * H;
+    const float* a = acts + r * 4 * H;
+    const float* tcr = tanh_c + r * H;
+    const float* cpr = c_prev + r * H;
+    float* dg = dgates + r * 4 * H;
+    for (std::ptrdiff_t u = 0; u < H; u += 16) {
+      const __mmask16 m = cols_mask(H - u);  // H need not be a multiple of 16
+      __m512 dH = _mm512_maskz_loadu_ps(m, dhr + u);
+      if (dor != nullptr) dH = _mm512_add_ps(dH, _mm512_maskz_loadu_ps(m, dor + u));
+      const __m512 i = _mm512_maskz_loadu_ps(m, a + u), f = _mm512_maskz_loadu_ps(m, a + H + u),
+                   g = _mm512_maskz_loadu_ps(m, a + 2 * H + u), o = _mm512_maskz_loadu_ps(m, a + 3 * H + u),
+                   tc = _mm512_maskz_loadu_ps(m, tcr + u);
+      // dc += dh o (1 - tc^2)
+      const __m512 dC =
+          _mm512_add_ps(_mm512_maskz_loadu_ps(m, dcr + u),
+                        _mm512_mul_ps(_mm512_mul_ps(dH, o), _mm512_sub_ps(one, _mm512_mul_ps(tc, tc))));
+      // d_i = dc g i (1 - i); d_f = dc c_prev f (1 - f); d_g = dc i (1 - g^2); d_o = dh tc o (1 - o)
+      _mm512_mask_storeu_ps(dg + u, m,
+                            _mm512_mul_ps(_mm512_mul_ps(_mm512_mul_ps(dC, g), i), _mm512_sub_ps(one, i)));
+      _mm512_mask_storeu_ps(
+          dg + H + u, m,
+          _mm512_mul_ps(_mm512_mul_ps(_mm512_mul_ps(dC, _mm512_maskz_loadu_ps(m, cpr + u)), f),
+                        _mm512_sub_ps(one, f)));
+      _mm512_mask_storeu_ps(dg + 2 * H + u, m,
+                            _mm512_mul_ps(_mm512_mul_ps(dC, i), _mm512_sub_ps(one, _mm512_mul_ps(g, g))));
+      _mm512_mask_storeu_ps(dg + 3 * H + u, m,
+                            _mm512_mul_ps(_mm512_mul_ps(_mm512_mul_ps(dH, tc), o), _mm512_sub_ps(one, o)));
+      _mm512_mask_storeu_ps(dcr + u, m, _mm512_mul_ps(dC, f));
+    }
+  }
+}
+
+GYRE_AVX512_EXACT void gru_cell_backward_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float* d_out,
+                                                std::ptrdiff_t ld_out, const int* source, float* dh,
+                                                const float* acts, const float* hn, const float* h_prev,
+                                                float* dgi, float* dgh) {
+  const __m512 one = _mm512_set1_ps(1.0f);
+  for (std::ptrdiff_t r = 0; r < n; ++r) {
+    float* dhr = dh + r * H;
+    const float* dor = d_out != nullptr ? d_out + static_cast<std::ptrdiff_t>(source[r]) * ld_out : nullptr;
+    const float* a = acts + r * 3 * H;
+    const float* hnr = hn + r * H;
+    const float* hpr = h_prev + r * H;
+    float* gi = dgi + r * 3 * H;
+    float* gh = dgh + r * 3 * H;
+    for (std::ptrdiff_t u = 0; u < H; u += 16) {
+      const __mmask16 m = cols_mask(H - u);  // H need not be a multiple of 16
+      __m512 dH = _mm512_maskz_loadu_ps(m, dhr + u);
+      if (dor != nullptr) dH = _mm512_add_ps(dH, _mm512_maskz_loadu_ps(m, dor + u));
+      const __m512 rg = _mm512_maskz_loadu_ps(m, a + u), z = _mm512_maskz_loadu_ps(m, a + H + u),
+                   nn = _mm512_maskz_loadu_ps(m, a + 2 * H + u);
+      // d_n = dh (1 - z)(1 - n^2); d_r = d_n hn r (1 - r); d_z = dh (h_prev - n) z (1 - z)
+      const __m512 dn =
+          _mm512_mul_ps(_mm512_mul_ps(dH, _mm512_sub_ps(one, z)), _mm512_sub_ps(one, _mm512_mul_ps(nn, nn)));
+      const __m512 dr = _mm512_mul_ps(_mm512_mul_ps(_mm512_mul_ps(dn, _mm512_maskz_loadu_ps(m, hnr + u)), rg),
+                                      _mm512_sub_ps(one, rg));
+      const __m512 dz = _mm512_mul_ps(
+          _mm512_mul_ps(_mm512_mul_ps(dH, _mm512_sub_ps(_mm512_maskz_loadu_ps(m, hpr + u), nn)), z),
+          _mm512_sub_ps(one, z));
+      _mm512_mask_storeu_ps(gi + u, m, dr);
+      _mm512_mask_storeu_ps(gi + H + u, m, dz);
+      _mm512_mask_storeu_ps(gi + 2 * H + u, m, dn);
+      _mm512_mask_storeu_ps(gh + u, m, dr);
+      _mm512_mask_storeu_ps(gh + H + u, m, dz);
+      _mm512_mask_storeu_ps(gh + 2 * H + u, m, _mm512_mul_ps(dn, rg));
+      _mm512_mask_storeu_ps(dhr + u, m, _mm512_mul_ps(dH, z));
+    }
+  }
+}
+
+// Column sums in the order of Eigen 3.4's vectorised colwise().sum() on a row-major matrix
+// (packetwise_redux_impl, Eigen/src/Core/PartialReduxEvaluator.h), which the portable path uses:
+// s = row 0, then s += ((r_i + r_i+1) + (r_i+2 + r_i+3)) for i = 1, 5, ... below (rows - 1) & ~3,
+// then the remaining rows one by one. Each lane is one column, so the bits do not depend on the
+// vector width; the last cols % 4 columns (those Eigen sums as scalars, in row order) are summed
+// in row order here too.
+GYRE_AVX512_EXACT void add_column_sums_avx512(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols,
+                                              std::ptrdiff_t lda, float* out) {
+  const std::ptrdiff_t rows4 = (rows - 1) & ~std::ptrdiff_t{3};
+  const std::ptrdiff_t packet_cols = cols & ~std::ptrdiff_t{3};
+  for (std::ptrdiff_t c0 = 0; c0 < packet_cols; c0 += 16) {
+    const __mmask16 m = cols_mask(packet_cols - c0);
+    const float* p = a + c0;
+    __m512 s = _mm512_maskz_loadu_ps(m, p);
+    std::ptrdiff_t r = 1;
+    for (; r < rows4; r += 4) {
+      const __m512 x01 =
+          _mm512_add_ps(_mm512_maskz_loadu_ps(m, p + r * lda), _mm512_maskz_loadu_ps(m, p + (r + 1) * lda));
+      const __m512 x23 = _mm512_add_ps(_mm512_maskz_loadu_ps(m, p + (r + 2) * lda),
+                                       _mm512_maskz_loadu_ps(m, p + (r + 3) * lda));
+      s = _mm512_add_ps(s, _mm512_add_ps(x01, x23));
+    }
+    for (; r < rows; ++r) s = _mm512_add_ps(s, _mm512_maskz_loadu_ps(m, p + r * lda));
+    _mm512_mask_storeu_ps(out + c0, m, _mm512_add_ps(_mm512_maskz_loadu_ps(m, out + c0), s));
+  }
+  for (std::ptrdiff_t c = packet_cols; c < cols; ++c) {
+    float s = a[c];
+    for (std::ptrdiff_t r = 1; r < rows; ++r) s += a[r * lda + c];
+    out[c] += s;
+  }
+}
+
 }  // namespace
+
+void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
+  if (available())
+    pack_b_avx512(b, ldb, trans, k, n, out);
+  else
+    pack_b_plain(b, ldb, trans, k, n, out);
+}
+
+void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+  if (available())
+    pack_gates_avx512(u, gates, hidden, out);
+  else
+    pack_gates_plain(u, gates, hidden, out);
+}
+
+void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
+                     float* out) {
+  if (rows > 0) add_column_sums_avx512(a, rows, cols, lda, out);
+}
+
+void lstm_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
+                        const int* source, const float* dh, float* dc, const float* acts, const float* tanh_c,
+                        const float* c_prev, float* dgates) {
+  lstm_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, dc, acts, tanh_c, c_prev, dgates);
+}
+
+void gru_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
+                       const int* source, float* dh, const float* acts, const float* hn, const float* h_prev,
+                       float* dgi, float* dgh) {
+  gru_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, acts, hn, h_prev, dgi, dgh);
+}
 
 void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
                  bool trans_a, const float* bp, float* c, std::ptrdiff_t ldc, bool accumulate,
@@ -415,6 +625,21 @@ void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std:
 }
 
 #else  // not x86-64: available() is false and these are never called.
+
+void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
+  pack_b_plain(b, ldb, trans, k, n, out);
+}
+void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+  pack_gates_plain(u, gates, hidden, out);
+}
+void lstm_cell_backward(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, const int*,
+                        const float*, float*, const float*, const float*, const float*, float*) {
+  std::abort();
+}
+void gru_cell_backward(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, const int*, float*,
+                       const float*, const float*, const float*, float*, float*) {
+  std::abort();
+}
 
 void gemm_packed(std::ptrdiff_t, std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, bool,
                  const float*, float*, std::ptrdiff_t, bool, float*) {

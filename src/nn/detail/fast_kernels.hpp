@@ -76,6 +76,35 @@ void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, con
 void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std::ptrdiff_t ld_state,
               const float* up, const float* bias_hidden, float* gates, float* hn_out, float* h_out);
 
+/// LSTM backward, element-wise part of one step for n rows (Hochreiter & Schmidhuber 1997 with the
+/// forget gate of Gers et al. 2000; derivatives of the equations in include/gyre/nn/lstm_layer.hpp).
+/// On entry dh [n x H] holds the gradient reaching h from the next step; when d_out is not null,
+/// row j of d_out (row stride ld_out) at index source[j] is added to it first. dc [n x H] is the
+/// running cell gradient. acts [n x 4H] (i f g o), tanh_c and c_prev [n x H] are the forward's
+/// caches. Writes dgates [n x 4H] (d loss / d pre-activations) and dc *= f (the gradient reaching
+/// the previous cell); dh is left as read (the caller overwrites it with dgates U).
+///   dc += dh o (1 - tanh_c^2); d_i = dc g i (1 - i); d_f = dc c_prev f (1 - f);
+///   d_g = dc i (1 - g^2); d_o = dh tanh_c o (1 - o).
+void lstm_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
+                        const int* source, const float* dh, float* dc, const float* acts, const float* tanh_c,
+                        const float* c_prev, float* dgates);
+
+/// GRU backward ("reset after", include/gyre/nn/gru_layer.hpp), element-wise part of one step for
+/// n rows. dh [n x H] as for lstm_cell_backward (d_out rows added first when d_out is not null);
+/// acts [n x 3H] (r z n), hn [n x H] (U[h~] h + b_hidden[h~]), h_prev [n x H]. Writes
+/// dgi [n x 3H] (input side: d_r d_z d_n), dgh [n x 3H] (hidden side: d_r d_z d_n r) and
+/// dh = dh z (the direct path; the caller adds dgh U):
+///   d_n = dh (1 - z)(1 - n^2); d_r = d_n hn r (1 - r); d_z = dh (h_prev - n) z (1 - z).
+void gru_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
+                       const int* source, float* dh, const float* acts, const float* hn, const float* h_prev,
+                       float* dgi, float* dgh);
+
+/// out[c] += sum of column c of the [rows x cols] row-major a (row stride lda), each column summed
+/// from row 0 down in order: the same bits as detail::add_column_sums (buffer.hpp), 16 columns a
+/// vector. Used for the bias gradients.
+void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
+                     float* out);
+
 /// 64-byte aligned grow-only float storage for packed operands (contents unspecified after growth).
 class AlignedBuffer {
  public:

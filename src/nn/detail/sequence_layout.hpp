@@ -61,6 +61,8 @@ class SequenceLayout {
   Eigen::Index offset(int s) const noexcept { return offset_[static_cast<std::size_t>(s)]; }
   /// Row of the padded [T*B] buffer that packed row p comes from.
   Eigen::Index source(Eigen::Index p) const noexcept { return source_[static_cast<std::size_t>(p)]; }
+  /// The sources of packed rows p, p + 1, ... as a contiguous array.
+  const int* sources(Eigen::Index p) const noexcept { return source_.data() + p; }
   /// Original batch index of sorted position j, and its length.
   int sequence(int j) const noexcept { return order_[static_cast<std::size_t>(j)]; }
   int length(int j) const noexcept { return sorted_lengths_[static_cast<std::size_t>(j)]; }
