@@ -81,6 +81,12 @@ float gyre_model_temperature(const gyre_model* model, size_t index) GYRE_NOEXCEP
  * threshold when the file holds none. 0 for other models or when index is out of range. */
 float gyre_model_label_threshold(const gyre_model* model, size_t index) GYRE_NOEXCEPT;
 
+/* 1 when the classifier has an n-gram part (docs/model-format.md "N-gram part"): the scores of a
+ * linear model over the text's word n-grams, added to the network's logits before the softmax and
+ * the temperature. gyre_classify and gyre_classify_batch apply it (they have the words); 0 for a
+ * model without one or NULL. */
+int gyre_model_has_ngram_part(const gyre_model* model) GYRE_NOEXCEPT;
+
 gyre_status gyre_context_new(const gyre_model* model, gyre_context** out) GYRE_NOEXCEPT;
 /* Probabilities from this context use the model's temperature (on != 0, the default) or are the
  * raw model outputs (on == 0). Never changes the best label, a tag or a span. */

@@ -64,6 +64,21 @@ void print_description(const runtime::ModelHeader& header, const runtime::ModelF
   for (std::size_t i = 0; i < a.temperature.size(); ++i)
     std::cout << (i ? " " : "temperature ") << a.temperature[i];
   std::cout << '\n';
+  if (a.has_ngram_part()) {
+    // What the part takes in the file: its key list, weights (with i8 scales) and biases.
+    std::uint64_t bytes = 0;
+    for (const char* name : {"ngram.keys", "ngram.w", "ngram.b"}) {
+      const runtime::TensorInfo& t = file.tensor(name);
+      bytes += t.bytes + (t.dtype == runtime::DType::kI8 ? 4 * t.rows : 0);
+    }
+    std::printf("n-gram part  order %d, %zu keys, mix %g, weights %s; %.1f KiB (%.1f%% of the file)\n",
+                a.ngram_order, a.ngram_keys, static_cast<double>(a.ngram_mix),
+                runtime::to_string(file.tensor("ngram.w").dtype), static_cast<double>(bytes) / 1024.0,
+                100.0 * static_cast<double>(bytes) / static_cast<double>(file.file_size()));
+    std::fflush(stdout);
+  } else if (a.task == runtime::Task::kClassify) {
+    std::cout << "n-gram part  none\n";
+  }
   const auto& t = header.tokenizer;
   std::cout << "tokenizer    mode " << runtime::to_string(t.mode) << ", nfkc " << on_off(t.nfkc)
             << ", case_fold " << on_off(t.case_fold) << ", fold_digits " << on_off(t.fold_digits)

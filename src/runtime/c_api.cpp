@@ -179,6 +179,10 @@ float gyre_model_label_threshold(const gyre_model* model, size_t index) noexcept
   return a.threshold_of(index);
 }
 
+int gyre_model_has_ngram_part(const gyre_model* model) noexcept {
+  return model && model->model.architecture().has_ngram_part() ? 1 : 0;
+}
+
 gyre_status gyre_context_set_calibrated(gyre_context* context, int on) noexcept {
   if (!context) return null_argument("context");
   return guarded([&] { context->context.set_calibrated(on != 0); });

@@ -679,3 +679,25 @@ TEST_CASE("n-gram part: malformed or truncated parts are refused by both loaders
     refused_by_both(f, "is not greater than the key before it");
   }
 }
+
+#ifdef GYRE_CLI_PATH
+TEST_CASE("n-gram part: gyre export prints its share and gyre inspect shows it", "[io][ngram][cli]") {
+  REQUIRE(fs::exists(GYRE_CLI_PATH));  // ctest runs after the whole build
+  const auto trained = with_part(51, 0.5f);
+  const fs::path ckpt = tmp_dir() / "ngram-cli.bin";
+  gyre::io::write_checkpoint(ckpt, *trained.model, trained.vocab, nullptr, json::object(), json::object(),
+                             &trained.ngram_part);
+  const fs::path out = tmp_dir() / "ngram-cli.gyre", log = tmp_dir() / "ngram-cli.txt";
+  const std::string cmd = std::string(GYRE_CLI_PATH) + " export " + ckpt.string() + " --out " + out.string() +
+                          " --precision int8 > " + log.string() + " 2>&1 && " + GYRE_CLI_PATH + " inspect " +
+                          out.string() + " --no-tensors >> " + log.string() + " 2>&1";
+  REQUIRE(WEXITSTATUS(std::system(cmd.c_str())) == 0);
+  std::ifstream in(log);
+  const std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+  CAPTURE(text);
+  const std::string keys = std::to_string(trained.ngram_part.features()) + " keys";
+  CHECK_THAT(text, Contains("n-gram part: order 2, " + keys + ", mix 0.5: "));
+  CHECK_THAT(text, Contains("% of the file"));
+  CHECK_THAT(text, Contains("n-gram part  order 2, " + keys + ", mix 0.5, weights i8; "));
+}
+#endif

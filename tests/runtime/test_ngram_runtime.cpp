@@ -8,6 +8,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstring>
 #include <random>
 #include <sstream>
 #include <string>
@@ -15,6 +16,7 @@
 
 #include "gyre/runtime/model.hpp"
 #include "gyre/runtime/ngram_part_file.hpp"
+#include "gyre_runtime.h"
 #include "model_builder.hpp"
 
 using Catch::Matchers::Contains;
@@ -308,4 +310,32 @@ TEST_CASE("n-gram part: f16 and int8 files stay close to f32", "[runtime][ngram]
   CHECK(max8 < 5e-2);
   CHECK(agree16 >= n * 99 / 100);
   CHECK(agree8 >= n * 95 / 100);
+}
+
+TEST_CASE("n-gram part: the C API reports it and gyre_classify applies it", "[runtime][ngram][c_api]") {
+  RefModel r = make_model("lstm", false, "mean", 2, 606);
+  Loaded l(r);
+  gyre_model* model = nullptr;
+  REQUIRE(gyre_model_load_buffer(l.bytes.data(), l.bytes.size(), &model) == GYRE_OK);
+  CHECK(gyre_model_has_ngram_part(model) == 1);
+  CHECK(gyre_model_has_ngram_part(nullptr) == 0);
+  gyre_context* c = nullptr;
+  REQUIRE(gyre_context_new(model, &c) == GYRE_OK);
+  Context ctx(l.model);
+  for (const char* text : kTexts) {
+    const float* probs = nullptr;
+    std::size_t n = 0, best = 0;
+    REQUIRE(gyre_classify(c, text, std::strlen(text), &probs, &n, &best) == GYRE_OK);
+    const auto& want = ctx.classify(text);
+    REQUIRE(n == r.C());
+    for (std::size_t k = 0; k < n; ++k) REQUIRE(probs[k] == want.probabilities[k]);
+  }
+  gyre_context_free(c);
+  gyre_model_free(model);
+  RefModel plain = r;
+  plain.ngram = NgramPart();
+  Loaded lp(plain);
+  REQUIRE(gyre_model_load_buffer(lp.bytes.data(), lp.bytes.size(), &model) == GYRE_OK);
+  CHECK(gyre_model_has_ngram_part(model) == 0);
+  gyre_model_free(model);
 }
