@@ -88,7 +88,8 @@ struct Seed {
 };
 
 // Valid inputs to start from: exported files of three architectures in three precisions, and a
-// checkpoint with Adam's moments and a trainer state.
+// checkpoint with Adam's moments and a trainer state; the softmax classifier once more with an
+// n-gram part (docs/model-format.md "N-gram part").
 const std::vector<Seed>& seeds() {
   static const std::vector<Seed> all = [] {
     using gyre::data::Task;
@@ -100,12 +101,17 @@ const std::vector<Seed>& seeds() {
                 {"book", "cancel", "praise"}),
         spec_of(Task::kTag, CellType::kLstm, 1, true, OutputKind::kCrf, {"O", "B-date", "I-date"}),
         spec_of(Task::kClassify, CellType::kGru, 2, true, OutputKind::kSigmoid, {"billing", "repair"}),
+        spec_of(Task::kClassify, CellType::kLstm, 1, false, OutputKind::kSoftmax,
+                {"book", "cancel", "praise"}),
     };
     const gyre::runtime::DType precisions[] = {gyre::runtime::DType::kF32, gyre::runtime::DType::kF16,
                                                gyre::runtime::DType::kI8};
     int n = 0;
     for (const auto& spec : specs) {
-      const auto trained = gyre::test::random_model(spec, 40 + static_cast<std::uint64_t>(n));
+      auto trained = gyre::test::random_model(spec, 40 + static_cast<std::uint64_t>(n));
+      if (&spec == &specs[3])
+        trained.ngram_part = gyre::test::random_ngram_part(
+            {{"can", "you", "come", "on", "monday"}, {"the", "kettle", "is", "fine", "!"}}, 2, 3, 77, 0.6f);
       for (const auto precision : precisions) {
         const fs::path file = work_dir() / ("seed" + std::to_string(n++) + ".gyre");
         gyre::io::export_model(trained, file, precision);
@@ -116,7 +122,7 @@ const std::vector<Seed>& seeds() {
       const fs::path ckpt = work_dir() / ("seed" + std::to_string(n++) + ".bin");
       const json state = {{"epoch", 1}, {"step", 3}, {"global_step", 7}, {"schedule", json::object()}};
       gyre::io::write_checkpoint(ckpt, *trained.model, trained.vocab, optimizer.get(), state,
-                                 json{{"hidden_size", 5}});
+                                 json{{"hidden_size", 5}}, &trained.ngram_part);
       out.push_back({ckpt.filename().string(), read_bytes(ckpt), true, trained.spec});
     }
     return out;
@@ -194,7 +200,12 @@ bool mutate_header(const Bytes& in, Bytes& out, gyre::Rng& rng) {
     h = json::parse(file.header_json());
     for (const auto& t : file.tensors()) {
       infos.push_back(t);
-      values.emplace_back(t.name, file.read_f32(t));
+      if (t.dtype == gyre::runtime::DType::kU8) {  // bytes (the n-gram keys): kept as they are
+        const auto* p = static_cast<const unsigned char*>(t.data);
+        values.emplace_back(t.name, std::vector<float>(p, p + t.bytes));
+      } else {
+        values.emplace_back(t.name, file.read_f32(t));
+      }
     }
   } catch (const std::exception&) {
     return false;
@@ -215,8 +226,14 @@ bool mutate_header(const Bytes& in, Bytes& out, gyre::Rng& rng) {
   }
   try {
     gyre::runtime::ModelFileWriter writer(h.dump());
-    for (std::size_t i = 0; i < infos.size(); ++i)
-      writer.add_tensor(infos[i].name, infos[i].shape, values[i].second, infos[i].dtype);
+    for (std::size_t i = 0; i < infos.size(); ++i) {
+      if (infos[i].dtype == gyre::runtime::DType::kU8) {
+        const std::vector<unsigned char> raw(values[i].second.begin(), values[i].second.end());
+        writer.add_bytes(infos[i].name, raw);
+      } else {
+        writer.add_tensor(infos[i].name, infos[i].shape, values[i].second, infos[i].dtype);
+      }
+    }
     const fs::path tmp = work_dir() / "rewrite.tmp";
     writer.write(tmp.string());
     out = read_bytes(tmp);

@@ -178,6 +178,103 @@ TEST_CASE("runtime f32 output equals the training library's forward pass", "[io]
   }
 }
 
+TEST_CASE("runtime f32 with an n-gram part equals the library's network plus the shared part",
+          "[io][parity][ngram]") {
+  // The library's side: its forward pass (SequenceModel, untempered) gives the network's
+  // log-probabilities, i.e. its logits up to a constant that no softmax sees; the n-gram part adds
+  // runtime::NgramPart::add_scores of the encoder's tokens, the definition training shares; then
+  // softmax(. / T). The runtime must give the same from the exported file within 1e-5.
+  using gyre::model::OutputKind;
+  struct Case {
+    const char* name;
+    gyre::nn::CellType cell;
+    bool bidirectional;
+    gyre::nn::PoolingKind pooling;
+    bool chars;
+    int order;
+    float temperature;  // 0: none
+  };
+  const Case cases[] = {
+      {"lstm uni mean, bigrams", gyre::nn::CellType::kLstm, false, gyre::nn::PoolingKind::kMean, false, 2,
+       0.0f},
+      {"gru bi last, trigrams, tempered", gyre::nn::CellType::kGru, true, gyre::nn::PoolingKind::kLast, false,
+       3, 1.6f},
+      {"lstm bi max with characters, bigrams, tempered", gyre::nn::CellType::kLstm, true,
+       gyre::nn::PoolingKind::kMax, true, 2, 0.8f},
+  };
+  const fs::path dir = fs::path(GYRE_TEST_TMP_DIR) / "parity-ngram";
+  fs::create_directories(dir);
+  std::uint64_t seed = 900;
+  for (const auto& c : cases) {
+    SECTION(c.name) {
+      gyre::model::ModelSpec spec;
+      spec.cell = c.cell;
+      spec.bidirectional = c.bidirectional;
+      spec.pooling = c.pooling;
+      spec.embedding_size = 12;
+      spec.hidden_size = 10;
+      spec.labels = {"book", "cancel", "praise"};
+      if (c.chars) {
+        spec.char_embedding_size = 4;
+        spec.char_filters = 6;
+        spec.char_width = 3;
+      }
+      if (c.temperature > 0) spec.temperature = {c.temperature};
+      auto trained = gyre::test::random_model(spec, seed++);
+      const gyre::data::Encoder encoder(trained.vocab, gyre::data::Task::kClassify);
+      std::vector<std::vector<std::string>> token_lists;
+      for (const char* text : kTexts) {
+        std::vector<std::string> tokens;
+        gyre::data::EncodedExample ex;
+        encoder.encode_text(text, tokens, ex);
+        token_lists.push_back(tokens);
+      }
+      // Keys from the texts themselves (words outside the vocabulary included), as a fit would see.
+      trained.ngram_part = gyre::test::random_ngram_part(token_lists, c.order, 3, seed++, 0.75f);
+      const fs::path file = dir / (std::string("m") + std::to_string(seed) + ".gyre");
+      gyre::io::export_model(trained, file, gyre::runtime::DType::kF32);
+      const auto runtime_model = gyre::runtime::Model::load(file.string());
+      REQUIRE(runtime_model.architecture().has_ngram_part());
+      gyre::runtime::Context ctx(runtime_model);
+      trained.model->set_calibrated(false);
+      gyre::runtime::NgramScratch scratch;
+      for (const char* text : kTexts) {
+        CAPTURE(text);
+        std::vector<std::string> tokens;
+        gyre::data::EncodedExample ex;
+        encoder.encode_text(text, tokens, ex);
+        const std::vector<gyre::data::EncodedExample> one{ex};
+        const auto lib = gyre::train::predict_all(*trained.model, one).at(0);
+        std::vector<float> scores(3, 0.0f);
+        trained.ngram_part.add_scores(tokens, scores.data(), scratch);
+        std::vector<double> z(3);
+        double mx = -1e300, den = 0;
+        const double t = c.temperature > 0 ? c.temperature : 1.0;
+        for (std::size_t k = 0; k < 3; ++k) {
+          z[k] = (std::log(static_cast<double>(lib.probs[k])) + scores[k]) / t;
+          mx = std::max(mx, z[k]);
+        }
+        for (const double v : z) den += std::exp(v - mx);
+        // Results live in the Context until its next call: copy before the next one.
+        const auto& rt_text = ctx.classify(text);
+        const std::vector<float> rt(rt_text.probabilities.begin(), rt_text.probabilities.end());
+        for (std::size_t k = 0; k < 3; ++k)  // tolerance 1e-5 absolute (the parity bar)
+          REQUIRE_THAT(rt[k], WithinAbs(std::exp(z[k] - mx) / den, 1e-5));
+        if (!c.chars) {  // with characters, classify_tokens takes tokens as written, not folded
+          const auto& rt_tokens = ctx.classify_tokens(tokens);
+          for (std::size_t k = 0; k < 3; ++k)
+            REQUIRE_THAT(rt_tokens.probabilities[k], WithinAbs(std::exp(z[k] - mx) / den, 1e-5));
+        }
+        // The ids path with the words (what gyre eval can run) gives the same as the text path.
+        std::vector<std::uint32_t> ids(ex.ids.begin(), ex.ids.end());
+        const auto& by_ids = ctx.classify_ids(ids, ex.char_ids, ex.char_offsets, tokens);
+        for (std::size_t k = 0; k < 3; ++k)
+          REQUIRE_THAT(by_ids.probabilities[k], WithinAbs(std::exp(z[k] - mx) / den, 1e-5));
+      }
+    }
+  }
+}
+
 #ifdef GYRE_CLI_PATH
 TEST_CASE("gyre eval and gyre predict on an int8 file report what the runtime computes", "[parity][cli]") {
   // Issue 11: commands that score an exported file run it through runtime::Model, so the numbers
