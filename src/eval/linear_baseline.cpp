@@ -249,16 +249,31 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
 
 // ---------------------------------------------------------------- n-gram classifier
 
-void NgramClassifier::ngrams(std::span<const std::string> tokens, std::vector<std::string>& out) {
+NgramClassifier::NgramClassifier(int min_df, int order) : min_df_(min_df), order_(order) {
+  GYRE_CHECK(order >= 1 && order <= runtime::kMaxNgramOrder, "linear baseline: n-gram order " +
+                                                                 std::to_string(order) + " is outside 1.." +
+                                                                 std::to_string(runtime::kMaxNgramOrder));
+}
+
+runtime::NgramPart NgramClassifier::part(float mix) const {
+  GYRE_CHECK(model_.classes > 0, "linear baseline: part() before fit()");
+  std::vector<std::string> keys(index_.size());
+  for (const auto& [key, column] : index_) keys[static_cast<std::size_t>(column)] = key;
+  std::vector<float> weights(model_.weights.size()), bias(model_.bias.size());
+  for (std::size_t i = 0; i < weights.size(); ++i) weights[i] = static_cast<float>(model_.weights[i]);
+  for (std::size_t i = 0; i < bias.size(); ++i) bias[i] = static_cast<float>(model_.bias[i]);
+  return runtime::NgramPart(order_, std::move(keys), std::move(weights), std::move(bias), mix);
+}
+
+void NgramClassifier::ngrams(std::span<const std::string> tokens, int order, std::vector<std::string>& out) {
   out.clear();
-  for (const auto& t : tokens) out.push_back(t);
-  for (std::size_t i = 1; i < tokens.size(); ++i) out.push_back(tokens[i - 1] + '\x01' + tokens[i]);
+  runtime::ngram_keys(std::vector<std::string>(tokens.begin(), tokens.end()), order, out);
 }
 
 void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t label) {
   GYRE_CHECK(label >= 0, "negative label");
   std::vector<std::string> keys;
-  ngrams(tokens, keys);
+  ngrams(tokens, order_, keys);
   std::vector<std::int32_t> ids;
   ids.reserve(keys.size());
   for (auto& key : keys) {
@@ -282,7 +297,7 @@ void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t labe
 void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
                                 std::vector<double>& vals) const {
   std::vector<std::string> keys;
-  ngrams(tokens, keys);
+  ngrams(tokens, order_, keys);
   std::map<std::int32_t, int> counts;  // ordered: a row's columns ascending, deterministic sums
   for (const auto& key : keys) {
     const auto it = index_.find(key);

@@ -52,6 +52,7 @@ struct LinearBaseline::Impl {
   eval::NgramClassifier classifier;
   eval::WindowTagger tagger;
   double c = 0;
+  int ngram_order = 2;
 
   void tokens(const data::Example& ex, const std::string& path, std::vector<std::string>& out) const {
     encoder->tokens(ex, path, out);
@@ -59,7 +60,7 @@ struct LinearBaseline::Impl {
 
   void add_all(const ExampleStream& train, const std::string& path) {
     std::vector<std::string> toks;
-    classifier = eval::NgramClassifier();
+    classifier = eval::NgramClassifier(2, ngram_order);
     tagger = eval::WindowTagger();
     train([&](const data::Example& ex) {
       if (task == data::Task::kClassify && ex.labels.size() != 1)
@@ -120,10 +121,11 @@ LinearBaseline& LinearBaseline::operator=(LinearBaseline&&) noexcept = default;
 
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
                                    const std::string& train_path, const ExampleStream& dev,
-                                   const std::string& dev_path, double c) {
+                                   const std::string& dev_path, double c, int ngram_order) {
   auto impl = std::make_unique<Impl>();
   impl->vocab = vocab;
   impl->task = task;
+  impl->ngram_order = ngram_order;
   impl->encoder = std::make_unique<data::Encoder>(impl->vocab, task);
   impl->add_all(train, train_path);
   if (c > 0) {
@@ -147,15 +149,15 @@ LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task
 
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task,
                                    std::span<const data::Example> train, const std::string& train_path,
-                                   std::span<const data::Example> dev, const std::string& dev_path,
-                                   double c) {
+                                   std::span<const data::Example> dev, const std::string& dev_path, double c,
+                                   int ngram_order) {
   for (const auto& ex : train)
     if (task == data::Task::kClassify && ex.labels.size() != 1)
       throw ConfigError("baseline", "the linear baseline needs single-label examples (" + train_path +
                                         " line " + std::to_string(ex.line) + " has " +
                                         std::to_string(ex.labels.size()) + ")");
   GYRE_CHECK(c > 0 || !dev.empty(), "linear baseline: choosing C needs dev examples");
-  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c);
+  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c, ngram_order);
 }
 
 json LinearBaseline::score(const ExampleStream& examples, const std::string& path) const {
@@ -168,9 +170,15 @@ json LinearBaseline::score(std::span<const data::Example> examples, const std::s
 
 std::string LinearBaseline::description() const {
   if (impl_->task == data::Task::kClassify)
-    return "bag of token 1-2-grams, L2 logistic regression (C=" + format_c(impl_->c) + ")";
+    return "bag of token 1-" + std::to_string(impl_->ngram_order) +
+           "-grams, L2 logistic regression (C=" + format_c(impl_->c) + ")";
   return "token window (previous/current/next token + shapes), L2 logistic regression (C=" +
          format_c(impl_->c) + ")";
+}
+
+runtime::NgramPart LinearBaseline::ngram_part(float mix) const {
+  GYRE_CHECK(impl_->task == data::Task::kClassify, "an n-gram part is for classifiers only");
+  return impl_->classifier.part(mix);
 }
 
 double LinearBaseline::c() const noexcept {
@@ -180,6 +188,11 @@ double LinearBaseline::c() const noexcept {
 std::size_t LinearBaseline::feature_count() const noexcept {
   return impl_->task == data::Task::kClassify ? impl_->classifier.feature_count()
                                               : impl_->tagger.feature_count();
+}
+
+int ngram_order_for(const TrainConfig& config) noexcept {
+  if (config.ngram_order > 0) return config.ngram_order;
+  return config.tokenizer == text::TokenizerMode::kChars ? 4 : 2;
 }
 
 RunExamples read_run_examples(const TrainConfig& config) {

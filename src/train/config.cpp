@@ -3,6 +3,7 @@
 #include <nlohmann/json.hpp>
 
 #include "gyre/core/error.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 
 namespace gyre::train {
 namespace {
@@ -203,6 +204,13 @@ void add_model_settings(std::vector<Setting<C>>& t) {
                                            .min = 0,
                                            .max = 1,
                                            .max_exclusive = true}));
+  t.push_back(
+      integer(&C::ngram_order, {.key = "ngram_order",
+                                .group = kModel,
+                                .help = "highest n-gram order of the n-gram part and the linear baseline",
+                                .min = 0,
+                                .max = runtime::kMaxNgramOrder,
+                                .note = "0 = auto: 4 with --tokenizer chars, else 2"}));
 }
 
 // The character encoder and the token embeddings.

@@ -1228,7 +1228,7 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
             visit(ex);
           });
         },
-        config_.train, stream_of(data_.dev_examples), dev_path);
+        config_.train, stream_of(data_.dev_examples), dev_path, 0, ngram_order_for(config_));
     if (examples_read != data_.train.size())
       throw IoError(config_.train +
                     ": the file changed during training: read again for the linear baseline, it has " +

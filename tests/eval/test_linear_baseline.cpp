@@ -118,8 +118,15 @@ TEST_CASE("word shapes and n-gram keys", "[baseline]") {
   CHECK(word_shape("caf\xc3\xa9") == "xx\xc3\xa9");  // non-ASCII bytes kept as they are
   std::vector<std::string> keys;
   const std::vector<std::string> tokens{"the", "kettle", "hums"};
-  gyre::eval::NgramClassifier::ngrams(tokens, keys);
-  CHECK(keys == std::vector<std::string>{"the", "kettle", "hums", "the\x01kettle", "kettle\x01hums"});
+  // Order 2: the tokens, then the bigrams of the list padded with the begin/end markers
+  // (gyre/runtime/ngram_part.hpp, worked by hand).
+  gyre::eval::NgramClassifier::ngrams(tokens, 2, keys);
+  CHECK(keys == std::vector<std::string>{"the", "kettle", "hums", "\x02\x01the", "the\x01kettle",
+                                         "kettle\x01hums", "hums\x01\x03"});
+  gyre::eval::NgramClassifier::ngrams(tokens, 1, keys);  // replaces the content
+  CHECK(keys == tokens);
+  CHECK_THROWS(gyre::eval::NgramClassifier(2, 0));
+  CHECK_THROWS(gyre::eval::NgramClassifier(2, gyre::runtime::kMaxNgramOrder + 1));
   const std::vector<std::string> raw{"The", "Kettle", "hums"};
   gyre::eval::WindowTagger::features(tokens, raw, 0, keys);
   CHECK(keys == std::vector<std::string>{"w-1=<s>", "w0=the", "w+1=kettle", "s-1=<s>", "s0=Xxx", "s+1=Xxx"});
@@ -142,6 +149,24 @@ TEST_CASE("n-gram classifier and window tagger learn a separable rule", "[baseli
   CHECK_THAT(p[0] + p[1], WithinAbs(1.0, 1e-12));
   CHECK(p[1] > 0.5);
   CHECK(clf.predict(std::vector<std::string>{"unseen"}) >= 0);  // no known feature: bias decides
+
+  // As an n-gram part (mix 1): the same scores in float, keys sorted = the fitted columns.
+  const gyre::runtime::NgramPart part = clf.part(1.0F);
+  CHECK(part.order() == 2);
+  CHECK(part.classes() == 2);
+  CHECK(part.features() == clf.feature_count());
+  CHECK(std::is_sorted(part.keys().begin(), part.keys().end()));
+  gyre::runtime::NgramScratch scratch;
+  for (const auto& text : texts) {
+    float logits[2] = {0.0F, 0.0F};
+    part.add_scores(text, logits, scratch);
+    const auto q = clf.probabilities(text);
+    // softmax of the part's scores = the classifier's probabilities (float vs double: 1e-5).
+    const double p1 = 1.0 / (1.0 + std::exp(static_cast<double>(logits[0]) - logits[1]));
+    CHECK_THAT(p1, WithinAbs(q[1], 1e-5));
+  }
+  CHECK_THROWS(clf.part(0.0F));
+  CHECK_THROWS(gyre::eval::NgramClassifier().part(1.0F));  // not fitted
 
   // Tagger: capitalised tokens after "in" are places; the shape feature carries capitalisation.
   gyre::eval::WindowTagger tagger;
@@ -171,7 +196,7 @@ gyre::eval::LinearModel fit_from_strings(const std::vector<std::vector<std::stri
   std::map<std::string, int> df;
   std::vector<std::string> keys;
   for (const auto& t : texts) {
-    gyre::eval::NgramClassifier::ngrams(t, keys);
+    gyre::eval::NgramClassifier::ngrams(t, 2, keys);
     std::sort(keys.begin(), keys.end());
     keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
     for (const auto& k : keys) ++df[k];
@@ -181,7 +206,7 @@ gyre::eval::LinearModel fit_from_strings(const std::vector<std::vector<std::stri
     if (n >= min_df) index.emplace(k, static_cast<std::int32_t>(index.size()));
   SparseRows x;
   for (const auto& t : texts) {
-    gyre::eval::NgramClassifier::ngrams(t, keys);
+    gyre::eval::NgramClassifier::ngrams(t, 2, keys);
     std::map<std::int32_t, int> counts;
     for (const auto& k : keys)
       if (const auto it = index.find(k); it != index.end()) ++counts[it->second];
@@ -241,7 +266,7 @@ TEST_CASE("n-gram classifier: interned rows give the model the string features g
       std::size_t entries = 0;
       std::vector<std::string> keys;
       for (const auto& t : texts) {
-        gyre::eval::NgramClassifier::ngrams(t, keys);
+        gyre::eval::NgramClassifier::ngrams(t, 2, keys);
         const std::set<std::string> distinct(keys.begin(), keys.end());
         entries += distinct.size();
         all.insert(distinct.begin(), distinct.end());

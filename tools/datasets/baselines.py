@@ -9,8 +9,11 @@ Made with Debian's python3-sklearn 1.2.1. For every dataset two things are recor
  1. "gyre_mirror": gyre's own linear baseline (src/eval/linear_baseline.cpp) rebuilt with
     sklearn on the same features, for the check that gyre's solver reaches the same scores
     (tests/external/datasets_check.sh, within 0.005):
-      classifiers: token unigrams + bigrams (bigram key "a\\x01b") of the tokens gyre feeds the
-        model, kept if in >= 2 training examples (CountVectorizer(min_df=2)), value 1 + ln(count)
+      classifiers: token n-grams of orders 1..N of the tokens gyre feeds the model (gyre's
+        runtime::ngram_keys, include/gyre/runtime/ngram_part.hpp: the tokens, then for n >= 2 every
+        n consecutive items of the token list padded with "\\x02" before and "\\x03" after, joined
+        by "\\x01"; N = gyre's auto ngram_order: 4 for names' `chars` tokens, 2 for brown-genre),
+        kept if in >= 2 training examples (CountVectorizer(min_df=2)), value 1 + ln(count)
         then L2-normalised (TfidfVectorizer(use_idf=False, sublinear_tf=True, norm="l2"));
         LogisticRegression(C, lbfgs, max_iter=5000, tol=1e-8), C from {1, 10, 100} by dev
         accuracy (first best). Tokens: `chars` tokenizer for names (NFKC, case-folded grapheme
@@ -29,7 +32,8 @@ Made with Debian's python3-sklearn 1.2.1. For every dataset two things are recor
         and is-capitalised/has-digit flags of the current token, C in {1, 10, 100}.
 Span F1 reads BIO with the CoNLL-2000 rules (an I-x after O or another type opens a span), as
 gyre's tag_scheme.cpp does. Each split file's SHA-256 is recorded so a test can confirm it scores
-the very same split.
+the very same split. Datasets absent from DATA_DIR keep their entries from an existing OUT_JSON (so
+one dataset can be refreshed without fetching the others).
 """
 
 import hashlib
@@ -97,8 +101,15 @@ def fold(text):
     return unicodedata.normalize("NFKC", text).casefold()
 
 
-def ngrams(tokens):
-    return list(tokens) + [a + "\x01" + b for a, b in zip(tokens, tokens[1:])]
+def ngrams(tokens, order):
+    """gyre's runtime::ngram_keys (include/gyre/runtime/ngram_part.hpp)."""
+    out = list(tokens)
+    if not tokens:
+        return out
+    padded = ["\x02"] + list(tokens) + ["\x03"]
+    for n in range(2, order + 1):
+        out += ["\x01".join(padded[i:i + n]) for i in range(len(padded) - n + 1)]
+    return out
 
 
 def macro_f1(gold, predicted):
@@ -128,7 +139,7 @@ def grid(make_features, data, metric, scorer, fitter=fit_lr):
     return best
 
 
-def classification(name, split_dir, mirror_tokens):
+def classification(name, split_dir, mirror_tokens, mirror_order=2):
     raw = {s: read_tsv(os.path.join(split_dir, f"{s}.tsv")) for s in ("train", "dev", "test")}
     y = {s: raw[s][0] for s in raw}
     texts = {s: raw[s][1] for s in raw}
@@ -136,7 +147,7 @@ def classification(name, split_dir, mirror_tokens):
 
     if mirror_tokens is not None:
         def mirror():
-            vec = TfidfVectorizer(analyzer=lambda t: ngrams(mirror_tokens(t)), min_df=2, use_idf=False,
+            vec = TfidfVectorizer(analyzer=lambda t: ngrams(mirror_tokens(t), mirror_order), min_df=2, use_idf=False,
                                   sublinear_tf=True, norm="l2")
             x = {"train": vec.fit_transform(texts["train"])}
             x.update({s: vec.transform(texts[s]) for s in ("dev", "test")})
@@ -275,6 +286,9 @@ def main():
     which = [d for d in ("names", "brown-genre", "brown-names", "spam")
              if os.path.isdir(os.path.join(data_dir, d))]
     results = {}
+    if os.path.exists(out_json):
+        with open(out_json, encoding="utf-8") as f:
+            results = json.load(f)["datasets"]
     for name in which:
         split_dir = os.path.join(data_dir, name)
         if name == "brown-names":
@@ -282,7 +296,7 @@ def main():
             metric = "span_f1"
         else:
             mirror = {"names": lambda t: list(fold(t)), "brown-genre": lambda t: fold(t).split()}.get(name)
-            entry = classification(name, split_dir, mirror)
+            entry = classification(name, split_dir, mirror, {"names": 4}.get(name, 2))
             metric = "accuracy"
         best = max(entry["candidates"], key=lambda k: entry["candidates"][k]["dev"][metric])
         entry["metric"] = metric

@@ -1,7 +1,8 @@
 #pragma once
 // Linear baselines fitted beside every recurrent model (issue 12 item 2):
-//  - NgramClassifier: bag of word unigrams + bigrams, each feature weighted 1 + ln(count)
-//    and every example's vector scaled to unit L2 norm ("sublinear tf", Manning, Raghavan &
+//  - NgramClassifier: bag of token n-grams of orders 1..order (runtime::ngram_keys: n >= 2
+//    padded with begin/end markers, gyre/runtime/ngram_part.hpp), each feature weighted
+//    1 + ln(count) and every example's vector scaled to unit L2 norm ("sublinear tf", Manning, Raghavan &
 //    Schuetze 2008, section 6.4.1); n-grams kept if they occur in at least `min_df` training
 //    examples. Model: multinomial logistic regression with an L2 penalty.
 //  - WindowTagger: one multinomial logistic regression per token over one-hot features of the
@@ -24,6 +25,8 @@
 #include <vector>
 
 #include <nlohmann/json_fwd.hpp>
+
+#include "gyre/runtime/ngram_part.hpp"
 
 namespace gyre::eval {
 
@@ -73,7 +76,8 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
 /// examples; release_examples() frees them once no more fits are needed.
 class NgramClassifier {
  public:
-  explicit NgramClassifier(int min_df = 2) : min_df_(min_df) {}
+  /// order: highest n-gram order, in [1, runtime::kMaxNgramOrder] (throws gyre::Error otherwise).
+  explicit NgramClassifier(int min_df = 2, int order = 2);
   /// Adds one training example; `label` is an index in [0, classes).
   void add(std::span<const std::string> tokens, std::int32_t label);
   /// Builds the feature index from the examples added and fits. Throws gyre::Error if fewer
@@ -88,18 +92,25 @@ class NgramClassifier {
   std::size_t feature_count() const noexcept { return index_.size(); }
   const LinearModel& model() const noexcept { return model_; }
   double c() const noexcept { return c_; }
+  int order() const noexcept { return order_; }
+
+  /// The fitted model as the n-gram part of a classifier (gyre/runtime/ngram_part.hpp): the kept
+  /// keys in sorted order (= the column order), weights and bias rounded to float, the given mix.
+  /// Throws gyre::Error before fit(), runtime::Error for a mix that is not positive and finite.
+  runtime::NgramPart part(float mix) const;
   /// Training examples held, their (key, count) entries and distinct keys (memory checks).
   std::size_t example_count() const noexcept { return labels_.size(); }
   std::size_t entry_count() const noexcept { return entry_keys_.size(); }
   std::size_t key_count() const noexcept { return key_ids_.size(); }
 
-  /// The unigram and bigram keys of a token list ("a", "a b"; bigrams join with U+0001).
-  static void ngrams(std::span<const std::string> tokens, std::vector<std::string>& out);
+  /// The keys of a token list for orders 1..order (runtime::ngram_keys), replacing out's content.
+  static void ngrams(std::span<const std::string> tokens, int order, std::vector<std::string>& out);
 
  private:
   void featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
                  std::vector<double>& vals) const;
   int min_df_;
+  int order_;
   // Training examples: example i's keys are entry_keys_[entry_start_[i] .. entry_start_[i+1])
   // (key ids ascending), each with its count in that example.
   std::unordered_map<std::string, std::int32_t> key_ids_;  // key -> id, in order of first sight

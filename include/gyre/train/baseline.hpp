@@ -17,6 +17,7 @@
 #include "gyre/data/example.hpp"
 #include "gyre/data/reader.hpp"
 #include "gyre/data/tag_scheme.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 #include "gyre/text/vocab.hpp"
 #include "gyre/train/config.hpp"
 
@@ -50,10 +51,11 @@ class LinearBaseline {
   /// examples once per C value.
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
                             const std::string& train_path, const ExampleStream& dev,
-                            const std::string& dev_path, double c = 0);
+                            const std::string& dev_path, double c = 0, int ngram_order = 2);
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task,
                             std::span<const data::Example> train, const std::string& train_path,
-                            std::span<const data::Example> dev, const std::string& dev_path, double c = 0);
+                            std::span<const data::Example> dev, const std::string& dev_path, double c = 0,
+                            int ngram_order = 2);
 
   /// Scores labelled examples: classifiers {"accuracy", "macro_f1"}, taggers {"span_f1",
   /// "token_accuracy"} (the same keys as the model's dev summary).
@@ -62,6 +64,9 @@ class LinearBaseline {
 
   /// "bag of token 1-2-grams, L2 logistic regression (C=10)" or the tagger's equivalent.
   std::string description() const;
+  /// Classifiers: the fitted model as an n-gram part with this mix (eval::NgramClassifier::part).
+  /// Throws gyre::Error for a tagger.
+  runtime::NgramPart ngram_part(float mix) const;
   double c() const noexcept;
   std::size_t feature_count() const noexcept;
 
@@ -79,6 +84,10 @@ struct RunExamples {
   data::Task task = data::Task::kClassify;
 };
 RunExamples read_run_examples(const TrainConfig& config);
+
+/// The n-gram order of a run's linear baseline and n-gram part: config.ngram_order, or when it is
+/// 0 (auto) 4 for the `chars` tokenizer and 2 for the others.
+int ngram_order_for(const TrainConfig& config) noexcept;
 
 /// The training (`dev_split` false) or dev split of a run as `gyre train` prepared it, read again
 /// from the files in its config one example at a time: the same hash split when it had no dev

@@ -60,6 +60,9 @@ struct TrainConfig {
   bool tune_label_thresholds = true;
   double dropout = 0.2;  // between recurrent layers and before the head
   double embedding_dropout = 0.1;
+  /// Highest n-gram order of the linear baseline and the n-gram part; 0 = auto: 4 with the
+  /// `chars` tokenizer, 2 otherwise (train::ngram_order_for).
+  int ngram_order = 0;
   /// Character encoder over each token's un-folded grapheme clusters (CNN, Ma & Hovy 2016);
   /// empty: decided by the task (see resolve_char_encoder).
   std::optional<bool> char_encoder;
