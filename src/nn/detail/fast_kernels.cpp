@@ -220,7 +220,8 @@ GYRE_AVX512 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* a
       GYRE_TAIL(7)
       GYRE_TAIL(8)
       GYRE_TAIL(9)
-      GYRE_TAIL(10) GYRE_TAIL(11)
+      GYRE_TAIL(10)
+      GYRE_TAIL(11)
 #undef GYRE_TAIL
           default : break;
   }
@@ -543,20 +544,41 @@ GYRE_AVX512_EXACT void add_column_sums_avx512(const float* a, std::ptrdiff_t row
                                               std::ptrdiff_t lda, float* out) {
   const std::ptrdiff_t rows4 = (rows - 1) & ~std::ptrdiff_t{3};
   const std::ptrdiff_t packet_cols = cols & ~std::ptrdiff_t{3};
-  for (std::ptrdiff_t c0 = 0; c0 < packet_cols; c0 += 16) {
-    const __mmask16 m = cols_mask(packet_cols - c0);
+  // Strips of up to 16 vectors (256 columns): each row's strip is read as one contiguous run (a
+  // strip of one vector would touch one line per row, 4H floats apart, and stall on every row).
+  constexpr int kStrip = 16;
+  for (std::ptrdiff_t c0 = 0; c0 < packet_cols; c0 += 16 * kStrip) {
+    __mmask16 m[kStrip];
+    __m512 acc[kStrip];
     const float* p = a + c0;
-    __m512 s = _mm512_maskz_loadu_ps(m, p);
+#pragma GCC unroll 16
+    for (int v = 0; v < kStrip; ++v) {
+      m[v] = cols_mask(packet_cols - c0 - 16 * v);
+      acc[v] = _mm512_maskz_loadu_ps(m[v], p + 16 * v);
+    }
     std::ptrdiff_t r = 1;
     for (; r < rows4; r += 4) {
-      const __m512 x01 =
-          _mm512_add_ps(_mm512_maskz_loadu_ps(m, p + r * lda), _mm512_maskz_loadu_ps(m, p + (r + 1) * lda));
-      const __m512 x23 = _mm512_add_ps(_mm512_maskz_loadu_ps(m, p + (r + 2) * lda),
-                                       _mm512_maskz_loadu_ps(m, p + (r + 3) * lda));
-      s = _mm512_add_ps(s, _mm512_add_ps(x01, x23));
+      const float* q = p + r * lda;
+#pragma GCC unroll 16
+      for (int v = 0; v < kStrip; ++v) {
+        const __m512 x01 = _mm512_add_ps(_mm512_maskz_loadu_ps(m[v], q + 16 * v),
+                                         _mm512_maskz_loadu_ps(m[v], q + lda + 16 * v));
+        const __m512 x23 = _mm512_add_ps(_mm512_maskz_loadu_ps(m[v], q + 2 * lda + 16 * v),
+                                         _mm512_maskz_loadu_ps(m[v], q + 3 * lda + 16 * v));
+        acc[v] = _mm512_add_ps(acc[v], _mm512_add_ps(x01, x23));
+      }
     }
-    for (; r < rows; ++r) s = _mm512_add_ps(s, _mm512_maskz_loadu_ps(m, p + r * lda));
-    _mm512_mask_storeu_ps(out + c0, m, _mm512_add_ps(_mm512_maskz_loadu_ps(m, out + c0), s));
+    for (; r < rows; ++r) {
+      const float* q = p + r * lda;
+#pragma GCC unroll 16
+      for (int v = 0; v < kStrip; ++v)
+        acc[v] = _mm512_add_ps(acc[v], _mm512_maskz_loadu_ps(m[v], q + 16 * v));
+    }
+#pragma GCC unroll 16
+    for (int v = 0; v < kStrip; ++v) {
+      float* o = out + c0 + 16 * v;
+      _mm512_mask_storeu_ps(o, m[v], _mm512_add_ps(_mm512_maskz_loadu_ps(m[v], o), acc[v]));
+    }
   }
   for (std::ptrdiff_t c = packet_cols; c < cols; ++c) {
     float s = a[c];
