@@ -223,7 +223,8 @@ GYRE_AVX512 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* a
       GYRE_TAIL(10)
       GYRE_TAIL(11)
 #undef GYRE_TAIL
-          default : break;
+    default:
+      break;
   }
 }
 
@@ -433,19 +434,61 @@ GYRE_AVX512 void pack_b_avx512(const float* b, std::ptrdiff_t ldb, bool trans, s
   }
 }
 
+// In-register transpose of a 16 x 16 block: for bit d = 8, 4, 2, 1, rows i and i + d (bit d of i
+// clear) exchange the d-wide column blocks that sit across the diagonal, so element (r, c) has
+// bit d of r and of c swapped; after the four stages it sits at (c, r). idx: the permutations of
+// each stage (transpose16_indices), made once per call of the packer.
+struct Transpose16Indices {
+  __m512i lo[4], hi[4];
+};
+
+GYRE_AVX512_INLINE Transpose16Indices transpose16_indices() {
+  Transpose16Indices t;
+  for (int s = 0; s < 4; ++s) {
+    const int d = 8 >> s;
+    alignas(64) std::int32_t lo[16], hi[16];
+    for (int l = 0; l < 16; ++l) {
+      lo[l] = (l & d) != 0 ? 16 + (l ^ d) : l;  // row i: its own lanes, then row i + d's
+      hi[l] = (l & d) != 0 ? 16 + l : (l ^ d);  // row i + d: row i's lanes, then its own
+    }
+    t.lo[s] = _mm512_load_si512(lo);
+    t.hi[s] = _mm512_load_si512(hi);
+  }
+  return t;
+}
+
+GYRE_AVX512_INLINE void transpose16(__m512 (&r)[16], const Transpose16Indices& t) {
+#pragma GCC unroll 4
+  for (int s = 0; s < 4; ++s) {
+    const int d = 8 >> s;
+#pragma GCC unroll 16
+    for (int i = 0; i < 16; ++i) {
+      if ((i & d) != 0) continue;
+      const __m512 a = r[i], b = r[i + d];
+      r[i] = _mm512_permutex2var_ps(a, t.lo[s], b);
+      r[i + d] = _mm512_permutex2var_ps(a, t.hi[s], b);
+    }
+  }
+}
+
 GYRE_AVX512 void pack_gates_avx512(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
   const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
   const std::ptrdiff_t panels = hidden / kCellUnits;
-  const __m512i idx =
-      _mm512_mullo_epi32(_mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15),
-                         _mm512_set1_epi32(static_cast<int>(hidden)));
+  static_assert(kCellUnits == 16, "one 16 x 16 transpose per gate and 16 k");
+  const Transpose16Indices t = transpose16_indices();
   for (std::ptrdiff_t p = 0; p < panels; ++p) {
     float* dst = out + p * nr * hidden;
     for (int g = 0; g < gates; ++g) {
-      // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed).
+      // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed), 16 k at a time.
       const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits) * hidden;
-      for (std::ptrdiff_t kk = 0; kk < hidden; ++kk)
-        _mm512_storeu_ps(dst + kk * nr + g * kCellUnits, _mm512_i32gather_ps(idx, src + kk, 4));
+      for (std::ptrdiff_t k0 = 0; k0 < hidden; k0 += 16) {
+        __m512 r[16];
+#pragma GCC unroll 16
+        for (int j = 0; j < 16; ++j) r[j] = _mm512_loadu_ps(src + j * hidden + k0);
+        transpose16(r, t);
+#pragma GCC unroll 16
+        for (int kk = 0; kk < 16; ++kk) _mm512_storeu_ps(dst + (k0 + kk) * nr + g * kCellUnits, r[kk]);
+      }
     }
   }
 }
