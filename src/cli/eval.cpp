@@ -117,7 +117,7 @@ void calibration_section(const io::TrainedModel& trained, const LabelledData& da
   }
   std::vector<train::ExamplePrediction> raw;
   if (trained.runtime) {
-    raw = train::predict_all(*trained.runtime, data.encoded, false);
+    raw = train::predict_all(*trained.runtime, data.encoded, false, false, data.words);
   } else {
     trained.model->set_calibrated(false);
     raw = train::predict_all(*trained.model, data.encoded);
@@ -222,8 +222,9 @@ ExitCode run_eval(const EvalOptions& o) {
   if (o.given->given.contains("multi_label_threshold"))
     io::set_multi_label_threshold(trained, o.given->given["multi_label_threshold"].get<float>());
   const LabelledData data = load_labelled(o.test, trained, model_read_options(trained, o.given->given));
-  auto predictions = trained.runtime ? train::predict_all(*trained.runtime, data.encoded)
-                                     : train::predict_all(*trained.model, data.encoded);
+  auto predictions = trained.runtime
+                         ? train::predict_all(*trained.runtime, data.encoded, true, false, data.words)
+                         : train::predict_all(*trained.model, data.encoded);
   train::decide_labels(trained.spec, predictions);  // the thresholds in use (--multi-label-threshold)
   auto result = train::score(trained.spec, data.encoded, std::move(predictions), true);
   json report = result.to_json();

@@ -45,6 +45,12 @@ LabelledData load_labelled(const std::string& path, const io::TrainedModel& trai
   for (const auto& ex : out.examples) {
     out.encoded.push_back(encoder.encode(ex, path));
     if (out.encoded.back().cut) cut_lines.push_back(ex.line);
+    if (!trained.ngram_part.empty()) {  // the same tokens encode() made, as words
+      std::vector<std::string> words;
+      data::EncodedExample again;
+      encoder.encode_text(ex.text, words, again);
+      out.words.push_back(std::move(words));
+    }
   }
   if (!cut_lines.empty()) {
     const std::size_t cap = trained.vocab.tokenizer.max_tokens;

@@ -16,6 +16,8 @@ namespace gyre::cli {
 struct LabelledData {
   std::vector<data::Example> examples;
   std::vector<data::EncodedExample> encoded;
+  /// A model with an n-gram part: the words of each example (train::predict_all needs them).
+  std::vector<std::vector<std::string>> words;
   std::size_t skipped = 0;
 };
 

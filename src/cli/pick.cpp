@@ -63,8 +63,9 @@ std::vector<PoolText> read_pool(const std::string& path) {
 }
 
 std::vector<train::ExamplePrediction> run_model(const io::TrainedModel& trained,
-                                                const std::vector<data::EncodedExample>& encoded) {
-  return trained.runtime ? train::predict_all(*trained.runtime, encoded, true, true)
+                                                const std::vector<data::EncodedExample>& encoded,
+                                                const std::vector<std::vector<std::string>>& words = {}) {
+  return trained.runtime ? train::predict_all(*trained.runtime, encoded, true, true, words)
                          : train::predict_all(*trained.model, encoded, 64, true);
 }
 

@@ -76,6 +76,7 @@ struct Pending {
   std::string text;
   std::vector<std::string> tokens;
   std::vector<runtime::ByteRange> token_bytes;  // where each token lies in text (before normalization)
+  std::vector<std::string> words;               // a model with an n-gram part: the tokens normalized
   std::string error;                            // non-empty: this line gets an error record
   std::size_t encoded = 0;                      // index into the batch's encoded examples
   Cut cut = Cut::kNone;
@@ -183,10 +184,11 @@ class BatchWorker {
   void run(std::vector<InputLine>& lines, std::string& out, std::vector<std::pair<std::size_t, Cut>>& cuts) {
     pending_.clear();
     encoded_.clear();
+    words_.clear();
     for (auto& line : lines) add(line);
     std::vector<train::ExamplePrediction> preds;
     if (!encoded_.empty())
-      preds = trained_.runtime ? train::predict_all(*trained_.runtime, encoded_)
+      preds = trained_.runtime ? train::predict_all(*trained_.runtime, encoded_, true, false, words_)
                                : train::predict_all(*trained_.model, encoded_, o_.batch_size);
     train::decide_labels(spec_, preds);  // the thresholds in use (--multi-label-threshold)
     for (const auto& p : pending_) {
@@ -319,10 +321,12 @@ class BatchWorker {
         if (token_encoder_.has_characters()) token_encoder_.add_characters(surfaces, ex);
         given_tokens.resize(normalized.size());
         p.tokens = std::move(given_tokens);  // printed as the user wrote them; no byte ranges
+        if (!trained_.ngram_part.empty()) p.words = std::move(normalized);
       } else if (encoder_.encode_text(p.text, p.tokens, ex, &p.token_bytes)) {
         // A line cut by bytes usually has more tokens than the cap too: name the cap that bit.
         p.cut = Cut::kTokens;
       }
+      if (!pretokenized && !trained_.ngram_part.empty()) p.words = p.tokens;  // the normalized words
     } catch (const runtime::Error& e) {
       p.error = e.what();
     } catch (const ParseError& e) {
@@ -333,6 +337,7 @@ class BatchWorker {
       p.encoded = encoded_.size();
       ex.source_line = p.line;
       encoded_.push_back(std::move(ex));
+      if (!trained_.ngram_part.empty()) words_.push_back(p.words);
     }
   }
 
@@ -361,7 +366,9 @@ class BatchWorker {
       json record{{"line", p.line}, {"labels", chosen}, {"top", top}};
       if (p.cut != Cut::kNone) record["cut"] = true;
       if (o_.why)
-        record["why"] = train::explain(trained_, encoded_[p.encoded], p.tokens, static_cast<int>(order[0]));
+        record["why"] =
+            train::explain(trained_, encoded_[p.encoded], trained_.ngram_part.empty() ? p.tokens : p.words,
+                           static_cast<int>(order[0]));
       append(out, record.dump());
     } else {
       std::string row;
@@ -456,6 +463,7 @@ class BatchWorker {
   const model::ModelSpec& spec_;
   std::vector<Pending> pending_;
   std::vector<data::EncodedExample> encoded_;
+  std::vector<std::vector<std::string>> words_;  // n-gram part: Pending::words of encoded_[i]
 };
 
 // Reads lines into batches of --batch-size and runs them, --threads batches at a time.

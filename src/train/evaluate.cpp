@@ -68,8 +68,13 @@ std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
 
 std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
                                            std::span<const data::EncodedExample> examples, bool calibrated,
-                                           bool with_features) {
+                                           bool with_features,
+                                           std::span<const std::vector<std::string>> words) {
   const runtime::Architecture& a = model.architecture();
+  if (a.has_ngram_part() && words.size() != examples.size())
+    throw Error(
+        "this model has an n-gram part, which reads the words of each text: " + std::to_string(words.size()) +
+        " word lists given for " + std::to_string(examples.size()) + " examples");
   const std::size_t C = model.labels().size();
   runtime::Context ctx(model);
   ctx.set_calibrated(calibrated);
@@ -82,8 +87,9 @@ std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
     const bool with_chars = a.has_char_encoder();
     ExamplePrediction& p = out[i];
     if (a.task == runtime::Task::kClassify) {
-      const runtime::ClassifyResult& r =
-          with_chars ? ctx.classify_ids(ids, chars, offsets) : ctx.classify_ids(ids);
+      const runtime::ClassifyResult& r = a.has_ngram_part() ? ctx.classify_ids(ids, chars, offsets, words[i])
+                                         : with_chars       ? ctx.classify_ids(ids, chars, offsets)
+                                                            : ctx.classify_ids(ids);
       p.probs.assign(r.probabilities.begin(), r.probabilities.end());
       p.confidence = p.probs[r.best];
       if (with_features) p.features.assign(r.features.begin(), r.features.end());

@@ -23,9 +23,15 @@ nlohmann::json explain(const io::TrainedModel& trained, const data::EncodedExamp
   if (trained.runtime) {
     runtime::Context ctx(*trained.runtime);
     std::vector<std::uint32_t> u(ids.begin(), ids.end());
-    const auto s = example.char_offsets.empty() ? ctx.occlusion_ids(u, static_cast<std::uint32_t>(target))
-                                                : ctx.occlusion_ids(u, example.char_ids, example.char_offsets,
-                                                                    static_cast<std::uint32_t>(target));
+    // A model with an n-gram part reads the words too (the tokens given here).
+    const auto s = trained.runtime->architecture().has_ngram_part()
+                       ? ctx.occlusion_ids(u, example.char_ids, example.char_offsets,
+                                           Span<const std::string>(tokens.data(), tokens.size()),
+                                           static_cast<std::uint32_t>(target))
+                   : example.char_offsets.empty()
+                       ? ctx.occlusion_ids(u, static_cast<std::uint32_t>(target))
+                       : ctx.occlusion_ids(u, example.char_ids, example.char_offsets,
+                                           static_cast<std::uint32_t>(target));
     scores.assign(s.begin(), s.end());
     out["method"] = "occlusion";
   } else {

@@ -699,5 +699,28 @@ TEST_CASE("n-gram part: gyre export prints its share and gyre inspect shows it",
   CHECK_THAT(text, Contains("n-gram part: order 2, " + keys + ", mix 0.5: "));
   CHECK_THAT(text, Contains("% of the file"));
   CHECK_THAT(text, Contains("n-gram part  order 2, " + keys + ", mix 0.5, weights i8; "));
+  // eval, predict and predict --why run the exported file in the runtime, which needs the words:
+  // they pass them (an id-only call would be refused).
+  const fs::path data = tmp_dir() / "ngram-cli.tsv";
+  std::ofstream(data) << "book\tcan you come on monday\ncancel\tthe kettle is fine !\npraise\tthanks\n";
+  const std::string eval = std::string(GYRE_CLI_PATH) + " eval " + out.string() + " --test " + data.string() +
+                           " > " + log.string() + " 2>&1";
+  CHECK(WEXITSTATUS(std::system(eval.c_str())) == 0);
+  const std::string predict = "printf 'can you come on monday\\nthanks\\n' | " + std::string(GYRE_CLI_PATH) +
+                              " predict " + out.string() + " --format jsonl --why > " + log.string() +
+                              " 2>&1";
+  CHECK(WEXITSTATUS(std::system(predict.c_str())) == 0);
+  // The runtime's probabilities for a line equal Context::classify of the text.
+  std::ifstream pin(log);
+  std::string first;
+  std::getline(pin, first);
+  CAPTURE(first);
+  const auto rt = gyre::runtime::Model::load(out.string());
+  gyre::runtime::Context ctx(rt);
+  const auto& r = ctx.classify("can you come on monday");
+  const json line = json::parse(first);
+  CHECK(line["top"][0]["label"] == rt.labels()[r.best]);
+  CHECK(std::abs(line["top"][0]["probability"].get<double>() - r.probabilities[r.best]) < 1e-6);
+  CHECK(line["why"]["method"] == "occlusion");
 }
 #endif

@@ -78,9 +78,12 @@ std::vector<ExamplePrediction> predict_all(model::SequenceModel& model,
                                            std::span<const data::EncodedExample> examples,
                                            int batch_size = 64, bool with_features = false);
 /// The same through the embedded runtime (one example at a time, as an application calls it).
+/// A model with an n-gram part also needs each example's words (words[i]: the tokens the encoder
+/// made of text i, one per id; Encoder::encode_text); without them it throws Error.
 std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
                                            std::span<const data::EncodedExample> examples,
-                                           bool calibrated = true, bool with_features = false);
+                                           bool calibrated = true, bool with_features = false,
+                                           std::span<const std::vector<std::string>> words = {});
 
 /// Multi-label (sigmoid) classifiers: sets each prediction's labels to those whose probability
 /// reaches the spec's threshold for them (ModelSpec::threshold_of); other models are left alone.
