@@ -497,7 +497,13 @@ GYRE_AVX512 void pack_gates_avx512(const float* u, int gates, std::ptrdiff_t hid
 // Each product and sum is rounded as the portable path's Eigen expressions round them (left to
 // right, no fused multiply-add: the optimize attribute keeps the compiler from contracting the
 // intrinsics), so the gradients have the same bits as before these kernels existed.
+#if defined(__clang__)
+// Clang has no optimize attribute; it contracts only within one source expression, and each
+// intrinsic is a call of its own, so nothing is contracted here.
+#define GYRE_AVX512_EXACT GYRE_AVX512
+#else
 #define GYRE_AVX512_EXACT GYRE_AVX512 __attribute__((optimize("fp-contract=off")))
+#endif
 
 GYRE_AVX512_EXACT void lstm_cell_backward_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float* d_out,
                                                  std::ptrdiff_t ld_out, const int* source, const float* dh,
