@@ -4,6 +4,7 @@
 #include <numeric>
 
 #include "gyre/core/error.hpp"
+#include "gyre/data/encoded_corpus.hpp"
 
 namespace gyre::data {
 
@@ -13,12 +14,17 @@ std::size_t Batch::tokens() const {
   return n;
 }
 
-std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExample> examples,
-                                                   const BatchPlanOptions& options, std::uint64_t seed,
-                                                   std::uint64_t epoch) {
+namespace {
+
+// The batch plan and the batch contents over any example store: `length(i)`, `ids(i)` (a span),
+// `has_chars(i)` and `chars(i, t)` (a span) read example i.
+template <class Length>
+std::vector<std::vector<std::size_t>> plan(std::size_t count, const Length& length,
+                                           const BatchPlanOptions& options, std::uint64_t seed,
+                                           std::uint64_t epoch) {
   GYRE_CHECK(options.batch_size > 0, "batch_size must be positive");
   GYRE_CHECK(options.bucket_batches > 0, "bucket_batches must be positive");
-  std::vector<std::size_t> order(examples.size());
+  std::vector<std::size_t> order(count);
   std::iota(order.begin(), order.end(), std::size_t{0});
   Rng rng(seed ^ (0xD1B54A32D192ED03ULL * (epoch + 1)));
   if (options.shuffle) rng.shuffle(std::span<std::size_t>(order));
@@ -29,9 +35,7 @@ std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExampl
     const auto first = order.begin() + static_cast<std::ptrdiff_t>(begin);
     const auto last = order.begin() + static_cast<std::ptrdiff_t>(std::min(order.size(), begin + chunk));
     // stable_sort keeps the shuffled order among equal lengths: deterministic and still random.
-    std::stable_sort(first, last, [&](std::size_t a, std::size_t b) {
-      return examples[a].ids.size() < examples[b].ids.size();
-    });
+    std::stable_sort(first, last, [&](std::size_t a, std::size_t b) { return length(a) < length(b); });
   }
   std::vector<std::vector<std::size_t>> batches;
   batches.reserve((order.size() + batch_size - 1) / batch_size);
@@ -44,15 +48,16 @@ std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExampl
   return batches;
 }
 
-void fill_batch(std::span<const EncodedExample> examples, std::span<const std::size_t> indices, Batch& batch,
-                int max_length) {
+template <class Ids, class HasChars, class Chars>
+void fill(const Ids& ids_of, const HasChars& has_chars, const Chars& chars_of,
+          std::span<const std::size_t> indices, Batch& batch, int max_length) {
   GYRE_CHECK(!indices.empty(), "a batch needs at least one example");
   batch.batch = static_cast<int>(indices.size());
   batch.lengths.resize(indices.size());
   batch.examples.assign(indices.begin(), indices.end());
   int longest = 0;
   for (std::size_t b = 0; b < indices.size(); ++b) {
-    int len = static_cast<int>(examples[indices[b]].ids.size());
+    int len = static_cast<int>(ids_of(indices[b]).size());
     GYRE_CHECK(len > 0, "an encoded example has no tokens");
     if (max_length > 0) len = std::min(len, max_length);
     batch.lengths[b] = len;
@@ -62,26 +67,64 @@ void fill_batch(std::span<const EncodedExample> examples, std::span<const std::s
   const auto B = indices.size();
   batch.ids.assign(static_cast<std::size_t>(longest) * B, 0);
   for (std::size_t b = 0; b < B; ++b) {
-    const auto& ids = examples[indices[b]].ids;
+    const auto ids = ids_of(indices[b]);
     for (int t = 0; t < batch.lengths[b]; ++t)
       batch.ids[static_cast<std::size_t>(t) * B + b] = ids[static_cast<std::size_t>(t)];
   }
   batch.char_ids.clear();
   batch.char_offsets.clear();
-  if (examples[indices[0]].char_offsets.empty()) return;
+  if (!has_chars(indices[0])) return;
   batch.char_offsets.reserve(batch.ids.size() + 1);
   batch.char_offsets.push_back(0);
   for (int t = 0; t < longest; ++t)
     for (std::size_t b = 0; b < B; ++b) {
-      const auto& ex = examples[indices[b]];
-      GYRE_CHECK(ex.char_offsets.size() == ex.ids.size() + 1, "an encoded example lacks its characters");
+      GYRE_CHECK(has_chars(indices[b]), "an encoded example lacks its characters");
       if (t < batch.lengths[b]) {
-        const auto from = ex.char_offsets[static_cast<std::size_t>(t)];
-        const auto to = ex.char_offsets[static_cast<std::size_t>(t) + 1];
-        batch.char_ids.insert(batch.char_ids.end(), ex.char_ids.begin() + from, ex.char_ids.begin() + to);
+        const auto chars = chars_of(indices[b], static_cast<std::size_t>(t));
+        batch.char_ids.insert(batch.char_ids.end(), chars.begin(), chars.end());
       }
       batch.char_offsets.push_back(static_cast<std::int32_t>(batch.char_ids.size()));
     }
+}
+
+}  // namespace
+
+std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExample> examples,
+                                                   const BatchPlanOptions& options, std::uint64_t seed,
+                                                   std::uint64_t epoch) {
+  return plan(
+      examples.size(), [&](std::size_t i) { return examples[i].ids.size(); }, options, seed, epoch);
+}
+
+std::vector<std::vector<std::size_t>> plan_batches(const EncodedCorpus& examples,
+                                                   const BatchPlanOptions& options, std::uint64_t seed,
+                                                   std::uint64_t epoch) {
+  return plan(
+      examples.size(), [&](std::size_t i) { return examples.length(i); }, options, seed, epoch);
+}
+
+void fill_batch(std::span<const EncodedExample> examples, std::span<const std::size_t> indices, Batch& batch,
+                int max_length) {
+  fill([&](std::size_t i) { return std::span<const std::int32_t>(examples[i].ids); },
+       [&](std::size_t i) {
+         const auto& ex = examples[i];
+         if (ex.char_offsets.empty()) return false;
+         GYRE_CHECK(ex.char_offsets.size() == ex.ids.size() + 1, "an encoded example lacks its characters");
+         return true;
+       },
+       [&](std::size_t i, std::size_t t) {
+         const auto& ex = examples[i];
+         const auto from = static_cast<std::size_t>(ex.char_offsets[t]);
+         const auto to = static_cast<std::size_t>(ex.char_offsets[t + 1]);
+         return std::span<const std::int32_t>(ex.char_ids).subspan(from, to - from);
+       },
+       indices, batch, max_length);
+}
+
+void fill_batch(const EncodedCorpus& examples, std::span<const std::size_t> indices, Batch& batch,
+                int max_length) {
+  fill([&](std::size_t i) { return examples.ids(i); }, [&](std::size_t) { return examples.has_characters(); },
+       [&](std::size_t i, std::size_t t) { return examples.char_ids(i, t); }, indices, batch, max_length);
 }
 
 std::vector<Window> make_windows(const Batch& batch, int window) {

@@ -81,6 +81,16 @@ double SequenceModel::loss_units(const data::Batch& batch) const {
 
 double SequenceModel::train_batch(const data::Batch& batch, std::span<const data::EncodedExample> examples,
                                   int bptt_window, double normalizer, Rng& dropout_rng) {
+  return train_batch(batch, Targets{examples, nullptr}, bptt_window, normalizer, dropout_rng);
+}
+
+double SequenceModel::train_batch(const data::Batch& batch, const data::EncodedCorpus& examples,
+                                  int bptt_window, double normalizer, Rng& dropout_rng) {
+  return train_batch(batch, Targets{{}, &examples}, bptt_window, normalizer, dropout_rng);
+}
+
+double SequenceModel::train_batch(const data::Batch& batch, const Targets& targets, int bptt_window,
+                                  double normalizer, Rng& dropout_rng) {
   GYRE_CHECK(normalizer > 0, "train_batch: normalizer must be positive");
   const auto windows = data::make_windows(batch, bptt_window);
   const int B = batch.batch;
@@ -130,14 +140,13 @@ double SequenceModel::train_batch(const data::Batch& batch, std::span<const data
     }
     // A classifier's loss only sees the last window; earlier windows just carry the state.
     if (spec_.task == data::Task::kClassify && !win.last) continue;
-    loss_sum += window_loss_and_grad(active_, batch, win, examples, Tw, normalizer, dropout_rng);
+    loss_sum += window_loss_and_grad(active_, batch, win, targets, Tw, normalizer, dropout_rng);
   }
   return loss_sum;
 }
 
 double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const data::Batch& batch,
-                                           const data::Window& win,
-                                           std::span<const data::EncodedExample> examples, int Tw,
+                                           const data::Window& win, const Targets& targets_of, int Tw,
                                            double normalizer, Rng& dropout_rng) {
   const int Bw = static_cast<int>(active.size());
   nn::CrossEntropyOptions ce;
@@ -151,17 +160,18 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
     if (spec_.output == OutputKind::kSigmoid) {
       multi_hot_.setZero(Bw, spec_.num_labels());
       for (int i = 0; i < Bw; ++i) {
-        const auto& ex =
-            examples[batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]];
-        for (const auto label : ex.targets) multi_hot_(i, label) = 1.0f;
+        for (const auto label :
+             targets_of(batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]))
+          multi_hot_(i, label) = 1.0f;
       }
       loss_sum = nn::sigmoid_binary_cross_entropy(logits_, multi_hot_, d_logits_) * Bw;
     } else {
       targets_.resize(static_cast<std::size_t>(Bw));
       for (int i = 0; i < Bw; ++i) {
-        const auto& ex =
-            examples[batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]];
-        targets_[static_cast<std::size_t>(i)] = ex.targets.at(0);
+        const auto labels =
+            targets_of(batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]);
+        GYRE_CHECK(!labels.empty(), "an encoded example has no label");
+        targets_[static_cast<std::size_t>(i)] = labels[0];
       }
       loss_sum = nn::softmax_cross_entropy(logits_, targets_, d_logits_, ce) * Bw;
     }
@@ -176,10 +186,12 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
     std::size_t tokens = 0;
     for (int i = 0; i < Bw; ++i) {
       const auto b = static_cast<std::size_t>(active[static_cast<std::size_t>(i)]);
-      const auto& ex = examples[batch.examples[b]];
+      const auto tags = targets_of(batch.examples[b]);
+      GYRE_CHECK(
+          static_cast<std::size_t>(win.start[b] + lengths_[static_cast<std::size_t>(i)]) <= tags.size(),
+          "an encoded example has fewer tags than tokens");
       for (int t = 0; t < lengths_[static_cast<std::size_t>(i)]; ++t)
-        targets_[static_cast<std::size_t>(t * Bw + i)] =
-            ex.targets.at(static_cast<std::size_t>(win.start[b] + t));
+        targets_[static_cast<std::size_t>(t * Bw + i)] = tags[static_cast<std::size_t>(win.start[b] + t)];
       tokens += static_cast<std::size_t>(lengths_[static_cast<std::size_t>(i)]);
     }
     if (crf_) {

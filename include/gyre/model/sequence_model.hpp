@@ -16,6 +16,7 @@
 
 #include "gyre/core/rng.hpp"
 #include "gyre/data/batcher.hpp"
+#include "gyre/data/encoded_corpus.hpp"
 #include "gyre/model/spec.hpp"
 #include "gyre/nn/char_cnn.hpp"
 #include "gyre/nn/crf.hpp"
@@ -90,6 +91,9 @@ class SequenceModel {
   /// batch's losses (in loss_units). Throws gyre::DivergenceError if the loss is not finite.
   double train_batch(const data::Batch& batch, std::span<const data::EncodedExample> examples,
                      int bptt_window, double normalizer, Rng& dropout_rng);
+  /// Same over an arena (batch filled from `examples` by data::fill_batch).
+  double train_batch(const data::Batch& batch, const data::EncodedCorpus& examples, int bptt_window,
+                     double normalizer, Rng& dropout_rng);
 
   /// Inference (no dropout, full sequences). probs are calibrated by spec().temperature when it
   /// is set and calibrated() is on (the default).
@@ -126,9 +130,19 @@ class SequenceModel {
   void embed(const data::Batch& batch);
   /// Gradient of x_ (d_x_) into the embedding and the character encoder.
   void embed_backward();
+  // The targets of example i of the batch's source: a vector of examples or an arena.
+  struct Targets {
+    std::span<const data::EncodedExample> vector;
+    const data::EncodedCorpus* arena = nullptr;
+    std::span<const std::int32_t> operator()(std::size_t i) const {
+      return arena != nullptr ? arena->targets(i) : std::span<const std::int32_t>(vector[i].targets);
+    }
+  };
+  double train_batch(const data::Batch& batch, const Targets& targets, int bptt_window, double normalizer,
+                     Rng& dropout_rng);
   double window_loss_and_grad(const std::vector<int>& active, const data::Batch& batch,
-                              const data::Window& win, std::span<const data::EncodedExample> examples, int Tw,
-                              double normalizer, Rng& dropout_rng);
+                              const data::Window& win, const Targets& targets, int Tw, double normalizer,
+                              Rng& dropout_rng);
 
   ModelSpec spec_;
   nn::ParameterStore params_;
