@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <functional>
 #include <limits>
 #include <map>
 
@@ -270,13 +271,44 @@ void NgramClassifier::ngrams(std::span<const std::string> tokens, int order, std
   runtime::ngram_keys(std::vector<std::string>(tokens.begin(), tokens.end()), order, out);
 }
 
+namespace {
+// Any 32-bit hash will do: fingerprints only decide which keys are stored, never the fit.
+std::uint32_t fingerprint(std::string_view key) {
+  const std::size_t h = std::hash<std::string_view>{}(key);
+  return static_cast<std::uint32_t>(h ^ (h >> 32));
+}
+}  // namespace
+
+void NgramClassifier::count(std::span<const std::string> tokens) {
+  GYRE_CHECK(labels_.empty() && !filtered_, "NgramClassifier::count() after add()");
+  std::vector<std::string> keys;
+  ngrams(tokens, order_, keys);
+  const std::size_t begin = counted_.size();
+  for (const auto& key : keys) counted_.push_back(fingerprint(key));
+  std::sort(counted_.begin() + static_cast<std::ptrdiff_t>(begin), counted_.end());
+  counted_.erase(std::unique(counted_.begin() + static_cast<std::ptrdiff_t>(begin), counted_.end()),
+                 counted_.end());
+}
+
 void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t label) {
   GYRE_CHECK(label >= 0, "negative label");
+  if (!counted_.empty()) {  // the counting pass is over: keep the fingerprints counted >= min_df times
+    std::sort(counted_.begin(), counted_.end());
+    for (std::size_t i = 0; i < counted_.size();) {
+      std::size_t j = i + 1;
+      while (j < counted_.size() && counted_[j] == counted_[i]) ++j;
+      if (static_cast<std::ptrdiff_t>(j - i) >= min_df_) candidates_.push_back(counted_[i]);
+      i = j;
+    }
+    std::vector<std::uint32_t>().swap(counted_);
+    filtered_ = true;
+  }
   std::vector<std::string> keys;
   ngrams(tokens, order_, keys);
   std::vector<std::int32_t> ids;
   ids.reserve(keys.size());
   for (auto& key : keys) {
+    if (filtered_ && !std::binary_search(candidates_.begin(), candidates_.end(), fingerprint(key))) continue;
     const auto [it, fresh] = key_ids_.try_emplace(std::move(key), static_cast<std::int32_t>(key_ids_.size()));
     if (fresh) key_df_.push_back(0);
     ids.push_back(it->second);
@@ -384,6 +416,7 @@ void NgramClassifier::release_examples() {
   std::vector<std::int32_t>().swap(entry_keys_);
   std::vector<std::int32_t>().swap(entry_counts_);
   std::vector<std::int32_t>().swap(labels_);
+  std::vector<std::uint32_t>().swap(candidates_);
 }
 
 std::int32_t NgramClassifier::predict(std::span<const std::string> tokens) const {

@@ -31,11 +31,14 @@ std::string format_c(double c) {
 
 }  // namespace
 
+bool in_dev_split(const data::Example& example, double dev_fraction) {
+  return example_hash(example) % 1000000 < static_cast<std::uint64_t>(dev_fraction * 1e6);
+}
+
 void split_dev_by_hash(std::vector<data::Example>& examples, double dev_fraction,
                        std::vector<data::Example>& dev) {
-  const auto threshold = static_cast<std::uint64_t>(dev_fraction * 1e6);
   std::vector<data::Example> keep;
-  for (auto& ex : examples) (example_hash(ex) % 1000000 < threshold ? dev : keep).push_back(std::move(ex));
+  for (auto& ex : examples) (in_dev_split(ex, dev_fraction) ? dev : keep).push_back(std::move(ex));
   examples = std::move(keep);
 }
 
@@ -62,6 +65,13 @@ struct LinearBaseline::Impl {
     std::vector<std::string> toks;
     classifier = eval::NgramClassifier(2, ngram_order);
     tagger = eval::WindowTagger();
+    // Classifiers: a first pass counts n-gram fingerprints, so the n-grams of one example only
+    // (most of a large corpus's) are never stored (gyre/eval/linear_baseline.hpp).
+    if (task == data::Task::kClassify)
+      train([&](const data::Example& ex) {
+        tokens(ex, path, toks);
+        classifier.count(toks);
+      });
     train([&](const data::Example& ex) {
       if (task == data::Task::kClassify && ex.labels.size() != 1)
         throw ConfigError("baseline", "the linear baseline needs single-label examples (" + path + " line " +
@@ -216,12 +226,12 @@ ExampleStream read_run_split(const TrainConfig& config, bool dev_split, data::Ta
   const bool from_dev_file = dev_split && !config.dev.empty();
   const std::string path = from_dev_file ? config.dev : config.train;
   const bool split = config.dev.empty();
-  const auto threshold = static_cast<std::uint64_t>(config.dev_fraction * 1e6);
+  const double fraction = config.dev_fraction;
   // Training repairs the training split, and the dev split only when it comes from its own file.
   const bool repair = config.repair_tags && scheme != data::TagScheme::kNone && (!dev_split || from_dev_file);
   return [=](const ExampleVisitor& visit) {
     data::read_corpus(path, options, [&](data::Example&& ex) {
-      if (split && (example_hash(ex) % 1000000 < threshold) != dev_split) return;
+      if (split && in_dev_split(ex, fraction) != dev_split) return;
       if (repair && !data::check_tags(ex.tags, scheme).empty()) ex.tags = data::repair_tags(ex.tags, scheme);
       visit(ex);
     });

@@ -16,6 +16,7 @@
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
 #include "gyre/core/rng.hpp"
+#include "gyre/data/encoded_corpus.hpp"
 #include "gyre/data/encoder.hpp"
 #include "gyre/data/reader.hpp"
 #include "gyre/data/tag_scheme.hpp"
@@ -52,38 +53,41 @@ struct PreparedData {
   data::Task task = data::Task::kClassify;
   bool multi_label = false;
   data::TagScheme tag_scheme = data::TagScheme::kNone;
-  std::vector<data::EncodedExample> train, dev;
+  data::EncodedCorpus train;  // the training split in one arena (data/encoded_corpus.hpp)
+  std::vector<data::EncodedExample> dev;
   std::uint64_t fingerprint = 0;  // of the encoded training data (resume checks it)
   std::size_t repaired = 0;
-  std::vector<data::Example> dev_examples;  // as read (for the texts of dev mistakes)
-  json cut_examples = json::object();       // examples max_tokens cut, by file
+  json cut_examples = json::object();  // examples max_tokens cut, by file
 };
+
+// Skipped records are a warning, so --quiet does not hide it: data was left out of training.
+void warn_about_skipped(const std::string& path, const data::ReadReport& report, ProgressLine& progress) {
+  if (report.skipped == 0) return;
+  std::string lines;
+  for (const auto line : report.first_skipped_lines)
+    lines += (lines.empty() ? "" : ", ") + std::to_string(line);
+  progress.warn(path + ": skipped " + std::to_string(report.skipped) + " bad record(s) (lines " + lines +
+                (report.skipped > report.first_skipped_lines.size() ? ", ..." : "") + ")");
+}
 
 std::vector<data::Example> read_examples(const std::string& path, const TrainConfig& config,
                                          ProgressLine& progress, data::ReadReport& report) {
   std::vector<data::Example> examples;
   const data::ReadOptions options = read_options(config);
   report = data::read_corpus(path, options, [&](data::Example&& ex) { examples.push_back(std::move(ex)); });
-  if (report.skipped > 0) {
-    std::string lines;
-    for (const auto line : report.first_skipped_lines)
-      lines += (lines.empty() ? "" : ", ") + std::to_string(line);
-    // A warning, so --quiet does not hide it: data was left out of training.
-    progress.warn(path + ": skipped " + std::to_string(report.skipped) + " bad record(s) (lines " + lines +
-                  (report.skipped > report.first_skipped_lines.size() ? ", ..." : "") + ")");
-  }
+  warn_about_skipped(path, report, progress);
   if (examples.empty()) throw ParseError(path, 0, "no examples in the file");
   return examples;
 }
 
 // Names the examples that max_tokens cut (the model sees only their first max_tokens tokens);
 // returns the same as JSON for metrics.json: {path: {"count": n, "first_lines": [...]}}.
-json warn_about_cuts(const std::vector<data::EncodedExample>& train, const std::string& train_path,
+json warn_about_cuts(const data::EncodedCorpus& train, const std::string& train_path,
                      const std::vector<data::EncodedExample>& dev, const std::string& dev_path,
                      std::size_t max_tokens, ProgressLine& progress) {
   std::map<std::string, std::vector<std::size_t>> cut;  // path -> lines
-  for (const auto& ex : train)
-    if (ex.cut) cut[train_path].push_back(ex.source_line);
+  for (std::size_t i = 0; i < train.size(); ++i)
+    if (train.cut(i)) cut[train_path].push_back(train.source_line(i));
   for (const auto& ex : dev)
     if (ex.cut) cut[dev_path].push_back(ex.source_line);
   json record = json::object();
@@ -113,12 +117,12 @@ constexpr double kUnknownShareWarning = 0.5;
 
 // --min-count or --max-vocab-size that leave (almost) nothing to learn from train a model that
 // sees mostly <unk>: say so before the time is spent.
-void warn_about_small_vocabulary(const std::vector<data::EncodedExample>& train, const text::VocabFile& vocab,
+void warn_about_small_vocabulary(const data::EncodedCorpus& train, const text::VocabFile& vocab,
                                  const TrainConfig& config, ProgressLine& progress) {
   std::size_t tokens = 0, unknown = 0;
-  for (const auto& ex : train) {
-    tokens += ex.ids.size();
-    for (const auto id : ex.ids) unknown += id == text::Vocab::kUnk;
+  for (std::size_t i = 0; i < train.size(); ++i) {
+    tokens += train.length(i);
+    for (const auto id : train.ids(i)) unknown += id == text::Vocab::kUnk;
   }
   if (tokens == 0 || static_cast<double>(unknown) <= kUnknownShareWarning * static_cast<double>(tokens))
     return;
@@ -137,17 +141,25 @@ void warn_about_small_vocabulary(const std::vector<data::EncodedExample>& train,
                 ") become <unk>; a lower --min-count keeps more words");
 }
 
+// Checks one BIO/BIOES sequence: true when it needs repair and repair_tags is on; without
+// repair_tags an invalid sequence is refused naming file:line of the token.
+bool needs_tag_repair(const data::Example& ex, const std::string& path, data::TagScheme scheme, bool repair,
+                      bool columns_format) {
+  const auto issues = data::check_tags(ex.tags, scheme);
+  if (issues.empty()) return false;
+  if (!repair) {
+    const std::size_t line = columns_format ? ex.line + issues.front().position : ex.line;
+    throw ParseError(path, line, issues.front().message + " (--repair-tags fixes such sequences)");
+  }
+  return true;
+}
+
 // Checks (and with repair_tags fixes) BIO/BIOES sequences; reports file:line of the token.
 std::size_t check_tag_sequences(std::vector<data::Example>& examples, const std::string& path,
                                 data::TagScheme scheme, bool repair, bool columns_format) {
   std::size_t repaired = 0;
   for (auto& ex : examples) {
-    const auto issues = data::check_tags(ex.tags, scheme);
-    if (issues.empty()) continue;
-    if (!repair) {
-      const std::size_t line = columns_format ? ex.line + issues.front().position : ex.line;
-      throw ParseError(path, line, issues.front().message + " (--repair-tags fixes such sequences)");
-    }
+    if (!needs_tag_repair(ex, path, scheme, repair, columns_format)) continue;
     ex.tags = data::repair_tags(ex.tags, scheme);
     ++repaired;
   }
@@ -172,53 +184,9 @@ void check_vocab_tokenizer(const std::string& path, const text::TokenizerSetting
   differ("max_tokens", std::to_string(file.max_tokens), std::to_string(run.max_tokens));
 }
 
-// The dev split: config.dev when given (same task as the training file), else a deterministic
-// split of train_examples by a hash of each example (independent of --seed, so runs with
-// different seeds share it).
-std::vector<data::Example> read_or_split_dev(const TrainConfig& config, ProgressLine& progress,
-                                             data::Task task, std::vector<data::Example>& train_examples,
-                                             data::ReadReport& dev_report) {
-  std::vector<data::Example> dev_examples;
-  if (!config.dev.empty()) {
-    dev_examples = read_examples(config.dev, config, progress, dev_report);
-    if (dev_report.task != task)
-      throw ConfigError("dev", config.dev + " is a " + std::string(data::to_string(dev_report.task)) +
-                                   " corpus but the training file is a " + data::to_string(task) + " corpus");
-  } else {
-    split_dev_by_hash(train_examples, config.dev_fraction, dev_examples);
-    if (dev_examples.empty() || train_examples.empty())
-      throw ConfigError("dev_fraction",
-                        "splitting " + config.train + " left an empty train or dev part; give --dev FILE");
-  }
-  return dev_examples;
-}
-
-// Taggers: the scheme the training tags use (BIOES if any E- or S- tag), and every sequence
-// checked against it (repaired with --repair-tags, else refused naming the line).
-void check_tagging(const TrainConfig& config, ProgressLine& progress, const data::ReadReport& train_report,
-                   const data::ReadReport& dev_report, std::vector<data::Example>& train_examples,
-                   std::vector<data::Example>& dev_examples, PreparedData& out) {
-  bool bioes = false;
-  for (const auto& ex : train_examples)
-    for (const auto& tag : ex.tags) {
-      const auto parts = data::split_tag(tag);
-      bioes = bioes || parts.prefix == 'E' || parts.prefix == 'S';
-    }
-  const auto scheme = bioes ? data::TagScheme::kBioes : data::TagScheme::kBio;
-  out.tag_scheme = scheme;
-  const bool columns = train_report.format == data::CorpusFormat::kColumns;
-  out.repaired = check_tag_sequences(train_examples, config.train, scheme, config.repair_tags, columns);
-  if (!config.dev.empty())
-    out.repaired += check_tag_sequences(dev_examples, config.dev, scheme, config.repair_tags,
-                                        dev_report.format == data::CorpusFormat::kColumns);
-  if (out.repaired > 0)
-    progress.note("repaired invalid tag transitions in " + std::to_string(out.repaired) + " sentence(s)");
-}
-
 // The run's vocabulary: a resumed run's own, a `gyre vocab` file given with --vocab, or built
 // from the training split only (the configured tokenizer, token and label counts).
-text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task,
-                              const std::vector<data::Example>& train_examples,
+text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task, const ExampleStream& train_split,
                               const text::VocabFile* saved_vocab) {
   const bool chars = config.char_encoder.value_or(false);  // resolved by prepare_data
   if (saved_vocab != nullptr) {
@@ -255,17 +223,17 @@ text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task,
   text::CharacterListBuilder characters;
   text::LabelCounts labels;
   std::vector<std::string> tokens, surfaces;
-  for (const auto& ex : train_examples) {
+  train_split([&](const data::Example& ex) {
     if (chars) {
       tokenizing.tokens(ex, config.train, tokens, surfaces);
       for (const auto& s : surfaces) characters.add(s);
     } else {
       tokenizing.tokens(ex, config.train, tokens);
     }
-    if (given) continue;
+    if (given) return;
     builder.add(tokens);
     for (const auto& l : task == data::Task::kClassify ? ex.labels : ex.tags) ++labels[l];
-  }
+  });
   if (chars) vocab.characters = characters.build(kMinCharacterCount, 0);
   if (given) return vocab;
   vocab.vocab = builder.build(static_cast<std::uint64_t>(config.min_count),
@@ -278,11 +246,14 @@ text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task,
 // too small to learn from, and the fingerprint of the encoded training data (a resumed run
 // checks it).
 void encode_splits(const TrainConfig& config, ProgressLine& progress, bool saved_vocab,
-                   const std::vector<data::Example>& train_examples,
+                   const ExampleStream& train_split, std::size_t train_count,
                    const std::vector<data::Example>& dev_examples, PreparedData& out) {
   const data::Encoder encoder(out.vocab, out.task);
-  out.train.reserve(train_examples.size());
-  for (const auto& ex : train_examples) out.train.push_back(encoder.encode(ex, config.train));
+  train_split([&](const data::Example& ex) { out.train.add(encoder.encode(ex, config.train)); });
+  if (out.train.size() != train_count)
+    throw IoError(config.train + ": the file changed while it was read: " + std::to_string(out.train.size()) +
+                  " training examples instead of " + std::to_string(train_count));
+  out.train.shrink_to_fit();
   out.dev.reserve(dev_examples.size());
   const std::string& dev_source = config.dev.empty() ? config.train : config.dev;
   for (const auto& ex : dev_examples) out.dev.push_back(encoder.encode(ex, dev_source));
@@ -291,19 +262,50 @@ void encode_splits(const TrainConfig& config, ProgressLine& progress, bool saved
   if (!saved_vocab) warn_about_small_vocabulary(out.train, out.vocab, config, progress);
 
   std::uint64_t h = 0;
-  for (const auto& ex : out.train) {
-    h = stable_hash(ex.ids.data(), ex.ids.size() * sizeof(std::int32_t), h);
-    h = stable_hash(ex.targets.data(), ex.targets.size() * sizeof(std::int32_t), h);
-    if (!ex.char_ids.empty())
-      h = stable_hash(ex.char_ids.data(), ex.char_ids.size() * sizeof(std::int32_t), h);
+  for (std::size_t i = 0; i < out.train.size(); ++i) {
+    const auto ids = out.train.ids(i), targets = out.train.targets(i), chars = out.train.example_char_ids(i);
+    h = stable_hash(ids.data(), ids.size() * sizeof(std::int32_t), h);
+    h = stable_hash(targets.data(), targets.size() * sizeof(std::int32_t), h);
+    if (!chars.empty()) h = stable_hash(chars.data(), chars.size() * sizeof(std::int32_t), h);
   }
   out.fingerprint = h;
 }
 
+// Reads the data without holding the training split's text (issue 13, "Scale"): the training
+// file is read once for its task, the dev part of a hash split (config.dev empty: a split by a
+// hash of each example, independent of --seed, so runs with different seeds share it) and the
+// evidence for the tag scheme; taggers once more to check (and with repair_tags count the
+// repairs of) their sequences; once to count the vocabulary (unless a resumed run or --vocab
+// gives it); once to encode into the arena. Each pass sees the same examples (read_run_split),
+// repaired alike.
 PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const text::VocabFile* saved_vocab) {
   PreparedData out;
-  data::ReadReport train_report;
-  auto train_examples = read_examples(config.train, config, progress, train_report);
+  std::error_code ec;
+  if (fs::exists(config.train, ec) && !fs::is_regular_file(config.train, ec))
+    throw ConfigError("train",
+                      config.train +
+                          " is not a regular file (a pipe or a device): gyre train reads the training "
+                          "file more than once; save it to a file first");
+  const data::ReadOptions options = read_options(config);
+  const bool split = config.dev.empty();
+  std::vector<data::Example> dev_examples;
+  std::size_t read_count = 0, train_count = 0;
+  bool several_labels = false, bioes = false;
+  const data::ReadReport train_report = data::read_corpus(config.train, options, [&](data::Example&& ex) {
+    ++read_count;
+    if (split && in_dev_split(ex, config.dev_fraction)) {
+      dev_examples.push_back(std::move(ex));
+      return;
+    }
+    ++train_count;
+    several_labels = several_labels || ex.labels.size() != 1;
+    for (const auto& tag : ex.tags) {
+      const auto parts = data::split_tag(tag);
+      bioes = bioes || parts.prefix == 'E' || parts.prefix == 'S';
+    }
+  });
+  warn_about_skipped(config.train, train_report, progress);
+  if (read_count == 0) throw ParseError(config.train, 0, "no examples in the file");
   out.task = train_report.task;
   if (config.task && *config.task != out.task)
     throw ConfigError("task", std::string("'") + data::to_string(*config.task) + "' does not fit " +
@@ -312,17 +314,37 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
   config.task = out.task;
 
   data::ReadReport dev_report;
-  std::vector<data::Example> dev_examples =
-      read_or_split_dev(config, progress, out.task, train_examples, dev_report);
-  for (const auto& ex : train_examples)
-    if (ex.labels.size() != 1 && out.task == data::Task::kClassify) out.multi_label = true;
-  if (out.task == data::Task::kTag)
-    check_tagging(config, progress, train_report, dev_report, train_examples, dev_examples, out);
+  if (!split) {
+    dev_examples = read_examples(config.dev, config, progress, dev_report);
+    if (dev_report.task != out.task)
+      throw ConfigError("dev", config.dev + " is a " + std::string(data::to_string(dev_report.task)) +
+                                   " corpus but the training file is a " + data::to_string(out.task) +
+                                   " corpus");
+  } else if (dev_examples.empty() || train_count == 0) {
+    throw ConfigError("dev_fraction",
+                      "splitting " + config.train + " left an empty train or dev part; give --dev FILE");
+  }
+  out.multi_label = several_labels && out.task == data::Task::kClassify;
+  if (out.task == data::Task::kTag) {
+    // Taggers: the scheme the training tags use (BIOES if any E- or S- tag), and every sequence
+    // checked against it (repaired with --repair-tags, else refused naming the line).
+    const auto scheme = bioes ? data::TagScheme::kBioes : data::TagScheme::kBio;
+    out.tag_scheme = scheme;
+    const bool columns = train_report.format == data::CorpusFormat::kColumns;
+    read_run_split(config, false, data::TagScheme::kNone)([&](const data::Example& ex) {
+      out.repaired += needs_tag_repair(ex, config.train, scheme, config.repair_tags, columns) ? 1 : 0;
+    });
+    if (!split)
+      out.repaired += check_tag_sequences(dev_examples, config.dev, scheme, config.repair_tags,
+                                          dev_report.format == data::CorpusFormat::kColumns);
+    if (out.repaired > 0)
+      progress.note("repaired invalid tag transitions in " + std::to_string(out.repaired) + " sentence(s)");
+  }
 
   config.char_encoder = resolve_char_encoder(config, out.task);
-  out.vocab = resolve_vocab(config, out.task, train_examples, saved_vocab);
-  encode_splits(config, progress, saved_vocab != nullptr, train_examples, dev_examples, out);
-  out.dev_examples = std::move(dev_examples);
+  const ExampleStream train_split = read_run_split(config, false, out.tag_scheme);
+  out.vocab = resolve_vocab(config, out.task, train_split, saved_vocab);
+  encode_splits(config, progress, saved_vocab != nullptr, train_split, train_count, dev_examples, out);
   return out;
 }
 
@@ -381,7 +403,7 @@ std::string gib(double bytes) {
 // would need, instead of "out of memory" (exit 1) after minutes of allocation or swapping.
 void check_memory(const model::ModelSpec& spec, const TrainConfig& config, const PreparedData& data) {
   std::size_t longest = 1;
-  for (const auto& ex : data.train) longest = std::max(longest, ex.ids.size());
+  for (std::size_t i = 0; i < data.train.size(); ++i) longest = std::max(longest, data.train.length(i));
   if (config.max_length > 0) longest = std::min(longest, static_cast<std::size_t>(config.max_length));
   const MemoryEstimate m = estimate_memory(spec, config, longest, data.train.size());
   const double limit = memory_limit_bytes();
@@ -451,8 +473,8 @@ model::LossOptions make_loss_options(const TrainConfig& config, const PreparedDa
     // compute_class_weight documents it; n_c counts training labels (tags for taggers).
     std::vector<double> counts(static_cast<std::size_t>(spec.num_labels()), 0.0);
     double total = 0;
-    for (const auto& ex : data.train)
-      for (const auto t : ex.targets) {
+    for (std::size_t i = 0; i < data.train.size(); ++i)
+      for (const auto t : data.train.targets(i)) {
         counts[static_cast<std::size_t>(t)] += 1;
         total += 1;
       }
@@ -1219,26 +1241,27 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
     // The training split is read again from its file, one example at a time: the run holds only
     // its encoded examples, and the baseline only its interned n-gram rows.
     const ExampleStream train_split = read_run_split(config_, false, data_.tag_scheme);
-    std::size_t examples_read = 0;
     const auto baseline = LinearBaseline::fit(
         data_.vocab, data_.task,
         [&](const ExampleVisitor& visit) {
+          std::size_t examples_read = 0;  // per pass: the baseline may read the split more than once
           train_split([&](const data::Example& ex) {
             ++examples_read;
             visit(ex);
           });
+          if (examples_read != data_.train.size())
+            throw IoError(config_.train +
+                          ": the file changed during training: read again for the linear baseline, it has " +
+                          std::to_string(examples_read) + " training examples instead of " +
+                          std::to_string(data_.train.size()));
         },
-        config_.train, stream_of(data_.dev_examples), dev_path, 0, ngram_order_for(config_));
-    if (examples_read != data_.train.size())
-      throw IoError(config_.train +
-                    ": the file changed during training: read again for the linear baseline, it has " +
-                    std::to_string(examples_read) + " training examples instead of " +
-                    std::to_string(data_.train.size()));
+        config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0,
+        ngram_order_for(config_));
     result.final_metrics["baseline"] = {
         {"name", baseline.description()},
         {"c", baseline.c()},
         {"features", baseline.feature_count()},
-        {"dev", baseline.score(data_.dev_examples, dev_path)},
+        {"dev", baseline.score(read_run_split(config_, true, data_.tag_scheme), dev_path)},
         {"seconds", std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count()}};
   }
   if (state_.best_epoch > 0) {
@@ -1260,10 +1283,21 @@ json Run::dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev) {
     return dev.predictions[a].confidence > dev.predictions[b].confidence;
   });
   if (wrong.size() > kShown) wrong.resize(kShown);
+  // Their texts: the dev split read again (the run keeps only its encoded examples).
+  std::map<std::size_t, data::Example> texts;
+  for (const std::size_t i : wrong) texts[i];
+  std::size_t index = 0;
+  read_run_split(config_, true, data_.tag_scheme)([&](const data::Example& ex) {
+    if (const auto it = texts.find(index++); it != texts.end()) it->second = ex;
+  });
+  if (index != data_.dev.size())
+    throw IoError((config_.dev.empty() ? config_.train : config_.dev) +
+                  ": the file changed during training: read again for the dev mistakes, it has " +
+                  std::to_string(index) + " dev examples instead of " + std::to_string(data_.dev.size()));
   const data::Encoder encoder(data_.vocab, data::Task::kClassify);
   json out = json::array();
   for (const std::size_t i : wrong) {
-    const data::Example& ex = data_.dev_examples[i];
+    const data::Example& ex = texts.at(i);
     std::vector<std::string> tokens;
     data::EncodedExample encoded;
     encoder.encode_text(ex.text, tokens, encoded);

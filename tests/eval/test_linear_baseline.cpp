@@ -257,42 +257,62 @@ TEST_CASE("n-gram classifier: interned rows give the model the string features g
   std::vector<std::vector<std::string>> texts;
   std::vector<std::int32_t> labels;
   synthetic_texts(texts, labels);
-  for (const int min_df : {1, 2, 5}) {
-    SECTION("min_df " + std::to_string(min_df)) {
-      gyre::eval::NgramClassifier clf(min_df);
-      for (std::size_t i = 0; i < texts.size(); ++i) clf.add(texts[i], labels[i]);
-      // Storage: one (key, count) entry per distinct n-gram of each example, one copy of each key.
-      std::set<std::string> all;
-      std::size_t entries = 0;
-      std::vector<std::string> keys;
-      for (const auto& t : texts) {
-        gyre::eval::NgramClassifier::ngrams(t, 2, keys);
-        const std::set<std::string> distinct(keys.begin(), keys.end());
-        entries += distinct.size();
-        all.insert(distinct.begin(), distinct.end());
+  for (const int min_df : {1, 2, 5})
+    for (const bool counted : {false, true}) {
+      SECTION("min_df " + std::to_string(min_df) + (counted ? ", counting pass" : "")) {
+        gyre::eval::NgramClassifier clf(min_df);
+        if (counted)
+          for (const auto& t : texts) clf.count(t);
+        for (std::size_t i = 0; i < texts.size(); ++i) clf.add(texts[i], labels[i]);
+        CHECK_THROWS_AS(clf.count(texts[0]), gyre::Error);  // counting comes before add()
+        // Storage: one (key, count) entry per distinct n-gram of each example, one copy of each
+        // key; with the counting pass only keys whose fingerprint reaches min_df, which include
+        // every key held by >= min_df examples.
+        std::map<std::string, int> df;
+        std::size_t entries = 0, kept_entries = 0;
+        std::vector<std::string> keys;
+        for (const auto& t : texts) {
+          gyre::eval::NgramClassifier::ngrams(t, 2, keys);
+          const std::set<std::string> distinct(keys.begin(), keys.end());
+          entries += distinct.size();
+          for (const auto& k : distinct) ++df[k];
+        }
+        std::size_t kept = 0;
+        for (const auto& [k, n] : df)
+          if (n >= min_df) {
+            ++kept;
+            kept_entries += static_cast<std::size_t>(n);
+          }
+        CHECK(clf.example_count() == texts.size());
+        if (!counted || min_df == 1) {
+          CHECK(clf.entry_count() == entries);
+          CHECK(clf.key_count() == df.size());
+        } else {
+          CHECK(clf.entry_count() >= kept_entries);
+          CHECK(clf.entry_count() < entries);
+          CHECK(clf.key_count() >= kept);
+          CHECK(clf.key_count() < df.size());
+        }
+        // Fitting again with another C on the same stored examples gives a fresh fit's model.
+        for (const double c : {1.0, 100.0, 10.0}) {
+          LbfgsOptions options;
+          options.c = c;
+          clf.fit(3, options);
+          std::size_t features = 0;
+          const auto expected = fit_from_strings(texts, labels, 3, min_df, options, features);
+          CHECK(clf.feature_count() == features);
+          CHECK(clf.feature_count() == kept);
+          CHECK(same_model(clf.model(), expected));
+        }
+        const auto before = clf.probabilities(texts[7]);
+        clf.release_examples();
+        CHECK(clf.example_count() == 0);
+        CHECK(clf.entry_count() == 0);
+        CHECK(clf.key_count() == 0);
+        CHECK(clf.probabilities(texts[7]) == before);  // the fitted model is kept (exact)
+        CHECK_THROWS_AS(clf.fit(3, LbfgsOptions{}), gyre::Error);
       }
-      CHECK(clf.example_count() == texts.size());
-      CHECK(clf.entry_count() == entries);
-      CHECK(clf.key_count() == all.size());
-      // Fitting again with another C on the same stored examples gives a fresh fit's model.
-      for (const double c : {1.0, 100.0, 10.0}) {
-        LbfgsOptions options;
-        options.c = c;
-        clf.fit(3, options);
-        std::size_t features = 0;
-        const auto expected = fit_from_strings(texts, labels, 3, min_df, options, features);
-        CHECK(clf.feature_count() == features);
-        CHECK(same_model(clf.model(), expected));
-      }
-      const auto before = clf.probabilities(texts[7]);
-      clf.release_examples();
-      CHECK(clf.example_count() == 0);
-      CHECK(clf.entry_count() == 0);
-      CHECK(clf.key_count() == 0);
-      CHECK(clf.probabilities(texts[7]) == before);  // the fitted model is kept (exact)
-      CHECK_THROWS_AS(clf.fit(3, LbfgsOptions{}), gyre::Error);
     }
-  }
 }
 
 TEST_CASE("window tagger: interned keys give the model the string features give", "[baseline]") {

@@ -74,10 +74,19 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
 /// prunes by min_df and numbers the kept keys in sorted order, so the fitted model is the one
 /// a fit over the examples' strings gives. fit() may be called again (another C) on the same
 /// examples; release_examples() frees them once no more fits are needed.
+///
+/// Most distinct n-grams of a large corpus occur in one example only and are pruned by min_df.
+/// An optional first pass, count(), over the same examples before any add() counts the examples
+/// holding each key by a 32-bit fingerprint of it; add() then stores only keys whose fingerprint
+/// count reaches min_df. Examples sharing a fingerprint only raise its count, so those keys are a
+/// superset of the keys fit() keeps, and the fit is the same with or without the pass.
 class NgramClassifier {
  public:
   /// order: highest n-gram order, in [1, runtime::kMaxNgramOrder] (throws gyre::Error otherwise).
   explicit NgramClassifier(int min_df = 2, int order = 2);
+  /// First pass (optional): one call per training example, in any order, all before add().
+  /// Throws gyre::Error after add().
+  void count(std::span<const std::string> tokens);
   /// Adds one training example; `label` is an index in [0, classes).
   void add(std::span<const std::string> tokens, std::int32_t label);
   /// Builds the feature index from the examples added and fits. Throws gyre::Error if fewer
@@ -121,6 +130,11 @@ class NgramClassifier {
   std::unordered_map<std::string, std::int32_t> index_;  // kept key -> feature column
   LinearModel model_;
   double c_ = 0;
+  // count(): one fingerprint per (example, distinct fingerprint); at the first add() reduced to
+  // the sorted fingerprints counted in >= min_df examples.
+  std::vector<std::uint32_t> counted_;
+  std::vector<std::uint32_t> candidates_;
+  bool filtered_ = false;
 };
 
 /// The word shape of a token: ASCII upper-case letters -> 'X', ASCII lower-case -> 'x', ASCII

@@ -25,8 +25,11 @@ namespace gyre::train {
 
 inline constexpr double kBaselinePenaltyGrid[] = {1.0, 10.0, 100.0};
 
-/// Splits `examples` into (kept, dev) by a hash of each example exactly as `gyre train` does
-/// without --dev (independent of the seed): example goes to dev when hash % 1e6 < fraction * 1e6.
+/// Whether `gyre train` without --dev puts the example in the dev split (independent of the
+/// seed): when a hash of its text, labels and tags % 1e6 < fraction * 1e6.
+bool in_dev_split(const data::Example& example, double dev_fraction);
+
+/// Splits `examples` into (kept, dev) by in_dev_split, keeping the file order in both.
 void split_dev_by_hash(std::vector<data::Example>& examples, double dev_fraction,
                        std::vector<data::Example>& dev);
 
