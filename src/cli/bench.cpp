@@ -81,9 +81,10 @@ void infer_text(runtime::Context& ctx, const std::string& text) {
 
 void infer(runtime::Context& ctx, const std::vector<std::uint32_t>& ids) {
   const runtime::Model& m = ctx.model();
-  if (m.architecture().has_char_encoder()) {
-    // The character encoder reads the tokens' characters: pass the tokens as text, so the timing
-    // includes their normalization and character lookup (as an application's calls would).
+  if (m.architecture().has_char_encoder() || m.architecture().has_ngram_part()) {
+    // The character encoder reads the tokens' characters, the n-gram part their words: pass the
+    // tokens as text, so the timing includes their normalization and lookups (as an application's
+    // calls would).
     thread_local std::vector<std::string> tokens;
     tokens.resize(ids.size());
     for (std::size_t i = 0; i < ids.size(); ++i) tokens[i].assign(m.token(ids[i]));
@@ -113,7 +114,7 @@ BatchShare make_share(const runtime::Model& m, const std::vector<std::vector<std
   BatchShare s;
   for (std::size_t i = first; i < batch.size(); i += step)
     s.ids.emplace_back(batch[i].data(), batch[i].size());
-  if (m.architecture().has_char_encoder()) {
+  if (m.architecture().has_char_encoder() || m.architecture().has_ngram_part()) {
     for (const auto& ids : s.ids) {
       std::vector<std::string> t;
       for (const auto id : ids) t.emplace_back(m.token(id));
@@ -127,7 +128,7 @@ BatchShare make_share(const runtime::Model& m, const std::vector<std::vector<std
 void infer_batch(runtime::Context& ctx, const BatchShare& share) {
   const runtime::Model& m = ctx.model();
   const bool classify = m.architecture().task == runtime::Task::kClassify;
-  if (m.architecture().has_char_encoder()) {
+  if (m.architecture().has_char_encoder() || m.architecture().has_ngram_part()) {
     if (classify)
       ctx.classify_batch_tokens(share.token_spans);
     else

@@ -187,7 +187,9 @@ json confident_mistakes(const EvalOptions& o, const io::TrainedModel& trained, c
       const auto top = static_cast<int>(std::max_element(p.probs.begin(), p.probs.end()) - p.probs.begin());
       std::vector<std::string> tokens;
       data::EncodedExample encoded;
-      data::Encoder(trained.vocab, data::Task::kClassify).encode_text(ex.text, tokens, encoded);
+      data::Encoder encoder(trained.vocab, data::Task::kClassify);
+      encoder.set_ngram_part(&trained.ngram_part);
+      encoder.encode_text(ex.text, tokens, encoded);
       const json why = train::explain(trained, encoded, tokens, top);
       std::printf("    why %s: %s\n", spec.labels[static_cast<std::size_t>(top)].c_str(),
                   train::explain_summary(why).c_str());

@@ -39,7 +39,8 @@ LabelledData load_labelled(const std::string& path, const io::TrainedModel& trai
   }
   if (out.examples.empty()) throw ParseError(path, 0, "no examples in the file");
   out.skipped = report.skipped;
-  const data::Encoder encoder(trained.vocab, trained.spec.task);
+  data::Encoder encoder(trained.vocab, trained.spec.task);
+  encoder.set_ngram_part(&trained.ngram_part);
   out.encoded.reserve(out.examples.size());
   std::vector<std::size_t> cut_lines;
   for (const auto& ex : out.examples) {

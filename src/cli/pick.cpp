@@ -167,7 +167,8 @@ ExitCode run_pick(const PickOptions& o) {
     throw ConfigError("model",
                       trained.path.string() + " is a tagger; gyre pick ranks texts for a classifier");
   po.multi_label = trained.spec.output == model::OutputKind::kSigmoid;
-  const data::Encoder encoder(trained.vocab, data::Task::kClassify);
+  data::Encoder encoder(trained.vocab, data::Task::kClassify);
+  encoder.set_ngram_part(&trained.ngram_part);
   const std::vector<PoolText> pool = read_pool(o.pool);
   const std::vector<data::EncodedExample> encoded = encode_pool(encoder, pool, o.pool);
   std::vector<std::vector<float>> features;

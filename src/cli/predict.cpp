@@ -176,7 +176,9 @@ class BatchWorker {
         o_(o),
         encoder_(trained_.vocab, data::Task::kClassify, o.effective_max_tokens),
         token_encoder_(trained_.vocab, data::Task::kTag, o.effective_max_tokens),
-        spec_(trained_.spec) {}
+        spec_(trained_.spec) {
+    encoder_.set_ngram_part(&trained_.ngram_part);
+  }
 
   /// Processes the lines; with --on-error fail, stops at the first bad line and returns its
   /// ParseError (nothing of this batch is output then, as with one thread). `cuts` receives the
@@ -319,6 +321,7 @@ class BatchWorker {
         if (token_encoder_.tokens(given, input_name(), normalized, surfaces)) p.cut = Cut::kTokens;
         for (const auto& t : normalized) ex.ids.push_back(trained_.vocab.vocab.id(t));
         if (token_encoder_.has_characters()) token_encoder_.add_characters(surfaces, ex);
+        encoder_.add_ngram_scores(normalized, ex);
         given_tokens.resize(normalized.size());
         p.tokens = std::move(given_tokens);  // printed as the user wrote them; no byte ranges
         if (!trained_.ngram_part.empty()) p.words = std::move(normalized);

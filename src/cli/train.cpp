@@ -114,7 +114,8 @@ const RegisterCommand kRegister{
       sub.add_flag("--quiet", o->quiet, "no progress output");
       sub.add_flag(
           "--no-baseline", o->no_baseline,
-          "skip the linear baseline (by default fitted on the same split and shown beside the model)");
+          "skip the linear baseline's report (by default fitted on the same split and shown beside the "
+          "model; with --ngram-part auto the fit still runs, as the n-gram part)");
       add_train_setting_options(sub, o->given);
       return [o] { return run_train(*o); };
     }};

@@ -71,6 +71,7 @@ void fill(const Ids& ids_of, const HasChars& has_chars, const Chars& chars_of,
     for (int t = 0; t < batch.lengths[b]; ++t)
       batch.ids[static_cast<std::size_t>(t) * B + b] = ids[static_cast<std::size_t>(t)];
   }
+  batch.ngram_scores.clear();
   batch.char_ids.clear();
   batch.char_offsets.clear();
   if (!has_chars(indices[0])) return;
@@ -119,6 +120,15 @@ void fill_batch(std::span<const EncodedExample> examples, std::span<const std::s
          return std::span<const std::int32_t>(ex.char_ids).subspan(from, to - from);
        },
        indices, batch, max_length);
+  // The n-gram part's scores of the rows (data::EncodedExample::ngram_scores), when they have them.
+  if (const std::size_t classes = examples[indices[0]].ngram_scores.size(); classes > 0) {
+    batch.ngram_scores.reserve(indices.size() * classes);
+    for (std::size_t b = 0; b < indices.size(); ++b) {
+      const auto& s = examples[indices[b]].ngram_scores;
+      GYRE_CHECK(s.size() == classes, "an encoded example lacks its n-gram scores");
+      batch.ngram_scores.insert(batch.ngram_scores.end(), s.begin(), s.end());
+    }
+  }
 }
 
 void fill_batch(const EncodedCorpus& examples, std::span<const std::size_t> indices, Batch& batch,

@@ -105,19 +105,35 @@ data::EncodedExample Encoder::encode(const data::Example& example, std::string_v
       throw ParseError(path, example.line, e.what());
     }
   }
+  add_ngram_scores(toks, out);
   return out;
+}
+
+void Encoder::add_ngram_scores(const std::vector<std::string>& words, data::EncodedExample& out) const {
+  out.ngram_scores.clear();
+  out.words.clear();
+  if (ngram_part_ == nullptr) return;
+  out.words = words;
+  out.ngram_scores.assign(static_cast<std::size_t>(ngram_part_->classes()), 0.0F);
+  runtime::NgramScratch scratch;
+  ngram_part_->add_scores(words, out.ngram_scores.data(), scratch);
 }
 
 bool Encoder::encode_text(std::string_view text, std::vector<std::string>& toks, data::EncodedExample& out,
                           std::vector<runtime::ByteRange>* token_bytes) const {
-  if (!has_characters())
-    return token_bytes ? encode_text(text, toks, out.ids, *token_bytes) : encode_text(text, toks, out.ids);
+  if (!has_characters()) {
+    const bool cut =
+        token_bytes ? encode_text(text, toks, out.ids, *token_bytes) : encode_text(text, toks, out.ids);
+    add_ngram_scores(toks, out);
+    return cut;
+  }
   std::vector<std::string> surfaces;
   const bool cut =
       runtime::tokenize_with_surface(tokenizer_, surface_tokenizer_, text, toks, surfaces, token_bytes);
   out.ids.clear();
   for (const auto& t : toks) out.ids.push_back(vocab_->vocab.id(t));
   add_characters(surfaces, out);
+  add_ngram_scores(toks, out);
   return cut;
 }
 

@@ -203,6 +203,7 @@ TrainedModel load_trained_model(const fs::path& model_or_run, Engine engine) {
   }
   out.model = std::make_unique<model::SequenceModel>(out.spec);
   load_parameters(file, out.model->params());
+  out.model->set_ngram_part_expected(!out.ngram_part.empty());
   return out;
 }
 

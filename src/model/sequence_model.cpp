@@ -374,6 +374,19 @@ void SequenceModel::predict(const data::Batch& batch, Prediction& out) {
   if (spec_.task == data::Task::kClassify) {
     pooling_.forward(h_, T, batch.lengths, pooled_);
     head_->forward(pooled_, logits_);
+    if (!batch.ngram_scores.empty()) {
+      // The n-gram part's share of each logit (data::EncodedExample::ngram_scores), added before
+      // the softmax and the temperature as runtime::NgramPart::add_scores does.
+      GYRE_CHECK(batch.ngram_scores.size() == static_cast<std::size_t>(B) * C,
+                 "a batch's n-gram scores do not match its rows and the model's labels");
+      for (Eigen::Index r = 0; r < logits_.rows(); ++r)
+        for (std::size_t c = 0; c < C; ++c)
+          logits_(r, static_cast<Eigen::Index>(c)) += batch.ngram_scores[static_cast<std::size_t>(r) * C + c];
+    } else if (ngram_part_expected_) {
+      throw Error(
+          "this model has an n-gram part, which reads the words: its examples must be encoded with "
+          "it (data::Encoder::set_ngram_part)");
+    }
     out.scores = logits_;
     out.features = pooled_;
     out.probs.resize(logits_.rows(), logits_.cols());

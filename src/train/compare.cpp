@@ -226,7 +226,8 @@ std::vector<std::uint8_t> correctness(const EvaluationResult& r,
 
 std::vector<data::EncodedExample> encode_all(const std::vector<data::Example>& examples,
                                              const io::TrainedModel& m, const std::string& path) {
-  const data::Encoder encoder(m.vocab, m.spec.task);
+  data::Encoder encoder(m.vocab, m.spec.task);
+  encoder.set_ngram_part(&m.ngram_part);
   std::vector<data::EncodedExample> out;
   out.reserve(examples.size());
   for (const auto& ex : examples) out.push_back(encoder.encode(ex, path));

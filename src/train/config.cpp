@@ -47,6 +47,9 @@ ChoiceOf<optim::ScheduleKind> opt(optim::ScheduleKind v, std::string help) {
 ChoiceOf<ClassWeights> opt(ClassWeights v, std::string help) {
   return named(v, to_string(v), std::move(help));
 }
+ChoiceOf<NgramPartMode> opt(NgramPartMode v, std::string help) {
+  return named(v, to_string(v), std::move(help));
+}
 ChoiceOf<Metric> opt(Metric v, std::string help) {
   return named(v, to_string(v), std::move(help));
 }
@@ -204,6 +207,13 @@ void add_model_settings(std::vector<Setting<C>>& t) {
                                            .min = 0,
                                            .max = 1,
                                            .max_exclusive = true}));
+  t.push_back(choice(&C::ngram_part,
+                     {.key = "ngram_part",
+                      .group = kModel,
+                      .help = "single-label classifiers: add a logistic regression over token n-grams to the "
+                              "network's logits, its weight chosen on dev (README \"N-gram part\")"},
+                     {opt(NgramPartMode::kAuto, "fitted after training, kept when dev gives it a weight > 0"),
+                      opt(NgramPartMode::kOff, "the network alone")}));
   t.push_back(
       integer(&C::ngram_order, {.key = "ngram_order",
                                 .group = kModel,
@@ -362,6 +372,10 @@ SettingTable<TrainConfig> make_table() {
 
 const char* to_string(ClassWeights w) noexcept {
   return w == ClassWeights::kBalanced ? "balanced" : "none";
+}
+
+const char* to_string(NgramPartMode m) noexcept {
+  return m == NgramPartMode::kOff ? "off" : "auto";
 }
 
 const SettingTable<TrainConfig>& train_settings() {

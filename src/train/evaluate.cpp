@@ -71,7 +71,11 @@ std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
                                            bool with_features,
                                            std::span<const std::vector<std::string>> words) {
   const runtime::Architecture& a = model.architecture();
-  if (a.has_ngram_part() && words.size() != examples.size())
+  const bool have_words = words.size() == examples.size() ||
+                          (words.empty() && std::all_of(examples.begin(), examples.end(), [](const auto& e) {
+                             return !e.words.empty() || e.ids.empty();
+                           }));
+  if (a.has_ngram_part() && !have_words)
     throw Error(
         "this model has an n-gram part, which reads the words of each text: " + std::to_string(words.size()) +
         " word lists given for " + std::to_string(examples.size()) + " examples");
@@ -87,7 +91,9 @@ std::vector<ExamplePrediction> predict_all(const runtime::Model& model,
     const bool with_chars = a.has_char_encoder();
     ExamplePrediction& p = out[i];
     if (a.task == runtime::Task::kClassify) {
-      const runtime::ClassifyResult& r = a.has_ngram_part() ? ctx.classify_ids(ids, chars, offsets, words[i])
+      // The words an n-gram part reads: given, or kept by an encoder that has the part.
+      const auto& w = words.empty() ? examples[i].words : words[i];
+      const runtime::ClassifyResult& r = a.has_ngram_part() ? ctx.classify_ids(ids, chars, offsets, w)
                                          : with_chars       ? ctx.classify_ids(ids, chars, offsets)
                                                             : ctx.classify_ids(ids);
       p.probs.assign(r.probabilities.begin(), r.probabilities.end());

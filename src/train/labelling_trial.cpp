@@ -64,7 +64,8 @@ RoundModel train_round(const TrialOptions& o, const fs::path& dir, const std::ve
   train(c, t);
   RoundModel r;
   r.trained = io::load_trained_model(t.out);
-  const data::Encoder encoder(r.trained.vocab, data::Task::kClassify);
+  data::Encoder encoder(r.trained.vocab, data::Task::kClassify);
+  encoder.set_ngram_part(&r.trained.ngram_part);
   std::vector<data::EncodedExample> enc;
   for (const auto& ex : test) enc.push_back(encoder.encode(ex, o.test));
   const EvaluationResult e = evaluate(*r.trained.model, enc);
@@ -78,7 +79,8 @@ std::vector<std::size_t> pick_more(const TrialOptions& o, RoundModel& m,
                                    const std::vector<std::size_t>& labelled,
                                    const std::vector<std::size_t>& pool, std::size_t count, PickRule rule,
                                    std::uint64_t seed) {
-  const data::Encoder encoder(m.trained.vocab, data::Task::kClassify);
+  data::Encoder encoder(m.trained.vocab, data::Task::kClassify);
+  encoder.set_ngram_part(&m.trained.ngram_part);
   std::vector<std::string> tokens;
   auto encode = [&](const std::vector<std::size_t>& idx) {
     std::vector<data::EncodedExample> out;

@@ -9,8 +9,10 @@
 #include <cstdio>
 #include <cstring>
 #include <fstream>
+#include <limits>
 #include <map>
 #include <memory>
+#include <optional>
 #include <sstream>
 
 #include "gyre/core/error.hpp"
@@ -30,6 +32,7 @@
 #include "gyre/train/evaluate.hpp"
 #include "gyre/train/explain.hpp"
 #include "gyre/train/interrupt.hpp"
+#include "gyre/train/ngram_blend.hpp"
 #include "gyre/train/process_group.hpp"
 #include "gyre/train/progress.hpp"
 #include "gyre/train/reducer.hpp"
@@ -642,7 +645,7 @@ class Run {
   void zero_gradients_part(int part, int parts);
   void sync_replica(std::size_t w);
   void finish(TrainOutcome outcome, TrainResult& result);
-  json calibrate();
+  json calibrate(const LinearBaseline* baseline, json& ngram);
   json tune_thresholds(model::SequenceModel& m, const EvaluationResult& calibrated);
   json dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev);
   [[noreturn]] void diverged(const std::string& what) const;
@@ -1235,13 +1238,18 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   if (exchanges_ > 0)  // what rank 0 sent per step; each rank receives the other ranks' share
     result.final_metrics["exchange_bytes_per_step"] = sent_bytes_ / static_cast<double>(exchanges_);
   if (!lead_) return;
-  if (options_.fit_baseline && !data_.multi_label) {
+  // The n-gram part (README "N-gram part") is the linear baseline's fit: with ngram_part auto it is
+  // fitted even when the baseline's report is not wanted (--no-baseline).
+  const bool want_part = data_.task == data::Task::kClassify && !data_.multi_label &&
+                         config_.ngram_part == NgramPartMode::kAuto && state_.best_epoch > 0;
+  std::optional<LinearBaseline> fitted;
+  if ((options_.fit_baseline || want_part) && !data_.multi_label) {
     const auto start = std::chrono::steady_clock::now();
     const std::string dev_path = config_.dev.empty() ? config_.train : config_.dev;
     // The training split is read again from its file, one example at a time: the run holds only
     // its encoded examples, and the baseline only its interned n-gram rows.
     const ExampleStream train_split = read_run_split(config_, false, data_.tag_scheme);
-    const auto baseline = LinearBaseline::fit(
+    fitted = LinearBaseline::fit(
         data_.vocab, data_.task,
         [&](const ExampleVisitor& visit) {
           std::size_t examples_read = 0;  // per pass: the baseline may read the split more than once
@@ -1257,15 +1265,19 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
         },
         config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0,
         ngram_order_for(config_));
-    result.final_metrics["baseline"] = {
-        {"name", baseline.description()},
-        {"c", baseline.c()},
-        {"features", baseline.feature_count()},
-        {"dev", baseline.score(read_run_split(config_, true, data_.tag_scheme), dev_path)},
-        {"seconds", std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count()}};
+    const LinearBaseline& baseline = *fitted;
+    if (options_.fit_baseline)
+      result.final_metrics["baseline"] = {
+          {"name", baseline.description()},
+          {"c", baseline.c()},
+          {"features", baseline.feature_count()},
+          {"dev", baseline.score(read_run_split(config_, true, data_.tag_scheme), dev_path)},
+          {"seconds", std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count()}};
   }
   if (state_.best_epoch > 0) {
-    result.final_metrics["calibration"] = calibrate();
+    json ngram;
+    result.final_metrics["calibration"] = calibrate(want_part ? &*fitted : nullptr, ngram);
+    if (!ngram.is_null()) result.final_metrics["ngram_part"] = std::move(ngram);
     if (!mistakes_.is_null()) result.final_metrics["dev_mistakes"] = std::move(mistakes_);
     if (!label_thresholds_.is_null()) result.final_metrics["label_thresholds"] = std::move(label_thresholds_);
   }
@@ -1328,11 +1340,63 @@ json Run::dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev) {
 // Temperature scaling of the best checkpoint on dev (gyre/train/calibrate.hpp): the checkpoint is
 // rewritten (atomically) with the temperature in its header, so eval, predict and export use it.
 // A checkpoint that already has one (a finished run extended with --resume) is refitted.
-json Run::calibrate() {
+json Run::calibrate(const LinearBaseline* baseline, json& ngram) {
   const fs::path best = dir_ / io::kSelectedCheckpointFile;
   io::TrainedModel trained = io::load_trained_model(best, io::Engine::kLibrary);
   model::SequenceModel& m = *trained.model;
   m.set_temperature({});
+  // A resumed run's checkpoint may hold a part from its earlier end: the mix is chosen again.
+  runtime::NgramPart part;
+  m.set_ngram_part_expected(false);
+  for (auto& ex : data_.dev) {
+    ex.ngram_scores.clear();
+    ex.words.clear();
+  }
+  if (baseline != nullptr) {
+    // Network alone on dev (log-probabilities: the logits up to a constant per row), the part's
+    // W x + b (mix 1), the mix from the grid; then the dev rows carry the chosen part's scores so
+    // the temperature below is fitted on the blended logits.
+    const auto alone = evaluate(m, data_.dev, true);
+    const std::size_t C = m.spec().labels.size();
+    const runtime::NgramPart unit = baseline->ngram_part(1.0F);
+    data::Encoder encoder(data_.vocab, data::Task::kClassify);
+    encoder.set_ngram_part(&unit);
+    const std::string dev_path = config_.dev.empty() ? config_.train : config_.dev;
+    std::vector<float> network, part_scores;
+    std::vector<std::int32_t> gold;
+    for (std::size_t i = 0; i < data_.dev.size(); ++i) {
+      for (const float p : alone.predictions[i].probs)
+        network.push_back(std::log(std::max(p, std::numeric_limits<float>::min())));
+      gold.push_back(data_.dev[i].targets.at(0));
+    }
+    // The dev texts, read again from their file (the run holds only their ids).
+    std::vector<std::vector<float>> dev_scores;
+    read_run_split(config_, true, data_.tag_scheme)(
+        [&](const data::Example& ex) { dev_scores.push_back(encoder.encode(ex, dev_path).ngram_scores); });
+    GYRE_CHECK(dev_scores.size() == data_.dev.size(), dev_path + ": the dev file changed during training");
+    for (const auto& row : dev_scores) part_scores.insert(part_scores.end(), row.begin(), row.end());
+    const MixChoice choice = choose_ngram_mix(network, part_scores, gold, static_cast<int>(C), kNgramMixGrid);
+    ngram = to_json(choice, kNgramMixGrid);
+    ngram["order"] = unit.order();
+    ngram["features"] = unit.features();
+    if (choice.mix > 0.0F) {
+      part = baseline->ngram_part(choice.mix);
+      encoder.set_ngram_part(&part);
+      std::size_t i = 0;
+      read_run_split(config_, true, data_.tag_scheme)([&](const data::Example& ex) {
+        GYRE_CHECK(i < data_.dev.size(), dev_path + ": the dev file changed during training");
+        data_.dev[i++].ngram_scores = encoder.encode(ex, dev_path).ngram_scores;
+      });
+      m.set_ngram_part_expected(true);
+      // What the saved model scores on dev (the blend in float, through the model).
+      ngram["dev_accuracy"]["blend"] = evaluate(m, data_.dev).metric(Metric::kAccuracy);
+    }
+    progress_.note("n-gram part: mix " + fmt(choice.mix, 2) + " chosen on dev (" +
+                   std::to_string(unit.order()) + "-grams, " + std::to_string(unit.features()) +
+                   " keys); dev accuracy: network " + fmt(choice.network_accuracy) + ", n-gram part " +
+                   fmt(choice.part_accuracy) + ", blend " +
+                   fmt(ngram["dev_accuracy"]["blend"].get<double>()));
+  }
   if (m.spec().output == model::OutputKind::kSigmoid)  // a refit starts from the global threshold
     m.set_thresholds(static_cast<float>(config_.multi_label_threshold), {});
   const auto before = evaluate(m, data_.dev, true);
@@ -1344,7 +1408,7 @@ json Run::calibrate() {
   if (m.spec().output == model::OutputKind::kSigmoid && config_.tune_label_thresholds)
     label_thresholds_ = tune_thresholds(m, after);
   io::write_checkpoint(best, m, data_.vocab, nullptr, trained.header.at("trainer"),
-                       trained.header.at("config"), &trained.ngram_part);
+                       trained.header.at("config"), part.empty() ? nullptr : &part);
   if (data_.task == data::Task::kClassify && !data_.multi_label) mistakes_ = dev_mistakes(m, after);
   std::string temps;
   for (const float t : fit.temperature) temps += (temps.empty() ? "" : " ") + fmt(t, 3);

@@ -54,8 +54,13 @@ status=0
 # figure minus 0.03. Results depend on the thread count, not on the load.
 # brown-names meets the bar since the character encoder (default 0.8385 +- 0.0205, tuned 0.7813
 # vs 0.7583): a hard check.
-declare -A known_gap_default=([names]=0.8527 [brown-genre]=0.8349)
-declare -A known_gap_tuned=([names]=0.8680 [brown-genre]=0.8110)
+# Since the n-gram part (README "N-gram part"; on by default for single-label classifiers, also
+# with --no-baseline, which only skips the baseline report): names tuned meets the bar (0.8874 vs
+# 0.8850; network alone 0.8680); names default 0.8822 +- 0.0019 (network alone 0.8527), brown-genre
+# default 0.8708 +- 0.0034 (network alone 0.8350) and tuned 0.8684 (network alone 0.8110) are below
+# it, and brown-genre's bar rose to 0.8852 with the baseline's begin/end markers.
+declare -A known_gap_default=([names]=0.8822 [brown-genre]=0.8708)
+declare -A known_gap_tuned=([brown-genre]=0.8684)
 # The search budget per dataset (seed 1, --threads 2) and what it chose on dev (OUT/best/config.json).
 declare -A hone_budget=([names]="--trials 12 --epoch-cap 27" [brown-genre]="--trials 4 --epoch-cap 3"
   [brown-names]="--trials 5 --epoch-cap 9")

@@ -90,7 +90,10 @@ void check_corpus(const std::string& name) {
   const auto trained = gyre::io::load_trained_model(options.out);
   std::vector<gyre::data::Example> dev;
   gyre::data::read_corpus(config.dev, {}, [&](gyre::data::Example&& ex) { dev.push_back(std::move(ex)); });
-  const gyre::data::Encoder encoder(trained.vocab, trained.spec.task);
+  // A classifier carries the n-gram part train chose (--ngram-part auto): the encoder gives each
+  // example its words and the part's scores, so both engines score network + part.
+  gyre::data::Encoder encoder(trained.vocab, trained.spec.task);
+  encoder.set_ngram_part(&trained.ngram_part);
   std::vector<gyre::data::EncodedExample> encoded;
   for (const auto& ex : dev) encoded.push_back(encoder.encode(ex, config.dev));
   const auto library = gyre::train::predict_all(*trained.model, encoded);

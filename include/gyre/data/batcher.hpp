@@ -15,6 +15,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <span>
+#include <string>
 #include <vector>
 
 #include "gyre/core/rng.hpp"
@@ -33,6 +34,12 @@ struct EncodedExample {
   /// otherwise. char_offsets has ids.size() + 1 entries.
   std::vector<std::int32_t> char_ids;
   std::vector<std::int32_t> char_offsets;
+  /// Classifiers with an n-gram part (gyre/runtime/ngram_part.hpp): what the part adds to each
+  /// logit, mix * (W x + b), one per class (Encoder::set_ngram_part); empty otherwise.
+  std::vector<float> ngram_scores;
+  /// The same models: the tokens as the vocabulary sees them (what the embedded runtime's part
+  /// reads, runtime::Context::classify_ids with words); empty otherwise.
+  std::vector<std::string> words;
 };
 
 /// A padded batch in time-major layout: element (t, b) is at t * batch + b.
@@ -47,6 +54,8 @@ struct Batch {
   /// Both empty when the examples have no characters.
   std::vector<std::int32_t> char_ids;
   std::vector<std::int32_t> char_offsets;
+  /// [B x C] row-major: the examples' ngram_scores (empty when they have none).
+  std::vector<float> ngram_scores;
   std::size_t tokens() const;  // valid (non-padding) positions
   std::size_t padded() const { return static_cast<std::size_t>(batch) * static_cast<std::size_t>(max_len); }
 };

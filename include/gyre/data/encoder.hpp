@@ -10,6 +10,7 @@
 #include "gyre/data/example.hpp"
 #include "gyre/data/task.hpp"
 #include "gyre/runtime/char_tokens.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 #include "gyre/text/tokenizer.hpp"
 #include "gyre/text/vocab.hpp"
 
@@ -54,6 +55,16 @@ class Encoder {
   bool encode_text(std::string_view text, std::vector<std::string>& tokens, data::EncodedExample& out,
                    std::vector<runtime::ByteRange>* token_bytes = nullptr) const;
 
+  /// Classifiers with an n-gram part: encode() and encode_text() into an example also fill
+  /// EncodedExample::ngram_scores from the tokens (the words the vocabulary sees). The part must
+  /// outlive the encoder; nullptr or an empty part: none.
+  void set_ngram_part(const runtime::NgramPart* part) noexcept {
+    ngram_part_ = part != nullptr && !part->empty() ? part : nullptr;
+  }
+  const runtime::NgramPart* ngram_part() const noexcept { return ngram_part_; }
+  /// Sets out.ngram_scores and out.words from the words (clears them without a part).
+  void add_ngram_scores(const std::vector<std::string>& words, data::EncodedExample& out) const;
+
   /// Whether the vocabulary has a character list (the model a character encoder).
   bool has_characters() const noexcept { return !vocab_->characters.empty(); }
   /// Sets out.char_ids/char_offsets from the surface tokens (has_characters() only).
@@ -65,6 +76,7 @@ class Encoder {
   text::Tokenizer tokenizer_;
   text::Tokenizer surface_tokenizer_;  // no case or digit folding (gyre/runtime/char_tokens.hpp)
   runtime::CharacterIds character_ids_;
+  const runtime::NgramPart* ngram_part_ = nullptr;
 
   // Surface tokens of an example (classify: segmented from the text; tag: the given tokens).
   bool surface_tokens(const data::Example& example, std::string_view path, std::vector<std::string>& surfaces,

@@ -122,6 +122,11 @@ class SequenceModel {
   void set_thresholds(float threshold, std::vector<float> label_thresholds);
   /// predict() applies the temperature (on, the default) or gives the raw outputs (off).
   void set_calibrated(bool on) noexcept { calibrated_ = on; }
+  /// The model has an n-gram part (io::TrainedModel::ngram_part): predict() adds each batch's
+  /// data::Batch::ngram_scores to the logits and, when this is on, refuses a batch without them.
+  /// integrated_gradients() explains the network alone.
+  void set_ngram_part_expected(bool on) noexcept { ngram_part_expected_ = on; }
+  bool ngram_part_expected() const noexcept { return ngram_part_expected_; }
   bool calibrated() const noexcept { return calibrated_; }
 
  private:
@@ -156,6 +161,7 @@ class SequenceModel {
   nn::Pooling pooling_;
   LossOptions loss_options_;
   bool calibrated_ = true;
+  bool ngram_part_expected_ = false;
 
   // Reused buffers.
   std::vector<std::int32_t> ids_;

@@ -23,6 +23,11 @@
 namespace gyre::train {
 
 enum class ClassWeights { kNone, kBalanced };
+/// Whether a single-label classifier gets an n-gram part (gyre/runtime/ngram_part.hpp):
+/// auto = fitted after training, kept when dev picks a mix > 0 (train/ngram_blend.hpp); off = never.
+enum class NgramPartMode { kAuto, kOff };
+/// "auto", "off".
+const char* to_string(NgramPartMode m) noexcept;
 /// "none", "balanced".
 const char* to_string(ClassWeights w) noexcept;
 
@@ -60,6 +65,8 @@ struct TrainConfig {
   bool tune_label_thresholds = true;
   double dropout = 0.2;  // between recurrent layers and before the head
   double embedding_dropout = 0.1;
+  /// Single-label classifiers: the n-gram part blended into the logits (multi-label and taggers: none).
+  NgramPartMode ngram_part = NgramPartMode::kAuto;
   /// Highest n-gram order of the linear baseline and the n-gram part; 0 = auto: 4 with the
   /// `chars` tokenizer, 2 otherwise (train::ngram_order_for).
   int ngram_order = 0;
