@@ -51,6 +51,10 @@ ExitCode run_compare_cli(const CompareCliOptions& o) {
   json j = merge_train_settings(o.config_path, *o.given);  // compare has its own --out
   if (!o.train.empty()) j["train"] = o.train;
   if (!o.dev.empty()) j["dev"] = o.dev;
+  // compare weighs recurrent cells against each other: an n-gram part (train's default for
+  // single-label classifiers) would add the same linear model's scores to every cell and blur the
+  // difference, so it is off unless the settings ask for it.
+  if (!j.contains("ngram_part")) j["ngram_part"] = "off";
 
   train::CompareSpec spec;
   spec.base = train::config_from_json(j);

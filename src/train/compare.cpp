@@ -366,10 +366,18 @@ double runtime_latency_ms(const fs::path& model_path, const std::vector<data::En
   mean_tokens = count ? tokens / static_cast<double>(count) : 0.0;
   // A model with a character encoder reads each token's characters too (from the encoded text).
   const bool chars = model.architecture().has_char_encoder();
+  // A classifier with an n-gram part reads the words too (the encoder keeps them for such a model).
+  const bool ngram = model.architecture().has_ngram_part();
+  for (std::size_t i = 0; ngram && i < count; ++i) {
+    GYRE_CHECK(texts[i].words.size() == texts[i].ids.size(),
+               "compare: the dev texts of a model with an n-gram part must carry their words");
+  }
   auto infer_one = [&](std::size_t i) {
     const auto& x = ids[i];
     const Span<const std::uint32_t> xs(x.data(), x.size());
-    if (chars && classify)
+    if (ngram)
+      ctx.classify_ids(xs, texts[i].char_ids, texts[i].char_offsets, texts[i].words);
+    else if (chars && classify)
       ctx.classify_ids(xs, texts[i].char_ids, texts[i].char_offsets);
     else if (chars)
       ctx.tag_ids(xs, texts[i].char_ids, texts[i].char_offsets);

@@ -50,6 +50,7 @@ gyre::train::CompareSpec tiny_spec(const Setup& s) {
   gyre::train::CompareSpec spec;
   spec.base.train = s.train.string();
   spec.base.dev = s.dev.string();
+  spec.base.ngram_part = gyre::train::NgramPartMode::kOff;  // as `gyre compare` by default
   spec.base.embedding_size = 8;
   spec.base.epochs = 2;
   spec.base.batch_size = 16;
