@@ -326,15 +326,14 @@ void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t labe
   labels_.push_back(label);
 }
 
-void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
-                                std::vector<double>& vals) const {
-  std::vector<std::string> keys;
-  ngrams(tokens, order_, keys);
-  std::map<std::int32_t, int> counts;  // ordered: a row's columns ascending, deterministic sums
-  for (const auto& key : keys) {
-    const auto it = index_.find(key);
-    if (it != index_.end()) ++counts[it->second];
-  }
+namespace {
+
+// One row of the n-gram classifier's matrix from (column, count) pairs in ascending column order:
+// value 1 + ln(count) ("sublinear tf"), then the row scaled to unit L2 norm, summed in that order.
+// Used by featurize() and fit(), so training rows and prediction rows are computed alike.
+template <class ColumnCounts>
+void sublinear_unit_row(const ColumnCounts& counts, std::vector<std::int32_t>& cols,
+                        std::vector<double>& vals) {
   cols.clear();
   vals.clear();
   double norm = 0;
@@ -348,6 +347,20 @@ void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector
     norm = std::sqrt(norm);
     for (auto& v : vals) v /= norm;
   }
+}
+
+}  // namespace
+
+void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
+                                std::vector<double>& vals) const {
+  std::vector<std::string> keys;
+  ngrams(tokens, order_, keys);
+  std::map<std::int32_t, int> counts;  // ordered: a row's columns ascending, deterministic sums
+  for (const auto& key : keys) {
+    const auto it = index_.find(key);
+    if (it != index_.end()) ++counts[it->second];
+  }
+  sublinear_unit_row(counts, cols, vals);
 }
 
 void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
@@ -389,19 +402,7 @@ void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
       if (col >= 0) row.emplace_back(col, entry_counts_[e]);
     }
     std::sort(row.begin(), row.end());
-    cols.clear();
-    vals.clear();
-    double norm = 0;
-    for (const auto& [col, count] : row) {
-      const double v = 1.0 + std::log(static_cast<double>(count));  // sublinear tf
-      cols.push_back(col);
-      vals.push_back(v);
-      norm += v * v;
-    }
-    if (norm > 0) {
-      norm = std::sqrt(norm);
-      for (auto& v : vals) v /= norm;
-    }
+    sublinear_unit_row(row, cols, vals);
     x.add_row(cols, vals);
   }
   model_ = fit_logistic_regression(x, labels_, classes, static_cast<int>(kept.size()), options);
