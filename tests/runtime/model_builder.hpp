@@ -226,29 +226,12 @@ struct RefModel {
   }
 
   std::vector<double> classify(const std::vector<std::uint32_t>& ids) const {
-    const auto top = stack(ids);
-    const std::size_t T = ids.size();
-    std::vector<double> pooled(F(), 0.0);
-    if (T > 0) {
-      if (pooling == "last") {
-        for (std::size_t j = 0; j < H; ++j) pooled[j] = top[T - 1][j];
-        if (bidir)
-          for (std::size_t j = 0; j < H; ++j) pooled[H + j] = top[0][H + j];
-      } else if (pooling == "mean") {
-        for (const auto& row : top)
-          for (std::size_t j = 0; j < F(); ++j) pooled[j] += row[j] / static_cast<double>(T);
-      } else {
-        pooled = top[0];
-        for (const auto& row : top)
-          for (std::size_t j = 0; j < F(); ++j) pooled[j] = std::max(pooled[j], row[j]);
-      }
-    }
-    auto logits = head(pooled);
+    auto out = logits(ids);
     if (output == "sigmoid") {
-      for (double& v : logits) v = sig(v);
-      return logits;
+      for (double& v : out) v = sig(v);
+      return out;
     }
-    return softmax(logits);
+    return softmax(out);
   }
 
   /// mix * (W x + b) of the n-gram part for the tokens `text`, in double, written from the definition in
