@@ -77,8 +77,8 @@ ExitCode run_hone_cli(const HoneCliOptions& o) {
     return ExitCode::kFailure;
   }
   const auto& best = result.trials[static_cast<std::size_t>(*result.best)];
-  std::printf("\n%-22s trial %d, %d epoch(s), dev %s %.4f\n", "best", best.id, best.epochs,
-              result.metric.c_str(), best.score);
+  std::printf("\n%-22s trial %d, %d epoch(s), dev %s %.4f (network alone %.4f)\n", "best", best.id,
+              best.epochs, result.metric.c_str(), best.score, best.network_score);
   if (result.baseline.is_object() && result.baseline.contains("dev") &&
       result.baseline["dev"].contains(result.metric))
     std::printf("%-22s dev %s %.4f (%s)\n", "linear baseline", result.metric.c_str(),
@@ -102,7 +102,8 @@ const RegisterCommand kRegister{
           "  gyre hone --train t.tsv --dev d.tsv --minutes 30 --epoch-cap 27 --cell gru --out hone\n"
           "Searched: learning rate, hidden and embedding size, dropout, pooling, the character\n"
           "encoder on/off, and epochs (the resource: a trial trains 1..cap epochs). A setting given as\n"
-          "an option or in --config is held fixed instead. Hyperband (Li et al. 2017) plays brackets of successive halving: many trials\n"
+          "an option or in --config is held fixed instead. Hyperband (Li et al. 2017) plays brackets of "
+          "successive halving: many trials\n"
           "for few epochs, keep the best one in --keep-one-in, train those longer, until the cap. Trials\n"
           "are chosen on dev only; all use --seed for training, and the settings are drawn from --seed\n"
           "too, so the same command gives the same search. Ctrl-C saves OUT/hone-state.json; the same\n"

@@ -14,7 +14,9 @@
 
 #include "gyre/core/error.hpp"
 #include "gyre/core/file.hpp"
+#include "gyre/data/encoder.hpp"
 #include "gyre/io/model_io.hpp"
+#include "gyre/train/baseline.hpp"
 #include "gyre/train/evaluate.hpp"
 #include "gyre/train/interrupt.hpp"
 #include "gyre/train/process_group.hpp"
@@ -163,12 +165,15 @@ json sample_settings(const std::vector<HoneDimension>& space, Rng& rng) {
 namespace {
 
 constexpr const char* kStateFormat = "gyre-hone-state";
-constexpr int kStateVersion = 1;
+// Version 2: a rung's score is the saved model's dev score (network + n-gram part); version 1
+// ranked on the network alone, so its rungs cannot be mixed with new ones.
+constexpr int kStateVersion = 2;
 
 /// What one rung of one trial produced.
 struct RungOutcome {
   int epochs = 0;
-  double score = 0.0;
+  double score = 0.0;          // dev metric of the model as saved (network + n-gram part, tempered)
+  double network_score = 0.0;  // best dev metric of the network alone (the trainer's early-stopping score)
   bool stopped_early = false;
   bool finished = false;
   bool continued = false;  // this rung continued the trial's resume.bin (not retrained from epoch 0)
@@ -178,6 +183,7 @@ RungOutcome outcome_from_json(const json& r) {
   RungOutcome o;
   o.epochs = r.at("epochs").get<int>();
   o.score = r.at("score").get<double>();
+  o.network_score = r.at("network_score").get<double>();
   o.stopped_early = r.at("stopped_early").get<bool>();
   o.finished = r.at("finished").get<bool>();
   o.continued = r.at("continued").get<bool>();
@@ -189,6 +195,7 @@ json outcome_to_json(int trial, int rung, const RungOutcome& o) {
               {"rung", rung},
               {"epochs", o.epochs},
               {"score", o.score},
+              {"network_score", o.network_score},
               {"stopped_early", o.stopped_early},
               {"finished", o.finished},
               {"continued", o.continued}};
@@ -257,7 +264,11 @@ class Search {
            std::chrono::duration<double>(std::chrono::steady_clock::now() - session_start_).count();
   }
   HoneTrial& trial(int id);
+  /// Trains (or continues) trial t to target_epochs and scores the model it saves (or, paused,
+  /// would save) on dev: RungOutcome::score; the network's own best is network_score.
   RungOutcome run_rung(HoneTrial& t, int target_epochs, bool& interrupted);
+  /// The training part of run_rung: score = the network's best dev metric.
+  RungOutcome train_trial(HoneTrial& t, int target_epochs, bool& interrupted);
   void note_progress(const HoneTrial& t, const PlannedBracket& b, int rung, bool cached);
   bool better(const HoneTrial& a, const HoneTrial& b) const;
   json write_best(int id);
@@ -336,9 +347,15 @@ void Search::load_state() {
   } catch (const json::exception& e) {
     throw FormatError(path.string(), std::string("not valid JSON: ") + e.what());
   }
-  if (j.value("format", "") != kStateFormat || j.value("version", 0) != kStateVersion)
+  if (j.value("format", "") != kStateFormat)
     throw FormatError(path.string(), "not a gyre hone state file (format " + std::string(kStateFormat) +
                                          " version " + std::to_string(kStateVersion) + ")");
+  if (j.value("version", 0) != kStateVersion)
+    throw FormatError(path.string(),
+                      "hone state version " + std::to_string(j.value("version", 0)) +
+                          ", this gyre reads version " + std::to_string(kStateVersion) +
+                          " (version 1 ranked trials on the network alone, without the n-gram part); "
+                          "start the search again with a new --out");
   if (j.at("search") != search_json())
     throw ConfigError("out", spec_.out.string() +
                                  " holds a search with other settings (data, fixed settings, search space, "
@@ -375,7 +392,72 @@ RungOutcome outcome_from_log(const fs::path& dir, const std::string& metric, int
   return o;
 }
 
+/// Whether the run in `dir` (its resolved config.json) gets an n-gram part when it ends: a
+/// single-label classifier with ngram_part auto (trainer.cpp Run::finish; the mix chosen on dev may
+/// still be 0, and then the saved model is the network alone).
+bool may_have_ngram_part(const fs::path& dir) {
+  const json c = json::parse(read_file(dir / "config.json"));
+  return c.value("task", "") == "classify" && c.value("output", "") == "softmax" &&
+         c.value("ngram_part", "") == "auto";
+}
+
+/// The dev score, in `metric`, of the model a finished run directory saved (selected.bin: the
+/// network, its n-gram part and temperature, as `gyre eval` runs it), on the run's dev split read
+/// again from its files.
+double saved_model_dev_score(const fs::path& dir, const std::string& metric) {
+  const io::TrainedModel trained =
+      io::load_trained_model(dir / io::kSelectedCheckpointFile, io::Engine::kLibrary);
+  const TrainConfig config = config_from_json(json::parse(read_file(dir / "config.json")));
+  data::Encoder encoder(trained.vocab, trained.spec.task);
+  encoder.set_ngram_part(&trained.ngram_part);
+  const std::string dev_path = config.dev.empty() ? config.train : config.dev;
+  std::vector<data::EncodedExample> dev;
+  read_run_split(config, true, data::TagScheme::kNone)(
+      [&](const data::Example& ex) { dev.push_back(encoder.encode(ex, dev_path)); });
+  return evaluate(*trained.model, dev).metric(metric);
+}
+
 RungOutcome Search::run_rung(HoneTrial& t, int target_epochs, bool& interrupted) {
+  RungOutcome o = train_trial(t, target_epochs, interrupted);
+  if (interrupted) return o;
+  o.network_score = o.score;
+  const fs::path dir = spec_.out / "trials" / ("t" + std::to_string(t.id));
+  if (!may_have_ngram_part(dir)) return o;  // the saved model is the network: its dev score
+  if (o.finished) {
+    o.score = saved_model_dev_score(dir, metric_);
+    return o;
+  }
+  // Paused at the rung's end: the trial has no n-gram part yet (the part and its mix come with the
+  // calibration at a run's end). Its score is what it would save if it ended here: a copy of the
+  // run directory is finished at these epochs (the trainer fits the part, chooses the mix on dev,
+  // fits the temperature, exactly as for a run that ends) and scored; the trial itself stays
+  // paused and continues from its own resume.bin.
+  if (interrupt_requested()) {  // resume() below clears the flag: a Ctrl-C must be seen first
+    interrupted = true;
+    return o;
+  }
+  const fs::path probe = spec_.out / "trials" / ("t" + std::to_string(t.id) + ".probe");
+  fs::remove_all(probe);
+  fs::copy(dir, probe, fs::copy_options::recursive);
+  fs::remove(probe / "metrics.json");
+  TrainOptions options;
+  options.out = probe;
+  options.quiet = true;
+  options.fit_baseline = false;
+  options.group = &local_group();
+  options.epochs = o.epochs;
+  const TrainResult r = resume(options);
+  if (r.outcome == TrainOutcome::kInterrupted) {
+    fs::remove_all(probe);
+    interrupted = true;
+    return o;
+  }
+  o.score = saved_model_dev_score(probe, metric_);
+  fs::remove_all(probe);
+  return o;
+}
+
+RungOutcome Search::train_trial(HoneTrial& t, int target_epochs, bool& interrupted) {
   const fs::path dir = spec_.out / "trials" / ("t" + std::to_string(t.id));
   TrainOptions options;
   options.out = dir;
@@ -437,6 +519,10 @@ bool Search::better(const HoneTrial& a, const HoneTrial& b) const {
   const Metric m = metric_from_string(metric_);
   if (metric_improves(m, a.score, b.score)) return true;
   if (metric_improves(m, b.score, a.score)) return false;
+  // Equal saved scores (common when the n-gram part decides most of dev: every trial has the same
+  // linear fit): the better network, which is what differs between the trials.
+  if (metric_improves(m, a.network_score, b.network_score)) return true;
+  if (metric_improves(m, b.network_score, a.network_score)) return false;
   if (a.epochs != b.epochs) return a.epochs > b.epochs;  // equal scores: the longer-trained one
   return a.id < b.id;
 }
@@ -575,6 +661,7 @@ bool Search::settle_trial(int id, const PlannedBracket& p, std::size_t rung, con
   const RungOutcome& o = it->second;
   t.epochs = o.epochs;
   t.score = o.score;
+  t.network_score = o.network_score;
   t.stopped_early = o.stopped_early;
   t.finished = o.finished;
   t.rung = static_cast<int>(rung);
@@ -710,6 +797,7 @@ json HoneResult::to_json(const HoneSpec& spec) const {
                            {"epochs", t.epochs},
                            {"rung", t.rung},
                            {"dev_" + metric, t.score},
+                           {"network_dev_" + metric, t.network_score},
                            {"stopped_early", t.stopped_early},
                            {"finished", t.finished},
                            {"rungs_continued", t.rungs_continued}});
@@ -744,22 +832,23 @@ std::string hone_table(const HoneResult& result, std::size_t rows) {
   for (std::size_t i = 0; i < order.size(); ++i) order[i] = i;
   const bool lower = !result.metric.empty() && metric_from_string(result.metric) == Metric::kLoss;
   std::stable_sort(order.begin(), order.end(), [&](std::size_t a, std::size_t b) {
-    const double sa = result.trials[a].score, sb = result.trials[b].score;
-    return lower ? sa < sb : sa > sb;
+    const HoneTrial &ta = result.trials[a], &tb = result.trials[b];
+    if (ta.score != tb.score) return lower ? ta.score < tb.score : ta.score > tb.score;
+    return lower ? ta.network_score < tb.network_score : ta.network_score > tb.network_score;
   });
   std::ostringstream out;
   char buf[256];
-  std::snprintf(buf, sizeof buf, "%-6s %-8s %-7s %-10s  %s\n", "trial", "bracket", "epochs",
-                ("dev " + result.metric).c_str(), "settings");
+  std::snprintf(buf, sizeof buf, "%-6s %-8s %-7s %-12s %-8s  %s\n", "trial", "bracket", "epochs",
+                ("dev " + result.metric).c_str(), "network", "settings");
   out << buf;
   for (std::size_t k = 0; k < order.size() && k < rows; ++k) {
     const HoneTrial& t = result.trials[order[k]];
-    std::snprintf(buf, sizeof buf, "%-6s %-8d %-7s %-10.4f  %s\n",
+    std::snprintf(buf, sizeof buf, "%-6s %-8d %-7s %-12.4f %-8.4f  %s\n",
                   (std::to_string(t.id) +
                    (result.best && static_cast<std::size_t>(*result.best) == order[k] ? "*" : ""))
                       .c_str(),
                   t.bracket, (std::to_string(t.epochs) + (t.stopped_early ? "e" : "")).c_str(), t.score,
-                  settings_text(t.settings).c_str());
+                  t.network_score, settings_text(t.settings).c_str());
     out << buf;
   }
   if (order.size() > rows) out << "(" << order.size() - rows << " more in hone.json)\n";

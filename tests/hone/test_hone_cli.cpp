@@ -97,6 +97,40 @@ TEST_CASE("hone cli: searches on the demo corpus, writes a usable best run, repe
       gyre::test::run_cli(dir / "eval", {"eval", best.string(), "--test", kDemo + "sentiment.test.tsv"});
   INFO(e.err);
   CHECK(e.exit_code == 0);
+  // Trials rank on what their saved model scores on dev (network + n-gram part, as gyre eval runs
+  // it), not on the network alone. The best run's dev score, through gyre eval:
+  const auto dev_accuracy_of = [&](const fs::path& run, const std::string& name) {
+    const fs::path report = dir / (name + ".json");
+    const auto ev =
+        gyre::test::run_cli(dir / "eval", {"eval", run.string(), "--test", kDemo + "sentiment.dev.tsv",
+                                           "--no-baseline", "--json", report.string()});
+    INFO(ev.err);
+    REQUIRE(ev.exit_code == 0);
+    return json::parse(gyre::read_file(report)).at("accuracy").get<double>();
+  };
+  const json hone = json::parse(gyre::read_file(dir / "a" / "hone.json"));
+  CHECK(hone.at("best").at("dev_accuracy").get<double>() ==
+        Approx(dev_accuracy_of(best, "best")).margin(1e-9));
+  CHECK(metrics.at("ngram_part").at("dev_accuracy").at("blend").get<double>() ==
+        Approx(hone.at("best").at("dev_accuracy").get<double>()).margin(1e-9));
+  // A trial paused after its first rung is scored as the run it would save if it ended there:
+  // the same directory finished at those epochs (gyre train --resume --epochs) and evaluated.
+  int differs = 0;
+  for (const auto& t : trials) {
+    CHECK(t.contains("network_dev_accuracy"));
+    differs += t.at("dev_accuracy").get<double>() != t.at("network_dev_accuracy").get<double>();
+    if (t.at("rung").get<int>() != 0 || t.at("finished").get<bool>()) continue;
+    const std::string id = std::to_string(t.at("id").get<int>());
+    const fs::path copy = dir / ("paused-t" + id);
+    fs::remove_all(copy);
+    fs::copy(dir / "a" / "trials" / ("t" + id), copy, fs::copy_options::recursive);
+    const auto ended = gyre::test::run_cli(dir / "eval", {"train", "--resume", copy.string(), "--epochs",
+                                                          std::to_string(t.at("epochs").get<int>())});
+    INFO(ended.err);
+    REQUIRE(ended.exit_code == 0);
+    CHECK(t.at("dev_accuracy").get<double>() == Approx(dev_accuracy_of(copy, "t" + id)).margin(1e-9));
+  }
+  CHECK(differs > 0);  // on this corpus the part changes the trials' dev scores
   // Same command, same seed, another directory: the same trials and scores.
   const auto r2 = gyre::test::run_cli(dir, hone_args(dir / "b"));
   REQUIRE(r2.exit_code == 0);
@@ -153,6 +187,14 @@ TEST_CASE("hone cli: bad usage exits 2 with a message", "[hone][cli]") {
                                                "3", "--schedule", "cosine", "--out", (dir / "o").string()});
   CHECK(sched.exit_code == 2);
   CHECK(sched.err.find("schedule") != std::string::npos);
+  // A search saved by a gyre that ranked on the network alone (state version 1) is not continued.
+  fs::create_directories(dir / "old");
+  gyre::write_file_atomic(dir / "old" / "hone-state.json", R"({"format": "gyre-hone-state", "version": 1})");
+  const auto old = gyre::test::run_cli(dir, {"hone", "--train", kDemo + "sentiment.train.tsv", "--trials",
+                                             "3", "--out", (dir / "old").string()});
+  CHECK(old.exit_code == 2);
+  CHECK(old.err.find("version 1") != std::string::npos);
+  CHECK(old.err.find("new --out") != std::string::npos);
 }
 
 TEST_CASE("hone cli: a tagger continues across rungs whatever pooling the search gives it",

@@ -106,7 +106,12 @@ struct HoneTrial {
   nlohmann::json settings;  // the sampled keys
   int epochs = 0;           // epochs trained so far
   int rung = -1;            // last finished rung (-1: none)
-  double score = 0.0;       // best dev metric so far
+  /// Dev metric of the model the trial saves (or, paused at a rung, would save if it ended
+  /// there): the network plus its n-gram part, tempered, as `gyre eval` scores it. What the search
+  /// ranks on. Models that get no part (taggers, multi-label, ngram_part off) are not re-scored:
+  /// score = network_score (so a loss metric there is the untempered one).
+  double score = 0.0;
+  double network_score = 0.0;  // best dev metric of the network alone (the trainer's early stopping)
   bool stopped_early = false;
   bool finished = false;    // trained to R or stopped early: metrics.json written
   int rungs_continued = 0;  // promotions that continued the trial's resume.bin (not retrained)
