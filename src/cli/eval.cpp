@@ -65,11 +65,61 @@ std::optional<eval::TaggingMetrics> tag_baseline(const std::string& train_path,
   return metrics;
 }
 
+void print_baseline_scores(const json& scores) {
+  for (const auto& [key, label] : {std::pair{"accuracy", "accuracy"},
+                                   {"macro_f1", "macro F1"},
+                                   {"span_f1", "span F1"},
+                                   {"token_accuracy", "token accuracy"}})
+    if (scores.contains(key)) std::printf("  %s %.4f", label, scores[key].get<double>());
+  std::printf("\n");
+}
+
+// A model with an n-gram part carries the linear baseline's fit (README "N-gram part": the part is
+// the baseline's L2 logistic regression, fitted on the run's training split with C chosen on dev):
+// the baseline row is that part alone, W x + b as saved (mix > 0 scales it, which changes no
+// arg-max), not a refit. For an f16/int8 file these are the stored (rounded) weights.
+void ngram_part_baseline(const io::TrainedModel& trained, const LabelledData& data, json& report) {
+  const runtime::NgramPart& part = trained.ngram_part;
+  std::vector<std::int32_t> gold, predicted;
+  for (const auto& ex : data.encoded) {
+    GYRE_CHECK(ex.ngram_scores.size() == static_cast<std::size_t>(part.classes()),
+               "an example has no n-gram part scores");
+    gold.push_back(ex.targets.at(0));
+    // First of equal scores, as the baseline's own predict does.
+    predicted.push_back(static_cast<std::int32_t>(
+        std::max_element(ex.ngram_scores.begin(), ex.ngram_scores.end()) - ex.ngram_scores.begin()));
+  }
+  const auto m = eval::classification_metrics(gold, predicted, trained.spec.labels);
+  const json scores{{"accuracy", m.accuracy}, {"macro_f1", m.macro.f1}};
+  std::string name = "bag of token 1-" + std::to_string(part.order()) + "-grams, L2 logistic regression";
+  std::error_code ec;
+  const auto metrics_path = trained.path.parent_path() / "metrics.json";
+  if (!trained.exported() && std::filesystem::exists(metrics_path, ec)) {
+    const json mj = json::parse(read_file(metrics_path), nullptr, false);
+    if (!mj.is_discarded() && mj.contains("baseline") && mj["baseline"].contains("name"))
+      name = mj["baseline"]["name"].get<std::string>();
+  }
+  report["linear_baseline"] = {{"name", name},
+                               {"source", "ngram_part"},
+                               {"keys", part.features()},
+                               {"refitted", false},
+                               {"metrics", scores}};
+  std::printf(
+      "\nlinear baseline (the model's n-gram part alone, W x + b as saved, not refitted; %s, %zu keys):\n",
+      name.c_str(), part.features());
+  print_baseline_scores(scores);
+}
+
 // The linear baseline (gyre/train/baseline.hpp) refitted on the run's training split (files from
 // the model's saved config; C from the run's metrics.json when there, else chosen on dev again,
-// which gives the same C: the fit is deterministic). Prints its scores beside the model's.
+// which gives the same C: the fit is deterministic). Prints its scores beside the model's. A model
+// with an n-gram part reports that part instead (ngram_part_baseline).
 void linear_baseline(const io::TrainedModel& trained, const LabelledData& data, json& report,
                      const std::string& data_path) {
+  if (!trained.ngram_part.empty()) {
+    ngram_part_baseline(trained, data, report);
+    return;
+  }
   if (!trained.header.contains("config") || trained.spec.output == model::OutputKind::kSigmoid) return;
   const train::TrainConfig config = train::config_from_json(trained.header["config"]);
   std::error_code ec;
@@ -93,12 +143,7 @@ void linear_baseline(const io::TrainedModel& trained, const LabelledData& data, 
       {"name", baseline.description()}, {"train", config.train}, {"metrics", scores}};
   std::printf("\nlinear baseline (%s, fitted on %s):\n", baseline.description().c_str(),
               config.train.c_str());
-  for (const auto& [key, label] : {std::pair{"accuracy", "accuracy"},
-                                   {"macro_f1", "macro F1"},
-                                   {"span_f1", "span F1"},
-                                   {"token_accuracy", "token accuracy"}})
-    if (scores.contains(key)) std::printf("  %s %.4f", label, scores[key].get<double>());
-  std::printf("\n");
+  print_baseline_scores(scores);
 }
 
 // Reliability before and after the model's temperature scaling (fitted on dev by `gyre train`):
@@ -275,8 +320,8 @@ const RegisterCommand kRegister{
           "taggers: training corpus for the most-frequent-tag baseline (default: the run's training file)");
       sub.add_flag(
           "--no-baseline", o->no_baseline,
-          "skip the baselines (the linear one refitted on the run's training split, and for taggers the "
-          "most-frequent-tag one)");
+          "skip the baselines (the linear one: the model's n-gram part alone, or refitted on the run's "
+          "training split for a model without one; for taggers also the most-frequent-tag one)");
       add_train_setting_options(sub, o->given, {},
                                 {"text_column", "label_column", "skip_bad_lines", "multi_label_threshold"});
       return [o] { return run_eval(*o); };

@@ -117,3 +117,62 @@ TEST_CASE("ngram-part off trains the network alone, bad n-gram settings are refu
   CHECK(order.exit_code == 2);
   CHECK_THAT(order.err, Contains("--ngram-order"));
 }
+
+TEST_CASE("eval reports a model's n-gram part alone as its linear baseline, the same scores as a refit",
+          "[cli]") {
+  fs::create_directories(dir());
+  const std::string train = kDemo + "sentiment.train.tsv", dev = kDemo + "sentiment.dev.tsv",
+                    test = kDemo + "sentiment.test.tsv";
+  const auto with = (dir() / "baseline-part").string(), without = (dir() / "baseline-off").string();
+  for (const auto& [out, mode] : {std::pair{with, "auto"}, std::pair{without, "off"}}) {
+    fs::remove_all(out);
+    const auto t = gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
+                             "--embedding-size", "8", "--ngram-part", mode, "--quiet", "--out", out});
+    INFO(t.err);
+    REQUIRE(t.exit_code == 0);
+  }
+  const json metrics = json::parse(gyre::read_file(fs::path(with) / "metrics.json"));
+  REQUIRE(metrics.contains("ngram_part"));
+  REQUIRE(metrics["ngram_part"]["mix"].get<double>() > 0);  // a 1-epoch network of 8 units needs the part
+  const auto eval_json = [&](const std::string& model, const std::string& file, const std::string& name) {
+    const auto report = (dir() / (name + ".json")).string();
+    const auto e = gyre_cli({"eval", model, "--test", file, "--json", report});
+    INFO(e.err);
+    REQUIRE(e.exit_code == 0);
+    return std::pair{json::parse(gyre::read_file(report)), e.out};
+  };
+  // On dev: what train measured for the part (ngram_part.dev_accuracy.ngram_part) and for the
+  // baseline it fitted and scored separately (baseline.dev).
+  const auto [on_dev, dev_out] = eval_json(with, dev, "part-dev");
+  const json& row = on_dev.at("linear_baseline");
+  CHECK(row.at("source") == "ngram_part");
+  CHECK(row.at("refitted") == false);
+  CHECK_THAT(dev_out, Contains("n-gram part alone"));
+  CHECK_THAT(row["metrics"]["accuracy"].get<double>(),
+             WithinAbs(metrics["ngram_part"]["dev_accuracy"]["ngram_part"].get<double>(), 1e-12));
+  CHECK_THAT(row["metrics"]["accuracy"].get<double>(),
+             WithinAbs(metrics["baseline"]["dev"]["accuracy"].get<double>(), 1e-12));
+  CHECK_THAT(row["metrics"]["macro_f1"].get<double>(),
+             WithinAbs(metrics["baseline"]["dev"]["macro_f1"].get<double>(), 1e-12));
+  CHECK(row["name"] == metrics["baseline"]["name"]);
+  // On test: the part alone scores what a refit scores (the run without a part refits the same
+  // baseline on the same split).
+  const auto [part_test, part_out] = eval_json(with, test, "part-test");
+  const auto [refit_test, refit_out] = eval_json(without, test, "refit-test");
+  CHECK(
+      refit_test.at("linear_baseline").contains("train"));  // the refit path, kept for models without a part
+  CHECK_FALSE(refit_test.at("linear_baseline").contains("source"));
+  CHECK_THAT(part_test["linear_baseline"]["metrics"]["accuracy"].get<double>(),
+             WithinAbs(refit_test["linear_baseline"]["metrics"]["accuracy"].get<double>(), 1e-12));
+  CHECK_THAT(part_test["linear_baseline"]["metrics"]["macro_f1"].get<double>(),
+             WithinAbs(refit_test["linear_baseline"]["metrics"]["macro_f1"].get<double>(), 1e-12));
+  // An int8 file reports its stored part (rounded weights): within two test examples of the f32 one.
+  const auto exported = (dir() / "baseline-part.int8.gyre").string();
+  REQUIRE(gyre_cli({"export", with, "--out", exported, "--precision", "int8"}).exit_code == 0);
+  const auto [int8_test, int8_out] = eval_json(exported, test, "part-int8-test");
+  CHECK(int8_test.at("linear_baseline").at("source") == "ngram_part");
+  const double examples = int8_test.at("examples").get<double>();
+  CHECK_THAT(
+      int8_test["linear_baseline"]["metrics"]["accuracy"].get<double>(),
+      WithinAbs(part_test["linear_baseline"]["metrics"]["accuracy"].get<double>(), 2.0 / examples + 1e-12));
+}
