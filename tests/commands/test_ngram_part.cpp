@@ -176,3 +176,55 @@ TEST_CASE("eval reports a model's n-gram part alone as its linear baseline, the 
       int8_test["linear_baseline"]["metrics"]["accuracy"].get<double>(),
       WithinAbs(part_test["linear_baseline"]["metrics"]["accuracy"].get<double>(), 2.0 / examples + 1e-12));
 }
+
+TEST_CASE("pick and export's dev check run an exported model with an n-gram part", "[cli]") {
+  fs::create_directories(dir());
+  const std::string train = kDemo + "sentiment.train.tsv", dev = kDemo + "sentiment.dev.tsv";
+  const auto out = (dir() / "pick-part").string();
+  fs::remove_all(out);
+  const auto t = gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
+                           "--embedding-size", "8", "--no-baseline", "--quiet", "--out", out});
+  INFO(t.err);
+  REQUIRE(t.exit_code == 0);
+  const json metrics = json::parse(gyre::read_file(fs::path(out) / "metrics.json"));
+  REQUIRE(metrics["ngram_part"]["mix"].get<double>() > 0);
+  // The export's dev check scores the file through the runtime (words included) beside the
+  // checkpoint; f32 agrees on every label.
+  const auto exported = (dir() / "pick-part.gyre").string();
+  const auto x = gyre_cli({"export", out, "--out", exported, "--precision", "f32"});
+  INFO(x.out << x.err);
+  REQUIRE(x.exit_code == 0);
+  CHECK_THAT(x.out, Contains("dev accuracy ("));
+  CHECK_THAT(x.out, Contains("label agreement 100.00%"));
+  CHECK_THAT(x.out, !Contains("skipped"));
+  // pick: the pool is the dev texts; the exported file (runtime) picks what the checkpoint (library)
+  // picks, with the same probabilities within 1e-5 (the runtime parity tolerance).
+  const auto pool = (dir() / "pick-pool.txt").string();
+  {
+    std::istringstream in(gyre::read_file(dev));
+    std::string line, texts;
+    while (std::getline(in, line))
+      if (!line.empty() && line.rfind("label\t", 0) != 0) texts += line.substr(line.find('\t') + 1) + "\n";
+    gyre::write_file_atomic(pool, texts);
+  }
+  const auto pick = [&](const std::string& model) {
+    const auto r =
+        gyre_cli({"pick", model, "--pool", pool, "--count", "5", "--labelled", train, "--format", "jsonl"});
+    INFO(r.err);
+    REQUIRE(r.exit_code == 0);
+    std::vector<json> rows;
+    std::istringstream in(r.out);
+    std::string line;
+    while (std::getline(in, line)) rows.push_back(json::parse(line));
+    return rows;
+  };
+  const auto from_checkpoint = pick(out), from_file = pick(exported);
+  REQUIRE(from_checkpoint.size() == 5);
+  REQUIRE(from_file.size() == 5);
+  for (std::size_t i = 0; i < 5; ++i) {
+    CHECK(from_file[i]["line"] == from_checkpoint[i]["line"]);
+    CHECK(from_file[i]["guess"] == from_checkpoint[i]["guess"]);
+    CHECK_THAT(from_file[i]["probability"].get<double>(),
+               WithinAbs(from_checkpoint[i]["probability"].get<double>(), 1e-5));
+  }
+}
