@@ -13,6 +13,7 @@ void InProcessReducer::reduce(nn::ParameterStore& into, std::span<nn::ParameterS
       nn::Parameter& src = (*other)[i];
       if (!dst.trainable) continue;
       if (dst.sparse_rows) {
+        src.finalize_touched_rows();  // a row listed twice must still be added once
         for (const auto row : src.touched_rows) dst.grad.row(row) += src.grad.row(row);
         dst.touched_rows.insert(dst.touched_rows.end(), src.touched_rows.begin(), src.touched_rows.end());
       } else {
@@ -32,7 +33,8 @@ void InProcessReducer::reduce_part(nn::ParameterStore& into, std::span<nn::Param
     if (dst.sparse_rows) {
       if (part != 0) continue;
       for (nn::ParameterStore* other : others) {
-        const nn::Parameter& src = (*other)[i];
+        nn::Parameter& src = (*other)[i];
+        src.finalize_touched_rows();  // a row listed twice must still be added once
         for (const auto row : src.touched_rows) dst.grad.row(row) += src.grad.row(row);
         dst.touched_rows.insert(dst.touched_rows.end(), src.touched_rows.begin(), src.touched_rows.end());
       }

@@ -15,7 +15,8 @@ class GradientReducer {
  public:
   virtual ~GradientReducer() = default;
   /// Adds the gradients of `others` into `into`, in order. Sparse-row parameters add only their
-  /// touched rows and merge touched_rows (sorted, unique afterwards).
+  /// touched rows, each once (the others' touched_rows are made sorted and unique first: a
+  /// backward lists a row once per use), and merge touched_rows (sorted, unique afterwards).
   virtual void reduce(nn::ParameterStore& into, std::span<nn::ParameterStore* const> others) = 0;
   /// Copies parameter values from `from` to every store in `to` (after the optimizer step).
   /// Sparse-row parameters copy only the rows touched in `from` this step.
