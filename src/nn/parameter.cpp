@@ -1,12 +1,17 @@
 #include "gyre/nn/parameter.hpp"
 
 #include <algorithm>
+#include <functional>
 
 #include "gyre/core/error.hpp"
 
 namespace gyre::nn {
 
 void Parameter::finalize_touched_rows() {
+  // Already sorted and unique (finalized before, or merged): nothing to do.
+  if (std::adjacent_find(touched_rows.begin(), touched_rows.end(), std::greater_equal<>()) ==
+      touched_rows.end())
+    return;
   std::sort(touched_rows.begin(), touched_rows.end());
   touched_rows.erase(std::unique(touched_rows.begin(), touched_rows.end()), touched_rows.end());
 }

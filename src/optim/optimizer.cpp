@@ -3,6 +3,8 @@
 #include <algorithm>
 #include <array>
 #include <cmath>
+#include <cstring>
+#include <iterator>
 
 #include "gyre/core/error.hpp"
 #include "gyre/optim/adam.hpp"
@@ -12,6 +14,29 @@ namespace gyre::optim {
 
 namespace {
 constexpr std::size_t kMaxSlots = 2;  // Adam keeps m and v
+
+// Floats per block of the fused update: a block of each array it touches (value, gradient, the
+// optimizer's slots, one gradient or value per replica) stays in the L1/L2 cache from the first
+// operation on it to the last. A multiple of 16, so blocks keep the alignment of part_range().
+constexpr Eigen::Index kFusedBlock = 2048;
+
+// Non-finite values seen, by their bits (an integer test the compiler vectorises; std::isfinite
+// in a reduction it does not).
+struct NonFinite {
+  std::uint32_t nan = 0, inf = 0;
+  void check(const float* g, Eigen::Index count) noexcept {
+    std::uint32_t n = 0, i = 0;
+    for (Eigen::Index k = 0; k < count; ++k) {
+      std::uint32_t bits = 0;
+      std::memcpy(&bits, g + k, sizeof bits);
+      bits &= 0x7fffffffu;
+      n |= static_cast<std::uint32_t>(bits > 0x7f800000u);
+      i |= static_cast<std::uint32_t>(bits == 0x7f800000u);
+    }
+    nan |= n;
+    inf |= i;
+  }
+};
 }  // namespace
 
 void Optimizer::bind(const nn::ParameterStore& params) {
@@ -109,6 +134,80 @@ void Optimizer::update_part(nn::ParameterStore& params, int part, int parts) {
       const Eigen::Index offset = static_cast<Eigen::Index>(row) * cols;
       for (std::size_t s = 0; s < n_slots; ++s) slot_ptrs[s] = b.slots[s].data() + offset;
       update_block(p.value.data() + offset, p.grad.data() + offset, slot_ptrs.data(), cols);
+    }
+  }
+}
+
+Optimizer::GradCheck Optimizer::update_part(nn::ParameterStore& params, int part, int parts,
+                                            const Fusion& fusion) {
+  std::array<float*, kMaxSlots> slot_ptrs{};
+  NonFinite seen;
+  const float scale = fusion.grad_scale;
+  // One block of `count` values at `offset` of parameter `index`: the adds (in store order), the
+  // check, the scaling, the update, the zeroing and the copies, each element-wise as in the
+  // separate passes. `add_row` (sparse rows) tells whether a store has the block's row.
+  auto block = [&](Bound& b, nn::Parameter& p, Eigen::Index offset, Eigen::Index count, auto&& add_row) {
+    const std::size_t i = b.param_index;
+    float* g = p.grad.data() + offset;
+    for (nn::ParameterStore* store : fusion.add) {
+      const nn::Parameter& q = (*store)[i];
+      if (!add_row(q)) continue;
+      const float* s = q.grad.data() + offset;
+      for (Eigen::Index k = 0; k < count; ++k) g[k] += s[k];
+    }
+    seen.check(g, count);
+    if (scale != 1.0f)
+      for (Eigen::Index k = 0; k < count; ++k) g[k] *= scale;
+    for (std::size_t s = 0; s < b.slots.size(); ++s) slot_ptrs[s] = b.slots[s].data() + offset;
+    float* value = p.value.data() + offset;
+    update_block(value, g, slot_ptrs.data(), count);
+    if (fusion.zero) {
+      std::fill(g, g + count, 0.0f);
+      for (nn::ParameterStore* store : fusion.zero_also) {
+        float* z = (*store)[i].grad.data() + offset;
+        std::fill(z, z + count, 0.0f);
+      }
+    }
+    for (nn::ParameterStore* store : fusion.copy_to)
+      std::copy(value, value + count, (*store)[i].value.data() + offset);
+  };
+  for (Bound& b : state_) {
+    nn::Parameter& p = params[b.param_index];
+    if (!p.sparse_rows) {
+      const auto [begin, end] = part_range(p.value.size(), part, parts);
+      for (Eigen::Index o = begin; o < end; o += kFusedBlock)
+        block(b, p, o, std::min(kFusedBlock, end - o), [](const nn::Parameter&) { return true; });
+      continue;
+    }
+    // Sparse rows: part `part` takes its share of the touched rows (the union of all stores').
+    const std::size_t rows = p.touched_rows.size();
+    const auto n_parts = static_cast<std::size_t>(parts), this_part = static_cast<std::size_t>(part);
+    const std::size_t lo = rows * this_part / n_parts, hi = rows * (this_part + 1) / n_parts;
+    const Eigen::Index cols = b.cols;
+    for (std::size_t r = lo; r < hi; ++r) {
+      const std::int32_t row = p.touched_rows[r];
+      block(b, p, static_cast<Eigen::Index>(row) * cols, cols, [row](const nn::Parameter& q) {
+        return std::binary_search(q.touched_rows.begin(), q.touched_rows.end(), row);
+      });
+    }
+  }
+  if (seen.nan != 0) return GradCheck::kNaN;
+  return seen.inf != 0 ? GradCheck::kInfinite : GradCheck::kFinite;
+}
+
+void Optimizer::merge_touched_rows(nn::ParameterStore& params, std::span<nn::ParameterStore* const> others,
+                                   std::vector<std::int32_t>& scratch) {
+  for (std::size_t i = 0; i < params.size(); ++i) {
+    nn::Parameter& p = params[i];
+    if (!p.trainable || !p.sparse_rows) continue;
+    p.finalize_touched_rows();
+    for (nn::ParameterStore* store : others) {
+      nn::Parameter& q = (*store)[i];
+      q.finalize_touched_rows();
+      scratch.clear();
+      std::set_union(p.touched_rows.begin(), p.touched_rows.end(), q.touched_rows.begin(),
+                     q.touched_rows.end(), std::back_inserter(scratch));
+      p.touched_rows.assign(scratch.begin(), scratch.end());
     }
   }
 }

@@ -641,9 +641,6 @@ class Run {
   void save_last();
   void optimizer_step(std::span<nn::ParameterStore* const> others);
   double reduce_and_measure(std::span<nn::ParameterStore* const> others);
-  void clip_part(int part, int parts, float scale);
-  void zero_gradients_part(int part, int parts);
-  void sync_replica(std::size_t w);
   void finish(TrainOutcome outcome, TrainResult& result);
   json calibrate(const LinearBaseline* baseline, json& ngram);
   json tune_thresholds(model::SequenceModel& m, const EvaluationResult& calibrated);
@@ -674,8 +671,9 @@ class Run {
   std::unique_ptr<optim::LearningRateSchedule> schedule_;
   std::unique_ptr<WorkerPool> pool_;
   InProcessReducer reducer_;
-  bool replicas_stale_ = false;  // replicas 1.. lag the master by the last optimizer step
-  std::vector<std::vector<std::int32_t>> stale_rows_;  // per parameter: sparse rows that step changed
+  std::vector<nn::ParameterStore*> replica_ptrs_;  // replicas 1.. (they get the new values in the step)
+  std::vector<std::int32_t> merge_scratch_;        // merge_touched_rows()
+  std::vector<optim::Optimizer::GradCheck> part_checks_;  // per worker of this process
   std::vector<double> part_squares_;  // per global worker: sum of squared gradients of its part
   // Ranks > 1: every global worker's gradient (1.. ; worker 0's goes into the master) and the
   // exchange buffers, allocated once.
@@ -722,6 +720,7 @@ void Run::setup_model() {
   }
   for (auto& r : replicas_) r->embedding().set_trainable(!config_.freeze_embeddings);
   for (std::size_t w = 1; w < replicas_.size(); ++w) replicas_[w]->copy_values_from(master);
+  for (std::size_t w = 1; w < replicas_.size(); ++w) replica_ptrs_.push_back(&replicas_[w]->params());
 
   optim::OptimizerConfig oc;
   oc.momentum = config_.optimizer == optim::OptimizerKind::kSgd ? static_cast<float>(config_.momentum) : 0.0f;
@@ -784,42 +783,47 @@ void Run::check_loss_growth(double step_loss) {
              fmt(kLossGrowthLimit, 0) + " times its " + fmt(state_.loss_reference) + " at the first step");
 }
 
-void Run::sync_replica(std::size_t w) {
-  const nn::ParameterStore& from = replicas_[0]->params();
-  nn::ParameterStore& to = replicas_[w]->params();
-  for (std::size_t i = 0; i < from.size(); ++i) {
-    const nn::Parameter& src = from[i];
-    if (!src.trainable) continue;
-    nn::Parameter& dst = to[i];
-    if (src.sparse_rows) {
-      for (const auto row : stale_rows_[i]) dst.value.row(row) = src.value.row(row);
-    } else {
-      dst.value = src.value;
-    }
-  }
-}
-
-// Reduce, gradient norm (and clipping), optimizer update and zeroing of the gradients, each split
-// across the workers by element ranges of the dense parameters (sparse-row parameters go to worker
-// 0). Every operation is element-wise except the norm, whose parts are added in worker order, so
-// the result depends on the seed and the thread count only; with one thread it is the serial
-// reduce + clip_grad_norm + Optimizer::step.
+// Reduce, gradient norm (when clipping), optimizer update, zeroing of every replica's gradients
+// and the copy of the new values into replicas 1.., split across the workers by element ranges of
+// the dense parameters and by touched rows of the sparse-row ones. Without clipping all of it is
+// one pass over the parameters (optim::Optimizer::Fusion) in one fork-join; clipping needs the
+// norm of the reduced gradient first (one more fork-join: reduce + norm, whose parts are added in
+// worker order). Every operation is element-wise except the norm, so the result depends on the
+// seed and the thread count only; with one thread it is the serial reduce + clip_grad_norm +
+// Optimizer::step + zero_grad.
 void Run::optimizer_step(std::span<nn::ParameterStore* const> others) {
   auto& master = replicas_[0]->params();
   const int parts = pool_->size();
-  const double norm = reduce_and_measure(others);
-  if (!std::isfinite(norm)) diverged("the gradient norm became " + fmt(norm));
-  // Pascanu et al. 2013, Algorithm 1: g <- (threshold / |g|) g when |g| exceeds the threshold.
-  const bool clip = config_.clip_norm > 0 && norm > config_.clip_norm;
-  const auto scale = clip ? static_cast<float>(config_.clip_norm / norm) : 1.0f;
+  optim::Optimizer::Fusion fusion;
+  fusion.zero = true;
+  fusion.zero_also = replica_ptrs_;
+  fusion.copy_to = replica_ptrs_;
+  if (config_.clip_norm > 0) {
+    const double norm = reduce_and_measure(others);
+    if (!std::isfinite(norm)) diverged("the gradient norm became " + fmt(norm));
+    // Pascanu et al. 2013, Algorithm 1: g <- (threshold / |g|) g when |g| exceeds the threshold.
+    if (norm > config_.clip_norm) fusion.grad_scale = static_cast<float>(config_.clip_norm / norm);
+  } else {
+    // No norm needed: the reduction moves into the update's pass. Its sparse rows are split by
+    // row across the workers, so the union of the touched rows is known first.
+    optim::Optimizer::merge_touched_rows(master, others, merge_scratch_);
+    fusion.add = others;
+  }
   optimizer_->prepare_step(master, schedule_->rate(state_.global_step));
+  part_checks_.assign(static_cast<std::size_t>(parts), optim::Optimizer::GradCheck::kFinite);
   pool_->run([&](int part) {
-    if (clip) clip_part(part, parts, scale);
-    optimizer_->update_part(master, part, parts);
-    zero_gradients_part(part, parts);
+    part_checks_[static_cast<std::size_t>(part)] = optimizer_->update_part(master, part, parts, fusion);
   });
+  for (auto& r : replicas_)
+    for (nn::Parameter& p : r->params()) p.touched_rows.clear();  // capacity kept
+  // Without clipping the gradients were checked in the update's pass (a non-finite value makes
+  // the norm non-finite: the same stop, after the update instead of before; nothing is saved).
+  using Check = optim::Optimizer::GradCheck;
+  if (std::find(part_checks_.begin(), part_checks_.end(), Check::kNaN) != part_checks_.end())
+    diverged("the gradient norm became " + fmt(std::numeric_limits<double>::quiet_NaN()));
+  if (std::find(part_checks_.begin(), part_checks_.end(), Check::kInfinite) != part_checks_.end())
+    diverged("the gradient norm became " + fmt(std::numeric_limits<double>::infinity()));
   ++state_.global_step;
-  replicas_stale_ = replicas_.size() > 1;
 }
 
 // The reduction of the workers' gradients `others` into the master and the master gradient's
@@ -831,7 +835,6 @@ double Run::reduce_and_measure(std::span<nn::ParameterStore* const> others) {
   // ranks of T threads add the same partial sums in the same order as one process of R*T threads.
   const int norm_parts = global_workers();
   part_squares_.assign(static_cast<std::size_t>(norm_parts), 0.0);
-  if (stale_rows_.size() != master.size()) stale_rows_.resize(master.size());
   auto part_norm = [&](int part) {
     double squares = 0.0;
     for (nn::Parameter& p : master) {
@@ -863,46 +866,6 @@ double Run::reduce_and_measure(std::span<nn::ParameterStore* const> others) {
   double total = 0.0;
   for (const double s : part_squares_) total += s;
   return std::sqrt(total);
-}
-
-// Scales part `part` of `parts` of the master's gradient by `scale` (sparse rows: worker 0).
-void Run::clip_part(int part, int parts, float scale) {
-  auto& master = replicas_[0]->params();
-  for (std::size_t i = 0; i < master.size(); ++i) {
-    nn::Parameter& p = master[i];
-    if (!p.trainable) continue;
-    if (p.sparse_rows) {
-      if (part == 0)
-        for (const std::int32_t row : p.touched_rows) p.grad.row(row) *= scale;
-      continue;
-    }
-    const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
-    for (Eigen::Index k = begin; k < end; ++k) p.grad.data()[k] *= scale;
-  }
-}
-
-// Zeroes the gradients of every replica on part `part` of `parts`; remembers the sparse rows for
-// the sync.
-void Run::zero_gradients_part(int part, int parts) {
-  auto& master = replicas_[0]->params();
-  for (std::size_t i = 0; i < master.size(); ++i) {
-    nn::Parameter& p = master[i];
-    if (p.sparse_rows) {
-      if (part != 0) continue;
-      stale_rows_[i] = p.touched_rows;  // capacity is kept: no allocation once grown
-      for (auto& r : replicas_) {
-        nn::Parameter& q = r->params()[i];
-        for (const auto row : q.touched_rows) q.grad.row(row).setZero();
-        q.touched_rows.clear();
-      }
-      continue;
-    }
-    const auto [begin, end] = optim::Optimizer::part_range(p.grad.size(), part, parts);
-    for (auto& r : replicas_) {
-      float* g = r->params()[i].grad.data();
-      std::fill(g + begin, g + end, 0.0f);
-    }
-  }
 }
 
 // Ranks > 1: every rank sends its workers' losses and gradients (dense tensors whole, sparse-row
@@ -1001,11 +964,11 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
     for (std::size_t i = first_worker + static_cast<std::size_t>(w); i < indices.size(); i += all_workers)
       mine.push_back(indices[i]);
   }
-  // Phase 1, every worker: bring its replica up to the master's weights (the previous step's
-  // update), then forward and backward on its slice of the batch.
+  // Every worker: forward and backward on its slice of the batch in its replica (which the last
+  // optimizer step brought up to the master's weights), then its sparse rows sorted and unique
+  // (a row is listed once per token by the embedding's backward; the reduction adds each once).
   try {
     pool_->run([&](int w) {
-      if (w > 0 && replicas_stale_) sync_replica(static_cast<std::size_t>(w));
       const auto& slice = buf.slices[static_cast<std::size_t>(w)];
       buf.losses[static_cast<std::size_t>(w)] = 0.0;
       if (slice.empty()) return;
@@ -1013,13 +976,15 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
       data::fill_batch(data_.train, slice, mine, config_.max_length);
       Rng dropout(mix_seed(config_.seed, static_cast<std::uint64_t>(state_.epoch), state_.step,
                            first_worker + static_cast<std::uint64_t>(w)));
-      buf.losses[static_cast<std::size_t>(w)] = replicas_[static_cast<std::size_t>(w)]->train_batch(
-          mine, data_.train, config_.bptt_window, normalizer, dropout);
+      model::SequenceModel& replica = *replicas_[static_cast<std::size_t>(w)];
+      buf.losses[static_cast<std::size_t>(w)] =
+          replica.train_batch(mine, data_.train, config_.bptt_window, normalizer, dropout);
+      for (nn::Parameter& p : replica.params())
+        if (p.sparse_rows) p.finalize_touched_rows();
     });
   } catch (const DivergenceError& e) {
     diverged(e.what());
   }
-  replicas_stale_ = false;
 }
 
 // The share of the batch grid that was padding, once per run (only meaningful when the epoch

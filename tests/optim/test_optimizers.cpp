@@ -4,9 +4,12 @@
 
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <cmath>
 #include <cstring>
+#include <limits>
 #include <string>
+#include <vector>
 
 #include "gyre/core/error.hpp"
 #include "gyre/core/rng.hpp"
@@ -448,5 +451,144 @@ TEST_CASE("an update split into parts equals step() bit for bit", "[optim][parts
       next = end;
     }
     REQUIRE(next == size);
+  }
+}
+
+namespace {
+
+std::vector<std::int32_t> ref_union(const std::vector<std::vector<std::int32_t>>& lists) {
+  std::vector<std::int32_t> all;
+  for (const auto& l : lists) all.insert(all.end(), l.begin(), l.end());
+  std::sort(all.begin(), all.end());
+  all.erase(std::unique(all.begin(), all.end()), all.end());
+  return all;
+}
+
+bool same_bits(const Matrix& a, const Matrix& b) {
+  return a.size() == b.size() &&
+         std::memcmp(a.data(), b.data(), static_cast<std::size_t>(a.size()) * sizeof(float)) == 0;
+}
+
+// Worker stores as the trainer holds them: an embedding-like sparse-row parameter and two dense
+// ones whose sizes are not multiples of the fused block (2048) or of 16.
+void add_worker_params(ParameterStore& s) {
+  s.add("tokens.vectors", 40, 9, true);
+  s.add("w", 97, 53);  // 5141 values: three fused blocks, the last partial
+  s.add("b", 1, 19);
+}
+
+}  // namespace
+
+TEST_CASE("the fused update equals reduce, clip, step, zero and copy done one after another",
+          "[optim][parts][fused]") {
+  // issue 13: update_part(params, part, parts, fusion) does the trainer's reduction (adds in store
+  // order), the clipping scale, the update, the zeroing and the copy into replicas in one pass;
+  // every value, moment, gradient and replica must have the bits of the separate passes.
+  for (const ConfigCase& cc : all_configs()) {
+    for (const int parts : {1, 2, 3}) {
+      for (const float scale : {1.0F, 0.37F}) {
+        INFO("optimizer " << cc.optimizer << ", momentum " << cc.config.momentum << ", parts " << parts
+                          << ", scale " << scale);
+        gyre::Rng rng(20261203);
+        // ref: master + two workers, separate passes; fused: the same with update_part.
+        ParameterStore ref[3], fused[3];
+        for (int w = 0; w < 3; ++w) {
+          add_worker_params(ref[w]);
+          add_worker_params(fused[w]);
+        }
+        for (std::size_t i = 0; i < ref[0].size(); ++i) {
+          random_fill(ref[0][i].value, rng);
+          for (int w = 0; w < 3; ++w) {
+            ref[w][i].value = ref[0][i].value;
+            fused[w][i].value = ref[0][i].value;
+          }
+        }
+        auto opt_ref = gyre::optim::make_optimizer(cc.optimizer, cc.config);
+        auto opt_fused = gyre::optim::make_optimizer(cc.optimizer, cc.config);
+        std::vector<std::int32_t> scratch;
+        const std::vector<std::vector<std::int32_t>> rows = {{3, 7, 7, 1, 30}, {7, 2, 39, 2}, {0, 30, 11}};
+        for (int step = 0; step < 3; ++step) {
+          for (int w = 0; w < 3; ++w) {
+            for (std::size_t i = 1; i < ref[w].size(); ++i) {
+              random_fill(ref[w][i].grad, rng);
+              fused[w][i].grad = ref[w][i].grad;
+            }
+            // Sparse rows: only the listed rows carry gradient (a row listed twice as a backward
+            // lists it, once per use).
+            Parameter& r = ref[w][0];
+            r.grad.setZero();
+            for (const auto row : rows[static_cast<std::size_t>(w)])
+              r.grad.row(row).setConstant(rng.uniform(-1.0F, 1.0F));
+            r.touched_rows = rows[static_cast<std::size_t>(w)];
+            fused[w][0].grad = r.grad;
+            fused[w][0].touched_rows = r.touched_rows;
+          }
+          // Separate passes: reduce into the master (each row once), scale, step, zero, copy.
+          for (int w = 1; w < 3; ++w) {
+            for (std::size_t i = 1; i < ref[0].size(); ++i) ref[0][i].grad += ref[w][i].grad;
+            ref[w][0].finalize_touched_rows();
+            for (const auto row : ref[w][0].touched_rows) ref[0][0].grad.row(row) += ref[w][0].grad.row(row);
+            ref[0][0].touched_rows.insert(ref[0][0].touched_rows.end(), ref[w][0].touched_rows.begin(),
+                                          ref[w][0].touched_rows.end());
+          }
+          ref[0][0].finalize_touched_rows();
+          for (std::size_t i = 1; i < ref[0].size(); ++i) ref[0][i].grad *= scale;
+          for (const auto row : ref[0][0].touched_rows) ref[0][0].grad.row(row) *= scale;
+          opt_ref->step(ref[0], 0.01F);
+          for (int w = 1; w < 3; ++w) {
+            for (std::size_t i = 0; i < ref[w].size(); ++i) {
+              if (!ref[w][i].sparse_rows) ref[w][i].value = ref[0][i].value;
+              if (ref[w][i].sparse_rows)
+                for (const auto row : ref[0][i].touched_rows)
+                  ref[w][i].value.row(row) = ref[0][i].value.row(row);
+            }
+          }
+          for (int w = 0; w < 3; ++w) ref[w].zero_grad();
+          // Fused.
+          ParameterStore* others[] = {&fused[1], &fused[2]};
+          gyre::optim::Optimizer::merge_touched_rows(fused[0], others, scratch);
+          REQUIRE(fused[0][0].touched_rows == ref_union(rows));
+          gyre::optim::Optimizer::Fusion f;
+          f.add = others;
+          f.grad_scale = scale;
+          f.zero = true;
+          f.zero_also = others;
+          f.copy_to = others;
+          opt_fused->prepare_step(fused[0], 0.01F);
+          for (int part = parts - 1; part >= 0; --part)
+            REQUIRE(opt_fused->update_part(fused[0], part, parts, f) ==
+                    gyre::optim::Optimizer::GradCheck::kFinite);
+          for (int w = 0; w < 3; ++w) fused[w][0].touched_rows.clear();
+          for (int w = 0; w < 3; ++w)
+            for (std::size_t i = 0; i < ref[w].size(); ++i) {
+              INFO("worker " << w << ", parameter " << ref[w][i].name << ", step " << step);
+              REQUIRE(same_bits(ref[w][i].value, fused[w][i].value));
+              REQUIRE(fused[w][i].grad.isZero(0.0F));
+            }
+        }
+        auto s_ref = opt_ref->state_tensors(), s_fused = opt_fused->state_tensors();
+        REQUIRE(s_ref.size() == s_fused.size());
+        for (std::size_t k = 0; k < s_ref.size(); ++k)
+          REQUIRE(same_bits(*s_ref[k].second, *s_fused[k].second));
+      }
+    }
+  }
+}
+
+TEST_CASE("the fused update reports a gradient that is not finite", "[optim][parts][fused]") {
+  const float inf = std::numeric_limits<float>::infinity();
+  for (const float bad : {inf, -inf, std::numeric_limits<float>::quiet_NaN()}) {
+    ParameterStore store;
+    add_worker_params(store);
+    store[1].grad(96, 52) = bad;  // the last value of the dense parameter
+    store[1].grad(0, 0) = 1e38F;  // large but finite
+    auto opt = gyre::optim::make_optimizer("adam", OptimizerConfig{});
+    gyre::optim::Optimizer::Fusion f;
+    opt->prepare_step(store, 0.01F);
+    const auto check0 = opt->update_part(store, 0, 2, f);
+    const auto check1 = opt->update_part(store, 1, 2, f);
+    REQUIRE(check0 == gyre::optim::Optimizer::GradCheck::kFinite);  // part 0 holds the first half
+    REQUIRE(check1 == (std::isnan(bad) ? gyre::optim::Optimizer::GradCheck::kNaN
+                                       : gyre::optim::Optimizer::GradCheck::kInfinite));
   }
 }

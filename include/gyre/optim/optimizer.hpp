@@ -18,6 +18,7 @@
 
 #include <cstdint>
 #include <memory>
+#include <span>
 #include <string>
 #include <string_view>
 #include <utility>
@@ -50,6 +51,40 @@ class Optimizer {
   /// element-wise, so the result is bit-identical to step() for any `parts`.
   void prepare_step(nn::ParameterStore& params, float learning_rate);
   void update_part(nn::ParameterStore& params, int part, int parts);
+
+  /// Work done on each block of parameters in the same pass as its update (issue 13: the
+  /// trainer's reduce, clipping, zeroing and broadcast would otherwise each walk all parameters
+  /// once more, mostly from memory). The stores are replicas of `params` (same parameters, same
+  /// order, same shapes).
+  struct Fusion {
+    /// Gradients added into params' gradients first, store by store in this order (the reduction
+    /// of data-parallel workers). Sparse-row parameters: the rows in each store's touched_rows,
+    /// which must be sorted and unique, and params' touched_rows must already hold their union
+    /// (merge_touched_rows()).
+    std::span<nn::ParameterStore* const> add;
+    /// The gradient (after the adds) is multiplied by this before the update (clipping).
+    float grad_scale = 1.0f;
+    /// Afterwards params' gradients and these stores' gradients are zeroed (sparse-row
+    /// parameters: on params' touched rows; touched_rows themselves are left for the caller to
+    /// clear once every part is done).
+    bool zero = false;
+    std::span<nn::ParameterStore* const> zero_also;
+    /// Afterwards the new values are copied into these stores.
+    std::span<nn::ParameterStore* const> copy_to;
+  };
+  /// What the gradients held, after the adds and before the scaling.
+  enum class GradCheck { kFinite, kInfinite, kNaN };
+  /// update_part() with the work of `fusion`, done block by block (a few KiB at a time, so each
+  /// block is still in cache for every operation on it). The same operations in the same order as
+  /// the separate passes, so the same bits. Sparse-row parameters are split across the parts by
+  /// touched row. The update runs even when a gradient is not finite; the result says so (the
+  /// caller stops training).
+  GradCheck update_part(nn::ParameterStore& params, int part, int parts, const Fusion& fusion);
+  /// Sets touched_rows of params' sparse-row parameters to the sorted union of their own and the
+  /// others' touched rows (each list made sorted and unique first). Allocates only when a list
+  /// outgrows its capacity.
+  static void merge_touched_rows(nn::ParameterStore& params, std::span<nn::ParameterStore* const> others,
+                                 std::vector<std::int32_t>& scratch);
   /// Elements [begin, end) of a dense parameter with `size` values that part `part` of `parts`
   /// owns (the split update_part() uses; the trainer reduces and zeroes gradients by it too).
   static std::pair<Eigen::Index, Eigen::Index> part_range(Eigen::Index size, int part, int parts) noexcept;
