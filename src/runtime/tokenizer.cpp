@@ -116,18 +116,36 @@ class Emitter {
       cut_ = true;
       return false;
     }
-    if (count_ < out_.size())
+    if (count_ < out_.size()) {
       out_[count_].assign(token.data(), token.size());
-    else
+    } else if (auto& spare = spare_slots(); !spare.empty()) {
+      out_.push_back(std::move(spare.back()));  // a slot with its buffer from an earlier, longer text
+      spare.pop_back();
+      out_.back().assign(token.data(), token.size());
+    } else {
       out_.emplace_back(token);
+    }
     if (ranges_) ranges_->push_back({begin, end});
     ++count_;
     return true;
   }
-  void finish() { out_.resize(count_); }
+  /// Drops the slots past the last token, keeping their buffers (tokens over the small-string size
+  /// live on the heap) for the next text on this thread, so a shorter text followed by a longer
+  /// one allocates nothing once the longest text has been seen.
+  void finish() {
+    auto& spare = spare_slots();
+    for (std::size_t i = count_; i < out_.size(); ++i)
+      if (out_[i].capacity() > std::string().capacity()) spare.push_back(std::move(out_[i]));
+    out_.resize(count_);
+  }
   bool wants_ranges() const noexcept { return ranges_ != nullptr; }
 
  private:
+  // Token strings with heap buffers, parked by finish() (per thread: tokenize() may run on many).
+  static std::vector<std::string>& spare_slots() {
+    thread_local std::vector<std::string> spare;
+    return spare;
+  }
   std::vector<std::string>& out_;
   std::size_t max_;
   std::vector<ByteRange>* ranges_;

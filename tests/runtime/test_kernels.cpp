@@ -347,6 +347,20 @@ TEST_CASE("Context allocates nothing per call after warm-up", "[runtime][alloc]"
         for (int rep = 0; rep < 20; ++rep) ctx.classify("w2 w9 unknown w4");
         const long text_path = g_allocations.load() - b1;
         REQUIRE(text_path == 0);  // whitespace tokenizer
+        // Words longer than the small-string buffer (15 bytes in libstdc++), a longer text after a
+        // shorter one: the token slots dropped by the shorter text keep their buffers for the next.
+        const std::string long_text = "w2-with-a-long-suffix w9-with-a-long-suffix unknown-and-also-long "
+                                      "w4-with-a-long-suffix w5-with-a-long-suffix w6-with-a-long-suffix";
+        const std::string short_text = "w2-with-a-long-suffix w9-with-a-long-suffix";
+        ctx.classify(long_text);
+        ctx.classify(short_text);
+        const long b3 = g_allocations.load();
+        for (int rep = 0; rep < 20; ++rep) {
+          ctx.classify(short_text);
+          ctx.classify(long_text);
+        }
+        const long long_words = g_allocations.load() - b3;
+        REQUIRE(long_words == 0);
         ctx.reset();
         ctx.push_id(3);
         const long b2 = g_allocations.load();
