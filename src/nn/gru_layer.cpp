@@ -85,8 +85,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
     else
       hi.row(j).setZero();
   }
-  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false);
-  gates.rowwise() += bias_.value.row(0);
+  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
 
   const Matrix& U = w_hidden_.value;
   const auto bh = bias_hidden_.value.row(0);
@@ -119,7 +118,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
     hs.middleRows(o, n).array() = (1.0f - z) * g.rightCols(H).array() + z * h_prev.middleRows(o, n).array();
   }
 
-  out.setZero();
+  lay.zero_padding(out);
   for (Eigen::Index p = 0; p < N; ++p) out.row(lay.source(p)) = hs.row(p);
   if (h_final != nullptr) {
     if (h_final->rows() != B || h_final->cols() != H) h_final->resize(B, H);
@@ -187,13 +186,16 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
   if (d_x != nullptr) {
     if (accumulate_dx) {
       GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "GruLayer::backward: d_x has the wrong shape");
-    } else {
-      if (d_x->rows() != TB || d_x->cols() != D) d_x->resize(TB, D);
-      d_x->setZero();
+    } else if (d_x->rows() != TB || d_x->cols() != D) {
+      d_x->resize(TB, D);
     }
     MatrixMap dxs = w.dx.view(N, D);
     w.gemm_dx.run(dxs, dgi, detail::Op::kN, w_input_.value, detail::Op::kN, false);
-    for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
+    if (accumulate_dx) {
+      for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
+    } else {
+      lay.scatter_into_zeros(dxs, *d_x);
+    }
   }
   if (d_h0 != nullptr) {
     if (d_h0->rows() != B || d_h0->cols() != H) d_h0->resize(B, H);

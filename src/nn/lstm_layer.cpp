@@ -117,8 +117,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
       ci.row(j).setZero();
   }
   // Input projection of all valid steps in one GEMM, bias folded in.
-  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false);
-  gates.rowwise() += bias_.value.row(0);
+  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
 
   const Matrix& U = w_hidden_.value;
   // Fused AVX-512 step (GEMM + cell in one pass over the gates) when H allows it.
@@ -155,7 +154,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
     hs.middleRows(o, n).array() = g.rightCols(H).array() * tanh_c.middleRows(o, n).array();
   }
 
-  out.setZero();  // padding rows
+  lay.zero_padding(out);
   for (Eigen::Index p = 0; p < N; ++p) out.row(lay.source(p)) = hs.row(p);
   final_state(lay, hi, hs, h_final);
   final_state(lay, ci, cs, c_final);
@@ -219,13 +218,16 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   if (d_x != nullptr) {
     if (accumulate_dx) {
       GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "LstmLayer::backward: d_x has the wrong shape");
-    } else {
-      if (d_x->rows() != TB || d_x->cols() != D) d_x->resize(TB, D);
-      d_x->setZero();
+    } else if (d_x->rows() != TB || d_x->cols() != D) {
+      d_x->resize(TB, D);
     }
     MatrixMap dxs = w.dx.view(N, D);
     w.gemm_dx.run(dxs, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, false);
-    for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
+    if (accumulate_dx) {
+      for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
+    } else {
+      lay.scatter_into_zeros(dxs, *d_x);
+    }
   }
   if (d_h0 != nullptr || d_c0 != nullptr) {
     if (d_h0 != nullptr && (d_h0->rows() != B || d_h0->cols() != H)) d_h0->resize(B, H);

@@ -58,7 +58,7 @@ void Pooling::backward(const Matrix& d_pooled, Matrix& d_seq) const {
   const Eigen::Index F = d_pooled.cols();
   GYRE_CHECK(d_pooled.rows() == B, "Pooling::backward: d_pooled must be [B x F]");
   if (d_seq.rows() != T_ * B || d_seq.cols() != F) d_seq.resize(T_ * B, F);
-  d_seq.setZero();
+  if (kind_ != PoolingKind::kMean) d_seq.setZero();  // mean writes every row below
   switch (kind_) {
     case PoolingKind::kLast: {
       const Eigen::Index H = F / directions_;
@@ -74,6 +74,7 @@ void Pooling::backward(const Matrix& d_pooled, Matrix& d_seq) const {
         const int len = lengths_[static_cast<std::size_t>(b)];
         const float inv = 1.0f / static_cast<float>(len);
         for (Eigen::Index t = 0; t < len; ++t) d_seq.row(t * B + b) = d_pooled.row(b) * inv;
+        for (Eigen::Index t = len; t < T_; ++t) d_seq.row(t * B + b).setZero();  // padding
       }
       break;
     case PoolingKind::kMax:

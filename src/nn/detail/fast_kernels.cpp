@@ -165,20 +165,26 @@ GYRE_AVX512_INLINE __mmask16 cols_mask(std::ptrdiff_t cols) {
   return cols >= 16 ? __mmask16(0xFFFF) : cols <= 0 ? __mmask16(0) : __mmask16((1u << cols) - 1u);
 }
 
-// General GEMM tile: C (+)= acc for `cols` valid columns.
+// General GEMM tile: C (+)= acc for `cols` valid columns, then + bias[col] when bias is given
+// (two roundings, as adding the bias to the finished product).
 template <int M, bool TransA>
 GYRE_AVX512 void gemm_tile(std::ptrdiff_t k, const float* a, std::ptrdiff_t lda, const float* bp, float* c,
-                           std::ptrdiff_t ldc, std::ptrdiff_t cols, bool accumulate) {
+                           std::ptrdiff_t ldc, std::ptrdiff_t cols, bool accumulate, const float* bias) {
   constexpr int NV = kGemmNr / 16;
   __m512 acc[M][NV];
   tile<M, NV, TransA>(k, a, lda, bp, acc);
   if (cols == kGemmNr) {
+    __m512 bv[NV];
+    for (int v = 0; v < NV; ++v)
+      bv[v] = bias != nullptr ? _mm512_loadu_ps(bias + 16 * v) : _mm512_setzero_ps();
 #pragma GCC unroll 16
     for (int r = 0; r < M; ++r)
 #pragma GCC unroll 4
       for (int v = 0; v < NV; ++v) {
         float* p = c + r * ldc + 16 * v;
-        _mm512_storeu_ps(p, accumulate ? _mm512_add_ps(_mm512_loadu_ps(p), acc[r][v]) : acc[r][v]);
+        __m512 out = accumulate ? _mm512_add_ps(_mm512_loadu_ps(p), acc[r][v]) : acc[r][v];
+        if (bias != nullptr) out = _mm512_add_ps(out, bv[v]);
+        _mm512_storeu_ps(p, out);
       }
     return;
   }
@@ -186,8 +192,9 @@ GYRE_AVX512 void gemm_tile(std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
     for (int v = 0; v < NV; ++v) {
       const __mmask16 m = cols_mask(cols - 16 * v);
       float* p = c + r * ldc + 16 * v;
-      _mm512_mask_storeu_ps(p, m,
-                            accumulate ? _mm512_add_ps(_mm512_maskz_loadu_ps(m, p), acc[r][v]) : acc[r][v]);
+      __m512 out = accumulate ? _mm512_add_ps(_mm512_maskz_loadu_ps(m, p), acc[r][v]) : acc[r][v];
+      if (bias != nullptr) out = _mm512_add_ps(out, _mm512_maskz_loadu_ps(m, bias + 16 * v));
+      _mm512_mask_storeu_ps(p, m, out);
     }
 }
 
@@ -196,20 +203,20 @@ constexpr int kGemmMr = 12;
 template <bool TransA>
 GYRE_AVX512 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
                            const float* bp, float* c, std::ptrdiff_t ldc, std::ptrdiff_t cols,
-                           bool accumulate) {
+                           bool accumulate, const float* bias) {
   // a points at the tile's first row (row-major) or first column (transposed storage).
   const std::ptrdiff_t row_step = TransA ? 1 : lda;
   std::ptrdiff_t r = 0;
   for (; r + kGemmMr <= rows; r += kGemmMr)
-    gemm_tile<kGemmMr, TransA>(k, a + r * row_step, lda, bp, c + r * ldc, ldc, cols, accumulate);
+    gemm_tile<kGemmMr, TransA>(k, a + r * row_step, lda, bp, c + r * ldc, ldc, cols, accumulate, bias);
   const float* ar = a + r * row_step;
   float* cr = c + r * ldc;
   switch (rows - r) {
     case 0:
       break;
-#define GYRE_TAIL(R)                                                 \
-  case R:                                                            \
-    gemm_tile<R, TransA>(k, ar, lda, bp, cr, ldc, cols, accumulate); \
+#define GYRE_TAIL(R)                                                       \
+  case R:                                                                  \
+    gemm_tile<R, TransA>(k, ar, lda, bp, cr, ldc, cols, accumulate, bias); \
     break;
       GYRE_TAIL(1)
       GYRE_TAIL(2)
@@ -231,18 +238,20 @@ GYRE_AVX512 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* a
 template <bool TransA>
 GYRE_AVX512 void gemm_avx512(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a,
                              std::ptrdiff_t lda, const float* bp, float* c, std::ptrdiff_t ldc,
-                             bool accumulate) {
+                             bool accumulate, const float* bias) {
   const std::ptrdiff_t panels = (n + kGemmNr - 1) / kGemmNr;
   for (std::ptrdiff_t pc = 0; pc < k; pc += kGemmKc) {
     const std::ptrdiff_t kb = std::min<std::ptrdiff_t>(kGemmKc, k - pc);
     const bool acc = accumulate || pc > 0;
+    const bool last = pc + kb >= k;  // the bias goes onto the finished sum
     for (std::ptrdiff_t ic = 0; ic < m; ic += kGemmMc) {
       const std::ptrdiff_t mb = std::min<std::ptrdiff_t>(kGemmMc, m - ic);
       const float* ablk = TransA ? a + pc * lda + ic : a + ic * lda + pc;
       for (std::ptrdiff_t p = 0; p < panels; ++p) {
         const float* bpan = bp + p * kGemmNr * k + pc * kGemmNr;
         gemm_rows<TransA>(mb, kb, ablk, lda, bpan, c + ic * ldc + p * kGemmNr, ldc,
-                          std::min<std::ptrdiff_t>(kGemmNr, n - p * kGemmNr), acc);
+                          std::min<std::ptrdiff_t>(kGemmNr, n - p * kGemmNr), acc,
+                          last && bias != nullptr ? bias + p * kGemmNr : nullptr);
       }
     }
   }
@@ -671,17 +680,20 @@ void gru_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_o
 
 void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
                  bool trans_a, const float* bp, float* c, std::ptrdiff_t ldc, bool accumulate,
-                 float* /*work*/) {
+                 float* /*work*/, const float* bias) {
   if (m <= 0 || n <= 0) return;
   if (k <= 0) {
     if (!accumulate)
       for (std::ptrdiff_t i = 0; i < m; ++i) std::fill(c + i * ldc, c + i * ldc + n, 0.0f);
+    if (bias != nullptr)
+      for (std::ptrdiff_t i = 0; i < m; ++i)
+        for (std::ptrdiff_t j = 0; j < n; ++j) c[i * ldc + j] += bias[j];
     return;
   }
   if (trans_a)
-    gemm_avx512<true>(m, n, k, a, lda, bp, c, ldc, accumulate);
+    gemm_avx512<true>(m, n, k, a, lda, bp, c, ldc, accumulate, bias);
   else
-    gemm_avx512<false>(m, n, k, a, lda, bp, c, ldc, accumulate);
+    gemm_avx512<false>(m, n, k, a, lda, bp, c, ldc, accumulate, bias);
 }
 
 void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, const float* c_prev,
@@ -713,7 +725,7 @@ void gru_cell_backward(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdif
 }
 
 void gemm_packed(std::ptrdiff_t, std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, bool,
-                 const float*, float*, std::ptrdiff_t, bool, float*) {
+                 const float*, float*, std::ptrdiff_t, bool, float*, const float*) {
   std::abort();
 }
 void lstm_step(std::ptrdiff_t, std::ptrdiff_t, const float*, const float*, std::ptrdiff_t, const float*,

@@ -54,8 +54,11 @@ void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out);
 /// C[m x n] = A B (or C += A B when accumulate). A: [m x k] row-major, row stride lda (or, with
 /// trans_a, stored as its transpose [k x m] with row stride lda). bp: op(B) packed by pack_b.
 /// work: at least work_size(m, k, trans_a) floats, 64-byte aligned (used for a transposed A).
+/// bias [n], when given, is added to every row of the result in the epilogue of the last k block
+/// (the bits of adding it to C afterwards, without another pass over C).
 void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
-                 bool trans_a, const float* bp, float* c, std::ptrdiff_t ldc, bool accumulate, float* work);
+                 bool trans_a, const float* bp, float* c, std::ptrdiff_t ldc, bool accumulate, float* work,
+                 const float* bias = nullptr);
 inline std::size_t work_size(bool trans_a) {
   return trans_a ? static_cast<std::size_t>(kGemmMc) * kGemmKc : 0;
 }

@@ -33,9 +33,10 @@ enum class Op { kN, kT };
 class Gemm {
  public:
   /// C = op(A) op(B), or C += op(A) op(B) when accumulate. All operands row-major with unit inner
-  /// stride (whole matrices, maps or column blocks).
+  /// stride (whole matrices, maps or column blocks). bias [n], when given, is then added to every
+  /// row of C (on the AVX-512 path in the product's epilogue; the same bits either way).
   void run(Eigen::Ref<Matrix> c, Eigen::Ref<const Matrix> a, Op op_a, Eigen::Ref<const Matrix> b, Op op_b,
-           bool accumulate) {
+           bool accumulate, const float* bias = nullptr) {
     const Eigen::Index m = c.rows(), n = c.cols();
     const Eigen::Index k = op_a == Op::kN ? a.cols() : a.rows();
     eigen_assert((op_a == Op::kN ? a.rows() : a.cols()) == m);
@@ -45,11 +46,15 @@ class Gemm {
       float* bp = packed_b_.reserve(fast::packed_size(k, n));
       fast::pack_b(b.data(), b.outerStride(), op_b == Op::kT, k, n, bp);
       fast::gemm_packed(m, n, k, a.data(), a.outerStride(), op_a == Op::kT, bp, c.data(), c.outerStride(),
-                        accumulate, nullptr);
+                        accumulate, nullptr, bias);
       return;
     }
     if (!accumulate) c.setZero();
-    if (m == 0 || n == 0 || k == 0) return;
+    if (m == 0 || n == 0) return;
+    if (k == 0) {
+      if (bias != nullptr) c.rowwise() += Eigen::Map<const Eigen::Matrix<float, 1, Eigen::Dynamic>>(bias, n);
+      return;
+    }
     // A row-major destination is computed by Eigen as the transposed, column-major product: its
     // "rows" are our n and its "cols" our m (GeneralMatrixMatrix.h, RowMajor specialisation).
     // The kernel is the best variant for this CPU (sgemm.hpp); the blocking is its own for this
@@ -61,6 +66,7 @@ class Gemm {
     float* block_b = buffer_b_.reserve(kc * nc);
     kernel.run(m, n, k, a.data(), a.outerStride(), op_a == Op::kT, b.data(), b.outerStride(), op_b == Op::kT,
                c.data(), c.outerStride(), kc, mc, nc, block_a, block_b);
+    if (bias != nullptr) c.rowwise() += Eigen::Map<const Eigen::Matrix<float, 1, Eigen::Dynamic>>(bias, n);
   }
 
  private:

@@ -66,6 +66,21 @@ class SequenceLayout {
   /// Original batch index of sorted position j, and its length.
   int sequence(int j) const noexcept { return order_[static_cast<std::size_t>(j)]; }
   int length(int j) const noexcept { return sorted_lengths_[static_cast<std::size_t>(j)]; }
+  /// Zeroes the padding rows (step t >= the sequence's length) of a time-major [T*B x F] buffer:
+  /// the rows that no packed row is scattered to (issue 13: instead of zeroing the whole buffer
+  /// and then overwriting most of it).
+  template <class Rows>
+  void zero_padding(Rows&& m) const {
+    for (int j = 0; j < B_; ++j)
+      for (int t = length(j); t < T_; ++t) m.row(static_cast<Eigen::Index>(t) * B_ + sequence(j)).setZero();
+  }
+  /// Writes packed row p of `packed` to row source(p) of the time-major `m` as 0 + value: the bits
+  /// of adding it into a zeroed buffer (-0 becomes +0), without zeroing the buffer first.
+  template <class Rows, class Packed>
+  void scatter_into_zeros(const Packed& packed, Rows&& m) const {
+    zero_padding(m);
+    for (Eigen::Index p = 0; p < rows(); ++p) m.row(source(p)) = (packed.row(p).array() + 0.0f).matrix();
+  }
 
  private:
   int B_ = 0, T_ = 0;
