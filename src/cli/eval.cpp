@@ -238,6 +238,10 @@ json confident_mistakes(const EvalOptions& o, const io::TrainedModel& trained, c
       const json why = train::explain(trained, encoded, tokens, top);
       std::printf("    why %s: %s\n", spec.labels[static_cast<std::size_t>(top)].c_str(),
                   train::explain_summary(why).c_str());
+      if (why.contains("ngram_part"))  // the part's exact share of the label's logit
+        std::printf("    n-gram part (logit %+.3f, bias %+.3f): %s\n",
+                    why["ngram_part"]["logit"].get<double>(), why["ngram_part"]["bias"].get<double>(),
+                    train::explain_summary(why, 4, "ngram_part").c_str());
       errors.push_back({{"line", ex.line},
                         {"text", ex.text},
                         {"gold", ex.labels},

@@ -17,14 +17,15 @@ void check_order(int order) {
   }
 }
 
-// Calls f(key) for every key of tokens[0..n) for orders 1..order (see the header), in order of
-// appearance, with repeats, building each key in `key` (reused: no allocation once it has held the
-// longest key). Keys that contain token `skip` are left out.
+// Calls f(key, first, last) for every key of tokens[0..n) for orders 1..order (see the header), in
+// order of appearance, with repeats, building each key in `key` (reused: no allocation once it has
+// held the longest key); tokens first..last (inclusive, markers not counted) are those the key
+// covers. Keys that contain token `skip` are left out.
 template <class F>
 void for_each_key(const std::string* tokens, std::size_t n, int order, std::size_t skip, std::string& key,
                   F&& f) {
   for (std::size_t i = 0; i < n; ++i)
-    if (i != skip) f(std::string_view(tokens[i]));
+    if (i != skip) f(std::string_view(tokens[i]), i, i);
   if (n == 0) return;
   // Items of the padded list: 0 = begin marker, n + 1 = end marker, i = token i - 1.
   const std::size_t padded = n + 2;
@@ -42,7 +43,10 @@ void for_each_key(const std::string* tokens, std::size_t n, int order, std::size
         key += kNgramJoin;
         key += item(start + k);
       }
-      f(std::string_view(key));
+      // Padded items start..start+len-1 are tokens start-1..start+len-2, clipped to 0..n-1.
+      const std::size_t first = start == 0 ? 0 : start - 1;
+      const std::size_t last = std::min(start + len - 2, n - 1);
+      f(std::string_view(key), first, last);
     }
   }
 }
@@ -53,7 +57,7 @@ void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<s
   check_order(order);
   std::string key;
   for_each_key(tokens.data(), tokens.size(), order, NgramPart::kKeepAll, key,
-               [&](std::string_view k) { out.emplace_back(k); });
+               [&](std::string_view k, std::size_t, std::size_t) { out.emplace_back(k); });
 }
 
 NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights,
@@ -103,7 +107,7 @@ void NgramPart::features(const std::string* tokens, std::size_t n, std::vector<s
   value.clear();
   if (empty()) return;
   scratch.ids.clear();
-  for_each_key(tokens, n, order_, skip, scratch.key, [&](std::string_view key) {
+  for_each_key(tokens, n, order_, skip, scratch.key, [&](std::string_view key, std::size_t, std::size_t) {
     const std::int32_t id = find(key);
     if (id >= 0) scratch.ids.push_back(id);
   });
@@ -141,6 +145,33 @@ void NgramPart::add_scores(const std::string* tokens, std::size_t n, float* logi
     }
     logits[c] += mix_ * z;
   }
+}
+
+float NgramPart::token_shares(const std::string* tokens, std::size_t n, int label, float* shares,
+                              NgramScratch& scratch) const {
+  if (!empty() && (label < 0 || label >= classes_))
+    throw Error("n-gram part: label " + std::to_string(label) + " is outside 0.." +
+                std::to_string(classes_ - 1));
+  for (std::size_t i = 0; i < n; ++i) shares[i] = 0.0F;
+  if (empty()) return 0.0F;
+  features(tokens, n, scratch.index, scratch.values, scratch);  // x, and scratch.ids = known keys, sorted
+  const auto classes = static_cast<std::size_t>(classes_);
+  const auto c = static_cast<std::size_t>(label);
+  // Every occurrence of key k takes 1/count of mix * W[c, k] * x_k and splits it equally among the
+  // tokens it covers (begin/end markers take no share).
+  for_each_key(tokens, n, order_, kKeepAll, scratch.key,
+               [&](std::string_view key, std::size_t first, std::size_t last) {
+                 const std::int32_t id = find(key);
+                 if (id < 0) return;
+                 const auto at = std::lower_bound(scratch.index.begin(), scratch.index.end(), id);
+                 const auto occurrences = std::upper_bound(scratch.ids.begin(), scratch.ids.end(), id) -
+                                          std::lower_bound(scratch.ids.begin(), scratch.ids.end(), id);
+                 const float x = scratch.values[static_cast<std::size_t>(at - scratch.index.begin())];
+                 const float part = mix_ * weights_[static_cast<std::size_t>(id) * classes + c] * x /
+                                    static_cast<float>(occurrences) / static_cast<float>(last - first + 1);
+                 for (std::size_t t = first; t <= last; ++t) shares[t] += part;
+               });
+  return mix_ * bias_[c];
 }
 
 }  // namespace gyre::runtime

@@ -228,3 +228,64 @@ TEST_CASE("pick and export's dev check run an exported model with an n-gram part
                WithinAbs(from_checkpoint[i]["probability"].get<double>(), 1e-5));
   }
 }
+
+TEST_CASE("predict --why shows the n-gram part's share beside the network's", "[cli]") {
+  fs::create_directories(dir());
+  const std::string train = kDemo + "sentiment.train.tsv", dev = kDemo + "sentiment.dev.tsv";
+  const auto out = (dir() / "why-part").string();
+  fs::remove_all(out);
+  const auto t = gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
+                           "--embedding-size", "8", "--no-baseline", "--quiet", "--out", out});
+  INFO(t.err);
+  REQUIRE(t.exit_code == 0);
+  REQUIRE(json::parse(gyre::read_file(fs::path(out) / "metrics.json"))["ngram_part"]["mix"].get<double>() >
+          0);
+  const auto exported = (dir() / "why-part.gyre").string();
+  REQUIRE(gyre_cli({"export", out, "--out", exported, "--precision", "f32", "--no-check"}).exit_code == 0);
+  const auto input = (dir() / "why-input.txt").string();
+  gyre::write_file_atomic(input, "the engineer was late and rude and the kettle still leaks\nvery happy\n");
+  const auto why = [&](const std::string& model) {
+    const auto r = gyre_cli({"predict", model, "--input", input, "--format", "jsonl", "--why"});
+    INFO(r.err);
+    REQUIRE(r.exit_code == 0);
+    std::vector<json> rows;
+    std::istringstream in(r.out);
+    std::string line;
+    while (std::getline(in, line)) rows.push_back(json::parse(line).at("why"));
+    return rows;
+  };
+  const auto library = why(out), runtime = why(exported);
+  REQUIRE(library.size() == 2);
+  REQUIRE(runtime.size() == 2);
+  for (std::size_t i = 0; i < 2; ++i) {
+    const json& a = library[i];
+    const json& b = runtime[i];
+    CHECK(a.at("method") == "integrated_gradients");
+    CHECK(b.at("method") == "occlusion");
+    REQUIRE(a.contains("ngram_part"));
+    REQUIRE(b.contains("ngram_part"));
+    CHECK(a["ngram_part"]["unit"] == "logit");
+    // The shares and the bias add up to the part's addition to the label's logit.
+    double sum = 0;
+    for (const auto& tok : a.at("tokens")) sum += tok.at("ngram_part").get<double>();
+    CHECK_THAT(sum, WithinAbs(a["ngram_part"]["sum"].get<double>(), 1e-9));
+    CHECK_THAT(a["ngram_part"]["bias"].get<double>() + sum,
+               WithinAbs(a["ngram_part"]["logit"].get<double>(), 1e-5));
+    // The part's share does not depend on the engine (f32 file: the same weights).
+    REQUIRE(a.at("tokens").size() == b.at("tokens").size());
+    for (std::size_t k = 0; k < a.at("tokens").size(); ++k)
+      CHECK_THAT(a["tokens"][k]["ngram_part"].get<double>(),
+                 WithinAbs(b["tokens"][k]["ngram_part"].get<double>(), 1e-5));
+  }
+  // A model without a part shows the network's share only.
+  const auto plain = (dir() / "why-plain").string();
+  fs::remove_all(plain);
+  REQUIRE(
+      gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
+                "--embedding-size", "8", "--no-baseline", "--ngram-part", "off", "--quiet", "--out", plain})
+          .exit_code == 0);
+  const auto none = why(plain);
+  REQUIRE(none.size() == 2);
+  CHECK_FALSE(none[0].contains("ngram_part"));
+  CHECK_FALSE(none[0]["tokens"][0].contains("ngram_part"));
+}

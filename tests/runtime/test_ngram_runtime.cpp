@@ -339,3 +339,48 @@ TEST_CASE("n-gram part: the C API reports it and gyre_classify applies it", "[ru
   CHECK(gyre_model_has_ngram_part(model) == 0);
   gyre_model_free(model);
 }
+
+TEST_CASE("n-gram part: token shares split each key's exact term over the tokens it covers",
+          "[runtime][ngram]") {
+  // Tokens a b a, order 2: keys a, b, a (order 1) and <s>+a, a+b, b+a, a+</s> (order 2); b+a is
+  // not a key of the part. Expected shares worked out by hand from the rule (header of
+  // NgramPart::token_shares): x = (1 + ln count) / norm over the known keys; key k's term
+  // mix * W[c, k] * x_k goes 1/count to each occurrence and, within one, equally to its tokens.
+  const std::string J(1, gyre::runtime::kNgramJoin);
+  const std::string begin(gyre::runtime::kNgramBegin), end(gyre::runtime::kNgramEnd);
+  const std::vector<std::string> keys = {begin + J + "a", "a", "a" + J + end, "a" + J + "b", "b"};
+  REQUIRE(std::is_sorted(keys.begin(), keys.end()));
+  const std::vector<double> w1 = {0.5, 2.0, -1.0, 0.25, 3.0}, w0 = {-0.2, 0.1, 0.4, 1.5, -2.0};
+  std::vector<float> weights;  // feature-major: [k * C + c]
+  for (std::size_t k = 0; k < keys.size(); ++k) {
+    weights.push_back(static_cast<float>(w0[k]));
+    weights.push_back(static_cast<float>(w1[k]));
+  }
+  const double mix = 1.5;
+  const NgramPart part(2, keys, weights, {0.1F, -0.3F}, static_cast<float>(mix));
+  const std::vector<std::string> tokens = {"a", "b", "a"};
+  const double va = 1.0 + std::log(2.0), norm = std::sqrt(va * va + 4.0);
+  const double x1 = 1.0 / norm, xa = va / norm;
+  for (int label = 0; label < 2; ++label) {
+    const auto& w = label == 0 ? w0 : w1;
+    const double want[3] = {mix * (w[0] * x1 + w[1] * xa / 2 + w[3] * x1 / 2),
+                            mix * (w[3] * x1 / 2 + w[4] * x1), mix * (w[1] * xa / 2 + w[2] * x1)};
+    gyre::runtime::NgramScratch scratch;
+    std::vector<float> shares(3, 99.0F);
+    const float bias = part.token_shares(tokens.data(), tokens.size(), label, shares.data(), scratch);
+    INFO("label " << label);
+    CHECK_THAT(bias, WithinAbs(mix * (label == 0 ? 0.1 : -0.3), 1e-6));
+    for (int t = 0; t < 3; ++t) CHECK_THAT(shares[static_cast<std::size_t>(t)], WithinAbs(want[t], 1e-6));
+    // Complete: the shares and the bias add up to what the part adds to the logit.
+    std::vector<float> logits(2, 0.0F);
+    part.add_scores(tokens, logits.data(), scratch);
+    CHECK_THAT(shares[0] + shares[1] + shares[2] + bias,
+               WithinAbs(logits[static_cast<std::size_t>(label)], 1e-6));
+  }
+  // No tokens: no shares, the bias only; a label out of range is refused.
+  gyre::runtime::NgramScratch scratch;
+  float none = 0.0F;
+  CHECK_THAT(part.token_shares(tokens.data(), 0, 1, &none, scratch), WithinAbs(mix * -0.3, 1e-6));
+  std::vector<float> shares(3);
+  CHECK_THROWS_AS(part.token_shares(tokens.data(), 3, 2, shares.data(), scratch), Error);
+}

@@ -87,6 +87,18 @@ class NgramPart {
   void add_scores(const std::string* tokens, std::size_t n, float* logits, NgramScratch& scratch,
                   std::size_t skip = kKeepAll) const;
 
+  /// The part's exact share of label `label`'s logit, per token of tokens[0 .. n): the part adds
+  /// mix * (b[label] + sum_k W[label, k] x_k) to that logit (before the temperature), and since it is
+  /// linear each key's term mix * W[label, k] * x_k is its own. Rule: the term of a key seen m
+  /// times in the text is split equally among its m occurrences, and an occurrence's share equally
+  /// among the tokens it covers (the begin/end markers take none; order-1 keys cover one token).
+  /// shares[0 .. n) get the sums (overwritten); returns mix * b[label], the share of no token, so
+  /// the shares plus the return value add up to the part's addition to the logit (up to float
+  /// rounding). An empty part gives zeros. Throws Error (before writing) for a label outside
+  /// 0..classes()-1.
+  float token_shares(const std::string* tokens, std::size_t n, int label, float* shares,
+                     NgramScratch& scratch) const;
+
  private:
   int order_ = 0;
   int classes_ = 0;
