@@ -215,18 +215,18 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
   return loss_sum;
 }
 
-TokenAttribution SequenceModel::integrated_gradients(std::span<const std::int32_t> ids, int target,
-                                                     int steps) {
+TokenAttribution SequenceModel::integrated_gradients(std::span<const std::int32_t> ids, int target, int steps,
+                                                     int points_per_batch) {
   GYRE_CHECK(!chars_,
              "integrated gradients: this model has a character encoder; pass the encoded example with its "
              "characters");
   data::EncodedExample example;
   example.ids.assign(ids.begin(), ids.end());
-  return integrated_gradients(example, target, steps);
+  return integrated_gradients(example, target, steps, points_per_batch);
 }
 
 TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample& example, int target,
-                                                     int steps) {
+                                                     int steps, int points_per_batch) {
   const std::span<const std::int32_t> ids = example.ids;
   GYRE_CHECK(spec_.task == data::Task::kClassify, "integrated gradients: only for classifiers");
   GYRE_CHECK(!chars_ || example.char_offsets.size() == ids.size() + 1,
@@ -234,10 +234,15 @@ TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample&
   GYRE_CHECK(!ids.empty(), "integrated gradients: the text has no tokens");
   GYRE_CHECK(target >= 0 && target < spec_.num_labels(), "integrated gradients: target label out of range");
   GYRE_CHECK(steps >= 1, "integrated gradients: at least one step");
+  GYRE_CHECK(points_per_batch >= 0, "integrated gradients: points per batch must be >= 0 (0 = automatic)");
   for (const auto id : ids)
     GYRE_CHECK(id >= 0 && id < spec_.vocab_size, "integrated gradients: token id out of range");
   const int T = static_cast<int>(ids.size());
-  const int B = steps + 1;  // alpha = 0, 1/steps, ..., 1
+  const int points = steps + 1;  // alpha = 0, 1/steps, ..., 1
+  // Points per forward/backward batch: the caches grow with T * batch rows, so a long text runs its
+  // path in several batches (one point at least) instead of T * (steps + 1) rows at once.
+  const int per_batch =
+      std::min(points, points_per_batch > 0 ? points_per_batch : std::max(1, kIntegratedGradientsRows / T));
   const auto C = static_cast<std::size_t>(spec_.num_labels());
   const Eigen::Index E = spec_.input_size();
   if (chars_) {
@@ -250,39 +255,54 @@ TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample&
   } else {
     embedding_->forward(ids, text_embedding_);  // [T x E]
   }
-  x_.resize(static_cast<Eigen::Index>(T) * B, E);
-  for (int t = 0; t < T; ++t)
-    for (int b = 0; b < B; ++b)
-      x_.row(t * B + b) = text_embedding_.row(t) * (static_cast<float>(b) / static_cast<float>(steps));
-  lengths_.assign(static_cast<std::size_t>(B), T);
-  rnn_->forward(x_, T, lengths_, h_, false, nullptr);
-  pooling_.forward(h_, T, lengths_, pooled_);
-  head_->forward(pooled_, logits_);
   // F = p_target of the (tempered) output; dF/dz by hand:
   //   softmax: dp_k/dz_c = p_k (delta_kc - p_c) / T;  sigmoid: dp_k/dz_k = p_k (1 - p_k) / T_k.
   const bool tempered = calibrated_ && !spec_.temperature.empty();
   const auto k = static_cast<std::size_t>(target);
-  d_logits_.setZero(B, static_cast<Eigen::Index>(C));
   std::vector<float> p(C);
-  std::vector<double> f(static_cast<std::size_t>(B));
-  for (int b = 0; b < B; ++b) {
-    const float* z = &logits_(b, 0);
-    if (spec_.output == OutputKind::kSigmoid) {
-      const float temp = tempered ? spec_.temperature[k] : 1.0f;
-      const float pk = runtime::tempered_sigmoid(z[k], temp);
-      f[static_cast<std::size_t>(b)] = pk;
-      d_logits_(b, static_cast<Eigen::Index>(k)) = pk * (1.0f - pk) / temp;
-    } else {
-      const float temp = tempered ? spec_.temperature[0] : 1.0f;
-      runtime::tempered_softmax(z, C, temp, p.data());
-      f[static_cast<std::size_t>(b)] = p[k];
-      for (std::size_t c = 0; c < C; ++c)
-        d_logits_(b, static_cast<Eigen::Index>(c)) = p[k] * ((c == k ? 1.0f : 0.0f) - p[c]) / temp;
+  std::vector<double> f(static_cast<std::size_t>(points));
+  // Per token: sum over the points of w_b * (dF/dx_t at point b) . x_t, added point by point in
+  // order whatever the batches (trapezoid weights w_b: 1/2 at both ends).
+  std::vector<double> integral_dot(static_cast<std::size_t>(T), 0.0);
+  for (int first = 0; first < points; first += per_batch) {
+    const int B = std::min(per_batch, points - first);
+    x_.resize(static_cast<Eigen::Index>(T) * B, E);
+    for (int t = 0; t < T; ++t)
+      for (int b = 0; b < B; ++b)
+        x_.row(t * B + b) =
+            text_embedding_.row(t) * (static_cast<float>(first + b) / static_cast<float>(steps));
+    lengths_.assign(static_cast<std::size_t>(B), T);
+    rnn_->forward(x_, T, lengths_, h_, false, nullptr);
+    pooling_.forward(h_, T, lengths_, pooled_);
+    head_->forward(pooled_, logits_);
+    d_logits_.setZero(B, static_cast<Eigen::Index>(C));
+    for (int b = 0; b < B; ++b) {
+      const float* z = &logits_(b, 0);
+      double& fb = f[static_cast<std::size_t>(first + b)];
+      if (spec_.output == OutputKind::kSigmoid) {
+        const float temp = tempered ? spec_.temperature[k] : 1.0f;
+        const float pk = runtime::tempered_sigmoid(z[k], temp);
+        fb = pk;
+        d_logits_(b, static_cast<Eigen::Index>(k)) = pk * (1.0f - pk) / temp;
+      } else {
+        const float temp = tempered ? spec_.temperature[0] : 1.0f;
+        runtime::tempered_softmax(z, C, temp, p.data());
+        fb = p[k];
+        for (std::size_t c = 0; c < C; ++c)
+          d_logits_(b, static_cast<Eigen::Index>(c)) = p[k] * ((c == k ? 1.0f : 0.0f) - p[c]) / temp;
+      }
     }
+    head_->backward(d_logits_, &d_pooled_);
+    pooling_.backward(d_pooled_, d_h_);
+    rnn_->backward(d_h_, d_x_);
+    for (int t = 0; t < T; ++t)
+      for (int b = 0; b < B; ++b) {
+        const int point = first + b;
+        const double w = (point == 0 || point == steps) ? 0.5 : 1.0;
+        integral_dot[static_cast<std::size_t>(t)] +=
+            w * static_cast<double>(d_x_.row(t * B + b).dot(text_embedding_.row(t)));
+      }
   }
-  head_->backward(d_logits_, &d_pooled_);
-  pooling_.backward(d_pooled_, d_h_);
-  rnn_->backward(d_h_, d_x_);
   params_.zero_grad();  // the layers added parameter gradients nobody asked for
   TokenAttribution out;
   out.steps = steps;
@@ -290,12 +310,8 @@ TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample&
   out.baseline_output = f.front();
   out.scores.assign(static_cast<std::size_t>(T), 0.0f);
   for (int t = 0; t < T; ++t) {
-    double integral_dot = 0.0;  // sum_e x_te * trapezoid mean of dF/dx_te over alpha
-    for (int b = 0; b < B; ++b) {
-      const double w = (b == 0 || b == steps) ? 0.5 : 1.0;
-      integral_dot += w * static_cast<double>(d_x_.row(t * B + b).dot(text_embedding_.row(t)));
-    }
-    out.scores[static_cast<std::size_t>(t)] = static_cast<float>(integral_dot / steps);
+    out.scores[static_cast<std::size_t>(t)] =
+        static_cast<float>(integral_dot[static_cast<std::size_t>(t)] / steps);
     out.sum += out.scores[static_cast<std::size_t>(t)];
   }
   return out;

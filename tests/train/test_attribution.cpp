@@ -3,8 +3,10 @@
 
 #include <catch2/catch.hpp>
 
+#include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <string>
 #include <vector>
 
 #include "gyre/core/error.hpp"
@@ -119,6 +121,65 @@ TEST_CASE("integrated gradients add up to the output change (completeness)", "[t
     gyre::data::EncodedExample no_chars;
     no_chars.ids = ids;
     REQUIRE_THROWS_AS(c.model->integrated_gradients(no_chars, 0), gyre::Error);
+  }
+}
+
+TEST_CASE("integrated gradients do not depend on how the path is batched", "[train][attribution]") {
+  using gyre::nn::CellType;
+  using gyre::nn::PoolingKind;
+  // The path's 65 points in one batch, and in batches of 1, 7 and 64 points (the last batch holds
+  // the rest), and the automatic choice (kIntegratedGradientsRows token rows per batch, which for a
+  // text longer than 4096 / 65 tokens is several batches). The sums per token run point by point
+  // in the same order, so only the products' rounding for another batch size may differ: 1e-6
+  // relative to max(1, |value|) (our tolerance for float32 products; measured: identical here).
+  // The long text's attributions are large for the random LSTMs (their gradients grow along 72
+  // steps), hence the relative tolerance.
+  const struct {
+    const char* name;
+    gyre::model::ModelSpec spec;
+  } cases[] = {
+      {"lstm mean softmax", classifier(CellType::kLstm, false, PoolingKind::kMean, OutputKind::kSoftmax)},
+      {"gru bi last sigmoid", classifier(CellType::kGru, true, PoolingKind::kLast, OutputKind::kSigmoid)},
+      {"lstm bi max softmax with characters",
+       with_characters(classifier(CellType::kLstm, true, PoolingKind::kMax, OutputKind::kSoftmax))},
+  };
+  std::uint64_t seed = 90;
+  for (const auto& c : cases) {
+    SECTION(c.name) {
+      auto spec = c.spec;
+      spec.temperature.assign(c.spec.output == OutputKind::kSigmoid ? 3 : 1, 1.3f);
+      auto m = gyre::test::random_model(spec, seed++);
+      std::string long_text;
+      for (int i = 0; i < 8; ++i) long_text += "the kettle on Monday , cancel the washer please ";
+      for (const std::string& text :
+           {std::string("Can you come on Monday at 3pm , the kettle is fine thanks"), long_text}) {
+        const auto ex = encode(m, text.c_str());
+        CAPTURE(ex.ids.size());
+        // The long text needs several batches under the automatic choice.
+        if (text == long_text) REQUIRE(ex.ids.size() * 65 > gyre::model::kIntegratedGradientsRows);
+        for (int target = 0; target < 3; ++target) {
+          CAPTURE(target);
+          const auto whole = m.model->integrated_gradients(ex, target, 64, 65);
+          for (const int per_batch : {1, 7, 64, 0}) {
+            CAPTURE(per_batch);
+            const auto a = m.model->integrated_gradients(ex, target, 64, per_batch);
+            REQUIRE(a.scores.size() == whole.scores.size());
+            CHECK(a.steps == 64);
+            CHECK_THAT(a.output, WithinAbs(whole.output, 1e-6));
+            CHECK_THAT(a.baseline_output, WithinAbs(whole.baseline_output, 1e-6));
+            CHECK_THAT(a.sum, WithinAbs(whole.sum, 1e-6));
+            for (std::size_t t = 0; t < a.scores.size(); ++t)
+              CHECK_THAT(a.scores[t], WithinAbs(whole.scores[t], 1e-6));
+          }
+        }
+      }
+    }
+  }
+  SECTION("a negative batch size is refused") {
+    auto m = gyre::test::random_model(
+        classifier(CellType::kLstm, false, PoolingKind::kMean, OutputKind::kSoftmax), 3);
+    const std::vector<std::int32_t> ids{2, 3};
+    REQUIRE_THROWS_AS(m.model->integrated_gradients(ids, 0, 64, -1), gyre::Error);
   }
 }
 

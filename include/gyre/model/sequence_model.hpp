@@ -50,6 +50,11 @@ struct Prediction {
   std::vector<std::int32_t> tags;
 };
 
+/// Token rows (points x text length) per forward/backward batch of integrated gradients when the
+/// caller does not choose the points per batch: about the rows of a training batch (32 texts of
+/// 128 tokens), so explaining a long text needs no more memory than training did. Our choice.
+inline constexpr int kIntegratedGradientsRows = 4096;
+
 /// Per-token attributions of one classified text (SequenceModel::integrated_gradients).
 struct TokenAttribution {
   std::vector<float> scores;     // one per token: its share of output - baseline_output
@@ -103,15 +108,21 @@ class SequenceModel {
   /// eq. 1 and section 5) of the target label's probability (calibrated when calibrated() is on)
   /// with respect to the token embeddings, from the all-zero embedding baseline (the padding
   /// row) along the straight path, integrated by the trapezoid rule over `steps` intervals: token
-  /// t gets sum_e x_te * integral of dF/dx_te. All steps run as one batch. Classifiers only;
-  /// throws gyre::Error for a tagger, an empty text, a bad id or target, steps < 1. Clears the
+  /// t gets sum_e x_te * integral of dF/dx_te. The steps + 1 points of the path run in batches of
+  /// `points_per_batch` points (0: as many as keep a batch within kIntegratedGradientsRows token
+  /// rows, at least one), so the memory does not grow with steps * text length; the attributions
+  /// do not depend on the batching beyond float rounding of the products. Classifiers only;
+  /// throws gyre::Error for a tagger, an empty text, a bad id or target, steps < 1,
+  /// points_per_batch < 0. Clears the
   /// parameter gradients (it uses the backward pass); not for a replica in the middle of a step.
   /// With a character encoder the path runs over the recurrent stack's whole input, [word
   /// embedding, character features] (the same zero baseline: the padding row and a token without
   /// characters); use the overload that takes the example, the ids-only one throws for such a model.
-  TokenAttribution integrated_gradients(std::span<const std::int32_t> ids, int target, int steps = 64);
+  TokenAttribution integrated_gradients(std::span<const std::int32_t> ids, int target, int steps = 64,
+                                        int points_per_batch = 0);
   /// Same for an encoded text: its ids, and its characters for a model with a character encoder.
-  TokenAttribution integrated_gradients(const data::EncodedExample& example, int target, int steps = 64);
+  TokenAttribution integrated_gradients(const data::EncodedExample& example, int target, int steps = 64,
+                                        int points_per_batch = 0);
 
   /// Sets the temperature scaling (see ModelSpec::temperature; empty removes it). Throws
   /// ConfigError on a wrong count or a value outside [0.01, 100].
