@@ -5,6 +5,7 @@
 #include <functional>
 #include <limits>
 #include <map>
+#include <type_traits>
 
 #include "gyre/core/error.hpp"
 
@@ -15,6 +16,38 @@ void SparseRows::add_row(std::span<const std::int32_t> cols, std::span<const dou
   columns.insert(columns.end(), cols.begin(), cols.end());
   values.insert(values.end(), vals.begin(), vals.end());
   row_start.push_back(columns.size());
+}
+
+void CountRows::add_row(std::span<const std::pair<std::int32_t, std::int32_t>> column_counts) {
+  double norm = 0;
+  for (const auto& [col, count] : column_counts) {
+    GYRE_CHECK(count >= 1, "count row: counts must be positive");
+    const double v = 1.0 + std::log(static_cast<double>(count));  // sublinear tf, as sublinear_unit_row
+    columns.push_back(col);
+    if (count >= kLargeCount) {
+      large_counts.emplace_back(counts.size(), static_cast<std::uint32_t>(count));
+      counts.push_back(kLargeCount);
+    } else {
+      counts.push_back(static_cast<std::uint16_t>(count));
+    }
+    norm += v * v;
+  }
+  norms.push_back(norm > 0 ? std::sqrt(norm) : 0.0);
+  row_start.push_back(columns.size());
+}
+
+std::uint32_t CountRows::count(std::size_t entry) const {
+  if (counts[entry] != kLargeCount) return counts[entry];
+  const auto it = std::lower_bound(large_counts.begin(), large_counts.end(),
+                                   std::pair<std::size_t, std::uint32_t>{entry, 0});
+  GYRE_CHECK(it != large_counts.end() && it->first == entry, "count row: a large count is missing");
+  return it->second;
+}
+
+std::size_t CountRows::bytes() const noexcept {
+  return row_start.capacity() * sizeof(std::size_t) + columns.capacity() * sizeof(std::int32_t) +
+         counts.capacity() * sizeof(std::uint16_t) + norms.capacity() * sizeof(double) +
+         large_counts.capacity() * sizeof(large_counts[0]);
 }
 
 void LinearModel::scores(std::span<const std::int32_t> cols, std::span<const double> vals,
@@ -43,13 +76,52 @@ double dot(const std::vector<double>& a, const std::vector<double>& b) {
   return s;
 }
 
+// One row of a matrix as (columns, values) pointers: SparseRows holds both; CountRows computes
+// the values into `scratch` (the division its definition gives, so the values are those a
+// SparseRows would hold).
+struct RowView {
+  const std::int32_t* columns;
+  const double* values;
+  std::size_t size;
+};
+
+RowView row_of(const SparseRows& x, std::size_t r, std::vector<double>&, const std::vector<double>&) {
+  const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
+  return {x.columns.data() + begin, x.values.data() + begin, end - begin};
+}
+
+// tf[c] = 1 + ln(c) for the counts below tf.size() (a table: the objective is evaluated many times).
+RowView row_of(const CountRows& x, std::size_t r, std::vector<double>& scratch,
+               const std::vector<double>& tf) {
+  const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
+  scratch.resize(end - begin);
+  const double norm = x.norms[r];
+  for (std::size_t e = begin; e < end; ++e) {
+    const std::uint16_t c = x.counts[e];
+    const double v = c < tf.size() ? tf[c] : 1.0 + std::log(static_cast<double>(x.count(e)));
+    scratch[e - begin] = v / norm;
+  }
+  return {x.columns.data() + begin, scratch.data(), end - begin};
+}
+
 // Penalised multinomial log loss and its gradient at theta = [W (features x classes), b].
+template <class Rows>
 struct Objective {
-  const SparseRows& x;
+  const Rows& x;
   std::span<const std::int32_t> y;
   std::size_t features, classes;
   double inv_c;
-  std::vector<double> z;  // per-row scratch
+  std::vector<double> z;       // per-row scratch
+  std::vector<double> values;  // per-row scratch (CountRows)
+  std::vector<double> tf;      // 1 + ln(c) by count (CountRows)
+
+  Objective(const Rows& rows, std::span<const std::int32_t> labels, std::size_t f, std::size_t k, double inv)
+      : x(rows), y(labels), features(f), classes(k), inv_c(inv) {
+    if constexpr (std::is_same_v<Rows, CountRows>) {
+      tf.resize(256);
+      for (std::size_t c = 1; c < tf.size(); ++c) tf[c] = 1.0 + std::log(static_cast<double>(c));
+    }
+  }
 
   double operator()(const std::vector<double>& theta, std::vector<double>& grad) {
     std::fill(grad.begin(), grad.end(), 0.0);
@@ -61,11 +133,11 @@ struct Objective {
     z.resize(k);
     double loss = 0;
     for (std::size_t r = 0; r < x.rows(); ++r) {
-      const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
+      const RowView row = row_of(x, r, values, tf);
       for (std::size_t c = 0; c < k; ++c) z[c] = b[c];
-      for (std::size_t e = begin; e < end; ++e) {
-        const double* wr = w + static_cast<std::size_t>(x.columns[e]) * k;
-        const double v = x.values[e];
+      for (std::size_t e = 0; e < row.size; ++e) {
+        const double* wr = w + static_cast<std::size_t>(row.columns[e]) * k;
+        const double v = row.values[e];
         for (std::size_t c = 0; c < k; ++c) z[c] += v * wr[c];
       }
       const double m = *std::max_element(z.begin(), z.end());
@@ -78,9 +150,9 @@ struct Objective {
       loss += std::log(sum) - std::log(z[label]);
       for (std::size_t c = 0; c < k; ++c) z[c] = z[c] / sum - (c == label ? 1.0 : 0.0);
       for (std::size_t c = 0; c < k; ++c) gb[c] += z[c];
-      for (std::size_t e = begin; e < end; ++e) {
-        double* gr = gw + static_cast<std::size_t>(x.columns[e]) * k;
-        const double v = x.values[e];
+      for (std::size_t e = 0; e < row.size; ++e) {
+        double* gr = gw + static_cast<std::size_t>(row.columns[e]) * k;
+        const double v = row.values[e];
         for (std::size_t c = 0; c < k; ++c) gr[c] += v * z[c];
       }
     }
@@ -161,7 +233,8 @@ struct LbfgsHistory {
 // Backtracking line search from `theta` along `direction` (Armijo condition, c1 = 1e-4), starting
 // at `step` and halving up to 60 times; the point, its value and gradient go to next, next_value,
 // next_grad. False when no step decreases the objective.
-bool armijo_search(Objective& objective, const std::vector<double>& theta, double value,
+template <class Rows>
+bool armijo_search(Objective<Rows>& objective, const std::vector<double>& theta, double value,
                    const std::vector<double>& direction, double slope, double step, std::vector<double>& next,
                    double& next_value, std::vector<double>& next_grad) {
   const std::size_t n = theta.size();
@@ -174,7 +247,8 @@ bool armijo_search(Objective& objective, const std::vector<double>& theta, doubl
   return false;
 }
 
-void check_problem(const SparseRows& x, std::span<const std::int32_t> labels, int classes, int features,
+template <class Rows>
+void check_problem(const Rows& x, std::span<const std::int32_t> labels, int classes, int features,
                    const LbfgsOptions& options) {
   GYRE_CHECK(classes >= 2, "logistic regression needs at least two classes");
   GYRE_CHECK(features >= 0, "negative feature count");
@@ -185,17 +259,16 @@ void check_problem(const SparseRows& x, std::span<const std::int32_t> labels, in
     GYRE_CHECK(c >= 0 && c < features, "logistic regression: column out of range");
 }
 
-}  // namespace
-
-LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
-                                    int features, const LbfgsOptions& options) {
+template <class Rows>
+LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes, int features,
+                const LbfgsOptions& options) {
   check_problem(x, labels, classes, features, options);
   const auto k = static_cast<std::size_t>(classes);
   const auto f = static_cast<std::size_t>(features);
   const std::size_t n = f * k + k;
   // Two classes: the softmax form with C/2 has the decision function of the one-vector form with C.
   const double c = classes == 2 ? options.c / 2 : options.c;
-  Objective objective{x, labels, f, k, 1.0 / c, {}};
+  Objective<Rows> objective(x, labels, f, k, 1.0 / c);
 
   std::vector<double> theta(n, 0.0), grad(n), direction(n), next(n), next_grad(n);
   double value = objective(theta, grad);
@@ -248,6 +321,20 @@ LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::in
   return out;
 }
 
+}  // namespace
+
+LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
+                                    int features, const LbfgsOptions& options) {
+  return fit(x, labels, classes, features, options);
+}
+
+LinearModel fit_logistic_regression(const CountRows& x, std::span<const std::int32_t> labels, int classes,
+                                    int features, const LbfgsOptions& options) {
+  GYRE_CHECK(x.counts.size() == x.columns.size() && x.norms.size() == x.rows(),
+             "count rows: columns, counts and norms differ in length");
+  return fit(x, labels, classes, features, options);
+}
+
 // ---------------------------------------------------------------- n-gram classifier
 
 NgramClassifier::NgramClassifier(int min_df, int order) : min_df_(min_df), order_(order) {
@@ -292,6 +379,7 @@ void NgramClassifier::count(std::span<const std::string> tokens) {
 
 void NgramClassifier::add(std::span<const std::string> tokens, std::int32_t label) {
   GYRE_CHECK(label >= 0, "negative label");
+  GYRE_CHECK(!built_, "NgramClassifier::add() after fit()");
   if (!counted_.empty()) {  // the counting pass is over: keep the fingerprints counted >= min_df times
     std::sort(counted_.begin(), counted_.end());
     for (std::size_t i = 0; i < counted_.size();) {
@@ -330,7 +418,8 @@ namespace {
 
 // One row of the n-gram classifier's matrix from (column, count) pairs in ascending column order:
 // value 1 + ln(count) ("sublinear tf"), then the row scaled to unit L2 norm, summed in that order.
-// Used by featurize() and fit(), so training rows and prediction rows are computed alike.
+// Used by featurize(); CountRows::add_row and the fit's row_of() do the same arithmetic, so
+// training rows and prediction rows are computed alike.
 template <class ColumnCounts>
 void sublinear_unit_row(const ColumnCounts& counts, std::vector<std::int32_t>& cols,
                         std::vector<double>& vals) {
@@ -365,47 +454,56 @@ void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector
 
 void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
   GYRE_CHECK(!labels_.empty(), "linear baseline: no training examples");
-  // Keep the keys held by >= min_df examples. Column ids follow the sorted key order, so the fit
-  // depends neither on hash-map iteration order nor on the order keys were first seen.
-  std::vector<const std::string*> key_of(key_ids_.size());
-  for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
-  std::vector<std::int32_t> kept;
-  for (std::size_t id = 0; id < key_df_.size(); ++id)
-    if (key_df_[id] >= min_df_) kept.push_back(static_cast<std::int32_t>(id));
-  std::sort(kept.begin(), kept.end(), [&](std::int32_t a, std::int32_t b) {
-    return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
-  });
-  std::vector<std::int32_t> column(key_ids_.size(), -1);
-  index_.clear();
-  index_.reserve(kept.size());
-  for (std::size_t c = 0; c < kept.size(); ++c) {
-    const auto id = static_cast<std::size_t>(kept[c]);
-    column[id] = static_cast<std::int32_t>(c);
-    index_.emplace(*key_of[id], static_cast<std::int32_t>(c));
-  }
-
-  // Rows as featurize() makes them: kept columns ascending, 1 + ln(count), unit L2 norm summed in
-  // column order.
-  SparseRows x;
-  x.row_start.reserve(labels_.size() + 1);
-  std::size_t entries = 0;
-  for (const auto k : entry_keys_) entries += column[static_cast<std::size_t>(k)] >= 0;
-  x.columns.reserve(entries);
-  x.values.reserve(entries);
-  std::vector<std::pair<std::int32_t, std::int32_t>> row;  // (column, count)
-  std::vector<std::int32_t> cols;
-  std::vector<double> vals;
-  for (std::size_t r = 0; r < labels_.size(); ++r) {
-    row.clear();
-    for (std::size_t e = entry_start_[r]; e < entry_start_[r + 1]; ++e) {
-      const std::int32_t col = column[static_cast<std::size_t>(entry_keys_[e])];
-      if (col >= 0) row.emplace_back(col, entry_counts_[e]);
+  if (!built_) {
+    // Keep the keys held by >= min_df examples. Column ids follow the sorted key order, so the fit
+    // depends neither on hash-map iteration order nor on the order keys were first seen.
+    std::vector<const std::string*> key_of(key_ids_.size());
+    for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
+    std::vector<std::int32_t> kept;
+    for (std::size_t id = 0; id < key_df_.size(); ++id)
+      if (key_df_[id] >= min_df_) kept.push_back(static_cast<std::int32_t>(id));
+    std::sort(kept.begin(), kept.end(), [&](std::int32_t a, std::int32_t b) {
+      return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
+    });
+    std::vector<std::int32_t> column(key_ids_.size(), -1);
+    index_.clear();
+    index_.reserve(kept.size());
+    for (std::size_t c = 0; c < kept.size(); ++c) {
+      const auto id = static_cast<std::size_t>(kept[c]);
+      column[id] = static_cast<std::int32_t>(c);
+      index_.emplace(*key_of[id], static_cast<std::int32_t>(c));
     }
-    std::sort(row.begin(), row.end());
-    sublinear_unit_row(row, cols, vals);
-    x.add_row(cols, vals);
+    // The interned keys are no longer needed: index_ has the kept ones.
+    std::vector<const std::string*>().swap(key_of);
+    std::unordered_map<std::string, std::int32_t>().swap(key_ids_);
+    std::vector<std::int32_t>().swap(key_df_);
+    std::vector<std::uint32_t>().swap(candidates_);
+
+    // Rows as featurize() makes them: kept columns ascending, 1 + ln(count), unit L2 norm summed in
+    // column order; stored as counts (CountRows), reserved exactly, then the entries are freed.
+    rows_ = CountRows{};
+    rows_.row_start.reserve(labels_.size() + 1);
+    rows_.norms.reserve(labels_.size());
+    std::size_t entries = 0;
+    for (const auto k : entry_keys_) entries += column[static_cast<std::size_t>(k)] >= 0;
+    rows_.columns.reserve(entries);
+    rows_.counts.reserve(entries);
+    std::vector<std::pair<std::int32_t, std::int32_t>> row;  // (column, count)
+    for (std::size_t r = 0; r < labels_.size(); ++r) {
+      row.clear();
+      for (std::size_t e = entry_start_[r]; e < entry_start_[r + 1]; ++e) {
+        const std::int32_t col = column[static_cast<std::size_t>(entry_keys_[e])];
+        if (col >= 0) row.emplace_back(col, entry_counts_[e]);
+      }
+      std::sort(row.begin(), row.end());
+      rows_.add_row(row);
+    }
+    std::vector<std::size_t>{0}.swap(entry_start_);
+    std::vector<std::int32_t>().swap(entry_keys_);
+    std::vector<std::int32_t>().swap(entry_counts_);
+    built_ = true;
   }
-  model_ = fit_logistic_regression(x, labels_, classes, static_cast<int>(kept.size()), options);
+  model_ = fit_logistic_regression(rows_, labels_, classes, static_cast<int>(index_.size()), options);
   c_ = options.c;
 }
 
@@ -418,6 +516,8 @@ void NgramClassifier::release_examples() {
   std::vector<std::int32_t>().swap(entry_counts_);
   std::vector<std::int32_t>().swap(labels_);
   std::vector<std::uint32_t>().swap(candidates_);
+  rows_ = CountRows{};
+  built_ = false;
 }
 
 std::int32_t NgramClassifier::predict(std::span<const std::string> tokens) const {

@@ -317,6 +317,14 @@ void add_epoch_settings(std::vector<Setting<C>>& t) {
                                    .help = "passes over the training data",
                                    .min = 1,
                                    .max = 1000000}));
+  t.push_back(integer(&C::epoch_step_limit,
+                      {.key = "epoch_step_limit",
+                       .group = kTraining,
+                       .help = "end each epoch after this many optimizer steps (the first batches of its "
+                               "shuffled plan): a quick trial, or dev checks and checkpoints more often on a "
+                               "large corpus",
+                       .min = 0,
+                       .note = "0 = a full pass over the training split"}));
   t.push_back(integer(&C::patience, {.key = "patience",
                                      .group = kTraining,
                                      .help = "stop after this many epochs without a better dev score",

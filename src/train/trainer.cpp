@@ -642,6 +642,7 @@ class Run {
   void optimizer_step(std::span<nn::ParameterStore* const> others);
   double reduce_and_measure(std::span<nn::ParameterStore* const> others);
   void finish(TrainOutcome outcome, TrainResult& result);
+  void release_training_state();
   json calibrate(const LinearBaseline* baseline, json& ngram);
   json tune_thresholds(model::SequenceModel& m, const EvaluationResult& calibrated);
   json dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev);
@@ -733,6 +734,8 @@ void Run::setup_model() {
   plan.batch_size = config_.batch_size;
   steps_per_epoch_ = (data_.train.size() + static_cast<std::size_t>(config_.batch_size) - 1) /
                      static_cast<std::size_t>(config_.batch_size);
+  if (config_.epoch_step_limit > 0)
+    steps_per_epoch_ = std::min(steps_per_epoch_, static_cast<std::size_t>(config_.epoch_step_limit));
   optim::ScheduleConfig sc;
   sc.base_rate = static_cast<float>(config_.learning_rate);
   sc.warmup_steps = config_.warmup_steps;
@@ -1002,14 +1005,16 @@ void Run::run_epoch() {
   plan_options.batch_size = config_.batch_size;
   const auto plan =
       data::plan_batches(data_.train, plan_options, config_.seed, static_cast<std::uint64_t>(state_.epoch));
-  progress_.start_epoch(state_.epoch + 1, config_.epochs, plan.size());
+  // epoch_step_limit: the epoch ends after the first steps of its plan.
+  const std::size_t plan_steps = std::min(plan.size(), steps_per_epoch_);
+  progress_.start_epoch(state_.epoch + 1, config_.epochs, plan_steps);
   epoch_start_ = std::chrono::steady_clock::now();
   data::Batch batch;
   StepBuffers buf(config_.threads);
   std::vector<nn::ParameterStore*> others;
   for (std::size_t w = 1; w < replicas_.size(); ++w) others.push_back(&replicas_[w]->params());
   std::size_t padded = 0, tokens = 0;
-  for (; state_.step < plan.size(); ++state_.step) {
+  for (; state_.step < plan_steps; ++state_.step) {
     const auto& indices = plan[state_.step];
     data::fill_batch(data_.train, indices, batch, config_.max_length);
     const double normalizer = replicas_[0]->loss_units(batch);
@@ -1046,7 +1051,7 @@ void Run::run_epoch() {
       return;
     }
   }
-  note_padding(plan.size(), padded, tokens);
+  note_padding(plan_steps, padded, tokens);
 }
 
 void Run::end_epoch() {
@@ -1203,6 +1208,8 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
   if (exchanges_ > 0)  // what rank 0 sent per step; each rank receives the other ranks' share
     result.final_metrics["exchange_bytes_per_step"] = sent_bytes_ / static_cast<double>(exchanges_);
   if (!lead_) return;
+  const std::size_t train_examples = data_.train.size();
+  release_training_state();
   // The n-gram part (README "N-gram part") is the linear baseline's fit: with ngram_part auto it is
   // fitted even when the baseline's report is not wanted (--no-baseline).
   const bool want_part = data_.task == data::Task::kClassify && !data_.multi_label &&
@@ -1222,11 +1229,11 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
             ++examples_read;
             visit(ex);
           });
-          if (examples_read != data_.train.size())
+          if (examples_read != train_examples)
             throw IoError(config_.train +
                           ": the file changed during training: read again for the linear baseline, it has " +
                           std::to_string(examples_read) + " training examples instead of " +
-                          std::to_string(data_.train.size()));
+                          std::to_string(train_examples));
         },
         config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0,
         ngram_order_for(config_));
@@ -1247,6 +1254,23 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
     if (!label_thresholds_.is_null()) result.final_metrics["label_thresholds"] = std::move(label_thresholds_);
   }
   write_file_atomic(dir_ / "metrics.json", result.final_metrics.dump(2) + "\n");
+}
+
+// Training is over (the selected and resume checkpoints are written): the replicas with their
+// workspaces, the optimizer's moments, the worker threads and the training arena are freed
+// before the linear baseline's fit and the calibration, which read the files and the checkpoint
+// again, so the process's peak memory is the larger of training and those steps, not their sum
+// (issue 13, "Scale").
+void Run::release_training_state() {
+  pool_.reset();  // joins the worker threads
+  optimizer_.reset();
+  replicas_.clear();
+  std::vector<nn::ParameterStore>().swap(peer_grads_);
+  std::vector<nn::ParameterStore*>().swap(peer_ptrs_);
+  std::vector<std::byte>().swap(send_);
+  std::vector<std::byte>().swap(received_);
+  std::vector<std::vector<std::int32_t>>().swap(stale_rows_);
+  data_.train = data::EncodedCorpus();
 }
 
 // The most confident dev mistakes of the (calibrated) best model, each with its integrated-gradients

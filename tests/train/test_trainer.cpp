@@ -185,6 +185,37 @@ TEST_CASE("an interrupted run resumes to bit-identical weights", "[train]") {
   REQUIRE(std::count(std::istreambuf_iterator<char>(log), std::istreambuf_iterator<char>(), '\n') == 3);
 }
 
+TEST_CASE("epoch_step_limit ends each epoch after that many steps of its plan", "[train]") {
+  auto config = small_config();  // 400 examples, batch 16: 25 steps an epoch
+  config.epochs = 1;
+  config.schedule = gyre::optim::ScheduleKind::kConstant;  // the rate does not depend on the total
+  config.dropout = 0.2;
+  // The first 10 steps of the epoch's plan, then the epoch's end: the weights an unlimited run
+  // has when it is interrupted after its 10th step.
+  const fs::path cut = tmp_dir("step_limit_cut");
+  auto opts = options_for(cut);
+  opts.interrupt_after_steps = 10;
+  REQUIRE(gyre::train::train(config, opts).outcome == gyre::train::TrainOutcome::kInterrupted);
+  config.epoch_step_limit = 10;
+  const fs::path limited = tmp_dir("step_limit");
+  const auto result = gyre::train::train(config, options_for(limited));
+  REQUIRE(result.outcome == gyre::train::TrainOutcome::kFinished);
+  REQUIRE(result.epochs_completed == 1);
+  REQUIRE(weights_of(limited / "resume.bin") == weights_of(cut / "resume.bin"));
+  // A limit at or above the plan's length changes nothing.
+  config.epoch_step_limit = 0;
+  const fs::path whole = tmp_dir("step_limit_none");
+  gyre::train::train(config, options_for(whole));
+  config.epoch_step_limit = 25;
+  const fs::path at_length = tmp_dir("step_limit_25");
+  gyre::train::train(config, options_for(at_length));
+  REQUIRE(weights_of(whole / "resume.bin") == weights_of(at_length / "resume.bin"));
+  REQUIRE(weights_of(whole / "resume.bin") != weights_of(limited / "resume.bin"));
+  // The setting is in the run's config.json (a resumed run keeps it).
+  const auto saved = nlohmann::json::parse(gyre::read_file(limited / "config.json"));
+  REQUIRE(saved.at("epoch_step_limit").get<int>() == 10);
+}
+
 TEST_CASE("early stopping stops after `patience` epochs without improvement", "[train]") {
   auto config = small_config();
   config.epochs = 10;

@@ -22,6 +22,7 @@
 #include <string>
 #include <string_view>
 #include <unordered_map>
+#include <utility>
 #include <vector>
 
 #include <nlohmann/json_fwd.hpp>
@@ -37,6 +38,24 @@ struct SparseRows {
   std::vector<double> values;
   std::size_t rows() const noexcept { return row_start.size() - 1; }
   void add_row(std::span<const std::int32_t> cols, std::span<const double> vals);
+};
+
+/// Rows of the n-gram classifier's matrix, stored as counts: entry e of row r has the value
+/// (1 + ln(count_e)) / norm_r, norm_r = sqrt(sum over the row's entries, in order, of
+/// (1 + ln(count))^2) - the double the same arithmetic on stored values would give, in 6 bytes an
+/// entry instead of 12. Columns ascend within a row.
+struct CountRows {
+  static constexpr std::uint16_t kLargeCount = 0xFFFF;  // counts >= this: in large_counts
+  std::vector<std::size_t> row_start{0};                // row r spans [row_start[r], row_start[r+1])
+  std::vector<std::int32_t> columns;
+  std::vector<std::uint16_t> counts;                                // the count, or kLargeCount
+  std::vector<double> norms;                                        // per row (0 for a row without entries)
+  std::vector<std::pair<std::size_t, std::uint32_t>> large_counts;  // (entry, count), entries ascending
+  std::size_t rows() const noexcept { return row_start.size() - 1; }
+  /// Appends a row of (column, count) pairs, columns ascending, counts >= 1.
+  void add_row(std::span<const std::pair<std::int32_t, std::int32_t>> column_counts);
+  std::uint32_t count(std::size_t entry) const;
+  std::size_t bytes() const noexcept;
 };
 
 struct LbfgsOptions {
@@ -66,14 +85,19 @@ struct LinearModel {
 /// Throws gyre::Error if rows and labels differ in count, a label is out of range or classes < 2.
 LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
                                     int features, const LbfgsOptions& options);
+/// The same fit over count rows: the model a SparseRows holding their values gives, bit for bit.
+LinearModel fit_logistic_regression(const CountRows& x, std::span<const std::int32_t> labels, int classes,
+                                    int features, const LbfgsOptions& options);
 
 /// Bag-of-n-grams classifier over token lists (single-label).
 ///
 /// Training examples are stored compactly, not as strings: add() interns each n-gram key to an
-/// id (one copy of every distinct key) and keeps the example as (key id, count) rows; fit()
-/// prunes by min_df and numbers the kept keys in sorted order, so the fitted model is the one
-/// a fit over the examples' strings gives. fit() may be called again (another C) on the same
-/// examples; release_examples() frees them once no more fits are needed.
+/// id (one copy of every distinct key) and keeps the example as (key id, count) rows; the first
+/// fit() prunes by min_df, numbers the kept keys in sorted order and turns the examples into the
+/// matrix's count rows (CountRows, reserved exactly), freeing the interned keys and the entries,
+/// so the fitted model is the one a fit over the examples' strings gives. fit() may be called
+/// again (another C) on the same rows; add() after fit() is refused. release_examples() frees
+/// the rows once no more fits are needed.
 ///
 /// Most distinct n-grams of a large corpus occur in one example only and are pruned by min_df.
 /// An optional first pass, count(), over the same examples before any add() counts the examples
@@ -107,9 +131,10 @@ class NgramClassifier {
   /// keys in sorted order (= the column order), weights and bias rounded to float, the given mix.
   /// Throws gyre::Error before fit(), runtime::Error for a mix that is not positive and finite.
   runtime::NgramPart part(float mix) const;
-  /// Training examples held, their (key, count) entries and distinct keys (memory checks).
+  /// Training examples held, their (key, count) entries (before the first fit; after it the
+  /// matrix rows' entries) and the distinct keys interned for them (none after the first fit).
   std::size_t example_count() const noexcept { return labels_.size(); }
-  std::size_t entry_count() const noexcept { return entry_keys_.size(); }
+  std::size_t entry_count() const noexcept { return entry_keys_.size() + rows_.columns.size(); }
   std::size_t key_count() const noexcept { return key_ids_.size(); }
 
   /// The keys of a token list for orders 1..order (runtime::ngram_keys), replacing out's content.
@@ -128,6 +153,8 @@ class NgramClassifier {
   std::vector<std::int32_t> entry_keys_, entry_counts_;
   std::vector<std::int32_t> labels_;
   std::unordered_map<std::string, std::int32_t> index_;  // kept key -> feature column
+  CountRows rows_;                                       // the matrix, built by the first fit()
+  bool built_ = false;                                   // rows_ and index_ hold the training examples
   LinearModel model_;
   double c_ = 0;
   // count(): one fingerprint per (example, distinct fingerprint); at the first add() reduced to

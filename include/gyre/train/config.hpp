@@ -91,6 +91,7 @@ struct TrainConfig {
   ClassWeights class_weights = ClassWeights::kNone;
   int batch_size = 32;
   int epochs = 10;
+  int epoch_step_limit = 0;      // optimizer steps per epoch at most; 0 = a full pass over the training split
   int patience = 3;              // epochs without dev improvement before stopping; 0 = never stop early
   std::optional<Metric> metric;  // empty: default_metric(task, multi_label)
   int bptt_window = 0;           // truncated BPTT window in tokens; 0 = full BPTT
