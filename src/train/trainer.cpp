@@ -1269,7 +1269,7 @@ void Run::release_training_state() {
   std::vector<nn::ParameterStore*>().swap(peer_ptrs_);
   std::vector<std::byte>().swap(send_);
   std::vector<std::byte>().swap(received_);
-  std::vector<std::vector<std::int32_t>>().swap(stale_rows_);
+  std::vector<nn::ParameterStore*>().swap(replica_ptrs_);
   data_.train = data::EncodedCorpus();
 }
 
