@@ -23,9 +23,9 @@ struct LstmLayer::Workspace {
   detail::GrowBuffer h;       // [N x H]: hidden state after the step
   detail::GrowBuffer c;       // [N x H]: cell state after the step
   detail::GrowBuffer tanh_c;  // [N x H]: tanh(c)
-  detail::GrowBuffer h_prev;  // [N x H]: hidden state before the step
-  detail::GrowBuffer c_prev;  // [N x H]: cell state before the step
-  detail::GrowBuffer h0, c0;  // [B x H]: initial state in sorted order / its gradient (backward)
+  detail::GrowBuffer h_prev;  // [N x H]: hidden state before the step (for the dW_hidden product)
+  detail::GrowBuffer h0, c0;  // [B x H]: initial state in sorted order
+  detail::GrowBuffer dh, dc;  // [B x H]: running state gradients in sorted order (backward)
   detail::GrowBuffer dgates;  // [N x 4H]: d loss / d pre-activations
   detail::GrowBuffer dx;      // [N x D]: packed input gradient
   // AVX-512 path: U packed once per forward (gate-interleaved for the fused step) and once per
@@ -56,9 +56,9 @@ void LstmLayer::init_parameters(Rng& rng) {
 std::size_t LstmLayer::workspace_capacity() const noexcept {
   const Workspace& w = *ws_;
   return w.x.capacity_bytes() + w.gates.capacity_bytes() + w.h.capacity_bytes() + w.c.capacity_bytes() +
-         w.tanh_c.capacity_bytes() + w.h_prev.capacity_bytes() + w.c_prev.capacity_bytes() +
-         w.h0.capacity_bytes() + w.c0.capacity_bytes() + w.dgates.capacity_bytes() + w.dx.capacity_bytes() +
-         w.u_step.capacity_bytes() + w.u_back.capacity_bytes();
+         w.tanh_c.capacity_bytes() + w.h_prev.capacity_bytes() + w.h0.capacity_bytes() +
+         w.c0.capacity_bytes() + w.dh.capacity_bytes() + w.dc.capacity_bytes() + w.dgates.capacity_bytes() +
+         w.dx.capacity_bytes() + w.u_step.capacity_bytes() + w.u_back.capacity_bytes();
 }
 
 namespace {
@@ -101,7 +101,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   MatrixMap xs = w.x.view(N, D);
   MatrixMap gates = w.gates.view(N, 4 * H);
   MatrixMap hs = w.h.view(N, H), cs = w.c.view(N, H), tanh_c = w.tanh_c.view(N, H);
-  MatrixMap h_prev = w.h_prev.view(N, H), c_prev = w.c_prev.view(N, H);
+  MatrixMap h_prev = w.h_prev.view(N, H);
   MatrixMap hi = w.h0.view(B, H), ci = w.c0.view(B, H);
 
   for (Eigen::Index p = 0; p < N; ++p) xs.row(p) = x.row(lay.source(p));
@@ -128,19 +128,20 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;  // sorted by length: no later step has work either
-    if (s == 0) {
+    // The cell state before the step is read where it is: the first n rows of the previous
+    // step's block (or of the initial state); the hidden state is copied, the dW_hidden product
+    // reads it as one [N x H] operand.
+    const float* c_before = s == 0 ? ci.data() : cs.row(lay.offset(s - 1)).data();
+    if (s == 0)
       h_prev.middleRows(o, n) = hi.topRows(n);
-      c_prev.middleRows(o, n) = ci.topRows(n);
-    } else {
-      const Eigen::Index po = lay.offset(s - 1);
-      h_prev.middleRows(o, n) = hs.middleRows(po, n);
-      c_prev.middleRows(o, n) = cs.middleRows(po, n);
-    }
+    else
+      h_prev.middleRows(o, n) = hs.middleRows(lay.offset(s - 1), n);
     if (fused) {
-      detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_prev.row(o).data(), H, w.u_step.data(),
-                              gates.row(o).data(), cs.row(o).data(), tanh_c.row(o).data(), hs.row(o).data());
+      detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_before, H, w.u_step.data(), gates.row(o).data(),
+                              cs.row(o).data(), tanh_c.row(o).data(), hs.row(o).data());
       continue;
     }
+    const Eigen::Map<const Matrix> c_prev(c_before, n, H);
     auto g = gates.middleRows(o, n);
     // One fused gate GEMM over the running sequences: gates += h_prev U^T.
     w.gemm_step.run(g, h_prev.middleRows(o, n), detail::Op::kN, U, detail::Op::kT, true);
@@ -148,8 +149,8 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
     g.middleCols(2 * H, H) = g.middleCols(2 * H, H).array().tanh().matrix();  // g
     g.rightCols(H) = g.rightCols(H).array().logistic().matrix();              // o
     auto c_new = cs.middleRows(o, n);
-    c_new.array() = g.middleCols(H, H).array() * c_prev.middleRows(o, n).array() +
-                    g.leftCols(H).array() * g.middleCols(2 * H, H).array();
+    c_new.array() =
+        g.middleCols(H, H).array() * c_prev.array() + g.leftCols(H).array() * g.middleCols(2 * H, H).array();
     tanh_c.middleRows(o, n) = c_new.array().tanh().matrix();
     hs.middleRows(o, n).array() = g.rightCols(H).array() * tanh_c.middleRows(o, n).array();
   }
@@ -172,8 +173,8 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   MatrixMap xs = w.x.view(N, D);
   MatrixMap gates = w.gates.view(N, 4 * H);
   MatrixMap tanh_c = w.tanh_c.view(N, H);
-  MatrixMap h_prev = w.h_prev.view(N, H), c_prev = w.c_prev.view(N, H);
-  MatrixMap dh = w.h0.view(B, H), dc = w.c0.view(B, H);  // running state gradients, sorted order
+  MatrixMap h_prev = w.h_prev.view(N, H), cs = w.c.view(N, H), ci = w.c0.view(B, H);
+  MatrixMap dh = w.dh.view(B, H), dc = w.dc.view(B, H);  // running state gradients, sorted order
   MatrixMap dgates = w.dgates.view(N, 4 * H);
 
   dh.setZero();  // the gradient w.r.t. the final state is zero (window boundary)
@@ -185,11 +186,12 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
+    const float* c_before = s == 0 ? ci.data() : cs.row(lay.offset(s - 1)).data();  // as in forward
     if (fast) {
       // Element-wise part in one AVX-512 pass (d_out rows gathered in it), then dh = dG U.
       detail::fast::lstm_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
-                                       dc.data(), gates.row(o).data(), tanh_c.row(o).data(),
-                                       c_prev.row(o).data(), dgates.row(o).data());
+                                       dc.data(), gates.row(o).data(), tanh_c.row(o).data(), c_before,
+                                       dgates.row(o).data());
       detail::fast::gemm_packed(n, H, 4 * H, dgates.row(o).data(), 4 * H, false, w.u_back.data(), dh.data(),
                                 H, false, nullptr);
       continue;
@@ -203,7 +205,7 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
     dC += dH * og * (1.0f - tc * tc);
     auto dg = dgates.middleRows(o, n).array();
     dg.leftCols(H) = dC * g * i * (1.0f - i);
-    dg.middleCols(H, H) = dC * c_prev.middleRows(o, n).array() * f * (1.0f - f);
+    dg.middleCols(H, H) = dC * Eigen::Map<const Matrix>(c_before, n, H).array() * f * (1.0f - f);
     dg.middleCols(2 * H, H) = dC * i * (1.0f - g * g);
     dg.rightCols(H) = dH * tc * og * (1.0f - og);
     dC *= f;

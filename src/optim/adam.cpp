@@ -2,9 +2,9 @@
 
 #include <cmath>
 
-#include "optim/detail/adam_kernel.hpp"
 #include "gyre/core/cpu_features.hpp"
 #include "gyre/core/error.hpp"
+#include "optim/detail/adam_kernel.hpp"
 
 namespace gyre::optim {
 
@@ -37,6 +37,20 @@ void Adam::begin_step(std::int64_t step, float learning_rate) {
   inv_bias2_ = static_cast<float>(1.0 / (1.0 - std::pow(static_cast<double>(beta2_), t)));
 }
 
+void Adam::update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
+                                bool zero_grad, NonFinite& seen) {
+  if (!use_avx512_training_kernels()) {
+    Optimizer::update_block_checked(value, grad, slots, count, zero_grad, seen);
+    return;
+  }
+  const float l2 = decoupled_ ? 0.0F : weight_decay_, decay = decoupled_ ? weight_decay_ : 0.0F;
+  const unsigned bad = detail::adam_update_avx512(
+      {beta1_, beta2_, learning_rate_, epsilon_, l2, decay, inv_bias1_, inv_bias2_}, value, grad, slots[0],
+      slots[1], count, zero_grad);
+  seen.nan |= bad & 1u;
+  seen.inf |= (bad >> 1) & 1u;
+}
+
 void Adam::update_block(float* value, const float* grad, float* const* slots, std::int64_t count) {
   float* m = slots[0];
   float* v = slots[1];
@@ -49,7 +63,8 @@ void Adam::update_block(float* value, const float* grad, float* const* slots, st
   const float c1 = inv_bias1_;
   const float c2 = inv_bias2_;
   if (use_avx512_training_kernels()) {
-    detail::adam_update_avx512({b1, b2, lr, eps, l2, decay, c1, c2}, value, grad, m, v, count);
+    detail::adam_update_avx512({b1, b2, lr, eps, l2, decay, c1, c2}, value, const_cast<float*>(grad), m, v,
+                               count, false);
     return;
   }
   // A plain loop with std::sqrt (correctly rounded) rather than Eigen's vectorised square root,

@@ -20,24 +20,29 @@ constexpr std::size_t kMaxSlots = 2;  // Adam keeps m and v
 // operation on it to the last. A multiple of 16, so blocks keep the alignment of part_range().
 constexpr Eigen::Index kFusedBlock = 2048;
 
+}  // namespace
+
 // Non-finite values seen, by their bits (an integer test the compiler vectorises; std::isfinite
 // in a reduction it does not).
-struct NonFinite {
-  std::uint32_t nan = 0, inf = 0;
-  void check(const float* g, Eigen::Index count) noexcept {
-    std::uint32_t n = 0, i = 0;
-    for (Eigen::Index k = 0; k < count; ++k) {
-      std::uint32_t bits = 0;
-      std::memcpy(&bits, g + k, sizeof bits);
-      bits &= 0x7fffffffu;
-      n |= static_cast<std::uint32_t>(bits > 0x7f800000u);
-      i |= static_cast<std::uint32_t>(bits == 0x7f800000u);
-    }
-    nan |= n;
-    inf |= i;
+void Optimizer::NonFinite::check(const float* g, std::int64_t count) noexcept {
+  std::uint32_t n = 0, i = 0;
+  for (std::int64_t k = 0; k < count; ++k) {
+    std::uint32_t bits = 0;
+    std::memcpy(&bits, g + k, sizeof bits);
+    bits &= 0x7fffffffu;
+    n |= static_cast<std::uint32_t>(bits > 0x7f800000u);
+    i |= static_cast<std::uint32_t>(bits == 0x7f800000u);
   }
-};
-}  // namespace
+  nan |= n;
+  inf |= i;
+}
+
+void Optimizer::update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
+                                     bool zero_grad, NonFinite& seen) {
+  seen.check(grad, count);
+  update_block(value, grad, slots, count);
+  if (zero_grad) std::fill(grad, grad + count, 0.0f);
+}
 
 void Optimizer::bind(const nn::ParameterStore& params) {
   const std::vector<std::string> slots = slot_names();
@@ -155,14 +160,17 @@ Optimizer::GradCheck Optimizer::update_part(nn::ParameterStore& params, int part
       const float* s = q.grad.data() + offset;
       for (Eigen::Index k = 0; k < count; ++k) g[k] += s[k];
     }
-    seen.check(g, count);
-    if (scale != 1.0f)
-      for (Eigen::Index k = 0; k < count; ++k) g[k] *= scale;
     for (std::size_t s = 0; s < b.slots.size(); ++s) slot_ptrs[s] = b.slots[s].data() + offset;
     float* value = p.value.data() + offset;
-    update_block(value, g, slot_ptrs.data(), count);
+    if (scale != 1.0f) {
+      seen.check(g, count);
+      for (Eigen::Index k = 0; k < count; ++k) g[k] *= scale;
+      update_block(value, g, slot_ptrs.data(), count);
+      if (fusion.zero) std::fill(g, g + count, 0.0f);
+    } else {
+      update_block_checked(value, g, slot_ptrs.data(), count, fusion.zero, seen);
+    }
     if (fusion.zero) {
-      std::fill(g, g + count, 0.0f);
       for (nn::ParameterStore* store : fusion.zero_also) {
         float* z = (*store)[i].grad.data() + offset;
         std::fill(z, z + count, 0.0f);

@@ -33,6 +33,8 @@ class Adam final : public Optimizer {
   std::vector<std::string> slot_names() const override;
   void begin_step(std::int64_t step, float learning_rate) override;
   void update_block(float* value, const float* grad, float* const* slots, std::int64_t count) override;
+  void update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
+                            bool zero_grad, NonFinite& seen) override;
 
  private:
   float beta1_;

@@ -121,6 +121,17 @@ class Optimizer {
   /// row for a sparse one, with the values given to the last begin_step().
   virtual void update_block(float* value, const float* grad, float* const* slots, std::int64_t count) = 0;
 
+  /// Non-finite gradient values seen by the fused update (update_part with a Fusion).
+  struct NonFinite {
+    std::uint32_t nan = 0, inf = 0;
+    void check(const float* g, std::int64_t count) noexcept;
+  };
+  /// update_block() that, in the same pass, first records non-finite values of `grad` in `seen`
+  /// and, when zero_grad, zeroes `grad` after reading it. The default does the three in turn; an
+  /// optimizer may do them in one loop (Adam's AVX-512 kernel).
+  virtual void update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
+                                    bool zero_grad, NonFinite& seen);
+
  private:
   struct Bound {
     std::size_t param_index;  // index into the store

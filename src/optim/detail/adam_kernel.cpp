@@ -20,17 +20,22 @@ GYRE_AVX512 inline __mmask16 cols_mask(std::ptrdiff_t cols) {
 }
 }  // namespace
 
-GYRE_AVX512 void adam_update_avx512(const AdamStep& st, float* value, const float* grad, float* m, float* v,
-                                    std::ptrdiff_t count) {
+GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float* grad, float* m, float* v,
+                                        std::ptrdiff_t count, bool zero_grad) {
   const __m512 b1 = _mm512_set1_ps(st.beta1), b2 = _mm512_set1_ps(st.beta2);
   const __m512 one_b1 = _mm512_set1_ps(1.0f - st.beta1), one_b2 = _mm512_set1_ps(1.0f - st.beta2);
   const __m512 lr = _mm512_set1_ps(st.learning_rate), eps = _mm512_set1_ps(st.epsilon);
   const __m512 l2 = _mm512_set1_ps(st.l2), decay = _mm512_set1_ps(st.decay);
   const __m512 c1 = _mm512_set1_ps(st.inv_bias1), c2 = _mm512_set1_ps(st.inv_bias2);
+  __mmask16 nan = 0, inf = 0;
   for (std::ptrdiff_t i = 0; i < count; i += 16) {
     const __mmask16 k = cols_mask(count - i);
     const __m512 w = _mm512_maskz_loadu_ps(k, value + i);
-    const __m512 g = _mm512_fmadd_ps(l2, w, _mm512_maskz_loadu_ps(k, grad + i));
+    const __m512 raw = _mm512_maskz_loadu_ps(k, grad + i);
+    nan = static_cast<__mmask16>(nan | _mm512_fpclass_ps_mask(raw, 0x81));  // quiet or signalling NaN
+    inf = static_cast<__mmask16>(inf | _mm512_fpclass_ps_mask(raw, 0x18));  // +inf or -inf
+    if (zero_grad) _mm512_mask_storeu_ps(grad + i, k, _mm512_setzero_ps());
+    const __m512 g = _mm512_fmadd_ps(l2, w, raw);
     const __m512 mi = _mm512_fmadd_ps(b1, _mm512_maskz_loadu_ps(k, m + i), _mm512_mul_ps(one_b1, g));
     const __m512 vi =
         _mm512_fmadd_ps(b2, _mm512_maskz_loadu_ps(k, v + i), _mm512_mul_ps(one_b2, _mm512_mul_ps(g, g)));
@@ -41,6 +46,7 @@ GYRE_AVX512 void adam_update_avx512(const AdamStep& st, float* value, const floa
     _mm512_mask_storeu_ps(v + i, k, vi);
     _mm512_mask_storeu_ps(value + i, k, _mm512_fnmadd_ps(lr, upd, w));
   }
+  return (nan != 0 ? 1u : 0u) | (inf != 0 ? 2u : 0u);
 }
 
 }  // namespace gyre::optim::detail
@@ -48,7 +54,7 @@ GYRE_AVX512 void adam_update_avx512(const AdamStep& st, float* value, const floa
 #else
 
 namespace gyre::optim::detail {
-void adam_update_avx512(const AdamStep&, float*, const float*, float*, float*, std::ptrdiff_t) {
+unsigned adam_update_avx512(const AdamStep&, float*, float*, float*, float*, std::ptrdiff_t, bool) {
   std::abort();
 }
 }  // namespace gyre::optim::detail
