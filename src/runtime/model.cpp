@@ -84,7 +84,8 @@ struct Model::Impl {
   std::vector<float> char_embedding;  // [Vc x Ec]
   std::vector<float> char_conv;       // [Fc x w*Ec], window slot k at columns [k*Ec, (k+1)*Ec)
   std::vector<float> char_bias;       // [Fc]
-  // N-gram part (arch.has_ngram_part()): keys and f32 weights decoded at load.
+  // N-gram part (arch.has_ngram_part()): keys decoded at load; weights f32 (from f32/f16 files) or,
+  // from an int8 file, kept as int8 with their per-class scales (NgramPart::quantized()).
   NgramPart ngram;
 
   std::size_t vocab_size() const { return vocab_off.size() - 1; }
@@ -114,7 +115,7 @@ void Model::Impl::parse_header() {
   if (h.format != "gyre-model")
     fail("a training checkpoint, not an exported model (run `gyre export` on it for the runtime)");
   check_model_tensors(h, file);  // before anything below allocates from the header's sizes
-  ngram = read_ngram_part(h, file);
+  ngram = read_ngram_part(h, file, /*keep_int8=*/true);
   arch = h.architecture;
   labels = std::move(h.labels);
   tok_settings = h.tokenizer;
@@ -262,6 +263,9 @@ const Architecture& Model::architecture() const {
 }
 const std::vector<std::string>& Model::labels() const {
   return impl_->labels;
+}
+const NgramPart& Model::ngram_part() const {
+  return impl_->ngram;
 }
 const TokenizerSettings& Model::tokenizer_settings() const {
   return impl_->tok_settings;

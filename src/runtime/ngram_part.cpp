@@ -62,17 +62,37 @@ void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<s
 
 NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights,
                      std::vector<float> bias, float mix)
-    : order_(order), mix_(mix), keys_(std::move(keys)), weights_(std::move(weights)), bias_(std::move(bias)) {
+    : NgramPart(order, std::move(keys), std::move(weights), std::move(bias), mix, {}, {}) {}
+
+NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights,
+                     std::vector<float> bias, float mix, std::vector<std::int8_t> qweights,
+                     std::vector<float> scales)
+    : order_(order),
+      mix_(mix),
+      keys_(std::move(keys)),
+      weights_(std::move(weights)),
+      qweights_(std::move(qweights)),
+      scales_(std::move(scales)),
+      bias_(std::move(bias)) {
+  const bool int8 = !qweights_.empty() || !scales_.empty();
   if (order_ < 1 || order_ > kMaxNgramOrder) {
     throw Error("n-gram part: order " + std::to_string(order_) + " is outside 1.." +
                 std::to_string(kMaxNgramOrder));
   }
   if (bias_.empty()) throw Error("n-gram part: no classes");
   if (!(std::isfinite(mix_) && mix_ > 0.0F)) throw Error("n-gram part: mix must be a positive finite number");
-  if (weights_.size() != keys_.size() * bias_.size()) {
-    throw Error("n-gram part: " + std::to_string(weights_.size()) + " weights for " +
-                std::to_string(keys_.size()) + " keys x " + std::to_string(bias_.size()) + " classes");
+  const std::size_t stored = int8 ? qweights_.size() : weights_.size();
+  if (stored != keys_.size() * bias_.size() || (int8 && !weights_.empty())) {
+    throw Error("n-gram part: " + std::to_string(stored) + " weights for " + std::to_string(keys_.size()) +
+                " keys x " + std::to_string(bias_.size()) + " classes");
   }
+  if (int8 && scales_.size() != bias_.size())
+    throw Error("n-gram part: " + std::to_string(scales_.size()) + " int8 scales for " +
+                std::to_string(bias_.size()) + " classes");
+  for (float sc : scales_) {
+    if (!std::isfinite(sc)) throw Error("n-gram part: an int8 scale is not finite");
+  }
+  if (int8 && keys_.empty()) throw Error("n-gram part: an int8 part needs keys");
   for (std::size_t i = 0; i < keys_.size(); ++i) {
     if (keys_[i].empty()) throw Error("n-gram part: key " + std::to_string(i) + " is empty");
     if (i > 0 && !(keys_[i - 1] < keys_[i])) {
@@ -87,6 +107,11 @@ NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<float
   }
   classes_ = static_cast<int>(bias_.size());
 }
+
+NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<std::int8_t> qweights,
+                     std::vector<float> scales, std::vector<float> bias, float mix)
+    : NgramPart(order, std::move(keys), std::vector<float>(), std::move(bias), mix, std::move(qweights),
+                std::move(scales)) {}
 
 std::int32_t NgramPart::find(std::string_view key) const noexcept {
   auto it = std::lower_bound(keys_.begin(), keys_.end(), key, [](const std::string& a, std::string_view b) {
@@ -140,8 +165,17 @@ void NgramPart::add_scores(const std::string* tokens, std::size_t n, float* logi
   const auto classes = static_cast<std::size_t>(classes_);
   for (std::size_t c = 0; c < classes; ++c) {
     float z = bias_[c];
-    for (std::size_t i = 0; i < scratch.index.size(); ++i) {
-      z += scratch.values[i] * weights_[static_cast<std::size_t>(scratch.index[i]) * classes + c];
+    if (qweights_.empty()) {
+      for (std::size_t i = 0; i < scratch.index.size(); ++i)
+        z += scratch.values[i] * weights_[static_cast<std::size_t>(scratch.index[i]) * classes + c];
+    } else {
+      // The same floats as the f32 part read from this file: each weight dequantised as read_f32
+      // does (float(q) * scale), then the same sum in the same order.
+      const float scale = scales_[c];
+      for (std::size_t i = 0; i < scratch.index.size(); ++i)
+        z +=
+            scratch.values[i] *
+            (static_cast<float>(qweights_[static_cast<std::size_t>(scratch.index[i]) * classes + c]) * scale);
     }
     logits[c] += mix_ * z;
   }
@@ -155,7 +189,6 @@ float NgramPart::token_shares(const std::string* tokens, std::size_t n, int labe
   for (std::size_t i = 0; i < n; ++i) shares[i] = 0.0F;
   if (empty()) return 0.0F;
   features(tokens, n, scratch.index, scratch.values, scratch);  // x, and scratch.ids = known keys, sorted
-  const auto classes = static_cast<std::size_t>(classes_);
   const auto c = static_cast<std::size_t>(label);
   // Every occurrence of key k takes 1/count of mix * W[c, k] * x_k and splits it equally among the
   // tokens it covers (begin/end markers take no share).
@@ -167,7 +200,7 @@ float NgramPart::token_shares(const std::string* tokens, std::size_t n, int labe
                  const auto occurrences = std::upper_bound(scratch.ids.begin(), scratch.ids.end(), id) -
                                           std::lower_bound(scratch.ids.begin(), scratch.ids.end(), id);
                  const float x = scratch.values[static_cast<std::size_t>(at - scratch.index.begin())];
-                 const float part = mix_ * weights_[static_cast<std::size_t>(id) * classes + c] * x /
+                 const float part = mix_ * weight(static_cast<std::size_t>(id), c) * x /
                                     static_cast<float>(occurrences) / static_cast<float>(last - first + 1);
                  for (std::size_t t = first; t <= last; ++t) shares[t] += part;
                });

@@ -88,7 +88,7 @@ std::vector<std::string> decode_ngram_keys(const unsigned char* data, std::size_
   return keys;
 }
 
-NgramPart read_ngram_part(const ModelHeader& h, const ModelFile& file) {
+NgramPart read_ngram_part(const ModelHeader& h, const ModelFile& file, bool keep_int8) {
   const Architecture& a = h.architecture;
   if (!a.has_ngram_part()) return NgramPart();
   const std::string where = file.name() + ": n-gram part";
@@ -101,11 +101,20 @@ NgramPart read_ngram_part(const ModelHeader& h, const ModelFile& file) {
   std::vector<std::string> keys =
       decode_ngram_keys(static_cast<const unsigned char*>(kt.data), static_cast<std::size_t>(kt.bytes), K,
                         where + ": ngram.keys");
-  const std::vector<float> class_major = file.read_f32(wt);
-  std::vector<float> weights(K * C);
-  for (std::size_t c = 0; c < C; ++c)
-    for (std::size_t k = 0; k < K; ++k) weights[k * C + c] = class_major[c * K + k];
   try {
+    if (keep_int8 && wt.dtype == DType::kI8) {
+      // One byte per weight, transposed to feature-major; the file's per-class scales kept.
+      const auto* q = static_cast<const std::int8_t*>(wt.data);
+      std::vector<std::int8_t> qweights(K * C);
+      for (std::size_t c = 0; c < C; ++c)
+        for (std::size_t k = 0; k < K; ++k) qweights[k * C + c] = q[c * K + k];
+      return NgramPart(a.ngram_order, std::move(keys), std::move(qweights),
+                       std::vector<float>(wt.scales, wt.scales + C), file.read_f32(bt), a.ngram_mix);
+    }
+    const std::vector<float> class_major = file.read_f32(wt);
+    std::vector<float> weights(K * C);
+    for (std::size_t c = 0; c < C; ++c)
+      for (std::size_t k = 0; k < K; ++k) weights[k * C + c] = class_major[c * K + k];
     return NgramPart(a.ngram_order, std::move(keys), std::move(weights), file.read_f32(bt), a.ngram_mix);
   } catch (const Error& e) {
     throw Error(file.name() + ": " + e.what());
@@ -126,7 +135,7 @@ void add_ngram_part(ModelFileWriter& w, const NgramPart& part, DType precision) 
   w.add_bytes("ngram.keys", Span<const unsigned char>(blob.data(), blob.size()));
   std::vector<float> class_major(K * C);
   for (std::size_t k = 0; k < K; ++k)
-    for (std::size_t c = 0; c < C; ++c) class_major[c * K + k] = part.weights()[k * C + c];
+    for (std::size_t c = 0; c < C; ++c) class_major[c * K + k] = part.weight(k, c);
   w.add_tensor("ngram.w", C, K, Span<const float>(class_major.data(), class_major.size()), precision);
   w.add_tensor("ngram.b", 1, C, Span<const float>(part.bias().data(), part.bias().size()));
 }

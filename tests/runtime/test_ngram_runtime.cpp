@@ -312,6 +312,51 @@ TEST_CASE("n-gram part: f16 and int8 files stay close to f32", "[runtime][ngram]
   CHECK(agree8 >= n * 95 / 100);
 }
 
+TEST_CASE("n-gram part: an int8 file's part stays int8 in memory and scores as its f32 reading",
+          "[runtime][ngram][quantized]") {
+  RefModel r = make_model("gru", false, "mean", 3, 2024);
+  Loaded f32(r), i8(r, DType::kI8), f16(r, DType::kF16);
+  const auto& f = i8.model.file();
+  const auto h = gyre::runtime::parse_model_header(f.header_json(), f.name());
+  const NgramPart dequantised = gyre::runtime::read_ngram_part(h, f);  // f32, as the library reads it
+  const NgramPart& kept = i8.model.ngram_part();                       // what the runtime computes with
+  REQUIRE_FALSE(dequantised.quantized());
+  REQUIRE(kept.quantized());
+  const std::size_t K = kept.features(), C = static_cast<std::size_t>(kept.classes());
+  CHECK(kept.weights().empty());
+  CHECK(kept.qweights().size() == K * C);
+  CHECK(kept.weight_bytes() == K * C + 4 * C);
+  CHECK(dequantised.weight_bytes() == 4 * K * C);
+  // f32 and f16 files keep f32 weights.
+  CHECK_FALSE(f32.model.ngram_part().quantized());
+  CHECK_FALSE(f16.model.ngram_part().quantized());
+  for (std::size_t k = 0; k < K; ++k)
+    for (std::size_t c = 0; c < C; ++c) REQUIRE(kept.weight(k, c) == dequantised.weights()[k * C + c]);
+  // Scores and token shares equal the f32 reading bit for bit (same dequantisation, same order).
+  gyre::runtime::NgramScratch scratch;
+  for (const char* text : kTexts) {
+    const auto words = split(text);
+    std::vector<float> a(C, 0.0F), b(C, 0.0F);
+    kept.add_scores(words, a.data(), scratch);
+    dequantised.add_scores(words, b.data(), scratch);
+    for (std::size_t c = 0; c < C; ++c) REQUIRE(a[c] == b[c]);
+    std::vector<float> sa(words.size()), sb(words.size());
+    const float ba = kept.token_shares(words.data(), words.size(), 1, sa.data(), scratch);
+    const float bb = dequantised.token_shares(words.data(), words.size(), 1, sb.data(), scratch);
+    REQUIRE(ba == bb);
+    for (std::size_t t = 0; t < words.size(); ++t) REQUIRE(sa[t] == sb[t]);
+  }
+  // Bad int8 parts are refused.
+  CHECK_THROWS_AS(
+      NgramPart(1, {"a"}, std::vector<std::int8_t>{1, 2}, std::vector<float>{1.0F}, {0.0F, 0.0F}, 1.0F),
+      Error);  // one scale for two classes
+  CHECK_THROWS_AS(NgramPart(1, {"a"}, std::vector<std::int8_t>{1}, std::vector<float>{NAN}, {0.0F}, 1.0F),
+                  Error);
+  CHECK_THROWS_AS(
+      NgramPart(1, {"a", "b"}, std::vector<std::int8_t>{1}, std::vector<float>{1.0F}, {0.0F}, 1.0F),
+      Error);  // one weight for two keys
+}
+
 TEST_CASE("n-gram part: the C API reports it and gyre_classify applies it", "[runtime][ngram][c_api]") {
   RefModel r = make_model("lstm", false, "mean", 2, 606);
   Loaded l(r);

@@ -22,6 +22,7 @@
 #include "gyre/runtime/error.hpp"
 #include "gyre/runtime/model_file.hpp"
 #include "gyre/runtime/model_header.hpp"
+#include "gyre/runtime/ngram_part.hpp"
 #include "gyre/runtime/span.hpp"
 #include "gyre/runtime/tokenizer.hpp"
 
@@ -77,6 +78,9 @@ class Model {
 
   const Architecture& architecture() const;
   const std::vector<std::string>& labels() const;
+  /// The n-gram part the model applies (empty without one); from an int8 file its weights stay
+  /// int8 (NgramPart::quantized()).
+  const NgramPart& ngram_part() const;
   const TokenizerSettings& tokenizer_settings() const;
   const Tokenizer& tokenizer() const;
   std::size_t vocabulary_size() const;

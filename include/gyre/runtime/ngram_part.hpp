@@ -59,6 +59,13 @@ class NgramPart {
   /// Throws Error naming what is wrong otherwise.
   NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights, std::vector<float> bias,
             float mix);
+  /// The same with int8 weights kept as stored in an int8 model file (one byte per weight instead
+  /// of four): weight(k, c) = float(qweights[k * classes + c]) * scales[c], feature-major like
+  /// `weights` above, one finite scale per class (the file's per-row scales of its class-major
+  /// ngram.w). Scores are computed from the bytes with exactly that dequantisation, so they equal
+  /// those of the f32 part read from the same file (read_f32) bit for bit.
+  NgramPart(int order, std::vector<std::string> keys, std::vector<std::int8_t> qweights,
+            std::vector<float> scales, std::vector<float> bias, float mix);
 
   bool empty() const noexcept { return classes_ == 0; }
   int order() const noexcept { return order_; }
@@ -66,7 +73,21 @@ class NgramPart {
   std::size_t features() const noexcept { return keys_.size(); }
   float mix() const noexcept { return mix_; }
   const std::vector<std::string>& keys() const noexcept { return keys_; }
+  /// f32 weights, feature-major; empty for an int8 part (quantized()): use weight(k, c).
   const std::vector<float>& weights() const noexcept { return weights_; }
+  /// int8 weights (feature-major) and per-class scales; empty for an f32 part.
+  bool quantized() const noexcept { return !qweights_.empty(); }
+  const std::vector<std::int8_t>& qweights() const noexcept { return qweights_; }
+  const std::vector<float>& scales() const noexcept { return scales_; }
+  /// Weight of key k for class c (dequantised for an int8 part). k < features(), c < classes().
+  float weight(std::size_t k, std::size_t c) const noexcept {
+    const std::size_t i = k * static_cast<std::size_t>(classes_) + c;
+    return qweights_.empty() ? weights_[i] : static_cast<float>(qweights_[i]) * scales_[c];
+  }
+  /// Bytes the weights take in memory (4 per weight in f32, 1 per weight + 4 per class in int8).
+  std::size_t weight_bytes() const noexcept {
+    return weights_.size() * sizeof(float) + qweights_.size() + scales_.size() * sizeof(float);
+  }
   const std::vector<float>& bias() const noexcept { return bias_; }
 
   /// Index of key in keys(), or -1.
@@ -100,11 +121,16 @@ class NgramPart {
                      NgramScratch& scratch) const;
 
  private:
+  NgramPart(int order, std::vector<std::string> keys, std::vector<float> weights, std::vector<float> bias,
+            float mix, std::vector<std::int8_t> qweights, std::vector<float> scales);
+
   int order_ = 0;
   int classes_ = 0;
   float mix_ = 0.0F;
   std::vector<std::string> keys_;
-  std::vector<float> weights_;
+  std::vector<float> weights_;         // f32 part
+  std::vector<std::int8_t> qweights_;  // int8 part
+  std::vector<float> scales_;          // int8 part: per class
   std::vector<float> bias_;
 };
 

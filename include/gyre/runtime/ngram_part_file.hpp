@@ -31,9 +31,11 @@ std::vector<std::string> decode_ngram_keys(const unsigned char* data, std::size_
                                            const std::string& where);
 
 /// The part of a validated model file (parse_model_header + check_model_tensors passed): an empty
-/// part when h has none. Throws Error("FILE: n-gram part: ...") when the keys do not decode or
-/// the part is otherwise invalid.
-NgramPart read_ngram_part(const ModelHeader& h, const ModelFile& file);
+/// part when h has none. Weights in f32 (dequantised from f16/i8), or with keep_int8 and an i8
+/// ngram.w its bytes and scales as stored (NgramPart::quantized(); what runtime::Model keeps: a
+/// quarter of the memory, the same scores). Throws Error("FILE: n-gram part: ...") when the keys do
+/// not decode or the part is otherwise invalid.
+NgramPart read_ngram_part(const ModelHeader& h, const ModelFile& file, bool keep_int8 = false);
 /// Sets arch's ngram_order / ngram_mix / ngram_keys from part (all 0 for an empty part).
 void describe_ngram_part(const NgramPart& part, Architecture& arch);
 /// Adds the part's three tensors to w, the weights in `precision` (f32, f16 or i8). No-op for an
