@@ -34,6 +34,15 @@ void EncodedCorpus::add(const EncodedExample& example) {
   cut_.push_back(example.cut);
 }
 
+void EncodedCorpus::reserve(std::size_t examples, std::size_t tokens, std::size_t targets) {
+  ids_.reserve(ids_.size() + tokens);
+  id_start_.reserve(id_start_.size() + examples);
+  targets_.reserve(targets_.size() + targets);
+  target_start_.reserve(target_start_.size() + examples);
+  lines_.reserve(lines_.size() + examples);
+  cut_.reserve(cut_.size() + examples);
+}
+
 std::span<const std::int32_t> EncodedCorpus::ids(std::size_t i) const {
   GYRE_CHECK(i < size(), "example index out of range");
   return std::span<const std::int32_t>(ids_).subspan(id_start_[i], id_start_[i + 1] - id_start_[i]);

@@ -189,8 +189,10 @@ void check_vocab_tokenizer(const std::string& path, const text::TokenizerSetting
 
 // The run's vocabulary: a resumed run's own, a `gyre vocab` file given with --vocab, or built
 // from the training split only (the configured tokenizer, token and label counts).
+// `tokens` (when not null) gets the training split's token count when the vocabulary is counted
+// here (0 when it comes from a file and no pass runs).
 text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task, const ExampleStream& train_split,
-                              const text::VocabFile* saved_vocab) {
+                              const text::VocabFile* saved_vocab, std::size_t* token_count) {
   const bool chars = config.char_encoder.value_or(false);  // resolved by prepare_data
   if (saved_vocab != nullptr) {
     if (saved_vocab->characters.empty() == chars)
@@ -226,6 +228,7 @@ text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task, const 
   text::CharacterListBuilder characters;
   text::LabelCounts labels;
   std::vector<std::string> tokens, surfaces;
+  std::size_t counted = 0;
   train_split([&](const data::Example& ex) {
     if (chars) {
       tokenizing.tokens(ex, config.train, tokens, surfaces);
@@ -233,10 +236,12 @@ text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task, const 
     } else {
       tokenizing.tokens(ex, config.train, tokens);
     }
+    counted += tokens.size();
     if (given) return;
     builder.add(tokens);
     for (const auto& l : task == data::Task::kClassify ? ex.labels : ex.tags) ++labels[l];
   });
+  if (token_count != nullptr) *token_count = counted;
   if (chars) vocab.characters = characters.build(kMinCharacterCount, 0);
   if (given) return vocab;
   vocab.vocab = builder.build(static_cast<std::uint64_t>(config.min_count),
@@ -248,10 +253,14 @@ text::VocabFile resolve_vocab(const TrainConfig& config, data::Task task, const 
 // Ids and targets of both splits, warnings about texts cut at max_tokens and about a vocabulary
 // too small to learn from, and the fingerprint of the encoded training data (a resumed run
 // checks it).
+// train_tokens: the training split's token count when the vocabulary pass counted it (the arena
+// is then reserved exactly for single-label classifiers and taggers), else 0.
 void encode_splits(const TrainConfig& config, ProgressLine& progress, bool saved_vocab,
-                   const ExampleStream& train_split, std::size_t train_count,
+                   const ExampleStream& train_split, std::size_t train_count, std::size_t train_tokens,
                    const std::vector<data::Example>& dev_examples, PreparedData& out) {
   const data::Encoder encoder(out.vocab, out.task);
+  if (train_tokens > 0)  // one target per example (classifiers) or per token (taggers)
+    out.train.reserve(train_count, train_tokens, out.task == data::Task::kTag ? train_tokens : train_count);
   train_split([&](const data::Example& ex) { out.train.add(encoder.encode(ex, config.train)); });
   if (out.train.size() != train_count)
     throw IoError(config.train + ": the file changed while it was read: " + std::to_string(out.train.size()) +
@@ -346,8 +355,10 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
 
   config.char_encoder = resolve_char_encoder(config, out.task);
   const ExampleStream train_split = read_run_split(config, false, out.tag_scheme);
-  out.vocab = resolve_vocab(config, out.task, train_split, saved_vocab);
-  encode_splits(config, progress, saved_vocab != nullptr, train_split, train_count, dev_examples, out);
+  std::size_t train_tokens = 0;
+  out.vocab = resolve_vocab(config, out.task, train_split, saved_vocab, &train_tokens);
+  encode_splits(config, progress, saved_vocab != nullptr, train_split, train_count, train_tokens,
+                dev_examples, out);
   return out;
 }
 

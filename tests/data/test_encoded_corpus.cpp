@@ -102,6 +102,32 @@ TEST_CASE("encoded corpus: every example reads back exactly", "[data][arena]") {
     }
 }
 
+TEST_CASE("encoded corpus: reserved exactly, filling it leaves no slack", "[data][arena]") {
+  for (const bool tags : {false, true}) {
+    INFO("tags " << tags << ", seed 8");
+    const auto examples = make_examples(257, 8, tags, false);
+    std::size_t tokens = 0, targets = 0;
+    for (const auto& ex : examples) {
+      tokens += ex.ids.size();
+      targets += ex.targets.size();
+    }
+    EncodedCorpus corpus;
+    corpus.reserve(examples.size(), tokens, targets);
+    const std::size_t reserved = corpus.bytes();
+    for (const auto& ex : examples) corpus.add(ex);
+    // Nothing grew past the reservation, and shrink_to_fit finds no slack to drop (the layout:
+    // 4 B per id and target, 8 B per offset and line, the cut bits in 64-bit words).
+    CHECK(corpus.bytes() == reserved);
+    const std::size_t n = examples.size();
+    CHECK(corpus.bytes() >= 4 * tokens + 4 * targets + 8 * (2 * (n + 1) + n) + n / 8);
+    CHECK(corpus.bytes() <= 4 * tokens + 4 * targets + 8 * (2 * (n + 1) + n) + n / 8 + 8);
+    const std::size_t filled = corpus.bytes();
+    corpus.shrink_to_fit();
+    CHECK(corpus.bytes() == filled);
+    for (std::size_t i = 0; i < n; ++i) check_same(corpus.example(i), examples[i]);
+  }
+}
+
 TEST_CASE("encoded corpus: out-of-range reads and inconsistent examples are refused", "[data][arena]") {
   const auto examples = make_examples(3, 9, true, true);
   EncodedCorpus corpus(examples);

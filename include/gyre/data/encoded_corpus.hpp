@@ -27,6 +27,10 @@ class EncodedCorpus {
   /// (char_offsets) do not match its tokens, or whose having characters differs from the
   /// examples already added.
   void add(const EncodedExample& example);
+  /// Reserves room for `examples` more examples holding `tokens` token ids and `targets` targets
+  /// in all (no character ids): adding exactly those leaves no slack, so shrink_to_fit() has
+  /// nothing to copy and the arrays never hold twice their size while they fill.
+  void reserve(std::size_t examples, std::size_t tokens, std::size_t targets);
 
   std::size_t size() const noexcept { return lines_.size(); }
   bool empty() const noexcept { return lines_.empty(); }
