@@ -17,6 +17,24 @@ void check_order(int order) {
   }
 }
 
+// A token's bytes in a key (see the header): 0x01..0x04 become 0x04 then 'A'..'D', so the join and
+// the markers never occur inside a token's part and keys stay unambiguous.
+bool needs_escape(std::string_view token) noexcept {
+  for (const char ch : token)
+    if (ch >= '\x01' && ch <= kNgramEscape) return true;
+  return false;
+}
+void append_item(std::string& key, std::string_view token) {
+  for (const char ch : token) {
+    if (ch >= '\x01' && ch <= kNgramEscape) {
+      key += kNgramEscape;
+      key += static_cast<char>('A' + (ch - '\x01'));
+    } else {
+      key += ch;
+    }
+  }
+}
+
 // Calls f(key, first, last) for every key of tokens[0..n) for orders 1..order (see the header), in
 // order of appearance, with repeats, building each key in `key` (reused: no allocation once it has
 // held the longest key); tokens first..last (inclusive, markers not counted) are those the key
@@ -24,24 +42,36 @@ void check_order(int order) {
 template <class F>
 void for_each_key(const std::string* tokens, std::size_t n, int order, std::size_t skip, std::string& key,
                   F&& f) {
-  for (std::size_t i = 0; i < n; ++i)
-    if (i != skip) f(std::string_view(tokens[i]), i, i);
+  for (std::size_t i = 0; i < n; ++i) {
+    if (i == skip) continue;
+    if (!needs_escape(tokens[i])) {
+      f(std::string_view(tokens[i]), i, i);
+    } else {
+      key.clear();
+      append_item(key, tokens[i]);
+      f(std::string_view(key), i, i);
+    }
+  }
   if (n == 0) return;
   // Items of the padded list: 0 = begin marker, n + 1 = end marker, i = token i - 1.
   const std::size_t padded = n + 2;
-  auto item = [&](std::size_t i) -> std::string_view {
-    if (i == 0) return kNgramBegin;
-    if (i == padded - 1) return kNgramEnd;
-    return tokens[i - 1];
+  auto add_item = [&](std::size_t i) {
+    if (i == 0)
+      key += kNgramBegin;
+    else if (i == padded - 1)
+      key += kNgramEnd;
+    else
+      append_item(key, tokens[i - 1]);
   };
   for (std::size_t len = 2; len <= static_cast<std::size_t>(order); ++len) {
     for (std::size_t start = 0; start + len <= padded; ++start) {
       // Padded items start .. start+len-1 hold token skip (item skip + 1)?
       if (skip < n && start <= skip + 1 && skip + 1 < start + len) continue;
-      key.assign(item(start));
+      key.clear();
+      add_item(start);
       for (std::size_t k = 1; k < len; ++k) {
         key += kNgramJoin;
-        key += item(start + k);
+        add_item(start + k);
       }
       // Padded items start..start+len-1 are tokens start-1..start+len-2, clipped to 0..n-1.
       const std::size_t first = start == 0 ? 0 : start - 1;
@@ -52,6 +82,37 @@ void for_each_key(const std::string* tokens, std::size_t n, int order, std::size
 }
 
 }  // namespace
+
+const char* ngram_key_problem(std::string_view key) noexcept {
+  // Items separated by the join: the begin marker only first, the end marker only last (and neither
+  // alone), every other item a token's escaped bytes (no raw 0x02/0x03, 0x04 only before 'A'..'D').
+  std::size_t items = 0;
+  for (std::size_t pos = 0;; ++items) {
+    const std::size_t end = std::min(key.find(kNgramJoin, pos), key.size());
+    const std::string_view item = key.substr(pos, end - pos);
+    const bool last = end == key.size();
+    if (item == kNgramBegin) {
+      if (items != 0 || last) return "has the begin marker out of place";
+    } else if (item == kNgramEnd) {
+      if (!last || items == 0) return "has the end marker out of place";
+    } else {
+      for (std::size_t k = 0; k < item.size(); ++k) {
+        const char ch = item[k];
+        if (ch == '\x02' || ch == '\x03')
+          return "holds a raw control byte 0x02/0x03 inside a token (keys written before gyre escaped "
+                 "bytes 0x01-0x04 in tokens were ambiguous; retrain the model)";
+        if (ch == kNgramEscape) {
+          if (k + 1 >= item.size() || item[k + 1] < 'A' || item[k + 1] > 'D')
+            return "holds byte 0x04 that escapes nothing (keys written before gyre escaped bytes "
+                   "0x01-0x04 in tokens were ambiguous; retrain the model)";
+          ++k;
+        }
+      }
+    }
+    if (last) return nullptr;
+    pos = end + 1;
+  }
+}
 
 void ngram_keys(const std::vector<std::string>& tokens, int order, std::vector<std::string>& out) {
   check_order(order);
@@ -95,6 +156,8 @@ NgramPart::NgramPart(int order, std::vector<std::string> keys, std::vector<float
   if (int8 && keys_.empty()) throw Error("n-gram part: an int8 part needs keys");
   for (std::size_t i = 0; i < keys_.size(); ++i) {
     if (keys_[i].empty()) throw Error("n-gram part: key " + std::to_string(i) + " is empty");
+    if (const char* why = ngram_key_problem(keys_[i]))
+      throw Error("n-gram part: key " + std::to_string(i) + " " + why);
     if (i > 0 && !(keys_[i - 1] < keys_[i])) {
       throw Error("n-gram part: keys are not sorted and unique at key " + std::to_string(i));
     }

@@ -429,3 +429,66 @@ TEST_CASE("n-gram part: token shares split each key's exact term over the tokens
   std::vector<float> shares(3);
   CHECK_THROWS_AS(part.token_shares(tokens.data(), 3, 2, shares.data(), scratch), Error);
 }
+
+TEST_CASE("n-gram keys: tokens holding join, marker or escape bytes are escaped, never ambiguous",
+          "[runtime][ngram]") {
+  using gyre::runtime::ngram_key_problem;
+  using gyre::runtime::ngram_keys;
+  const std::string J(1, gyre::runtime::kNgramJoin);
+  // Before escaping, the one token "a<join>b" had the key of the bigram a+b, and a token "\x02"
+  // that of the begin marker.
+  std::vector<std::string> one, two;
+  ngram_keys({"a" + J + "b"}, 2, one);
+  ngram_keys({"a", "b"}, 2, two);
+  for (const auto& k : one) CHECK(std::find(two.begin(), two.end(), k) == two.end());
+  CHECK(one.front() ==
+        "a\x04"
+        "Ab");  // 0x01 -> 0x04 'A'
+  std::vector<std::string> marks;
+  ngram_keys({"\x02", "\x03\x04"}, 2, marks);
+  const std::vector<std::string> want = {
+      "\x04"
+      "B",
+      "\x04"
+      "C\x04"
+      "D",
+      "\x02" + J + "\x04" + "B",
+      "\x04"
+      "B" +
+          J + "\x04" + "C\x04" + "D",
+      "\x04"
+      "C\x04"
+      "D" +
+          J + "\x03"};
+  CHECK(marks == want);
+  // Every key made from any bytes passes the check; tokens without bytes 0x01-0x04 keep their keys.
+  for (const auto& k : marks) CHECK(ngram_key_problem(k) == nullptr);
+  for (const auto& k : two) CHECK(ngram_key_problem(k) == nullptr);
+  CHECK(two.front() == "a");
+  CHECK(two[2] == "\x02" + J + "a");
+  // Keys that could only come from an unescaped token (a file written before escaping) are refused.
+  for (const std::string& bad :
+       std::vector<std::string>{std::string("\x02"), "a\x02", "a\x04", "a\x04Z", "a" + J + "\x02",
+                                "\x03" + J + "a", std::string("\x03")}) {
+    INFO("key bytes " << bad.size());
+    CHECK(ngram_key_problem(bad) != nullptr);
+    CHECK_THROWS_AS(NgramPart(2, {bad}, std::vector<float>{1.0F}, {0.0F}, 1.0F), Error);
+  }
+  try {
+    NgramPart(2, {"a\x02"}, std::vector<float>{1.0F}, {0.0F}, 1.0F);
+  } catch (const Error& e) {
+    CHECK_THAT(e.what(), Contains("key 0") && Contains("retrain"));
+  }
+  // A part with escaped keys scores a text whose token holds those bytes.
+  NgramPart part(2,
+                 {"a\x04"
+                  "Ab"},
+                 std::vector<float>{2.0F}, {0.0F}, 1.0F);
+  gyre::runtime::NgramScratch scratch;
+  float logit = 0.0F;
+  part.add_scores(std::vector<std::string>{"a" + J + "b"}, &logit, scratch);
+  CHECK_THAT(logit, WithinAbs(2.0, 1e-6));
+  logit = 0.0F;
+  part.add_scores(std::vector<std::string>{"a", "b"}, &logit, scratch);
+  CHECK_THAT(logit, WithinAbs(0.0, 1e-6));
+}

@@ -102,7 +102,10 @@ def fold(text):
 
 
 def ngrams(tokens, order):
-    """gyre's runtime::ngram_keys (include/gyre/runtime/ngram_part.hpp)."""
+    """gyre's runtime::ngram_keys (include/gyre/runtime/ngram_part.hpp): bytes 0x01-0x04 of a
+    token are escaped as 0x04 then 'A'..'D' (characters, here: U+0001-U+0004 are those bytes)."""
+    tokens = ["".join("\x04" + chr(ord("A") + ord(ch) - 1) if "\x01" <= ch <= "\x04" else ch for ch in t)
+              for t in tokens]
     out = list(tokens)
     if not tokens:
         return out

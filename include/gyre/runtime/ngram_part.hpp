@@ -15,7 +15,10 @@
 //  - keys: every token (order 1) and, for n = 2..order, every n consecutive items of the list
 //    padded with one begin marker before the first token and one end marker after the last,
 //    items joined by U+0001 (the markers are the strings "\x02" and "\x03"; padding with boundary
-//    symbols is common practice, e.g. character n-grams within word boundaries);
+//    symbols is common practice, e.g. character n-grams within word boundaries); a token's bytes
+//    0x01..0x04 are escaped as 0x04 followed by 'A'..'D' (so a token holding a join or marker
+//    byte, which the whitespace or chars tokenizer can give, cannot make two n-grams one key; keys
+//    of tokens without those bytes are unchanged);
 //  - value of a key present in the part's key list: 1 + ln(count of the key in the text)
 //    ("sublinear tf", Manning, Raghavan & Schuetze 2008, section 6.4.1); keys absent from the list
 //    are dropped; the vector is then scaled to unit L2 norm (a text with no known key: x = 0).
@@ -33,9 +36,15 @@ namespace gyre::runtime {
 inline constexpr char kNgramJoin = '\x01';
 inline constexpr std::string_view kNgramBegin = "\x02";
 inline constexpr std::string_view kNgramEnd = "\x03";
+inline constexpr char kNgramEscape = '\x04';
 /// Highest n-gram order a model may use (our choice: character 1-4-grams are the longest in
 /// common use for short-text classification; 6 leaves room).
 inline constexpr int kMaxNgramOrder = 6;
+
+/// Why `key` cannot be an n-gram key (a marker out of place, a raw 0x02/0x03 or an unescaping 0x04
+/// inside a token's part, as keys written before tokens were escaped could hold), or nullptr when
+/// it can. NgramPart refuses such keys, so a file with ambiguous keys is refused, not misread.
+const char* ngram_key_problem(std::string_view key) noexcept;
 
 /// Appends the keys of `tokens` for orders 1..order (see above), in order of appearance, with
 /// repeats. Throws Error when order is outside [1, kMaxNgramOrder].
