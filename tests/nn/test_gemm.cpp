@@ -83,8 +83,8 @@ TEST_CASE("a bias added in the GEMM's epilogue gives the bits of adding it after
   // when k spans several of the kernel's k blocks (256) and when the product accumulates. Column
   // counts that are not multiples of the 32-column panels check the masked tail.
   gyre::Rng rng(20261203);
-  for (const Eigen::Index k : {Eigen::Index{0}, Eigen::Index{7}, Eigen::Index{128}, Eigen::Index{300},
-                               Eigen::Index{600}}) {
+  for (const Eigen::Index k :
+       {Eigen::Index{0}, Eigen::Index{7}, Eigen::Index{128}, Eigen::Index{300}, Eigen::Index{600}}) {
     for (const Eigen::Index n : {Eigen::Index{1024}, Eigen::Index{45}}) {
       for (const bool accumulate : {false, true}) {
         INFO("k = " << k << ", n = " << n << ", accumulate " << accumulate);

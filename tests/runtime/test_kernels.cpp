@@ -349,8 +349,9 @@ TEST_CASE("Context allocates nothing per call after warm-up", "[runtime][alloc]"
         REQUIRE(text_path == 0);  // whitespace tokenizer
         // Words longer than the small-string buffer (15 bytes in libstdc++), a longer text after a
         // shorter one: the token slots dropped by the shorter text keep their buffers for the next.
-        const std::string long_text = "w2-with-a-long-suffix w9-with-a-long-suffix unknown-and-also-long "
-                                      "w4-with-a-long-suffix w5-with-a-long-suffix w6-with-a-long-suffix";
+        const std::string long_text =
+            "w2-with-a-long-suffix w9-with-a-long-suffix unknown-and-also-long "
+            "w4-with-a-long-suffix w5-with-a-long-suffix w6-with-a-long-suffix";
         const std::string short_text = "w2-with-a-long-suffix w9-with-a-long-suffix";
         ctx.classify(long_text);
         ctx.classify(short_text);
