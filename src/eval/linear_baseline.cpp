@@ -438,6 +438,28 @@ void sublinear_unit_row(const ColumnCounts& counts, std::vector<std::int32_t>& c
   }
 }
 
+// Feature columns for the interned keys `ids` (ids of key_ids) in sorted key order, so a fit
+// depends neither on hash-map iteration order nor on the order keys were first seen: fills index
+// (key -> column) and returns id -> column, -1 for an id not in `ids`.
+std::vector<std::int32_t> columns_in_key_order(const std::unordered_map<std::string, std::int32_t>& key_ids,
+                                               std::vector<std::int32_t> ids,
+                                               std::unordered_map<std::string, std::int32_t>& index) {
+  std::vector<const std::string*> key_of(key_ids.size());
+  for (const auto& [key, id] : key_ids) key_of[static_cast<std::size_t>(id)] = &key;
+  std::sort(ids.begin(), ids.end(), [&](std::int32_t a, std::int32_t b) {
+    return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
+  });
+  std::vector<std::int32_t> column(key_ids.size(), -1);
+  index.clear();
+  index.reserve(ids.size());
+  for (std::size_t c = 0; c < ids.size(); ++c) {
+    const auto id = static_cast<std::size_t>(ids[c]);
+    column[id] = static_cast<std::int32_t>(c);
+    index.emplace(*key_of[id], static_cast<std::int32_t>(c));
+  }
+  return column;
+}
+
 }  // namespace
 
 void NgramClassifier::featurize(std::span<const std::string> tokens, std::vector<std::int32_t>& cols,
@@ -457,24 +479,11 @@ void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
   if (!built_) {
     // Keep the keys held by >= min_df examples. Column ids follow the sorted key order, so the fit
     // depends neither on hash-map iteration order nor on the order keys were first seen.
-    std::vector<const std::string*> key_of(key_ids_.size());
-    for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
     std::vector<std::int32_t> kept;
     for (std::size_t id = 0; id < key_df_.size(); ++id)
       if (key_df_[id] >= min_df_) kept.push_back(static_cast<std::int32_t>(id));
-    std::sort(kept.begin(), kept.end(), [&](std::int32_t a, std::int32_t b) {
-      return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
-    });
-    std::vector<std::int32_t> column(key_ids_.size(), -1);
-    index_.clear();
-    index_.reserve(kept.size());
-    for (std::size_t c = 0; c < kept.size(); ++c) {
-      const auto id = static_cast<std::size_t>(kept[c]);
-      column[id] = static_cast<std::int32_t>(c);
-      index_.emplace(*key_of[id], static_cast<std::int32_t>(c));
-    }
+    const std::vector<std::int32_t> column = columns_in_key_order(key_ids_, std::move(kept), index_);
     // The interned keys are no longer needed: index_ has the kept ones.
-    std::vector<const std::string*>().swap(key_of);
     std::unordered_map<std::string, std::int32_t>().swap(key_ids_);
     std::vector<std::int32_t>().swap(key_df_);
     std::vector<std::uint32_t>().swap(candidates_);
@@ -610,21 +619,9 @@ void WindowTagger::fit(const LbfgsOptions& options) {
   std::vector<std::int32_t> labels(labels_.size());
   for (std::size_t i = 0; i < labels_.size(); ++i) labels[i] = remap[static_cast<std::size_t>(labels_[i])];
 
-  std::vector<const std::string*> key_of(key_ids_.size());
-  for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
-  std::vector<std::int32_t> order(key_ids_.size());
-  for (std::size_t i = 0; i < order.size(); ++i) order[i] = static_cast<std::int32_t>(i);
-  std::sort(order.begin(), order.end(), [&](std::int32_t a, std::int32_t b) {
-    return *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
-  });
-  std::vector<std::int32_t> column(key_ids_.size());
-  index_.clear();
-  index_.reserve(order.size());
-  for (std::size_t c = 0; c < order.size(); ++c) {
-    const auto id = static_cast<std::size_t>(order[c]);
-    column[id] = static_cast<std::int32_t>(c);
-    index_.emplace(*key_of[id], static_cast<std::int32_t>(c));
-  }
+  std::vector<std::int32_t> all(key_ids_.size());
+  for (std::size_t i = 0; i < all.size(); ++i) all[i] = static_cast<std::int32_t>(i);
+  const std::vector<std::int32_t> column = columns_in_key_order(key_ids_, std::move(all), index_);
 
   SparseRows x;
   x.row_start.reserve(labels_.size() + 1);
@@ -640,7 +637,7 @@ void WindowTagger::fit(const LbfgsOptions& options) {
     x.add_row(cols, std::span<const double>(ones.data(), cols.size()));
   }
   model_ = fit_logistic_regression(x, labels, static_cast<int>(tag_names_.size()),
-                                   static_cast<int>(order.size()), options);
+                                   static_cast<int>(index_.size()), options);
 }
 
 void WindowTagger::release_examples() {
