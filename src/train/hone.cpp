@@ -376,6 +376,19 @@ void Search::save_state() {
   write_file_atomic(spec_.out / "hone-state.json", j.dump(1) + "\n");
 }
 
+namespace {
+/// Options of the search's own trainings (a trial's rung, the probe of a paused trial, the best
+/// run): quiet, on this process alone (also inside an MPI job), the linear baseline only if asked.
+TrainOptions trial_options(const fs::path& out, bool fit_baseline) {
+  TrainOptions options;
+  options.out = out;
+  options.quiet = true;
+  options.fit_baseline = fit_baseline;
+  options.group = &local_group();
+  return options;
+}
+}  // namespace
+
 /// Best dev metric and epochs of a run directory from its log.jsonl, first `epochs` lines.
 RungOutcome outcome_from_log(const fs::path& dir, const std::string& metric, int epochs) {
   std::ifstream in(dir / "log.jsonl");
@@ -440,11 +453,7 @@ RungOutcome Search::run_rung(HoneTrial& t, int target_epochs, bool& interrupted)
   fs::remove_all(probe);
   fs::copy(dir, probe, fs::copy_options::recursive);
   fs::remove(probe / "metrics.json");
-  TrainOptions options;
-  options.out = probe;
-  options.quiet = true;
-  options.fit_baseline = false;
-  options.group = &local_group();
+  TrainOptions options = trial_options(probe, /*fit_baseline=*/false);
   options.epochs = o.epochs;
   const TrainResult r = resume(options);
   if (r.outcome == TrainOutcome::kInterrupted) {
@@ -459,11 +468,7 @@ RungOutcome Search::run_rung(HoneTrial& t, int target_epochs, bool& interrupted)
 
 RungOutcome Search::train_trial(HoneTrial& t, int target_epochs, bool& interrupted) {
   const fs::path dir = spec_.out / "trials" / ("t" + std::to_string(t.id));
-  TrainOptions options;
-  options.out = dir;
-  options.quiet = true;
-  options.fit_baseline = false;    // fitted once, for the winner
-  options.group = &local_group();  // a trial trains on one process, also inside an MPI job
+  TrainOptions options = trial_options(dir, /*fit_baseline=*/false);  // fitted once, for the winner
   // Pause at the rung's end; the trainer saves resume.bin, from which the next rung
   // continues. The last rung runs to R (or an early stop).
   options.interrupt_after_epochs = target_epochs < spec_.max_epochs ? target_epochs : 0;
@@ -567,12 +572,7 @@ json Search::write_best(int id) {
   config["epochs"] = w.epochs;
   write_file_atomic(tmp / "config.json", config.dump(2) + "\n");
   fs::remove(tmp / "metrics.json");
-  TrainOptions options;
-  options.out = tmp;
-  options.quiet = true;
-  options.fit_baseline = true;
-  options.group = &local_group();
-  const TrainResult r = resume(options);
+  const TrainResult r = resume(trial_options(tmp, /*fit_baseline=*/true));
   // The run directory keeps its checkpoint header's own copy of the config; nothing else names
   // the directory, so a rename is all it takes.
   fs::remove_all(best);
