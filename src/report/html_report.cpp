@@ -714,7 +714,26 @@ void label_thresholds_section(std::ostringstream& b, const json& metrics) {
     << " &rarr; " << fmt_or_dash(get_num(lt, {"dev_micro_f1_after"})) << "</td></tr>\n</table>\n";
 }
 
-// Confident dev mistakes with per-token attributions (metrics.json "dev_mistakes").
+// The tokens of a "why" object, each shaded by its `field` relative to the strongest one: green
+// towards the label, red away from it; the value is the tooltip.
+std::string shaded_tokens(const json& why, const char* field) {
+  double most = 0.0;
+  for (const auto& t : why.value("tokens", json::array()))
+    most = std::max(most, std::abs(t.value(field, 0.0)));
+  std::string text;
+  for (const auto& t : why.value("tokens", json::array())) {
+    const double v = t.value(field, 0.0);
+    const double share = most > 0 ? std::abs(v) / most : 0.0;
+    char style[96];
+    std::snprintf(style, sizeof style, "background:rgba(%s,%.2f)", v >= 0 ? "46,125,50" : "198,40,40", share);
+    text += "<span style=\"" + std::string(style) + "\" title=\"" + num(v) + "\">" +
+            html_escape(t.value("token", "")) + "</span> ";
+  }
+  return text;
+}
+
+// Confident dev mistakes with per-token attributions (metrics.json "dev_mistakes"); a model with
+// an n-gram part also gets the part's share of each token (a second shaded line).
 void dev_mistakes_section(std::ostringstream& b, const json& metrics) {
   if (metrics.contains("dev_mistakes") && metrics["dev_mistakes"].is_array() &&
       !metrics["dev_mistakes"].empty()) {
@@ -723,24 +742,18 @@ void dev_mistakes_section(std::ostringstream& b, const json& metrics) {
          "share of the predicted label's probability (integrated gradients, Sundararajan et al. 2017): "
          "<span style=\"background:#2e7d32;color:#fff;padding:0 4px\">green</span> pushed towards the "
          "wrong label, <span style=\"background:#c62828;color:#fff;padding:0 4px\">red</span> away from it. "
-         "The gap is the completeness check: |sum of shares - (p(text) - p(empty embeddings))|.</p>\n"
+         "The gap is the completeness check: |sum of shares - (p(text) - p(empty embeddings))|. A model "
+         "with an n-gram part shows the part's exact share of the label's logit on a second line (each "
+         "n-gram's term split equally over its tokens; the network's shares hold the part fixed).</p>\n"
       << "<table><tr><th>line</th><th class=\"k\">gold</th><th class=\"k\">predicted</th><th>p</th>"
          "<th class=\"k\">text</th><th>gap</th></tr>\n";
     for (const auto& e : metrics["dev_mistakes"]) {
       const json& why = e.contains("why") ? e["why"] : json::object();
-      double most = 0.0;
-      for (const auto& t : why.value("tokens", json::array()))
-        most = std::max(most, std::abs(t.value("score", 0.0)));
-      std::string text;
-      for (const auto& t : why.value("tokens", json::array())) {
-        const double v = t.value("score", 0.0);
-        const double share = most > 0 ? std::abs(v) / most : 0.0;
-        char style[96];
-        std::snprintf(style, sizeof style, "background:rgba(%s,%.2f)", v >= 0 ? "46,125,50" : "198,40,40",
-                      share);
-        text += "<span style=\"" + std::string(style) + "\" title=\"" + num(v) + "\">" +
-                html_escape(t.value("token", "")) + "</span> ";
-      }
+      std::string text = shaded_tokens(why, "score");
+      if (why.contains("ngram_part") && why["ngram_part"].is_object())
+        text += "<br>n-gram part (logit " + fmt_or_dash(get_num(why, {"ngram_part", "logit"}), 3) +
+                ", bias " + fmt_or_dash(get_num(why, {"ngram_part", "bias"}), 3) +
+                "): " + shaded_tokens(why, "ngram_part");
       b << "<tr><td>" << html_escape(value_text(e.value("line", json(nullptr)))) << "</td><td class=\"k\">"
         << html_escape(e.value("gold", "")) << "</td><td class=\"k\">"
         << html_escape(e.value("predicted", "")) << "</td><td>" << fmt_or_dash(e.value("probability", NAN), 3)

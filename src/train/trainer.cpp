@@ -656,7 +656,7 @@ class Run {
   void release_training_state();
   json calibrate(const LinearBaseline* baseline, json& ngram);
   json tune_thresholds(model::SequenceModel& m, const EvaluationResult& calibrated);
-  json dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev);
+  json dev_mistakes(const io::TrainedModel& trained, const EvaluationResult& dev);
   [[noreturn]] void diverged(const std::string& what) const;
   void check_loss_growth(double step_loss);
   int global_workers() const { return group_.size() * config_.threads; }
@@ -1285,8 +1285,10 @@ void Run::release_training_state() {
 }
 
 // The most confident dev mistakes of the (calibrated) best model, each with its integrated-gradients
-// attribution (train/explain.hpp), for the report.
-json Run::dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev) {
+// attribution and, for a model with an n-gram part, the part's exact share (train/explain.hpp), for
+// the report.
+json Run::dev_mistakes(const io::TrainedModel& trained, const EvaluationResult& dev) {
+  const model::SequenceModel& m = *trained.model;
   constexpr std::size_t kShown = 8;  // enough to see a pattern, few enough to read (our choice)
   std::vector<std::size_t> wrong;
   for (std::size_t i = 0; i < data_.dev.size(); ++i)
@@ -1306,7 +1308,8 @@ json Run::dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev) {
     throw IoError((config_.dev.empty() ? config_.train : config_.dev) +
                   ": the file changed during training: read again for the dev mistakes, it has " +
                   std::to_string(index) + " dev examples instead of " + std::to_string(data_.dev.size()));
-  const data::Encoder encoder(data_.vocab, data::Task::kClassify);
+  data::Encoder encoder(data_.vocab, data::Task::kClassify);
+  if (!trained.ngram_part.empty()) encoder.set_ngram_part(&trained.ngram_part);  // the words and scores
   json out = json::array();
   for (const std::size_t i : wrong) {
     const data::Example& ex = texts.at(i);
@@ -1314,25 +1317,12 @@ json Run::dev_mistakes(model::SequenceModel& m, const EvaluationResult& dev) {
     data::EncodedExample encoded;
     encoder.encode_text(ex.text, tokens, encoded);
     const int predicted = dev.predictions[i].labels.at(0);
-    const model::TokenAttribution a = m.integrated_gradients(encoded, predicted, kAttributionSteps);
-    json toks = json::array();
-    for (std::size_t t = 0; t < tokens.size(); ++t)
-      toks.push_back({{"token", tokens[t]}, {"score", a.scores[t]}});
     out.push_back({{"line", ex.line},
                    {"text", ex.text},
                    {"gold", m.spec().labels[static_cast<std::size_t>(data_.dev[i].targets.at(0))]},
                    {"predicted", m.spec().labels[static_cast<std::size_t>(predicted)]},
                    {"probability", dev.predictions[i].confidence},
-                   {"why",
-                    {{"method", "integrated_gradients"},
-                     {"label", m.spec().labels[static_cast<std::size_t>(predicted)]},
-                     {"tokens", std::move(toks)},
-                     {"completeness",
-                      {{"output", a.output},
-                       {"baseline", a.baseline_output},
-                       {"sum", a.sum},
-                       {"gap", a.completeness_gap()},
-                       {"steps", a.steps}}}}}});
+                   {"why", explain(trained, encoded, tokens, predicted, kAttributionSteps)}});
   }
   return out;
 }
@@ -1409,7 +1399,10 @@ json Run::calibrate(const LinearBaseline* baseline, json& ngram) {
     label_thresholds_ = tune_thresholds(m, after);
   io::write_checkpoint(best, m, data_.vocab, nullptr, trained.header.at("trainer"),
                        trained.header.at("config"), part.empty() ? nullptr : &part);
-  if (data_.task == data::Task::kClassify && !data_.multi_label) mistakes_ = dev_mistakes(m, after);
+  if (data_.task == data::Task::kClassify && !data_.multi_label) {
+    trained.ngram_part = std::move(part);  // saved above; the mistakes show its share
+    mistakes_ = dev_mistakes(trained, after);
+  }
   std::string temps;
   for (const float t : fit.temperature) temps += (temps.empty() ? "" : " ") + fmt(t, 3);
   progress_.note("calibration: temperature " + (fit.temperature.size() > 1 ? "per label " : std::string()) +

@@ -244,8 +244,8 @@ TEST_CASE("predict --why shows the n-gram part's share beside the network's", "[
   REQUIRE(gyre_cli({"export", out, "--out", exported, "--precision", "f32", "--no-check"}).exit_code == 0);
   const auto input = (dir() / "why-input.txt").string();
   gyre::write_file_atomic(input, "the engineer was late and rude and the kettle still leaks\nvery happy\n");
-  const auto why = [&](const std::string& model) {
-    const auto r = gyre_cli({"predict", model, "--input", input, "--format", "jsonl", "--why"});
+  const auto why = [&](const std::string& model, const std::string& file) {
+    const auto r = gyre_cli({"predict", model, "--input", file, "--format", "jsonl", "--why"});
     INFO(r.err);
     REQUIRE(r.exit_code == 0);
     std::vector<json> rows;
@@ -254,7 +254,7 @@ TEST_CASE("predict --why shows the n-gram part's share beside the network's", "[
     while (std::getline(in, line)) rows.push_back(json::parse(line).at("why"));
     return rows;
   };
-  const auto library = why(out), runtime = why(exported);
+  const auto library = why(out, input), runtime = why(exported, input);
   REQUIRE(library.size() == 2);
   REQUIRE(runtime.size() == 2);
   for (std::size_t i = 0; i < 2; ++i) {
@@ -277,6 +277,33 @@ TEST_CASE("predict --why shows the n-gram part's share beside the network's", "[
       CHECK_THAT(a["tokens"][k]["ngram_part"].get<double>(),
                  WithinAbs(b["tokens"][k]["ngram_part"].get<double>(), 1e-5));
   }
+  // The trainer's dev mistakes (metrics.json, the run report) carry the same explanation as
+  // predict --why gives for their texts: the network's integrated gradients and the part's share.
+  const json mistakes = json::parse(gyre::read_file(fs::path(out) / "metrics.json")).at("dev_mistakes");
+  REQUIRE(!mistakes.empty());
+  std::string texts;
+  for (const auto& m : mistakes) texts += m.at("text").get<std::string>() + "\n";
+  const auto mistaken = (dir() / "why-mistakes.txt").string();
+  gyre::write_file_atomic(mistaken, texts);
+  const auto again = why(out, mistaken);
+  REQUIRE(again.size() == mistakes.size());
+  for (std::size_t i = 0; i < again.size(); ++i) {
+    const json& a = mistakes[i].at("why");
+    const json& b = again[i];
+    CHECK(a.at("label") == mistakes[i].at("predicted"));
+    CHECK(a.at("label") == b.at("label"));
+    REQUIRE(a.contains("ngram_part"));
+    CHECK_THAT(a["ngram_part"]["logit"].get<double>(),
+               WithinAbs(b["ngram_part"]["logit"].get<double>(), 1e-6));
+    REQUIRE(a.at("tokens").size() == b.at("tokens").size());
+    for (std::size_t k = 0; k < a.at("tokens").size(); ++k) {
+      CHECK(a["tokens"][k]["token"] == b["tokens"][k]["token"]);
+      CHECK_THAT(a["tokens"][k]["score"].get<double>(),
+                 WithinAbs(b["tokens"][k]["score"].get<double>(), 1e-6));
+      CHECK_THAT(a["tokens"][k]["ngram_part"].get<double>(),
+                 WithinAbs(b["tokens"][k]["ngram_part"].get<double>(), 1e-6));
+    }
+  }
   // A model without a part shows the network's share only.
   const auto plain = (dir() / "why-plain").string();
   fs::remove_all(plain);
@@ -284,7 +311,7 @@ TEST_CASE("predict --why shows the n-gram part's share beside the network's", "[
       gyre_cli({"train", "--train", train, "--dev", dev, "--epochs", "1", "--hidden-size", "8",
                 "--embedding-size", "8", "--no-baseline", "--ngram-part", "off", "--quiet", "--out", plain})
           .exit_code == 0);
-  const auto none = why(plain);
+  const auto none = why(plain, input);
   REQUIRE(none.size() == 2);
   CHECK_FALSE(none[0].contains("ngram_part"));
   CHECK_FALSE(none[0]["tokens"][0].contains("ngram_part"));

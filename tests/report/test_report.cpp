@@ -243,6 +243,26 @@ TEST_CASE("run report: reliability diagram and shaded tokens of dev mistakes (is
   // The strongest token is fully shaded green, the other half as strongly red; text is escaped.
   REQUIRE(why.find("rgba(46,125,50,1.00)\" title=\"0.6000\">thanks&lt;3</span>") != std::string::npos);
   REQUIRE(why.find("rgba(198,40,40,0.50)\" title=\"-0.3000\">cancel</span>") != std::string::npos);
+  REQUIRE(why.find("n-gram part (logit") == std::string::npos);  // no part: no second line
+}
+
+TEST_CASE("run report: a dev mistake of a model with an n-gram part shows the part's share too", "[report]") {
+  const fs::path dir = write_run("with_part");
+  gyre::write_file_atomic(dir / "metrics.json", R"({"outcome": "finished", "epochs": 1, "best_epoch": 1,
+    "metric": "accuracy", "best_metric": 0.8, "dev": {"loss": 0.9, "accuracy": 0.8},
+    "dev_mistakes": [{"line": 3, "gold": "cancel", "predicted": "praise", "probability": 0.9, "text": "x",
+      "why": {"method": "integrated_gradients", "label": "praise", "completeness": {"gap": 0.0001},
+              "ngram_part": {"unit": "logit", "mix": 2.0, "bias": -0.25, "sum": 1.5, "logit": 1.25},
+              "tokens": [{"token": "great", "score": 0.1, "ngram_part": 2.0},
+                         {"token": "refund", "score": -0.4, "ngram_part": -0.5}]}}]})");
+  const std::string why = between(run_report_html(dir), "<h2>Why these dev mistakes</h2>", "<h2>Settings");
+  // The network's line: "refund" is the strongest (red, full), "great" a quarter as strong.
+  REQUIRE(why.find("rgba(46,125,50,0.25)\" title=\"0.1000\">great</span>") != std::string::npos);
+  REQUIRE(why.find("rgba(198,40,40,1.00)\" title=\"-0.4000\">refund</span>") != std::string::npos);
+  // The part's line, shaded by its own shares: "great" strongest (green, full), "refund" a quarter.
+  const std::string part = why.substr(why.find("n-gram part (logit 1.250, bias -0.250): "));
+  REQUIRE(part.find("rgba(46,125,50,1.00)\" title=\"2.0000\">great</span>") != std::string::npos);
+  REQUIRE(part.find("rgba(198,40,40,0.25)\" title=\"-0.5000\">refund</span>") != std::string::npos);
 }
 
 TEST_CASE("labelling trial report: one line per rule (issue 17)", "[report]") {
