@@ -5,6 +5,7 @@
 
 #include "optim/detail/adam_kernel.hpp"
 
+#include <cstdint>
 #include <cstdlib>
 
 #if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
@@ -18,6 +19,20 @@ namespace {
 GYRE_AVX512 inline __mmask16 cols_mask(std::ptrdiff_t cols) {
   return cols >= 16 ? __mmask16(0xFFFF) : __mmask16((1u << cols) - 1u);
 }
+
+// Software prefetch distance, in floats (4 KiB), on each of the four streams (value, gradient,
+// m, v). The update is bound by these streams coming from L3 or memory (the dense parameters of
+// an LSTM at hidden 256 are ~1.5 MB per array); measured under load on the training benchmark's
+// model, the kernel's CPU samples per recurrent-kernel sample fell ~30% with 4 KiB, ~25% with
+// 2 KiB and 8 KiB, ~8% with 1 KiB (issue 13). Prefetches never fault, so the ones past the end of
+// an array are harmless; they do not change what is computed.
+constexpr std::ptrdiff_t kAhead = 1024;
+
+// The address is formed as an integer: no pointer past the end of an array is ever made.
+GYRE_AVX512 inline void prefetch_ahead(const float* p) {
+  _mm_prefetch(reinterpret_cast<const char*>(reinterpret_cast<std::uintptr_t>(p) + kAhead * sizeof(float)),
+               _MM_HINT_T0);
+}
 }  // namespace
 
 GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float* grad, float* m, float* v,
@@ -30,6 +45,10 @@ GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float*
   __mmask16 nan = 0, inf = 0;
   for (std::ptrdiff_t i = 0; i < count; i += 16) {
     const __mmask16 k = cols_mask(count - i);
+    prefetch_ahead(value + i);
+    prefetch_ahead(grad + i);
+    prefetch_ahead(m + i);
+    prefetch_ahead(v + i);
     const __m512 w = _mm512_maskz_loadu_ps(k, value + i);
     const __m512 raw = _mm512_maskz_loadu_ps(k, grad + i);
     nan = static_cast<__mmask16>(nan | _mm512_fpclass_ps_mask(raw, 0x81));  // quiet or signalling NaN
