@@ -1,10 +1,12 @@
 #include "gyre/eval/linear_baseline.hpp"
 
 #include <algorithm>
+#include <barrier>
 #include <cmath>
 #include <functional>
 #include <limits>
 #include <map>
+#include <thread>
 #include <type_traits>
 
 #include "gyre/core/error.hpp"
@@ -76,85 +78,172 @@ double dot(const std::vector<double>& a, const std::vector<double>& b) {
   return s;
 }
 
-// One row of a matrix as (columns, values) pointers: SparseRows holds both; CountRows computes
-// the values into `scratch` (the division its definition gives, so the values are those a
-// SparseRows would hold).
-struct RowView {
-  const std::int32_t* columns;
-  const double* values;
-  std::size_t size;
-};
-
-RowView row_of(const SparseRows& x, std::size_t r, std::vector<double>&, const std::vector<double>&) {
-  const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
-  return {x.columns.data() + begin, x.values.data() + begin, end - begin};
-}
-
-// tf[c] = 1 + ln(c) for the counts below tf.size() (a table: the objective is evaluated many times).
-RowView row_of(const CountRows& x, std::size_t r, std::vector<double>& scratch,
-               const std::vector<double>& tf) {
-  const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
-  scratch.resize(end - begin);
-  const double norm = x.norms[r];
-  for (std::size_t e = begin; e < end; ++e) {
-    const std::uint16_t c = x.counts[e];
-    const double v = c < tf.size() ? tf[c] : 1.0 + std::log(static_cast<double>(x.count(e)));
-    scratch[e - begin] = v / norm;
-  }
-  return {x.columns.data() + begin, scratch.data(), end - begin};
+// The same sum with a float vector (the L-BFGS history): each float widened, summed in order.
+double dot(const std::vector<float>& a, const std::vector<double>& b) {
+  double s = 0;
+  for (std::size_t i = 0; i < a.size(); ++i) s += static_cast<double>(a[i]) * b[i];
+  return s;
 }
 
 // Penalised multinomial log loss and its gradient at theta = [W (features x classes), b].
+//
+// The rows are visited in chunks of kChunkRows. Per chunk, phase 1 computes each row's values
+// (CountRows: (1 + ln count) / norm), scores, softmax and loss term, and keeps the residual
+// p - onehot per row; phase 2 adds value x residual into the gradient rows of the columns.
+// With `threads` > 1, phase 1 splits the chunk's rows and phase 2 the feature columns (ranges
+// holding about equal numbers of entries) across the threads; every gradient element still
+// receives its terms in row order, and the loss and bias terms are summed in row order, so the
+// value and gradient are the same bit for bit whatever the number of threads (the serial
+// single-pass order: rows ascending, a row's entries in stored order).
 template <class Rows>
 struct Objective {
+  static constexpr std::size_t kChunkRows = 4096;
   const Rows& x;
   std::span<const std::int32_t> y;
   std::size_t features, classes;
   double inv_c;
-  std::vector<double> z;       // per-row scratch
-  std::vector<double> values;  // per-row scratch (CountRows)
-  std::vector<double> tf;      // 1 + ln(c) by count (CountRows)
+  int threads;
+  std::vector<double> residual;      // kChunkRows x classes: p - onehot of the chunk's rows
+  std::vector<double> row_loss;      // kChunkRows: log(sum exp z) - z[label] of each row (shifted)
+  std::vector<double> values;        // CountRows: the chunk's entry values
+  std::vector<double> tf;            // 1 + ln(c) by count (CountRows)
+  std::vector<std::int32_t> bounds;  // threads + 1 column bounds of phase 2
+  long evaluations = 0;
 
-  Objective(const Rows& rows, std::span<const std::int32_t> labels, std::size_t f, std::size_t k, double inv)
-      : x(rows), y(labels), features(f), classes(k), inv_c(inv) {
+  Objective(const Rows& rows, std::span<const std::int32_t> labels, std::size_t f, std::size_t k, double inv,
+            int thread_count)
+      : x(rows), y(labels), features(f), classes(k), inv_c(inv), threads(std::max(1, thread_count)) {
+    residual.resize(kChunkRows * k);
+    row_loss.resize(kChunkRows);
     if constexpr (std::is_same_v<Rows, CountRows>) {
       tf.resize(256);
       for (std::size_t c = 1; c < tf.size(); ++c) tf[c] = 1.0 + std::log(static_cast<double>(c));
+      std::size_t most = 0;
+      for (std::size_t r0 = 0; r0 < x.rows(); r0 += kChunkRows) {
+        const std::size_t r1 = std::min(x.rows(), r0 + kChunkRows);
+        most = std::max(most, x.row_start[r1] - x.row_start[r0]);
+      }
+      values.resize(most);
     }
+    // Column ranges with about equal numbers of entries (the work of phase 2).
+    bounds.assign(1, 0);
+    if (threads > 1) {
+      std::vector<std::size_t> per_column(f + 1, 0);
+      for (const auto c : x.columns) ++per_column[static_cast<std::size_t>(c)];
+      const std::size_t total = x.columns.size();
+      std::size_t seen = 0;
+      for (std::size_t c = 0; c < f && bounds.size() < static_cast<std::size_t>(threads); ++c) {
+        seen += per_column[c];
+        if (seen * static_cast<std::size_t>(threads) >= total * bounds.size())
+          bounds.push_back(static_cast<std::int32_t>(c + 1));
+      }
+    }
+    while (bounds.size() < static_cast<std::size_t>(threads) + 1)
+      bounds.push_back(static_cast<std::int32_t>(f));
+    bounds.back() = static_cast<std::int32_t>(f);
   }
 
-  double operator()(const std::vector<double>& theta, std::vector<double>& grad) {
-    std::fill(grad.begin(), grad.end(), 0.0);
+  // The values of row r's entries (r in the chunk starting at entry `chunk_entry`).
+  const double* row_values(std::size_t r, std::size_t chunk_entry) const {
+    if constexpr (std::is_same_v<Rows, CountRows>)
+      return values.data() + (x.row_start[r] - chunk_entry);
+    else
+      return x.values.data() + x.row_start[r];
+  }
+
+  // Phase 1 for rows [r_lo, r_hi) of the chunk starting at row r0.
+  void score_rows(std::size_t r0, std::size_t r_lo, std::size_t r_hi, const double* w, const double* b) {
     const std::size_t k = classes;
-    const double* w = theta.data();
-    const double* b = theta.data() + features * k;
-    double* gw = grad.data();
-    double* gb = grad.data() + features * k;
-    z.resize(k);
-    double loss = 0;
-    for (std::size_t r = 0; r < x.rows(); ++r) {
-      const RowView row = row_of(x, r, values, tf);
-      for (std::size_t c = 0; c < k; ++c) z[c] = b[c];
-      for (std::size_t e = 0; e < row.size; ++e) {
-        const double* wr = w + static_cast<std::size_t>(row.columns[e]) * k;
-        const double v = row.values[e];
-        for (std::size_t c = 0; c < k; ++c) z[c] += v * wr[c];
+    const std::size_t chunk_entry = x.row_start[r0];
+    for (std::size_t r = r_lo; r < r_hi; ++r) {
+      const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
+      if constexpr (std::is_same_v<Rows, CountRows>) {
+        const double norm = x.norms[r];
+        double* v = values.data() + (begin - chunk_entry);
+        for (std::size_t e = begin; e < end; ++e) {
+          const std::uint16_t c = x.counts[e];
+          const double t = c < tf.size() ? tf[c] : 1.0 + std::log(static_cast<double>(x.count(e)));
+          v[e - begin] = t / norm;
+        }
       }
-      const double m = *std::max_element(z.begin(), z.end());
+      const double* v = row_values(r, chunk_entry);
+      double* z = residual.data() + (r - r0) * k;
+      for (std::size_t c = 0; c < k; ++c) z[c] = b[c];
+      for (std::size_t e = begin; e < end; ++e) {
+        const double* wr = w + static_cast<std::size_t>(x.columns[e]) * k;
+        const double ve = v[e - begin];
+        for (std::size_t c = 0; c < k; ++c) z[c] += ve * wr[c];
+      }
+      const double m = *std::max_element(z, z + k);
       double sum = 0;
       for (std::size_t c = 0; c < k; ++c) {
         z[c] = std::exp(z[c] - m);
         sum += z[c];
       }
       const auto label = static_cast<std::size_t>(y[r]);
-      loss += std::log(sum) - std::log(z[label]);
+      row_loss[r - r0] = std::log(sum) - std::log(z[label]);
       for (std::size_t c = 0; c < k; ++c) z[c] = z[c] / sum - (c == label ? 1.0 : 0.0);
-      for (std::size_t c = 0; c < k; ++c) gb[c] += z[c];
-      for (std::size_t e = 0; e < row.size; ++e) {
-        double* gr = gw + static_cast<std::size_t>(row.columns[e]) * k;
-        const double v = row.values[e];
-        for (std::size_t c = 0; c < k; ++c) gr[c] += v * z[c];
+    }
+  }
+
+  // Phase 2: the chunk [r0, r1)'s terms of the gradient rows of columns [lo, hi).
+  void add_gradient(std::size_t r0, std::size_t r1, std::int32_t lo, std::int32_t hi, double* gw) const {
+    const std::size_t k = classes;
+    const std::size_t chunk_entry = x.row_start[r0];
+    for (std::size_t r = r0; r < r1; ++r) {
+      const std::size_t begin = x.row_start[r], end = x.row_start[r + 1];
+      const double* v = row_values(r, chunk_entry);
+      const double* z = residual.data() + (r - r0) * k;
+      for (std::size_t e = begin; e < end; ++e) {
+        const std::int32_t col = x.columns[e];
+        if (col < lo || col >= hi) continue;
+        double* gr = gw + static_cast<std::size_t>(col) * k;
+        const double ve = v[e - begin];
+        for (std::size_t c = 0; c < k; ++c) gr[c] += ve * z[c];
       }
+    }
+  }
+
+  // The loss and bias terms of the chunk [r0, r1), in row order.
+  void add_loss_and_bias(std::size_t r0, std::size_t r1, double& loss, double* gb) const {
+    const std::size_t k = classes;
+    for (std::size_t r = r0; r < r1; ++r) {
+      loss += row_loss[r - r0];
+      const double* z = residual.data() + (r - r0) * k;
+      for (std::size_t c = 0; c < k; ++c) gb[c] += z[c];
+    }
+  }
+
+  double operator()(const std::vector<double>& theta, std::vector<double>& grad) {
+    ++evaluations;
+    std::fill(grad.begin(), grad.end(), 0.0);
+    const std::size_t k = classes;
+    const double* w = theta.data();
+    const double* b = theta.data() + features * k;
+    double* gw = grad.data();
+    double* gb = grad.data() + features * k;
+    const std::size_t rows = x.rows();
+    double loss = 0;
+    const auto work = [&](int t, std::barrier<>* sync) {
+      const auto tt = static_cast<std::size_t>(t), nt = static_cast<std::size_t>(threads);
+      for (std::size_t r0 = 0; r0 < rows; r0 += kChunkRows) {
+        const std::size_t r1 = std::min(rows, r0 + kChunkRows);
+        const std::size_t n = r1 - r0;
+        score_rows(r0, r0 + n * tt / nt, r0 + n * (tt + 1) / nt, w, b);
+        if (sync != nullptr) sync->arrive_and_wait();
+        if (t == 0) add_loss_and_bias(r0, r1, loss, gb);
+        add_gradient(r0, r1, bounds[tt], bounds[tt + 1], gw);
+        if (sync != nullptr) sync->arrive_and_wait();  // the chunk's buffers are reused next
+      }
+    };
+    if (threads == 1) {
+      work(0, nullptr);
+    } else {
+      std::barrier<> sync(threads);
+      std::vector<std::jthread> helpers;
+      helpers.reserve(static_cast<std::size_t>(threads - 1));
+      for (int t = 1; t < threads; ++t) helpers.emplace_back(work, t, &sync);
+      work(0, &sync);
     }
     double penalty = 0;
     for (std::size_t i = 0; i < features * k; ++i) {
@@ -171,63 +260,85 @@ double max_abs(const std::vector<double>& v) {
   return m;
 }
 
-// The last `capacity` curvature pairs (s, y) of L-BFGS in a ring buffer, and the two-loop recursion over
-// them.
+// The last `capacity` curvature pairs (s, y) of L-BFGS in a ring buffer, and the two-loop recursion
+// over them. The pairs are kept in float32: they only shape the search direction (the point,
+// gradient and direction stay float64, and the line search and stopping tests use them), and
+// float halves the history, the largest part of a fit's memory (2 x history vectors).
 struct LbfgsHistory {
   explicit LbfgsHistory(std::size_t pairs) : capacity(pairs), alpha(pairs) {}
 
-  std::size_t size() const { return s.size(); }
+  std::size_t size() const { return rho.size(); }
 
   // direction = -H grad (Nocedal & Wright 2006, algorithm 7.4).
   void direction(const std::vector<double>& grad, std::vector<double>& d) {
     const std::size_t n = grad.size();
     d = grad;
-    const std::size_t count = s.size();
+    const std::size_t count = size();
     for (std::size_t j = 0; j < count; ++j) {
       const std::size_t i = (oldest + count - 1 - j) % count;
       alpha[i] = rho[i] * dot(s[i], d);
-      for (std::size_t p = 0; p < n; ++p) d[p] -= alpha[i] * y[i][p];
+      const float* yi = y[i].data();
+      for (std::size_t p = 0; p < n; ++p) d[p] -= alpha[i] * static_cast<double>(yi[p]);
     }
     double gamma = 1.0;
-    if (count > 0) {
-      const std::size_t last = (oldest + count - 1) % count;
-      gamma = dot(s[last], y[last]) / dot(y[last], y[last]);
-    }
+    if (count > 0) gamma = sy_last / yy_last;  // the newest pair's s.y / y.y
     for (auto& v : d) v *= gamma;
     for (std::size_t j = 0; j < count; ++j) {
       const std::size_t i = (oldest + j) % count;
       const double beta = rho[i] * dot(y[i], d);
-      for (std::size_t p = 0; p < n; ++p) d[p] += s[i][p] * (alpha[i] - beta);
+      const float* si = s[i].data();
+      for (std::size_t p = 0; p < n; ++p) d[p] += static_cast<double>(si[p]) * (alpha[i] - beta);
     }
     for (auto& v : d) v = -v;
   }
 
   void clear() {
-    s.clear();
-    y.clear();
     rho.clear();
     oldest = 0;
   }
 
-  // Adds the pair when it satisfies the curvature condition (sy = s.y), else skips it.
-  void add(std::vector<double>&& sv, std::vector<double>&& yv, double sy) {
-    if (!(sy > 1e-12 * dot(yv, yv))) return;
-    if (s.size() < capacity) {
-      s.push_back(std::move(sv));
-      y.push_back(std::move(yv));
+  // Adds the pair s = next - theta, y = next_grad - grad (rounded to float) when it satisfies the
+  // curvature condition s.y > 1e-12 y.y (on the rounded values), else skips it. The pair is
+  // written straight into its ring slot: no vector is allocated once the history is full.
+  void add(const std::vector<double>& theta, const std::vector<double>& next, const std::vector<double>& grad,
+           const std::vector<double>& next_grad) {
+    const std::size_t n = theta.size();
+    double sy = 0, yy = 0;
+    for (std::size_t p = 0; p < n; ++p) {
+      const auto sp = static_cast<double>(static_cast<float>(next[p] - theta[p]));
+      const auto yp = static_cast<double>(static_cast<float>(next_grad[p] - grad[p]));
+      sy += sp * yp;
+      yy += yp * yp;
+    }
+    if (!(sy > 1e-12 * yy)) return;
+    std::size_t slot = 0;
+    if (rho.size() < capacity) {
+      slot = rho.size();
       rho.push_back(1.0 / sy);
     } else {
-      s[oldest] = std::move(sv);
-      y[oldest] = std::move(yv);
-      rho[oldest] = 1.0 / sy;
+      slot = oldest;
+      rho[slot] = 1.0 / sy;
       oldest = (oldest + 1) % capacity;
     }
+    if (s.size() <= slot) {
+      s.emplace_back();
+      y.emplace_back();
+    }
+    s[slot].resize(n);
+    y[slot].resize(n);
+    for (std::size_t p = 0; p < n; ++p) {
+      s[slot][p] = static_cast<float>(next[p] - theta[p]);
+      y[slot][p] = static_cast<float>(next_grad[p] - grad[p]);
+    }
+    sy_last = sy;
+    yy_last = yy;
   }
 
   std::size_t capacity;
-  std::vector<std::vector<double>> s, y;
+  std::vector<std::vector<float>> s, y;  // slots, kept when the history is cleared
   std::vector<double> rho, alpha;
-  std::size_t oldest = 0;  // ring buffer start once full
+  double sy_last = 0, yy_last = 1;  // s.y and y.y of the newest pair
+  std::size_t oldest = 0;           // ring buffer start once full
 };
 
 // Backtracking line search from `theta` along `direction` (Armijo condition, c1 = 1e-4), starting
@@ -268,7 +379,7 @@ LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes
   const std::size_t n = f * k + k;
   // Two classes: the softmax form with C/2 has the decision function of the one-vector form with C.
   const double c = classes == 2 ? options.c / 2 : options.c;
-  Objective<Rows> objective(x, labels, f, k, 1.0 / c);
+  Objective<Rows> objective(x, labels, f, k, 1.0 / c, options.threads);
 
   std::vector<double> theta(n, 0.0), grad(n), direction(n), next(n), next_grad(n);
   double value = objective(theta, grad);
@@ -296,17 +407,11 @@ LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes
     double next_value = 0;
     if (!armijo_search(objective, theta, value, direction, slope, step, next, next_value, next_grad))
       break;  // no decrease possible at float64 precision: at the optimum
-    std::vector<double> s(n), yv(n);
-    for (std::size_t p = 0; p < n; ++p) {
-      s[p] = next[p] - theta[p];
-      yv[p] = next_grad[p] - grad[p];
-    }
-    const double sy = dot(s, yv);
+    history.add(theta, next, grad, next_grad);
     const double decrease = value - next_value;
     theta.swap(next);
     grad.swap(next_grad);
     value = next_value;
-    history.add(std::move(s), std::move(yv), sy);
     // Relative decrease at float64 resolution (scipy's L-BFGS-B uses ftol = 64 eps in sklearn).
     if (decrease <= 64 * std::numeric_limits<double>::epsilon() * std::max({std::abs(value), 1.0})) {
       out.converged = true;
@@ -516,6 +621,13 @@ void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
   c_ = options.c;
 }
 
+void NgramClassifier::use_model(LinearModel model, double c) {
+  GYRE_CHECK(built_ && model.features == static_cast<int>(index_.size()) && model.classes > 0,
+             "linear baseline: use_model() needs a model fitted on this classifier's features");
+  model_ = std::move(model);
+  c_ = c;
+}
+
 void NgramClassifier::release_examples() {
   // swap with empty containers: clear() keeps the capacity (and a hash map its buckets).
   std::unordered_map<std::string, std::int32_t>().swap(key_ids_);
@@ -638,6 +750,13 @@ void WindowTagger::fit(const LbfgsOptions& options) {
   }
   model_ = fit_logistic_regression(x, labels, static_cast<int>(tag_names_.size()),
                                    static_cast<int>(index_.size()), options);
+}
+
+void WindowTagger::use_model(LinearModel model) {
+  GYRE_CHECK(model.features == static_cast<int>(index_.size()) &&
+                 model.classes == static_cast<int>(tag_names_.size()) && model.classes > 0,
+             "window tagger: use_model() needs a model fitted on this tagger's features");
+  model_ = std::move(model);
 }
 
 void WindowTagger::release_examples() {

@@ -1,6 +1,7 @@
 #include "gyre/train/baseline.hpp"
 
 #include <cmath>
+#include <iterator>
 #include <sstream>
 
 #include "gyre/core/error.hpp"
@@ -56,6 +57,7 @@ struct LinearBaseline::Impl {
   eval::WindowTagger tagger;
   double c = 0;
   int ngram_order = 2;
+  int threads = 1;
 
   void tokens(const data::Example& ex, const std::string& path, std::vector<std::string>& out) const {
     encoder->tokens(ex, path, out);
@@ -88,10 +90,23 @@ struct LinearBaseline::Impl {
   void fit_with(double penalty) {
     eval::LbfgsOptions options;
     options.c = penalty;
+    options.threads = threads;
     if (task == data::Task::kClassify)
       classifier.fit(static_cast<int>(vocab.labels.size()), options);
     else
       tagger.fit(options);
+    c = penalty;
+  }
+
+  const eval::LinearModel& model() const {
+    return task == data::Task::kClassify ? classifier.model() : tagger.model();
+  }
+
+  void use_model(eval::LinearModel model, double penalty) {
+    if (task == data::Task::kClassify)
+      classifier.use_model(std::move(model), penalty);
+    else
+      tagger.use_model(std::move(model));
     c = penalty;
   }
 
@@ -131,8 +146,9 @@ LinearBaseline& LinearBaseline::operator=(LinearBaseline&&) noexcept = default;
 
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
                                    const std::string& train_path, const ExampleStream& dev,
-                                   const std::string& dev_path, double c, int ngram_order) {
+                                   const std::string& dev_path, double c, int ngram_order, int threads) {
   auto impl = std::make_unique<Impl>();
+  impl->threads = threads;
   impl->vocab = vocab;
   impl->task = task;
   impl->ngram_order = ngram_order;
@@ -143,15 +159,17 @@ LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task
   } else {
     const char* metric = task == data::Task::kClassify ? "accuracy" : "span_f1";
     double best_score = -1, best_c = kBaselinePenaltyGrid[0];
+    eval::LinearModel best;  // the best fit so far, kept rather than fitted again at the end
     for (const double candidate : kBaselinePenaltyGrid) {
       impl->fit_with(candidate);
       const double s = impl->score(dev, dev_path).at(metric).get<double>();
       if (s > best_score + 1e-12) {
         best_score = s;
         best_c = candidate;
+        if (candidate != kBaselinePenaltyGrid[std::size(kBaselinePenaltyGrid) - 1]) best = impl->model();
       }
     }
-    if (impl->c != best_c) impl->fit_with(best_c);  // a fit is deterministic: the same model again
+    if (impl->c != best_c) impl->use_model(std::move(best), best_c);
   }
   impl->release_examples();
   return LinearBaseline(std::move(impl));
@@ -160,14 +178,14 @@ LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task,
                                    std::span<const data::Example> train, const std::string& train_path,
                                    std::span<const data::Example> dev, const std::string& dev_path, double c,
-                                   int ngram_order) {
+                                   int ngram_order, int threads) {
   for (const auto& ex : train)
     if (task == data::Task::kClassify && ex.labels.size() != 1)
       throw ConfigError("baseline", "the linear baseline needs single-label examples (" + train_path +
                                         " line " + std::to_string(ex.line) + " has " +
                                         std::to_string(ex.labels.size()) + ")");
   GYRE_CHECK(c > 0 || !dev.empty(), "linear baseline: choosing C needs dev examples");
-  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c, ngram_order);
+  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c, ngram_order, threads);
 }
 
 json LinearBaseline::score(const ExampleStream& examples, const std::string& path) const {

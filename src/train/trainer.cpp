@@ -1246,8 +1246,8 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
                           std::to_string(examples_read) + " training examples instead of " +
                           std::to_string(train_examples));
         },
-        config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0,
-        ngram_order_for(config_));
+        config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0, ngram_order_for(config_),
+        config_.threads);
     const LinearBaseline& baseline = *fitted;
     if (options_.fit_baseline)
       result.final_metrics["baseline"] = {

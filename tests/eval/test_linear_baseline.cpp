@@ -5,6 +5,7 @@
 #include <fstream>
 #include <map>
 #include <nlohmann/json.hpp>
+#include <random>
 #include <set>
 #include <sstream>
 #include <string>
@@ -106,6 +107,76 @@ TEST_CASE("the fit is deterministic and refuses bad input", "[baseline]") {
   CHECK_THROWS_AS(gyre::eval::fit_logistic_regression(x, labels, 4, 10, options), gyre::Error);
   std::vector<std::int32_t> short_labels(labels.begin(), labels.end() - 1);
   CHECK_THROWS_AS(gyre::eval::fit_logistic_regression(x, short_labels, 4, 40, options), gyre::Error);
+}
+
+TEST_CASE("the fit is the same bit for bit on any number of threads", "[baseline]") {
+  // Several 4096-row chunks of the objective, uneven rows and column frequencies, so the row split
+  // of the scores and the column split of the gradient both cut somewhere non-trivial.
+  std::mt19937 gen(11);
+  const int features = 700, classes = 5;
+  SparseRows sparse;
+  gyre::eval::CountRows counts;
+  std::vector<std::int32_t> labels;
+  std::vector<std::pair<std::int32_t, std::int32_t>> row;
+  std::vector<std::int32_t> cols;
+  std::vector<double> vals;
+  for (int r = 0; r < 9000; ++r) {
+    std::set<std::int32_t> picked;
+    const int size = 1 + static_cast<int>(gen() % 12);
+    for (int e = 0; e < size; ++e) {
+      const auto u = static_cast<double>(gen() % 10000) / 10000.0;
+      picked.insert(static_cast<std::int32_t>(u * u * features));  // low columns more frequent
+    }
+    row.clear();
+    cols.clear();
+    vals.clear();
+    for (const auto c : picked) {
+      row.emplace_back(c, 1 + static_cast<std::int32_t>(gen() % 4));
+      cols.push_back(c);
+      vals.push_back(static_cast<double>(gen() % 1000) / 500.0 - 1.0);
+    }
+    counts.add_row(row);
+    sparse.add_row(cols, vals);
+    labels.push_back(static_cast<std::int32_t>((picked.empty() ? 0 : *picked.begin()) % classes));
+  }
+  LbfgsOptions options;
+  options.max_iterations = 25;
+  const auto one = gyre::eval::fit_logistic_regression(sparse, labels, classes, features, options);
+  const auto one_counts = gyre::eval::fit_logistic_regression(counts, labels, classes, features, options);
+  CHECK(one.iterations == 25);
+  for (const int threads : {2, 3, 8}) {
+    INFO("threads " << threads);
+    options.threads = threads;
+    const auto many = gyre::eval::fit_logistic_regression(sparse, labels, classes, features, options);
+    CHECK(many.weights == one.weights);
+    CHECK(many.bias == one.bias);
+    CHECK(many.objective == one.objective);
+    const auto many_counts = gyre::eval::fit_logistic_regression(counts, labels, classes, features, options);
+    CHECK(many_counts.weights == one_counts.weights);
+    CHECK(many_counts.bias == one_counts.bias);
+  }
+}
+
+TEST_CASE("a search over C puts back an earlier fit instead of fitting it again", "[baseline]") {
+  gyre::eval::NgramClassifier clf(1);
+  const std::vector<std::vector<std::string>> texts{
+      {"works", "fine"}, {"does", "not", "work"}, {"fine", "now"}, {"not", "fine"}};
+  const std::vector<std::int32_t> labels{0, 1, 0, 1};
+  for (std::size_t i = 0; i < texts.size(); ++i) clf.add(texts[i], labels[i]);
+  LbfgsOptions options;
+  options.c = 1.0;
+  clf.fit(2, options);
+  const gyre::eval::LinearModel first = clf.model();
+  options.c = 100.0;
+  clf.fit(2, options);
+  CHECK(clf.model().weights != first.weights);
+  clf.use_model(first, 1.0);
+  CHECK(clf.model().weights == first.weights);
+  CHECK(clf.model().bias == first.bias);
+  CHECK(clf.c() == 1.0);
+  gyre::eval::LinearModel other = first;
+  other.features += 1;
+  CHECK_THROWS_AS(clf.use_model(other, 1.0), gyre::Error);
 }
 
 TEST_CASE("word shapes and n-gram keys", "[baseline]") {

@@ -11,10 +11,13 @@
 //    survive case folding). Tags are predicted token by token (no transition model).
 // Both are fitted by L-BFGS (Nocedal 1980; Liu & Nocedal 1989) on
 //   sum_i -log softmax(W x_i + b)[y_i] + ||W||^2 / (2 C)        (the bias b is not penalised)
-// in float64, single-threaded, so a fit is deterministic. This is the objective python3-sklearn's
-// LogisticRegression(penalty="l2", C=C, solver="lbfgs") minimises; with two classes sklearn
-// fits one weight vector w = w_1 - w_0 whose penalty ||w||^2/(2C) equals the softmax form's
-// with C/2, so two-class fits use C/2 (same decision function). Fixtures: tools/datasets/baselines.py.
+// in float64, except the L-BFGS curvature pairs, kept in float32 (they only shape the search
+// direction; half the memory of a fit); the objective may be evaluated on several threads
+// (LbfgsOptions::threads) in an order that gives the same bits for any thread count, so a fit is
+// deterministic. This is the objective python3-sklearn's LogisticRegression(penalty="l2", C=C,
+// solver="lbfgs") minimises; with two classes sklearn fits one weight vector w = w_1 - w_0 whose penalty
+// ||w||^2/(2C) equals the softmax form's with C/2, so two-class fits use C/2 (same decision function).
+// Fixtures: tools/datasets/baselines.py.
 
 #include <cstddef>
 #include <cstdint>
@@ -63,6 +66,7 @@ struct LbfgsOptions {
   int max_iterations = 1000;         // sklearn's max_iter
   int history = 10;                  // L-BFGS memory m (common practice, Nocedal & Wright 2006 ch. 7)
   double gradient_tolerance = 1e-6;  // stop when max |gradient| <= tol * max(1, |f|)
+  int threads = 1;                   // threads evaluating the objective (same fit for any count)
 };
 
 /// A fitted multinomial logistic regression: scores = W x + b, W stored feature-major
@@ -116,6 +120,9 @@ class NgramClassifier {
   /// Builds the feature index from the examples added and fits. Throws gyre::Error if fewer
   /// than two classes occur, or when no examples were added (or they were released).
   void fit(int classes, const LbfgsOptions& options);
+  /// Puts back a model an earlier fit() of this classifier gave (model(), with its C), so a
+  /// search over C need not fit the best one again. Throws gyre::Error for another shape.
+  void use_model(LinearModel model, double c);
   /// Frees the training examples and the keys fit() did not keep; predict() still works.
   void release_examples();
   std::int32_t predict(std::span<const std::string> tokens) const;
@@ -179,6 +186,8 @@ class WindowTagger {
   void add(std::span<const std::string> tokens, std::span<const std::string> raw,
            std::span<const std::string> tags);
   void fit(const LbfgsOptions& options);
+  /// Puts back a model an earlier fit() gave (model()); throws gyre::Error for another shape.
+  void use_model(LinearModel model);
   void release_examples();
   std::vector<std::string> predict(std::span<const std::string> tokens,
                                    std::span<const std::string> raw) const;

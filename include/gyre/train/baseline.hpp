@@ -51,14 +51,15 @@ class LinearBaseline {
   /// multi-label task, ParseError naming path and line on bad text.
   /// The training examples are read once (tokenized and stored as interned n-gram or feature
   /// ids, gyre/eval/linear_baseline.hpp), whatever the number of C values tried; the dev
-  /// examples once per C value.
+  /// examples once per C value; the best C's model is kept, not fitted again. `threads`: threads
+  /// evaluating the fit's objective (eval::LbfgsOptions::threads; the same model for any count).
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
                             const std::string& train_path, const ExampleStream& dev,
-                            const std::string& dev_path, double c = 0, int ngram_order = 2);
+                            const std::string& dev_path, double c = 0, int ngram_order = 2, int threads = 1);
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task,
                             std::span<const data::Example> train, const std::string& train_path,
                             std::span<const data::Example> dev, const std::string& dev_path, double c = 0,
-                            int ngram_order = 2);
+                            int ngram_order = 2, int threads = 1);
 
   /// Scores labelled examples: classifiers {"accuracy", "macro_f1"}, taggers {"span_f1",
   /// "token_accuracy"} (the same keys as the model's dev summary).
