@@ -6,6 +6,7 @@
 #include "detail/fast_kernels.hpp"
 #include "detail/gemm.hpp"
 #include "detail/sequence_layout.hpp"
+#include "detail/weight_packs.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/nn/init.hpp"
 
@@ -26,7 +27,8 @@ struct GruLayer::Workspace {
   detail::GrowBuffer dgi;     // [N x 3H]: d loss / d input-side pre-activations
   detail::GrowBuffer dgh;     // [N x 3H]: d loss / d hidden-side pre-activations (U h + b_h)
   detail::GrowBuffer dx;      // [N x D]
-  detail::fast::AlignedBuffer u_step, u_back;  // U packed for the AVX-512 path (see lstm_layer.cpp)
+  detail::WeightPacks packs;  // U and W packed for the AVX-512 path (see lstm_layer.cpp)
+  const detail::WeightPacks* shared = nullptr;
 };
 
 GruLayer::GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -53,8 +55,27 @@ std::size_t GruLayer::workspace_capacity() const noexcept {
   const Workspace& w = *ws_;
   return w.x.capacity_bytes() + w.gates.capacity_bytes() + w.hn.capacity_bytes() + w.h.capacity_bytes() +
          w.h_prev.capacity_bytes() + w.h0.capacity_bytes() + w.step.capacity_bytes() +
-         w.dgi.capacity_bytes() + w.dgh.capacity_bytes() + w.dx.capacity_bytes() + w.u_step.capacity_bytes() +
-         w.u_back.capacity_bytes();
+         w.dgi.capacity_bytes() + w.dgh.capacity_bytes() + w.dx.capacity_bytes() + w.packs.capacity_bytes();
+}
+
+void GruLayer::reserve_packs() {
+  if (detail::fast::available()) ws_->packs.reserve(3, hidden_size_, input_size_);
+}
+
+void GruLayer::pack_weights(int part, int parts) {
+  if (detail::fast::available())
+    ws_->packs.pack(w_hidden_.value.data(), w_input_.value.data(), 3, hidden_size_, input_size_, part, parts);
+}
+
+void GruLayer::read_packs_from(const RecurrentLayer* source) {
+  if (source == nullptr) {
+    ws_->shared = nullptr;
+    return;
+  }
+  const auto* other = dynamic_cast<const GruLayer*>(source);
+  GYRE_CHECK(other != nullptr && other->input_size_ == input_size_ && other->hidden_size_ == hidden_size_,
+             "GruLayer::read_packs_from: the source is not a GRU layer of the same shape");
+  ws_->shared = &other->ws_->packs;
 }
 
 void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
@@ -85,14 +106,24 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
     else
       hi.row(j).setZero();
   }
-  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
+  // Packs made for this step by pack_weights (AVX-512 path only), or null: pack here.
+  const detail::WeightPacks* shared = detail::fast::available() ? w.shared : nullptr;
+  if (shared != nullptr)
+    detail::fast::gemm_packed(N, 3 * H, D, xs.data(), xs.outerStride(), false, shared->in_fwd.data(),
+                              gates.data(), gates.outerStride(), false, nullptr, bias_.value.data());
+  else
+    w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
 
   const Matrix& U = w_hidden_.value;
   const auto bh = bias_hidden_.value.row(0);
-  const bool fused = detail::fast::available() && H % detail::fast::kCellUnits == 0;
-  if (fused)
-    detail::fast::pack_gates(
-        U.data(), 3, H, w.u_step.reserve(detail::fast::packed_size(H, 3 * H, 3 * detail::fast::kCellUnits)));
+  const bool fused = detail::fast::available() && detail::WeightPacks::fused(H);
+  const float* u_step = nullptr;
+  if (fused && shared != nullptr) {
+    u_step = shared->step.data();
+  } else if (fused) {
+    u_step = w.packs.step.reserve(detail::fast::packed_size(H, 3 * H, 3 * detail::fast::kCellUnits));
+    detail::fast::pack_gates(U.data(), 3, H, w.packs.step.data());
+  }
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;
@@ -101,7 +132,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
     else
       h_prev.middleRows(o, n) = hs.middleRows(lay.offset(s - 1), n);
     if (fused) {
-      detail::fast::gru_step(n, H, h_prev.row(o).data(), H, w.u_step.data(), bias_hidden_.value.data(),
+      detail::fast::gru_step(n, H, h_prev.row(o).data(), H, u_step, bias_hidden_.value.data(),
                              gates.row(o).data(), hn.row(o).data(), hs.row(o).data());
       continue;
     }
@@ -150,8 +181,14 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
   dh.setZero();
   const Matrix& U = w_hidden_.value;
   const bool fast = detail::fast::available();
-  if (fast)
-    detail::fast::pack_b(U.data(), H, false, 3 * H, H, w.u_back.reserve(detail::fast::packed_size(3 * H, H)));
+  const detail::WeightPacks* shared = fast ? w.shared : nullptr;
+  const float* u_back = nullptr;
+  if (shared != nullptr) {
+    u_back = shared->back.data();
+  } else if (fast) {
+    u_back = w.packs.back.reserve(detail::fast::packed_size(3 * H, H));
+    detail::fast::pack_b(U.data(), H, false, 3 * H, H, w.packs.back.data());
+  }
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
@@ -160,8 +197,8 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
       detail::fast::gru_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
                                       gates.row(o).data(), hn.row(o).data(), h_prev.row(o).data(),
                                       dgi.row(o).data(), dgh.row(o).data());
-      detail::fast::gemm_packed(n, H, 3 * H, dgh.row(o).data(), 3 * H, false, w.u_back.data(), dh.data(), H,
-                                true, nullptr);
+      detail::fast::gemm_packed(n, H, 3 * H, dgh.row(o).data(), 3 * H, false, u_back, dh.data(), H, true,
+                                nullptr);
       continue;
     }
     for (Eigen::Index j = 0; j < n; ++j) dh.row(j) += d_out.row(lay.source(o + j));
@@ -190,7 +227,11 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
       d_x->resize(TB, D);
     }
     MatrixMap dxs = w.dx.view(N, D);
-    w.gemm_dx.run(dxs, dgi, detail::Op::kN, w_input_.value, detail::Op::kN, false);
+    if (shared != nullptr)
+      detail::fast::gemm_packed(N, D, 3 * H, dgi.data(), dgi.outerStride(), false, shared->in_back.data(),
+                                dxs.data(), dxs.outerStride(), false, nullptr);
+    else
+      w.gemm_dx.run(dxs, dgi, detail::Op::kN, w_input_.value, detail::Op::kN, false);
     if (accumulate_dx) {
       for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
     } else {

@@ -6,6 +6,7 @@
 #include "detail/fast_kernels.hpp"
 #include "detail/gemm.hpp"
 #include "detail/sequence_layout.hpp"
+#include "detail/weight_packs.hpp"
 #include "gyre/core/error.hpp"
 #include "gyre/nn/init.hpp"
 
@@ -29,8 +30,11 @@ struct LstmLayer::Workspace {
   detail::GrowBuffer dgates;  // [N x 4H]: d loss / d pre-activations
   detail::GrowBuffer dx;      // [N x D]: packed input gradient
   // AVX-512 path: U packed once per forward (gate-interleaved for the fused step) and once per
-  // backward (panels of U for dG U); reused by every time step.
-  detail::fast::AlignedBuffer u_step, u_back;
+  // backward (panels of U for dG U), reused by every time step; W packed by the GEMM objects.
+  // pack_weights() fills all four packs here instead, and `shared` (when set) points at the packs
+  // forward and backward read: this layer's or another replica's (read_packs_from).
+  detail::WeightPacks packs;
+  const detail::WeightPacks* shared = nullptr;
 };
 
 LstmLayer::LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -58,7 +62,27 @@ std::size_t LstmLayer::workspace_capacity() const noexcept {
   return w.x.capacity_bytes() + w.gates.capacity_bytes() + w.h.capacity_bytes() + w.c.capacity_bytes() +
          w.tanh_c.capacity_bytes() + w.h_prev.capacity_bytes() + w.h0.capacity_bytes() +
          w.c0.capacity_bytes() + w.dh.capacity_bytes() + w.dc.capacity_bytes() + w.dgates.capacity_bytes() +
-         w.dx.capacity_bytes() + w.u_step.capacity_bytes() + w.u_back.capacity_bytes();
+         w.dx.capacity_bytes() + w.packs.capacity_bytes();
+}
+
+void LstmLayer::reserve_packs() {
+  if (detail::fast::available()) ws_->packs.reserve(4, hidden_size_, input_size_);
+}
+
+void LstmLayer::pack_weights(int part, int parts) {
+  if (detail::fast::available())
+    ws_->packs.pack(w_hidden_.value.data(), w_input_.value.data(), 4, hidden_size_, input_size_, part, parts);
+}
+
+void LstmLayer::read_packs_from(const RecurrentLayer* source) {
+  if (source == nullptr) {
+    ws_->shared = nullptr;
+    return;
+  }
+  const auto* other = dynamic_cast<const LstmLayer*>(source);
+  GYRE_CHECK(other != nullptr && other->input_size_ == input_size_ && other->hidden_size_ == hidden_size_,
+             "LstmLayer::read_packs_from: the source is not an LSTM layer of the same shape");
+  ws_->shared = &other->ws_->packs;
 }
 
 namespace {
@@ -116,15 +140,25 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
     else
       ci.row(j).setZero();
   }
+  // Packs made for this step by pack_weights (AVX-512 path only), or null: pack here.
+  const detail::WeightPacks* shared = detail::fast::available() ? w.shared : nullptr;
   // Input projection of all valid steps in one GEMM, bias folded in.
-  w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
+  if (shared != nullptr)
+    detail::fast::gemm_packed(N, 4 * H, D, xs.data(), xs.outerStride(), false, shared->in_fwd.data(),
+                              gates.data(), gates.outerStride(), false, nullptr, bias_.value.data());
+  else
+    w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
 
   const Matrix& U = w_hidden_.value;
   // Fused AVX-512 step (GEMM + cell in one pass over the gates) when H allows it.
-  const bool fused = detail::fast::available() && H % detail::fast::kCellUnits == 0;
-  if (fused)
-    detail::fast::pack_gates(
-        U.data(), 4, H, w.u_step.reserve(detail::fast::packed_size(H, 4 * H, 4 * detail::fast::kCellUnits)));
+  const bool fused = detail::fast::available() && detail::WeightPacks::fused(H);
+  const float* u_step = nullptr;
+  if (fused && shared != nullptr) {
+    u_step = shared->step.data();
+  } else if (fused) {
+    u_step = w.packs.step.reserve(detail::fast::packed_size(H, 4 * H, 4 * detail::fast::kCellUnits));
+    detail::fast::pack_gates(U.data(), 4, H, w.packs.step.data());
+  }
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;  // sorted by length: no later step has work either
@@ -137,7 +171,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
     else
       h_prev.middleRows(o, n) = hs.middleRows(lay.offset(s - 1), n);
     if (fused) {
-      detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_before, H, w.u_step.data(), gates.row(o).data(),
+      detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_before, H, u_step, gates.row(o).data(),
                               cs.row(o).data(), tanh_c.row(o).data(), hs.row(o).data());
       continue;
     }
@@ -181,8 +215,14 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   dc.setZero();
   const Matrix& U = w_hidden_.value;
   const bool fast = detail::fast::available();
-  if (fast)
-    detail::fast::pack_b(U.data(), H, false, 4 * H, H, w.u_back.reserve(detail::fast::packed_size(4 * H, H)));
+  const detail::WeightPacks* shared = fast ? w.shared : nullptr;
+  const float* u_back = nullptr;
+  if (shared != nullptr) {
+    u_back = shared->back.data();
+  } else if (fast) {
+    u_back = w.packs.back.reserve(detail::fast::packed_size(4 * H, H));
+    detail::fast::pack_b(U.data(), H, false, 4 * H, H, w.packs.back.data());
+  }
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
@@ -192,8 +232,8 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
       detail::fast::lstm_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
                                        dc.data(), gates.row(o).data(), tanh_c.row(o).data(), c_before,
                                        dgates.row(o).data());
-      detail::fast::gemm_packed(n, H, 4 * H, dgates.row(o).data(), 4 * H, false, w.u_back.data(), dh.data(),
-                                H, false, nullptr);
+      detail::fast::gemm_packed(n, H, 4 * H, dgates.row(o).data(), 4 * H, false, u_back, dh.data(), H, false,
+                                nullptr);
       continue;
     }
     for (Eigen::Index j = 0; j < n; ++j) dh.row(j) += d_out.row(lay.source(o + j));
@@ -224,7 +264,11 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
       d_x->resize(TB, D);
     }
     MatrixMap dxs = w.dx.view(N, D);
-    w.gemm_dx.run(dxs, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, false);
+    if (shared != nullptr)
+      detail::fast::gemm_packed(N, D, 4 * H, dgates.data(), dgates.outerStride(), false,
+                                shared->in_back.data(), dxs.data(), dxs.outerStride(), false, nullptr);
+    else
+      w.gemm_dx.run(dxs, dgates, detail::Op::kN, w_input_.value, detail::Op::kN, false);
     if (accumulate_dx) {
       for (Eigen::Index p = 0; p < N; ++p) d_x->row(lay.source(p)) += dxs.row(p);
     } else {

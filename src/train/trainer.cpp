@@ -651,6 +651,8 @@ class Run {
   void end_epoch();
   void save_last();
   void optimizer_step(std::span<nn::ParameterStore* const> others);
+  void share_weight_packs();
+  void stop_sharing_weight_packs() noexcept;
   double reduce_and_measure(std::span<nn::ParameterStore* const> others);
   void finish(TrainOutcome outcome, TrainResult& result);
   void release_training_state();
@@ -684,7 +686,10 @@ class Run {
   std::unique_ptr<WorkerPool> pool_;
   InProcessReducer reducer_;
   std::vector<nn::ParameterStore*> replica_ptrs_;  // replicas 1.. (they get the new values in the step)
-  std::vector<std::int32_t> merge_scratch_;        // merge_touched_rows()
+  // With several workers: every replica's recurrent layers, in the same order ([0]: the master's),
+  // for the weight packs they share during a step (share_weight_packs()); empty with one worker.
+  std::vector<std::vector<nn::RecurrentLayer*>> packed_layers_;
+  std::vector<std::int32_t> merge_scratch_;               // merge_touched_rows()
   std::vector<optim::Optimizer::GradCheck> part_checks_;  // per worker of this process
   std::vector<double> part_squares_;  // per global worker: sum of squared gradients of its part
   // Ranks > 1: every global worker's gradient (1.. ; worker 0's goes into the master) and the
@@ -733,6 +738,14 @@ void Run::setup_model() {
   for (auto& r : replicas_) r->embedding().set_trainable(!config_.freeze_embeddings);
   for (std::size_t w = 1; w < replicas_.size(); ++w) replicas_[w]->copy_values_from(master);
   for (std::size_t w = 1; w < replicas_.size(); ++w) replica_ptrs_.push_back(&replicas_[w]->params());
+  if (replicas_.size() > 1) {
+    for (auto& r : replicas_) {
+      nn::RnnStack& rnn = r->rnn();
+      auto& layers = packed_layers_.emplace_back();
+      for (int k = 0; k < rnn.config().layers; ++k)
+        for (int d = 0; d < rnn.directions(); ++d) layers.push_back(&rnn.layer(k, d));
+    }
+  }
 
   optim::OptimizerConfig oc;
   oc.momentum = config_.optimizer == optim::OptimizerKind::kSgd ? static_cast<float>(config_.momentum) : 0.0f;
@@ -961,6 +974,30 @@ bool Run::exchange_gradients(std::span<const double> losses, bool interrupt, dou
   return any_interrupt;
 }
 
+// Several workers: the recurrent layers' weight packs (the panel layouts the AVX-512 products
+// read) are made once per step from the master's weights, split across the workers, and every
+// replica's layers read them in this step's forward and backward, instead of each replica packing
+// every weight in its forward and again in its backward (issue 13). The replicas hold the
+// master's weights (the last optimizer step copied them), and the packs are copies, so the
+// results are the same bits. Packed at the start of each step, from the weights of that moment.
+void Run::share_weight_packs() {
+  if (packed_layers_.empty()) return;
+  const std::vector<nn::RecurrentLayer*>& master = packed_layers_[0];
+  for (nn::RecurrentLayer* layer : master) layer->reserve_packs();
+  const int parts = pool_->size();
+  pool_->run([&](int part) {
+    for (nn::RecurrentLayer* layer : master) layer->pack_weights(part, parts);
+  });
+  for (const auto& layers : packed_layers_)
+    for (std::size_t i = 0; i < layers.size(); ++i) layers[i]->read_packs_from(master[i]);
+}
+
+// After the step's backward: the layers pack per call again (dev evaluation, the weights change).
+void Run::stop_sharing_weight_packs() noexcept {
+  for (const auto& layers : packed_layers_)
+    for (nn::RecurrentLayer* layer : layers) layer->read_packs_from(nullptr);
+}
+
 // One step's forward and backward passes over the batch `indices`: this process's share of it,
 // split between its workers; each worker's loss goes to buf.losses (not yet checked for being
 // finite).
@@ -981,6 +1018,11 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
   // Every worker: forward and backward on its slice of the batch in its replica (which the last
   // optimizer step brought up to the master's weights), then its sparse rows sorted and unique
   // (a row is listed once per token by the embedding's backward; the reduction adds each once).
+  share_weight_packs();
+  struct StopSharing {
+    Run& run;
+    ~StopSharing() { run.stop_sharing_weight_packs(); }
+  } stop_sharing{*this};
   try {
     pool_->run([&](int w) {
       const auto& slice = buf.slices[static_cast<std::size_t>(w)];
@@ -1275,6 +1317,7 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
 void Run::release_training_state() {
   pool_.reset();  // joins the worker threads
   optimizer_.reset();
+  std::vector<std::vector<nn::RecurrentLayer*>>().swap(packed_layers_);
   replicas_.clear();
   std::vector<nn::ParameterStore>().swap(peer_grads_);
   std::vector<nn::ParameterStore*>().swap(peer_ptrs_);

@@ -78,6 +78,7 @@ class SequenceModel {
   const nn::ParameterStore& params() const noexcept { return params_; }
   nn::Embedding& embedding() noexcept { return *embedding_; }
   nn::Crf* crf() noexcept { return crf_.get(); }
+  nn::RnnStack& rnn() noexcept { return *rnn_; }
   /// nullptr without a character encoder.
   nn::CharCnn* char_encoder() noexcept { return chars_.get(); }
 

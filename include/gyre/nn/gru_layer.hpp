@@ -32,6 +32,10 @@ class GruLayer final : public RecurrentLayer {
   void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
                 Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) override;
 
+  void reserve_packs() override;
+  void pack_weights(int part, int parts) override;
+  void read_packs_from(const RecurrentLayer* source) override;
+
   std::size_t workspace_capacity() const noexcept;
 
  private:

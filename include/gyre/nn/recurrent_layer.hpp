@@ -55,6 +55,21 @@ class RecurrentLayer {
   /// the final state is taken as zero (truncated BPTT cuts it at the window boundary).
   virtual void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
                         Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) = 0;
+
+  /// Weight packs shared by data-parallel replicas (issue 13). With the AVX-512 kernels each
+  /// forward and backward packs the layer's weight matrices into the panel layout its products
+  /// read; replicas of one model hold the same weights, so one set of packs can serve them all.
+  /// reserve_packs() sizes this layer's pack buffers (allocates only when they grow; call it
+  /// before the parts); pack_weights(part, parts) then fills part `part` of `parts` from the
+  /// current weights (the parts may run on different threads at once). read_packs_from(source):
+  /// forward and backward read `source`'s packs instead of packing (source may be this layer;
+  /// nullptr: pack per call again). The caller makes sure the packs were made from weights equal
+  /// to this layer's, and that neither changes until it calls read_packs_from(nullptr); the
+  /// source must be a layer of the same kind and shape (gyre::Error otherwise). The results are
+  /// the same bits either way (the packs are copies). Without the AVX-512 kernels these do nothing.
+  virtual void reserve_packs() {}
+  virtual void pack_weights(int /*part*/, int /*parts*/) {}
+  virtual void read_packs_from(const RecurrentLayer* /*source*/) {}
 };
 
 }  // namespace gyre::nn

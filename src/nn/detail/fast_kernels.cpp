@@ -67,10 +67,10 @@ void pack_b_plain(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t
   }
 }
 
-void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* out, std::ptrdiff_t p_begin,
+                      std::ptrdiff_t p_end) {
   const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
-  const std::ptrdiff_t panels = hidden / kCellUnits;
-  for (std::ptrdiff_t p = 0; p < panels; ++p) {
+  for (std::ptrdiff_t p = p_begin; p < p_end; ++p) {
     float* dst = out + p * nr * hidden;
     for (int g = 0; g < gates; ++g)
       for (std::ptrdiff_t j = 0; j < kCellUnits; ++j) {
@@ -83,6 +83,15 @@ void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* o
 }
 
 }  // namespace
+
+void pack_b_panels(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n,
+                   float* out, std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
+  // Panel p holds columns [p * kGemmNr, p * kGemmNr + kGemmNr) at out + p * kGemmNr * k: the same
+  // bytes as packing the column block alone.
+  const std::ptrdiff_t c0 = panel_begin * kGemmNr, c1 = std::min(n, panel_end * kGemmNr);
+  if (c1 <= c0) return;
+  pack_b(trans ? b + c0 * ldb : b + c0, ldb, trans, k, c1 - c0, out + c0 * k);
+}
 
 #if defined(GYRE_NN_X86)
 
@@ -480,12 +489,12 @@ GYRE_AVX512_INLINE void transpose16(__m512 (&r)[16], const Transpose16Indices& t
   }
 }
 
-GYRE_AVX512 void pack_gates_avx512(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+GYRE_AVX512 void pack_gates_avx512(const float* u, int gates, std::ptrdiff_t hidden, float* out,
+                                   std::ptrdiff_t p_begin, std::ptrdiff_t p_end) {
   const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
-  const std::ptrdiff_t panels = hidden / kCellUnits;
   static_assert(kCellUnits == 16, "one 16 x 16 transpose per gate and 16 k");
   const Transpose16Indices t = transpose16_indices();
-  for (std::ptrdiff_t p = 0; p < panels; ++p) {
+  for (std::ptrdiff_t p = p_begin; p < p_end; ++p) {
     float* dst = out + p * nr * hidden;
     for (int g = 0; g < gates; ++g) {
       // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed), 16 k at a time.
@@ -655,10 +664,15 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
 }
 
 void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+  pack_gates_panels(u, gates, hidden, out, 0, hidden / kCellUnits);
+}
+
+void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
+                       std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
   if (available())
-    pack_gates_avx512(u, gates, hidden, out);
+    pack_gates_avx512(u, gates, hidden, out, panel_begin, panel_end);
   else
-    pack_gates_plain(u, gates, hidden, out);
+    pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end);
 }
 
 void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
@@ -713,7 +727,11 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
   pack_b_plain(b, ldb, trans, k, n, out);
 }
 void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
-  pack_gates_plain(u, gates, hidden, out);
+  pack_gates_plain(u, gates, hidden, out, 0, hidden / kCellUnits);
+}
+void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
+                       std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
+  pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end);
 }
 void lstm_cell_backward(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, const int*,
                         const float*, float*, const float*, const float*, const float*, float*) {

@@ -46,10 +46,22 @@ inline std::size_t packed_size(std::ptrdiff_t k, std::ptrdiff_t n, int nr = kGem
 /// row stride ldb; trans = true: B is stored as its transpose [n x k] with row stride ldb.
 void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out);
 
+/// Panels [panel_begin, panel_end) of pack_b's output only (the rest of `out` untouched), so that
+/// several threads can pack one operand together.
+void pack_b_panels(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n,
+                   float* out, std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end);
+/// Panels of pack_b's output: ceil(n / kGemmNr).
+inline std::ptrdiff_t b_panels(std::ptrdiff_t n) {
+  return (n + kGemmNr - 1) / kGemmNr;
+}
+
 /// Packs the recurrent weight U [G*H x H] (row-major, gate blocks of H rows) read transposed, as
 /// the [H x G*H] right operand of h U^T, with the columns of kCellUnits units of every gate in one
 /// panel: panel p, column g*16 + j = gate g, unit 16p + j. H must be a multiple of kCellUnits.
 void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out);
+/// Panels [panel_begin, panel_end) of pack_gates's output only (it has hidden / kCellUnits).
+void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
+                       std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end);
 
 /// C[m x n] = A B (or C += A B when accumulate). A: [m x k] row-major, row stride lda (or, with
 /// trans_a, stored as its transpose [k x m] with row stride lda). bp: op(B) packed by pack_b.
