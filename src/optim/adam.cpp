@@ -51,6 +51,20 @@ void Adam::update_block_checked(float* value, float* grad, float* const* slots, 
   seen.inf |= (bad >> 1) & 1u;
 }
 
+void Adam::update_block_fused(float* value, float* grad, const float* add, float* zero_also, float* copy_to,
+                              float* const* slots, std::int64_t count, bool zero_grad, NonFinite& seen) {
+  if (!use_avx512_training_kernels()) {
+    Optimizer::update_block_fused(value, grad, add, zero_also, copy_to, slots, count, zero_grad, seen);
+    return;
+  }
+  const float l2 = decoupled_ ? 0.0F : weight_decay_, decay = decoupled_ ? weight_decay_ : 0.0F;
+  const unsigned bad = detail::adam_update_avx512(
+      {beta1_, beta2_, learning_rate_, epsilon_, l2, decay, inv_bias1_, inv_bias2_}, value, grad, slots[0],
+      slots[1], count, zero_grad, {add, zero_also, copy_to});
+  seen.nan |= bad & 1u;
+  seen.inf |= (bad >> 1) & 1u;
+}
+
 void Adam::update_block(float* value, const float* grad, float* const* slots, std::int64_t count) {
   float* m = slots[0];
   float* v = slots[1];

@@ -44,6 +44,16 @@ void Optimizer::update_block_checked(float* value, float* grad, float* const* sl
   if (zero_grad) std::fill(grad, grad + count, 0.0f);
 }
 
+void Optimizer::update_block_fused(float* value, float* grad, const float* add, float* zero_also,
+                                   float* copy_to, float* const* slots, std::int64_t count, bool zero_grad,
+                                   NonFinite& seen) {
+  if (add != nullptr)
+    for (std::int64_t k = 0; k < count; ++k) grad[k] += add[k];
+  update_block_checked(value, grad, slots, count, zero_grad, seen);
+  if (zero_also != nullptr) std::fill(zero_also, zero_also + count, 0.0f);
+  if (copy_to != nullptr) std::copy(value, value + count, copy_to);
+}
+
 void Optimizer::bind(const nn::ParameterStore& params) {
   const std::vector<std::string> slots = slot_names();
   GYRE_CHECK(slots.size() <= kMaxSlots, "optimizer keeps too many state slots");
@@ -148,12 +158,27 @@ Optimizer::GradCheck Optimizer::update_part(nn::ParameterStore& params, int part
   std::array<float*, kMaxSlots> slot_ptrs{};
   NonFinite seen;
   const float scale = fusion.grad_scale;
+  // At most one other store to add from, zero and copy to, and no scaling: each block in one
+  // call of update_block_fused (the same operations in the same order).
+  const bool pair = scale == 1.0f && fusion.add.size() <= 1 && fusion.copy_to.size() <= 1 &&
+                    (!fusion.zero || fusion.zero_also.size() <= 1);
   // One block of `count` values at `offset` of parameter `index`: the adds (in store order), the
   // check, the scaling, the update, the zeroing and the copies, each element-wise as in the
   // separate passes. `add_row` (sparse rows) tells whether a store has the block's row.
   auto block = [&](Bound& b, nn::Parameter& p, Eigen::Index offset, Eigen::Index count, auto&& add_row) {
     const std::size_t i = b.param_index;
     float* g = p.grad.data() + offset;
+    if (pair) {
+      const float* add = nullptr;
+      if (!fusion.add.empty() && add_row((*fusion.add[0])[i])) add = (*fusion.add[0])[i].grad.data() + offset;
+      float* zero_also =
+          fusion.zero && !fusion.zero_also.empty() ? (*fusion.zero_also[0])[i].grad.data() + offset : nullptr;
+      float* copy_to = fusion.copy_to.empty() ? nullptr : (*fusion.copy_to[0])[i].value.data() + offset;
+      for (std::size_t s = 0; s < b.slots.size(); ++s) slot_ptrs[s] = b.slots[s].data() + offset;
+      update_block_fused(p.value.data() + offset, g, add, zero_also, copy_to, slot_ptrs.data(), count,
+                         fusion.zero, seen);
+      return;
+    }
     for (nn::ParameterStore* store : fusion.add) {
       const nn::Parameter& q = (*store)[i];
       if (!add_row(q)) continue;

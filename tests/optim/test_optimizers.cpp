@@ -8,6 +8,7 @@
 #include <cmath>
 #include <cstring>
 #include <limits>
+#include <span>
 #include <string>
 #include <vector>
 
@@ -483,93 +484,100 @@ TEST_CASE("the fused update equals reduce, clip, step, zero and copy done one af
           "[optim][parts][fused]") {
   // issue 13: update_part(params, part, parts, fusion) does the trainer's reduction (adds in store
   // order), the clipping scale, the update, the zeroing and the copy into replicas in one pass;
-  // every value, moment, gradient and replica must have the bits of the separate passes.
+  // every value, moment, gradient and replica must have the bits of the separate passes. Two
+  // workers without scaling take update_block_fused (one call per block, Adam's AVX-512 kernel
+  // doing all of it in one loop), three workers or a scale the block-by-block passes.
   for (const ConfigCase& cc : all_configs()) {
     for (const int parts : {1, 2, 3}) {
       for (const float scale : {1.0F, 0.37F}) {
-        INFO("optimizer " << cc.optimizer << ", momentum " << cc.config.momentum << ", parts " << parts
-                          << ", scale " << scale);
-        gyre::Rng rng(20261203);
-        // ref: master + two workers, separate passes; fused: the same with update_part.
-        ParameterStore ref[3], fused[3];
-        for (int w = 0; w < 3; ++w) {
-          add_worker_params(ref[w]);
-          add_worker_params(fused[w]);
-        }
-        for (std::size_t i = 0; i < ref[0].size(); ++i) {
-          random_fill(ref[0][i].value, rng);
+        for (const int workers : {2, 3}) {
+          INFO("optimizer " << cc.optimizer << ", momentum " << cc.config.momentum << ", parts " << parts
+                            << ", scale " << scale << ", workers " << workers);
+          gyre::Rng rng(20261203);
+          // ref: master + two workers, separate passes; fused: the same with update_part.
+          ParameterStore ref[3], fused[3];
           for (int w = 0; w < 3; ++w) {
-            ref[w][i].value = ref[0][i].value;
-            fused[w][i].value = ref[0][i].value;
+            add_worker_params(ref[w]);
+            add_worker_params(fused[w]);
           }
+          for (std::size_t i = 0; i < ref[0].size(); ++i) {
+            random_fill(ref[0][i].value, rng);
+            for (int w = 0; w < 3; ++w) {
+              ref[w][i].value = ref[0][i].value;
+              fused[w][i].value = ref[0][i].value;
+            }
+          }
+          auto opt_ref = gyre::optim::make_optimizer(cc.optimizer, cc.config);
+          auto opt_fused = gyre::optim::make_optimizer(cc.optimizer, cc.config);
+          std::vector<std::int32_t> scratch;
+          std::vector<std::vector<std::int32_t>> rows = {{3, 7, 7, 1, 30}, {7, 2, 39, 2}, {0, 30, 11}};
+          rows.resize(static_cast<std::size_t>(workers));
+          for (int step = 0; step < 3; ++step) {
+            for (int w = 0; w < workers; ++w) {
+              for (std::size_t i = 1; i < ref[w].size(); ++i) {
+                random_fill(ref[w][i].grad, rng);
+                fused[w][i].grad = ref[w][i].grad;
+              }
+              // Sparse rows: only the listed rows carry gradient (a row listed twice as a backward
+              // lists it, once per use).
+              Parameter& r = ref[w][0];
+              r.grad.setZero();
+              for (const auto row : rows[static_cast<std::size_t>(w)])
+                r.grad.row(row).setConstant(rng.uniform(-1.0F, 1.0F));
+              r.touched_rows = rows[static_cast<std::size_t>(w)];
+              fused[w][0].grad = r.grad;
+              fused[w][0].touched_rows = r.touched_rows;
+            }
+            // Separate passes: reduce into the master (each row once), scale, step, zero, copy.
+            for (int w = 1; w < workers; ++w) {
+              for (std::size_t i = 1; i < ref[0].size(); ++i) ref[0][i].grad += ref[w][i].grad;
+              ref[w][0].finalize_touched_rows();
+              for (const auto row : ref[w][0].touched_rows)
+                ref[0][0].grad.row(row) += ref[w][0].grad.row(row);
+              ref[0][0].touched_rows.insert(ref[0][0].touched_rows.end(), ref[w][0].touched_rows.begin(),
+                                            ref[w][0].touched_rows.end());
+            }
+            ref[0][0].finalize_touched_rows();
+            for (std::size_t i = 1; i < ref[0].size(); ++i) ref[0][i].grad *= scale;
+            for (const auto row : ref[0][0].touched_rows) ref[0][0].grad.row(row) *= scale;
+            opt_ref->step(ref[0], 0.01F);
+            for (int w = 1; w < workers; ++w) {
+              for (std::size_t i = 0; i < ref[w].size(); ++i) {
+                if (!ref[w][i].sparse_rows) ref[w][i].value = ref[0][i].value;
+                if (ref[w][i].sparse_rows)
+                  for (const auto row : ref[0][i].touched_rows)
+                    ref[w][i].value.row(row) = ref[0][i].value.row(row);
+              }
+            }
+            for (int w = 0; w < workers; ++w) ref[w].zero_grad();
+            // Fused.
+            ParameterStore* const all_others[] = {&fused[1], &fused[2]};
+            const std::span<ParameterStore* const> others(all_others, static_cast<std::size_t>(workers - 1));
+            gyre::optim::Optimizer::merge_touched_rows(fused[0], others, scratch);
+            REQUIRE(fused[0][0].touched_rows == ref_union(rows));
+            gyre::optim::Optimizer::Fusion f;
+            f.add = others;
+            f.grad_scale = scale;
+            f.zero = true;
+            f.zero_also = others;
+            f.copy_to = others;
+            opt_fused->prepare_step(fused[0], 0.01F);
+            for (int part = parts - 1; part >= 0; --part)
+              REQUIRE(opt_fused->update_part(fused[0], part, parts, f) ==
+                      gyre::optim::Optimizer::GradCheck::kFinite);
+            for (int w = 0; w < workers; ++w) fused[w][0].touched_rows.clear();
+            for (int w = 0; w < workers; ++w)
+              for (std::size_t i = 0; i < ref[w].size(); ++i) {
+                INFO("worker " << w << ", parameter " << ref[w][i].name << ", step " << step);
+                REQUIRE(same_bits(ref[w][i].value, fused[w][i].value));
+                REQUIRE(fused[w][i].grad.isZero(0.0F));
+              }
+          }
+          auto s_ref = opt_ref->state_tensors(), s_fused = opt_fused->state_tensors();
+          REQUIRE(s_ref.size() == s_fused.size());
+          for (std::size_t k = 0; k < s_ref.size(); ++k)
+            REQUIRE(same_bits(*s_ref[k].second, *s_fused[k].second));
         }
-        auto opt_ref = gyre::optim::make_optimizer(cc.optimizer, cc.config);
-        auto opt_fused = gyre::optim::make_optimizer(cc.optimizer, cc.config);
-        std::vector<std::int32_t> scratch;
-        const std::vector<std::vector<std::int32_t>> rows = {{3, 7, 7, 1, 30}, {7, 2, 39, 2}, {0, 30, 11}};
-        for (int step = 0; step < 3; ++step) {
-          for (int w = 0; w < 3; ++w) {
-            for (std::size_t i = 1; i < ref[w].size(); ++i) {
-              random_fill(ref[w][i].grad, rng);
-              fused[w][i].grad = ref[w][i].grad;
-            }
-            // Sparse rows: only the listed rows carry gradient (a row listed twice as a backward
-            // lists it, once per use).
-            Parameter& r = ref[w][0];
-            r.grad.setZero();
-            for (const auto row : rows[static_cast<std::size_t>(w)])
-              r.grad.row(row).setConstant(rng.uniform(-1.0F, 1.0F));
-            r.touched_rows = rows[static_cast<std::size_t>(w)];
-            fused[w][0].grad = r.grad;
-            fused[w][0].touched_rows = r.touched_rows;
-          }
-          // Separate passes: reduce into the master (each row once), scale, step, zero, copy.
-          for (int w = 1; w < 3; ++w) {
-            for (std::size_t i = 1; i < ref[0].size(); ++i) ref[0][i].grad += ref[w][i].grad;
-            ref[w][0].finalize_touched_rows();
-            for (const auto row : ref[w][0].touched_rows) ref[0][0].grad.row(row) += ref[w][0].grad.row(row);
-            ref[0][0].touched_rows.insert(ref[0][0].touched_rows.end(), ref[w][0].touched_rows.begin(),
-                                          ref[w][0].touched_rows.end());
-          }
-          ref[0][0].finalize_touched_rows();
-          for (std::size_t i = 1; i < ref[0].size(); ++i) ref[0][i].grad *= scale;
-          for (const auto row : ref[0][0].touched_rows) ref[0][0].grad.row(row) *= scale;
-          opt_ref->step(ref[0], 0.01F);
-          for (int w = 1; w < 3; ++w) {
-            for (std::size_t i = 0; i < ref[w].size(); ++i) {
-              if (!ref[w][i].sparse_rows) ref[w][i].value = ref[0][i].value;
-              if (ref[w][i].sparse_rows)
-                for (const auto row : ref[0][i].touched_rows)
-                  ref[w][i].value.row(row) = ref[0][i].value.row(row);
-            }
-          }
-          for (int w = 0; w < 3; ++w) ref[w].zero_grad();
-          // Fused.
-          ParameterStore* others[] = {&fused[1], &fused[2]};
-          gyre::optim::Optimizer::merge_touched_rows(fused[0], others, scratch);
-          REQUIRE(fused[0][0].touched_rows == ref_union(rows));
-          gyre::optim::Optimizer::Fusion f;
-          f.add = others;
-          f.grad_scale = scale;
-          f.zero = true;
-          f.zero_also = others;
-          f.copy_to = others;
-          opt_fused->prepare_step(fused[0], 0.01F);
-          for (int part = parts - 1; part >= 0; --part)
-            REQUIRE(opt_fused->update_part(fused[0], part, parts, f) ==
-                    gyre::optim::Optimizer::GradCheck::kFinite);
-          for (int w = 0; w < 3; ++w) fused[w][0].touched_rows.clear();
-          for (int w = 0; w < 3; ++w)
-            for (std::size_t i = 0; i < ref[w].size(); ++i) {
-              INFO("worker " << w << ", parameter " << ref[w][i].name << ", step " << step);
-              REQUIRE(same_bits(ref[w][i].value, fused[w][i].value));
-              REQUIRE(fused[w][i].grad.isZero(0.0F));
-            }
-        }
-        auto s_ref = opt_ref->state_tensors(), s_fused = opt_fused->state_tensors();
-        REQUIRE(s_ref.size() == s_fused.size());
-        for (std::size_t k = 0; k < s_ref.size(); ++k)
-          REQUIRE(same_bits(*s_ref[k].second, *s_fused[k].second));
       }
     }
   }

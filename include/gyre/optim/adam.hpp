@@ -35,6 +35,8 @@ class Adam final : public Optimizer {
   void update_block(float* value, const float* grad, float* const* slots, std::int64_t count) override;
   void update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
                             bool zero_grad, NonFinite& seen) override;
+  void update_block_fused(float* value, float* grad, const float* add, float* zero_also, float* copy_to,
+                          float* const* slots, std::int64_t count, bool zero_grad, NonFinite& seen) override;
 
  private:
   float beta1_;

@@ -131,6 +131,14 @@ class Optimizer {
   /// optimizer may do them in one loop (Adam's AVX-512 kernel).
   virtual void update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
                                     bool zero_grad, NonFinite& seen);
+  /// The fused step's whole work on one block when it involves at most one other store (two
+  /// data-parallel workers, issue 13), in this order: grad += add (when add is not null), then
+  /// update_block_checked(), then zero_also zeroed (when not null) and the new values copied to
+  /// copy_to (when not null). The default does these in turn; an optimizer may do them in one
+  /// loop over the block (Adam's AVX-512 kernel: every array read once).
+  virtual void update_block_fused(float* value, float* grad, const float* add, float* zero_also,
+                                  float* copy_to, float* const* slots, std::int64_t count, bool zero_grad,
+                                  NonFinite& seen);
 
  private:
   struct Bound {

@@ -36,7 +36,10 @@ GYRE_AVX512 inline void prefetch_ahead(const float* p) {
 }  // namespace
 
 GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float* grad, float* m, float* v,
-                                        std::ptrdiff_t count, bool zero_grad) {
+                                        std::ptrdiff_t count, bool zero_grad, const AdamPair& pair) {
+  const float* add = pair.add;
+  float* zero_also = pair.zero_also;
+  float* copy_to = pair.copy_to;
   const __m512 b1 = _mm512_set1_ps(st.beta1), b2 = _mm512_set1_ps(st.beta2);
   const __m512 one_b1 = _mm512_set1_ps(1.0f - st.beta1), one_b2 = _mm512_set1_ps(1.0f - st.beta2);
   const __m512 lr = _mm512_set1_ps(st.learning_rate), eps = _mm512_set1_ps(st.epsilon);
@@ -49,11 +52,19 @@ GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float*
     prefetch_ahead(grad + i);
     prefetch_ahead(m + i);
     prefetch_ahead(v + i);
+    if (add != nullptr) prefetch_ahead(add + i);
+    if (zero_also != nullptr) prefetch_ahead(zero_also + i);
+    if (copy_to != nullptr) prefetch_ahead(copy_to + i);
     const __m512 w = _mm512_maskz_loadu_ps(k, value + i);
-    const __m512 raw = _mm512_maskz_loadu_ps(k, grad + i);
+    __m512 raw = _mm512_maskz_loadu_ps(k, grad + i);
+    if (add != nullptr) raw = _mm512_add_ps(raw, _mm512_maskz_loadu_ps(k, add + i));  // the reduction's add
     nan = static_cast<__mmask16>(nan | _mm512_fpclass_ps_mask(raw, 0x81));  // quiet or signalling NaN
     inf = static_cast<__mmask16>(inf | _mm512_fpclass_ps_mask(raw, 0x18));  // +inf or -inf
-    if (zero_grad) _mm512_mask_storeu_ps(grad + i, k, _mm512_setzero_ps());
+    if (zero_grad)
+      _mm512_mask_storeu_ps(grad + i, k, _mm512_setzero_ps());
+    else if (add != nullptr)
+      _mm512_mask_storeu_ps(grad + i, k, raw);
+    if (zero_also != nullptr) _mm512_mask_storeu_ps(zero_also + i, k, _mm512_setzero_ps());
     const __m512 g = _mm512_fmadd_ps(l2, w, raw);
     const __m512 mi = _mm512_fmadd_ps(b1, _mm512_maskz_loadu_ps(k, m + i), _mm512_mul_ps(one_b1, g));
     const __m512 vi =
@@ -63,7 +74,9 @@ GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float*
         _mm512_fmadd_ps(decay, w, _mm512_div_ps(m_hat, _mm512_add_ps(_mm512_sqrt_ps(v_hat), eps)));
     _mm512_mask_storeu_ps(m + i, k, mi);
     _mm512_mask_storeu_ps(v + i, k, vi);
-    _mm512_mask_storeu_ps(value + i, k, _mm512_fnmadd_ps(lr, upd, w));
+    const __m512 w_new = _mm512_fnmadd_ps(lr, upd, w);
+    _mm512_mask_storeu_ps(value + i, k, w_new);
+    if (copy_to != nullptr) _mm512_mask_storeu_ps(copy_to + i, k, w_new);
   }
   return (nan != 0 ? 1u : 0u) | (inf != 0 ? 2u : 0u);
 }
@@ -73,7 +86,8 @@ GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float*
 #else
 
 namespace gyre::optim::detail {
-unsigned adam_update_avx512(const AdamStep&, float*, float*, float*, float*, std::ptrdiff_t, bool) {
+unsigned adam_update_avx512(const AdamStep&, float*, float*, float*, float*, std::ptrdiff_t, bool,
+                            const AdamPair&) {
   std::abort();
 }
 }  // namespace gyre::optim::detail

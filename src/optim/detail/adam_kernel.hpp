@@ -10,9 +10,17 @@ struct AdamStep {
   float beta1, beta2, learning_rate, epsilon, l2, decay, inv_bias1, inv_bias2;
 };
 
-/// Returns bit 0 set when a gradient value was NaN, bit 1 when one was infinite (read before the
-/// update). zero_grad: grad is zeroed after it is read (grad is written only then).
+/// The other replica's arrays of the block (Optimizer::update_block_fused), each may be null.
+struct AdamPair {
+  const float* add = nullptr;  // added to grad before everything else (the reduction)
+  float* zero_also = nullptr;  // zeroed
+  float* copy_to = nullptr;    // receives the new values
+};
+
+/// Returns bit 0 set when a gradient value was NaN, bit 1 when one was infinite (read after the
+/// add, before the update). zero_grad: grad is zeroed after it is read; otherwise it is written
+/// only when `pair.add` is given (it then holds the sum).
 unsigned adam_update_avx512(const AdamStep& step, float* value, float* grad, float* m, float* v,
-                            std::ptrdiff_t count, bool zero_grad);
+                            std::ptrdiff_t count, bool zero_grad, const AdamPair& pair = {});
 
 }  // namespace gyre::optim::detail
