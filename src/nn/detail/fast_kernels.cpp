@@ -593,8 +593,19 @@ GYRE_AVX512_EXACT void gru_cell_backward_avx512(std::ptrdiff_t n, std::ptrdiff_t
     const float* hpr = h_prev + r * H;
     float* gi = dgi + r * 3 * H;
     float* gh = dgh + r * 3 * H;
+    // The next row's caches and gradient rows, fetched ahead as in lstm_cell_backward.
+    const bool ahead = r + 1 < n;
     for (std::ptrdiff_t u = 0; u < H; u += 16) {
       const __mmask16 m = cols_mask(H - u);  // H need not be a multiple of 16
+      if (ahead) {
+        for (int q = 0; q < 3; ++q) {
+          _mm_prefetch(reinterpret_cast<const char*>(a + (3 + q) * H + u), _MM_HINT_T0);
+          _mm_prefetch(reinterpret_cast<const char*>(gi + (3 + q) * H + u), _MM_HINT_T0);
+          _mm_prefetch(reinterpret_cast<const char*>(gh + (3 + q) * H + u), _MM_HINT_T0);
+        }
+        _mm_prefetch(reinterpret_cast<const char*>(hnr + H + u), _MM_HINT_T0);
+        _mm_prefetch(reinterpret_cast<const char*>(hpr + H + u), _MM_HINT_T0);
+      }
       __m512 dH = _mm512_maskz_loadu_ps(m, dhr + u);
       if (dor != nullptr) dH = _mm512_add_ps(dH, _mm512_maskz_loadu_ps(m, dor + u));
       const __m512 rg = _mm512_maskz_loadu_ps(m, a + u), z = _mm512_maskz_loadu_ps(m, a + H + u),
