@@ -87,24 +87,24 @@ double dot(const std::vector<float>& a, const std::vector<double>& b) {
 
 // Penalised multinomial log loss and its gradient at theta = [W (features x classes), b].
 //
-// The rows are visited in chunks of kChunkRows. Per chunk, phase 1 computes each row's values
-// (CountRows: (1 + ln count) / norm), scores, softmax and loss term, and keeps the residual
-// p - onehot per row; phase 2 adds value x residual into the gradient rows of the columns.
-// With `threads` > 1, phase 1 splits the chunk's rows and phase 2 the feature columns (ranges
-// holding about equal numbers of entries) across the threads; every gradient element still
-// receives its terms in row order, and the loss and bias terms are summed in row order, so the
-// value and gradient are the same bit for bit whatever the number of threads (the serial
-// single-pass order: rows ascending, a row's entries in stored order).
+// The rows are visited in chunks (4096 rows; 16384 on several threads, so the threads meet at a
+// barrier less often: a descheduled thread stalls the others at each one). Per chunk, phase 1 computes each
+// row's values (CountRows: (1 + ln count) / norm), scores, softmax and loss term, and keeps the residual p -
+// onehot per row; phase 2 adds value x residual into the gradient rows of the columns. With `threads` > 1,
+// phase 1 splits the chunk's rows and phase 2 the feature columns (ranges holding about equal numbers of
+// entries) across the threads; every gradient element still receives its terms in row order, and the loss and
+// bias terms are summed in row order, so the value and gradient are the same bit for bit whatever the number
+// of threads (the serial single-pass order: rows ascending, a row's entries in stored order).
 template <class Rows>
 struct Objective {
-  static constexpr std::size_t kChunkRows = 4096;
   const Rows& x;
   std::span<const std::int32_t> y;
   std::size_t features, classes;
   double inv_c;
   int threads;
-  std::vector<double> residual;      // kChunkRows x classes: p - onehot of the chunk's rows
-  std::vector<double> row_loss;      // kChunkRows: log(sum exp z) - z[label] of each row (shifted)
+  std::size_t chunk_rows;
+  std::vector<double> residual;      // chunk_rows x classes: p - onehot of the chunk's rows
+  std::vector<double> row_loss;      // chunk_rows: log(sum exp z) - z[label] of each row (shifted)
   std::vector<double> values;        // CountRows: the chunk's entry values
   std::vector<double> tf;            // 1 + ln(c) by count (CountRows)
   std::vector<std::int32_t> bounds;  // threads + 1 column bounds of phase 2
@@ -113,14 +113,15 @@ struct Objective {
   Objective(const Rows& rows, std::span<const std::int32_t> labels, std::size_t f, std::size_t k, double inv,
             int thread_count)
       : x(rows), y(labels), features(f), classes(k), inv_c(inv), threads(std::max(1, thread_count)) {
-    residual.resize(kChunkRows * k);
-    row_loss.resize(kChunkRows);
+    chunk_rows = threads > 1 ? 16384 : 4096;
+    residual.resize(chunk_rows * k);
+    row_loss.resize(chunk_rows);
     if constexpr (std::is_same_v<Rows, CountRows>) {
       tf.resize(256);
       for (std::size_t c = 1; c < tf.size(); ++c) tf[c] = 1.0 + std::log(static_cast<double>(c));
       std::size_t most = 0;
-      for (std::size_t r0 = 0; r0 < x.rows(); r0 += kChunkRows) {
-        const std::size_t r1 = std::min(x.rows(), r0 + kChunkRows);
+      for (std::size_t r0 = 0; r0 < x.rows(); r0 += chunk_rows) {
+        const std::size_t r1 = std::min(x.rows(), r0 + chunk_rows);
         most = std::max(most, x.row_start[r1] - x.row_start[r0]);
       }
       values.resize(most);
@@ -226,8 +227,8 @@ struct Objective {
     double loss = 0;
     const auto work = [&](int t, std::barrier<>* sync) {
       const auto tt = static_cast<std::size_t>(t), nt = static_cast<std::size_t>(threads);
-      for (std::size_t r0 = 0; r0 < rows; r0 += kChunkRows) {
-        const std::size_t r1 = std::min(rows, r0 + kChunkRows);
+      for (std::size_t r0 = 0; r0 < rows; r0 += chunk_rows) {
+        const std::size_t r1 = std::min(rows, r0 + chunk_rows);
         const std::size_t n = r1 - r0;
         score_rows(r0, r0 + n * tt / nt, r0 + n * (tt + 1) / nt, w, b);
         if (sync != nullptr) sync->arrive_and_wait();
@@ -372,7 +373,7 @@ void check_problem(const Rows& x, std::span<const std::int32_t> labels, int clas
 
 template <class Rows>
 LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes, int features,
-                const LbfgsOptions& options) {
+                const LbfgsOptions& options, const LinearModel* start) {
   check_problem(x, labels, classes, features, options);
   const auto k = static_cast<std::size_t>(classes);
   const auto f = static_cast<std::size_t>(features);
@@ -382,6 +383,13 @@ LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes
   Objective<Rows> objective(x, labels, f, k, 1.0 / c, options.threads);
 
   std::vector<double> theta(n, 0.0), grad(n), direction(n), next(n), next_grad(n);
+  if (start != nullptr) {
+    GYRE_CHECK(start->features == features && start->classes == classes && start->weights.size() == f * k &&
+                   start->bias.size() == k,
+               "logistic regression: the starting model has another shape");
+    std::copy(start->weights.begin(), start->weights.end(), theta.begin());
+    std::copy(start->bias.begin(), start->bias.end(), theta.begin() + static_cast<std::ptrdiff_t>(f * k));
+  }
   double value = objective(theta, grad);
   LbfgsHistory history(static_cast<std::size_t>(std::max(1, options.history)));
 
@@ -429,15 +437,15 @@ LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes
 }  // namespace
 
 LinearModel fit_logistic_regression(const SparseRows& x, std::span<const std::int32_t> labels, int classes,
-                                    int features, const LbfgsOptions& options) {
-  return fit(x, labels, classes, features, options);
+                                    int features, const LbfgsOptions& options, const LinearModel* start) {
+  return fit(x, labels, classes, features, options, start);
 }
 
 LinearModel fit_logistic_regression(const CountRows& x, std::span<const std::int32_t> labels, int classes,
-                                    int features, const LbfgsOptions& options) {
+                                    int features, const LbfgsOptions& options, const LinearModel* start) {
   GYRE_CHECK(x.counts.size() == x.columns.size() && x.norms.size() == x.rows(),
              "count rows: columns, counts and norms differ in length");
-  return fit(x, labels, classes, features, options);
+  return fit(x, labels, classes, features, options, start);
 }
 
 // ---------------------------------------------------------------- n-gram classifier
@@ -617,7 +625,10 @@ void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
     std::vector<std::int32_t>().swap(entry_counts_);
     built_ = true;
   }
-  model_ = fit_logistic_regression(rows_, labels_, classes, static_cast<int>(index_.size()), options);
+  const bool warm =
+      options.warm_start && model_.classes == classes && model_.features == static_cast<int>(index_.size());
+  model_ = fit_logistic_regression(rows_, labels_, classes, static_cast<int>(index_.size()), options,
+                                   warm ? &model_ : nullptr);
   c_ = options.c;
 }
 
@@ -748,8 +759,10 @@ void WindowTagger::fit(const LbfgsOptions& options) {
     std::sort(cols.begin(), cols.end());
     x.add_row(cols, std::span<const double>(ones.data(), cols.size()));
   }
+  const bool warm = options.warm_start && model_.classes == static_cast<int>(tag_names_.size()) &&
+                    model_.features == static_cast<int>(index_.size());
   model_ = fit_logistic_regression(x, labels, static_cast<int>(tag_names_.size()),
-                                   static_cast<int>(index_.size()), options);
+                                   static_cast<int>(index_.size()), options, warm ? &model_ : nullptr);
 }
 
 void WindowTagger::use_model(LinearModel model) {

@@ -91,6 +91,7 @@ struct LinearBaseline::Impl {
     eval::LbfgsOptions options;
     options.c = penalty;
     options.threads = threads;
+    options.warm_start = true;  // the grid's C values ascend: each fit starts at the previous one
     if (task == data::Task::kClassify)
       classifier.fit(static_cast<int>(vocab.labels.size()), options);
     else

@@ -110,8 +110,9 @@ TEST_CASE("the fit is deterministic and refuses bad input", "[baseline]") {
 }
 
 TEST_CASE("the fit is the same bit for bit on any number of threads", "[baseline]") {
-  // Several 4096-row chunks of the objective, uneven rows and column frequencies, so the row split
-  // of the scores and the column split of the gradient both cut somewhere non-trivial.
+  // Several chunks of the objective (4096 rows on one thread, 16384 on more), uneven rows and
+  // column frequencies, so the row split of the scores and the column split of the gradient both
+  // cut somewhere non-trivial.
   std::mt19937 gen(11);
   const int features = 700, classes = 5;
   SparseRows sparse;
@@ -120,7 +121,7 @@ TEST_CASE("the fit is the same bit for bit on any number of threads", "[baseline
   std::vector<std::pair<std::int32_t, std::int32_t>> row;
   std::vector<std::int32_t> cols;
   std::vector<double> vals;
-  for (int r = 0; r < 9000; ++r) {
+  for (int r = 0; r < 40000; ++r) {
     std::set<std::int32_t> picked;
     const int size = 1 + static_cast<int>(gen() % 12);
     for (int e = 0; e < size; ++e) {
@@ -155,6 +156,31 @@ TEST_CASE("the fit is the same bit for bit on any number of threads", "[baseline
     CHECK(many_counts.weights == one_counts.weights);
     CHECK(many_counts.bias == one_counts.bias);
   }
+}
+
+TEST_CASE("a warm start from another C reaches the same optimum in fewer iterations", "[baseline]") {
+  const auto fixture = load_fixture();
+  const auto& c = fixture["cases"]["weak_penalty"];
+  const auto x = rows_of(c);
+  const auto labels = c["labels"].get<std::vector<std::int32_t>>();
+  const int classes = c["classes"].get<int>();
+  const int features = c["features"].get<int>();
+  LbfgsOptions options;
+  options.gradient_tolerance = 1e-9;
+  options.c = c["c"].get<double>() / 10;
+  const auto stronger = gyre::eval::fit_logistic_regression(x, labels, classes, features, options);
+  options.c = c["c"].get<double>();
+  const auto cold = gyre::eval::fit_logistic_regression(x, labels, classes, features, options);
+  const auto warm = gyre::eval::fit_logistic_regression(x, labels, classes, features, options, &stronger);
+  CHECK(warm.converged);
+  CHECK(warm.iterations < cold.iterations);
+  // The objective is strictly convex: one optimum, sklearn's (ref: tests/fixtures/baseline/logreg.json).
+  CHECK_THAT(warm.objective, WithinAbs(cold.objective, 1e-6 * std::abs(cold.objective)));
+  CHECK(warm.objective <= c["objective"].get<double>() + 1e-6 * std::abs(c["objective"].get<double>()));
+  gyre::eval::LinearModel other = stronger;
+  other.classes += 1;
+  CHECK_THROWS_AS(gyre::eval::fit_logistic_regression(x, labels, classes, features, options, &other),
+                  gyre::Error);
 }
 
 TEST_CASE("a search over C puts back an earlier fit instead of fitting it again", "[baseline]") {
