@@ -1,5 +1,6 @@
 #include "gyre/nn/gru_layer.hpp"
 
+#include <cstring>
 #include <string>
 
 #include "detail/buffer.hpp"
@@ -11,6 +12,14 @@
 #include "gyre/nn/init.hpp"
 
 namespace gyre::nn {
+
+namespace {
+// Row copies by memcpy (the C library's vectorised copy) rather than Eigen's assignment, which
+// these files compile for baseline x86-64 (16-byte moves); the same bytes (issue 13).
+void copy_floats(float* dst, const float* src, Eigen::Index count) {
+  std::memcpy(dst, src, static_cast<std::size_t>(count) * sizeof(float));
+}
+}  // namespace
 
 // Caches in packed rows (see lstm_layer.cpp and detail/sequence_layout.hpp).
 struct GruLayer::Workspace {
@@ -99,7 +108,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   MatrixMap hi = w.h0.view(B, H);
   MatrixMap step = w.step.view(B, 3 * H);
 
-  for (Eigen::Index p = 0; p < N; ++p) xs.row(p) = x.row(lay.source(p));
+  for (Eigen::Index p = 0; p < N; ++p) copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
   for (int j = 0; j < B; ++j) {
     if (h0 != nullptr)
       hi.row(j) = h0->row(lay.sequence(j));
@@ -128,9 +137,9 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;
     if (s == 0)
-      h_prev.middleRows(o, n) = hi.topRows(n);
+      copy_floats(h_prev.row(o).data(), hi.data(), n * H);
     else
-      h_prev.middleRows(o, n) = hs.middleRows(lay.offset(s - 1), n);
+      copy_floats(h_prev.row(o).data(), hs.row(lay.offset(s - 1)).data(), n * H);
     if (fused) {
       detail::fast::gru_step(n, H, h_prev.row(o).data(), H, u_step, bias_hidden_.value.data(),
                              gates.row(o).data(), hn.row(o).data(), hs.row(o).data());
@@ -150,7 +159,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   }
 
   lay.zero_padding(out);
-  for (Eigen::Index p = 0; p < N; ++p) out.row(lay.source(p)) = hs.row(p);
+  for (Eigen::Index p = 0; p < N; ++p) copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
   if (h_final != nullptr) {
     if (h_final->rows() != B || h_final->cols() != H) h_final->resize(B, H);
     for (int j = 0; j < B; ++j) {

@@ -1,5 +1,6 @@
 #include "gyre/nn/lstm_layer.hpp"
 
+#include <cstring>
 #include <string>
 
 #include "detail/buffer.hpp"
@@ -11,6 +12,14 @@
 #include "gyre/nn/init.hpp"
 
 namespace gyre::nn {
+
+namespace {
+// Row copies by memcpy (the C library's vectorised copy) rather than Eigen's assignment, which
+// these files compile for baseline x86-64 (16-byte moves); the same bytes (issue 13).
+void copy_floats(float* dst, const float* src, Eigen::Index count) {
+  std::memcpy(dst, src, static_cast<std::size_t>(count) * sizeof(float));
+}
+}  // namespace
 
 // Caches for backward, all in packed rows (detail/sequence_layout.hpp): N = sum of lengths, the
 // rows of processing step s are the block [offset(s), offset(s) + count(s)).
@@ -128,7 +137,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   MatrixMap h_prev = w.h_prev.view(N, H);
   MatrixMap hi = w.h0.view(B, H), ci = w.c0.view(B, H);
 
-  for (Eigen::Index p = 0; p < N; ++p) xs.row(p) = x.row(lay.source(p));
+  for (Eigen::Index p = 0; p < N; ++p) copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
   for (int j = 0; j < B; ++j) {
     const int b = lay.sequence(j);
     if (h0 != nullptr)
@@ -167,9 +176,9 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
     // reads it as one [N x H] operand.
     const float* c_before = s == 0 ? ci.data() : cs.row(lay.offset(s - 1)).data();
     if (s == 0)
-      h_prev.middleRows(o, n) = hi.topRows(n);
+      copy_floats(h_prev.row(o).data(), hi.data(), n * H);
     else
-      h_prev.middleRows(o, n) = hs.middleRows(lay.offset(s - 1), n);
+      copy_floats(h_prev.row(o).data(), hs.row(lay.offset(s - 1)).data(), n * H);
     if (fused) {
       detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_before, H, u_step, gates.row(o).data(),
                               cs.row(o).data(), tanh_c.row(o).data(), hs.row(o).data());
@@ -190,7 +199,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   }
 
   lay.zero_padding(out);
-  for (Eigen::Index p = 0; p < N; ++p) out.row(lay.source(p)) = hs.row(p);
+  for (Eigen::Index p = 0; p < N; ++p) copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
   final_state(lay, hi, hs, h_final);
   final_state(lay, ci, cs, c_final);
 }
