@@ -11,6 +11,7 @@
 #include "gyre/nn/gru_layer.hpp"
 #include "gyre/nn/lstm_layer.hpp"
 #include "gyre/nn/rnn_stack.hpp"
+#include "nn/detail/fast_kernels.hpp"
 #include "nn_test_util.hpp"
 
 using namespace gyre;
@@ -117,4 +118,32 @@ TEST_CASE("a layer refuses the packs of a layer of another kind or shape", "[nn]
   CHECK_THROWS_AS(gru.read_packs_from(&lstm), Error);
   CHECK_NOTHROW(lstm.read_packs_from(&lstm));
   CHECK_NOTHROW(lstm.read_packs_from(nullptr));
+}
+
+TEST_CASE("packing an operand stored transposed gives the panel layout by definition", "[nn][gemm]") {
+  // fast_kernels.hpp, "packed B": panel p holds columns [32p, 32p + 32) of op(B) = B as k rows of
+  // 32 floats, columns past n zero. Shapes with whole and partial panels, k below, at and past a
+  // multiple of 16, and a row stride wider than k.
+  namespace fast = gyre::nn::detail::fast;
+  struct Shape {
+    std::ptrdiff_t k, n, ldb;
+  };
+  for (const Shape sh :
+       {Shape{128, 1024, 128}, Shape{37, 70, 40}, Shape{16, 32, 16}, Shape{9, 96, 9}, Shape{50, 33, 64}}) {
+    INFO("k " << sh.k << " n " << sh.n << " ldb " << sh.ldb);
+    Rng rng(5);
+    const Matrix stored = random_matrix(sh.n, sh.ldb, rng);  // B^T [n x k] in the first k columns
+    std::vector<float> out(fast::packed_size(sh.k, sh.n), -1.0f);
+    fast::pack_b(stored.data(), sh.ldb, true, sh.k, sh.n, out.data());
+    std::size_t wrong = 0;
+    for (std::ptrdiff_t p = 0; p * fast::kGemmNr < sh.n; ++p)
+      for (std::ptrdiff_t kk = 0; kk < sh.k; ++kk)
+        for (std::ptrdiff_t j = 0; j < fast::kGemmNr; ++j) {
+          const std::ptrdiff_t col = p * fast::kGemmNr + j;
+          const float want = col < sh.n ? stored(col, kk) : 0.0f;
+          const float got = out[static_cast<std::size_t>((p * sh.k + kk) * fast::kGemmNr + j)];
+          if (std::memcmp(&want, &got, sizeof want) != 0) ++wrong;
+        }
+    CHECK(wrong == 0);
+  }
 }

@@ -421,37 +421,6 @@ GYRE_AVX512 void gru_step_avx512(std::ptrdiff_t n, std::ptrdiff_t H, const float
 }
 
 // ---- packing ----------------------------------------------------------------------------------
-GYRE_AVX512 void pack_b_avx512(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k,
-                               std::ptrdiff_t n, float* out) {
-  constexpr std::ptrdiff_t nr = kGemmNr;
-  static_assert(nr == 32, "two vectors per packed row");
-  const __m512i lane = _mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15);
-  for (std::ptrdiff_t p0 = 0; p0 < n; p0 += nr) {
-    const std::ptrdiff_t w = std::min(nr, n - p0);
-    const __mmask16 m0 = cols_mask(w), m1 = cols_mask(w - 16);
-    float* dst = out + p0 * k;
-    if (!trans) {
-      const float* src = b + p0;
-      for (std::ptrdiff_t kk = 0; kk < k; ++kk, src += ldb) {
-        _mm512_storeu_ps(dst + kk * nr, _mm512_maskz_loadu_ps(m0, src));
-        _mm512_storeu_ps(dst + kk * nr + 16, _mm512_maskz_loadu_ps(m1, src + 16));
-      }
-    } else {
-      // B^T stored [n x k]: packed row kk gathers element kk of storage rows p0 .. p0 + 31.
-      // ldb * 31 fits an int32 index for every layer size gyre allows (checked by the caller's
-      // shapes: ldb is a layer width).
-      const __m512i idx0 = _mm512_mullo_epi32(lane, _mm512_set1_epi32(static_cast<int>(ldb)));
-      const __m512i idx1 = _mm512_add_epi32(idx0, _mm512_set1_epi32(static_cast<int>(16 * ldb)));
-      const float* src = b + p0 * ldb;
-      for (std::ptrdiff_t kk = 0; kk < k; ++kk) {
-        _mm512_storeu_ps(dst + kk * nr, _mm512_mask_i32gather_ps(_mm512_setzero_ps(), m0, idx0, src + kk, 4));
-        _mm512_storeu_ps(dst + kk * nr + 16,
-                         _mm512_mask_i32gather_ps(_mm512_setzero_ps(), m1, idx1, src + kk, 4));
-      }
-    }
-  }
-}
-
 // In-register transpose of a 16 x 16 block: for bit d = 8, 4, 2, 1, rows i and i + d (bit d of i
 // clear) exchange the d-wide column blocks that sit across the diagonal, so element (r, c) has
 // bit d of r and of c swapped; after the four stages it sits at (c, r). idx: the permutations of
@@ -506,6 +475,55 @@ GYRE_AVX512 void pack_gates_avx512(const float* u, int gates, std::ptrdiff_t hid
         transpose16(r, t);
 #pragma GCC unroll 16
         for (int kk = 0; kk < 16; ++kk) _mm512_storeu_ps(dst + (k0 + kk) * nr + g * kCellUnits, r[kk]);
+      }
+    }
+  }
+}
+
+GYRE_AVX512 void pack_b_avx512(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k,
+                               std::ptrdiff_t n, float* out) {
+  constexpr std::ptrdiff_t nr = kGemmNr;
+  static_assert(nr == 32, "two vectors per packed row");
+  const __m512i lane = _mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15);
+  const Transpose16Indices t = transpose16_indices();
+  for (std::ptrdiff_t p0 = 0; p0 < n; p0 += nr) {
+    const std::ptrdiff_t w = std::min(nr, n - p0);
+    const __mmask16 m0 = cols_mask(w), m1 = cols_mask(w - 16);
+    float* dst = out + p0 * k;
+    if (!trans) {
+      const float* src = b + p0;
+      for (std::ptrdiff_t kk = 0; kk < k; ++kk, src += ldb) {
+        _mm512_storeu_ps(dst + kk * nr, _mm512_maskz_loadu_ps(m0, src));
+        _mm512_storeu_ps(dst + kk * nr + 16, _mm512_maskz_loadu_ps(m1, src + 16));
+      }
+    } else {
+      // B^T stored [n x k]: packed row kk gathers element kk of storage rows p0 .. p0 + 31.
+      // ldb * 31 fits an int32 index for every layer size gyre allows (checked by the caller's
+      // shapes: ldb is a layer width).
+      const __m512i idx0 = _mm512_mullo_epi32(lane, _mm512_set1_epi32(static_cast<int>(ldb)));
+      const __m512i idx1 = _mm512_add_epi32(idx0, _mm512_set1_epi32(static_cast<int>(16 * ldb)));
+      const float* src = b + p0 * ldb;
+      std::ptrdiff_t kk = 0;
+      if (w == nr) {
+        // A whole panel: 16 x 16 blocks transposed in registers (storage rows p0 .. p0 + 15, then
+        // p0 + 16 .. p0 + 31), 16 k at a time; the gathers below take the k left over (and
+        // partial panels). The same bytes either way.
+        for (; kk + 16 <= k; kk += 16) {
+#pragma GCC unroll 2
+          for (int half = 0; half < 2; ++half) {
+            __m512 r[16];
+#pragma GCC unroll 16
+            for (int j = 0; j < 16; ++j) r[j] = _mm512_loadu_ps(src + (half * 16 + j) * ldb + kk);
+            transpose16(r, t);
+#pragma GCC unroll 16
+            for (int q = 0; q < 16; ++q) _mm512_storeu_ps(dst + (kk + q) * nr + half * 16, r[q]);
+          }
+        }
+      }
+      for (; kk < k; ++kk) {
+        _mm512_storeu_ps(dst + kk * nr, _mm512_mask_i32gather_ps(_mm512_setzero_ps(), m0, idx0, src + kk, 4));
+        _mm512_storeu_ps(dst + kk * nr + 16,
+                         _mm512_mask_i32gather_ps(_mm512_setzero_ps(), m1, idx1, src + kk, 4));
       }
     }
   }
