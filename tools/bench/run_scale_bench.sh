@@ -5,7 +5,12 @@
 # Targets: tokens/s flat within 10% across sizes; RSS growing only with the encoded corpus.
 #
 #   tools/bench/run_scale_bench.sh BUILD_DIR [--sizes "10000 100000 1000000"] [--threads 1]
-#                                            [--hidden 256] [--steps N] [--keep DIR]
+#                                            [--hidden 256] [--steps N] [--no-baseline] [--keep DIR]
+#
+# --no-baseline measures the training alone (gyre train --no-baseline --ngram-part off): no linear
+# baseline and no n-gram part are fitted after training, so the process peak is reading, encoding
+# and training. The baseline's own cost grows with the distinct n-grams of the corpus, not with its
+# encoded ids (tools/bench/README.md, "Training cost as the corpus grows").
 #
 # The 1M-example corpus is ~36M tokens (~250 MB of text); one epoch of it takes about half an hour.
 # --steps N ends the epoch after N optimizer steps (gyre train --epoch-step-limit): tokens/s over
@@ -13,7 +18,7 @@
 # whole corpus, the linear baseline fitted on all of it and the end-of-run steps.
 set -euo pipefail
 
-usage() { sed -n '2,13p' "$0" | sed 's/^# \{0,1\}//'; exit 2; }
+usage() { sed -n '2,18p' "$0" | sed 's/^# \{0,1\}//'; exit 2; }
 [[ $# -ge 1 ]] || usage
 build_dir=$1; shift
 sizes="10000 100000 1000000"
@@ -21,6 +26,7 @@ threads=1
 hidden=256
 steps=0
 keep=
+no_baseline=()
 while [[ $# -gt 0 ]]; do
   case $1 in
     --sizes) sizes=$2; shift 2 ;;
@@ -28,6 +34,7 @@ while [[ $# -gt 0 ]]; do
     --hidden) hidden=$2; shift 2 ;;
     --steps) steps=$2; shift 2 ;;
     --keep) keep=$2; shift 2 ;;
+    --no-baseline) no_baseline=(--no-baseline --ngram-part off); shift ;;
     *) usage ;;
   esac
 done
@@ -51,7 +58,7 @@ for n in $sizes; do
     "$gyre" train --train "$corpus/train.tsv" --dev "$corpus/dev.tsv" --cell lstm --embedding-size 128 \
       --hidden-size "$hidden" --layers 1 --unidirectional --pooling mean --optimizer adam --learning-rate 0.002 \
       --batch-size 32 --epochs 1 --dropout 0 --embedding-dropout 0 --clip-norm 0 --patience 0 --seed 1 --quiet \
-      --threads "$threads" --epoch-step-limit "$steps" --out "$run" >/dev/null
+      --threads "$threads" --epoch-step-limit "$steps" "${no_baseline[@]}" --out "$run" >/dev/null
   $py - "$n" "$run/metrics.json" "$work/time-$n.json" "$corpus/train.tsv" "$steps" >> "$out" <<'PYEOF'
 import json, os, sys
 n, metrics, timing, train, steps = sys.argv[1:6]
@@ -71,7 +78,7 @@ PYEOF
   tail -1 "$out"
 done
 echo "== load average after: $(cut -d' ' -f1-3 /proc/loadavg)"
-$py - "$out" <<'PYEOF'
+$py - "$out" "$([[ ${#no_baseline[@]} -gt 0 ]] && echo 1 || echo 0)" <<'PYEOF'
 import json, sys
 rows = [json.loads(l) for l in open(sys.argv[1])]
 base = rows[0]
@@ -90,7 +97,8 @@ print(f"target tokens/s flat within 10%: {'met' if flat else 'MISSED'}")
 if rows[0]["steps"]:
     print(f"tok/s over the first {rows[0]['steps']} optimizer steps of each run (--steps); tokens: the whole corpus")
 print("train RSS: peak RSS when training ends (metrics.json peak_rss_bytes); proc RSS: the whole process "
-      "(/usr/bin/time), which also covers the linear baseline fitted after training.")
+      "(/usr/bin/time), which also covers the linear baseline fitted after training" +
+      (" (not fitted in this run: --no-baseline)." if sys.argv[2] == "1" else "."))
 print("growth/enc: extra peak RSS over the smallest run per extra byte of the minimal encoded corpus (int32 ids "
       "+ label); about 1 = memory follows the encoded corpus; much more = something else grows with the corpus "
       "(raw text kept, per-example containers).")
