@@ -1274,6 +1274,13 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
     // The training split is read again from its file, one example at a time: the run holds only
     // its encoded examples, and the baseline only its interned n-gram rows.
     const ExampleStream train_split = read_run_split(config_, false, data_.tag_scheme);
+    // The fit can take a while on a large corpus (its cost follows the distinct n-grams, not the
+    // epochs): say what runs now, and its cost when it is done.
+    progress_.note(
+        std::string("fitting the ") +
+        (want_part ? "n-gram part (the linear baseline's model)" : "linear baseline") + " on " +
+        std::to_string(train_examples) + " training examples (L2 logistic regression, C chosen on dev" +
+        (want_part ? "; --ngram-part off --no-baseline skip it" : "; --no-baseline skips it") + ")");
     fitted = LinearBaseline::fit(
         data_.vocab, data_.task,
         [&](const ExampleVisitor& visit) {
@@ -1291,6 +1298,12 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
         config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0, ngram_order_for(config_),
         config_.threads);
     const LinearBaseline& baseline = *fitted;
+    char c_text[32];
+    std::snprintf(c_text, sizeof c_text, "%g", baseline.c());
+    progress_.note("linear fit: " + std::to_string(baseline.feature_count()) + " features, C " + c_text +
+                   " chosen on dev, " +
+                   fmt(std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count(), 1) +
+                   " s");
     if (options_.fit_baseline)
       result.final_metrics["baseline"] = {
           {"name", baseline.description()},
