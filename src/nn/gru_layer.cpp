@@ -1,6 +1,5 @@
 #include "gyre/nn/gru_layer.hpp"
 
-#include <cstring>
 #include <string>
 
 #include "detail/buffer.hpp"
@@ -12,14 +11,6 @@
 #include "gyre/nn/init.hpp"
 
 namespace gyre::nn {
-
-namespace {
-// Row copies by memcpy (the C library's vectorised copy) rather than Eigen's assignment, which
-// these files compile for baseline x86-64 (16-byte moves); the same bytes (issue 13).
-void copy_floats(float* dst, const float* src, Eigen::Index count) {
-  std::memcpy(dst, src, static_cast<std::size_t>(count) * sizeof(float));
-}
-}  // namespace
 
 // Caches in packed rows (see lstm_layer.cpp and detail/sequence_layout.hpp).
 struct GruLayer::Workspace {
@@ -36,8 +27,7 @@ struct GruLayer::Workspace {
   detail::GrowBuffer dgi;     // [N x 3H]: d loss / d input-side pre-activations
   detail::GrowBuffer dgh;     // [N x 3H]: d loss / d hidden-side pre-activations (U h + b_h)
   detail::GrowBuffer dx;      // [N x D]
-  detail::WeightPacks packs;  // U and W packed for the AVX-512 path (see lstm_layer.cpp)
-  const detail::WeightPacks* shared = nullptr;
+  detail::LayerPacks packs;   // U and W packed for the AVX-512 path (see lstm_layer.cpp)
 };
 
 GruLayer::GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -68,23 +58,20 @@ std::size_t GruLayer::workspace_capacity() const noexcept {
 }
 
 void GruLayer::reserve_packs() {
-  if (detail::fast::available()) ws_->packs.reserve(3, hidden_size_, input_size_);
+  ws_->packs.reserve(3, hidden_size_, input_size_);
 }
 
 void GruLayer::pack_weights(int part, int parts) {
-  if (detail::fast::available())
-    ws_->packs.pack(w_hidden_.value.data(), w_input_.value.data(), 3, hidden_size_, input_size_, part, parts);
+  ws_->packs.pack(w_hidden_.value.data(), w_input_.value.data(), 3, hidden_size_, input_size_, part, parts);
 }
 
 void GruLayer::read_packs_from(const RecurrentLayer* source) {
-  if (source == nullptr) {
-    ws_->shared = nullptr;
-    return;
-  }
-  const auto* other = dynamic_cast<const GruLayer*>(source);
-  GYRE_CHECK(other != nullptr && other->input_size_ == input_size_ && other->hidden_size_ == hidden_size_,
-             "GruLayer::read_packs_from: the source is not a GRU layer of the same shape");
-  ws_->shared = &other->ws_->packs;
+  ws_->packs.shared =
+      source == nullptr
+          ? nullptr
+          : &detail::same_layer(*source, *this,
+                                "GruLayer::read_packs_from: the source is not a GRU layer of the same shape")
+                 .ws_->packs.own;
 }
 
 void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
@@ -108,7 +95,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   MatrixMap hi = w.h0.view(B, H);
   MatrixMap step = w.step.view(B, 3 * H);
 
-  for (Eigen::Index p = 0; p < N; ++p) copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
+  for (Eigen::Index p = 0; p < N; ++p) detail::copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
   for (int j = 0; j < B; ++j) {
     if (h0 != nullptr)
       hi.row(j) = h0->row(lay.sequence(j));
@@ -116,7 +103,7 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
       hi.row(j).setZero();
   }
   // Packs made for this step by pack_weights (AVX-512 path only), or null: pack here.
-  const detail::WeightPacks* shared = detail::fast::available() ? w.shared : nullptr;
+  const detail::WeightPacks* shared = w.packs.made();
   if (shared != nullptr)
     detail::fast::gemm_packed(N, 3 * H, D, xs.data(), xs.outerStride(), false, shared->in_fwd.data(),
                               gates.data(), gates.outerStride(), false, nullptr, bias_.value.data());
@@ -125,22 +112,15 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
 
   const Matrix& U = w_hidden_.value;
   const auto bh = bias_hidden_.value.row(0);
-  const bool fused = detail::fast::available() && detail::WeightPacks::fused(H);
-  const float* u_step = nullptr;
-  if (fused && shared != nullptr) {
-    u_step = shared->step.data();
-  } else if (fused) {
-    u_step = w.packs.step.reserve(detail::fast::packed_size(H, 3 * H, 3 * detail::fast::kCellUnits));
-    detail::fast::pack_gates(U.data(), 3, H, w.packs.step.data());
-  }
+  const float* u_step = w.packs.step(U.data(), 3, H);  // null: no fused step
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;
     if (s == 0)
-      copy_floats(h_prev.row(o).data(), hi.data(), n * H);
+      detail::copy_floats(h_prev.row(o).data(), hi.data(), n * H);
     else
-      copy_floats(h_prev.row(o).data(), hs.row(lay.offset(s - 1)).data(), n * H);
-    if (fused) {
+      detail::copy_floats(h_prev.row(o).data(), hs.row(lay.offset(s - 1)).data(), n * H);
+    if (u_step != nullptr) {
       detail::fast::gru_step(n, H, h_prev.row(o).data(), H, u_step, bias_hidden_.value.data(),
                              gates.row(o).data(), hn.row(o).data(), hs.row(o).data());
       continue;
@@ -159,7 +139,8 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   }
 
   lay.zero_padding(out);
-  for (Eigen::Index p = 0; p < N; ++p) copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
+  for (Eigen::Index p = 0; p < N; ++p)
+    detail::copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
   if (h_final != nullptr) {
     if (h_final->rows() != B || h_final->cols() != H) h_final->resize(B, H);
     for (int j = 0; j < B; ++j) {
@@ -190,14 +171,8 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
   dh.setZero();
   const Matrix& U = w_hidden_.value;
   const bool fast = detail::fast::available();
-  const detail::WeightPacks* shared = fast ? w.shared : nullptr;
-  const float* u_back = nullptr;
-  if (shared != nullptr) {
-    u_back = shared->back.data();
-  } else if (fast) {
-    u_back = w.packs.back.reserve(detail::fast::packed_size(3 * H, H));
-    detail::fast::pack_b(U.data(), H, false, 3 * H, H, w.packs.back.data());
-  }
+  const detail::WeightPacks* shared = w.packs.made();
+  const float* u_back = w.packs.back(U.data(), 3, H);
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;

@@ -1,6 +1,5 @@
 #include "gyre/nn/lstm_layer.hpp"
 
-#include <cstring>
 #include <string>
 
 #include "detail/buffer.hpp"
@@ -12,14 +11,6 @@
 #include "gyre/nn/init.hpp"
 
 namespace gyre::nn {
-
-namespace {
-// Row copies by memcpy (the C library's vectorised copy) rather than Eigen's assignment, which
-// these files compile for baseline x86-64 (16-byte moves); the same bytes (issue 13).
-void copy_floats(float* dst, const float* src, Eigen::Index count) {
-  std::memcpy(dst, src, static_cast<std::size_t>(count) * sizeof(float));
-}
-}  // namespace
 
 // Caches for backward, all in packed rows (detail/sequence_layout.hpp): N = sum of lengths, the
 // rows of processing step s are the block [offset(s), offset(s) + count(s)).
@@ -40,10 +31,9 @@ struct LstmLayer::Workspace {
   detail::GrowBuffer dx;      // [N x D]: packed input gradient
   // AVX-512 path: U packed once per forward (gate-interleaved for the fused step) and once per
   // backward (panels of U for dG U), reused by every time step; W packed by the GEMM objects.
-  // pack_weights() fills all four packs here instead, and `shared` (when set) points at the packs
+  // pack_weights() fills all four packs here instead, and `packs.shared` (when set) points at the packs
   // forward and backward read: this layer's or another replica's (read_packs_from).
-  detail::WeightPacks packs;
-  const detail::WeightPacks* shared = nullptr;
+  detail::LayerPacks packs;
 };
 
 LstmLayer::LstmLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -75,23 +65,21 @@ std::size_t LstmLayer::workspace_capacity() const noexcept {
 }
 
 void LstmLayer::reserve_packs() {
-  if (detail::fast::available()) ws_->packs.reserve(4, hidden_size_, input_size_);
+  ws_->packs.reserve(4, hidden_size_, input_size_);
 }
 
 void LstmLayer::pack_weights(int part, int parts) {
-  if (detail::fast::available())
-    ws_->packs.pack(w_hidden_.value.data(), w_input_.value.data(), 4, hidden_size_, input_size_, part, parts);
+  ws_->packs.pack(w_hidden_.value.data(), w_input_.value.data(), 4, hidden_size_, input_size_, part, parts);
 }
 
 void LstmLayer::read_packs_from(const RecurrentLayer* source) {
-  if (source == nullptr) {
-    ws_->shared = nullptr;
-    return;
-  }
-  const auto* other = dynamic_cast<const LstmLayer*>(source);
-  GYRE_CHECK(other != nullptr && other->input_size_ == input_size_ && other->hidden_size_ == hidden_size_,
-             "LstmLayer::read_packs_from: the source is not an LSTM layer of the same shape");
-  ws_->shared = &other->ws_->packs;
+  ws_->packs.shared =
+      source == nullptr
+          ? nullptr
+          : &detail::same_layer(
+                 *source, *this,
+                 "LstmLayer::read_packs_from: the source is not an LSTM layer of the same shape")
+                 .ws_->packs.own;
 }
 
 namespace {
@@ -137,7 +125,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   MatrixMap h_prev = w.h_prev.view(N, H);
   MatrixMap hi = w.h0.view(B, H), ci = w.c0.view(B, H);
 
-  for (Eigen::Index p = 0; p < N; ++p) copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
+  for (Eigen::Index p = 0; p < N; ++p) detail::copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
   for (int j = 0; j < B; ++j) {
     const int b = lay.sequence(j);
     if (h0 != nullptr)
@@ -150,7 +138,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
       ci.row(j).setZero();
   }
   // Packs made for this step by pack_weights (AVX-512 path only), or null: pack here.
-  const detail::WeightPacks* shared = detail::fast::available() ? w.shared : nullptr;
+  const detail::WeightPacks* shared = w.packs.made();
   // Input projection of all valid steps in one GEMM, bias folded in.
   if (shared != nullptr)
     detail::fast::gemm_packed(N, 4 * H, D, xs.data(), xs.outerStride(), false, shared->in_fwd.data(),
@@ -160,14 +148,7 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
 
   const Matrix& U = w_hidden_.value;
   // Fused AVX-512 step (GEMM + cell in one pass over the gates) when H allows it.
-  const bool fused = detail::fast::available() && detail::WeightPacks::fused(H);
-  const float* u_step = nullptr;
-  if (fused && shared != nullptr) {
-    u_step = shared->step.data();
-  } else if (fused) {
-    u_step = w.packs.step.reserve(detail::fast::packed_size(H, 4 * H, 4 * detail::fast::kCellUnits));
-    detail::fast::pack_gates(U.data(), 4, H, w.packs.step.data());
-  }
+  const float* u_step = w.packs.step(U.data(), 4, H);  // null: no fused step
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) break;  // sorted by length: no later step has work either
@@ -176,10 +157,10 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
     // reads it as one [N x H] operand.
     const float* c_before = s == 0 ? ci.data() : cs.row(lay.offset(s - 1)).data();
     if (s == 0)
-      copy_floats(h_prev.row(o).data(), hi.data(), n * H);
+      detail::copy_floats(h_prev.row(o).data(), hi.data(), n * H);
     else
-      copy_floats(h_prev.row(o).data(), hs.row(lay.offset(s - 1)).data(), n * H);
-    if (fused) {
+      detail::copy_floats(h_prev.row(o).data(), hs.row(lay.offset(s - 1)).data(), n * H);
+    if (u_step != nullptr) {
       detail::fast::lstm_step(n, H, h_prev.row(o).data(), c_before, H, u_step, gates.row(o).data(),
                               cs.row(o).data(), tanh_c.row(o).data(), hs.row(o).data());
       continue;
@@ -199,7 +180,8 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   }
 
   lay.zero_padding(out);
-  for (Eigen::Index p = 0; p < N; ++p) copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
+  for (Eigen::Index p = 0; p < N; ++p)
+    detail::copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
   final_state(lay, hi, hs, h_final);
   final_state(lay, ci, cs, c_final);
 }
@@ -224,14 +206,8 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   dc.setZero();
   const Matrix& U = w_hidden_.value;
   const bool fast = detail::fast::available();
-  const detail::WeightPacks* shared = fast ? w.shared : nullptr;
-  const float* u_back = nullptr;
-  if (shared != nullptr) {
-    u_back = shared->back.data();
-  } else if (fast) {
-    u_back = w.packs.back.reserve(detail::fast::packed_size(4 * H, H));
-    detail::fast::pack_b(U.data(), H, false, 4 * H, H, w.packs.back.data());
-  }
+  const detail::WeightPacks* shared = w.packs.made();
+  const float* u_back = w.packs.back(U.data(), 4, H);
   for (int s = lay.steps() - 1; s >= 0; --s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;

@@ -10,8 +10,11 @@
 // so the products give the same bits.
 
 #include <cstddef>
+#include <string>
 
 #include "fast_kernels.hpp"
+#include "gyre/core/error.hpp"
+#include "gyre/nn/recurrent_layer.hpp"
 
 namespace gyre::nn::detail {
 
@@ -51,5 +54,54 @@ struct WeightPacks {
     return step.capacity_bytes() + back.capacity_bytes() + in_fwd.capacity_bytes() + in_back.capacity_bytes();
   }
 };
+
+/// A recurrent layer's packs with G gates (LSTM 4, GRU 3): its own, and the ones its forward and
+/// backward read when set (RecurrentLayer::read_packs_from: this layer's after pack_weights, or
+/// another replica's). Without the AVX-512 kernels nothing is packed.
+struct LayerPacks {
+  WeightPacks own;
+  const WeightPacks* shared = nullptr;
+
+  /// RecurrentLayer::reserve_packs / pack_weights for weights U [G*H x H] and W [G*H x D].
+  void reserve(int gates, std::ptrdiff_t hidden, std::ptrdiff_t input) {
+    if (fast::available()) own.reserve(gates, hidden, input);
+  }
+  void pack(const float* u, const float* w, int gates, std::ptrdiff_t hidden, std::ptrdiff_t input, int part,
+            int parts) {
+    if (fast::available()) own.pack(u, w, gates, hidden, input, part, parts);
+  }
+  std::size_t capacity_bytes() const noexcept { return own.capacity_bytes(); }
+  /// The packs made for this step by pack_weights (AVX-512 path only), or null: pack per call.
+  const WeightPacks* made() const noexcept { return fast::available() ? shared : nullptr; }
+  /// U gate-interleaved for the fused time step: the made pack, or packed now into `own`; null when
+  /// the fused step does not apply (no AVX-512 kernels, or H not a multiple of kCellUnits).
+  const float* step(const float* u, int gates, std::ptrdiff_t hidden) {
+    if (!fast::available() || !WeightPacks::fused(hidden)) return nullptr;
+    if (shared != nullptr) return shared->step.data();
+    own.step.reserve(fast::packed_size(hidden, gates * hidden, gates * fast::kCellUnits));
+    fast::pack_gates(u, gates, hidden, own.step.data());
+    return own.step.data();
+  }
+  /// U as the right operand of dG U: the made pack, or packed now into `own`; null without the
+  /// AVX-512 kernels.
+  const float* back(const float* u, int gates, std::ptrdiff_t hidden) {
+    if (!fast::available()) return nullptr;
+    if (shared != nullptr) return shared->back.data();
+    own.back.reserve(fast::packed_size(gates * hidden, hidden));
+    fast::pack_b(u, hidden, false, gates * hidden, hidden, own.back.data());
+    return own.back.data();
+  }
+};
+
+/// read_packs_from's source as a layer of `self`'s kind and shape; gyre::Error with `message`
+/// otherwise.
+template <class Layer>
+const Layer& same_layer(const RecurrentLayer& source, const Layer& self, const char* message) {
+  const auto* other = dynamic_cast<const Layer*>(&source);
+  GYRE_CHECK(other != nullptr && other->input_size() == self.input_size() &&
+                 other->hidden_size() == self.hidden_size(),
+             message);
+  return *other;
+}
 
 }  // namespace gyre::nn::detail
