@@ -43,12 +43,8 @@ void Adam::update_block_checked(float* value, float* grad, float* const* slots, 
     Optimizer::update_block_checked(value, grad, slots, count, zero_grad, seen);
     return;
   }
-  const float l2 = decoupled_ ? 0.0F : weight_decay_, decay = decoupled_ ? weight_decay_ : 0.0F;
-  const unsigned bad = detail::adam_update_avx512(
-      {beta1_, beta2_, learning_rate_, epsilon_, l2, decay, inv_bias1_, inv_bias2_}, value, grad, slots[0],
-      slots[1], count, zero_grad);
-  seen.nan |= bad & 1u;
-  seen.inf |= (bad >> 1) & 1u;
+  // The AVX-512 kernel with no other replica's arrays.
+  update_block_fused(value, grad, nullptr, nullptr, nullptr, slots, count, zero_grad, seen);
 }
 
 void Adam::update_block_fused(float* value, float* grad, const float* add, float* zero_also, float* copy_to,
