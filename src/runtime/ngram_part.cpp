@@ -19,14 +19,15 @@ void check_order(int order) {
 
 // A token's bytes in a key (see the header): 0x01..0x04 become 0x04 then 'A'..'D', so the join and
 // the markers never occur inside a token's part and keys stay unambiguous.
+constexpr bool is_reserved(char ch) noexcept {
+  return ch >= '\x01' && ch <= kNgramEscape;
+}
 bool needs_escape(std::string_view token) noexcept {
-  for (const char ch : token)
-    if (ch >= '\x01' && ch <= kNgramEscape) return true;
-  return false;
+  return std::any_of(token.begin(), token.end(), is_reserved);
 }
 void append_item(std::string& key, std::string_view token) {
   for (const char ch : token) {
-    if (ch >= '\x01' && ch <= kNgramEscape) {
+    if (is_reserved(ch)) {
       key += kNgramEscape;
       key += static_cast<char>('A' + (ch - '\x01'));
     } else {

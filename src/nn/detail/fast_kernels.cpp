@@ -709,10 +709,6 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
     pack_b_plain(b, ldb, trans, k, n, out);
 }
 
-void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
-  pack_gates_panels(u, gates, hidden, out, 0, hidden / kCellUnits);
-}
-
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
                        std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
   if (available())
@@ -772,9 +768,6 @@ void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std:
 void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
   pack_b_plain(b, ldb, trans, k, n, out);
 }
-void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
-  pack_gates_plain(u, gates, hidden, out, 0, hidden / kCellUnits);
-}
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
                        std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
   pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end);
@@ -802,5 +795,9 @@ void gru_step(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, cons
 }
 
 #endif
+
+void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out) {
+  pack_gates_panels(u, gates, hidden, out, 0, hidden / kCellUnits);
+}
 
 }  // namespace gyre::nn::detail::fast
