@@ -136,9 +136,9 @@ void linear_baseline(const io::TrainedModel& trained, const LabelledData& data, 
     if (!m.is_discarded() && m.contains("baseline")) c = m["baseline"].value("c", 0.0);
   }
   const auto run = train::read_run_examples(config);
-  const auto baseline =
-      train::LinearBaseline::fit(trained.vocab, run.task, run.train, config.train, run.dev, run.dev_path, c,
-                                 train::ngram_order_for(config), config.threads);
+  const auto baseline = train::LinearBaseline::fit(trained.vocab, run.task, run.train, config.train, run.dev,
+                                                   run.dev_path, c, train::ngram_order_for(config),
+                                                   config.threads, train::linear_fit_caps_for(config));
   const json scores = baseline.score(data.examples, data_path);
   report["linear_baseline"] = {
       {"name", baseline.description()}, {"train", config.train}, {"metrics", scores}};

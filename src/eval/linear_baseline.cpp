@@ -450,7 +450,8 @@ LinearModel fit_logistic_regression(const CountRows& x, std::span<const std::int
 
 // ---------------------------------------------------------------- n-gram classifier
 
-NgramClassifier::NgramClassifier(int min_df, int order) : min_df_(min_df), order_(order) {
+NgramClassifier::NgramClassifier(int min_df, int order, std::size_t max_features)
+    : min_df_(min_df), order_(order), max_features_(max_features) {
   GYRE_CHECK(order >= 1 && order <= runtime::kMaxNgramOrder, "linear baseline: n-gram order " +
                                                                  std::to_string(order) + " is outside 1.." +
                                                                  std::to_string(runtime::kMaxNgramOrder));
@@ -595,6 +596,20 @@ void NgramClassifier::fit(int classes, const LbfgsOptions& options) {
     std::vector<std::int32_t> kept;
     for (std::size_t id = 0; id < key_df_.size(); ++id)
       if (key_df_[id] >= min_df_) kept.push_back(static_cast<std::int32_t>(id));
+    candidate_features_ = kept.size();
+    if (max_features_ > 0 && kept.size() > max_features_) {
+      // The feature cap: the max_features keys of highest document frequency, ties by key bytes.
+      std::vector<const std::string*> key_of(key_ids_.size());
+      for (const auto& [key, id] : key_ids_) key_of[static_cast<std::size_t>(id)] = &key;
+      const auto first = [&](std::int32_t a, std::int32_t b) {
+        const auto da = key_df_[static_cast<std::size_t>(a)], db = key_df_[static_cast<std::size_t>(b)];
+        return da != db ? da > db
+                        : *key_of[static_cast<std::size_t>(a)] < *key_of[static_cast<std::size_t>(b)];
+      };
+      std::nth_element(kept.begin(), kept.begin() + static_cast<std::ptrdiff_t>(max_features_ - 1),
+                       kept.end(), first);
+      kept.resize(max_features_);
+    }
     const std::vector<std::int32_t> column = columns_in_key_order(key_ids_, std::move(kept), index_);
     // The interned keys are no longer needed: index_ has the kept ones.
     std::unordered_map<std::string, std::int32_t>().swap(key_ids_);

@@ -1,7 +1,9 @@
 #include "gyre/train/baseline.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <iterator>
+#include <memory>
 #include <sstream>
 
 #include "gyre/core/error.hpp"
@@ -17,12 +19,21 @@ using nlohmann::json;
 
 namespace {
 
-std::uint64_t example_hash(const data::Example& ex) {
+std::string example_key(const data::Example& ex) {
   std::string key = ex.text;
   for (const auto& l : ex.labels) key += "\t" + l;
   for (const auto& t : ex.tags) key += "\t" + t;
+  return key;
+}
+
+std::uint64_t example_hash(const data::Example& ex) {
+  const std::string key = example_key(ex);
   return stable_hash(key.data(), key.size());
 }
+
+// The seed of linear_fit_rank's hash: any constant other than the dev split's 0 (the ASCII bytes
+// of "linfit"; no other meaning).
+constexpr std::uint64_t kLinearFitSeed = 0x6c696e666974;
 
 std::string format_c(double c) {
   std::ostringstream s;
@@ -49,6 +60,35 @@ ExampleStream stream_of(std::span<const data::Example> examples) {
   };
 }
 
+std::uint64_t linear_fit_rank(const data::Example& example) {
+  const std::string key = example_key(example);
+  return stable_hash(key.data(), key.size(), kLinearFitSeed);
+}
+
+std::vector<std::size_t> linear_fit_sample(const ExampleStream& train, std::size_t cap, std::size_t& total) {
+  GYRE_CHECK(cap > 0, "linear fit sample: the cap must be positive");
+  // A max-heap of the `cap` lowest (rank, position) pairs seen so far.
+  std::vector<std::pair<std::uint64_t, std::size_t>> heap;
+  heap.reserve(std::min<std::size_t>(cap, 1 << 20));
+  total = 0;
+  train([&](const data::Example& ex) {
+    const std::pair<std::uint64_t, std::size_t> item{linear_fit_rank(ex), total++};
+    if (heap.size() < cap) {
+      heap.push_back(item);
+      std::push_heap(heap.begin(), heap.end());
+    } else if (item < heap.front()) {
+      std::pop_heap(heap.begin(), heap.end());
+      heap.back() = item;
+      std::push_heap(heap.begin(), heap.end());
+    }
+  });
+  std::vector<std::size_t> positions;
+  positions.reserve(heap.size());
+  for (const auto& [rank, position] : heap) positions.push_back(position);
+  std::sort(positions.begin(), positions.end());
+  return positions;
+}
+
 struct LinearBaseline::Impl {
   text::VocabFile vocab;
   data::Task task = data::Task::kClassify;
@@ -58,14 +98,45 @@ struct LinearBaseline::Impl {
   double c = 0;
   int ngram_order = 2;
   int threads = 1;
+  LinearFitUse use;
 
   void tokens(const data::Example& ex, const std::string& path, std::vector<std::string>& out) const {
     encoder->tokens(ex, path, out);
   }
 
-  void add_all(const ExampleStream& train, const std::string& path) {
+  // The examples of `all` a fit with use.caps uses (all of them without an examples cap).
+  ExampleStream sample_of(const ExampleStream& all) {
+    if (use.caps.examples == 0 ||
+        (use.caps.known_examples > 0 && use.caps.known_examples <= use.caps.examples)) {
+      return [&all, this](const ExampleVisitor& visit) {
+        std::size_t total = 0;
+        all([&](const data::Example& ex) {
+          ++total;
+          visit(ex);
+        });
+        use.train_examples = use.examples = total;
+      };
+    }
+    auto positions = std::make_shared<std::vector<std::size_t>>(
+        linear_fit_sample(all, use.caps.examples, use.train_examples));
+    use.examples = positions->size();
+    return [&all, positions](const ExampleVisitor& visit) {
+      std::size_t position = 0;
+      auto next = positions->begin();
+      all([&](const data::Example& ex) {
+        if (next != positions->end() && *next == position) {
+          ++next;
+          visit(ex);
+        }
+        ++position;
+      });
+    };
+  }
+
+  void add_all(const ExampleStream& all, const std::string& path) {
+    const ExampleStream train = sample_of(all);
     std::vector<std::string> toks;
-    classifier = eval::NgramClassifier(2, ngram_order);
+    classifier = eval::NgramClassifier(2, ngram_order, use.caps.features);
     tagger = eval::WindowTagger();
     // Classifiers: a first pass counts n-gram fingerprints, so the n-grams of one example only
     // (most of a large corpus's) are never stored (gyre/eval/linear_baseline.hpp).
@@ -92,10 +163,14 @@ struct LinearBaseline::Impl {
     options.c = penalty;
     options.threads = threads;
     options.warm_start = true;  // the grid's C values ascend: each fit starts at the previous one
-    if (task == data::Task::kClassify)
+    if (task == data::Task::kClassify) {
       classifier.fit(static_cast<int>(vocab.labels.size()), options);
-    else
+      use.candidate_features = classifier.candidate_feature_count();
+      use.features = classifier.feature_count();
+    } else {
       tagger.fit(options);
+      use.candidate_features = use.features = tagger.feature_count();
+    }
     c = penalty;
   }
 
@@ -147,9 +222,11 @@ LinearBaseline& LinearBaseline::operator=(LinearBaseline&&) noexcept = default;
 
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
                                    const std::string& train_path, const ExampleStream& dev,
-                                   const std::string& dev_path, double c, int ngram_order, int threads) {
+                                   const std::string& dev_path, double c, int ngram_order, int threads,
+                                   const LinearFitCaps& caps) {
   auto impl = std::make_unique<Impl>();
   impl->threads = threads;
+  impl->use.caps = caps;
   impl->vocab = vocab;
   impl->task = task;
   impl->ngram_order = ngram_order;
@@ -179,14 +256,15 @@ LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task
 LinearBaseline LinearBaseline::fit(const text::VocabFile& vocab, data::Task task,
                                    std::span<const data::Example> train, const std::string& train_path,
                                    std::span<const data::Example> dev, const std::string& dev_path, double c,
-                                   int ngram_order, int threads) {
+                                   int ngram_order, int threads, const LinearFitCaps& caps) {
   for (const auto& ex : train)
     if (task == data::Task::kClassify && ex.labels.size() != 1)
       throw ConfigError("baseline", "the linear baseline needs single-label examples (" + train_path +
                                         " line " + std::to_string(ex.line) + " has " +
                                         std::to_string(ex.labels.size()) + ")");
   GYRE_CHECK(c > 0 || !dev.empty(), "linear baseline: choosing C needs dev examples");
-  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c, ngram_order, threads);
+  return fit(vocab, task, stream_of(train), train_path, stream_of(dev), dev_path, c, ngram_order, threads,
+             caps);
 }
 
 json LinearBaseline::score(const ExampleStream& examples, const std::string& path) const {
@@ -219,9 +297,30 @@ std::size_t LinearBaseline::feature_count() const noexcept {
                                               : impl_->tagger.feature_count();
 }
 
+const LinearFitUse& LinearBaseline::use() const noexcept {
+  return impl_->use;
+}
+
+json LinearBaseline::use_json() const {
+  const LinearFitUse& u = impl_->use;
+  return json{{"train_examples", u.train_examples},
+              {"examples", u.examples},
+              {"examples_cap", u.caps.examples},
+              {"candidate_features", u.candidate_features},
+              {"features", u.features},
+              {"features_cap", u.caps.features}};
+}
+
 int ngram_order_for(const TrainConfig& config) noexcept {
   if (config.ngram_order > 0) return config.ngram_order;
   return config.tokenizer == text::TokenizerMode::kChars ? 4 : 2;
+}
+
+LinearFitCaps linear_fit_caps_for(const TrainConfig& config) noexcept {
+  LinearFitCaps caps;
+  caps.examples = static_cast<std::size_t>(std::max(0, config.linear_fit_examples));
+  caps.features = static_cast<std::size_t>(std::max(0, config.linear_fit_features));
+  return caps;
 }
 
 RunExamples read_run_examples(const TrainConfig& config) {

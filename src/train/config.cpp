@@ -221,6 +221,22 @@ void add_model_settings(std::vector<Setting<C>>& t) {
                                 .min = 0,
                                 .max = runtime::kMaxNgramOrder,
                                 .note = "0 = auto: 4 with --tokenizer chars, else 2"}));
+  t.push_back(integer(&C::linear_fit_examples,
+                      {.key = "linear_fit_examples",
+                       .group = kModel,
+                       .help = "the n-gram part and the linear baseline are fitted on at most N training "
+                               "examples, chosen by a hash of each example (README \"N-gram part\")",
+                       .min = 0,
+                       .max = 1000000000,
+                       .note = "0 = all"}));
+  t.push_back(integer(&C::linear_fit_features,
+                      {.key = "linear_fit_features",
+                       .group = kModel,
+                       .help = "the n-gram part and the linear baseline keep at most N n-grams, those in the "
+                               "most training examples",
+                       .min = 0,
+                       .max = 1000000000,
+                       .note = "0 = all"}));
 }
 
 // The character encoder and the token embeddings.

@@ -1276,11 +1276,17 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
     const ExampleStream train_split = read_run_split(config_, false, data_.tag_scheme);
     // The fit can take a while on a large corpus (its cost follows the distinct n-grams, not the
     // epochs): say what runs now, and its cost when it is done.
-    progress_.note(
-        std::string("fitting the ") +
-        (want_part ? "n-gram part (the linear baseline's model)" : "linear baseline") + " on " +
-        std::to_string(train_examples) + " training examples (L2 logistic regression, C chosen on dev" +
-        (want_part ? "; --ngram-part off --no-baseline skip it" : "; --no-baseline skips it") + ")");
+    LinearFitCaps caps = linear_fit_caps_for(config_);
+    caps.known_examples = train_examples;
+    const bool sampled = caps.examples > 0 && train_examples > caps.examples;
+    progress_.note(std::string("fitting the ") +
+                   (want_part ? "n-gram part (the linear baseline's model)" : "linear baseline") + " on " +
+                   (sampled ? std::to_string(caps.examples) + " of the " : std::string()) +
+                   std::to_string(train_examples) + " training examples" +
+                   (sampled ? " (capped by --linear-fit-examples: those of lowest hash; " : " (") +
+                   "L2 logistic regression, C chosen on dev" +
+                   (want_part ? "; --ngram-part off --no-baseline skip it" : "; --no-baseline skips it") +
+                   ")");
     fitted = LinearBaseline::fit(
         data_.vocab, data_.task,
         [&](const ExampleVisitor& visit) {
@@ -1296,14 +1302,23 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
                           std::to_string(train_examples));
         },
         config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0, ngram_order_for(config_),
-        config_.threads);
+        config_.threads, caps);
     const LinearBaseline& baseline = *fitted;
+    const LinearFitUse& use = baseline.use();
     char c_text[32];
     std::snprintf(c_text, sizeof c_text, "%g", baseline.c());
-    progress_.note("linear fit: " + std::to_string(baseline.feature_count()) + " features, C " + c_text +
-                   " chosen on dev, " +
-                   fmt(std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count(), 1) +
-                   " s");
+    const double fit_seconds =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+    progress_.note("linear fit: " + std::to_string(baseline.feature_count()) + " features" +
+                   (use.features_capped() ? " (capped by --linear-fit-features: the n-grams in the most "
+                                            "training examples, of " +
+                                                std::to_string(use.candidate_features) + " in two or more)"
+                                          : std::string()) +
+                   ", " + std::to_string(use.examples) + " training examples, C " + c_text +
+                   " chosen on dev, " + fmt(fit_seconds, 1) + " s");
+    json fit_use = baseline.use_json();
+    fit_use["seconds"] = fit_seconds;
+    result.final_metrics["linear_fit"] = std::move(fit_use);
     if (options_.fit_baseline)
       result.final_metrics["baseline"] = {
           {"name", baseline.description()},

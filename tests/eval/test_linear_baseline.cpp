@@ -289,7 +289,8 @@ namespace {
 // storage must give this exact model. Written from the header's definition of the features.
 gyre::eval::LinearModel fit_from_strings(const std::vector<std::vector<std::string>>& texts,
                                          const std::vector<std::int32_t>& labels, int classes, int min_df,
-                                         const LbfgsOptions& options, std::size_t& features) {
+                                         const LbfgsOptions& options, std::size_t& features,
+                                         std::size_t max_features = 0) {
   std::map<std::string, int> df;
   std::vector<std::string> keys;
   for (const auto& t : texts) {
@@ -298,9 +299,17 @@ gyre::eval::LinearModel fit_from_strings(const std::vector<std::vector<std::stri
     keys.erase(std::unique(keys.begin(), keys.end()), keys.end());
     for (const auto& k : keys) ++df[k];
   }
-  std::map<std::string, std::int32_t> index;  // std::map: sorted keys, columns in that order
+  // The feature cap's rule (gyre/eval/linear_baseline.hpp), written out: sort the keys reaching
+  // min_df by (document frequency descending, key ascending) and keep the first max_features.
+  std::vector<std::pair<int, std::string>> ranked;
   for (const auto& [k, n] : df)
-    if (n >= min_df) index.emplace(k, static_cast<std::int32_t>(index.size()));
+    if (n >= min_df) ranked.emplace_back(-n, k);
+  std::sort(ranked.begin(), ranked.end());
+  if (max_features > 0 && ranked.size() > max_features) ranked.resize(max_features);
+  std::set<std::string> kept;
+  for (const auto& [minus_df, k] : ranked) kept.insert(k);
+  std::map<std::string, std::int32_t> index;  // std::map: sorted keys, columns in that order
+  for (const auto& k : kept) index.emplace(k, static_cast<std::int32_t>(index.size()));
   SparseRows x;
   for (const auto& t : texts) {
     gyre::eval::NgramClassifier::ngrams(t, 2, keys);
@@ -470,4 +479,61 @@ TEST_CASE("window tagger: interned keys give the model the string features give"
   CHECK(tagger.token_count() == 0);
   CHECK(tagger.key_count() == 0);
   CHECK(tagger.predict(sentences[2], raws[2]) == predicted);
+}
+
+TEST_CASE("n-gram classifier: the feature cap keeps the keys in the most examples, ties by key bytes",
+          "[baseline]") {
+  std::vector<std::vector<std::string>> texts;
+  std::vector<std::int32_t> labels;
+  synthetic_texts(texts, labels);
+  for (const int min_df : {1, 2})
+    for (const bool counted : {false, true}) {
+      // How many keys reach min_df (no cap), for caps below, at and above it.
+      gyre::eval::NgramClassifier all(min_df);
+      for (std::size_t i = 0; i < texts.size(); ++i) all.add(texts[i], labels[i]);
+      all.fit(3, LbfgsOptions{});
+      const std::size_t kept = all.feature_count();
+      REQUIRE(kept > 100);
+      CHECK(all.candidate_feature_count() == kept);
+      for (const std::size_t cap :
+           {std::size_t{1}, std::size_t{37}, std::size_t{100}, kept - 1, kept, kept + 5}) {
+        SECTION("min_df " + std::to_string(min_df) + (counted ? ", counting pass" : "") + ", cap " +
+                std::to_string(cap)) {
+          LbfgsOptions options;
+          options.c = 10.0;
+          std::vector<gyre::runtime::NgramPart> parts;
+          for (const int threads : {1, 2}) {
+            gyre::eval::NgramClassifier clf(min_df, 2, cap);
+            if (counted)
+              for (const auto& t : texts) clf.count(t);
+            for (std::size_t i = 0; i < texts.size(); ++i) clf.add(texts[i], labels[i]);
+            options.threads = threads;
+            clf.fit(3, options);
+            CHECK(clf.candidate_feature_count() == kept);
+            CHECK(clf.feature_count() == std::min(cap, kept));
+            // The model the string features with the rule written out give, bit for bit.
+            std::size_t features = 0;
+            const auto expected = fit_from_strings(texts, labels, 3, min_df, options, features, cap);
+            CHECK(features == clf.feature_count());
+            CHECK(same_model(clf.model(), expected));
+            parts.push_back(clf.part(1.0F));
+          }
+          // The same keys and weights on any number of threads.
+          CHECK(parts[0].keys() == parts[1].keys());
+          // Example order does not change which keys are kept.
+          gyre::eval::NgramClassifier reversed(min_df, 2, cap);
+          for (std::size_t i = texts.size(); i-- > 0;) reversed.add(texts[i], labels[i]);
+          reversed.fit(3, options);
+          CHECK(reversed.part(1.0F).keys() == parts[0].keys());
+        }
+      }
+    }
+  // A hand-checked case: "a" is in 3 examples, "b" and "c" in 2, "d" in 1 (min_df 1, order 1):
+  // a cap of 2 keeps "a" and, of the tie b/c, "b" (the smaller key bytes).
+  gyre::eval::NgramClassifier small(1, 1, 2);
+  const std::vector<std::vector<std::string>> hand{{"c", "a"}, {"a", "b"}, {"b", "c", "a"}, {"d"}};
+  for (std::size_t i = 0; i < hand.size(); ++i) small.add(hand[i], static_cast<std::int32_t>(i % 2));
+  small.fit(2, LbfgsOptions{});
+  CHECK(small.part(1.0F).keys() == std::vector<std::string>{"a", "b"});
+  CHECK(small.candidate_feature_count() == 4);
 }

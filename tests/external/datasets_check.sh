@@ -114,6 +114,14 @@ for ds in names brown-genre brown-names; do
   "$gyre" train --train "$data/train.tsv" --dev "$data/dev.tsv" "${mirror_extra[@]}" --epochs 1 \
     --hidden-size 8 --embedding-size 8 --threads 2 --out "$run" --quiet > /dev/null || { echo "FAIL: $ds mirror run"; exit 1; }
   "$gyre" eval "$run" --test "$data/test.tsv" --json "$run/eval.json" > /dev/null || { echo "FAIL: $ds eval"; exit 1; }
+  # The mirror has no caps: gyre's fit must not have capped its examples or n-grams either
+  # (--linear-fit-examples / --linear-fit-features, README "N-gram part").
+  capped=$("$py" -c "import json,sys; f=json.load(open(sys.argv[1]))['linear_fit']
+print(int(f['examples'] < f['train_examples'] or f['features'] < f['candidate_features']))" "$run/metrics.json")
+  if [ "$capped" != 0 ]; then
+    echo "FAIL: $ds: gyre's linear fit was capped (metrics.json linear_fit); the sklearn mirror fits every feature"
+    status=1
+  fi
   for split in dev test; do
     want=$(fx "$ds.gyre_mirror.$split.$metric")
     if [ $split = dev ]; then have=$(jval "$run/metrics.json" "baseline.dev.$metric"); else have=$(jval "$run/eval.json" "linear_baseline.metrics.$metric"); fi

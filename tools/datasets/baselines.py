@@ -30,6 +30,11 @@ Made with Debian's python3-sklearn 1.2.1. For every dataset two things are recor
         1-4-grams (char_wb) tf-idf. Word tokens: sklearn's default pattern, lower-cased.
       taggers: the mirror's features, and the mirror's plus prefixes and suffixes of length 1-3
         and is-capitalised/has-digit flags of the current token, C in {1, 10, 100}.
+gyre bounds its fit (--linear-fit-examples, default 100000 training examples; --linear-fit-features,
+default 200000 n-grams; README "N-gram part"); the mirror has no such caps because no dataset here
+reaches them (largest: names 6372 examples, brown-genre 111302 n-grams with gyre's default
+tokenizer and 109163 with the mirror's, spam 105376). tests/external/datasets_check.sh fails if a
+mirror run's metrics.json says a cap applied, so this stays true or the mirror must change.
 Span F1 reads BIO with the CoNLL-2000 rules (an I-x after O or another type opens a span), as
 gyre's tag_scheme.cpp does. Each split file's SHA-256 is recorded so a test can confirm it scores
 the very same split. Datasets absent from DATA_DIR keep their entries from an existing OUT_JSON (so

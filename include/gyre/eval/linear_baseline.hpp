@@ -114,10 +114,17 @@ LinearModel fit_logistic_regression(const CountRows& x, std::span<const std::int
 /// holding each key by a 32-bit fingerprint of it; add() then stores only keys whose fingerprint
 /// count reaches min_df. Examples sharing a fingerprint only raise its count, so those keys are a
 /// superset of the keys fit() keeps, and the fit is the same with or without the pass.
+///
+/// Feature cap: with max_features > 0, when more than max_features keys reach min_df the first
+/// fit() keeps the max_features keys held by the most examples (document frequency), ties broken
+/// by the key's bytes (std::string's order, ascending), so the choice depends neither on the
+/// order of the examples nor on the thread count. The fit's parameters (and its L-BFGS history)
+/// then take at most max_features x classes numbers, whatever the corpus.
 class NgramClassifier {
  public:
   /// order: highest n-gram order, in [1, runtime::kMaxNgramOrder] (throws gyre::Error otherwise).
-  explicit NgramClassifier(int min_df = 2, int order = 2);
+  /// max_features: the feature cap above, 0 = none.
+  explicit NgramClassifier(int min_df = 2, int order = 2, std::size_t max_features = 0);
   /// First pass (optional): one call per training example, in any order, all before add().
   /// Throws gyre::Error after add().
   void count(std::span<const std::string> tokens);
@@ -136,6 +143,9 @@ class NgramClassifier {
   std::vector<double> probabilities(std::span<const std::string> tokens) const;
 
   std::size_t feature_count() const noexcept { return index_.size(); }
+  /// The keys reaching min_df before the feature cap (= feature_count() when it did not apply);
+  /// set by the first fit().
+  std::size_t candidate_feature_count() const noexcept { return candidate_features_; }
   const LinearModel& model() const noexcept { return model_; }
   double c() const noexcept { return c_; }
   int order() const noexcept { return order_; }
@@ -158,6 +168,8 @@ class NgramClassifier {
                  std::vector<double>& vals) const;
   int min_df_;
   int order_;
+  std::size_t max_features_;
+  std::size_t candidate_features_ = 0;
   // Training examples: example i's keys are entry_keys_[entry_start_[i] .. entry_start_[i+1])
   // (key ids ascending), each with its count in that example.
   std::unordered_map<std::string, std::int32_t> key_ids_;  // key -> id, in order of first sight

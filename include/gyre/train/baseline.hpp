@@ -6,6 +6,8 @@
 // kBaselinePenaltyGrid (accuracy for classifiers, span F1 for taggers; ties: the smaller C).
 // Multi-label runs have none.
 
+#include <cstddef>
+#include <cstdint>
 #include <functional>
 #include <memory>
 #include <span>
@@ -39,6 +41,41 @@ using ExampleVisitor = std::function<void(const data::Example&)>;
 using ExampleStream = std::function<void(const ExampleVisitor&)>;
 ExampleStream stream_of(std::span<const data::Example> examples);
 
+/// Bounds on the linear fit (the baseline and the n-gram part), so its time and memory do not
+/// grow with the corpus (README "N-gram part"); 0 = no bound.
+struct LinearFitCaps {
+  /// At most this many training examples: those of lowest linear_fit_rank() (ties: file order),
+  /// chosen before any n-gram is counted, so counting, rows and fit all see only them.
+  std::size_t examples = 0;
+  /// Classifiers: at most this many n-gram features (eval::NgramClassifier's feature cap: the
+  /// keys held by the most training examples, ties by key bytes).
+  std::size_t features = 0;
+  /// Not a cap: the number of training examples when the caller knows it (0 = unknown); when it
+  /// is at most `examples`, the pass choosing the sample is skipped (the sample is every example).
+  std::size_t known_examples = 0;
+};
+
+/// What a fit used: the training examples read and fitted on, the n-gram keys reaching the
+/// document-frequency threshold and the features kept (classifiers; taggers: every feature).
+struct LinearFitUse {
+  std::size_t train_examples = 0, examples = 0;
+  std::size_t candidate_features = 0, features = 0;
+  LinearFitCaps caps;
+  bool examples_capped() const noexcept { return examples < train_examples; }
+  bool features_capped() const noexcept { return features < candidate_features; }
+};
+
+/// The rank of a training example for LinearFitCaps::examples: a 64-bit hash of its text, labels
+/// and tags (the dev split's key, gyre/core/rng.hpp stable_hash with another seed, so the sample
+/// is independent of the split and of the seed and thread count).
+std::uint64_t linear_fit_rank(const data::Example& example);
+
+/// The 0-based positions, ascending, of the examples of `train` that a fit capped at `cap`
+/// examples uses (cap > 0): the `cap` of lowest (linear_fit_rank, position), or all of them when
+/// there are at most `cap`. Reads the stream once; memory O(cap). `total` gets the number of
+/// examples read.
+std::vector<std::size_t> linear_fit_sample(const ExampleStream& train, std::size_t cap, std::size_t& total);
+
 class LinearBaseline {
  public:
   ~LinearBaseline();
@@ -53,13 +90,16 @@ class LinearBaseline {
   /// ids, gyre/eval/linear_baseline.hpp), whatever the number of C values tried; the dev
   /// examples once per C value; the best C's model is kept, not fitted again. `threads`: threads
   /// evaluating the fit's objective (eval::LbfgsOptions::threads; the same model for any count).
+  /// `caps` bounds the examples and features fitted (LinearFitCaps; use() says what applied):
+  /// with an examples cap the training stream is read once more first, to choose the sample.
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task, const ExampleStream& train,
                             const std::string& train_path, const ExampleStream& dev,
-                            const std::string& dev_path, double c = 0, int ngram_order = 2, int threads = 1);
+                            const std::string& dev_path, double c = 0, int ngram_order = 2, int threads = 1,
+                            const LinearFitCaps& caps = {});
   static LinearBaseline fit(const text::VocabFile& vocab, data::Task task,
                             std::span<const data::Example> train, const std::string& train_path,
                             std::span<const data::Example> dev, const std::string& dev_path, double c = 0,
-                            int ngram_order = 2, int threads = 1);
+                            int ngram_order = 2, int threads = 1, const LinearFitCaps& caps = {});
 
   /// Scores labelled examples: classifiers {"accuracy", "macro_f1"}, taggers {"span_f1",
   /// "token_accuracy"} (the same keys as the model's dev summary).
@@ -73,6 +113,11 @@ class LinearBaseline {
   runtime::NgramPart ngram_part(float mix) const;
   double c() const noexcept;
   std::size_t feature_count() const noexcept;
+  /// The examples and features the fit used, and its caps.
+  const LinearFitUse& use() const noexcept;
+  /// use() as JSON for metrics.json: {"train_examples", "examples", "examples_cap", "candidate_features",
+  /// "features", "features_cap"} (caps 0 = none).
+  nlohmann::json use_json() const;
 
  private:
   struct Impl;
@@ -92,6 +137,9 @@ RunExamples read_run_examples(const TrainConfig& config);
 /// The n-gram order of a run's linear baseline and n-gram part: config.ngram_order, or when it is
 /// 0 (auto) 4 for the `chars` tokenizer and 2 for the others.
 int ngram_order_for(const TrainConfig& config) noexcept;
+
+/// The caps of a run's linear fit: config.linear_fit_examples and config.linear_fit_features.
+LinearFitCaps linear_fit_caps_for(const TrainConfig& config) noexcept;
 
 /// The training (`dev_split` false) or dev split of a run as `gyre train` prepared it, read again
 /// from the files in its config one example at a time: the same hash split when it had no dev

@@ -70,6 +70,10 @@ struct TrainConfig {
   /// Highest n-gram order of the linear baseline and the n-gram part; 0 = auto: 4 with the
   /// `chars` tokenizer, 2 otherwise (train::ngram_order_for).
   int ngram_order = 0;
+  /// The linear fit (baseline and n-gram part) uses at most this many training examples and
+  /// n-gram features (train::LinearFitCaps; README "N-gram part"); 0 = no cap.
+  int linear_fit_examples = 100000;
+  int linear_fit_features = 200000;
   /// Character encoder over each token's un-folded grapheme clusters (CNN, Ma & Hovy 2016);
   /// empty: decided by the task (see resolve_char_encoder).
   std::optional<bool> char_encoder;
