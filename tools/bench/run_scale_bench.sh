@@ -9,13 +9,14 @@
 #
 # --no-baseline measures the training alone (gyre train --no-baseline --ngram-part off): no linear
 # baseline and no n-gram part are fitted after training, so the process peak is reading, encoding
-# and training. The baseline's own cost grows with the distinct n-grams of the corpus, not with its
-# encoded ids (tools/bench/README.md, "Training cost as the corpus grows").
+# and training. Without it the fit runs on at most --linear-fit-examples training examples (default
+# 100000) and --linear-fit-features n-grams (README "N-gram part"), so its cost stops growing with
+# the corpus past that size (tools/bench/README.md, "Training cost as the corpus grows").
 #
 # The 1M-example corpus is ~36M tokens (~250 MB of text); one epoch of it takes about half an hour.
 # --steps N ends the epoch after N optimizer steps (gyre train --epoch-step-limit): tokens/s over
 # the same number of steps for every size, while the peak RSS still covers reading and encoding the
-# whole corpus, the linear baseline fitted on all of it and the end-of-run steps.
+# whole corpus, the linear fit (on its capped sample) and the end-of-run steps.
 set -euo pipefail
 
 usage() { sed -n '2,18p' "$0" | sed 's/^# \{0,1\}//'; exit 2; }
