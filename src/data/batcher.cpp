@@ -138,11 +138,18 @@ void fill_batch(const EncodedCorpus& examples, std::span<const std::size_t> indi
 }
 
 std::vector<Window> make_windows(const Batch& batch, int window) {
+  std::vector<Window> windows;
+  make_windows(batch, window, windows);
+  return windows;
+}
+
+void make_windows(const Batch& batch, int window, std::vector<Window>& windows) {
   const int K = window > 0 ? window : batch.max_len;
   const int count = (batch.max_len + K - 1) / K;
-  std::vector<Window> windows(static_cast<std::size_t>(count));
+  windows.resize(static_cast<std::size_t>(count));
   for (int w = 0; w < count; ++w) {
     Window& win = windows[static_cast<std::size_t>(w)];
+    win.max_len = 0;
     win.start.resize(static_cast<std::size_t>(batch.batch));
     win.lengths.resize(static_cast<std::size_t>(batch.batch));
     win.last = (w == count - 1);
@@ -156,7 +163,6 @@ std::vector<Window> make_windows(const Batch& batch, int window) {
       win.max_len = std::max(win.max_len, end - start);
     }
   }
-  return windows;
 }
 
 void window_ids(const Batch& batch, const Window& window, std::vector<std::int32_t>& ids) {

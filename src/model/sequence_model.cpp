@@ -92,7 +92,8 @@ double SequenceModel::train_batch(const data::Batch& batch, const data::EncodedC
 double SequenceModel::train_batch(const data::Batch& batch, const Targets& targets, int bptt_window,
                                   double normalizer, Rng& dropout_rng) {
   GYRE_CHECK(normalizer > 0, "train_batch: normalizer must be positive");
-  const auto windows = data::make_windows(batch, bptt_window);
+  data::make_windows(batch, bptt_window, windows_);
+  const std::vector<data::Window>& windows = windows_;
   const int B = batch.batch;
   const int slots = spec_.layers * spec_.directions();
   const bool carry = windows.size() > 1;
@@ -123,7 +124,8 @@ double SequenceModel::train_batch(const data::Batch& batch, const Targets& targe
       }
     }
     embed(batch);
-    embedding_dropout_.forward(x_, true, &dropout_rng);
+    nn::MatrixMap x = x_.view();
+    embedding_dropout_.forward(x, true, &dropout_rng);
     const nn::RnnState* init = nullptr;
     if (carry && w > 0) {
       init_.h.resize(carry_.h.size());
@@ -132,7 +134,8 @@ double SequenceModel::train_batch(const data::Batch& batch, const Targets& targe
       for (std::size_t s = 0; s < carry_.c.size(); ++s) gather_rows(carry_.c[s], active_, init_.c[s]);
       init = &init_;
     }
-    rnn_->forward(x_, Tw, lengths_, h_, true, &dropout_rng, init, carry ? &final_ : nullptr);
+    rnn_->forward(x, Tw, lengths_, h_.shape(x.rows(), rnn_->output_size()), true, &dropout_rng, init,
+                  carry ? &final_ : nullptr);
     if (carry) {
       for (std::size_t s = 0; s < carry_.h.size(); ++s) scatter_rows(final_.h[s], active_, carry_.h[s]);
       for (std::size_t s = 0; s < carry_.c.size() && s < final_.c.size(); ++s)
@@ -153,18 +156,24 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
   ce.class_weights = loss_options_.class_weights;
   ce.label_smoothing = loss_options_.label_smoothing;
   double loss_sum = 0.0;
+  nn::MatrixMap h = h_.view();
+  const Eigen::Index F = h.cols(), C = spec_.num_labels();
   if (spec_.task == data::Task::kClassify) {
-    pooling_.forward(h_, Tw, lengths_, pooled_);
-    head_dropout_.forward(pooled_, true, &dropout_rng);
-    head_->forward(pooled_, logits_);
+    nn::MatrixMap pooled = pooled_.shape(Bw, F);
+    pooling_.forward(h, Tw, lengths_, pooled);
+    head_dropout_.forward(pooled, true, &dropout_rng);
+    nn::MatrixMap logits = logits_.shape(Bw, C);
+    head_->forward(pooled, logits);
+    nn::MatrixMap d_logits = d_logits_.shape(Bw, C);
     if (spec_.output == OutputKind::kSigmoid) {
-      multi_hot_.setZero(Bw, spec_.num_labels());
+      nn::MatrixMap multi_hot = multi_hot_.shape(Bw, C);
+      multi_hot.setZero();
       for (int i = 0; i < Bw; ++i) {
         for (const auto label :
              targets_of(batch.examples[static_cast<std::size_t>(active[static_cast<std::size_t>(i)])]))
-          multi_hot_(i, label) = 1.0f;
+          multi_hot(i, label) = 1.0f;
       }
-      loss_sum = nn::sigmoid_binary_cross_entropy(logits_, multi_hot_, d_logits_) * Bw;
+      loss_sum = nn::sigmoid_binary_cross_entropy(logits, multi_hot, d_logits) * Bw;
     } else {
       targets_.resize(static_cast<std::size_t>(Bw));
       for (int i = 0; i < Bw; ++i) {
@@ -173,15 +182,17 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
         GYRE_CHECK(!labels.empty(), "an encoded example has no label");
         targets_[static_cast<std::size_t>(i)] = labels[0];
       }
-      loss_sum = nn::softmax_cross_entropy(logits_, targets_, d_logits_, ce) * Bw;
+      loss_sum = nn::softmax_cross_entropy(logits, targets_, d_logits, ce) * Bw;
     }
-    d_logits_ *= static_cast<float>(Bw / normalizer);
-    head_->backward(d_logits_, &d_pooled_);
-    head_dropout_.backward(d_pooled_);
-    pooling_.backward(d_pooled_, d_h_);
+    d_logits *= static_cast<float>(Bw / normalizer);
+    nn::MatrixMap d_pooled = d_pooled_.shape(Bw, F);
+    head_->backward(d_logits, d_pooled);
+    head_dropout_.backward(d_pooled);
+    pooling_.backward(d_pooled, d_h_.shape(h.rows(), F));
   } else {
-    head_dropout_.forward(h_, true, &dropout_rng);
-    head_->forward(h_, logits_);
+    head_dropout_.forward(h, true, &dropout_rng);
+    nn::MatrixMap logits = logits_.shape(h.rows(), C);
+    head_->forward(h, logits);
     targets_.assign(static_cast<std::size_t>(Tw) * static_cast<std::size_t>(Bw), 0);
     std::size_t tokens = 0;
     for (int i = 0; i < Bw; ++i) {
@@ -194,23 +205,26 @@ double SequenceModel::window_loss_and_grad(const std::vector<int>& active, const
         targets_[static_cast<std::size_t>(t * Bw + i)] = tags[static_cast<std::size_t>(win.start[b] + t)];
       tokens += static_cast<std::size_t>(lengths_[static_cast<std::size_t>(i)]);
     }
+    nn::MatrixMap d_logits = d_logits_.shape(h.rows(), C);
     if (crf_) {
-      loss_sum = crf_->loss(logits_, lengths_, targets_, &d_logits_, static_cast<float>(1.0 / normalizer));
+      loss_sum = crf_->loss(logits, lengths_, targets_, d_logits, static_cast<float>(1.0 / normalizer));
     } else {
-      loss_sum = nn::token_cross_entropy(logits_, targets_, Tw, lengths_, d_logits_, ce) *
-                 static_cast<double>(tokens);
-      d_logits_ *= static_cast<float>(static_cast<double>(tokens) / normalizer);
+      loss_sum =
+          nn::token_cross_entropy(logits, targets_, Tw, lengths_, d_logits, ce) * static_cast<double>(tokens);
+      d_logits *= static_cast<float>(static_cast<double>(tokens) / normalizer);
     }
-    head_->backward(d_logits_, &d_h_);
-    head_dropout_.backward(d_h_);
+    nn::MatrixMap d_h = d_h_.shape(h.rows(), F);
+    head_->backward(d_logits, d_h);
+    head_dropout_.backward(d_h);
   }
   if (!std::isfinite(loss_sum)) throw DivergenceError("the loss is not finite");
   if (embedding_->trainable() || chars_) {
-    rnn_->backward(d_h_, d_x_);
-    embedding_dropout_.backward(d_x_);
+    nn::MatrixMap d_x = d_x_.shape(x_.rows(), x_.cols());
+    rnn_->backward(d_h_.view(), d_x);
+    embedding_dropout_.backward(d_x);
     embed_backward();
   } else {
-    rnn_->backward(d_h_);
+    rnn_->backward(d_h_.view());
   }
   return loss_sum;
 }
@@ -266,41 +280,49 @@ TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample&
   std::vector<double> integral_dot(static_cast<std::size_t>(T), 0.0);
   for (int first = 0; first < points; first += per_batch) {
     const int B = std::min(per_batch, points - first);
-    x_.resize(static_cast<Eigen::Index>(T) * B, E);
+    const Eigen::Index TB = static_cast<Eigen::Index>(T) * B;
+    nn::MatrixMap x = x_.shape(TB, E);
     for (int t = 0; t < T; ++t)
       for (int b = 0; b < B; ++b)
-        x_.row(t * B + b) =
+        x.row(t * B + b) =
             text_embedding_.row(t) * (static_cast<float>(first + b) / static_cast<float>(steps));
     lengths_.assign(static_cast<std::size_t>(B), T);
-    rnn_->forward(x_, T, lengths_, h_, false, nullptr);
-    pooling_.forward(h_, T, lengths_, pooled_);
-    head_->forward(pooled_, logits_);
-    d_logits_.setZero(B, static_cast<Eigen::Index>(C));
+    nn::MatrixMap h = h_.shape(TB, rnn_->output_size());
+    rnn_->forward(x, T, lengths_, h, false, nullptr);
+    nn::MatrixMap pooled = pooled_.shape(B, h.cols());
+    pooling_.forward(h, T, lengths_, pooled);
+    nn::MatrixMap logits = logits_.shape(B, static_cast<Eigen::Index>(C));
+    head_->forward(pooled, logits);
+    nn::MatrixMap d_logits = d_logits_.shape(B, static_cast<Eigen::Index>(C));
+    d_logits.setZero();
     for (int b = 0; b < B; ++b) {
-      const float* z = &logits_(b, 0);
+      const float* z = &logits(b, 0);
       double& fb = f[static_cast<std::size_t>(first + b)];
       if (spec_.output == OutputKind::kSigmoid) {
         const float temp = tempered ? spec_.temperature[k] : 1.0f;
         const float pk = runtime::tempered_sigmoid(z[k], temp);
         fb = pk;
-        d_logits_(b, static_cast<Eigen::Index>(k)) = pk * (1.0f - pk) / temp;
+        d_logits(b, static_cast<Eigen::Index>(k)) = pk * (1.0f - pk) / temp;
       } else {
         const float temp = tempered ? spec_.temperature[0] : 1.0f;
         runtime::tempered_softmax(z, C, temp, p.data());
         fb = p[k];
         for (std::size_t c = 0; c < C; ++c)
-          d_logits_(b, static_cast<Eigen::Index>(c)) = p[k] * ((c == k ? 1.0f : 0.0f) - p[c]) / temp;
+          d_logits(b, static_cast<Eigen::Index>(c)) = p[k] * ((c == k ? 1.0f : 0.0f) - p[c]) / temp;
       }
     }
-    head_->backward(d_logits_, &d_pooled_);
-    pooling_.backward(d_pooled_, d_h_);
-    rnn_->backward(d_h_, d_x_);
+    nn::MatrixMap d_pooled = d_pooled_.shape(B, h.cols());
+    head_->backward(d_logits, d_pooled);
+    nn::MatrixMap d_h = d_h_.shape(TB, h.cols());
+    pooling_.backward(d_pooled, d_h);
+    nn::MatrixMap d_x = d_x_.shape(TB, E);
+    rnn_->backward(d_h, d_x);
     for (int t = 0; t < T; ++t)
       for (int b = 0; b < B; ++b) {
         const int point = first + b;
         const double w = (point == 0 || point == steps) ? 0.5 : 1.0;
         integral_dot[static_cast<std::size_t>(t)] +=
-            w * static_cast<double>(d_x_.row(t * B + b).dot(text_embedding_.row(t)));
+            w * static_cast<double>(d_x.row(t * B + b).dot(text_embedding_.row(t)));
       }
   }
   params_.zero_grad();  // the layers added parameter gradients nobody asked for
@@ -335,7 +357,7 @@ void SequenceModel::set_thresholds(float threshold, std::vector<float> label_thr
 
 void SequenceModel::embed(const data::Batch& batch) {
   if (!chars_) {
-    embedding_->forward(ids_, x_);
+    embedding_->forward(ids_, x_.shape(static_cast<Eigen::Index>(ids_.size()), embedding_->dim()));
     return;
   }
   GYRE_CHECK(batch.char_offsets.size() == batch.ids.size() + 1,
@@ -353,22 +375,23 @@ void SequenceModel::embed(const data::Batch& batch) {
   embedding_->forward(ids_, word_x_);
   chars_->forward(nn::CharTokens{char_ids_, char_offsets_}, char_x_);
   const Eigen::Index E = spec_.embedding_size, F = spec_.char_filters;
-  x_.resize(word_x_.rows(), E + F);
-  x_.leftCols(E) = word_x_;
-  x_.rightCols(F) = char_x_;
+  nn::MatrixMap x = x_.shape(word_x_.rows(), E + F);
+  x.leftCols(E) = word_x_;
+  x.rightCols(F) = char_x_;
 }
 
 void SequenceModel::embed_backward() {
+  nn::MatrixMap d_x = d_x_.view();
   if (!chars_) {
-    embedding_->backward(d_x_);
+    embedding_->backward(d_x);
     return;
   }
   const Eigen::Index E = spec_.embedding_size, F = spec_.char_filters;
   if (embedding_->trainable()) {
-    d_part_ = d_x_.leftCols(E);
+    d_part_ = d_x.leftCols(E);
     embedding_->backward(d_part_);
   }
-  d_part_ = d_x_.rightCols(F);
+  d_part_ = d_x.rightCols(F);
   chars_->backward(d_part_);
 }
 
@@ -386,47 +409,51 @@ void SequenceModel::predict(const data::Batch& batch, Prediction& out) {
       char_cells_.push_back(t < batch.lengths[b] ? static_cast<int>(cell) : -1);
     }
   embed(batch);
-  rnn_->forward(x_, T, batch.lengths, h_, false, nullptr);
+  nn::MatrixMap h = h_.shape(x_.rows(), rnn_->output_size());
+  rnn_->forward(x_.view(), T, batch.lengths, h, false, nullptr);
   if (spec_.task == data::Task::kClassify) {
-    pooling_.forward(h_, T, batch.lengths, pooled_);
-    head_->forward(pooled_, logits_);
+    nn::MatrixMap pooled = pooled_.shape(B, h.cols());
+    pooling_.forward(h, T, batch.lengths, pooled);
+    nn::MatrixMap logits = logits_.shape(B, static_cast<Eigen::Index>(C));
+    head_->forward(pooled, logits);
     if (!batch.ngram_scores.empty()) {
       // The n-gram part's share of each logit (data::EncodedExample::ngram_scores), added before
       // the softmax and the temperature as runtime::NgramPart::add_scores does.
       GYRE_CHECK(batch.ngram_scores.size() == static_cast<std::size_t>(B) * C,
                  "a batch's n-gram scores do not match its rows and the model's labels");
-      for (Eigen::Index r = 0; r < logits_.rows(); ++r)
+      for (Eigen::Index r = 0; r < logits.rows(); ++r)
         for (std::size_t c = 0; c < C; ++c)
-          logits_(r, static_cast<Eigen::Index>(c)) += batch.ngram_scores[static_cast<std::size_t>(r) * C + c];
+          logits(r, static_cast<Eigen::Index>(c)) += batch.ngram_scores[static_cast<std::size_t>(r) * C + c];
     } else if (ngram_part_expected_) {
       throw Error(
           "this model has an n-gram part, which reads the words: its examples must be encoded with "
           "it (data::Encoder::set_ngram_part)");
     }
-    out.scores = logits_;
-    out.features = pooled_;
-    out.probs.resize(logits_.rows(), logits_.cols());
+    out.scores = logits;
+    out.features = pooled;
+    out.probs.resize(logits.rows(), logits.cols());
     if (spec_.output == OutputKind::kSigmoid) {
-      for (Eigen::Index r = 0; r < logits_.rows(); ++r)
+      for (Eigen::Index r = 0; r < logits.rows(); ++r)
         for (std::size_t c = 0; c < C; ++c)
           out.probs(r, static_cast<Eigen::Index>(c)) = runtime::tempered_sigmoid(
-              logits_(r, static_cast<Eigen::Index>(c)), tempered ? spec_.temperature[c] : 1.0f);
+              logits(r, static_cast<Eigen::Index>(c)), tempered ? spec_.temperature[c] : 1.0f);
     } else if (tempered) {
-      for (Eigen::Index r = 0; r < logits_.rows(); ++r)
-        runtime::tempered_softmax(&logits_(r, 0), C, spec_.temperature[0], &out.probs(r, 0));
+      for (Eigen::Index r = 0; r < logits.rows(); ++r)
+        runtime::tempered_softmax(&logits(r, 0), C, spec_.temperature[0], &out.probs(r, 0));
     } else {
-      nn::softmax_rows(logits_, out.probs);
+      nn::softmax_rows(logits, out.probs);
     }
     out.tags.clear();
     return;
   }
-  head_->forward(h_, logits_);
+  nn::MatrixMap logits = logits_.shape(h.rows(), static_cast<Eigen::Index>(C));
+  head_->forward(h, logits);
   out.tags.assign(static_cast<std::size_t>(T) * static_cast<std::size_t>(B), -1);
   if (crf_) {
-    crf_->decode(logits_, batch.lengths, out.tags);
-    crf_->marginals(logits_, batch.lengths, out.probs);
+    crf_->decode(logits, batch.lengths, out.tags);
+    crf_->marginals(logits, batch.lengths, out.probs);
   } else {
-    nn::softmax_rows(logits_, out.probs);
+    nn::softmax_rows(logits, out.probs);
     for (int b = 0; b < B; ++b) {
       for (int t = 0; t < batch.lengths[static_cast<std::size_t>(b)]; ++t) {
         Eigen::Index best = 0;
@@ -444,8 +471,7 @@ void SequenceModel::predict(const data::Batch& batch, Prediction& out) {
         if (crf_)
           runtime::temper_distribution(&out.probs(t * B + b, 0), C, spec_.temperature[0]);
         else
-          runtime::tempered_softmax(&logits_(t * B + b, 0), C, spec_.temperature[0],
-                                    &out.probs(t * B + b, 0));
+          runtime::tempered_softmax(&logits(t * B + b, 0), C, spec_.temperature[0], &out.probs(t * B + b, 0));
   }
 }
 

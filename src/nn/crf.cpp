@@ -271,6 +271,22 @@ void Crf::run_backward(const Eigen::Ref<const Matrix>& emissions, std::span<cons
 
 double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
                  std::span<const std::int32_t> gold, Matrix* d_emissions, float loss_scale) {
+  if (d_emissions == nullptr) return loss_impl(emissions, lengths, gold, nullptr, loss_scale);
+  if (d_emissions->rows() != emissions.rows() || d_emissions->cols() != emissions.cols())
+    d_emissions->resize(emissions.rows(), emissions.cols());
+  Eigen::Ref<Matrix> view(*d_emissions);
+  return loss_impl(emissions, lengths, gold, &view, loss_scale);
+}
+
+double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                 std::span<const std::int32_t> gold, Eigen::Ref<Matrix> d_emissions, float loss_scale) {
+  GYRE_CHECK(d_emissions.rows() == emissions.rows() && d_emissions.cols() == emissions.cols(),
+             "CRF: the gradient must be shaped like the emissions");
+  return loss_impl(emissions, lengths, gold, &d_emissions, loss_scale);
+}
+
+double Crf::loss_impl(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                      std::span<const std::int32_t> gold, Eigen::Ref<Matrix>* d_emissions, float loss_scale) {
   const Shape shape = check_batch(emissions, lengths);
   const std::size_t n = num_tags_, batch = shape.batch;
   check_gold(gold, lengths, shape.steps, batch, n);
@@ -302,7 +318,6 @@ double Crf::loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std:
   if (d_emissions == nullptr) return total;
 
   run_backward(emissions, lengths, shape);
-  d_emissions->resize(static_cast<Eigen::Index>(shape.steps * batch), static_cast<Eigen::Index>(n));
   const double scale = static_cast<double>(loss_scale);
   double* g_trans = grad_acc_.data();
   double* g_start = g_trans + n * n;

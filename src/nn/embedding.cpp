@@ -46,10 +46,16 @@ void Embedding::init_parameters(Rng& rng) {
 }
 
 void Embedding::forward(std::span<const std::int32_t> ids, Matrix& out) {
+  const auto N = static_cast<Eigen::Index>(ids.size());
+  if (out.rows() != N || out.cols() != weight_.value.cols()) out.resize(N, weight_.value.cols());
+  forward(ids, Eigen::Ref<Matrix>(out));
+}
+
+void Embedding::forward(std::span<const std::int32_t> ids, Eigen::Ref<Matrix> out) {
   const auto V = weight_.value.rows();
   const auto E = weight_.value.cols();
   const auto N = static_cast<Eigen::Index>(ids.size());
-  if (out.rows() != N || out.cols() != E) out.resize(N, E);
+  GYRE_CHECK(out.rows() == N && out.cols() == E, "Embedding::forward: output must be [ids x dim]");
   ids_.assign(ids.begin(), ids.end());
   for (Eigen::Index i = 0; i < N; ++i) {
     const std::int32_t id = ids[static_cast<std::size_t>(i)];
@@ -66,7 +72,7 @@ void Embedding::forward(std::span<const std::int32_t> ids, Matrix& out) {
   }
 }
 
-void Embedding::backward(const Matrix& d_out) {
+void Embedding::backward(Eigen::Ref<const Matrix> d_out) {
   if (!weight_.trainable) return;
   GYRE_CHECK(d_out.rows() == static_cast<Eigen::Index>(ids_.size()) && d_out.cols() == weight_.value.cols(),
              "Embedding::backward: d_out must be [N x dim] for the ids of the last forward");

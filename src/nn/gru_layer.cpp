@@ -74,8 +74,9 @@ void GruLayer::read_packs_from(const RecurrentLayer* source) {
                  .ws_->packs.own;
 }
 
-void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
-                       const Matrix* h0, const Matrix* /*c0*/, Matrix* h_final, Matrix* /*c_final*/) {
+void GruLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
+                       Eigen::Ref<Matrix> out, const Matrix* h0, const Matrix* /*c0*/, Matrix* h_final,
+                       Matrix* /*c_final*/) {
   const Eigen::Index B = detail::check_batch("GruLayer::forward", x.rows(), T, lengths, 0);
   const Eigen::Index H = hidden_size_, D = input_size_;
   GYRE_CHECK(x.cols() == D, "GruLayer::forward: input has " + std::to_string(x.cols()) +
@@ -153,8 +154,8 @@ void GruLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eig
   }
 }
 
-void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx, Matrix* d_h0,
-                        Matrix* /*d_c0*/) {
+void GruLayer::backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, bool accumulate_dx, Matrix* d_h0,
+                             Matrix* /*d_c0*/) {
   Workspace& w = *ws_;
   GYRE_CHECK(w.ready, "GruLayer::backward called before forward");
   const detail::SequenceLayout& lay = w.layout;
@@ -205,11 +206,7 @@ void GruLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumu
   detail::add_column_sums(dgi, bias_.grad.row(0).data());
   detail::add_column_sums(dgh, bias_hidden_.grad.row(0).data());
   if (d_x != nullptr) {
-    if (accumulate_dx) {
-      GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "GruLayer::backward: d_x has the wrong shape");
-    } else if (d_x->rows() != TB || d_x->cols() != D) {
-      d_x->resize(TB, D);
-    }
+    GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "GruLayer::backward: d_x has the wrong shape");
     MatrixMap dxs = w.dx.view(N, D);
     if (shared != nullptr)
       detail::fast::gemm_packed(N, D, 3 * H, dgi.data(), dgi.outerStride(), false, shared->in_back.data(),

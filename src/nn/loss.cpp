@@ -13,8 +13,8 @@ namespace {
 
 // Shared by the sequence and token versions; valid(i) says whether row i counts.
 template <typename Valid>
-double cross_entropy_impl(const Matrix& logits, std::span<const int> targets, Matrix& d_logits,
-                          const CrossEntropyOptions& opt, Valid valid) {
+double cross_entropy_impl(const Eigen::Ref<const Matrix>& logits, std::span<const int> targets,
+                          Eigen::Ref<Matrix> d_logits, const CrossEntropyOptions& opt, Valid valid) {
   const Eigen::Index N = logits.rows(), C = logits.cols();
   GYRE_CHECK(static_cast<Eigen::Index>(targets.size()) == N,
              "cross-entropy: one target per logits row expected");
@@ -22,7 +22,8 @@ double cross_entropy_impl(const Matrix& logits, std::span<const int> targets, Ma
              "cross-entropy: class_weights must have one weight per class");
   GYRE_CHECK(opt.label_smoothing >= 0.0f && opt.label_smoothing < 1.0f,
              "cross-entropy: label_smoothing must be in [0, 1)");
-  if (d_logits.rows() != N || d_logits.cols() != C) d_logits.resize(N, C);
+  GYRE_CHECK(d_logits.rows() == N && d_logits.cols() == C,
+             "cross-entropy: d_logits must be shaped like logits");
   const bool weighted = !opt.class_weights.empty();
   const double eps = opt.label_smoothing;
   auto w = [&](Eigen::Index c) {
@@ -68,13 +69,35 @@ double cross_entropy_impl(const Matrix& logits, std::span<const int> targets, Ma
 
 }  // namespace
 
+namespace {
+void shape_like(const Matrix& logits, Matrix& d_logits) {
+  if (d_logits.rows() != logits.rows() || d_logits.cols() != logits.cols())
+    d_logits.resize(logits.rows(), logits.cols());
+}
+}  // namespace
+
 double softmax_cross_entropy(const Matrix& logits, std::span<const int> targets, Matrix& d_logits,
                              const CrossEntropyOptions& options) {
+  shape_like(logits, d_logits);
+  return softmax_cross_entropy(Eigen::Ref<const Matrix>(logits), targets, Eigen::Ref<Matrix>(d_logits),
+                               options);
+}
+
+double softmax_cross_entropy(Eigen::Ref<const Matrix> logits, std::span<const int> targets,
+                             Eigen::Ref<Matrix> d_logits, const CrossEntropyOptions& options) {
   return cross_entropy_impl(logits, targets, d_logits, options, [](Eigen::Index) { return true; });
 }
 
 double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int T,
                            std::span<const int> lengths, Matrix& d_logits,
+                           const CrossEntropyOptions& options) {
+  shape_like(logits, d_logits);
+  return token_cross_entropy(Eigen::Ref<const Matrix>(logits), tags, T, lengths, Eigen::Ref<Matrix>(d_logits),
+                             options);
+}
+
+double token_cross_entropy(Eigen::Ref<const Matrix> logits, std::span<const int> tags, int T,
+                           std::span<const int> lengths, Eigen::Ref<Matrix> d_logits,
                            const CrossEntropyOptions& options) {
   const Eigen::Index B = detail::check_batch("token_cross_entropy", logits.rows(), T, lengths, 0);
   return cross_entropy_impl(logits, tags, d_logits, options,
@@ -82,11 +105,21 @@ double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int 
 }
 
 double sigmoid_binary_cross_entropy(const Matrix& logits, const Matrix& targets, Matrix& d_logits) {
+  shape_like(logits, d_logits);
+  return sigmoid_binary_cross_entropy(Eigen::Ref<const Matrix>(logits), Eigen::Ref<const Matrix>(targets),
+                                      Eigen::Ref<Matrix>(d_logits));
+}
+
+double sigmoid_binary_cross_entropy(Eigen::Ref<const Matrix> logits, Eigen::Ref<const Matrix> targets,
+                                    Eigen::Ref<Matrix> d_logits) {
   GYRE_CHECK(logits.rows() == targets.rows() && logits.cols() == targets.cols(),
              "sigmoid_binary_cross_entropy: logits and targets must have the same shape");
   GYRE_CHECK(logits.size() > 0, "sigmoid_binary_cross_entropy: empty input");
-  if (d_logits.rows() != logits.rows() || d_logits.cols() != logits.cols())
-    d_logits.resize(logits.rows(), logits.cols());
+  GYRE_CHECK(d_logits.rows() == logits.rows() && d_logits.cols() == logits.cols(),
+             "sigmoid_binary_cross_entropy: d_logits must be shaped like logits");
+  GYRE_CHECK(logits.outerStride() == logits.cols() && targets.outerStride() == targets.cols() &&
+                 d_logits.outerStride() == d_logits.cols(),
+             "sigmoid_binary_cross_entropy: the matrices must be contiguous");
   const double inv_n = 1.0 / static_cast<double>(logits.size());
   double total = 0.0;
   for (Eigen::Index i = 0; i < logits.size(); ++i) {
@@ -99,7 +132,7 @@ double sigmoid_binary_cross_entropy(const Matrix& logits, const Matrix& targets,
   return total * inv_n;
 }
 
-void softmax_rows(const Matrix& logits, Matrix& probs) {
+void softmax_rows(Eigen::Ref<const Matrix> logits, Matrix& probs) {
   if (probs.rows() != logits.rows() || probs.cols() != logits.cols())
     probs.resize(logits.rows(), logits.cols());
   for (Eigen::Index i = 0; i < logits.rows(); ++i) {

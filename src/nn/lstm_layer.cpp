@@ -103,8 +103,9 @@ void final_state(const detail::SequenceLayout& lay, const MatrixMap& initial, co
 
 }  // namespace
 
-void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
-                        const Matrix* h0, const Matrix* c0, Matrix* h_final, Matrix* c_final) {
+void LstmLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
+                        Eigen::Ref<Matrix> out, const Matrix* h0, const Matrix* c0, Matrix* h_final,
+                        Matrix* c_final) {
   const Eigen::Index B = detail::check_batch("LstmLayer::forward", x.rows(), T, lengths, 0);
   const Eigen::Index H = hidden_size_, D = input_size_;
   GYRE_CHECK(x.cols() == D, "LstmLayer::forward: input has " + std::to_string(x.cols()) +
@@ -186,8 +187,8 @@ void LstmLayer::forward(const Matrix& x, int T, std::span<const int> lengths, Ei
   final_state(lay, ci, cs, c_final);
 }
 
-void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx, Matrix* d_h0,
-                         Matrix* d_c0) {
+void LstmLayer::backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, bool accumulate_dx,
+                              Matrix* d_h0, Matrix* d_c0) {
   Workspace& w = *ws_;
   GYRE_CHECK(w.ready, "LstmLayer::backward called before forward");
   const detail::SequenceLayout& lay = w.layout;
@@ -243,11 +244,7 @@ void LstmLayer::backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accum
   w.gemm_dw_hidden.run(w_hidden_.grad, dgates, detail::Op::kT, h_prev, detail::Op::kN, true);
   detail::add_column_sums(dgates, bias_.grad.row(0).data());
   if (d_x != nullptr) {
-    if (accumulate_dx) {
-      GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "LstmLayer::backward: d_x has the wrong shape");
-    } else if (d_x->rows() != TB || d_x->cols() != D) {
-      d_x->resize(TB, D);
-    }
+    GYRE_CHECK(d_x->rows() == TB && d_x->cols() == D, "LstmLayer::backward: d_x has the wrong shape");
     MatrixMap dxs = w.dx.view(N, D);
     if (shared != nullptr)
       detail::fast::gemm_packed(N, D, 4 * H, dgates.data(), dgates.outerStride(), false,

@@ -11,13 +11,20 @@ Pooling::Pooling(PoolingKind kind, int directions) : kind_(kind), directions_(di
   GYRE_CHECK(directions == 1 || directions == 2, "Pooling: directions must be 1 or 2");
 }
 
-void Pooling::forward(const Matrix& seq, int T, std::span<const int> lengths, Matrix& pooled) {
+void Pooling::forward(Eigen::Ref<const Matrix> seq, int T, std::span<const int> lengths, Matrix& pooled) {
+  const auto B = static_cast<Eigen::Index>(lengths.size());
+  if (pooled.rows() != B || pooled.cols() != seq.cols()) pooled.resize(B, seq.cols());
+  forward(seq, T, lengths, Eigen::Ref<Matrix>(pooled));
+}
+
+void Pooling::forward(Eigen::Ref<const Matrix> seq, int T, std::span<const int> lengths,
+                      Eigen::Ref<Matrix> pooled) {
   const Eigen::Index B = detail::check_batch("Pooling::forward", seq.rows(), T, lengths);
   const Eigen::Index F = seq.cols();
   GYRE_CHECK(F % directions_ == 0, "Pooling::forward: feature count must split into the directions");
+  GYRE_CHECK(pooled.rows() == B && pooled.cols() == F, "Pooling::forward: output must be [B x F]");
   T_ = T;
   lengths_.assign(lengths.begin(), lengths.end());
-  if (pooled.rows() != B || pooled.cols() != F) pooled.resize(B, F);
   switch (kind_) {
     case PoolingKind::kLast: {
       const Eigen::Index H = F / directions_;
@@ -52,12 +59,18 @@ void Pooling::forward(const Matrix& seq, int T, std::span<const int> lengths, Ma
   }
 }
 
-void Pooling::backward(const Matrix& d_pooled, Matrix& d_seq) const {
+void Pooling::backward(Eigen::Ref<const Matrix> d_pooled, Matrix& d_seq) const {
+  const auto rows = static_cast<Eigen::Index>(T_) * static_cast<Eigen::Index>(lengths_.size());
+  if (d_seq.rows() != rows || d_seq.cols() != d_pooled.cols()) d_seq.resize(rows, d_pooled.cols());
+  backward(d_pooled, Eigen::Ref<Matrix>(d_seq));
+}
+
+void Pooling::backward(Eigen::Ref<const Matrix> d_pooled, Eigen::Ref<Matrix> d_seq) const {
   GYRE_CHECK(!lengths_.empty(), "Pooling::backward called before forward");
   const auto B = static_cast<Eigen::Index>(lengths_.size());
   const Eigen::Index F = d_pooled.cols();
   GYRE_CHECK(d_pooled.rows() == B, "Pooling::backward: d_pooled must be [B x F]");
-  if (d_seq.rows() != T_ * B || d_seq.cols() != F) d_seq.resize(T_ * B, F);
+  GYRE_CHECK(d_seq.rows() == T_ * B && d_seq.cols() == F, "Pooling::backward: d_seq must be [T*B x F]");
   if (kind_ != PoolingKind::kMean) d_seq.setZero();  // mean writes every row below
   switch (kind_) {
     case PoolingKind::kLast: {

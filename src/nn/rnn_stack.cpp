@@ -37,21 +37,23 @@ void RnnStack::init_parameters(Rng& rng) {
   for (auto& l : layers_) l->init_parameters(rng);
 }
 
-namespace {
-// Eigen's resize() reallocates on any size change; keep a buffer when it is big enough. Callers
-// that need exact shapes get them; the storage only grows when the batch does.
-void ensure_shape(Matrix& m, Eigen::Index rows, Eigen::Index cols) {
-  if (m.rows() != rows || m.cols() != cols) m.resize(rows, cols);
-}
-}  // namespace
-
 void RnnStack::forward(const Matrix& x, int T, std::span<const int> lengths, Matrix& out, bool training,
                        Rng* dropout_rng, const RnnState* init, RnnState* final) {
+  if (out.rows() != x.rows() || out.cols() != output_size()) out.resize(x.rows(), output_size());
+  forward(Eigen::Ref<const Matrix>(x), T, lengths, Eigen::Ref<Matrix>(out), training, dropout_rng, init,
+          final);
+}
+
+void RnnStack::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
+                       Eigen::Ref<Matrix> out, bool training, Rng* dropout_rng, const RnnState* init,
+                       RnnState* final) {
   GYRE_CHECK(x.cols() == config_.input_size, "RnnStack::forward: input has " + std::to_string(x.cols()) +
                                                  " columns, expected input_size " +
                                                  std::to_string(config_.input_size));
   const auto B = static_cast<Eigen::Index>(lengths.size());
   GYRE_CHECK(x.rows() == T * B, "RnnStack::forward: input rows must be T*B");
+  GYRE_CHECK(out.rows() == x.rows() && out.cols() == output_size(),
+             "RnnStack::forward: output must be [T*B x output_size]");
   const int dirs = directions(), L = config_.layers;
   const std::size_t n_states = static_cast<std::size_t>(L * dirs);
   const bool lstm = config_.cell == CellType::kLstm;
@@ -71,53 +73,60 @@ void RnnStack::forward(const Matrix& x, int T, std::span<const int> lengths, Mat
 
   const Eigen::Index H = config_.hidden_size, TB = x.rows();
   const float keep = 1.0f - config_.dropout, scale = 1.0f / keep;
-  const Matrix* in = &x;
   for (int k = 0; k < L; ++k) {
-    Matrix& o = k == L - 1 ? out : outputs_[static_cast<std::size_t>(k)];
-    ensure_shape(o, TB, H * dirs);
+    Eigen::Ref<Matrix> o =
+        k == L - 1 ? out : Eigen::Ref<Matrix>(outputs_[static_cast<std::size_t>(k)].shape(TB, H * dirs));
     for (int d = 0; d < dirs; ++d) {
       const auto idx = static_cast<std::size_t>(k * dirs + d);
       const bool carry = init != nullptr && d == 0;
-      layers_[idx]->forward(*in, T, lengths, o.middleCols(d * H, H), carry ? &init->h[idx] : nullptr,
-                            carry && lstm ? &init->c[idx] : nullptr,
-                            final != nullptr ? &final->h[idx] : nullptr,
-                            final != nullptr && lstm ? &final->c[idx] : nullptr);
+      // The input of layer k: x, then the previous layer's output (its buffer's view).
+      layers_[idx]->forward(
+          k == 0 ? x : Eigen::Ref<const Matrix>(outputs_[static_cast<std::size_t>(k - 1)].view()), T, lengths,
+          o.middleCols(d * H, H), carry ? &init->h[idx] : nullptr, carry && lstm ? &init->c[idx] : nullptr,
+          final != nullptr ? &final->h[idx] : nullptr, final != nullptr && lstm ? &final->c[idx] : nullptr);
     }
     if (k < L - 1 && dropout_applied_) {
-      Matrix& mask = masks_[static_cast<std::size_t>(k)];
-      ensure_shape(mask, TB, H * dirs);
+      MatrixMap mask = masks_[static_cast<std::size_t>(k)].shape(TB, H * dirs);
       for (Eigen::Index i = 0; i < mask.size(); ++i)
         mask.data()[i] = dropout_rng->uniform() < keep ? scale : 0.0f;
       o.array() *= mask.array();
     }
-    in = &o;
   }
 }
 
-void RnnStack::backward(const Matrix& d_out, Matrix& d_x) {
+void RnnStack::backward(Eigen::Ref<const Matrix> d_out, Matrix& d_x) {
+  if (d_x.rows() != rows_ || d_x.cols() != config_.input_size) d_x.resize(rows_, config_.input_size);
+  MatrixMap view(d_x.data(), d_x.rows(), d_x.cols());
+  backward_impl(d_out, &view);
+}
+void RnnStack::backward(Eigen::Ref<const Matrix> d_out, MatrixMap d_x) {
+  GYRE_CHECK(d_x.rows() == rows_ && d_x.cols() == config_.input_size,
+             "RnnStack::backward: d_x must be [T*B x input_size]");
   backward_impl(d_out, &d_x);
 }
-void RnnStack::backward(const Matrix& d_out) {
+void RnnStack::backward(Eigen::Ref<const Matrix> d_out) {
   backward_impl(d_out, nullptr);
 }
 
-void RnnStack::backward_impl(const Matrix& d_out, Matrix* d_x) {
+void RnnStack::backward_impl(const Eigen::Ref<const Matrix>& d_out, MatrixMap* d_x) {
   GYRE_CHECK(ready_, "RnnStack::backward called before forward");
   const int dirs = directions(), L = config_.layers;
   const Eigen::Index H = config_.hidden_size, TB = rows_;
   GYRE_CHECK(d_out.rows() == TB && d_out.cols() == H * dirs,
              "RnnStack::backward: d_out must be [T*B x output_size]");
   // grads_[0/1] alternate as "gradient w.r.t. this layer's output" and "w.r.t. its input".
-  const Matrix* d_cur = &d_out;
   for (int k = L - 1; k >= 0; --k) {
-    Matrix* d_in = k == 0 ? d_x : &grads_[static_cast<std::size_t>(k % 2)];
-    if (d_in != nullptr) ensure_shape(*d_in, TB, k == 0 ? config_.input_size : H * dirs);
-    for (int d = 0; d < dirs; ++d)
-      layers_[static_cast<std::size_t>(k * dirs + d)]->backward(d_cur->middleCols(d * H, H), d_in, d > 0);
-    if (k > 0) {
-      if (dropout_applied_) d_in->array() *= masks_[static_cast<std::size_t>(k - 1)].array();
-      d_cur = d_in;
+    MatrixMap grad_in =
+        k > 0 ? grads_[static_cast<std::size_t>(k % 2)].shape(TB, H * dirs) : MatrixMap(nullptr, 0, 0);
+    MatrixMap* d_in = k > 0 ? &grad_in : d_x;
+    for (int d = 0; d < dirs; ++d) {
+      auto d_cur = k == L - 1
+                       ? Eigen::Ref<const Matrix>(d_out.middleCols(d * H, H))
+                       : Eigen::Ref<const Matrix>(
+                             grads_[static_cast<std::size_t>((k + 1) % 2)].view().middleCols(d * H, H));
+      layers_[static_cast<std::size_t>(k * dirs + d)]->backward_into(d_cur, d_in, d > 0, nullptr, nullptr);
     }
+    if (k > 0 && dropout_applied_) d_in->array() *= masks_[static_cast<std::size_t>(k - 1)].view().array();
   }
 }
 

@@ -61,7 +61,7 @@ void WorkerPool::loop(int worker) {
   }
 }
 
-void WorkerPool::run(const std::function<void(int)>& job) {
+void WorkerPool::run_ref(JobRef job) {
   for (auto& e : errors_) e = nullptr;
   if (workers_ > 1) {
     job_ = &job;

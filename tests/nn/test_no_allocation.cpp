@@ -6,6 +6,7 @@
 
 #include <catch2/catch.hpp>
 #include <cstddef>
+#include <utility>
 #include <vector>
 
 #include "gyre/nn/gru_layer.hpp"
@@ -99,6 +100,59 @@ TEST_CASE("RnnStack forward+backward allocate nothing after warm-up", "[nn][allo
                                                           : dynamic_cast<GruLayer&>(l).workspace_capacity();
           CHECK(cap == caps[i++]);
         }
+    }
+  }
+}
+
+TEST_CASE("RnnStack allocates nothing for batches of changing shape once the largest was seen",
+          "[nn][alloc]") {
+  // Length-bucketed training changes T and B from step to step; the caller's buffers
+  // (MatrixBuffer) and the stack's own keep their storage, so after a warm-up pass over the shapes
+  // no step allocates, whatever the order.
+  for (const CellType cell : {CellType::kLstm, CellType::kGru}) {
+    DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm" : "gru")) {
+      const int D = 64, H = 128;
+      ParameterStore store;
+      RnnStackConfig cfg;
+      cfg.cell = cell;
+      cfg.input_size = D;
+      cfg.hidden_size = H;
+      cfg.layers = 2;
+      cfg.bidirectional = true;
+      cfg.dropout = 0.2f;
+      RnnStack stack(cfg, store);
+      Rng rng(3);
+      stack.init_parameters(rng);
+      // (T, lengths) per batch: several padded lengths and batch sizes, not sorted.
+      const std::vector<std::pair<int, std::vector<int>>> shapes = {
+          {7, {7, 3, 5}},
+          {19, {19, 2, 11, 19, 4, 8, 13}},
+          {1, {1}},
+          {12, {12, 9, 1, 5, 3, 7, 10, 12, 6, 2, 11}},
+          {4, {4, 4}}};
+      MatrixBuffer x_buf, g_buf, out_buf, dx_buf;
+      auto run = [&](std::size_t k) {
+        const int T = shapes[k].first;
+        const std::vector<int>& lens = shapes[k].second;
+        const auto TB = static_cast<Eigen::Index>(T) * static_cast<Eigen::Index>(lens.size());
+        MatrixMap x = x_buf.shape(TB, D);
+        for (Eigen::Index i = 0; i < x.size(); ++i) x.data()[i] = rng.uniform() - 0.5f;
+        MatrixMap out = out_buf.shape(TB, stack.output_size());
+        stack.forward(x, T, lens, out, true, &rng);
+        MatrixMap g = g_buf.shape(TB, stack.output_size());
+        for (Eigen::Index i = 0; i < g.size(); ++i) g.data()[i] = rng.uniform() - 0.5f;
+        stack.backward(g, dx_buf.shape(TB, D));
+      };
+      for (std::size_t k = 0; k < shapes.size(); ++k) run(k);  // warm-up: every shape once
+#if GYRE_COUNT_MALLOC
+      g_mallocs = 0;
+      g_counting = true;
+#endif
+      for (const std::size_t k : {2u, 0u, 4u, 1u, 3u, 0u, 1u}) run(k);
+#if GYRE_COUNT_MALLOC
+      g_counting = false;
+      CHECK(g_mallocs == 0);
+#endif
     }
   }
 }

@@ -179,12 +179,15 @@ class SequenceModel {
   std::vector<std::int32_t> ids_;
   std::vector<int> lengths_;
   std::vector<int> active_;
+  std::vector<data::Window> windows_;
   std::vector<int> targets_;
   nn::Matrix text_embedding_;
   std::vector<int> char_cells_;
   std::vector<std::int32_t> char_ids_, char_offsets_;
   nn::Matrix word_x_, char_x_, d_part_;
-  nn::Matrix x_, h_, pooled_, logits_, d_logits_, d_pooled_, d_h_, d_x_, multi_hot_;
+  // The step's buffers, grown to the largest batch shape seen (T*B rows vary from batch to
+  // batch): after that, a training step allocates nothing here.
+  nn::MatrixBuffer x_, h_, pooled_, logits_, d_logits_, d_pooled_, d_h_, d_x_, multi_hot_;
   nn::RnnState carry_, init_, final_;
 };
 

@@ -74,6 +74,10 @@ class Crf {
   /// a non-finite result.
   double loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
               std::span<const std::int32_t> gold, Matrix* d_emissions = nullptr, float loss_scale = 1.0f);
+  /// Same with the gradient written into a view the caller has shaped like emissions (e.g. a
+  /// MatrixBuffer's, so that batches of changing shape reuse its storage).
+  double loss(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+              std::span<const std::int32_t> gold, Eigen::Ref<Matrix> d_emissions, float loss_scale);
 
   /// Best path per sequence. tags_out [Tmax*B] time-major (-1 on padding). best_scores (optional,
   /// [B]) receives each best path's score s(y*).
@@ -98,6 +102,8 @@ class Crf {
     std::size_t steps = 0;  // Tmax
     std::size_t batch = 0;  // B
   };
+  double loss_impl(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths,
+                   std::span<const std::int32_t> gold, Eigen::Ref<Matrix>* d_emissions, float loss_scale);
   Shape check_batch(const Eigen::Ref<const Matrix>& emissions, std::span<const std::int32_t> lengths) const;
   void load_scores(bool use_constraints);  // copies parameters (+ -inf masks) into double buffers
   void reserve(Shape shape);

@@ -13,14 +13,14 @@ class Dropout {
   float rate() const noexcept { return rate_; }
 
   /// In place. When !training or rate == 0 this is the identity (and backward too).
-  void forward(Matrix& x, bool training, Rng* rng);
+  void forward(Eigen::Ref<Matrix> x, bool training, Rng* rng);
   /// In place: d *= mask of the last forward.
-  void backward(Matrix& d) const;
+  void backward(Eigen::Ref<Matrix> d) const;
 
  private:
   float rate_;
   bool active_ = false;
-  Matrix mask_;  // 0 or 1/(1-p)
+  MatrixBuffer mask_;  // 0 or 1/(1-p), grown to the largest batch
 };
 
 }  // namespace gyre::nn

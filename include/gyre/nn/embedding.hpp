@@ -36,9 +36,11 @@ class Embedding {
   /// ids: time-major [T*B] (any flat layout), each in [0, V). out: [ids.size() x E]. The ids are
   /// copied for backward. Throws gyre::Error on an id out of range.
   void forward(std::span<const std::int32_t> ids, Matrix& out);
+  /// Same into a view the caller has shaped [ids.size() x E] (e.g. a MatrixBuffer's).
+  void forward(std::span<const std::int32_t> ids, Eigen::Ref<Matrix> out);
   /// d_out: [N x E] for the ids of the last forward. Adds into weight.grad rows and appends the
   /// touched row ids to weight.touched_rows (call finalize_touched_rows() before an update).
-  void backward(const Matrix& d_out);
+  void backward(Eigen::Ref<const Matrix> d_out);
 
   /// Loads a whitespace-separated text vector file, one "token v1 ... vE" per line (an optional
   /// first line "count dim" is accepted and checked). lookup(token) returns the row id or -1 for

@@ -22,19 +22,29 @@ struct CrossEntropyOptions {
 /// Throws gyre::Error on a target >= C or shape mismatch.
 double softmax_cross_entropy(const Matrix& logits, std::span<const int> targets, Matrix& d_logits,
                              const CrossEntropyOptions& options = {});
+/// Same with d_logits a view the caller has shaped like logits (e.g. a MatrixBuffer's).
+double softmax_cross_entropy(Eigen::Ref<const Matrix> logits, std::span<const int> targets,
+                             Eigen::Ref<Matrix> d_logits, const CrossEntropyOptions& options = {});
 
 /// Per-token version for taggers: logits [T*B x C] time-major, tags [T*B]; rows with
 /// t >= lengths[b] are padding and ignored. Mean over valid tokens.
 double token_cross_entropy(const Matrix& logits, std::span<const int> tags, int T,
                            std::span<const int> lengths, Matrix& d_logits,
                            const CrossEntropyOptions& options = {});
+/// Same with d_logits a view the caller has shaped like logits.
+double token_cross_entropy(Eigen::Ref<const Matrix> logits, std::span<const int> tags, int T,
+                           std::span<const int> lengths, Eigen::Ref<Matrix> d_logits,
+                           const CrossEntropyOptions& options = {});
 
 /// Multi-label: logits and targets [N x C], targets 0 or 1 (any value in [0, 1] is accepted).
 /// Mean of the binary cross-entropy over all N*C entries, computed stably as
 /// max(x, 0) - x*y + log(1 + exp(-|x|)).
 double sigmoid_binary_cross_entropy(const Matrix& logits, const Matrix& targets, Matrix& d_logits);
+/// Same with d_logits a view the caller has shaped like logits.
+double sigmoid_binary_cross_entropy(Eigen::Ref<const Matrix> logits, Eigen::Ref<const Matrix> targets,
+                                    Eigen::Ref<Matrix> d_logits);
 
 /// Row-wise softmax (stable), probs [N x C].
-void softmax_rows(const Matrix& logits, Matrix& probs);
+void softmax_rows(Eigen::Ref<const Matrix> logits, Matrix& probs);
 
 }  // namespace gyre::nn

@@ -22,11 +22,11 @@ class LstmLayer final : public RecurrentLayer {
   int hidden_size() const noexcept override { return hidden_size_; }
   bool reverse() const noexcept override { return reverse_; }
   void init_parameters(Rng& rng) override;
-  void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
+  void forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
                const Matrix* h0 = nullptr, const Matrix* c0 = nullptr, Matrix* h_final = nullptr,
                Matrix* c_final = nullptr) override;
-  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
-                Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) override;
+  void backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, bool accumulate_dx, Matrix* d_h0,
+                     Matrix* d_c0) override;
 
   void reserve_packs() override;
   void pack_weights(int part, int parts) override;

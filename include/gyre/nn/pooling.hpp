@@ -23,9 +23,13 @@ class Pooling {
   explicit Pooling(PoolingKind kind, int directions = 1);
   PoolingKind kind() const noexcept { return kind_; }
 
-  void forward(const Matrix& seq, int T, std::span<const int> lengths, Matrix& pooled);
+  void forward(Eigen::Ref<const Matrix> seq, int T, std::span<const int> lengths, Matrix& pooled);
+  /// Same into a view the caller has shaped [B x F] (e.g. a MatrixBuffer's).
+  void forward(Eigen::Ref<const Matrix> seq, int T, std::span<const int> lengths, Eigen::Ref<Matrix> pooled);
   /// d_pooled [B x F] -> d_seq [T*B x F] (overwritten; zero where nothing was pooled).
-  void backward(const Matrix& d_pooled, Matrix& d_seq) const;
+  void backward(Eigen::Ref<const Matrix> d_pooled, Matrix& d_seq) const;
+  /// Same into a view the caller has shaped [T*B x F].
+  void backward(Eigen::Ref<const Matrix> d_pooled, Eigen::Ref<Matrix> d_seq) const;
 
  private:
   PoolingKind kind_;

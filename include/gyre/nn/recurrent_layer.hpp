@@ -45,16 +45,29 @@ class RecurrentLayer {
   /// h0/c0: optional initial state [B x H] (nullptr = zeros; c0 ignored by GRU).
   /// h_final/c_final: optional, receive the state after each sequence's last processed step
   /// (for a reverse layer: after t = 0). Throws gyre::Error on inconsistent shapes.
-  virtual void forward(const Matrix& x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
-                       const Matrix* h0 = nullptr, const Matrix* c0 = nullptr, Matrix* h_final = nullptr,
-                       Matrix* c_final = nullptr) = 0;
+  virtual void forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
+                       Eigen::Ref<Matrix> out, const Matrix* h0 = nullptr, const Matrix* c0 = nullptr,
+                       Matrix* h_final = nullptr, Matrix* c_final = nullptr) = 0;
 
   /// d_out: [T*B x H] gradient of the loss w.r.t. out (padded rows ignored). Adds parameter
   /// gradients into the store. d_x (optional): [T*B x D], overwritten, or added to when
   /// accumulate_dx. d_h0/d_c0 (optional): gradient w.r.t. the initial state. The gradient w.r.t.
   /// the final state is taken as zero (truncated BPTT cuts it at the window boundary).
-  virtual void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
-                        Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) = 0;
+  void backward(Eigen::Ref<const Matrix> d_out, Matrix* d_x, bool accumulate_dx = false,
+                Matrix* d_h0 = nullptr, Matrix* d_c0 = nullptr) {
+    if (d_x == nullptr) {
+      backward_into(d_out, nullptr, accumulate_dx, d_h0, d_c0);
+      return;
+    }
+    if (!accumulate_dx && (d_x->rows() != d_out.rows() || d_x->cols() != input_size()))
+      d_x->resize(d_out.rows(), input_size());
+    MatrixMap view(d_x->data(), d_x->rows(), d_x->cols());
+    backward_into(d_out, &view, accumulate_dx, d_h0, d_c0);
+  }
+  /// Same with d_x (optional) a view the caller has shaped [T*B x input_size] (e.g. a
+  /// MatrixBuffer's, so that batches of changing shape reuse its storage).
+  virtual void backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, bool accumulate_dx, Matrix* d_h0,
+                             Matrix* d_c0) = 0;
 
   /// Weight packs shared by data-parallel replicas (issue 13). With the AVX-512 kernels each
   /// forward and backward packs the layer's weight matrices into the panel layout its products

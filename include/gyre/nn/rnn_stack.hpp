@@ -59,21 +59,28 @@ class RnnStack {
   /// sequence's last valid step (bwd direction: after step 0).
   void forward(const Matrix& x, int T, std::span<const int> lengths, Matrix& out, bool training,
                Rng* dropout_rng, const RnnState* init = nullptr, RnnState* final = nullptr);
+  /// Same with out a view the caller has shaped [T*B x output_size()] (e.g. a MatrixBuffer's:
+  /// batches of changing shape then reuse its storage, as the stack's own buffers do).
+  void forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
+               bool training, Rng* dropout_rng, const RnnState* init = nullptr, RnnState* final = nullptr);
 
   /// d_out: [T*B x output_size()]. Adds parameter gradients into the store; d_x receives
   /// [T*B x input_size] (overwritten). The gradient w.r.t. `init` is not propagated (the window
   /// boundary of truncated BPTT).
-  void backward(const Matrix& d_out, Matrix& d_x);
+  void backward(Eigen::Ref<const Matrix> d_out, Matrix& d_x);
+  /// Same with d_x a contiguous view the caller has shaped [T*B x input_size].
+  void backward(Eigen::Ref<const Matrix> d_out, MatrixMap d_x);
   /// Same, without computing the input gradient (e.g. frozen embeddings).
-  void backward(const Matrix& d_out);
+  void backward(Eigen::Ref<const Matrix> d_out);
 
  private:
-  void backward_impl(const Matrix& d_out, Matrix* d_x);
+  void backward_impl(const Eigen::Ref<const Matrix>& d_out, MatrixMap* d_x);
 
   RnnStackConfig config_;
   std::vector<std::unique_ptr<RecurrentLayer>> layers_;  // index k * directions + dir
-  // Per layer k: its output [T*B x output_size] (after dropout for k < layers-1), dropout mask.
-  std::vector<Matrix> outputs_, masks_, grads_;
+  // Per layer k: its output [T*B x output_size] (after dropout for k < layers-1), dropout mask;
+  // grown to the largest batch (MatrixBuffer), so a step of any smaller shape allocates nothing.
+  std::vector<MatrixBuffer> outputs_, masks_, grads_;
   bool ready_ = false;
   Eigen::Index rows_ = 0;  // T*B of the last forward
   bool dropout_applied_ = false;

@@ -4,6 +4,7 @@
 // time t), and a weight [rows x cols] is laid out as the model file stores it.
 
 #include <Eigen/Core>
+#include <cstddef>
 
 namespace gyre::nn {
 
@@ -12,5 +13,35 @@ using Vector = Eigen::Matrix<float, 1, Eigen::Dynamic, Eigen::RowMajor>;  // a r
 using MatrixMap = Eigen::Map<Matrix>;
 using ConstMatrixMap = Eigen::Map<const Matrix>;
 using MatrixD = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor>;
+
+/// Grow-only storage for a matrix whose shape changes from batch to batch (the time-major buffers
+/// of a training step: T*B rows, T and B varying). Eigen's resize() frees and allocates on every
+/// change of size; shape() keeps the storage whenever the new shape fits in it, so once the
+/// largest shape has been seen a step touches the heap no more. The storage is Eigen's own
+/// (aligned like a Matrix's data), so the same products and sums give the same bits on a view as
+/// on a Matrix.
+class MatrixBuffer {
+ public:
+  /// Views the first rows*cols floats as a [rows x cols] matrix, growing the storage when it is
+  /// too small. The contents are unspecified after a call that changes the shape.
+  MatrixMap shape(Eigen::Index rows, Eigen::Index cols) {
+    if (rows * cols > storage_.size()) storage_.resize(rows * cols);
+    rows_ = rows;
+    cols_ = cols;
+    return view();
+  }
+  /// The current shape's view.
+  MatrixMap view() noexcept { return MatrixMap(storage_.data(), rows_, cols_); }
+  ConstMatrixMap view() const noexcept { return ConstMatrixMap(storage_.data(), rows_, cols_); }
+  Eigen::Index rows() const noexcept { return rows_; }
+  Eigen::Index cols() const noexcept { return cols_; }
+  std::size_t capacity_bytes() const noexcept {
+    return static_cast<std::size_t>(storage_.size()) * sizeof(float);
+  }
+
+ private:
+  Eigen::Matrix<float, Eigen::Dynamic, 1> storage_;
+  Eigen::Index rows_ = 0, cols_ = 0;
+};
 
 }  // namespace gyre::nn

@@ -12,8 +12,9 @@
 #include <atomic>
 #include <cstdint>
 #include <exception>
-#include <functional>
+#include <memory>
 #include <thread>
+#include <type_traits>
 #include <vector>
 
 namespace gyre::train {
@@ -27,17 +28,31 @@ class WorkerPool {
 
   int size() const noexcept { return workers_; }
   /// Calls job(w) for w = 0 .. size()-1 concurrently; returns when all are done. The first
-  /// exception thrown by any job is rethrown here (after all jobs finished).
-  void run(const std::function<void(int)>& job);
+  /// exception thrown by any job is rethrown here (after all jobs finished). The job is called
+  /// through a reference, never copied: a lambda with any captures costs no allocation (a
+  /// std::function made of it would allocate once it captures more than two pointers, i.e. once
+  /// per fork-join of every training step).
+  template <class Job>
+  void run(Job&& job) {
+    using F = std::remove_reference_t<Job>;
+    run_ref(JobRef{const_cast<void*>(static_cast<const void*>(std::addressof(job))),
+                   [](void* f, int w) { (*static_cast<F*>(f))(w); }});
+  }
 
   /// Polling rounds before a waiting thread sleeps (about 20-50 us; tests may set 0).
   static constexpr int kSpinRounds = 4000;
 
  private:
+  struct JobRef {
+    void* object;
+    void (*call)(void* object, int worker);
+    void operator()(int worker) const { call(object, worker); }
+  };
+  void run_ref(JobRef job);
   void loop(int worker);
   int workers_;
   std::vector<std::thread> threads_;
-  const std::function<void(int)>* job_ = nullptr;
+  const JobRef* job_ = nullptr;
   std::atomic<std::uint32_t> generation_{0};  // bumped to start a job (and to stop)
   std::atomic<std::uint32_t> pending_{0};     // workers 1.. still running the current job
   std::atomic<bool> stop_{false};
