@@ -20,12 +20,25 @@ using MatrixD = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::Row
 /// largest shape has been seen a step touches the heap no more. The storage is Eigen's own
 /// (aligned like a Matrix's data), so the same products and sums give the same bits on a view as
 /// on a Matrix.
+/// The storage behind MatrixBuffer and the layers' workspaces: at least `count` floats. A growth
+/// neither copies nor zeroes (the old contents are dropped; callers write before they read), and
+/// it takes half as much again as asked, so a run whose batches grow a little at a time (length
+/// buckets met in random order) reallocates a few times instead of at every new longest batch;
+/// pages of a freshly mapped block that are never written cost no fault and no resident memory.
+inline float* grow_storage(Eigen::Matrix<float, Eigen::Dynamic, 1>& storage, Eigen::Index count) {
+  if (count > storage.size()) {
+    storage.resize(0);  // free first: the new block may reuse the old one's memory
+    storage.resize(count + count / 2);
+  }
+  return storage.data();
+}
+
 class MatrixBuffer {
  public:
   /// Views the first rows*cols floats as a [rows x cols] matrix, growing the storage when it is
   /// too small. The contents are unspecified after a call that changes the shape.
   MatrixMap shape(Eigen::Index rows, Eigen::Index cols) {
-    if (rows * cols > storage_.size()) storage_.resize(rows * cols);
+    grow_storage(storage_, rows * cols);
     rows_ = rows;
     cols_ = cols;
     return view();

@@ -23,17 +23,17 @@ inline void copy_floats(float* dst, const float* src, Eigen::Index count) {
 class GrowBuffer {
  public:
   /// Views the first rows*cols floats as a [rows x cols] matrix, growing the storage if needed
-  /// (contents are unspecified after a growth).
+  /// (contents are unspecified after a growth: nothing is copied or zeroed, see MatrixBuffer).
   MatrixMap view(Eigen::Index rows, Eigen::Index cols) {
-    const auto n = static_cast<std::size_t>(rows * cols);
-    if (data_.size() < n) data_.resize(n);
-    return MatrixMap(data_.data(), rows, cols);
+    return MatrixMap(grow_storage(data_, rows * cols), rows, cols);
   }
-  std::size_t capacity_bytes() const noexcept { return data_.capacity() * sizeof(float); }
+  std::size_t capacity_bytes() const noexcept {
+    return static_cast<std::size_t>(data_.size()) * sizeof(float);
+  }
   const float* data() const noexcept { return data_.data(); }
 
  private:
-  std::vector<float> data_;
+  Eigen::Matrix<float, Eigen::Dynamic, 1> data_;
 };
 
 /// out[c] += the sum of column c of a (the bias gradients). AVX-512 path: fast::add_column_sums,
