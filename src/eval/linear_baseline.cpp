@@ -398,6 +398,8 @@ LinearModel fit(const Rows& x, std::span<const std::int32_t> labels, int classes
   out.classes = classes;
   int iteration = 0;
   for (; iteration < options.max_iterations; ++iteration) {
+    if (options.stop_requested != nullptr && options.stop_requested())
+      throw Interrupted("the linear fit was interrupted at L-BFGS iteration " + std::to_string(iteration));
     if (max_abs(grad) <= options.gradient_tolerance * std::max(1.0, std::abs(value))) {
       out.converged = true;
       break;

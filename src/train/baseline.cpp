@@ -12,6 +12,7 @@
 #include "gyre/eval/classification.hpp"
 #include "gyre/eval/linear_baseline.hpp"
 #include "gyre/eval/span_metrics.hpp"
+#include "gyre/train/interrupt.hpp"
 
 namespace gyre::train {
 
@@ -163,6 +164,7 @@ struct LinearBaseline::Impl {
     options.c = penalty;
     options.threads = threads;
     options.warm_start = true;  // the grid's C values ascend: each fit starts at the previous one
+    options.stop_requested = interrupt_requested;  // Ctrl-C stops a long fit within an iteration
     if (task == data::Task::kClassify) {
       classifier.fit(static_cast<int>(vocab.labels.size()), options);
       use.candidate_features = classifier.candidate_feature_count();

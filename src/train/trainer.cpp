@@ -1278,6 +1278,7 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
     // epochs): say what runs now, and its cost when it is done.
     LinearFitCaps caps = linear_fit_caps_for(config_);
     caps.known_examples = train_examples;
+    if (options_.interrupt_linear_fit) request_interrupt();
     const bool sampled = caps.examples > 0 && train_examples > caps.examples;
     progress_.note(std::string("fitting the ") +
                    (want_part ? "n-gram part (the linear baseline's model)" : "linear baseline") + " on " +
@@ -1287,22 +1288,36 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
                    "L2 logistic regression, C chosen on dev" +
                    (want_part ? "; --ngram-part off --no-baseline skip it" : "; --no-baseline skips it") +
                    ")");
-    fitted = LinearBaseline::fit(
-        data_.vocab, data_.task,
-        [&](const ExampleVisitor& visit) {
-          std::size_t examples_read = 0;  // per pass: the baseline may read the split more than once
-          train_split([&](const data::Example& ex) {
-            ++examples_read;
-            visit(ex);
-          });
-          if (examples_read != train_examples)
-            throw IoError(config_.train +
-                          ": the file changed during training: read again for the linear baseline, it has " +
-                          std::to_string(examples_read) + " training examples instead of " +
-                          std::to_string(train_examples));
-        },
-        config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0, ngram_order_for(config_),
-        config_.threads, caps);
+    try {
+      fitted = LinearBaseline::fit(
+          data_.vocab, data_.task,
+          [&](const ExampleVisitor& visit) {
+            std::size_t examples_read = 0;  // per pass: the baseline may read the split more than once
+            train_split([&](const data::Example& ex) {
+              if (interrupt_requested())
+                throw Interrupted("the linear fit was interrupted while reading " + config_.train);
+              ++examples_read;
+              visit(ex);
+            });
+            if (examples_read != train_examples)
+              throw IoError(
+                  config_.train +
+                  ": the file changed during training: read again for the linear baseline, it has " +
+                  std::to_string(examples_read) + " training examples instead of " +
+                  std::to_string(train_examples));
+          },
+          config_.train, read_run_split(config_, true, data_.tag_scheme), dev_path, 0,
+          ngram_order_for(config_), config_.threads, caps);
+    } catch (const Interrupted&) {
+      // The epochs are saved (the resume checkpoint says training is over): resuming fits again
+      // and finishes the run. metrics.json is not written, so the run is not mistaken for finished.
+      progress_.note("\ninterrupted during the linear fit; the trained epochs are saved in " +
+                     (dir_ / io::kResumeCheckpointFile).string() + "; finish with: gyre train --resume " +
+                     dir_.string());
+      result.outcome = TrainOutcome::kInterrupted;
+      result.final_metrics = json();
+      return;
+    }
     const LinearBaseline& baseline = *fitted;
     const LinearFitUse& use = baseline.use();
     char c_text[32];
@@ -1613,7 +1628,10 @@ TrainResult Run::execute() {
       return result;
     }
   }
-  finish(early_stopped_ ? TrainOutcome::kEarlyStopped : TrainOutcome::kFinished, result);
+  // A resumed run whose epochs were over (interrupted in the linear fit) stopped early if it ended
+  // before its last epoch.
+  const bool early = early_stopped_ || (state_.finished && state_.epoch < config_.epochs);
+  finish(early ? TrainOutcome::kEarlyStopped : TrainOutcome::kFinished, result);
   return result;
 }
 

@@ -185,6 +185,34 @@ TEST_CASE("an interrupted run resumes to bit-identical weights", "[train]") {
   REQUIRE(std::count(std::istreambuf_iterator<char>(log), std::istreambuf_iterator<char>(), '\n') == 3);
 }
 
+TEST_CASE("a run interrupted in its linear fit resumes to the same finished run", "[train]") {
+  auto config = small_config();
+  config.epochs = 2;
+  const fs::path whole = tmp_dir("fit_cut_whole");
+  const auto expected = gyre::train::train(config, options_for(whole));
+  REQUIRE(expected.final_metrics.contains("ngram_part"));  // the fit makes the model's n-gram part
+
+  const fs::path cut = tmp_dir("fit_cut");
+  auto opts = options_for(cut);
+  opts.interrupt_linear_fit = true;  // as if Ctrl-C came when the fit starts, after the last epoch
+  const auto first = gyre::train::train(config, opts);
+  REQUIRE(first.outcome == gyre::train::TrainOutcome::kInterrupted);
+  REQUIRE(first.epochs_completed == 2);
+  REQUIRE_FALSE(fs::exists(cut / "metrics.json"));  // not looking finished
+  const auto second = gyre::train::resume(options_for(cut));
+  REQUIRE(second.outcome == gyre::train::TrainOutcome::kFinished);
+  REQUIRE(second.epochs_completed == 2);
+  // No epoch ran again; the fit, the blend and the calibration are those of the uninterrupted run.
+  REQUIRE(weights_of(whole / "selected.bin") == weights_of(cut / "selected.bin"));
+  const auto done = nlohmann::json::parse(gyre::read_file(cut / "metrics.json"));
+  for (const char* key : {"ngram_part", "calibration", "dev"})
+    REQUIRE(done.at(key) == expected.final_metrics.at(key));
+  REQUIRE(done.at("baseline").at("dev") == expected.final_metrics.at("baseline").at("dev"));
+  REQUIRE(done.at("baseline").at("c") == expected.final_metrics.at("baseline").at("c"));
+  std::ifstream log(cut / "log.jsonl");
+  REQUIRE(std::count(std::istreambuf_iterator<char>(log), std::istreambuf_iterator<char>(), '\n') == 2);
+}
+
 TEST_CASE("epoch_step_limit ends each epoch after that many steps of its plan", "[train]") {
   auto config = small_config();  // 400 examples, batch 16: 25 steps an epoch
   config.epochs = 1;

@@ -53,6 +53,12 @@ class DivergenceError : public Error {
   using Error::Error;
 };
 
+/// Long work stopped on request (SIGINT/SIGTERM) before it finished; what it had made is dropped.
+class Interrupted : public Error {
+ public:
+  using Error::Error;
+};
+
 /// An I/O failure (cannot open, write, rename ...).
 class IoError : public Error {
  public:

@@ -70,6 +70,9 @@ struct LbfgsOptions {
   // NgramClassifier/WindowTagger::fit: start from the model of the previous fit (another C) instead
   // of zeros; the optimum is the same (the objective is strictly convex), reached in fewer steps.
   bool warm_start = false;
+  // Asked once per L-BFGS iteration (nullptr: never): when it returns true the fit throws
+  // gyre::Interrupted (a Ctrl-C during a long fit stops it within one iteration).
+  bool (*stop_requested)() noexcept = nullptr;
 };
 
 /// A fitted multinomial logistic regression: scores = W x + b, W stored feature-major

@@ -28,6 +28,8 @@ struct TrainOptions {
   int interrupt_after_epochs = 0;
   /// Test hook: behave as if SIGINT arrived after this many optimizer steps of this call (0 = never).
   long long interrupt_after_steps = 0;
+  /// Test hook: behave as if SIGINT arrived when the linear fit (baseline or n-gram part) starts.
+  bool interrupt_linear_fit = false;
   /// Fit the linear baseline (gyre/train/baseline.hpp) on the same split when the run ends and
   /// record it in metrics.json under "baseline" (single-label classifiers and taggers).
   bool fit_baseline = true;
