@@ -14,32 +14,7 @@
 #include "gyre/nn/rnn_stack.hpp"
 #include "nn_test_util.hpp"
 
-#if defined(__SANITIZE_ADDRESS__)
-#define GYRE_COUNT_MALLOC 0
-#elif defined(__has_feature)
-#if __has_feature(address_sanitizer)
-#define GYRE_COUNT_MALLOC 0
-#endif
-#endif
-#ifndef GYRE_COUNT_MALLOC
-#if defined(__GLIBC__) || defined(__linux__)
-#define GYRE_COUNT_MALLOC 1
-#else
-#define GYRE_COUNT_MALLOC 0
-#endif
-#endif
-
-#if GYRE_COUNT_MALLOC
-namespace {
-bool g_counting = false;  // single-threaded test
-std::size_t g_mallocs = 0;
-}  // namespace
-extern "C" void* __libc_malloc(std::size_t size);  // NOLINT: glibc's allocator entry point
-extern "C" void* malloc(std::size_t size) {        // NOLINT
-  if (g_counting) ++g_mallocs;
-  return __libc_malloc(size);
-}
-#endif
+#include "support/malloc_counter.hpp"  // defines malloc: this file only, in this executable
 
 using namespace gyre;
 using namespace gyre::nn;
