@@ -139,14 +139,14 @@ void fill_batch(const EncodedCorpus& examples, std::span<const std::size_t> indi
 
 std::vector<Window> make_windows(const Batch& batch, int window) {
   std::vector<Window> windows;
-  make_windows(batch, window, windows);
+  windows.resize(make_windows(batch, window, windows));
   return windows;
 }
 
-void make_windows(const Batch& batch, int window, std::vector<Window>& windows) {
+std::size_t make_windows(const Batch& batch, int window, std::vector<Window>& windows) {
   const int K = window > 0 ? window : batch.max_len;
   const int count = (batch.max_len + K - 1) / K;
-  windows.resize(static_cast<std::size_t>(count));
+  if (windows.size() < static_cast<std::size_t>(count)) windows.resize(static_cast<std::size_t>(count));
   for (int w = 0; w < count; ++w) {
     Window& win = windows[static_cast<std::size_t>(w)];
     win.max_len = 0;
@@ -163,6 +163,7 @@ void make_windows(const Batch& batch, int window, std::vector<Window>& windows) 
       win.max_len = std::max(win.max_len, end - start);
     }
   }
+  return static_cast<std::size_t>(count);
 }
 
 void window_ids(const Batch& batch, const Window& window, std::vector<std::int32_t>& ids) {

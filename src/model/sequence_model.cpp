@@ -11,12 +11,15 @@
 namespace gyre::model {
 
 namespace {
-void gather_rows(const nn::Matrix& from, const std::vector<int>& rows, nn::Matrix& to) {
-  to.resize(static_cast<Eigen::Index>(rows.size()), from.cols());
-  for (std::size_t i = 0; i < rows.size(); ++i) to.row(static_cast<Eigen::Index>(i)) = from.row(rows[i]);
+void gather_rows(const nn::MatrixBuffer& from, const std::vector<int>& rows, nn::MatrixBuffer& to) {
+  nn::MatrixMap out = to.shape(static_cast<Eigen::Index>(rows.size()), from.cols());
+  for (std::size_t i = 0; i < rows.size(); ++i)
+    out.row(static_cast<Eigen::Index>(i)) = from.view().row(rows[i]);
 }
-void scatter_rows(const nn::Matrix& from, const std::vector<int>& rows, nn::Matrix& to) {
-  for (std::size_t i = 0; i < rows.size(); ++i) to.row(rows[i]) = from.row(static_cast<Eigen::Index>(i));
+void scatter_rows(const nn::MatrixBuffer& from, const std::vector<int>& rows, nn::MatrixBuffer& to) {
+  nn::MatrixMap out = to.view();
+  for (std::size_t i = 0; i < rows.size(); ++i)
+    out.row(rows[i]) = from.view().row(static_cast<Eigen::Index>(i));
 }
 }  // namespace
 
@@ -92,15 +95,17 @@ double SequenceModel::train_batch(const data::Batch& batch, const data::EncodedC
 double SequenceModel::train_batch(const data::Batch& batch, const Targets& targets, int bptt_window,
                                   double normalizer, Rng& dropout_rng) {
   GYRE_CHECK(normalizer > 0, "train_batch: normalizer must be positive");
-  data::make_windows(batch, bptt_window, windows_);
-  const std::vector<data::Window>& windows = windows_;
+  const std::span<const data::Window> windows(windows_.data(),
+                                              data::make_windows(batch, bptt_window, windows_));
   const int B = batch.batch;
   const int slots = spec_.layers * spec_.directions();
   const bool carry = windows.size() > 1;
   if (carry) {
-    carry_.h.assign(static_cast<std::size_t>(slots), nn::Matrix::Zero(B, spec_.hidden_size));
-    carry_.c.assign(spec_.cell == nn::CellType::kLstm ? static_cast<std::size_t>(slots) : 0,
-                    nn::Matrix::Zero(B, spec_.hidden_size));
+    // [B x H] zeros per (layer, direction); the buffers keep their storage from batch to batch.
+    carry_.h.resize(static_cast<std::size_t>(slots));
+    carry_.c.resize(spec_.cell == nn::CellType::kLstm ? static_cast<std::size_t>(slots) : 0);
+    for (nn::MatrixBuffer& s : carry_.h) s.shape(B, spec_.hidden_size).setZero();
+    for (nn::MatrixBuffer& s : carry_.c) s.shape(B, spec_.hidden_size).setZero();
   }
   double loss_sum = 0.0;
   for (std::size_t w = 0; w < windows.size(); ++w) {
@@ -261,11 +266,10 @@ TokenAttribution SequenceModel::integrated_gradients(const data::EncodedExample&
   const Eigen::Index E = spec_.input_size();
   if (chars_) {
     // [word, chars] of each token: the recurrent stack's input, the path's end point.
-    embedding_->forward(ids, word_x_);
-    chars_->forward(nn::CharTokens{example.char_ids, example.char_offsets}, char_x_);
     text_embedding_.resize(T, E);
-    text_embedding_.leftCols(spec_.embedding_size) = word_x_;
-    text_embedding_.rightCols(spec_.char_filters) = char_x_;
+    embedding_->forward(ids, text_embedding_.leftCols(spec_.embedding_size));
+    chars_->forward(nn::CharTokens{example.char_ids, example.char_offsets},
+                    text_embedding_.rightCols(spec_.char_filters));
   } else {
     embedding_->forward(ids, text_embedding_);  // [T x E]
   }
@@ -372,12 +376,11 @@ void SequenceModel::embed(const data::Batch& batch) {
     }
     char_offsets_.push_back(static_cast<std::int32_t>(char_ids_.size()));
   }
-  embedding_->forward(ids_, word_x_);
-  chars_->forward(nn::CharTokens{char_ids_, char_offsets_}, char_x_);
+  // [word, chars] written in place: each part into its columns of the recurrent stack's input.
   const Eigen::Index E = spec_.embedding_size, F = spec_.char_filters;
-  nn::MatrixMap x = x_.shape(word_x_.rows(), E + F);
-  x.leftCols(E) = word_x_;
-  x.rightCols(F) = char_x_;
+  nn::MatrixMap x = x_.shape(static_cast<Eigen::Index>(ids_.size()), E + F);
+  embedding_->forward(ids_, x.leftCols(E));
+  chars_->forward(nn::CharTokens{char_ids_, char_offsets_}, x.rightCols(F));
 }
 
 void SequenceModel::embed_backward() {
@@ -387,12 +390,8 @@ void SequenceModel::embed_backward() {
     return;
   }
   const Eigen::Index E = spec_.embedding_size, F = spec_.char_filters;
-  if (embedding_->trainable()) {
-    d_part_ = d_x.leftCols(E);
-    embedding_->backward(d_part_);
-  }
-  d_part_ = d_x.rightCols(F);
-  chars_->backward(d_part_);
+  if (embedding_->trainable()) embedding_->backward(d_x.leftCols(E));
+  chars_->backward(d_x.rightCols(F));
 }
 
 void SequenceModel::predict(const data::Batch& batch, Prediction& out) {

@@ -1,6 +1,7 @@
 #include "gyre/nn/char_cnn.hpp"
 
 #include <cmath>
+#include <utility>
 
 #include "gyre/core/error.hpp"
 #include "gyre/nn/init.hpp"
@@ -27,6 +28,13 @@ void CharCnn::init_parameters(Rng& rng) {
 
 void CharCnn::forward(const CharTokens& tokens, Matrix& out) {
   const auto n_tokens = static_cast<Eigen::Index>(tokens.size());
+  const Eigen::Index f = conv_weight_.value.rows();
+  if (out.rows() != n_tokens || out.cols() != f) out.resize(n_tokens, f);
+  forward(tokens, Eigen::Ref<Matrix>(out));
+}
+
+void CharCnn::forward(const CharTokens& tokens, Eigen::Ref<Matrix> out) {
+  const auto n_tokens = static_cast<Eigen::Index>(tokens.size());
   GYRE_CHECK(!tokens.offsets.empty() && tokens.offsets.front() == 0 &&
                  static_cast<std::size_t>(tokens.offsets.back()) == tokens.ids.size(),
              "CharCnn::forward: offsets must start at 0 and end at the number of ids");
@@ -37,10 +45,12 @@ void CharCnn::forward(const CharTokens& tokens, Matrix& out) {
   const Eigen::Index vc = embedding_.value.rows();
   const auto positions = static_cast<Eigen::Index>(ids_.size());
   const int half = width_ / 2;
+  GYRE_CHECK(out.rows() == n_tokens && out.cols() == f,
+             "CharCnn::forward: output must be [tokens x filters]");
   for (const auto id : ids_) GYRE_CHECK(id >= 0 && id < vc, "CharCnn::forward: character id out of range");
 
   // im2col: one row of w*Ec values per character position (zeros beyond the token).
-  if (windows_.rows() < positions || windows_.cols() != width_ * ec) windows_.resize(positions, width_ * ec);
+  MatrixMap windows = windows_.shape(positions, width_ * ec);
   for (Eigen::Index n = 0; n < n_tokens; ++n) {
     const auto begin = offsets_[static_cast<std::size_t>(n)], end = offsets_[static_cast<std::size_t>(n) + 1];
     GYRE_CHECK(begin <= end, "CharCnn::forward: offsets must not decrease");
@@ -48,19 +58,18 @@ void CharCnn::forward(const CharTokens& tokens, Matrix& out) {
     for (int p = 0; p < len; ++p)
       for (int k = 0; k < width_; ++k) {
         const int q = p - half + k;
-        auto slot = windows_.block(begin + p, k * ec, 1, ec);
+        auto slot = windows.block(begin + p, k * ec, 1, ec);
         if (q < 0 || q >= len)
           slot.setZero();
         else
           slot = embedding_.value.row(ids_[static_cast<std::size_t>(begin + q)]);
       }
   }
-  if (scores_.rows() < positions || scores_.cols() != f) scores_.resize(positions, f);
+  MatrixMap scores = scores_.shape(positions, f);
   if (positions > 0) {
-    scores_.topRows(positions).noalias() = windows_.topRows(positions) * conv_weight_.value.transpose();
-    scores_.topRows(positions).rowwise() += conv_bias_.value.row(0);
+    scores.noalias() = windows * conv_weight_.value.transpose();
+    scores.rowwise() += conv_bias_.value.row(0);
   }
-  if (out.rows() != n_tokens || out.cols() != f) out.resize(n_tokens, f);
   argmax_.assign(static_cast<std::size_t>(n_tokens * f), -1);
   for (Eigen::Index n = 0; n < n_tokens; ++n) {
     const auto begin = offsets_[static_cast<std::size_t>(n)], end = offsets_[static_cast<std::size_t>(n) + 1];
@@ -71,36 +80,35 @@ void CharCnn::forward(const CharTokens& tokens, Matrix& out) {
       }
       int best = begin;
       for (int r = begin + 1; r < end; ++r)
-        if (scores_(r, j) > scores_(best, j)) best = r;
+        if (scores(r, j) > scores(best, j)) best = r;
       argmax_[static_cast<std::size_t>(n * f + j)] = best;
-      out(n, j) = std::tanh(scores_(best, j));
+      out(n, j) = std::tanh(scores(best, j));
     }
   }
-  out_ = out;
+  out_.shape(n_tokens, f) = out;
 }
 
-void CharCnn::backward(const Matrix& d_out) {
+void CharCnn::backward(Eigen::Ref<const Matrix> d_out) {
   const Eigen::Index f = conv_weight_.value.rows();
   const Eigen::Index ec = embedding_.value.cols();
   const auto n_tokens = static_cast<Eigen::Index>(offsets_.empty() ? 0 : offsets_.size() - 1);
   GYRE_CHECK(d_out.rows() == n_tokens && d_out.cols() == f, "CharCnn::backward: d_out has the wrong shape");
   const auto positions = static_cast<Eigen::Index>(ids_.size());
   if (positions == 0) return;
-  if (d_scores_.rows() < positions || d_scores_.cols() != f) d_scores_.resize(positions, f);
-  d_scores_.topRows(positions).setZero();
+  const ConstMatrixMap out = std::as_const(out_).view();
+  MatrixMap ds = d_scores_.shape(positions, f);
+  ds.setZero();
   for (Eigen::Index n = 0; n < n_tokens; ++n)
     for (Eigen::Index j = 0; j < f; ++j) {
       const auto r = argmax_[static_cast<std::size_t>(n * f + j)];
       if (r < 0) continue;
-      const float y = out_(n, j);
-      d_scores_(r, j) += d_out(n, j) * (1.0f - y * y);
+      const float y = out(n, j);
+      ds(r, j) += d_out(n, j) * (1.0f - y * y);
     }
-  const auto ds = d_scores_.topRows(positions);
-  conv_weight_.grad.noalias() += ds.transpose() * windows_.topRows(positions);
+  conv_weight_.grad.noalias() += ds.transpose() * windows_.view();
   conv_bias_.grad.row(0).noalias() += ds.colwise().sum();
-  if (d_windows_.rows() < positions || d_windows_.cols() != width_ * ec)
-    d_windows_.resize(positions, width_ * ec);
-  d_windows_.topRows(positions).noalias() = ds * conv_weight_.value;
+  MatrixMap d_windows = d_windows_.shape(positions, width_ * ec);
+  d_windows.noalias() = ds * conv_weight_.value;
   // Scatter the window gradients back to the characters they were copied from.
   const int half = width_ / 2;
   for (Eigen::Index n = 0; n < n_tokens; ++n) {
@@ -112,7 +120,7 @@ void CharCnn::backward(const Matrix& d_out) {
         if (q < 0 || q >= len) continue;
         const auto id = ids_[static_cast<std::size_t>(begin + q)];
         if (id == 0) continue;  // padding row: never updated
-        embedding_.grad.row(id) += d_windows_.block(begin + p, k * ec, 1, ec);
+        embedding_.grad.row(id) += d_windows.block(begin + p, k * ec, 1, ec);
       }
   }
 }

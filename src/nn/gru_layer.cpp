@@ -75,8 +75,8 @@ void GruLayer::read_packs_from(const RecurrentLayer* source) {
 }
 
 void GruLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
-                       Eigen::Ref<Matrix> out, const Matrix* h0, const Matrix* /*c0*/, Matrix* h_final,
-                       Matrix* /*c_final*/) {
+                       Eigen::Ref<Matrix> out, const MatrixBuffer* h0, const MatrixBuffer* /*c0*/,
+                       MatrixBuffer* h_final, MatrixBuffer* /*c_final*/) {
   const Eigen::Index B = detail::check_batch("GruLayer::forward", x.rows(), T, lengths, 0);
   const Eigen::Index H = hidden_size_, D = input_size_;
   GYRE_CHECK(x.cols() == D, "GruLayer::forward: input has " + std::to_string(x.cols()) +
@@ -99,7 +99,7 @@ void GruLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> l
   for (Eigen::Index p = 0; p < N; ++p) detail::copy_floats(xs.row(p).data(), x.row(lay.source(p)).data(), D);
   for (int j = 0; j < B; ++j) {
     if (h0 != nullptr)
-      hi.row(j) = h0->row(lay.sequence(j));
+      hi.row(j) = h0->view().row(lay.sequence(j));
     else
       hi.row(j).setZero();
   }
@@ -143,13 +143,13 @@ void GruLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> l
   for (Eigen::Index p = 0; p < N; ++p)
     detail::copy_floats(out.row(lay.source(p)).data(), hs.row(p).data(), H);
   if (h_final != nullptr) {
-    if (h_final->rows() != B || h_final->cols() != H) h_final->resize(B, H);
+    MatrixMap hf = h_final->shape(B, H);
     for (int j = 0; j < B; ++j) {
       const int len = lay.length(j);
       if (len == 0)
-        h_final->row(lay.sequence(j)) = hi.row(j);
+        hf.row(lay.sequence(j)) = hi.row(j);
       else
-        h_final->row(lay.sequence(j)) = hs.row(lay.offset(len - 1) + j);
+        hf.row(lay.sequence(j)) = hs.row(lay.offset(len - 1) + j);
     }
   }
 }

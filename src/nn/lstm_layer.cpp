@@ -88,24 +88,24 @@ namespace {
 // input order: `initial` [B x H] in sorted order, `states` [N x H] in packed rows (see
 // detail/sequence_layout.hpp). Nothing when `out_state` is null.
 void final_state(const detail::SequenceLayout& lay, const MatrixMap& initial, const MatrixMap& states,
-                 Matrix* out_state) {
+                 MatrixBuffer* out_state) {
   if (out_state == nullptr) return;
   const Eigen::Index B = initial.rows(), H = initial.cols();
-  if (out_state->rows() != B || out_state->cols() != H) out_state->resize(B, H);
+  MatrixMap out = out_state->shape(B, H);
   for (int j = 0; j < B; ++j) {
     const int b = lay.sequence(j), len = lay.length(j);
     if (len == 0)
-      out_state->row(b) = initial.row(j);
+      out.row(b) = initial.row(j);
     else
-      out_state->row(b) = states.row(lay.offset(len - 1) + j);
+      out.row(b) = states.row(lay.offset(len - 1) + j);
   }
 }
 
 }  // namespace
 
 void LstmLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
-                        Eigen::Ref<Matrix> out, const Matrix* h0, const Matrix* c0, Matrix* h_final,
-                        Matrix* c_final) {
+                        Eigen::Ref<Matrix> out, const MatrixBuffer* h0, const MatrixBuffer* c0,
+                        MatrixBuffer* h_final, MatrixBuffer* c_final) {
   const Eigen::Index B = detail::check_batch("LstmLayer::forward", x.rows(), T, lengths, 0);
   const Eigen::Index H = hidden_size_, D = input_size_;
   GYRE_CHECK(x.cols() == D, "LstmLayer::forward: input has " + std::to_string(x.cols()) +
@@ -130,11 +130,11 @@ void LstmLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> 
   for (int j = 0; j < B; ++j) {
     const int b = lay.sequence(j);
     if (h0 != nullptr)
-      hi.row(j) = h0->row(b);
+      hi.row(j) = h0->view().row(b);
     else
       hi.row(j).setZero();
     if (c0 != nullptr)
-      ci.row(j) = c0->row(b);
+      ci.row(j) = c0->view().row(b);
     else
       ci.row(j).setZero();
   }

@@ -104,4 +104,18 @@ TEST_CASE("windows are aligned at each sequence's end", "[data]") {
   }
   REQUIRE(gyre::data::make_windows(batch, 0).size() == 1);
   REQUIRE(gyre::data::make_windows(batch, 10).size() == 1);
+  // The reusing form: a batch with fewer windows leaves the vector's later entries in place and
+  // returns its own count; its windows are those the fresh form makes.
+  std::vector<gyre::data::Window> reused;
+  REQUIRE(gyre::data::make_windows(batch, 4, reused) == 3);
+  REQUIRE(gyre::data::make_windows(batch, 10, reused) == 1);
+  REQUIRE(reused.size() == 3);
+  const auto one = gyre::data::make_windows(batch, 10);
+  REQUIRE(reused[0].lengths == one[0].lengths);
+  REQUIRE(reused[0].start == one[0].start);
+  REQUIRE(reused[0].max_len == one[0].max_len);
+  REQUIRE(reused[0].last);
+  REQUIRE(gyre::data::make_windows(batch, 4, reused) == 3);
+  REQUIRE(reused[1].lengths == windows[1].lengths);
+  REQUIRE(reused[2].start == windows[2].start);
 }

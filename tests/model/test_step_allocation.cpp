@@ -3,7 +3,9 @@
 // of the run has been seen (here: one warm-up pass over the batches), a training step - the batch
 // filled from the corpus, SequenceModel::train_batch (embedding, recurrent stack, head, loss and
 // their backward passes), the sparse rows made sorted and unique, and their lists cleared as the
-// trainer does after the update - must not call malloc at all. Counted by interposing malloc in
+// trainer does after the update - must not call malloc at all; with a character encoder (the
+// batch's characters, the CNN's workspaces) and with truncated BPTT (windows, carried states)
+// too. Counted by interposing malloc in
 // this executable (glibc exports the real allocator as __libc_malloc); skipped under
 // AddressSanitizer, which owns malloc itself.
 
@@ -26,7 +28,8 @@ using gyre::model::SequenceModel;
 
 namespace {
 
-// Random ids in [2, vocab) and targets (one class, a label set, or one tag per token).
+// Random ids in [2, vocab) and targets (one class, a label set, or one tag per token); with a
+// character encoder, 1 to 6 character ids in [2, char vocab) per token.
 std::vector<EncodedExample> examples_of(const ModelSpec& spec, const std::vector<int>& lengths,
                                         gyre::Rng& rng) {
   std::vector<EncodedExample> out;
@@ -36,6 +39,16 @@ std::vector<EncodedExample> examples_of(const ModelSpec& spec, const std::vector
     for (int t = 0; t < len; ++t)
       ex.ids.push_back(2 +
                        static_cast<std::int32_t>(rng.below(static_cast<std::uint64_t>(spec.vocab_size - 2))));
+    if (spec.has_char_encoder()) {
+      ex.char_offsets.push_back(0);
+      for (int t = 0; t < len; ++t) {
+        const auto n = 1 + rng.below(6);
+        for (std::uint64_t k = 0; k < n; ++k)
+          ex.char_ids.push_back(
+              2 + static_cast<std::int32_t>(rng.below(static_cast<std::uint64_t>(spec.char_vocab_size - 2))));
+        ex.char_offsets.push_back(static_cast<std::int32_t>(ex.char_ids.size()));
+      }
+    }
     if (spec.task == gyre::data::Task::kTag) {
       for (int t = 0; t < len; ++t) ex.targets.push_back(static_cast<std::int32_t>(rng.below(C)));
     } else if (spec.output == OutputKind::kSigmoid) {
@@ -111,6 +124,14 @@ ModelSpec base_spec() {
   return spec;
 }
 
+ModelSpec with_char_encoder(ModelSpec spec) {
+  spec.char_vocab_size = 20;
+  spec.char_embedding_size = 8;
+  spec.char_filters = 12;
+  spec.char_width = 3;
+  return spec;
+}
+
 }  // namespace
 
 TEST_CASE("a training step allocates nothing once every batch shape has been seen", "[model][alloc]") {
@@ -150,5 +171,39 @@ TEST_CASE("a training step allocates nothing once every batch shape has been see
     spec.cell = gyre::nn::CellType::kGru;
     spec.output = OutputKind::kCrf;
     CHECK(run_steps(spec, 0).mallocs == 0);
+  }
+  SECTION("LSTM tagger with a character encoder, CRF output, 2 bidirectional layers") {
+    ModelSpec spec = with_char_encoder(base_spec());
+    spec.task = gyre::data::Task::kTag;
+    spec.output = OutputKind::kCrf;
+    spec.layers = 2;
+    spec.bidirectional = true;
+    CHECK(run_steps(spec, 0).mallocs == 0);
+  }
+  SECTION("GRU classifier with a character encoder, max pooling") {
+    ModelSpec spec = with_char_encoder(base_spec());
+    spec.cell = gyre::nn::CellType::kGru;
+    spec.pooling = gyre::nn::PoolingKind::kMax;
+    CHECK(run_steps(spec, 0).mallocs == 0);
+  }
+  // Truncated BPTT: windows of 4 and 7 steps (several windows per batch; the earlier windows hold
+  // fewer sequences, so the carried states change shape inside a step too). One direction, as the
+  // trainer's settings require, and last-state pooling for a classifier.
+  SECTION("truncated BPTT, LSTM classifier, 2 layers, last-state pooling, window 7") {
+    ModelSpec spec = base_spec();
+    spec.layers = 2;
+    spec.pooling = gyre::nn::PoolingKind::kLast;
+    CHECK(run_steps(spec, 7).mallocs == 0);
+  }
+  SECTION("truncated BPTT, GRU tagger with a character encoder, window 4") {
+    ModelSpec spec = with_char_encoder(base_spec());
+    spec.task = gyre::data::Task::kTag;
+    spec.cell = gyre::nn::CellType::kGru;
+    CHECK(run_steps(spec, 4).mallocs == 0);
+  }
+  SECTION("truncated BPTT, LSTM tagger, softmax per token, window 4") {
+    ModelSpec spec = base_spec();
+    spec.task = gyre::data::Task::kTag;
+    CHECK(run_steps(spec, 4).mallocs == 0);
   }
 }

@@ -50,11 +50,14 @@ TEST_CASE("recurrent layer gradients match central differences", "[nn][gradcheck
           Matrix h0 = random_matrix(B, H, rng, 0.5f), c0 = random_matrix(B, H, rng, 0.5f);
           const Matrix g = random_matrix(T * B, H, rng);
           const Matrix g_final = random_matrix(B, H, rng);
-          Matrix out(T * B, H), h_final;
+          Matrix out(T * B, H);
+          MatrixBuffer h0_in, c0_in, h_final;  // the layer's state arguments
           // The final state is an output too; its gradient is not propagated (window boundary), so
           // the loss uses only `out`; h_final is checked for equality with the last valid output.
           auto loss = [&] {
-            layer->forward(x, T, lengths, out, &h0, &c0, &h_final, nullptr);
+            h0_in.assign(h0);
+            c0_in.assign(c0);
+            layer->forward(x, T, lengths, out, &h0_in, &c0_in, &h_final, nullptr);
             return dot(g, out);
           };
           store.zero_grad();
@@ -64,7 +67,7 @@ TEST_CASE("recurrent layer gradients match central differences", "[nn][gradcheck
             const Eigen::Index last = len == 0 ? -1 : (reverse ? 0 : len - 1) * B + b;
             for (Eigen::Index j = 0; j < H; ++j) {
               const float expect = last < 0 ? h0(b, j) : out(last, j);
-              CHECK(h_final(b, j) == Approx(expect).margin(0));  // a copy of the same value: exact
+              CHECK(h_final.view()(b, j) == Approx(expect).margin(0));  // a copy of the same value: exact
             }
             for (Eigen::Index t = len; t < T; ++t) CHECK(out.row(t * B + b).isZero(0.0f));
           }
@@ -106,8 +109,8 @@ TEST_CASE("stacked bidirectional RnnStack gradients match central differences", 
         // Carried state for the forward directions (truncated BPTT); gradient w.r.t. it is cut.
         RnnState init;
         for (int k = 0; k < cfg.layers * stack.directions(); ++k) {
-          init.h.push_back(random_matrix(B, H, rng, 0.5f));
-          init.c.push_back(random_matrix(B, H, rng, 0.5f));
+          init.h.emplace_back().assign(random_matrix(B, H, rng, 0.5f));
+          init.c.emplace_back().assign(random_matrix(B, H, rng, 0.5f));
         }
         Matrix out;
         // Re-seeding the dropout Rng before every forward fixes the mask, so the loss is a smooth

@@ -96,12 +96,12 @@ TEST_CASE("LSTM/GRU stacks match torch 1.13 on packed sequences", "[nn][parity]"
           check_close("out", out, fx.at("out"));
           Matrix h_n(static_cast<Eigen::Index>(final.h.size()) * B, cfg.hidden_size);
           for (std::size_t k = 0; k < final.h.size(); ++k)
-            h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k];
+            h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k].view();
           check_close("h_n", h_n, fx.at("h_n"));
           if (cfg.cell == CellType::kLstm) {
             Matrix c_n(static_cast<Eigen::Index>(final.c.size()) * B, cfg.hidden_size);
             for (std::size_t k = 0; k < final.c.size(); ++k)
-              c_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.c[k];
+              c_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.c[k].view();
             check_close("c_n", c_n, fx.at("c_n"));
           }
           check_close("d_x", dx, fx.at("d_x"));
@@ -144,7 +144,7 @@ TEST_CASE("wide LSTM/GRU layers match torch 1.13 on packed sequences", "[nn][par
       check_close("out", out, fx.at("out"));
       Matrix h_n(static_cast<Eigen::Index>(final.h.size()) * B, cfg.hidden_size);
       for (std::size_t k = 0; k < final.h.size(); ++k)
-        h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k];
+        h_n.middleRows(static_cast<Eigen::Index>(k) * B, B) = final.h[k].view();
       check_close("h_n", h_n, fx.at("h_n"));
       check_close("d_x", dx, fx.at("d_x"));
       for (const auto& p : store)

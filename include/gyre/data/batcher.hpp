@@ -86,9 +86,11 @@ void fill_batch(std::span<const EncodedExample> examples, std::span<const std::s
 
 /// Cuts a batch into end-aligned windows of at most `window` steps (window <= 0: one window).
 std::vector<Window> make_windows(const Batch& batch, int window);
-/// Same into `windows`, reusing its storage (and that of its windows' vectors): no allocation
-/// once the batch size and window count have been seen.
-void make_windows(const Batch& batch, int window, std::vector<Window>& windows);
+/// Same into the first entries of `windows`, reusing its storage (and that of its windows'
+/// vectors), and returns how many windows the batch has. The vector never shrinks: entries past
+/// the count are left over from earlier batches, so that batches with fewer windows followed by
+/// ones with more allocate nothing once the largest batch size and window count have been seen.
+std::size_t make_windows(const Batch& batch, int window, std::vector<Window>& windows);
 
 /// Gathers window w of batch into a compact time-major id buffer [window.max_len * B].
 void window_ids(const Batch& batch, const Window& window, std::vector<std::int32_t>& ids);

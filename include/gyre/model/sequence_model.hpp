@@ -184,7 +184,6 @@ class SequenceModel {
   nn::Matrix text_embedding_;
   std::vector<int> char_cells_;
   std::vector<std::int32_t> char_ids_, char_offsets_;
-  nn::Matrix word_x_, char_x_, d_part_;
   // The step's buffers, grown to the largest batch shape seen (T*B rows vary from batch to
   // batch): after that, a training step allocates nothing here.
   nn::MatrixBuffer x_, h_, pooled_, logits_, d_logits_, d_pooled_, d_h_, d_x_, multi_hot_;

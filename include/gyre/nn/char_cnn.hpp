@@ -45,11 +45,15 @@ class CharCnn {
   int embedding_size() const noexcept { return static_cast<int>(embedding_.value.cols()); }
   int vocab_size() const noexcept { return static_cast<int>(embedding_.value.rows()); }
 
-  /// out: [N x F]. The ids and offsets are copied for backward. Throws gyre::Error on an id out of
-  /// range or malformed offsets.
+  /// out: [N x F] (resized). The ids and offsets are copied for backward. Throws gyre::Error on an
+  /// id out of range or malformed offsets.
   void forward(const CharTokens& tokens, Matrix& out);
+  /// Same into a view the caller has shaped [N x F] (e.g. the right columns of the recurrent
+  /// stack's input). The workspaces grow only (nn::grow_storage): once the most characters a call
+  /// has seen is reached, forward and backward allocate nothing (issue 13).
+  void forward(const CharTokens& tokens, Eigen::Ref<Matrix> out);
   /// d_out: [N x F] for the tokens of the last forward. Adds into all three gradients.
-  void backward(const Matrix& d_out);
+  void backward(Eigen::Ref<const Matrix> d_out);
   /// The max-pooling winners of the last forward: entry n*F + f is the character position (index
   /// into the flattened ids) whose window won filter f of token n, -1 for a token without
   /// characters. The output is smooth in the parameters only while these stay the same, so
@@ -63,11 +67,11 @@ class CharCnn {
   int width_;
   std::vector<std::int32_t> ids_, offsets_;
   std::vector<std::int32_t> argmax_;  // [N x F] row of windows_ that won, -1 for empty tokens
-  Matrix windows_;                    // [P x w*Ec], P = total characters
-  Matrix scores_;                     // [P x F]
-  Matrix d_scores_;                   // [P x F]
-  Matrix d_windows_;                  // [P x w*Ec]
-  Matrix out_;                        // copy of the last output (tanh values) for backward
+  MatrixBuffer windows_;              // [P x w*Ec], P = total characters
+  MatrixBuffer scores_;               // [P x F]
+  MatrixBuffer d_scores_;             // [P x F]
+  MatrixBuffer d_windows_;            // [P x w*Ec]
+  MatrixBuffer out_;                  // copy of the last output (tanh values) for backward
 };
 
 }  // namespace gyre::nn

@@ -27,8 +27,8 @@ class GruLayer final : public RecurrentLayer {
   bool reverse() const noexcept override { return reverse_; }
   void init_parameters(Rng& rng) override;
   void forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths, Eigen::Ref<Matrix> out,
-               const Matrix* h0 = nullptr, const Matrix* c0 = nullptr, Matrix* h_final = nullptr,
-               Matrix* c_final = nullptr) override;
+               const MatrixBuffer* h0 = nullptr, const MatrixBuffer* c0 = nullptr,
+               MatrixBuffer* h_final = nullptr, MatrixBuffer* c_final = nullptr) override;
   void backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, bool accumulate_dx, Matrix* d_h0,
                      Matrix* d_c0) override;
 

@@ -43,11 +43,14 @@ class RecurrentLayer {
   /// x: [T*B x input_size]; its valid rows are copied (packed), so it may change after the call.
   /// out: [T*B x hidden_size] (may be a column block of a wider buffer), written completely.
   /// h0/c0: optional initial state [B x H] (nullptr = zeros; c0 ignored by GRU).
-  /// h_final/c_final: optional, receive the state after each sequence's last processed step
-  /// (for a reverse layer: after t = 0). Throws gyre::Error on inconsistent shapes.
+  /// h_final/c_final: optional, shaped [B x H] and given the state after each sequence's last
+  /// processed step (for a reverse layer: after t = 0); grow-only buffers, so that a caller
+  /// carrying states across batches of changing size allocates only when the largest grows.
+  /// Throws gyre::Error on inconsistent shapes.
   virtual void forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> lengths,
-                       Eigen::Ref<Matrix> out, const Matrix* h0 = nullptr, const Matrix* c0 = nullptr,
-                       Matrix* h_final = nullptr, Matrix* c_final = nullptr) = 0;
+                       Eigen::Ref<Matrix> out, const MatrixBuffer* h0 = nullptr,
+                       const MatrixBuffer* c0 = nullptr, MatrixBuffer* h_final = nullptr,
+                       MatrixBuffer* c_final = nullptr) = 0;
 
   /// d_out: [T*B x H] gradient of the loss w.r.t. out (padded rows ignored). Adds parameter
   /// gradients into the store. d_x (optional): [T*B x D], overwritten, or added to when

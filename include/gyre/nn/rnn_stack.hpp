@@ -32,9 +32,11 @@ struct RnnStackConfig {
 };
 
 /// Recurrent state, one [B x H] matrix per (layer, direction) at index layer * directions + dir
-/// (dir 0 = fwd, 1 = bwd). c is used by LSTM only (left empty for GRU).
+/// (dir 0 = fwd, 1 = bwd). c is used by LSTM only (left empty for GRU). Grow-only buffers, so that
+/// truncated BPTT, whose windows hold fewer or more sequences from one to the next, reuses their
+/// storage (issue 13).
 struct RnnState {
-  std::vector<Matrix> h, c;
+  std::vector<MatrixBuffer> h, c;
 };
 
 class RnnStack {

@@ -43,6 +43,12 @@ class MatrixBuffer {
     cols_ = cols;
     return view();
   }
+  /// Shapes the buffer like `m` and copies it in.
+  MatrixMap assign(const Eigen::Ref<const Matrix>& m) {
+    MatrixMap v = shape(m.rows(), m.cols());
+    v = m;
+    return v;
+  }
   /// The current shape's view.
   MatrixMap view() noexcept { return MatrixMap(storage_.data(), rows_, cols_); }
   ConstMatrixMap view() const noexcept { return ConstMatrixMap(storage_.data(), rows_, cols_); }
