@@ -1,5 +1,8 @@
 #include "gyre/train/worker_pool.hpp"
 
+#include <chrono>
+#include <thread>
+
 #include "gyre/core/error.hpp"
 
 #if defined(__x86_64__) || defined(__i386__)
@@ -18,13 +21,21 @@ inline void cpu_relax() noexcept {
 #endif
 }
 
-// Waits until `value` differs from `old`: spins first, then sleeps in atomic::wait.
+// Waits until `value` differs from `old`: polls, polls between yields, then sleeps (see the
+// header).
 template <class T>
 T wait_change(const std::atomic<T>& value, T old) noexcept {
-  for (int i = 0; i < WorkerPool::kSpinRounds; ++i) {
-    const T now = value.load(std::memory_order_acquire);
-    if (now != old) return now;
-    cpu_relax();
+  using Clock = std::chrono::steady_clock;
+  const auto start = Clock::now();
+  for (;;) {
+    for (int i = 0; i < 64; ++i) {  // about a microsecond between clock reads
+      const T now = value.load(std::memory_order_acquire);
+      if (now != old) return now;
+      cpu_relax();
+    }
+    const auto waited = Clock::now() - start;
+    if (waited >= WorkerPool::kYieldTime) break;
+    if (waited >= WorkerPool::kPollTime) std::this_thread::yield();
   }
   for (;;) {
     value.wait(old, std::memory_order_acquire);
