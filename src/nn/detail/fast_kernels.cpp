@@ -27,6 +27,17 @@ float* AlignedBuffer::reserve(std::size_t n) {
   return data_.get();
 }
 
+float* AlignedBuffer::grow(std::size_t n) {
+  if (n > size_) {
+    data_.reset();  // free first: the new block may reuse the old one's memory
+    size_ = 0;
+    const std::size_t with_slack = n + n / 2;
+    data_.reset(static_cast<float*>(::operator new (with_slack * sizeof(float), std::align_val_t{64})));
+    size_ = with_slack;
+  }
+  return data_.get();
+}
+
 void AlignedBuffer::Free::operator()(float* p) const noexcept {
   ::operator delete (p, std::align_val_t{64});
 }

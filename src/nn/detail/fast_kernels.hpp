@@ -123,7 +123,13 @@ void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, s
 /// 64-byte aligned grow-only float storage for packed operands (contents unspecified after growth).
 class AlignedBuffer {
  public:
+  /// At least n floats, exactly n when it grows (fixed sizes: the weight packs).
   float* reserve(std::size_t n);
+  /// At least n floats; a growth frees the old block first and takes half as much again as asked,
+  /// like nn::grow_storage. For operands whose size follows the batch's token count (Gemm's packed
+  /// B of the weight-gradient products): a slice a little longer than any before then reuses the
+  /// block instead of allocating a new one and faulting in all its pages (issue 13).
+  float* grow(std::size_t n);
   float* data() const noexcept { return data_.get(); }
   std::size_t capacity_bytes() const noexcept { return size_ * sizeof(float); }
 

@@ -43,7 +43,7 @@ class Gemm {
     eigen_assert((op_b == Op::kN ? b.rows() : b.cols()) == k);
     eigen_assert((op_b == Op::kN ? b.cols() : b.rows()) == n);
     if (fast::available()) {
-      float* bp = packed_b_.reserve(fast::packed_size(k, n));
+      float* bp = packed_b_.grow(fast::packed_size(k, n));
       fast::pack_b(b.data(), b.outerStride(), op_b == Op::kT, k, n, bp);
       fast::gemm_packed(m, n, k, a.data(), a.outerStride(), op_a == Op::kT, bp, c.data(), c.outerStride(),
                         accumulate, nullptr, bias);
