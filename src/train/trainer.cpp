@@ -610,6 +610,42 @@ std::string fmt_general(double v) {
 
 // Scratch of one training step, one entry per worker of this process, kept across the steps of
 // an epoch.
+// Where the wall-clock time of this process's training steps went (metrics.json "step_time"): the
+// evidence for how well several workers scale. Each phase is timed on the calling thread from the
+// end of the previous one, so the phases add up to the steps' time; `worker_busy` is each
+// worker's own time in its forward and backward, so a fork-join's waiting is
+// forward_backward - worker_busy[w].
+struct StepClock {
+  using Clock = std::chrono::steady_clock;
+  double batch = 0;             // the batch's contents and its split between the workers
+  double weight_packs = 0;      // packing the shared recurrent weights (several workers)
+  double forward_backward = 0;  // the workers' forward and backward, from hand-over to the last one's end
+  double exchange = 0;          // the gradient exchange between ranks
+  double optimizer = 0;         // reduction, clipping norm, update, zeroing and copies
+  double other = 0;             // loss checks, progress
+  std::vector<double> worker_busy;
+  long long steps = 0;
+  Clock::time_point mark;
+  // Seconds since the previous lap (or start()), added to `phase`.
+  void start() { mark = Clock::now(); }
+  void lap(double& phase) {
+    const auto now = Clock::now();
+    phase += std::chrono::duration<double>(now - mark).count();
+    mark = now;
+  }
+  json to_json() const {
+    return json{{"steps", steps},
+                {"seconds",
+                 {{"batch", batch},
+                  {"weight_packs", weight_packs},
+                  {"forward_backward", forward_backward},
+                  {"exchange", exchange},
+                  {"optimizer", optimizer},
+                  {"other", other}}},
+                {"worker_forward_backward_seconds", worker_busy}};
+  }
+};
+
 struct StepBuffers {
   explicit StepBuffers(int workers)
       : sub(static_cast<std::size_t>(workers)),
@@ -710,6 +746,7 @@ class Run {
   json mistakes_;          // filled by calibrate() for single-label classifiers
   json label_thresholds_;  // filled by calibrate() for multi-label classifiers that tune them
   std::chrono::steady_clock::time_point epoch_start_;
+  StepClock clock_;
 };
 
 void Run::setup_model() {
@@ -768,6 +805,7 @@ void Run::setup_model() {
       config_.metric == Metric::kLoss ? optim::PlateauGoal::kLower : optim::PlateauGoal::kHigher;
   schedule_ = optim::make_schedule(config_.schedule, sc);
   pool_ = std::make_unique<WorkerPool>(config_.threads);
+  clock_.worker_busy.assign(static_cast<std::size_t>(config_.threads), 0.0);
   if (group_.size() > 1) {
     // Gradient holders for the other global workers (values unused), allocated once.
     peer_grads_.assign(static_cast<std::size_t>(global_workers() - 1), master.params());
@@ -1018,7 +1056,9 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
   // Every worker: forward and backward on its slice of the batch in its replica (which the last
   // optimizer step brought up to the master's weights), then its sparse rows sorted and unique
   // (a row is listed once per token by the embedding's backward; the reduction adds each once).
+  clock_.lap(clock_.batch);
   share_weight_packs();
+  clock_.lap(clock_.weight_packs);
   struct StopSharing {
     Run& run;
     ~StopSharing() { run.stop_sharing_weight_packs(); }
@@ -1028,6 +1068,7 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
       const auto& slice = buf.slices[static_cast<std::size_t>(w)];
       buf.losses[static_cast<std::size_t>(w)] = 0.0;
       if (slice.empty()) return;
+      const auto busy_start = StepClock::Clock::now();
       data::Batch& mine = buf.sub[static_cast<std::size_t>(w)];
       data::fill_batch(data_.train, slice, mine, config_.max_length);
       Rng dropout(mix_seed(config_.seed, static_cast<std::uint64_t>(state_.epoch), state_.step,
@@ -1037,10 +1078,13 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
           replica.train_batch(mine, data_.train, config_.bptt_window, normalizer, dropout);
       for (nn::Parameter& p : replica.params())
         if (p.sparse_rows) p.finalize_touched_rows();
+      clock_.worker_busy[static_cast<std::size_t>(w)] +=
+          std::chrono::duration<double>(StepClock::Clock::now() - busy_start).count();
     });
   } catch (const DivergenceError& e) {
     diverged(e.what());
   }
+  clock_.lap(clock_.forward_backward);
 }
 
 // The share of the batch grid that was padding, once per run (only meaningful when the epoch
@@ -1069,12 +1113,14 @@ void Run::run_epoch() {
   std::size_t padded = 0, tokens = 0;
   for (; state_.step < plan_steps; ++state_.step) {
     const auto& indices = plan[state_.step];
+    clock_.start();
     data::fill_batch(data_.train, indices, batch, config_.max_length);
     const double normalizer = replicas_[0]->loss_units(batch);
     workers_forward_backward(indices, normalizer, buf);
     double loss_sum = 0;
     const bool peer_interrupt =
         group_.size() > 1 && exchange_gradients(buf.losses, interrupt_requested(), loss_sum);
+    clock_.lap(clock_.exchange);
     if (group_.size() == 1)
       for (const double l : buf.losses) loss_sum += l;
     if (!std::isfinite(loss_sum)) diverged("the training loss became " + fmt(loss_sum));
@@ -1082,7 +1128,9 @@ void Run::run_epoch() {
     check_loss_growth(loss_sum / (spec_.output == model::OutputKind::kCrf
                                       ? static_cast<double>(batch.tokens())
                                       : normalizer));
+    clock_.lap(clock_.other);
     optimizer_step(group_.size() > 1 ? std::span<nn::ParameterStore* const>(peer_ptrs_) : others);
+    clock_.lap(clock_.optimizer);
 
     state_.epoch_loss_sum += loss_sum;
     // The reported train loss is per token for every output, as the dev loss is (a CRF's loss
@@ -1093,6 +1141,8 @@ void Run::run_epoch() {
     tokens += batch.tokens();
     padded += batch.padded();
     progress_.step(state_.step + 1, state_.epoch_loss_sum / state_.epoch_loss_units, tokens);
+    clock_.lap(clock_.other);
+    ++clock_.steps;
 
     ++steps_this_run_;
     const bool step_hook =
@@ -1256,7 +1306,8 @@ void Run::finish(TrainOutcome outcome, TrainResult& result) {
            {"tokens_per_second", result.tokens_per_second},
            {"threads", config_.threads},
            {"ranks", group_.size()},
-           {"peak_rss_bytes", result.peak_rss_bytes}};
+           {"peak_rss_bytes", result.peak_rss_bytes},
+           {"step_time", clock_.to_json()}};
   if (!data_.cut_examples.empty()) result.final_metrics["cut_to_max_tokens"] = data_.cut_examples;
   if (exchanges_ > 0)  // what rank 0 sent per step; each rank receives the other ranks' share
     result.final_metrics["exchange_bytes_per_step"] = sent_bytes_ / static_cast<double>(exchanges_);

@@ -155,6 +155,37 @@ TEST_CASE("same seed and threads give identical weights, another seed differs", 
   }
 }
 
+TEST_CASE("metrics.json's step_time accounts for the training loop's time, per phase and worker", "[train]") {
+  auto config = small_config();
+  config.epochs = 2;
+  for (int threads : {1, 2}) {
+    INFO("threads " << threads);
+    config.threads = threads;
+    const fs::path dir = tmp_dir("step_time" + std::to_string(threads));
+    const auto result = gyre::train::train(config, options_for(dir));
+    const auto& st = result.final_metrics.at("step_time");
+    // 25 steps per epoch: small_config's 400 examples in batches of 16.
+    CHECK(st.at("steps").get<long long>() == 2 * 25);
+    double sum = 0;
+    for (const auto& [phase, seconds] : st.at("seconds").items()) {
+      INFO(phase);
+      CHECK(seconds.get<double>() >= 0.0);
+      sum += seconds.get<double>();
+    }
+    // The phases are laps of one clock over the steps; the loop's seconds add the epochs' batch
+    // plans (and the clock reads between epochs), so they hold the sum and little more.
+    CHECK(sum <= result.seconds);
+    CHECK(sum >= 0.5 * result.seconds);
+    const auto busy = st.at("worker_forward_backward_seconds").get<std::vector<double>>();
+    REQUIRE(busy.size() == static_cast<std::size_t>(threads));
+    const double forward_backward = st.at("seconds").at("forward_backward").get<double>();
+    for (const double b : busy) {
+      CHECK(b > 0.0);
+      CHECK(b <= forward_backward);  // a worker's share lies within the fork-joins it ran in
+    }
+  }
+}
+
 TEST_CASE("an interrupted run resumes to bit-identical weights", "[train]") {
   auto config = small_config();
   config.epochs = 3;

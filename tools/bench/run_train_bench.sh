@@ -84,7 +84,8 @@ tokens = round(m["tokens_per_second"] * m["seconds"])
 print(json.dumps({"side": "gyre", "threads": int(sys.argv[3]), "variant": "", "tokens": tokens,
                   "seconds": m["seconds"], "tokens_per_s": m["tokens_per_second"],
                   "dev_accuracy": m["dev"]["accuracy"], "maxrss_kb": t["maxrss_kb"],
-                  "process_elapsed": t["elapsed"], "process_cpu": t["user"] + t["sys"]}))
+                  "process_elapsed": t["elapsed"], "process_cpu": t["user"] + t["sys"],
+                  "step_time": m.get("step_time")}))
 PYEOF
   if [[ $threads == 1 && $pair == 1 ]]; then
     echo "== two 1-thread gyre processes at once"
@@ -171,6 +172,18 @@ if ("gyre", 1) in best and ("torch", 1) in best:
     print(f"target 1 thread >= 3x torch tok/s with dev accuracy >= torch's: "
           f"{'met' if ratio >= 3.0 and acc_ok else 'MISSED'} ({ratio:.2f}x; dev {g1['dev_accuracy']:.3f} vs "
           f"{r1['dev_accuracy']:.3f})")
+# Where gyre's training loop went (metrics.json step_time), and how each phase scaled.
+phases = ("batch", "weight_packs", "forward_backward", "optimizer", "exchange", "other")
+timed = {t: best[("gyre", t)]["step_time"] for t in threads if ("gyre", t) in best and best[("gyre", t)].get("step_time")}
+if timed:
+    print("gyre step time (s): " + "  ".join(f"{p:>16}" for p in phases) + "  workers' own forward+backward")
+    for t, st in timed.items():
+        busy = ", ".join(f"{b:.2f}" for b in st["worker_forward_backward_seconds"])
+        print(f"  {t} thread(s):      " + "  ".join(f"{st['seconds'][p]:>16.3f}" for p in phases) + f"  {busy}")
+    if 1 in timed and 2 in timed:
+        one, two = timed[1]["seconds"], timed[2]["seconds"]
+        print("  2 vs 1 thread:    " + "  ".join(
+            f"{one[p] / two[p]:>15.2f}x" if min(one[p], two[p]) >= 0.01 else f"{'-':>16}" for p in phases))
 for side in ("gyre", "torch"):
     for t in threads:
         if (side, t) in best:
