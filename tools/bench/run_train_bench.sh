@@ -5,17 +5,19 @@
 #
 #   tools/bench/run_train_bench.sh BUILD_DIR [--examples 20000] [--hidden 256] [--threads "1 2"]
 #                                            [--epochs 1] [--no-malloc-tuning] [--keep DIR] [--passive-only]
-#                                            [--pair]
+#                                            [--pair] [--repeat 1]
 #
 # --pair also runs two 1-thread `gyre train` processes at once (same corpus, separate outputs):
 # their summed tokens/s over one process alone is what two cores give to work that never
 # synchronises (shared caches, memory bandwidth, clock speed with both cores busy), the ceiling
 # for --threads 2's scaling on this machine.
+# --repeat N runs every measurement N times, gyre and torch taking turns, and keeps each side's
+# best (same treatment for both: a run slowed by something else on the machine drops out).
 # BUILD_DIR is an existing Release build that contains bin/gyre (this script builds nothing).
 # Needs /usr/bin/python3 with python3-torch and numpy (tools/install-deps.sh --bench).
 set -euo pipefail
 
-usage() { sed -n '2,10p' "$0" | sed 's/^# \{0,1\}//'; exit 2; }
+usage() { sed -n '2,15p' "$0" | sed 's/^# \{0,1\}//'; exit 2; }
 [[ $# -ge 1 ]] || usage
 build_dir=$1; shift
 examples=20000
@@ -26,6 +28,7 @@ malloc_tuning=1
 keep=
 passive_only=0
 pair=0
+repeat=1
 while [[ $# -gt 0 ]]; do
   case $1 in
     --examples) examples=$2; shift 2 ;;
@@ -36,6 +39,7 @@ while [[ $# -gt 0 ]]; do
     --keep) keep=$2; shift 2 ;;
     --passive-only) passive_only=1; shift ;;
     --pair) pair=1; shift ;;
+    --repeat) repeat=$2; shift 2 ;;
     *) usage ;;
   esac
 done
@@ -71,8 +75,9 @@ gyre_flags=(--train "$work/train.tsv" --dev "$work/dev.tsv" --cell lstm --embedd
             --clip-norm 0 --patience 0 --seed 1 --quiet)
 timefmt='{"maxrss_kb": %M, "elapsed": %e, "user": %U, "sys": %S}'
 
+for round in $(seq "$repeat"); do
 for threads in $thread_counts; do
-  echo "== $threads thread(s)"
+  echo "== $threads thread(s)$([[ $repeat -gt 1 ]] && echo ", round $round of $repeat")"
   run=$work/run-$threads
   rm -rf "$run"
   env "${common_env[@]}" /usr/bin/time -f "$timefmt" -o "$work/time.json" \
@@ -126,6 +131,7 @@ print(json.dumps(r))
 PYEOF
   done
 done
+done
 echo "load average after: $(cut -d' ' -f1-3 /proc/loadavg)"
 
 echo "== summary (hidden $hidden; issue-13 targets: gyre >= 3x torch tokens/s on 1 thread with dev accuracy >= torch's, gyre 2 threads >= 1.8x 1 thread; wall clock, idle machine)"
@@ -133,11 +139,11 @@ $py - "$out" <<'PYEOF'
 import json, sys
 rows = [json.loads(l) for l in open(sys.argv[1]) if l.startswith("{")]
 best = {}
-pair = next((r for r in rows if r["side"] == "gyre-pair"), None)
+pair = max((r for r in rows if r["side"] == "gyre-pair"), key=lambda r: r["tokens_per_s"], default=None)
 rows = [r for r in rows if r["side"] != "gyre-pair"]
 for r in rows:
     key = (r["side"], r["threads"])
-    if key not in best or r["tokens_per_s"] > best[key]["tokens_per_s"]:  # best torch variant
+    if key not in best or r["tokens_per_s"] > best[key]["tokens_per_s"]:  # best variant and round
         best[key] = r
 threads = sorted({t for _, t in best})
 print("{:>3} {:>11} {:>11} {:>6} {:>13} {:>13} {:>6} {:>9} {:>9} {:>8} {:>8}  {}".format(
