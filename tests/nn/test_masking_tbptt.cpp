@@ -16,13 +16,7 @@ using gyre::nn::test::random_matrix;
 namespace {
 
 RnnStackConfig make_config(CellType cell, bool bidirectional, int layers, int D, int H) {
-  RnnStackConfig cfg;
-  cfg.cell = cell;
-  cfg.input_size = D;
-  cfg.hidden_size = H;
-  cfg.layers = layers;
-  cfg.bidirectional = bidirectional;
-  return cfg;
+  return {.cell = cell, .input_size = D, .hidden_size = H, .layers = layers, .bidirectional = bidirectional};
 }
 
 // Rows of sequence b (steps 0..len-1) of a time-major [T*B x F] buffer, as a [len x F] matrix.

@@ -32,13 +32,12 @@ TEST_CASE("RnnStack forward+backward allocate nothing after warm-up", "[nn][allo
                                         12, 7, 3, 12, 9, 1, 5, 11, 12, 2, 8, 6, 10, 4, 12, 12};
       const auto B = static_cast<Eigen::Index>(lengths.size());
       ParameterStore store;
-      RnnStackConfig cfg;
-      cfg.cell = cell;
-      cfg.input_size = D;
-      cfg.hidden_size = H;
-      cfg.layers = 2;
-      cfg.bidirectional = true;
-      cfg.dropout = 0.2f;
+      const RnnStackConfig cfg{.cell = cell,
+                               .input_size = D,
+                               .hidden_size = H,
+                               .layers = 2,
+                               .bidirectional = true,
+                               .dropout = 0.2f};
       RnnStack stack(cfg, store);
       Rng rng(3);
       stack.init_parameters(rng);
@@ -88,13 +87,12 @@ TEST_CASE("RnnStack allocates nothing for batches of changing shape once the lar
     DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm" : "gru")) {
       const int D = 64, H = 128;
       ParameterStore store;
-      RnnStackConfig cfg;
-      cfg.cell = cell;
-      cfg.input_size = D;
-      cfg.hidden_size = H;
-      cfg.layers = 2;
-      cfg.bidirectional = true;
-      cfg.dropout = 0.2f;
+      const RnnStackConfig cfg{.cell = cell,
+                               .input_size = D,
+                               .hidden_size = H,
+                               .layers = 2,
+                               .bidirectional = true,
+                               .dropout = 0.2f};
       RnnStack stack(cfg, store);
       Rng rng(3);
       stack.init_parameters(rng);

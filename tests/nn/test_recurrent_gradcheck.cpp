@@ -93,13 +93,12 @@ TEST_CASE("stacked bidirectional RnnStack gradients match central differences", 
     for (const bool bidirectional : {false, true}) {
       DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm" : "gru") << (bidirectional ? " bi" : " uni")) {
         ParameterStore store;
-        RnnStackConfig cfg;
-        cfg.cell = cell;
-        cfg.input_size = D;
-        cfg.hidden_size = H;
-        cfg.layers = 2;
-        cfg.bidirectional = bidirectional;
-        cfg.dropout = 0.25f;
+        const RnnStackConfig cfg{.cell = cell,
+                                 .input_size = D,
+                                 .hidden_size = H,
+                                 .layers = 2,
+                                 .bidirectional = bidirectional,
+                                 .dropout = 0.25f};
         RnnStack stack(cfg, store);
         Rng rng(99);
         stack.init_parameters(rng);

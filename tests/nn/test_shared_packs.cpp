@@ -65,12 +65,11 @@ TEST_CASE("layers reading shared weight packs compute the bits of packing per ca
     for (const Shape shape : {Shape{64, 40, 2}, Shape{24, 20, 3}}) {
       DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm" : "gru")
                       << " H " << shape.hidden << " D " << shape.input) {
-        RnnStackConfig cfg;
-        cfg.cell = cell;
-        cfg.input_size = shape.input;
-        cfg.hidden_size = shape.hidden;
-        cfg.layers = 2;
-        cfg.bidirectional = true;
+        const RnnStackConfig cfg{.cell = cell,
+                                 .input_size = shape.input,
+                                 .hidden_size = shape.hidden,
+                                 .layers = 2,
+                                 .bidirectional = true};
         // master: makes the packs and reads its own; replica: reads the master's; alone: packs per call.
         Replica master(cfg), replica(cfg), alone(cfg);
         Rng rng(11);

@@ -66,12 +66,11 @@ TEST_CASE("LSTM/GRU stacks match torch 1.13 on packed sequences", "[nn][parity]"
         const std::string name = std::string(cell) + "_l" + std::to_string(layers) + "_" + dir + ".json";
         DYNAMIC_SECTION(name) {
           const json fx = load_fixture(name);
-          RnnStackConfig cfg;
-          cfg.cell = fx.at("cell") == "lstm" ? CellType::kLstm : CellType::kGru;
-          cfg.input_size = fx.at("input_size");
-          cfg.hidden_size = fx.at("hidden_size");
-          cfg.layers = fx.at("layers");
-          cfg.bidirectional = fx.at("bidirectional");
+          const RnnStackConfig cfg{.cell = fx.at("cell") == "lstm" ? CellType::kLstm : CellType::kGru,
+                                   .input_size = fx.at("input_size"),
+                                   .hidden_size = fx.at("hidden_size"),
+                                   .layers = fx.at("layers"),
+                                   .bidirectional = fx.at("bidirectional")};
           ParameterStore store;
           RnnStack stack(cfg, store);
           // Every parameter of the stack is in the fixture under the same name, and vice versa.
@@ -120,12 +119,11 @@ TEST_CASE("wide LSTM/GRU layers match torch 1.13 on packed sequences", "[nn][par
   for (const char* cell : {"lstm", "gru"}) {
     DYNAMIC_SECTION(cell) {
       const json fx = load_fixture(std::string(cell) + "_wide.json");
-      RnnStackConfig cfg;
-      cfg.cell = fx.at("cell") == "lstm" ? CellType::kLstm : CellType::kGru;
-      cfg.input_size = fx.at("input_size");
-      cfg.hidden_size = fx.at("hidden_size");
-      cfg.layers = fx.at("layers");
-      cfg.bidirectional = fx.at("bidirectional");
+      const RnnStackConfig cfg{.cell = fx.at("cell") == "lstm" ? CellType::kLstm : CellType::kGru,
+                               .input_size = fx.at("input_size"),
+                               .hidden_size = fx.at("hidden_size"),
+                               .layers = fx.at("layers"),
+                               .bidirectional = fx.at("bidirectional")};
       REQUIRE(cfg.hidden_size % 16 == 0);
       ParameterStore store;
       RnnStack stack(cfg, store);
