@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <numeric>
+#include <utility>
 
 #include "gyre/core/error.hpp"
 #include "gyre/data/encoded_corpus.hpp"
@@ -19,12 +20,12 @@ namespace {
 // The batch plan and the batch contents over any example store: `length(i)`, `ids(i)` (a span),
 // `has_chars(i)` and `chars(i, t)` (a span) read example i.
 template <class Length>
-std::vector<std::vector<std::size_t>> plan(std::size_t count, const Length& length,
-                                           const BatchPlanOptions& options, std::uint64_t seed,
-                                           std::uint64_t epoch) {
+void plan(std::size_t count, const Length& length, const BatchPlanOptions& options, std::uint64_t seed,
+          std::uint64_t epoch, BatchPlan& out) {
   GYRE_CHECK(options.batch_size > 0, "batch_size must be positive");
   GYRE_CHECK(options.bucket_batches > 0, "bucket_batches must be positive");
-  std::vector<std::size_t> order(count);
+  std::vector<std::size_t>& order = out.order;
+  order.resize(count);
   std::iota(order.begin(), order.end(), std::size_t{0});
   Rng rng(seed ^ (0xD1B54A32D192ED03ULL * (epoch + 1)));
   if (options.shuffle) rng.shuffle(std::span<std::size_t>(order));
@@ -37,15 +38,17 @@ std::vector<std::vector<std::size_t>> plan(std::size_t count, const Length& leng
     // stable_sort keeps the shuffled order among equal lengths: deterministic and still random.
     std::stable_sort(first, last, [&](std::size_t a, std::size_t b) { return length(a) < length(b); });
   }
-  std::vector<std::vector<std::size_t>> batches;
-  batches.reserve((order.size() + batch_size - 1) / batch_size);
-  for (std::size_t begin = 0; begin < order.size(); begin += batch_size) {
-    const std::size_t end = std::min(order.size(), begin + batch_size);
-    batches.emplace_back(order.begin() + static_cast<std::ptrdiff_t>(begin),
-                         order.begin() + static_cast<std::ptrdiff_t>(end));
+  // Every batch's vector keeps room for a full batch: the shuffle below moves the short last
+  // batch's vector to any place, which a full batch may take in the next epoch.
+  std::vector<std::vector<std::size_t>>& batches = out.batches;
+  batches.resize((order.size() + batch_size - 1) / batch_size);
+  for (std::size_t i = 0; i < batches.size(); ++i) {
+    const std::size_t begin = i * batch_size, end = std::min(order.size(), begin + batch_size);
+    batches[i].reserve(batch_size);
+    batches[i].assign(order.begin() + static_cast<std::ptrdiff_t>(begin),
+                      order.begin() + static_cast<std::ptrdiff_t>(end));
   }
   if (options.shuffle) rng.shuffle(std::span<std::vector<std::size_t>>(batches));
-  return batches;
 }
 
 template <class Ids, class HasChars, class Chars>
@@ -93,15 +96,24 @@ void fill(const Ids& ids_of, const HasChars& has_chars, const Chars& chars_of,
 std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExample> examples,
                                                    const BatchPlanOptions& options, std::uint64_t seed,
                                                    std::uint64_t epoch) {
-  return plan(
-      examples.size(), [&](std::size_t i) { return examples[i].ids.size(); }, options, seed, epoch);
+  BatchPlan out;
+  plan(
+      examples.size(), [&](std::size_t i) { return examples[i].ids.size(); }, options, seed, epoch, out);
+  return std::move(out.batches);
 }
 
 std::vector<std::vector<std::size_t>> plan_batches(const EncodedCorpus& examples,
                                                    const BatchPlanOptions& options, std::uint64_t seed,
                                                    std::uint64_t epoch) {
-  return plan(
-      examples.size(), [&](std::size_t i) { return examples.length(i); }, options, seed, epoch);
+  BatchPlan out;
+  plan_batches(examples, options, seed, epoch, out);
+  return std::move(out.batches);
+}
+
+void plan_batches(const EncodedCorpus& examples, const BatchPlanOptions& options, std::uint64_t seed,
+                  std::uint64_t epoch, BatchPlan& plan_out) {
+  plan(
+      examples.size(), [&](std::size_t i) { return examples.length(i); }, options, seed, epoch, plan_out);
 }
 
 void fill_batch(std::span<const EncodedExample> examples, std::span<const std::size_t> indices, Batch& batch,

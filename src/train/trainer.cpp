@@ -647,6 +647,7 @@ struct StepClock {
 };
 
 struct StepBuffers {
+  StepBuffers() = default;
   explicit StepBuffers(int workers)
       : sub(static_cast<std::size_t>(workers)),
         losses(static_cast<std::size_t>(workers)),
@@ -747,6 +748,11 @@ class Run {
   json label_thresholds_;  // filled by calibrate() for multi-label classifiers that tune them
   std::chrono::steady_clock::time_point epoch_start_;
   StepClock clock_;
+  // The epoch's plan and the step's batch and worker slices, kept from epoch to epoch: the next
+  // epoch's steps reuse the storage the first one grew instead of growing it again (issue 13).
+  data::BatchPlan plan_;
+  data::Batch batch_;
+  StepBuffers step_buffers_;
 };
 
 void Run::setup_model() {
@@ -1100,14 +1106,17 @@ void Run::note_padding(std::size_t plan_steps, std::size_t padded, std::size_t t
 void Run::run_epoch() {
   data::BatchPlanOptions plan_options;
   plan_options.batch_size = config_.batch_size;
-  const auto plan =
-      data::plan_batches(data_.train, plan_options, config_.seed, static_cast<std::uint64_t>(state_.epoch));
+  data::plan_batches(data_.train, plan_options, config_.seed, static_cast<std::uint64_t>(state_.epoch),
+                     plan_);
+  const std::vector<std::vector<std::size_t>>& plan = plan_.batches;
   // epoch_step_limit: the epoch ends after the first steps of its plan.
   const std::size_t plan_steps = std::min(plan.size(), steps_per_epoch_);
   progress_.start_epoch(state_.epoch + 1, config_.epochs, plan_steps);
   epoch_start_ = std::chrono::steady_clock::now();
-  data::Batch batch;
-  StepBuffers buf(config_.threads);
+  data::Batch& batch = batch_;
+  if (step_buffers_.sub.size() != static_cast<std::size_t>(config_.threads))
+    step_buffers_ = StepBuffers(config_.threads);
+  StepBuffers& buf = step_buffers_;
   std::vector<nn::ParameterStore*> others;
   for (std::size_t w = 1; w < replicas_.size(); ++w) others.push_back(&replicas_[w]->params());
   std::size_t padded = 0, tokens = 0;
@@ -1419,6 +1428,9 @@ void Run::release_training_state() {
   std::vector<std::byte>().swap(received_);
   std::vector<nn::ParameterStore*>().swap(replica_ptrs_);
   data_.train = data::EncodedCorpus();
+  plan_ = data::BatchPlan();
+  batch_ = data::Batch();
+  step_buffers_ = StepBuffers();
 }
 
 // The most confident dev mistakes of the (calibrated) best model, each with its integrated-gradients

@@ -168,9 +168,12 @@ TEST_CASE("encoded corpus: the same batch plans and batches as the vector of exa
     gyre::data::BatchPlanOptions opt;
     opt.batch_size = 16;
     opt.bucket_batches = 4;
+    gyre::data::BatchPlan reused;  // the trainer's form: one plan's storage for every epoch
     for (std::uint64_t epoch = 0; epoch < 3; ++epoch) {
       const auto plan = gyre::data::plan_batches(corpus, opt, 21, epoch);
       REQUIRE(plan == gyre::data::plan_batches(examples, opt, 21, epoch));
+      gyre::data::plan_batches(corpus, opt, 21, epoch, reused);
+      REQUIRE(reused.batches == plan);
       gyre::data::Batch a, b;
       for (const auto& indices : plan)
         for (const int max_length : {0, 7}) {

@@ -74,6 +74,14 @@ struct BatchPlanOptions {
   bool shuffle = true;
 };
 
+/// An epoch's plan in storage kept from epoch to epoch (the reusing plan_batches over an
+/// EncodedCorpus): once the first epoch's plan has been made, the next ones of the same corpus and
+/// batch size allocate nothing for it.
+struct BatchPlan {
+  std::vector<std::vector<std::size_t>> batches;  // as plan_batches returns them
+  std::vector<std::size_t> order;                 // scratch: the examples shuffled and bucket-sorted
+};
+
 /// Indices of the examples in each batch for one epoch. Deterministic in (seed, epoch).
 std::vector<std::vector<std::size_t>> plan_batches(std::span<const EncodedExample> examples,
                                                    const BatchPlanOptions& options, std::uint64_t seed,

@@ -79,6 +79,9 @@ class EncodedCorpus {
 std::vector<std::vector<std::size_t>> plan_batches(const EncodedCorpus& examples,
                                                    const BatchPlanOptions& options, std::uint64_t seed,
                                                    std::uint64_t epoch);
+/// The same plan into `plan`'s storage (plan.batches), reused from epoch to epoch.
+void plan_batches(const EncodedCorpus& examples, const BatchPlanOptions& options, std::uint64_t seed,
+                  std::uint64_t epoch, BatchPlan& plan);
 void fill_batch(const EncodedCorpus& examples, std::span<const std::size_t> indices, Batch& batch,
                 int max_length = 0);
 
