@@ -684,6 +684,7 @@ class Run {
   void load_resume_state();
   void run_epoch();
   void workers_forward_backward(std::span<const std::size_t> indices, double normalizer, StepBuffers& buf);
+  void grow_step_buffers(const std::vector<std::vector<std::size_t>>& plan, std::size_t plan_steps);
   void note_padding(std::size_t plan_steps, std::size_t padded, std::size_t tokens);
   void end_epoch();
   void save_last();
@@ -753,6 +754,7 @@ class Run {
   data::BatchPlan plan_;
   data::Batch batch_;
   StepBuffers step_buffers_;
+  bool step_buffers_grown_ = false;  // grow_step_buffers ran in this process
 };
 
 void Run::setup_model() {
@@ -1093,6 +1095,31 @@ void Run::workers_forward_backward(std::span<const std::size_t> indices, double 
   clock_.lap(clock_.forward_backward);
 }
 
+// Before the first step of this process: one forward and backward pass of the plan's batch with
+// the largest grid (padded length x examples), whose gradients are then dropped, so that the
+// step buffers of every replica (and the pages behind them) reach their size before the timed
+// steps instead of growing and faulting in over the first epoch (issue 13). Nothing carries over
+// into the training: the dropout stream of a step is derived from (seed, epoch, step, worker),
+// every buffer is written before it is read, and the gradients and touched rows are cleared.
+void Run::grow_step_buffers(const std::vector<std::vector<std::size_t>>& plan, std::size_t plan_steps) {
+  std::size_t widest = plan_steps, widest_cells = 0;
+  for (std::size_t i = state_.step; i < plan_steps; ++i) {
+    std::size_t longest = 0;
+    for (const std::size_t e : plan[i]) longest = std::max(longest, data_.train.length(e));
+    if (config_.max_length > 0) longest = std::min(longest, static_cast<std::size_t>(config_.max_length));
+    if (longest * plan[i].size() > widest_cells) {
+      widest_cells = longest * plan[i].size();
+      widest = i;
+    }
+  }
+  if (widest == plan_steps) return;
+  const StepClock clock = clock_;  // the warm-up is not a training step
+  data::fill_batch(data_.train, plan[widest], batch_, config_.max_length);
+  workers_forward_backward(plan[widest], replicas_[0]->loss_units(batch_), step_buffers_);
+  clock_ = clock;
+  for (auto& r : replicas_) r->params().zero_grad();
+}
+
 // The share of the batch grid that was padding, once per run (only meaningful when the epoch
 // ran from its start).
 void Run::note_padding(std::size_t plan_steps, std::size_t padded, std::size_t tokens) {
@@ -1117,6 +1144,10 @@ void Run::run_epoch() {
   if (step_buffers_.sub.size() != static_cast<std::size_t>(config_.threads))
     step_buffers_ = StepBuffers(config_.threads);
   StepBuffers& buf = step_buffers_;
+  if (!step_buffers_grown_) {
+    grow_step_buffers(plan, plan_steps);
+    step_buffers_grown_ = true;
+  }
   std::vector<nn::ParameterStore*> others;
   for (std::size_t w = 1; w < replicas_.size(); ++w) others.push_back(&replicas_[w]->params());
   std::size_t padded = 0, tokens = 0;
