@@ -1118,6 +1118,15 @@ void Run::grow_step_buffers(const std::vector<std::vector<std::size_t>>& plan, s
   workers_forward_backward(plan[widest], replicas_[0]->loss_units(batch_), step_buffers_);
   clock_ = clock;
   for (auto& r : replicas_) r->params().zero_grad();
+  // The optimizer's state is zeroed storage that the allocator may have handed out untouched
+  // (fresh pages read as zero): every page gets one of its values written back, unchanged, so
+  // that the first update does not fault them in.
+  for (const optim::StateTensor& t : optimizer_->state_tensors()) {
+    volatile float* p = t.second->data();
+    const Eigen::Index n = t.second->size();
+    for (Eigen::Index i = 0; i < n; i += 1024) p[i] = p[i];  // 1024 floats: a 4 KiB page
+    if (n > 0) p[n - 1] = p[n - 1];
+  }
 }
 
 // The share of the batch grid that was padding, once per run (only meaningful when the epoch
