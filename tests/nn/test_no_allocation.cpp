@@ -20,6 +20,20 @@ using namespace gyre;
 using namespace gyre::nn;
 using gyre::nn::test::random_matrix;
 
+namespace {
+
+// Both tests' stack: two bidirectional layers with dropout between them.
+RnnStackConfig two_bidirectional_layers(CellType cell, int input, int hidden) {
+  return {.cell = cell,
+          .input_size = input,
+          .hidden_size = hidden,
+          .layers = 2,
+          .bidirectional = true,
+          .dropout = 0.2f};
+}
+
+}  // namespace
+
 TEST_CASE("RnnStack forward+backward allocate nothing after warm-up", "[nn][alloc]") {
 #if !GYRE_COUNT_MALLOC
   WARN("malloc counting unavailable (sanitizer build); only capacities are checked");
@@ -32,12 +46,7 @@ TEST_CASE("RnnStack forward+backward allocate nothing after warm-up", "[nn][allo
                                         12, 7, 3, 12, 9, 1, 5, 11, 12, 2, 8, 6, 10, 4, 12, 12};
       const auto B = static_cast<Eigen::Index>(lengths.size());
       ParameterStore store;
-      const RnnStackConfig cfg{.cell = cell,
-                               .input_size = D,
-                               .hidden_size = H,
-                               .layers = 2,
-                               .bidirectional = true,
-                               .dropout = 0.2f};
+      const RnnStackConfig cfg = two_bidirectional_layers(cell, D, H);
       RnnStack stack(cfg, store);
       Rng rng(3);
       stack.init_parameters(rng);
@@ -87,13 +96,7 @@ TEST_CASE("RnnStack allocates nothing for batches of changing shape once the lar
     DYNAMIC_SECTION((cell == CellType::kLstm ? "lstm" : "gru")) {
       const int D = 64, H = 128;
       ParameterStore store;
-      const RnnStackConfig cfg{.cell = cell,
-                               .input_size = D,
-                               .hidden_size = H,
-                               .layers = 2,
-                               .bidirectional = true,
-                               .dropout = 0.2f};
-      RnnStack stack(cfg, store);
+      RnnStack stack(two_bidirectional_layers(cell, D, H), store);
       Rng rng(3);
       stack.init_parameters(rng);
       // (T, lengths) per batch: several padded lengths and batch sizes, not sorted.
