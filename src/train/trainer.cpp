@@ -608,8 +608,6 @@ std::string fmt_general(double v) {
 
 // ---------------------------------------------------------------- the run
 
-// Scratch of one training step, one entry per worker of this process, kept across the steps of
-// an epoch.
 // Where the wall-clock time of this process's training steps went (metrics.json "step_time"): the
 // evidence for how well several workers scale. Each phase is timed on the calling thread from the
 // end of the previous one, so the phases add up to the steps' time; `worker_busy` is each
@@ -646,6 +644,8 @@ struct StepClock {
   }
 };
 
+// Scratch of one training step, one entry per worker of this process, kept across the steps and
+// epochs of the run.
 struct StepBuffers {
   StepBuffers() = default;
   explicit StepBuffers(int workers)
@@ -814,6 +814,7 @@ void Run::setup_model() {
   schedule_ = optim::make_schedule(config_.schedule, sc);
   pool_ = std::make_unique<WorkerPool>(config_.threads);
   clock_.worker_busy.assign(static_cast<std::size_t>(config_.threads), 0.0);
+  step_buffers_ = StepBuffers(config_.threads);
   if (group_.size() > 1) {
     // Gradient holders for the other global workers (values unused), allocated once.
     peer_grads_.assign(static_cast<std::size_t>(global_workers() - 1), master.params());
@@ -1150,8 +1151,6 @@ void Run::run_epoch() {
   progress_.start_epoch(state_.epoch + 1, config_.epochs, plan_steps);
   epoch_start_ = std::chrono::steady_clock::now();
   data::Batch& batch = batch_;
-  if (step_buffers_.sub.size() != static_cast<std::size_t>(config_.threads))
-    step_buffers_ = StepBuffers(config_.threads);
   StepBuffers& buf = step_buffers_;
   if (!step_buffers_grown_) {
     grow_step_buffers(plan, plan_steps);
