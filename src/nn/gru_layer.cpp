@@ -27,7 +27,7 @@ struct GruLayer::Workspace {
   detail::GrowBuffer dgi;     // [N x 3H]: d loss / d input-side pre-activations
   detail::GrowBuffer dgh;     // [N x 3H]: d loss / d hidden-side pre-activations (U h + b_h)
   detail::GrowBuffer dx;      // [N x D]
-  detail::LayerPacks packs;   // U and W packed for the AVX-512 path (see lstm_layer.cpp)
+  detail::LayerPacks packs;   // U and W packed for the fast-kernel path (see lstm_layer.cpp)
 };
 
 GruLayer::GruLayer(ParameterStore& store, const std::string& prefix, int input_size, int hidden_size,
@@ -103,7 +103,7 @@ void GruLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> l
     else
       hi.row(j).setZero();
   }
-  // Packs made for this step by pack_weights (AVX-512 path only), or null: pack here.
+  // Packs made for this step by pack_weights (fast-kernel path only), or null: pack here.
   const detail::WeightPacks* shared = w.packs.made();
   if (shared != nullptr)
     detail::fast::gemm_packed(N, 3 * H, D, xs.data(), xs.outerStride(), false, shared->in_fwd.data(),
@@ -178,7 +178,7 @@ void GruLayer::backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, boo
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
     if (n == 0) continue;
     if (fast) {
-      // Element-wise part in one AVX-512 pass (d_out rows gathered in it), then dh += dG_h U.
+      // Element-wise part in one vector pass (d_out rows gathered in it), then dh += dG_h U.
       detail::fast::gru_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
                                       gates.row(o).data(), hn.row(o).data(), h_prev.row(o).data(),
                                       dgi.row(o).data(), dgh.row(o).data());

@@ -29,8 +29,8 @@ struct LstmLayer::Workspace {
   detail::GrowBuffer dh, dc;  // [B x H]: running state gradients in sorted order (backward)
   detail::GrowBuffer dgates;  // [N x 4H]: d loss / d pre-activations
   detail::GrowBuffer dx;      // [N x D]: packed input gradient
-  // AVX-512 path: U packed once per forward (gate-interleaved for the fused step) and once per
-  // backward (panels of U for dG U), reused by every time step; W packed by the GEMM objects.
+  // Fast-kernel path (AVX-512 or AVX2): U packed once per forward (gate-interleaved for the fused step) and
+  // once per backward (panels of U for dG U), reused by every time step; W packed by the GEMM objects.
   // pack_weights() fills all four packs here instead, and `packs.shared` (when set) points at the packs
   // forward and backward read: this layer's or another replica's (read_packs_from).
   detail::LayerPacks packs;
@@ -138,7 +138,7 @@ void LstmLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> 
     else
       ci.row(j).setZero();
   }
-  // Packs made for this step by pack_weights (AVX-512 path only), or null: pack here.
+  // Packs made for this step by pack_weights (fast-kernel path only), or null: pack here.
   const detail::WeightPacks* shared = w.packs.made();
   // Input projection of all valid steps in one GEMM, bias folded in.
   if (shared != nullptr)
@@ -148,7 +148,7 @@ void LstmLayer::forward(Eigen::Ref<const Matrix> x, int T, std::span<const int> 
     w.gemm_input.run(gates, xs, detail::Op::kN, w_input_.value, detail::Op::kT, false, bias_.value.data());
 
   const Matrix& U = w_hidden_.value;
-  // Fused AVX-512 step (GEMM + cell in one pass over the gates) when H allows it.
+  // Fused step (fast kernels) (GEMM + cell in one pass over the gates) when H allows it.
   const float* u_step = w.packs.step(U.data(), 4, H);  // null: no fused step
   for (int s = 0; s < T; ++s) {
     const Eigen::Index n = lay.count(s), o = lay.offset(s);
@@ -214,7 +214,7 @@ void LstmLayer::backward_into(Eigen::Ref<const Matrix> d_out, MatrixMap* d_x, bo
     if (n == 0) continue;
     const float* c_before = s == 0 ? ci.data() : cs.row(lay.offset(s - 1)).data();  // as in forward
     if (fast) {
-      // Element-wise part in one AVX-512 pass (d_out rows gathered in it), then dh = dG U.
+      // Element-wise part in one vector pass (d_out rows gathered in it), then dh = dG U.
       detail::fast::lstm_cell_backward(n, H, d_out.data(), d_out.outerStride(), lay.sources(o), dh.data(),
                                        dc.data(), gates.row(o).data(), tanh_c.row(o).data(), c_before,
                                        dgates.row(o).data());

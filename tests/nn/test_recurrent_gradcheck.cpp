@@ -35,7 +35,7 @@ TEST_CASE("recurrent layer gradients match central differences", "[nn][gradcheck
   const int T = 5, D = 4;
   const std::vector<int> lengths = {5, 2, 3, 0};  // 0: no step in this window (state passes through)
   const auto B = static_cast<Eigen::Index>(lengths.size());
-  // H = 16 takes the fused AVX-512 step where the CPU has it (src/nn/detail/fast_kernels.hpp).
+  // H = 16 takes the fused step (AVX-512 or AVX2) where the CPU has it (src/nn/detail/fast_kernels.hpp).
   for (const int H : {3, 16})
     for (const CellType cell : {CellType::kLstm, CellType::kGru}) {
       for (const bool reverse : {false, true}) {

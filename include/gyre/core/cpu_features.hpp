@@ -5,9 +5,18 @@
 
 namespace gyre {
 
-/// True on x86-64 CPUs with AVX-512 F/DQ/BW/VL and FMA (and OS support for their registers),
-/// unless the environment variable GYRE_NN_KERNELS=portable (or avx2) turns the fast kernels off (tests
-/// run both paths; benchmarks compare them).
+/// The training kernels this process uses, best first.
+enum class TrainingKernels {
+  kAvx512,    ///< x86-64 with AVX-512 F/DQ/BW/VL and FMA (and OS support for their registers)
+  kAvx2,      ///< x86-64 with AVX2 and FMA: the same kernels at 8 floats a vector
+  kPortable,  ///< anything else: the layers' Eigen path
+};
+
+/// The best level this CPU runs, capped by the environment variable GYRE_NN_KERNELS: "portable"
+/// (the Eigen path), "avx2" (no AVX-512). Tests run every level the CPU has; benchmarks compare them.
+TrainingKernels training_kernels() noexcept;
+
+/// training_kernels() == TrainingKernels::kAvx512 (the optimizer's AVX-512 update).
 bool use_avx512_training_kernels() noexcept;
 
 }  // namespace gyre

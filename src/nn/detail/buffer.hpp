@@ -36,7 +36,7 @@ class GrowBuffer {
   Eigen::Matrix<float, Eigen::Dynamic, 1> data_;
 };
 
-/// out[c] += the sum of column c of a (the bias gradients). AVX-512 path: fast::add_column_sums,
+/// out[c] += the sum of column c of a (the bias gradients). Fast-kernel path: fast::add_column_sums,
 /// which walks the rows in order and adds them in the order Eigen's vectorised colwise().sum()
 /// uses; otherwise that Eigen expression itself (a row-major map is summed packet-wise too).
 inline void add_column_sums(const Eigen::Ref<const Matrix>& a, float* out) {

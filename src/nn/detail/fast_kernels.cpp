@@ -4,6 +4,7 @@
 
 #include "fast_kernels.hpp"
 
+#include "fast_kernels_avx2.hpp"
 #include "gyre/core/cpu_features.hpp"
 
 #include <algorithm>
@@ -43,14 +44,23 @@ void AlignedBuffer::Free::operator()(float* p) const noexcept {
 }
 
 bool available() noexcept {
-  return use_avx512_training_kernels();
+  return training_kernels() != TrainingKernels::kPortable;
 }
 
 const char* name() noexcept {
-  return available() ? "avx512" : "portable";
+  switch (training_kernels()) {
+    case TrainingKernels::kAvx512:
+      return "avx512";
+    case TrainingKernels::kAvx2:
+      return "avx2";
+    case TrainingKernels::kPortable:
+      break;
+  }
+  return "portable";
 }
 
-// ---- packing (plain C++ here; the AVX-512 versions below are used when available()) -----------
+// ---- packing (plain C++ here, used by the AVX2 level too; the AVX-512 versions below give the
+// same bytes) ----------------------------------------------------------------------------------
 
 namespace {
 
@@ -78,19 +88,24 @@ void pack_b_plain(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t
   }
 }
 
+// `units` columns of each gate side by side per packed row: kCellUnits for the AVX-512 kernels
+// (one panel holds all its units), kAvx2CellUnits for the AVX2 ones (each panel as two sub-panels
+// of 8 units, so that a tile reads whole lines; see fast_kernels_avx2.cpp).
 void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* out, std::ptrdiff_t p_begin,
-                      std::ptrdiff_t p_end) {
+                      std::ptrdiff_t p_end, std::ptrdiff_t units) {
   const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
-  for (std::ptrdiff_t p = p_begin; p < p_end; ++p) {
-    float* dst = out + p * nr * hidden;
-    for (int g = 0; g < gates; ++g)
-      for (std::ptrdiff_t j = 0; j < kCellUnits; ++j) {
-        // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed).
-        const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits + j) * hidden;
-        float* d = dst + g * kCellUnits + j;
-        for (std::ptrdiff_t kk = 0; kk < hidden; ++kk) d[kk * nr] = src[kk];
-      }
-  }
+  const std::ptrdiff_t sub_nr = static_cast<std::ptrdiff_t>(gates) * units;
+  for (std::ptrdiff_t p = p_begin; p < p_end; ++p)
+    for (std::ptrdiff_t s0 = 0; s0 < kCellUnits; s0 += units) {
+      float* dst = out + p * nr * hidden + s0 / units * sub_nr * hidden;
+      for (int g = 0; g < gates; ++g)
+        for (std::ptrdiff_t j = 0; j < units; ++j) {
+          // Column g*units + j of the sub-panel = row g*H + 16p + s0 + j of U (read transposed).
+          const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits + s0 + j) * hidden;
+          float* d = dst + g * units + j;
+          for (std::ptrdiff_t kk = 0; kk < hidden; ++kk) d[kk * sub_nr] = src[kk];
+        }
+    }
 }
 
 }  // namespace
@@ -711,10 +726,14 @@ GYRE_AVX512_EXACT void add_column_sums_avx512(const float* a, std::ptrdiff_t row
   }
 }
 
+bool avx512() noexcept {
+  return training_kernels() == TrainingKernels::kAvx512;
+}
+
 }  // namespace
 
 void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
-  if (available())
+  if (avx512())
     pack_b_avx512(b, ldb, trans, k, n, out);
   else
     pack_b_plain(b, ldb, trans, k, n, out);
@@ -722,27 +741,37 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
 
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
                        std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
-  if (available())
+  if (avx512())
     pack_gates_avx512(u, gates, hidden, out, panel_begin, panel_end);
   else
-    pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end);
+    pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end, kAvx2CellUnits);
 }
 
 void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
                      float* out) {
-  if (rows > 0) add_column_sums_avx512(a, rows, cols, lda, out);
+  if (rows <= 0) return;
+  if (avx512())
+    add_column_sums_avx512(a, rows, cols, lda, out);
+  else
+    avx2::add_column_sums(a, rows, cols, lda, out);
 }
 
 void lstm_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
                         const int* source, const float* dh, float* dc, const float* acts, const float* tanh_c,
                         const float* c_prev, float* dgates) {
-  lstm_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, dc, acts, tanh_c, c_prev, dgates);
+  if (avx512())
+    lstm_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, dc, acts, tanh_c, c_prev, dgates);
+  else
+    avx2::lstm_cell_backward(n, hidden, d_out, ld_out, source, dh, dc, acts, tanh_c, c_prev, dgates);
 }
 
 void gru_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
                        const int* source, float* dh, const float* acts, const float* hn, const float* h_prev,
                        float* dgi, float* dgh) {
-  gru_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, acts, hn, h_prev, dgi, dgh);
+  if (avx512())
+    gru_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, acts, hn, h_prev, dgi, dgh);
+  else
+    avx2::gru_cell_backward(n, hidden, d_out, ld_out, source, dh, acts, hn, h_prev, dgi, dgh);
 }
 
 void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const float* a, std::ptrdiff_t lda,
@@ -757,7 +786,9 @@ void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const flo
         for (std::ptrdiff_t j = 0; j < n; ++j) c[i * ldc + j] += bias[j];
     return;
   }
-  if (trans_a)
+  if (!avx512())
+    avx2::gemm_packed(m, n, k, a, lda, trans_a, bp, c, ldc, accumulate, bias);
+  else if (trans_a)
     gemm_avx512<true>(m, n, k, a, lda, bp, c, ldc, accumulate, bias);
   else
     gemm_avx512<false>(m, n, k, a, lda, bp, c, ldc, accumulate, bias);
@@ -766,12 +797,18 @@ void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const flo
 void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, const float* c_prev,
                std::ptrdiff_t ld_state, const float* up, float* gates, float* c_out, float* tanh_c_out,
                float* h_out) {
-  lstm_step_avx512(n, hidden, h_prev, c_prev, ld_state, up, gates, c_out, tanh_c_out, h_out);
+  if (avx512())
+    lstm_step_avx512(n, hidden, h_prev, c_prev, ld_state, up, gates, c_out, tanh_c_out, h_out);
+  else
+    avx2::lstm_step(n, hidden, h_prev, c_prev, ld_state, up, gates, c_out, tanh_c_out, h_out);
 }
 
 void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std::ptrdiff_t ld_state,
               const float* up, const float* bias_hidden, float* gates, float* hn_out, float* h_out) {
-  gru_step_avx512(n, hidden, h_prev, ld_state, up, bias_hidden, gates, hn_out, h_out);
+  if (avx512())
+    gru_step_avx512(n, hidden, h_prev, ld_state, up, bias_hidden, gates, hn_out, h_out);
+  else
+    avx2::gru_step(n, hidden, h_prev, ld_state, up, bias_hidden, gates, hn_out, h_out);
 }
 
 #else  // not x86-64: available() is false and these are never called.
@@ -781,7 +818,7 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
 }
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
                        std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
-  pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end);
+  pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end, kCellUnits);
 }
 void lstm_cell_backward(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, const int*,
                         const float*, float*, const float*, const float*, const float*, float*) {

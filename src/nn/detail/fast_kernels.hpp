@@ -1,9 +1,10 @@
 #pragma once
-// Training kernels for x86-64 CPUs with AVX-512 (F, DQ, BW, VL), compiled with target attributes
-// in fast_kernels_avx512.cpp and chosen at run time (no -march flag needed): a register-blocked
-// single-precision GEMM on packed right-hand panels, and the LSTM/GRU time step with the gate
-// non-linearities fused into the GEMM's epilogue. On other CPUs `available()` is false and the
-// layers use their Eigen path (the portable path), which computes the same functions.
+// Training kernels for x86-64 CPUs with AVX-512 (F, DQ, BW, VL; fast_kernels.cpp) or with AVX2 and
+// FMA (fast_kernels_avx2.cpp), compiled with target attributes and chosen at run time
+// (gyre::training_kernels(); no -march flag needed): a register-blocked single-precision GEMM on
+// packed right-hand panels, and the LSTM/GRU time step with the gate non-linearities fused into
+// the GEMM's epilogue. On other CPUs `available()` is false and the layers use their Eigen path
+// (the portable path), which computes the same functions.
 //
 // Determinism: every product sums its k terms in blocks of kGemmKc, in order, each block from
 // zero with one FMA chain per output, then adds the block to the output. Nothing depends on the
@@ -30,11 +31,13 @@ inline constexpr int kGemmKc = 256;
 inline constexpr int kGemmMc = 144;
 /// Hidden units per panel of the fused cell kernels (LSTM: 4 gates x 16, GRU: 3 gates x 16).
 inline constexpr int kCellUnits = 16;
+/// Units per sub-panel of the AVX2 kernels' gate packing (see pack_gates).
+inline constexpr int kAvx2CellUnits = 8;
 
-/// True when the AVX-512 kernels are used on this CPU (gyre::use_avx512_training_kernels():
-/// GYRE_NN_KERNELS=portable in the environment turns them off).
+/// True when the AVX-512 or the AVX2 kernels are used on this CPU (gyre::training_kernels():
+/// GYRE_NN_KERNELS=portable in the environment turns them off, =avx2 keeps to the AVX2 ones).
 bool available() noexcept;
-/// "avx512" or "portable".
+/// "avx512", "avx2" or "portable".
 const char* name() noexcept;
 
 /// Floats of a packed [k x n] operand with `nr` columns per panel.
@@ -58,6 +61,9 @@ inline std::ptrdiff_t b_panels(std::ptrdiff_t n) {
 /// Packs the recurrent weight U [G*H x H] (row-major, gate blocks of H rows) read transposed, as
 /// the [H x G*H] right operand of h U^T, with the columns of kCellUnits units of every gate in one
 /// panel: panel p, column g*16 + j = gate g, unit 16p + j. H must be a multiple of kCellUnits.
+/// With the AVX2 kernels each panel is instead two sub-panels of kAvx2CellUnits units, one after
+/// the other ([2][H][G*8]: sub-panel s, column g*8 + j = gate g, unit 16p + 8s + j): the same
+/// floats in the same panel's storage, ordered so that each k of a sub-panel is whole lines.
 void pack_gates(const float* u, int gates, std::ptrdiff_t hidden, float* out);
 /// Panels [panel_begin, panel_end) of pack_gates's output only (it has hidden / kCellUnits).
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,

@@ -12,7 +12,7 @@
 // from the largest shape seen before. Otherwise the same product gives different bits depending
 // on history, and a resumed training run drifts from an uninterrupted one (issue 10, item 1).
 //
-// On CPUs with AVX-512 the product runs on gyre's own kernel instead (fast_kernels.hpp: op(B)
+// On CPUs with AVX-512 or AVX2+FMA the product runs on gyre's own kernel instead (fast_kernels.hpp: op(B)
 // packed into panels per call, k summed in fixed blocks of kGemmKc); the Eigen path is the
 // portable one. Either way the bits depend only on the operands and the shape.
 
@@ -34,7 +34,7 @@ class Gemm {
  public:
   /// C = op(A) op(B), or C += op(A) op(B) when accumulate. All operands row-major with unit inner
   /// stride (whole matrices, maps or column blocks). bias [n], when given, is then added to every
-  /// row of C (on the AVX-512 path in the product's epilogue; the same bits either way).
+  /// row of C (on the fast-kernel path in the product's epilogue; the same bits either way).
   void run(Eigen::Ref<Matrix> c, Eigen::Ref<const Matrix> a, Op op_a, Eigen::Ref<const Matrix> b, Op op_b,
            bool accumulate, const float* bias = nullptr) {
     const Eigen::Index m = c.rows(), n = c.cols();

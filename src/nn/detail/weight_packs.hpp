@@ -1,5 +1,5 @@
 #pragma once
-// The packed copies of a recurrent layer's weights that the AVX-512 path multiplies with
+// The packed copies of a recurrent layer's weights that the fast kernels (AVX-512 or AVX2) multiply with
 // (fast_kernels.hpp), for a layer with G gates (LSTM 4, GRU 3), hidden size H and input size D:
 //   step:    U [G*H x H] by pack_gates, the right operand of the fused time step (H % 16 == 0);
 //   back:    U as op(B) = U [G*H x H] by pack_b, the right operand of dh = dG U;
@@ -57,7 +57,7 @@ struct WeightPacks {
 
 /// A recurrent layer's packs with G gates (LSTM 4, GRU 3): its own, and the ones its forward and
 /// backward read when set (RecurrentLayer::read_packs_from: this layer's after pack_weights, or
-/// another replica's). Without the AVX-512 kernels nothing is packed.
+/// another replica's). Without the fast kernels nothing is packed.
 struct LayerPacks {
   WeightPacks own;
   const WeightPacks* shared = nullptr;
@@ -71,10 +71,10 @@ struct LayerPacks {
     if (fast::available()) own.pack(u, w, gates, hidden, input, part, parts);
   }
   std::size_t capacity_bytes() const noexcept { return own.capacity_bytes(); }
-  /// The packs made for this step by pack_weights (AVX-512 path only), or null: pack per call.
+  /// The packs made for this step by pack_weights (fast-kernel path only), or null: pack per call.
   const WeightPacks* made() const noexcept { return fast::available() ? shared : nullptr; }
   /// U gate-interleaved for the fused time step: the made pack, or packed now into `own`; null when
-  /// the fused step does not apply (no AVX-512 kernels, or H not a multiple of kCellUnits).
+  /// the fused step does not apply (no fast kernels, or H not a multiple of kCellUnits).
   const float* step(const float* u, int gates, std::ptrdiff_t hidden) {
     if (!fast::available() || !WeightPacks::fused(hidden)) return nullptr;
     if (shared != nullptr) return shared->step.data();
@@ -83,7 +83,7 @@ struct LayerPacks {
     return own.step.data();
   }
   /// U as the right operand of dG U: the made pack, or packed now into `own`; null without the
-  /// AVX-512 kernels.
+  /// fast kernels.
   const float* back(const float* u, int gates, std::ptrdiff_t hidden) {
     if (!fast::available()) return nullptr;
     if (shared != nullptr) return shared->back.data();
