@@ -39,24 +39,24 @@ void Adam::begin_step(std::int64_t step, float learning_rate) {
 
 void Adam::update_block_checked(float* value, float* grad, float* const* slots, std::int64_t count,
                                 bool zero_grad, NonFinite& seen) {
-  if (!use_avx512_training_kernels()) {
+  if (training_kernels() == TrainingKernels::kPortable) {
     Optimizer::update_block_checked(value, grad, slots, count, zero_grad, seen);
     return;
   }
-  // The AVX-512 kernel with no other replica's arrays.
+  // The vector kernel with no other replica's arrays.
   update_block_fused(value, grad, nullptr, nullptr, nullptr, slots, count, zero_grad, seen);
 }
 
 void Adam::update_block_fused(float* value, float* grad, const float* add, float* zero_also, float* copy_to,
                               float* const* slots, std::int64_t count, bool zero_grad, NonFinite& seen) {
-  if (!use_avx512_training_kernels()) {
+  if (training_kernels() == TrainingKernels::kPortable) {
     Optimizer::update_block_fused(value, grad, add, zero_also, copy_to, slots, count, zero_grad, seen);
     return;
   }
   const float l2 = decoupled_ ? 0.0F : weight_decay_, decay = decoupled_ ? weight_decay_ : 0.0F;
-  const unsigned bad = detail::adam_update_avx512(
-      {beta1_, beta2_, learning_rate_, epsilon_, l2, decay, inv_bias1_, inv_bias2_}, value, grad, slots[0],
-      slots[1], count, zero_grad, {add, zero_also, copy_to});
+  const unsigned bad =
+      detail::adam_update({beta1_, beta2_, learning_rate_, epsilon_, l2, decay, inv_bias1_, inv_bias2_},
+                          value, grad, slots[0], slots[1], count, zero_grad, {add, zero_also, copy_to});
   seen.nan |= bad & 1u;
   seen.inf |= (bad >> 1) & 1u;
 }
@@ -72,9 +72,9 @@ void Adam::update_block(float* value, const float* grad, float* const* slots, st
   const float decay = decoupled_ ? weight_decay_ : 0.0F;  // AdamW: decoupled
   const float c1 = inv_bias1_;
   const float c2 = inv_bias2_;
-  if (use_avx512_training_kernels()) {
-    detail::adam_update_avx512({b1, b2, lr, eps, l2, decay, c1, c2}, value, const_cast<float*>(grad), m, v,
-                               count, false);
+  if (training_kernels() != TrainingKernels::kPortable) {
+    detail::adam_update({b1, b2, lr, eps, l2, decay, c1, c2}, value, const_cast<float*>(grad), m, v, count,
+                        false);
     return;
   }
   // A plain loop with std::sqrt (correctly rounded) rather than Eigen's vectorised square root,

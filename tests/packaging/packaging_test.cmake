@@ -101,7 +101,7 @@ check_programs(${WORK_DIR}/pc-build pkg-config)
 if(PROCESSOR MATCHES "^(x86_64|AMD64|amd64)$")
   find_program(OBJDUMP objdump REQUIRED)
   # Translation units whose AVX code is only called after a CPU-feature check.
-  set(dispatched "(sgemm_avx2|fast_kernels|adam_kernel)\\.cpp\\.o$")
+  set(dispatched "(sgemm_avx2|fast_kernels|fast_kernels_avx2|adam_kernel)\\.cpp\\.o$")
   file(GLOB archives ${lib_dir}/libgyre*.a)
   list(FILTER archives EXCLUDE REGEX "libgyre_runtime\\.a$")
   set(bad "")

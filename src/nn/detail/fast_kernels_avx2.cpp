@@ -176,10 +176,33 @@ GYRE_AVX2 void gemm_tile(std::ptrdiff_t k, const float* a, std::ptrdiff_t lda, c
 
 constexpr int kGemmMr = 6;
 
-// A block of A [mb x kb] copied into groups of kGemmMr rows, each group as kb runs of kGemmMr
-// floats (row r of the group at r; rows past mb zero): the tiles then read A in order, one line
-// after another, whatever A's row stride. Strided reads of A cost up to 40% on the layers' shapes:
-// with a stride of 4H floats = 4 KB (LSTM, H 256) every row of A falls in the same L1 set.
+// A block of A [mb x kb] copied into groups of kGemmMr rows, each group as kb runs of kAStride
+// floats (row r of the group at r; lanes past the group's rows unspecified, rows past mb zero):
+// the tiles then read A in order, one line after another, whatever A's row stride. Strided reads of
+// A cost up to 40% on the layers' shapes: with a stride of 4H floats = 4 KB (LSTM, H 256) every row
+// of A falls in the same L1 set. A run is one whole vector so that packing stores whole vectors.
+constexpr std::ptrdiff_t kAStride = 8;
+
+// In-register transpose of an 8 x 8 block (r[i] lane j <-> r[j] lane i).
+GYRE_AVX2_INLINE void transpose8(__m256 (&r)[8]) {
+  __m256 t[8];
+  for (int i = 0; i < 8; i += 2) {
+    t[i] = _mm256_unpacklo_ps(r[i], r[i + 1]);
+    t[i + 1] = _mm256_unpackhi_ps(r[i], r[i + 1]);
+  }
+  __m256 u[8];
+  for (int i = 0; i < 8; i += 4) {
+    u[i] = _mm256_shuffle_ps(t[i], t[i + 2], _MM_SHUFFLE(1, 0, 1, 0));
+    u[i + 1] = _mm256_shuffle_ps(t[i], t[i + 2], _MM_SHUFFLE(3, 2, 3, 2));
+    u[i + 2] = _mm256_shuffle_ps(t[i + 1], t[i + 3], _MM_SHUFFLE(1, 0, 1, 0));
+    u[i + 3] = _mm256_shuffle_ps(t[i + 1], t[i + 3], _MM_SHUFFLE(3, 2, 3, 2));
+  }
+  for (int i = 0; i < 4; ++i) {
+    r[i] = _mm256_permute2f128_ps(u[i], u[i + 4], 0x20);
+    r[i + 4] = _mm256_permute2f128_ps(u[i], u[i + 4], 0x31);
+  }
+}
+
 template <bool TransA>
 GYRE_AVX2 void pack_a(const float* a, std::ptrdiff_t lda, std::ptrdiff_t mb, std::ptrdiff_t kb, float* out) {
   const std::ptrdiff_t groups = (mb + kGemmMr - 1) / kGemmMr;
@@ -188,27 +211,30 @@ GYRE_AVX2 void pack_a(const float* a, std::ptrdiff_t lda, std::ptrdiff_t mb, std
     for (std::ptrdiff_t kk = 0; kk < kb; ++kk) {
       const float* src = a + kk * lda;
       for (std::ptrdiff_t g = 0; g < groups; ++g) {
-        float* dst = out + g * kGemmMr * kb + kk * kGemmMr;
         const std::ptrdiff_t r0 = g * kGemmMr;
-        if (r0 + kGemmMr <= mb) {
-          for (std::ptrdiff_t r = 0; r < kGemmMr; ++r) dst[r] = src[r0 + r];
-        } else {
-          for (std::ptrdiff_t r = 0; r < kGemmMr; ++r) dst[r] = r0 + r < mb ? src[r0 + r] : 0.0f;
-        }
+        float* dst = out + (g * kb + kk) * kAStride;
+        if (r0 + kAStride <= mb)
+          _mm256_storeu_ps(dst, _mm256_loadu_ps(src + r0));
+        else
+          _mm256_storeu_ps(
+              dst, _mm256_maskload_ps(src + r0, cols_mask(std::min(mb - r0, std::ptrdiff_t{kGemmMr}))));
       }
     }
   } else {
     for (std::ptrdiff_t g = 0; g < groups; ++g) {
-      float* dst = out + g * kGemmMr * kb;
-      for (std::ptrdiff_t r = 0; r < kGemmMr; ++r) {
-        const std::ptrdiff_t row = g * kGemmMr + r;
-        if (row >= mb) {
-          for (std::ptrdiff_t kk = 0; kk < kb; ++kk) dst[kk * kGemmMr + r] = 0.0f;
-          continue;
-        }
-        const float* src = a + row * lda;
-        for (std::ptrdiff_t kk = 0; kk < kb; ++kk) dst[kk * kGemmMr + r] = src[kk];
+      const std::ptrdiff_t r0 = g * kGemmMr, rows = std::min<std::ptrdiff_t>(kGemmMr, mb - r0);
+      float* dst = out + g * kb * kAStride;
+      std::ptrdiff_t kk = 0;
+      for (; kk + 8 <= kb; kk += 8) {
+        __m256 r[8];
+        for (int i = 0; i < 8; ++i)
+          r[i] = i < rows ? _mm256_loadu_ps(a + (r0 + i) * lda + kk) : _mm256_setzero_ps();
+        transpose8(r);
+        for (int i = 0; i < 8; ++i) _mm256_storeu_ps(dst + (kk + i) * kAStride, r[i]);
       }
+      for (; kk < kb; ++kk)
+        for (std::ptrdiff_t i = 0; i < kGemmMr; ++i)
+          dst[kk * kAStride + i] = i < rows ? a[(r0 + i) * lda + kk] : 0.0f;
     }
   }
 }
@@ -218,39 +244,41 @@ GYRE_AVX2 void gemm_rows(std::ptrdiff_t rows, std::ptrdiff_t k, const float* ap,
                          std::ptrdiff_t ldc, std::ptrdiff_t cols, bool accumulate, const float* bias) {
   std::ptrdiff_t r = 0;
   for (; r + kGemmMr <= rows; r += kGemmMr)
-    gemm_tile<kGemmMr, true>(k, ap + r * k, kGemmMr, bp, c + r * ldc, ldc, cols, accumulate, bias);
-  const float* ar = ap + r * k;
+    gemm_tile<kGemmMr, true>(k, ap + r / kGemmMr * k * kAStride, kAStride, bp, c + r * ldc, ldc, cols,
+                             accumulate, bias);
+  const float* ar = ap + r / kGemmMr * k * kAStride;
   float* cr = c + r * ldc;
   switch (rows - r) {
     case 1:
-      gemm_tile<1, true>(k, ar, kGemmMr, bp, cr, ldc, cols, accumulate, bias);
+      gemm_tile<1, true>(k, ar, kAStride, bp, cr, ldc, cols, accumulate, bias);
       break;
     case 2:
-      gemm_tile<2, true>(k, ar, kGemmMr, bp, cr, ldc, cols, accumulate, bias);
+      gemm_tile<2, true>(k, ar, kAStride, bp, cr, ldc, cols, accumulate, bias);
       break;
     case 3:
-      gemm_tile<3, true>(k, ar, kGemmMr, bp, cr, ldc, cols, accumulate, bias);
+      gemm_tile<3, true>(k, ar, kAStride, bp, cr, ldc, cols, accumulate, bias);
       break;
     case 4:
-      gemm_tile<4, true>(k, ar, kGemmMr, bp, cr, ldc, cols, accumulate, bias);
+      gemm_tile<4, true>(k, ar, kAStride, bp, cr, ldc, cols, accumulate, bias);
       break;
     case 5:
-      gemm_tile<5, true>(k, ar, kGemmMr, bp, cr, ldc, cols, accumulate, bias);
+      gemm_tile<5, true>(k, ar, kAStride, bp, cr, ldc, cols, accumulate, bias);
       break;
     default:
       break;
   }
 }
 
-// The packed A block of this thread (kGemmMc x kGemmKc floats, rounded up to whole groups),
+// The packed A block of this thread (kGemmMc x kGemmKc, in whole groups of kAStride floats a k),
 // allocated on the thread's first product and kept: no allocation per product.
 float* a_block() {
   struct Free {
-    void operator()(float* p) const noexcept { ::operator delete(p, std::align_val_t{64}); }
+    void operator()(float* p) const noexcept { ::operator delete (p, std::align_val_t{64}); }
   };
-  constexpr std::size_t size = static_cast<std::size_t>((kGemmMc + kGemmMr - 1) / kGemmMr * kGemmMr) * kGemmKc;
+  constexpr std::size_t size =
+      static_cast<std::size_t>((kGemmMc + kGemmMr - 1) / kGemmMr * kAStride) * kGemmKc;
   thread_local const std::unique_ptr<float, Free> block(
-      static_cast<float*>(::operator new(size * sizeof(float), std::align_val_t{64})));
+      static_cast<float*>(::operator new (size * sizeof(float), std::align_val_t{64})));
   return block.get();
 }
 
@@ -271,8 +299,9 @@ GYRE_AVX2 void gemm(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const 
         for (std::ptrdiff_t half = 0; half < 2; ++half) {
           const std::ptrdiff_t col0 = p * kGemmNr + 16 * half;
           if (col0 >= n) break;
-          gemm_rows(mb, kb, ap, bpan + 16 * half, c + ic * ldc + col0, ldc, std::min<std::ptrdiff_t>(16, n - col0),
-                    acc, last && bias != nullptr ? bias + col0 : nullptr);
+          gemm_rows(mb, kb, ap, bpan + 16 * half, c + ic * ldc + col0, ldc,
+                    std::min<std::ptrdiff_t>(16, n - col0), acc,
+                    last && bias != nullptr ? bias + col0 : nullptr);
         }
       }
     }

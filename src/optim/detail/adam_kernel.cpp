@@ -1,9 +1,12 @@
-// Adam/AdamW block update with AVX-512 (chosen at run time; see gyre/core/cpu_features.hpp).
-// The same operations as the scalar loop in adam.cpp, 16 lanes at a time: square root and
+// Adam/AdamW block update with AVX-512 or AVX2+FMA (chosen at run time; see
+// gyre/core/cpu_features.hpp). The same operations as the scalar loop in adam.cpp, 16 or 8 lanes
+// at a time (the same operations in both widths, so the same bits): square root and
 // division are correctly rounded in both, the multiply-adds may be fused differently, so the last
 // bit can differ from the portable path (one machine always takes the same path).
 
 #include "optim/detail/adam_kernel.hpp"
+
+#include "gyre/core/cpu_features.hpp"
 
 #include <cstdint>
 #include <cstdlib>
@@ -81,6 +84,100 @@ GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float*
   return (nan != 0 ? 1u : 0u) | (inf != 0 ? 2u : 0u);
 }
 
+#define GYRE_AVX2 __attribute__((target("avx2,fma")))
+
+namespace {
+// Lanes [0, cols) of a vector, for the last, partial vector of an array.
+GYRE_AVX2 inline __m256i lanes_mask(std::ptrdiff_t cols) {
+  return _mm256_cmpgt_epi32(_mm256_set1_epi32(static_cast<int>(cols < 8 ? cols : 8)),
+                            _mm256_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7));
+}
+
+GYRE_AVX2 inline void prefetch_ahead2(const float* p) {
+  _mm_prefetch(reinterpret_cast<const char*>(reinterpret_cast<std::uintptr_t>(p) + kAhead * sizeof(float)),
+               _MM_HINT_T0);
+}
+
+// Lanes [0, 8) when Full, else those set in k (vmaskmovps only for an array's last vector).
+template <bool Full>
+GYRE_AVX2 inline __m256 load(const float* p, __m256i k) {
+  if constexpr (Full) {
+    (void)k;
+    return _mm256_loadu_ps(p);
+  } else {
+    return _mm256_maskload_ps(p, k);
+  }
+}
+template <bool Full>
+GYRE_AVX2 inline void store(float* p, __m256i k, __m256 x) {
+  if constexpr (Full) {
+    (void)k;
+    _mm256_storeu_ps(p, x);
+  } else {
+    _mm256_maskstore_ps(p, k, x);
+  }
+}
+
+// One vector of the update (lanes set in k unless Full); the operations of adam_update_avx512.
+template <bool Full>
+GYRE_AVX2 inline void adam_lanes(const AdamStep& st, std::ptrdiff_t i, __m256i k, float* value, float* grad,
+                                 float* m, float* v, bool zero_grad, const AdamPair& pair, __m256& nan,
+                                 __m256& inf) {
+  const __m256 w = load<Full>(value + i, k);
+  __m256 raw = load<Full>(grad + i, k);
+  if (pair.add != nullptr) raw = _mm256_add_ps(raw, load<Full>(pair.add + i, k));  // the reduction's add
+  nan = _mm256_or_ps(nan, _mm256_cmp_ps(raw, raw, _CMP_UNORD_Q));
+  inf = _mm256_or_ps(inf, _mm256_cmp_ps(_mm256_andnot_ps(_mm256_set1_ps(-0.0f), raw),
+                                        _mm256_set1_ps(__builtin_inff()), _CMP_EQ_OQ));
+  if (zero_grad)
+    store<Full>(grad + i, k, _mm256_setzero_ps());
+  else if (pair.add != nullptr)
+    store<Full>(grad + i, k, raw);
+  if (pair.zero_also != nullptr) store<Full>(pair.zero_also + i, k, _mm256_setzero_ps());
+  const __m256 g = _mm256_fmadd_ps(_mm256_set1_ps(st.l2), w, raw);
+  const __m256 mi = _mm256_fmadd_ps(_mm256_set1_ps(st.beta1), load<Full>(m + i, k),
+                                    _mm256_mul_ps(_mm256_set1_ps(1.0f - st.beta1), g));
+  const __m256 vi = _mm256_fmadd_ps(_mm256_set1_ps(st.beta2), load<Full>(v + i, k),
+                                    _mm256_mul_ps(_mm256_set1_ps(1.0f - st.beta2), _mm256_mul_ps(g, g)));
+  const __m256 m_hat = _mm256_mul_ps(mi, _mm256_set1_ps(st.inv_bias1));
+  const __m256 v_hat = _mm256_mul_ps(vi, _mm256_set1_ps(st.inv_bias2));
+  const __m256 upd =
+      _mm256_fmadd_ps(_mm256_set1_ps(st.decay), w,
+                      _mm256_div_ps(m_hat, _mm256_add_ps(_mm256_sqrt_ps(v_hat), _mm256_set1_ps(st.epsilon))));
+  store<Full>(m + i, k, mi);
+  store<Full>(v + i, k, vi);
+  const __m256 w_new = _mm256_fnmadd_ps(_mm256_set1_ps(st.learning_rate), upd, w);
+  store<Full>(value + i, k, w_new);
+  if (pair.copy_to != nullptr) store<Full>(pair.copy_to + i, k, w_new);
+}
+}  // namespace
+
+GYRE_AVX2 unsigned adam_update_avx2(const AdamStep& st, float* value, float* grad, float* m, float* v,
+                                    std::ptrdiff_t count, bool zero_grad, const AdamPair& pair) {
+  __m256 nan = _mm256_setzero_ps(), inf = _mm256_setzero_ps();
+  const __m256i all = lanes_mask(8);
+  std::ptrdiff_t i = 0;
+  for (; i + 8 <= count; i += 8) {
+    prefetch_ahead2(value + i);
+    prefetch_ahead2(grad + i);
+    prefetch_ahead2(m + i);
+    prefetch_ahead2(v + i);
+    if (pair.add != nullptr) prefetch_ahead2(pair.add + i);
+    if (pair.zero_also != nullptr) prefetch_ahead2(pair.zero_also + i);
+    if (pair.copy_to != nullptr) prefetch_ahead2(pair.copy_to + i);
+    adam_lanes<true>(st, i, all, value, grad, m, v, zero_grad, pair, nan, inf);
+  }
+  if (i < count)
+    adam_lanes<false>(st, i, lanes_mask(count - i), value, grad, m, v, zero_grad, pair, nan, inf);
+  return (_mm256_movemask_ps(nan) != 0 ? 1u : 0u) | (_mm256_movemask_ps(inf) != 0 ? 2u : 0u);
+}
+
+unsigned adam_update(const AdamStep& st, float* value, float* grad, float* m, float* v, std::ptrdiff_t count,
+                     bool zero_grad, const AdamPair& pair) {
+  if (use_avx512_training_kernels()) return adam_update_avx512(st, value, grad, m, v, count, zero_grad, pair);
+  return adam_update_avx2(st, value, grad, m, v, count, zero_grad, pair);
+}
+
 }  // namespace gyre::optim::detail
 
 #else
@@ -88,6 +185,13 @@ GYRE_AVX512 unsigned adam_update_avx512(const AdamStep& st, float* value, float*
 namespace gyre::optim::detail {
 unsigned adam_update_avx512(const AdamStep&, float*, float*, float*, float*, std::ptrdiff_t, bool,
                             const AdamPair&) {
+  std::abort();
+}
+unsigned adam_update_avx2(const AdamStep&, float*, float*, float*, float*, std::ptrdiff_t, bool,
+                          const AdamPair&) {
+  std::abort();
+}
+unsigned adam_update(const AdamStep&, float*, float*, float*, float*, std::ptrdiff_t, bool, const AdamPair&) {
   std::abort();
 }
 }  // namespace gyre::optim::detail

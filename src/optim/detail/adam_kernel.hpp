@@ -1,6 +1,6 @@
 #pragma once
-// Vectorised Adam/AdamW block update (adam_kernel.cpp); call only when
-// gyre::use_avx512_training_kernels() is true.
+// Vectorised Adam/AdamW block update (adam_kernel.cpp): the AVX-512 one only when
+// gyre::training_kernels() is kAvx512, the AVX2 one only when it is kAvx2 or kAvx512.
 
 #include <cstddef>
 
@@ -22,5 +22,12 @@ struct AdamPair {
 /// only when `pair.add` is given (it then holds the sum).
 unsigned adam_update_avx512(const AdamStep& step, float* value, float* grad, float* m, float* v,
                             std::ptrdiff_t count, bool zero_grad, const AdamPair& pair = {});
+/// The same update 8 lanes at a time (AVX2+FMA).
+unsigned adam_update_avx2(const AdamStep& step, float* value, float* grad, float* m, float* v,
+                          std::ptrdiff_t count, bool zero_grad, const AdamPair& pair = {});
+
+/// The update of the best kernel this CPU runs (training_kernels() must not be kPortable).
+unsigned adam_update(const AdamStep& step, float* value, float* grad, float* m, float* v,
+                     std::ptrdiff_t count, bool zero_grad, const AdamPair& pair = {});
 
 }  // namespace gyre::optim::detail
