@@ -1,5 +1,5 @@
 // The products of one recurrent layer's training step, timed one by one: gyre's GEMM
-// (src/nn/detail/gemm.hpp, which takes the AVX-512 kernels when the CPU has them) at the shapes
+// (src/nn/detail/gemm.hpp, which takes the AVX-512 or AVX2 kernels when the CPU has them) at the shapes
 // of bench_rnn's workloads, and the fused cell steps. Run it twice to compare the kernels with
 // the portable (Eigen) path:
 //

@@ -59,8 +59,8 @@ const char* name() noexcept {
   return "portable";
 }
 
-// ---- packing (plain C++ here, used by the AVX2 level too; the AVX-512 versions below give the
-// same bytes) ----------------------------------------------------------------------------------
+// ---- packing (plain C++ here; the AVX-512 versions below give the same bytes; the AVX2 level
+// packs U in its own layout, fast_kernels_avx2.cpp, and B with these or its own transposes) ------
 
 namespace {
 
@@ -88,24 +88,20 @@ void pack_b_plain(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t
   }
 }
 
-// `units` columns of each gate side by side per packed row: kCellUnits for the AVX-512 kernels
-// (one panel holds all its units), kAvx2CellUnits for the AVX2 ones (each panel as two sub-panels
-// of 8 units, so that a tile reads whole lines; see fast_kernels_avx2.cpp).
-void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* out, std::ptrdiff_t p_begin,
-                      std::ptrdiff_t p_end, std::ptrdiff_t units) {
+// The AVX-512 layout in plain C++: the packer of builds without x86 kernels.
+[[maybe_unused]] void pack_gates_plain(const float* u, int gates, std::ptrdiff_t hidden, float* out,
+                                       std::ptrdiff_t p_begin, std::ptrdiff_t p_end) {
   const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
-  const std::ptrdiff_t sub_nr = static_cast<std::ptrdiff_t>(gates) * units;
-  for (std::ptrdiff_t p = p_begin; p < p_end; ++p)
-    for (std::ptrdiff_t s0 = 0; s0 < kCellUnits; s0 += units) {
-      float* dst = out + p * nr * hidden + s0 / units * sub_nr * hidden;
-      for (int g = 0; g < gates; ++g)
-        for (std::ptrdiff_t j = 0; j < units; ++j) {
-          // Column g*units + j of the sub-panel = row g*H + 16p + s0 + j of U (read transposed).
-          const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits + s0 + j) * hidden;
-          float* d = dst + g * units + j;
-          for (std::ptrdiff_t kk = 0; kk < hidden; ++kk) d[kk * sub_nr] = src[kk];
-        }
-    }
+  for (std::ptrdiff_t p = p_begin; p < p_end; ++p) {
+    float* dst = out + p * nr * hidden;
+    for (int g = 0; g < gates; ++g)
+      for (std::ptrdiff_t j = 0; j < kCellUnits; ++j) {
+        // Column g*16 + j of the panel = row g*H + 16p + j of U (read transposed).
+        const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits + j) * hidden;
+        float* d = dst + g * kCellUnits + j;
+        for (std::ptrdiff_t kk = 0; kk < hidden; ++kk) d[kk * nr] = src[kk];
+      }
+  }
 }
 
 }  // namespace
@@ -735,7 +731,7 @@ bool avx512() noexcept {
 void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
   if (avx512())
     pack_b_avx512(b, ldb, trans, k, n, out);
-  else
+  else if (!trans || !avx2::pack_b_transposed(b, ldb, k, n, out))
     pack_b_plain(b, ldb, trans, k, n, out);
 }
 
@@ -744,7 +740,7 @@ void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* 
   if (avx512())
     pack_gates_avx512(u, gates, hidden, out, panel_begin, panel_end);
   else
-    pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end, kAvx2CellUnits);
+    avx2::pack_gates_panels(u, gates, hidden, out, panel_begin, panel_end);
 }
 
 void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
@@ -818,7 +814,7 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
 }
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
                        std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
-  pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end, kCellUnits);
+  pack_gates_plain(u, gates, hidden, out, panel_begin, panel_end);
 }
 void lstm_cell_backward(std::ptrdiff_t, std::ptrdiff_t, const float*, std::ptrdiff_t, const int*,
                         const float*, float*, const float*, const float*, const float*, float*) {

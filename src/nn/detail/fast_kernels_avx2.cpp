@@ -630,6 +630,48 @@ GYRE_AVX2_EXACT void add_column_sums(const float* a, std::ptrdiff_t rows, std::p
   }
 }
 
+// ---- packing (the bytes of fast_kernels.cpp's plain packers, by 8 x 8 in-register transposes) ---
+
+GYRE_AVX2 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
+                                 std::ptrdiff_t p_begin, std::ptrdiff_t p_end) {
+  const std::ptrdiff_t nr = static_cast<std::ptrdiff_t>(gates) * kCellUnits;
+  const std::ptrdiff_t sub_nr = static_cast<std::ptrdiff_t>(gates) * kAvx2CellUnits;
+  for (std::ptrdiff_t p = p_begin; p < p_end; ++p)
+    for (std::ptrdiff_t s0 = 0; s0 < kCellUnits; s0 += kAvx2CellUnits) {
+      float* dst = out + p * nr * hidden + s0 / kAvx2CellUnits * sub_nr * hidden;
+      for (int g = 0; g < gates; ++g) {
+        // Column g*8 + j of the sub-panel = row g*H + 16p + s0 + j of U (read transposed).
+        const float* src = u + (static_cast<std::ptrdiff_t>(g) * hidden + p * kCellUnits + s0) * hidden;
+        for (std::ptrdiff_t k0 = 0; k0 < hidden; k0 += 8) {  // hidden is a multiple of 16
+          __m256 r[8];
+          for (int j = 0; j < 8; ++j) r[j] = _mm256_loadu_ps(src + j * hidden + k0);
+          transpose8(r);
+          for (int q = 0; q < 8; ++q) _mm256_storeu_ps(dst + (k0 + q) * sub_nr + g * kAvx2CellUnits, r[q]);
+        }
+      }
+    }
+}
+
+GYRE_AVX2 bool pack_b_transposed(const float* b, std::ptrdiff_t ldb, std::ptrdiff_t k, std::ptrdiff_t n,
+                                 float* out) {
+  // Whole panels and k a multiple of 8 only (the layers' W: 4H or 3H rows, D columns); the caller
+  // packs anything else with the plain packer.
+  if (n % kGemmNr != 0 || k % 8 != 0) return false;
+  for (std::ptrdiff_t p0 = 0; p0 < n; p0 += kGemmNr) {
+    float* dst = out + p0 * k;
+    for (std::ptrdiff_t j0 = 0; j0 < kGemmNr; j0 += 8) {
+      const float* src = b + (p0 + j0) * ldb;  // storage rows = columns of op(B)
+      for (std::ptrdiff_t k0 = 0; k0 < k; k0 += 8) {
+        __m256 r[8];
+        for (int j = 0; j < 8; ++j) r[j] = _mm256_loadu_ps(src + j * ldb + k0);
+        transpose8(r);
+        for (int q = 0; q < 8; ++q) _mm256_storeu_ps(dst + (k0 + q) * kGemmNr + j0, r[q]);
+      }
+    }
+  }
+  return true;
+}
+
 }  // namespace gyre::nn::detail::fast::avx2
 
 #endif

@@ -27,5 +27,11 @@ void gru_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_o
                        float* dgi, float* dgh);
 void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
                      float* out);
+/// fast::pack_gates_panels in the AVX2 layout (kAvx2CellUnits sub-panels).
+void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out, std::ptrdiff_t p_begin,
+                       std::ptrdiff_t p_end);
+/// fast::pack_b of an operand stored transposed, when n is whole panels and k a multiple of 8;
+/// false (nothing written) otherwise.
+bool pack_b_transposed(const float* b, std::ptrdiff_t ldb, std::ptrdiff_t k, std::ptrdiff_t n, float* out);
 
 }  // namespace gyre::nn::detail::fast::avx2
