@@ -2,9 +2,10 @@
 // so this file builds for plain x86-64; fast_kernels.cpp calls it only on CPUs with AVX2 and FMA.
 //
 // Register tiles (16 ymm registers, against AVX-512's 32 zmm): the general GEMM walks each
-// 32-column panel as two halves of 16 columns, 6 rows x 2 vectors of accumulators; the fused LSTM
-// step takes each 16-unit gate panel as two halves of 8 units, 3 rows x 4 gates; the GRU step
-// 4 rows x 3 gates. The packed operands are the AVX-512 path's, read at the same addresses.
+// 32-column panel of packed B (the AVX-512 path's layout) as two halves of 16 columns, 6 rows x 2
+// vectors of accumulators, on A copied into 6-row groups (pack_a); the fused LSTM step takes each
+// 16-unit gate panel as two sub-panels of 8 units, 3 rows x 4 gates, the GRU step 4 rows x 3 gates,
+// on U packed into those sub-panels (pack_gates_panels at the end of this file).
 
 #include "fast_kernels_avx2.hpp"
 

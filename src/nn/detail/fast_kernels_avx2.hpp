@@ -1,11 +1,11 @@
 #pragma once
 // The AVX2+FMA variants of the training kernels (fast_kernels.hpp), for x86-64 CPUs without
-// AVX-512 (most laptops and desktops, and AMD server parts before Zen 4). Same operands, same packed
-// layouts (panels of kGemmNr columns, gate panels of kCellUnits units), same summation order
-// (k in blocks of kGemmKc, one FMA chain per output from zero in each block) and the same
-// activation formulas: only the vector width (8 floats) and the register tiles differ. Called
-// through fast_kernels.cpp's dispatch only, when fast::kernels() is Kernels::kAvx2; on other
-// architectures this file compiles to nothing.
+// AVX-512 (most laptops and desktops, and AMD server parts before Zen 4). Same operands, the same
+// packed B panels (kGemmNr columns), the same summation order (k in blocks of kGemmKc, one FMA
+// chain per output from zero in each block) and the same activation formulas: only the vector
+// width (8 floats) and the register tiles differ, and U for the fused steps is packed in 8-unit
+// sub-panels (fast::pack_gates). Called through fast_kernels.cpp's dispatch only, when
+// gyre::training_kernels() is kAvx2; on other architectures this file compiles to nothing.
 
 #include <cstddef>
 
