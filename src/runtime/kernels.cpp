@@ -307,6 +307,14 @@ GYRE_AVX2 inline void packed_rows_avx2(const W* p, std::size_t rows, std::size_t
       }
     }
     const std::size_t valid = std::min(kPanelRows, rows - q * kPanelRows);
+    if (valid == kPanelRows) {  // a whole panel: straight to y (a copy loop here cost ~20% at 128 columns)
+#pragma GCC unroll 8
+      for (int r = 0; r < R; ++r) {
+        _mm256_storeu_ps(y + (t + r) * ldy + q * kPanelRows, acc[r][0]);
+        _mm256_storeu_ps(y + (t + r) * ldy + q * kPanelRows + 8, acc[r][1]);
+      }
+      continue;
+    }
 #pragma GCC unroll 8
     for (int r = 0; r < R; ++r) {
       _mm256_store_ps(out, acc[r][0]);
@@ -353,6 +361,19 @@ GYRE_AVX2 void matmul_packed_avx2(const W* p, std::size_t rows, std::size_t cols
         b3 = _mm256_fmadd_ps(w3, x1v, b3);
       }
       const std::size_t valid = std::min((two ? 2 : 1) * kPanelRows, rows - q * kPanelRows);
+      if (valid == 2 * kPanelRows) {  // two whole panels: straight to y
+        float* y0 = y + t * ldy + q * kPanelRows;
+        float* y1 = y0 + ldy;
+        _mm256_storeu_ps(y0, a0);
+        _mm256_storeu_ps(y0 + 8, a1);
+        _mm256_storeu_ps(y0 + 16, a2);
+        _mm256_storeu_ps(y0 + 24, a3);
+        _mm256_storeu_ps(y1, b0);
+        _mm256_storeu_ps(y1 + 8, b1);
+        _mm256_storeu_ps(y1 + 16, b2);
+        _mm256_storeu_ps(y1 + 24, b3);
+        continue;
+      }
       _mm256_store_ps(out, a0);
       _mm256_store_ps(out + 8, a1);
       _mm256_store_ps(out + 16, a2);
@@ -379,12 +400,20 @@ GYRE_AVX2 void matmul_packed_avx2(const W* p, std::size_t rows, std::size_t cols
         a2 = _mm256_fmadd_ps(load(p1 + c * kPanelRows), xv, a2);
         a3 = _mm256_fmadd_ps(load(p1 + c * kPanelRows + 8), xv, a3);
       }
+      const std::size_t valid = std::min((two ? 2 : 1) * kPanelRows, rows - q * kPanelRows);
+      float* yt = y + t * ldy + q * kPanelRows;
+      if (valid == 2 * kPanelRows) {  // two whole panels: straight to y
+        _mm256_storeu_ps(yt, a0);
+        _mm256_storeu_ps(yt + 8, a1);
+        _mm256_storeu_ps(yt + 16, a2);
+        _mm256_storeu_ps(yt + 24, a3);
+        continue;
+      }
       _mm256_store_ps(out, a0);
       _mm256_store_ps(out + 8, a1);
       _mm256_store_ps(out + 16, a2);
       _mm256_store_ps(out + 24, a3);
-      const std::size_t valid = std::min((two ? 2 : 1) * kPanelRows, rows - q * kPanelRows);
-      for (std::size_t r = 0; r < valid; ++r) y[t * ldy + q * kPanelRows + r] = out[r];
+      for (std::size_t r = 0; r < valid; ++r) yt[r] = out[r];
     }
   }
 }
