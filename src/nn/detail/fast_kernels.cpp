@@ -722,14 +722,10 @@ GYRE_AVX512_EXACT void add_column_sums_avx512(const float* a, std::ptrdiff_t row
   }
 }
 
-bool avx512() noexcept {
-  return training_kernels() == TrainingKernels::kAvx512;
-}
-
 }  // namespace
 
 void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, std::ptrdiff_t n, float* out) {
-  if (avx512())
+  if (use_avx512_training_kernels())
     pack_b_avx512(b, ldb, trans, k, n, out);
   else if (!trans || !avx2::pack_b_transposed(b, ldb, k, n, out))
     pack_b_plain(b, ldb, trans, k, n, out);
@@ -737,7 +733,7 @@ void pack_b(const float* b, std::ptrdiff_t ldb, bool trans, std::ptrdiff_t k, st
 
 void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* out,
                        std::ptrdiff_t panel_begin, std::ptrdiff_t panel_end) {
-  if (avx512())
+  if (use_avx512_training_kernels())
     pack_gates_avx512(u, gates, hidden, out, panel_begin, panel_end);
   else
     avx2::pack_gates_panels(u, gates, hidden, out, panel_begin, panel_end);
@@ -746,7 +742,7 @@ void pack_gates_panels(const float* u, int gates, std::ptrdiff_t hidden, float* 
 void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, std::ptrdiff_t lda,
                      float* out) {
   if (rows <= 0) return;
-  if (avx512())
+  if (use_avx512_training_kernels())
     add_column_sums_avx512(a, rows, cols, lda, out);
   else
     avx2::add_column_sums(a, rows, cols, lda, out);
@@ -755,7 +751,7 @@ void add_column_sums(const float* a, std::ptrdiff_t rows, std::ptrdiff_t cols, s
 void lstm_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
                         const int* source, const float* dh, float* dc, const float* acts, const float* tanh_c,
                         const float* c_prev, float* dgates) {
-  if (avx512())
+  if (use_avx512_training_kernels())
     lstm_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, dc, acts, tanh_c, c_prev, dgates);
   else
     avx2::lstm_cell_backward(n, hidden, d_out, ld_out, source, dh, dc, acts, tanh_c, c_prev, dgates);
@@ -764,7 +760,7 @@ void lstm_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_
 void gru_cell_backward(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* d_out, std::ptrdiff_t ld_out,
                        const int* source, float* dh, const float* acts, const float* hn, const float* h_prev,
                        float* dgi, float* dgh) {
-  if (avx512())
+  if (use_avx512_training_kernels())
     gru_cell_backward_avx512(n, hidden, d_out, ld_out, source, dh, acts, hn, h_prev, dgi, dgh);
   else
     avx2::gru_cell_backward(n, hidden, d_out, ld_out, source, dh, acts, hn, h_prev, dgi, dgh);
@@ -782,7 +778,7 @@ void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const flo
         for (std::ptrdiff_t j = 0; j < n; ++j) c[i * ldc + j] += bias[j];
     return;
   }
-  if (!avx512())
+  if (!use_avx512_training_kernels())
     avx2::gemm_packed(m, n, k, a, lda, trans_a, bp, c, ldc, accumulate, bias);
   else if (trans_a)
     gemm_avx512<true>(m, n, k, a, lda, bp, c, ldc, accumulate, bias);
@@ -793,7 +789,7 @@ void gemm_packed(std::ptrdiff_t m, std::ptrdiff_t n, std::ptrdiff_t k, const flo
 void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, const float* c_prev,
                std::ptrdiff_t ld_state, const float* up, float* gates, float* c_out, float* tanh_c_out,
                float* h_out) {
-  if (avx512())
+  if (use_avx512_training_kernels())
     lstm_step_avx512(n, hidden, h_prev, c_prev, ld_state, up, gates, c_out, tanh_c_out, h_out);
   else
     avx2::lstm_step(n, hidden, h_prev, c_prev, ld_state, up, gates, c_out, tanh_c_out, h_out);
@@ -801,7 +797,7 @@ void lstm_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, con
 
 void gru_step(std::ptrdiff_t n, std::ptrdiff_t hidden, const float* h_prev, std::ptrdiff_t ld_state,
               const float* up, const float* bias_hidden, float* gates, float* hn_out, float* h_out) {
-  if (avx512())
+  if (use_avx512_training_kernels())
     gru_step_avx512(n, hidden, h_prev, ld_state, up, bias_hidden, gates, hn_out, h_out);
   else
     avx2::gru_step(n, hidden, h_prev, ld_state, up, bias_hidden, gates, hn_out, h_out);

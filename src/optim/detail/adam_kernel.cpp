@@ -31,8 +31,9 @@ GYRE_AVX512 inline __mmask16 cols_mask(std::ptrdiff_t cols) {
 // an array are harmless; they do not change what is computed.
 constexpr std::ptrdiff_t kAhead = 1024;
 
-// The address is formed as an integer: no pointer past the end of an array is ever made.
-GYRE_AVX512 inline void prefetch_ahead(const float* p) {
+// The address is formed as an integer: no pointer past the end of an array is ever made. A prefetch
+// is baseline x86-64 (SSE), so both kernels below use this one.
+inline void prefetch_ahead(const float* p) {
   _mm_prefetch(reinterpret_cast<const char*>(reinterpret_cast<std::uintptr_t>(p) + kAhead * sizeof(float)),
                _MM_HINT_T0);
 }
@@ -91,11 +92,6 @@ namespace {
 GYRE_AVX2 inline __m256i lanes_mask(std::ptrdiff_t cols) {
   return _mm256_cmpgt_epi32(_mm256_set1_epi32(static_cast<int>(cols < 8 ? cols : 8)),
                             _mm256_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7));
-}
-
-GYRE_AVX2 inline void prefetch_ahead2(const float* p) {
-  _mm_prefetch(reinterpret_cast<const char*>(reinterpret_cast<std::uintptr_t>(p) + kAhead * sizeof(float)),
-               _MM_HINT_T0);
 }
 
 // Lanes [0, 8) when Full, else those set in k (vmaskmovps only for an array's last vector).
@@ -158,13 +154,13 @@ GYRE_AVX2 unsigned adam_update_avx2(const AdamStep& st, float* value, float* gra
   const __m256i all = lanes_mask(8);
   std::ptrdiff_t i = 0;
   for (; i + 8 <= count; i += 8) {
-    prefetch_ahead2(value + i);
-    prefetch_ahead2(grad + i);
-    prefetch_ahead2(m + i);
-    prefetch_ahead2(v + i);
-    if (pair.add != nullptr) prefetch_ahead2(pair.add + i);
-    if (pair.zero_also != nullptr) prefetch_ahead2(pair.zero_also + i);
-    if (pair.copy_to != nullptr) prefetch_ahead2(pair.copy_to + i);
+    prefetch_ahead(value + i);
+    prefetch_ahead(grad + i);
+    prefetch_ahead(m + i);
+    prefetch_ahead(v + i);
+    if (pair.add != nullptr) prefetch_ahead(pair.add + i);
+    if (pair.zero_also != nullptr) prefetch_ahead(pair.zero_also + i);
+    if (pair.copy_to != nullptr) prefetch_ahead(pair.copy_to + i);
     adam_lanes<true>(st, i, all, value, grad, m, v, zero_grad, pair, nan, inf);
   }
   if (i < count)
