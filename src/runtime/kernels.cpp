@@ -135,7 +135,7 @@ void matmul_packed_f16_portable(const std::uint16_t* p, std::size_t rows, std::s
 
 constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable,
                             sigmoid_portable, tanh_portable, matmul_packed_f32_portable, nullptr,
-                            matmul_packed_f16_portable};
+                            matmul_packed_f16_portable, quantize_rows};
 
 #if defined(GYRE_RUNTIME_X86)
 // ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
@@ -427,8 +427,144 @@ GYRE_AVX2 void matmul_packed_f16_avx2(const std::uint16_t* p, std::size_t rows, 
   matmul_packed_avx2(p, rows, cols, x, n, y, ldy);
 }
 
+// Packed int8 weights (pack_i8: 16 rows x 4 columns per 64 bytes, rows 0-7 in the first 32).
+// AVX2 has no u8 x s8 dot product into int32 (VNNI's vpdpbusd); vpmaddubsw multiplies u8 by s8
+// bytes into saturating int16 pair sums, and vpmaddwd by ones adds the pairs into int32. Exact
+// here: the unsigned operand is |w| (<= 128, also for w = -128) and the signed one is x with w's
+// sign (vpsignb; |x| <= 127 as quantize_rows clamps), so a pair sum is at most 2 * 128 * 127 =
+// 32512 < 32767. The integer sums are exact, so the results equal matmul_i8's bit for bit, for
+// any grouping of rows. R activation rows (texts of a batch, or time steps) share each weight
+// load; P panels per pass keep 2P independent chains per row.
+template <std::size_t R, std::size_t P>
+GYRE_AVX2 inline void packed_i8_avx2_rows(const std::int8_t* p, const float* w_scale, std::size_t rows,
+                                          std::size_t cols, QuantizedRows x, std::size_t t0, std::size_t q0,
+                                          float* y, std::size_t ldy) {
+  const std::size_t groups = (cols + 3) / 4;
+  const std::size_t full = cols / 4;
+  const std::size_t stride = groups * 64;
+  const __m256i ones = _mm256_set1_epi16(1);
+  const std::int8_t* xt[R];
+  std::int32_t tail[R];
+  for (std::size_t r = 0; r < R; ++r) {
+    xt[r] = x.xs + (t0 + r) * cols;
+    std::int8_t b[4] = {0, 0, 0, 0};  // padded columns: their weights are 0 too
+    for (std::size_t k = 0; k < cols - full * 4; ++k) b[k] = xt[r][full * 4 + k];
+    std::memcpy(&tail[r], b, 4);
+  }
+  const std::int8_t* p0 = p + q0 * stride;
+  __m256i acc[R][2 * P];
+#pragma GCC unroll 8
+  for (std::size_t r = 0; r < R; ++r)
+#pragma GCC unroll 4
+    for (std::size_t k = 0; k < 2 * P; ++k) acc[r][k] = _mm256_setzero_si256();
+  for (std::size_t g = 0; g < groups; ++g) {
+    std::int32_t xb[R];
+#pragma GCC unroll 8
+    for (std::size_t r = 0; r < R; ++r) {
+      if (g < full) std::memcpy(&xb[r], xt[r] + 4 * g, 4);
+      else xb[r] = tail[r];
+    }
+    const std::int8_t* pg = p0 + g * 64;
+#pragma GCC unroll 4
+    for (std::size_t k = 0; k < 2 * P; ++k) {
+      const __m256i w = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(pg + (k / 2) * stride + (k % 2) * 32));
+      const __m256i aw = _mm256_abs_epi8(w);
+#pragma GCC unroll 8
+      for (std::size_t r = 0; r < R; ++r) {
+        const __m256i sx = _mm256_sign_epi8(_mm256_set1_epi32(xb[r]), w);
+        acc[r][k] = _mm256_add_epi32(acc[r][k], _mm256_madd_epi16(_mm256_maddubs_epi16(aw, sx), ones));
+      }
+    }
+  }
+  alignas(32) std::int32_t out[8];
+#pragma GCC unroll 4
+  for (std::size_t k = 0; k < 2 * P; ++k) {
+    const std::size_t base = q0 * 16 + k * 8;
+    if (base >= rows) break;
+    if (base + 8 <= rows) {
+      const __m256 ws = _mm256_loadu_ps(w_scale + base);
+#pragma GCC unroll 8
+      for (std::size_t r = 0; r < R; ++r)
+        _mm256_storeu_ps(y + (t0 + r) * ldy + base, _mm256_mul_ps(_mm256_cvtepi32_ps(acc[r][k]),
+                                                                   _mm256_mul_ps(ws, _mm256_set1_ps(x.scale[t0 + r]))));
+      continue;
+    }
+    for (std::size_t r = 0; r < R; ++r) {
+      _mm256_store_si256(reinterpret_cast<__m256i*>(out), acc[r][k]);
+      for (std::size_t i = 0; base + i < rows; ++i)
+        y[(t0 + r) * ldy + base + i] = static_cast<float>(out[i]) * (w_scale[base + i] * x.scale[t0 + r]);
+    }
+  }
+}
+
+GYRE_AVX2 void matmul_packed_i8_avx2(const std::int8_t* p, const float* w_scale, const std::int32_t*,
+                                     std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
+                                     std::size_t ldy) {
+  const std::size_t panels = (rows + 15) / 16;
+  std::size_t t = 0;
+  // Three rows x two panels (12 accumulators): 59-62 G int8 MACs/s on Zen 3 at 64-128 columns,
+  // where 4 x 1, 5 x 1, 6 x 1 and 2 x 2 measured 50-64. All stay near 16 MACs per cycle, as if
+  // one pipe took both multiplies (vpmaddubsw, vpmaddwd) of every 32 MACs: our inference from
+  // these figures, not a documented port map. f32 FMAs give the same 16.
+  for (; t + 3 <= n; t += 3) {
+    std::size_t q = 0;
+    for (; q + 2 <= panels; q += 2) packed_i8_avx2_rows<3, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
+    for (; q < panels; ++q) packed_i8_avx2_rows<3, 1>(p, w_scale, rows, cols, x, t, q, y, ldy);
+  }
+  for (; t < n; ++t) {
+    std::size_t q = 0;
+    for (; q + 2 <= panels; q += 2) packed_i8_avx2_rows<1, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
+    for (; q < panels; ++q) packed_i8_avx2_rows<1, 1>(p, w_scale, rows, cols, x, t, q, y, ldy);
+  }
+}
+
+// quantize_rows with intrinsics: the same operations (max |x|, x * (1 / s) rounded to nearest
+// even as nearbyint does in the default rounding mode, clamped to [-127, 127]), so the same bytes.
+// The scalar loop calls fmaxf and nearbyintf per element (18% of an int8 batch-1 call).
+GYRE_AVX2 void quantize_rows_avx2(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs,
+                                  std::uint8_t* xu, float* scale) {
+  const __m256 abs_mask = _mm256_castsi256_ps(_mm256_set1_epi32(0x7FFFFFFF));
+  const __m256 lo = _mm256_set1_ps(-127.0f), hi = _mm256_set1_ps(127.0f);
+  for (std::size_t t = 0; t < n; ++t) {
+    const float* xt = x + t * cols;
+    __m256 m = _mm256_setzero_ps();
+    std::size_t c = 0;
+    for (; c + 8 <= cols; c += 8) m = _mm256_max_ps(m, _mm256_and_ps(abs_mask, _mm256_loadu_ps(xt + c)));
+    __m128 h = _mm_max_ps(_mm256_castps256_ps128(m), _mm256_extractf128_ps(m, 1));
+    h = _mm_max_ps(h, _mm_movehl_ps(h, h));
+    h = _mm_max_ss(h, _mm_movehdup_ps(h));
+    float max_abs = _mm_cvtss_f32(h);
+    for (; c < cols; ++c) max_abs = std::fmax(max_abs, std::fabs(xt[c]));
+    const float s = max_abs / 127.0f;
+    const float inv = s > 0.0f ? 1.0f / s : 0.0f;
+    scale[t] = s;
+    const __m256 iv = _mm256_set1_ps(inv);
+    std::int8_t* st = xs + t * cols;
+    std::uint8_t* ut = xu + t * cols;
+    c = 0;
+    for (; c + 8 <= cols; c += 8) {
+      __m256 q = _mm256_round_ps(_mm256_mul_ps(_mm256_loadu_ps(xt + c), iv),
+                                 _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC);
+      q = _mm256_min_ps(_mm256_max_ps(q, lo), hi);
+      const __m256i qi = _mm256_cvttps_epi32(q);
+      const __m128i w16 = _mm_packs_epi32(_mm256_castsi256_si128(qi), _mm256_extracti128_si256(qi, 1));
+      const __m128i b8 = _mm_packs_epi16(w16, w16);
+      _mm_storel_epi64(reinterpret_cast<__m128i*>(st + c), b8);
+      _mm_storel_epi64(reinterpret_cast<__m128i*>(ut + c),
+                       _mm_xor_si128(b8, _mm_set1_epi8(static_cast<char>(0x80))));
+    }
+    for (; c < cols; ++c) {
+      float q = std::nearbyint(xt[c] * inv);
+      q = q > 127.0f ? 127.0f : (q < -127.0f ? -127.0f : q);
+      const auto qi = static_cast<std::int8_t>(q);
+      st[c] = qi;
+      ut[c] = static_cast<std::uint8_t>(static_cast<int>(qi) + 128);
+    }
+  }
+}
+
 constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2, sigmoid_avx2, tanh_avx2,
-                        matmul_packed_f32_avx2, nullptr, matmul_packed_f16_avx2};
+                        matmul_packed_f32_avx2, matmul_packed_i8_avx2, matmul_packed_f16_avx2, quantize_rows_avx2};
 
 // ---- AVX-512 (F + BW) -------------------------------------------------------------------------
 #define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
@@ -669,8 +805,11 @@ GYRE_AVX512 void matmul_packed_f16_avx512(const std::uint16_t* p, std::size_t ro
   matmul_packed_avx512(p, rows, cols, x, n, y, ldy);
 }
 
-constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_avx512, sigmoid_avx512,
-                          tanh_avx512, matmul_packed_f32_avx512, nullptr, matmul_packed_f16_avx512};
+// Without VNNI, the AVX2 packed int8 product (vpmaddubsw) and quantisation serve AVX-512 CPUs too.
+constexpr Kernels kAvx512{"avx512",         matmul_f32_avx512,  matmul_f16_avx512,
+                          matmul_i8_avx512, sigmoid_avx512,     tanh_avx512,
+                          matmul_packed_f32_avx512, matmul_packed_i8_avx2, matmul_packed_f16_avx512,
+                          quantize_rows_avx2};
 
 // ---- AVX-512 VNNI -----------------------------------------------------------------------------
 // vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
@@ -810,7 +949,7 @@ GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale,
 
 constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni, sigmoid_avx512,
                               tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_vnni,
-                              matmul_packed_f16_avx512};
+                              matmul_packed_f16_avx512, quantize_rows_avx2};
 #endif  // GYRE_RUNTIME_X86
 
 #if defined(GYRE_RUNTIME_ARM64)
@@ -1028,7 +1167,7 @@ void tanh_neon(float* x, std::size_t n) {
 
 constexpr Kernels kNeon{
     "neon",    matmul_f32_neon,        matmul_f16_neon, matmul_i8_neon,        sigmoid_neon,
-    tanh_neon, matmul_packed_f32_neon, nullptr,         matmul_packed_f16_neon};
+    tanh_neon, matmul_packed_f32_neon, nullptr,         matmul_packed_f16_neon, quantize_rows};
 
 // ---- AArch64 SDOT (ARMv8.2 dot product) -------------------------------------------------------
 // SDOT adds four signed byte products into each int32 lane, exact for |q| <= 127; signed x signed,
@@ -1147,7 +1286,7 @@ GYRE_SDOT void matmul_packed_i8_sdot(const std::int8_t* p, const float* w_scale,
 
 constexpr Kernels kNeonSdot{
     "neon-sdot", matmul_f32_neon,        matmul_f16_neon,       matmul_i8_sdot,        sigmoid_neon,
-    tanh_neon,   matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon};
+    tanh_neon,   matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon, quantize_rows};
 #endif  // GYRE_RUNTIME_ARM64
 
 }  // namespace
