@@ -502,10 +502,9 @@ GYRE_AVX2 void matmul_packed_i8_avx2(const std::int8_t* p, const float* w_scale,
                                      std::size_t ldy) {
   const std::size_t panels = (rows + 15) / 16;
   std::size_t t = 0;
-  // Three rows x two panels (12 accumulators): 59-62 G int8 MACs/s on Zen 3 at 64-128 columns,
-  // where 4 x 1, 5 x 1, 6 x 1 and 2 x 2 measured 50-64. All stay near 16 MACs per cycle, as if
-  // one pipe took both multiplies (vpmaddubsw, vpmaddwd) of every 32 MACs: our inference from
-  // these figures, not a documented port map. f32 FMAs give the same 16.
+  // Three rows x two panels (12 accumulators): 59-63 G int8 MACs/s on Zen 3 at 512 x 64-128,
+  // where 4 x 1, 5 x 1, 6 x 1 and 2 x 2 measured 50-64 (noisy host); 1.3x the f32 products' 46,
+  // which is that CPU's SGEMM peak (94 GFLOP/s).
   for (; t + 3 <= n; t += 3) {
     std::size_t q = 0;
     for (; q + 2 <= panels; q += 2) packed_i8_avx2_rows<3, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
