@@ -1,4 +1,5 @@
 #include <algorithm>
+#include <cfloat>
 #include <cmath>
 #include <cstdlib>
 #include <cstring>
@@ -135,7 +136,7 @@ void matmul_packed_f16_portable(const std::uint16_t* p, std::size_t rows, std::s
 
 constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable,
                             sigmoid_portable, tanh_portable, matmul_packed_f32_portable, nullptr,
-                            matmul_packed_f16_portable, quantize_rows};
+                            matmul_packed_f16_portable};
 
 #if defined(GYRE_RUNTIME_X86)
 // ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
@@ -216,34 +217,6 @@ GYRE_AVX2 void matmul_f32_avx2(const float* w, std::size_t rows, std::size_t col
 GYRE_AVX2 void matmul_f16_avx2(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
                                std::size_t n, float* y, std::size_t ldy) {
   matmul_avx2(w, rows, cols, x, n, y, ldy);
-}
-
-GYRE_AVX2 inline std::int32_t hsum256_epi32(__m256i v) {
-  __m128i s = _mm_add_epi32(_mm256_castsi256_si128(v), _mm256_extracti128_si256(v, 1));
-  s = _mm_add_epi32(s, _mm_shuffle_epi32(s, 0x4E));
-  s = _mm_add_epi32(s, _mm_shuffle_epi32(s, 0xB1));
-  return _mm_cvtsi128_si32(s);
-}
-
-// int8: sign-extend to int16 and use pmaddwd (exact: |q| <= 127 so pair sums fit in int32).
-GYRE_AVX2 void matmul_i8_avx2(const std::int8_t* w, const float* w_scale, const std::int32_t*, std::size_t rows,
-                              std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
-  for (std::size_t t = 0; t < n; ++t) {
-    const std::int8_t* xt = x.xs + t * cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const std::int8_t* wr = w + r * cols;
-      __m256i acc = _mm256_setzero_si256();
-      std::size_t c = 0;
-      for (; c + 16 <= cols; c += 16) {
-        const __m256i wv = _mm256_cvtepi8_epi16(_mm_loadu_si128(reinterpret_cast<const __m128i*>(wr + c)));
-        const __m256i xv = _mm256_cvtepi8_epi16(_mm_loadu_si128(reinterpret_cast<const __m128i*>(xt + c)));
-        acc = _mm256_add_epi32(acc, _mm256_madd_epi16(wv, xv));
-      }
-      std::int32_t s = hsum256_epi32(acc);
-      for (; c < cols; ++c) s += std::int32_t{wr[c]} * std::int32_t{xt[c]};
-      y[t * ldy + r] = static_cast<float>(s) * (w_scale[r] * x.scale[t]);
-    }
-  }
 }
 
 // exp_approx with intrinsics (compilers leave the scalar loop unvectorised).
@@ -434,7 +407,27 @@ GYRE_AVX2 void matmul_packed_f16_avx2(const std::uint16_t* p, std::size_t rows, 
 // sign (vpsignb; |x| <= 127 as quantize_rows clamps), so a pair sum is at most 2 * 128 * 127 =
 // 32512 < 32767. The integer sums are exact, so the results equal matmul_i8's bit for bit, for
 // any grouping of rows. R activation rows (texts of a batch, or time steps) share each weight
-// load; P panels per pass keep 2P independent chains per row.
+// load; the two halves of a panel are two independent chains per row.
+// One group of 4 columns of P panels (pg[i]: panel i's group): acc[r][k] += the 8 rows in half k % 2
+// of panel k / 2 . the 4 bytes of x row r.
+template <std::size_t R, std::size_t P>
+GYRE_AVX2 __attribute__((always_inline)) inline void i8_group_avx2(const std::int8_t* const (&pg)[P], std::size_t off,
+                                                                   const std::int32_t* xb, __m256i (&acc)[R][2 * P]) {
+  const __m256i ones = _mm256_set1_epi16(1);
+#pragma GCC unroll 4
+  for (std::size_t k = 0; k < 2 * P; ++k) {
+    const __m256i w = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(pg[k / 2] + off + (k % 2) * 32));
+    const __m256i aw = _mm256_abs_epi8(w);
+#pragma GCC unroll 8
+    for (std::size_t r = 0; r < R; ++r) {
+      const __m256i sx = _mm256_sign_epi8(_mm256_set1_epi32(xb[r]), w);
+      acc[r][k] = _mm256_add_epi32(acc[r][k], _mm256_madd_epi16(_mm256_maddubs_epi16(aw, sx), ones));
+    }
+  }
+}
+
+// Rows t0 .. t0 + R - 1 of x against panels q0 .. q0 + P - 1 (a missing last panel reads panel q0
+// again and stores nothing).
 template <std::size_t R, std::size_t P>
 GYRE_AVX2 inline void packed_i8_avx2_rows(const std::int8_t* p, const float* w_scale, std::size_t rows,
                                           std::size_t cols, QuantizedRows x, std::size_t t0, std::size_t q0,
@@ -442,7 +435,7 @@ GYRE_AVX2 inline void packed_i8_avx2_rows(const std::int8_t* p, const float* w_s
   const std::size_t groups = (cols + 3) / 4;
   const std::size_t full = cols / 4;
   const std::size_t stride = groups * 64;
-  const __m256i ones = _mm256_set1_epi16(1);
+  const std::size_t panels = (rows + 15) / 16;
   const std::int8_t* xt[R];
   std::int32_t tail[R];
   for (std::size_t r = 0; r < R; ++r) {
@@ -451,39 +444,26 @@ GYRE_AVX2 inline void packed_i8_avx2_rows(const std::int8_t* p, const float* w_s
     for (std::size_t k = 0; k < cols - full * 4; ++k) b[k] = xt[r][full * 4 + k];
     std::memcpy(&tail[r], b, 4);
   }
-  const std::int8_t* p0 = p + q0 * stride;
+  const std::int8_t* pg[P];
+  for (std::size_t i = 0; i < P; ++i) pg[i] = p + (q0 + i < panels ? q0 + i : q0) * stride;
   __m256i acc[R][2 * P];
 #pragma GCC unroll 8
   for (std::size_t r = 0; r < R; ++r)
 #pragma GCC unroll 4
     for (std::size_t k = 0; k < 2 * P; ++k) acc[r][k] = _mm256_setzero_si256();
-  for (std::size_t g = 0; g < groups; ++g) {
+  for (std::size_t g = 0; g < full; ++g) {
     std::int32_t xb[R];
 #pragma GCC unroll 8
-    for (std::size_t r = 0; r < R; ++r) {
-      if (g < full) std::memcpy(&xb[r], xt[r] + 4 * g, 4);
-      else xb[r] = tail[r];
-    }
-    const std::int8_t* pg = p0 + g * 64;
-#pragma GCC unroll 4
-    for (std::size_t k = 0; k < 2 * P; ++k) {
-      const __m256i w = _mm256_loadu_si256(reinterpret_cast<const __m256i*>(pg + (k / 2) * stride + (k % 2) * 32));
-      const __m256i aw = _mm256_abs_epi8(w);
-#pragma GCC unroll 8
-      for (std::size_t r = 0; r < R; ++r) {
-        const __m256i sx = _mm256_sign_epi8(_mm256_set1_epi32(xb[r]), w);
-        acc[r][k] = _mm256_add_epi32(acc[r][k], _mm256_madd_epi16(_mm256_maddubs_epi16(aw, sx), ones));
-      }
-    }
+    for (std::size_t r = 0; r < R; ++r) std::memcpy(&xb[r], xt[r] + 4 * g, 4);
+    i8_group_avx2<R, P>(pg, g * 64, xb, acc);
   }
+  if (full < groups) i8_group_avx2<R, P>(pg, full * 64, tail, acc);
   alignas(32) std::int32_t out[8];
-#pragma GCC unroll 4
   for (std::size_t k = 0; k < 2 * P; ++k) {
     const std::size_t base = q0 * 16 + k * 8;
     if (base >= rows) break;
     if (base + 8 <= rows) {
       const __m256 ws = _mm256_loadu_ps(w_scale + base);
-#pragma GCC unroll 8
       for (std::size_t r = 0; r < R; ++r)
         _mm256_storeu_ps(y + (t0 + r) * ldy + base, _mm256_mul_ps(_mm256_cvtepi32_ps(acc[r][k]),
                                                                    _mm256_mul_ps(ws, _mm256_set1_ps(x.scale[t0 + r]))));
@@ -502,68 +482,21 @@ GYRE_AVX2 void matmul_packed_i8_avx2(const std::int8_t* p, const float* w_scale,
                                      std::size_t ldy) {
   const std::size_t panels = (rows + 15) / 16;
   std::size_t t = 0;
-  // Three rows x two panels (12 accumulators): 59-63 G int8 MACs/s on Zen 3 at 512 x 64-128,
-  // where 4 x 1, 5 x 1, 6 x 1 and 2 x 2 measured 50-64 (noisy host); 1.3x the f32 products' 46,
-  // which is that CPU's SGEMM peak (94 GFLOP/s).
-  for (; t + 3 <= n; t += 3) {
-    std::size_t q = 0;
-    for (; q + 2 <= panels; q += 2) packed_i8_avx2_rows<3, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
-    for (; q < panels; ++q) packed_i8_avx2_rows<3, 1>(p, w_scale, rows, cols, x, t, q, y, ldy);
-  }
-  for (; t < n; ++t) {
-    std::size_t q = 0;
-    for (; q + 2 <= panels; q += 2) packed_i8_avx2_rows<1, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
-    for (; q < panels; ++q) packed_i8_avx2_rows<1, 1>(p, w_scale, rows, cols, x, t, q, y, ldy);
-  }
+  // Three rows x one panel per pass, one row x two panels: on Zen 3 at 512 x 64-128 (noisy host)
+  // three, four or five rows gave 57-64 G int8 MACs/s, 1.3x the f32 products' 46 (that CPU's
+  // SGEMM peak, 94 GFLOP/s); one row 57 with two panels, 47 with one. Other shapes would cost
+  // code the runtime's size budget does not have (tests/runtime/extra.cmake).
+  for (; t + 3 <= n; t += 3)
+    for (std::size_t q = 0; q < panels; ++q) packed_i8_avx2_rows<3, 1>(p, w_scale, rows, cols, x, t, q, y, ldy);
+  for (; t < n; ++t)
+    for (std::size_t q = 0; q < panels; q += 2) packed_i8_avx2_rows<1, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
 }
 
-// quantize_rows with intrinsics: the same operations (max |x|, x * (1 / s) rounded to nearest
-// even as nearbyint does in the default rounding mode, clamped to [-127, 127]), so the same bytes.
-// The scalar loop calls fmaxf and nearbyintf per element (18% of an int8 batch-1 call).
-GYRE_AVX2 void quantize_rows_avx2(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs,
-                                  std::uint8_t* xu, float* scale) {
-  const __m256 abs_mask = _mm256_castsi256_ps(_mm256_set1_epi32(0x7FFFFFFF));
-  const __m256 lo = _mm256_set1_ps(-127.0f), hi = _mm256_set1_ps(127.0f);
-  for (std::size_t t = 0; t < n; ++t) {
-    const float* xt = x + t * cols;
-    __m256 m = _mm256_setzero_ps();
-    std::size_t c = 0;
-    for (; c + 8 <= cols; c += 8) m = _mm256_max_ps(m, _mm256_and_ps(abs_mask, _mm256_loadu_ps(xt + c)));
-    __m128 h = _mm_max_ps(_mm256_castps256_ps128(m), _mm256_extractf128_ps(m, 1));
-    h = _mm_max_ps(h, _mm_movehl_ps(h, h));
-    h = _mm_max_ss(h, _mm_movehdup_ps(h));
-    float max_abs = _mm_cvtss_f32(h);
-    for (; c < cols; ++c) max_abs = std::fmax(max_abs, std::fabs(xt[c]));
-    const float s = max_abs / 127.0f;
-    const float inv = s > 0.0f ? 1.0f / s : 0.0f;
-    scale[t] = s;
-    const __m256 iv = _mm256_set1_ps(inv);
-    std::int8_t* st = xs + t * cols;
-    std::uint8_t* ut = xu + t * cols;
-    c = 0;
-    for (; c + 8 <= cols; c += 8) {
-      __m256 q = _mm256_round_ps(_mm256_mul_ps(_mm256_loadu_ps(xt + c), iv),
-                                 _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC);
-      q = _mm256_min_ps(_mm256_max_ps(q, lo), hi);
-      const __m256i qi = _mm256_cvttps_epi32(q);
-      const __m128i w16 = _mm_packs_epi32(_mm256_castsi256_si128(qi), _mm256_extracti128_si256(qi, 1));
-      const __m128i b8 = _mm_packs_epi16(w16, w16);
-      _mm_storel_epi64(reinterpret_cast<__m128i*>(st + c), b8);
-      _mm_storel_epi64(reinterpret_cast<__m128i*>(ut + c),
-                       _mm_xor_si128(b8, _mm_set1_epi8(static_cast<char>(0x80))));
-    }
-    for (; c < cols; ++c) {
-      float q = std::nearbyint(xt[c] * inv);
-      q = q > 127.0f ? 127.0f : (q < -127.0f ? -127.0f : q);
-      const auto qi = static_cast<std::int8_t>(q);
-      st[c] = qi;
-      ut[c] = static_cast<std::uint8_t>(static_cast<int>(qi) + 128);
-    }
-  }
-}
-
-constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_avx2, sigmoid_avx2, tanh_avx2,
-                        matmul_packed_f32_avx2, matmul_packed_i8_avx2, matmul_packed_f16_avx2, quantize_rows_avx2};
+// Every x86 SIMD level has a packed int8 product, which the runtime always uses (int8 matrices are
+// packed at load), so the row-major matmul_i8 is the portable loop there: no code that nothing runs
+// (the runtime's size is budgeted, tests/runtime/extra.cmake).
+constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_portable, sigmoid_avx2, tanh_avx2,
+                        matmul_packed_f32_avx2, matmul_packed_i8_avx2, matmul_packed_f16_avx2};
 
 // ---- AVX-512 (F + BW) -------------------------------------------------------------------------
 #define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
@@ -637,23 +570,6 @@ GYRE_AVX512 void matmul_f16_avx512(const std::uint16_t* w, std::size_t rows, std
   matmul_avx512(w, rows, cols, x, n, y, ldy);
 }
 
-GYRE_AVX512 void matmul_i8_avx512(const std::int8_t* w, const float* w_scale, const std::int32_t*, std::size_t rows,
-                                  std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
-  for (std::size_t t = 0; t < n; ++t) {
-    const std::int8_t* xt = x.xs + t * cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const std::int8_t* wr = w + r * cols;
-      __m512i acc = _mm512_setzero_si512();
-      for (std::size_t c = 0; c < cols; c += 32) {
-        const __mmask32 m = cols - c >= 32 ? ~__mmask32(0) : static_cast<__mmask32>((1U << (cols - c)) - 1U);
-        const __m512i wv = _mm512_cvtepi8_epi16(_mm256_maskz_loadu_epi8(m, wr + c));
-        const __m512i xv = _mm512_cvtepi8_epi16(_mm256_maskz_loadu_epi8(m, xt + c));
-        acc = _mm512_add_epi32(acc, _mm512_madd_epi16(wv, xv));
-      }
-      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(acc)) * (w_scale[r] * x.scale[t]);
-    }
-  }
-}
 
 GYRE_AVX512 inline __m512 exp512(__m512 x) {
   x = _mm512_min_ps(_mm512_max_ps(x, _mm512_set1_ps(-87.0f)), _mm512_set1_ps(88.0f));
@@ -804,65 +720,14 @@ GYRE_AVX512 void matmul_packed_f16_avx512(const std::uint16_t* p, std::size_t ro
   matmul_packed_avx512(p, rows, cols, x, n, y, ldy);
 }
 
-// Without VNNI, the AVX2 packed int8 product (vpmaddubsw) and quantisation serve AVX-512 CPUs too.
-constexpr Kernels kAvx512{"avx512",         matmul_f32_avx512,  matmul_f16_avx512,
-                          matmul_i8_avx512, sigmoid_avx512,     tanh_avx512,
-                          matmul_packed_f32_avx512, matmul_packed_i8_avx2, matmul_packed_f16_avx512,
-                          quantize_rows_avx2};
+// Without VNNI, the AVX2 packed int8 product (vpmaddubsw) serves AVX-512 CPUs too.
+constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_portable, sigmoid_avx512,
+                          tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_avx2, matmul_packed_f16_avx512};
 
 // ---- AVX-512 VNNI -----------------------------------------------------------------------------
 // vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
 // is corrected by 128 * sum(w row): sum((q+128) w) - 128 sum(w) = sum(q w), exact in int32.
 #define GYRE_VNNI __attribute__((target("avx512f,avx512bw,avx512vl,avx512vnni,fma,f16c")))
-
-GYRE_VNNI void matmul_i8_vnni(const std::int8_t* w, const float* w_scale, const std::int32_t* w_sum, std::size_t rows,
-                              std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy) {
-  std::size_t t = 0;
-  for (; t + 2 <= n; t += 2) {
-    const std::uint8_t* x0 = x.xu + t * cols;
-    const std::uint8_t* x1 = x0 + cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const std::int8_t* wr = w + r * cols;
-      __m512i a0 = _mm512_setzero_si512(), a1 = _mm512_setzero_si512();
-      for (std::size_t c = 0; c < cols; c += 64) {
-        const __mmask64 m = cols - c >= 64 ? ~__mmask64(0) : static_cast<__mmask64>((1ULL << (cols - c)) - 1ULL);
-        const __m512i wv = _mm512_maskz_loadu_epi8(m, wr + c);
-        a0 = _mm512_dpbusd_epi32(a0, _mm512_maskz_loadu_epi8(m, x0 + c), wv);
-        a1 = _mm512_dpbusd_epi32(a1, _mm512_maskz_loadu_epi8(m, x1 + c), wv);
-      }
-      const std::int32_t corr = 128 * w_sum[r];
-      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a0) - corr) * (w_scale[r] * x.scale[t]);
-      y[(t + 1) * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a1) - corr) * (w_scale[r] * x.scale[t + 1]);
-    }
-  }
-  for (; t < n; ++t) {
-    const std::uint8_t* xt = x.xu + t * cols;
-    std::size_t r = 0;
-    for (; r + 2 <= rows; r += 2) {
-      const std::int8_t* w0 = w + r * cols;
-      const std::int8_t* w1 = w0 + cols;
-      __m512i a0 = _mm512_setzero_si512(), a1 = _mm512_setzero_si512();
-      for (std::size_t c = 0; c < cols; c += 64) {
-        const __mmask64 m = cols - c >= 64 ? ~__mmask64(0) : static_cast<__mmask64>((1ULL << (cols - c)) - 1ULL);
-        const __m512i xv = _mm512_maskz_loadu_epi8(m, xt + c);
-        a0 = _mm512_dpbusd_epi32(a0, xv, _mm512_maskz_loadu_epi8(m, w0 + c));
-        a1 = _mm512_dpbusd_epi32(a1, xv, _mm512_maskz_loadu_epi8(m, w1 + c));
-      }
-      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a0) - 128 * w_sum[r]) * (w_scale[r] * x.scale[t]);
-      y[t * ldy + r + 1] =
-          static_cast<float>(_mm512_reduce_add_epi32(a1) - 128 * w_sum[r + 1]) * (w_scale[r + 1] * x.scale[t]);
-    }
-    for (; r < rows; ++r) {
-      const std::int8_t* wr = w + r * cols;
-      __m512i a0 = _mm512_setzero_si512();
-      for (std::size_t c = 0; c < cols; c += 64) {
-        const __mmask64 m = cols - c >= 64 ? ~__mmask64(0) : static_cast<__mmask64>((1ULL << (cols - c)) - 1ULL);
-        a0 = _mm512_dpbusd_epi32(a0, _mm512_maskz_loadu_epi8(m, xt + c), _mm512_maskz_loadu_epi8(m, wr + c));
-      }
-      y[t * ldy + r] = static_cast<float>(_mm512_reduce_add_epi32(a0) - 128 * w_sum[r]) * (w_scale[r] * x.scale[t]);
-    }
-  }
-}
 
 // Packed weights: 16 rows x 4 columns per 64-byte operand, the 4 activation bytes broadcast;
 // four panels per pass keep four independent dpbusd chains per activation row, and R rows
@@ -946,9 +811,9 @@ GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale,
   for (; t < n; ++t) packed_i8_vnni_rows<1>(p, w_scale, w_sum, rows, cols, x, t, y, ldy);
 }
 
-constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_vnni, sigmoid_avx512,
-                              tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_vnni,
-                              matmul_packed_f16_avx512, quantize_rows_avx2};
+constexpr Kernels kAvx512Vnni{"avx512-vnni",  matmul_f32_avx512,        matmul_f16_avx512,
+                              matmul_i8_portable, sigmoid_avx512,       tanh_avx512,
+                              matmul_packed_f32_avx512, matmul_packed_i8_vnni, matmul_packed_f16_avx512};
 #endif  // GYRE_RUNTIME_X86
 
 #if defined(GYRE_RUNTIME_ARM64)
@@ -1166,7 +1031,7 @@ void tanh_neon(float* x, std::size_t n) {
 
 constexpr Kernels kNeon{
     "neon",    matmul_f32_neon,        matmul_f16_neon, matmul_i8_neon,        sigmoid_neon,
-    tanh_neon, matmul_packed_f32_neon, nullptr,         matmul_packed_f16_neon, quantize_rows};
+    tanh_neon, matmul_packed_f32_neon, nullptr,         matmul_packed_f16_neon};
 
 // ---- AArch64 SDOT (ARMv8.2 dot product) -------------------------------------------------------
 // SDOT adds four signed byte products into each int32 lane, exact for |q| <= 127; signed x signed,
@@ -1285,7 +1150,7 @@ GYRE_SDOT void matmul_packed_i8_sdot(const std::int8_t* p, const float* w_scale,
 
 constexpr Kernels kNeonSdot{
     "neon-sdot", matmul_f32_neon,        matmul_f16_neon,       matmul_i8_sdot,        sigmoid_neon,
-    tanh_neon,   matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon, quantize_rows};
+    tanh_neon,   matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon};
 #endif  // GYRE_RUNTIME_ARM64
 
 }  // namespace
@@ -1395,21 +1260,67 @@ void pack_i8(const std::int8_t* w, std::size_t rows, std::size_t cols, std::int8
         }
 }
 
+// Rounding to nearest, ties to even (nearbyint in the default rounding mode, IEEE 754
+// roundTiesToEven). With SSE4.1 it is roundps. Baseline x86-64 (SSE2) has no rounding instruction
+// and nearbyintf is a library call (with fmaxf, 18% of an int8 call on Zen 3); there, adding and
+// subtracting 1.5 * 2^23 leaves a sum whose unit in the last place is 1, rounded by the default
+// mode: the same result for |v| < 2^22 (here |v| <= 127 and a little). SSE2 has no FMA, so that
+// addition is never fused with the product before it. AArch64's nearbyint is one instruction.
+#if defined(GYRE_RUNTIME_X86)
+static_assert(FLT_EVAL_METHOD == 0, "the SSE2 rounding needs float additions in float precision");
+inline __m128 round_even4(__m128 v) {
+#if defined(__SSE4_1__)
+  return _mm_round_ps(v, _MM_FROUND_TO_NEAREST_INT | _MM_FROUND_NO_EXC);
+#else
+  const __m128 magic = _mm_set1_ps(12582912.0f);  // 1.5 * 2^23
+  return _mm_sub_ps(_mm_add_ps(v, magic), magic);
+#endif
+}
+#endif
+
 void quantize_rows(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs, std::uint8_t* xu,
                    float* scale) noexcept {
   for (std::size_t t = 0; t < n; ++t) {
     const float* xt = x + t * cols;
     float max_abs = 0.0f;
-    for (std::size_t c = 0; c < cols; ++c) max_abs = std::fmax(max_abs, std::fabs(xt[c]));
+    std::size_t c = 0;
+#if defined(GYRE_RUNTIME_X86)
+    // maxps(a, m) is a > m ? a : m per lane, as the scalar loop below (a NaN is passed over).
+    const __m128 abs_mask = _mm_castsi128_ps(_mm_set1_epi32(0x7FFFFFFF));
+    __m128 m = _mm_setzero_ps();
+    for (; c + 4 <= cols; c += 4) m = _mm_max_ps(_mm_and_ps(abs_mask, _mm_loadu_ps(xt + c)), m);
+    m = _mm_max_ps(m, _mm_movehl_ps(m, m));
+    m = _mm_max_ss(m, _mm_shuffle_ps(m, m, 1));
+    max_abs = _mm_cvtss_f32(m);
+#endif
+    for (; c < cols; ++c) {
+      const float a = std::fabs(xt[c]);
+      max_abs = a > max_abs ? a : max_abs;
+    }
     const float s = max_abs / 127.0f;
     const float inv = s > 0.0f ? 1.0f / s : 0.0f;
     scale[t] = s;
-    for (std::size_t c = 0; c < cols; ++c) {
+    std::int8_t* st = xs + t * cols;
+    std::uint8_t* ut = xu + t * cols;
+    c = 0;
+#if defined(GYRE_RUNTIME_X86)
+    const __m128 iv = _mm_set1_ps(inv), lo = _mm_set1_ps(-127.0f), hi = _mm_set1_ps(127.0f);
+    for (; c + 4 <= cols; c += 4) {
+      const __m128 q = _mm_min_ps(_mm_max_ps(round_even4(_mm_mul_ps(_mm_loadu_ps(xt + c), iv)), lo), hi);
+      const __m128i w16 = _mm_packs_epi32(_mm_cvttps_epi32(q), _mm_setzero_si128());
+      const __m128i b8 = _mm_packs_epi16(w16, w16);
+      const auto sb = static_cast<std::uint32_t>(_mm_cvtsi128_si32(b8));
+      const std::uint32_t ub = sb ^ 0x80808080U;  // q + 128 per byte
+      std::memcpy(st + c, &sb, 4);
+      std::memcpy(ut + c, &ub, 4);
+    }
+#endif
+    for (; c < cols; ++c) {
       float q = std::nearbyint(xt[c] * inv);
       q = q > 127.0f ? 127.0f : (q < -127.0f ? -127.0f : q);
       const auto qi = static_cast<std::int8_t>(q);
-      xs[t * cols + c] = qi;
-      xu[t * cols + c] = static_cast<std::uint8_t>(static_cast<int>(qi) + 128);
+      st[c] = qi;
+      ut[c] = static_cast<std::uint8_t>(static_cast<int>(qi) + 128);
     }
   }
 }

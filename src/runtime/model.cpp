@@ -386,7 +386,7 @@ void apply(const Impl& m, const Weights& w, const float* x, std::size_t n, float
       ensure(b.qs, n * w.cols);
       ensure(b.qu, n * w.cols);
       ensure(b.qscale, n);
-      m.kernels->quantize_rows(x, n, w.cols, b.qs.data(), b.qu.data(), b.qscale.data());
+      detail::quantize_rows(x, n, w.cols, b.qs.data(), b.qu.data(), b.qscale.data());
       if (!w.packed_i8.empty()) {
         m.kernels->matmul_packed_i8(w.packed_i8.data(), w.scales, w.sums.data(), w.rows, w.cols,
                                     {b.qs.data(), b.qu.data(), b.qscale.data()}, n, y, ldy);

@@ -51,9 +51,6 @@ struct Kernels {
   /// matmul_f16 on weights repacked by pack_f16 (same panel layout as pack_f32).
   void (*matmul_packed_f16)(const std::uint16_t* packed, std::size_t rows, std::size_t cols, const float* x,
                             std::size_t n, float* y, std::size_t ldy);
-  /// quantize_rows (below), vectorised where the set can: the same bytes and scales.
-  void (*quantize_rows)(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs, std::uint8_t* xu,
-                        float* scale);
 };
 
 /// Bytes needed by pack_i8: rows rounded up to 16, cols rounded up to 4.
@@ -80,8 +77,7 @@ const Kernels& kernels_for(Isa isa) noexcept;
 const Kernels& best_kernels() noexcept;
 Isa best_isa() noexcept;
 
-/// Quantises n rows of x [n x cols] into xs/xu/scale (each sized by the caller); the reference
-/// loop that every Kernels::quantize_rows equals.
+/// Quantises n rows of x [n x cols] into xs/xu/scale (each sized by the caller).
 void quantize_rows(const float* x, std::size_t n, std::size_t cols, std::int8_t* xs, std::uint8_t* xu,
                    float* scale) noexcept;
 
