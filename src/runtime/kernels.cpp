@@ -482,12 +482,13 @@ GYRE_AVX2 void matmul_packed_i8_avx2(const std::int8_t* p, const float* w_scale,
                                      std::size_t ldy) {
   const std::size_t panels = (rows + 15) / 16;
   std::size_t t = 0;
-  // Three rows x one panel per pass, one row x two panels: on Zen 3 at 512 x 64-128 (noisy host)
-  // three, four or five rows gave 57-64 G int8 MACs/s, 1.3x the f32 products' 46 (that CPU's
-  // SGEMM peak, 94 GFLOP/s); one row 57 with two panels, 47 with one. Other shapes would cost
-  // code the runtime's size budget does not have (tests/runtime/extra.cmake).
+  // Three rows or one row, two panels per pass. On Zen 3 at 512 x 64-128 (noisy host) three, four
+  // or five rows gave 55-64 G int8 MACs/s in a loop of products, 1.3x the f32 products' 46 (that
+  // CPU's SGEMM peak, 94 GFLOP/s), and one row 50-57 with two panels, 47 with one; in the batched
+  // call three rows x one panel ran 10-20% slower than x two. More shapes would cost code the
+  // runtime's size budget does not have (tests/runtime/extra.cmake).
   for (; t + 3 <= n; t += 3)
-    for (std::size_t q = 0; q < panels; ++q) packed_i8_avx2_rows<3, 1>(p, w_scale, rows, cols, x, t, q, y, ldy);
+    for (std::size_t q = 0; q < panels; q += 2) packed_i8_avx2_rows<3, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
   for (; t < n; ++t)
     for (std::size_t q = 0; q < panels; q += 2) packed_i8_avx2_rows<1, 2>(p, w_scale, rows, cols, x, t, q, y, ldy);
 }
