@@ -407,7 +407,8 @@ GYRE_AVX2 void matmul_packed_f16_avx2(const std::uint16_t* p, std::size_t rows, 
 // sign (vpsignb; |x| <= 127 as quantize_rows clamps), so a pair sum is at most 2 * 128 * 127 =
 // 32512 < 32767. The integer sums are exact, so the results equal matmul_i8's bit for bit, for
 // any grouping of rows. R activation rows (texts of a batch, or time steps) share each weight
-// load; the two halves of a panel are two independent chains per row.
+// load; P panels per pass, in halves of 8 rows, give 2P independent chains per row.
+
 // One group of 4 columns of P panels (pg[i]: panel i's group): acc[r][k] += the 8 rows in half k % 2
 // of panel k / 2 . the 4 bytes of x row r.
 template <std::size_t R, std::size_t P>
@@ -570,7 +571,6 @@ GYRE_AVX512 void matmul_f16_avx512(const std::uint16_t* w, std::size_t rows, std
                                    std::size_t n, float* y, std::size_t ldy) {
   matmul_avx512(w, rows, cols, x, n, y, ldy);
 }
-
 
 GYRE_AVX512 inline __m512 exp512(__m512 x) {
   x = _mm512_min_ps(_mm512_max_ps(x, _mm512_set1_ps(-87.0f)), _mm512_set1_ps(88.0f));
