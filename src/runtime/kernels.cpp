@@ -134,89 +134,17 @@ void matmul_packed_f16_portable(const std::uint16_t* p, std::size_t rows, std::s
   matmul_packed_portable(p, rows, cols, x, n, y, ldy);
 }
 
-constexpr Kernels kPortable{"portable", matmul_f32_portable, matmul_f16_portable, matmul_i8_portable,
-                            sigmoid_portable, tanh_portable, matmul_packed_f32_portable, nullptr,
-                            matmul_packed_f16_portable};
+constexpr Kernels kPortable{"portable", matmul_i8_portable, sigmoid_portable, tanh_portable,
+                            matmul_packed_f32_portable, nullptr, matmul_packed_f16_portable};
 
 #if defined(GYRE_RUNTIME_X86)
 // ---- AVX2 + FMA + F16C ------------------------------------------------------------------------
-// Four activation rows share each weight load; horizontal sums once per output.
 
 #define GYRE_AVX2 __attribute__((target("avx2,fma,f16c")))
-
-GYRE_AVX2 inline float hsum256(__m256 v) {
-  __m128 s = _mm_add_ps(_mm256_castps256_ps128(v), _mm256_extractf128_ps(v, 1));
-  s = _mm_add_ps(s, _mm_movehl_ps(s, s));
-  s = _mm_add_ss(s, _mm_movehdup_ps(s));
-  return _mm_cvtss_f32(s);
-}
 
 GYRE_AVX2 inline __m256 load(const float* p) { return _mm256_loadu_ps(p); }
 GYRE_AVX2 inline __m256 load(const std::uint16_t* p) {
   return _mm256_cvtph_ps(_mm_loadu_si128(reinterpret_cast<const __m128i*>(p)));
-}
-inline float scalar(const float* p, std::size_t i) { return p[i]; }
-inline float scalar(const std::uint16_t* p, std::size_t i) { return half_to_float(p[i]); }
-
-template <class W>
-GYRE_AVX2 void matmul_avx2(const W* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
-                           std::size_t ldy) {
-  std::size_t t = 0;
-  for (; t + 4 <= n; t += 4) {
-    const float* x0 = x + t * cols;
-    const float* x1 = x0 + cols;
-    const float* x2 = x1 + cols;
-    const float* x3 = x2 + cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const W* wr = w + r * cols;
-      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps(), a2 = _mm256_setzero_ps(), a3 = _mm256_setzero_ps();
-      std::size_t c = 0;
-      for (; c + 8 <= cols; c += 8) {
-        const __m256 wv = load(wr + c);
-        a0 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x0 + c), a0);
-        a1 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x1 + c), a1);
-        a2 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x2 + c), a2);
-        a3 = _mm256_fmadd_ps(wv, _mm256_loadu_ps(x3 + c), a3);
-      }
-      float s0 = hsum256(a0), s1 = hsum256(a1), s2 = hsum256(a2), s3 = hsum256(a3);
-      for (; c < cols; ++c) {
-        const float wc = scalar(wr, c);
-        s0 += wc * x0[c];
-        s1 += wc * x1[c];
-        s2 += wc * x2[c];
-        s3 += wc * x3[c];
-      }
-      y[t * ldy + r] = s0;
-      y[(t + 1) * ldy + r] = s1;
-      y[(t + 2) * ldy + r] = s2;
-      y[(t + 3) * ldy + r] = s3;
-    }
-  }
-  for (; t < n; ++t) {
-    const float* xt = x + t * cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const W* wr = w + r * cols;
-      __m256 a0 = _mm256_setzero_ps(), a1 = _mm256_setzero_ps();
-      std::size_t c = 0;
-      for (; c + 16 <= cols; c += 16) {
-        a0 = _mm256_fmadd_ps(load(wr + c), _mm256_loadu_ps(xt + c), a0);
-        a1 = _mm256_fmadd_ps(load(wr + c + 8), _mm256_loadu_ps(xt + c + 8), a1);
-      }
-      for (; c + 8 <= cols; c += 8) a0 = _mm256_fmadd_ps(load(wr + c), _mm256_loadu_ps(xt + c), a0);
-      float s = hsum256(_mm256_add_ps(a0, a1));
-      for (; c < cols; ++c) s += scalar(wr, c) * xt[c];
-      y[t * ldy + r] = s;
-    }
-  }
-}
-
-GYRE_AVX2 void matmul_f32_avx2(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                               float* y, std::size_t ldy) {
-  matmul_avx2(w, rows, cols, x, n, y, ldy);
-}
-GYRE_AVX2 void matmul_f16_avx2(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
-                               std::size_t n, float* y, std::size_t ldy) {
-  matmul_avx2(w, rows, cols, x, n, y, ldy);
 }
 
 // exp_approx with intrinsics (compilers leave the scalar loop unvectorised).
@@ -497,8 +425,8 @@ GYRE_AVX2 void matmul_packed_i8_avx2(const std::int8_t* p, const float* w_scale,
 // Every x86 SIMD level has a packed int8 product, which the runtime always uses (int8 matrices are
 // packed at load), so the row-major matmul_i8 is the portable loop there: no code that nothing runs
 // (the runtime's size is budgeted, tests/runtime/extra.cmake).
-constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_portable, sigmoid_avx2, tanh_avx2,
-                        matmul_packed_f32_avx2, matmul_packed_i8_avx2, matmul_packed_f16_avx2};
+constexpr Kernels kAvx2{"avx2", matmul_i8_portable, sigmoid_avx2, tanh_avx2, matmul_packed_f32_avx2,
+                        matmul_packed_i8_avx2, matmul_packed_f16_avx2};
 
 // ---- AVX-512 (F + BW) -------------------------------------------------------------------------
 #define GYRE_AVX512 __attribute__((target("avx512f,avx512bw,avx512vl,fma,f16c")))
@@ -506,70 +434,6 @@ constexpr Kernels kAvx2{"avx2", matmul_f32_avx2, matmul_f16_avx2, matmul_i8_port
 GYRE_AVX512 inline __m512 load(const float* p, __mmask16 m) { return _mm512_maskz_loadu_ps(m, p); }
 GYRE_AVX512 inline __m512 load(const std::uint16_t* p, __mmask16 m) {
   return _mm512_cvtph_ps(_mm256_maskz_loadu_epi16(m, p));
-}
-
-template <class W>
-GYRE_AVX512 void matmul_avx512(const W* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                               float* y, std::size_t ldy) {
-  // Masked loads handle the tail, so every column goes through the vector unit.
-  std::size_t t = 0;
-  for (; t + 4 <= n; t += 4) {
-    const float* x0 = x + t * cols;
-    const float* x1 = x0 + cols;
-    const float* x2 = x1 + cols;
-    const float* x3 = x2 + cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const W* wr = w + r * cols;
-      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps(), a2 = _mm512_setzero_ps(), a3 = _mm512_setzero_ps();
-      for (std::size_t c = 0; c < cols; c += 16) {
-        const __mmask16 m = cols - c >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (cols - c)) - 1U);
-        const __m512 wv = load(wr + c, m);
-        a0 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x0 + c), a0);
-        a1 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x1 + c), a1);
-        a2 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x2 + c), a2);
-        a3 = _mm512_fmadd_ps(wv, _mm512_maskz_loadu_ps(m, x3 + c), a3);
-      }
-      y[t * ldy + r] = _mm512_reduce_add_ps(a0);
-      y[(t + 1) * ldy + r] = _mm512_reduce_add_ps(a1);
-      y[(t + 2) * ldy + r] = _mm512_reduce_add_ps(a2);
-      y[(t + 3) * ldy + r] = _mm512_reduce_add_ps(a3);
-    }
-  }
-  for (; t < n; ++t) {
-    const float* xt = x + t * cols;
-    std::size_t r = 0;
-    for (; r + 2 <= rows; r += 2) {  // two weight rows per pass: two independent FMA chains
-      const W* w0 = w + r * cols;
-      const W* w1 = w0 + cols;
-      __m512 a0 = _mm512_setzero_ps(), a1 = _mm512_setzero_ps();
-      for (std::size_t c = 0; c < cols; c += 16) {
-        const __mmask16 m = cols - c >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (cols - c)) - 1U);
-        const __m512 xv = _mm512_maskz_loadu_ps(m, xt + c);
-        a0 = _mm512_fmadd_ps(load(w0 + c, m), xv, a0);
-        a1 = _mm512_fmadd_ps(load(w1 + c, m), xv, a1);
-      }
-      y[t * ldy + r] = _mm512_reduce_add_ps(a0);
-      y[t * ldy + r + 1] = _mm512_reduce_add_ps(a1);
-    }
-    for (; r < rows; ++r) {
-      const W* wr = w + r * cols;
-      __m512 a0 = _mm512_setzero_ps();
-      for (std::size_t c = 0; c < cols; c += 16) {
-        const __mmask16 m = cols - c >= 16 ? __mmask16(0xFFFF) : static_cast<__mmask16>((1U << (cols - c)) - 1U);
-        a0 = _mm512_fmadd_ps(load(wr + c, m), _mm512_maskz_loadu_ps(m, xt + c), a0);
-      }
-      y[t * ldy + r] = _mm512_reduce_add_ps(a0);
-    }
-  }
-}
-
-GYRE_AVX512 void matmul_f32_avx512(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                                   float* y, std::size_t ldy) {
-  matmul_avx512(w, rows, cols, x, n, y, ldy);
-}
-GYRE_AVX512 void matmul_f16_avx512(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
-                                   std::size_t n, float* y, std::size_t ldy) {
-  matmul_avx512(w, rows, cols, x, n, y, ldy);
 }
 
 GYRE_AVX512 inline __m512 exp512(__m512 x) {
@@ -722,8 +586,8 @@ GYRE_AVX512 void matmul_packed_f16_avx512(const std::uint16_t* p, std::size_t ro
 }
 
 // Without VNNI, the AVX2 packed int8 product (vpmaddubsw) serves AVX-512 CPUs too.
-constexpr Kernels kAvx512{"avx512", matmul_f32_avx512, matmul_f16_avx512, matmul_i8_portable, sigmoid_avx512,
-                          tanh_avx512, matmul_packed_f32_avx512, matmul_packed_i8_avx2, matmul_packed_f16_avx512};
+constexpr Kernels kAvx512{"avx512", matmul_i8_portable, sigmoid_avx512, tanh_avx512, matmul_packed_f32_avx512,
+                          matmul_packed_i8_avx2, matmul_packed_f16_avx512};
 
 // ---- AVX-512 VNNI -----------------------------------------------------------------------------
 // vpdpbusd multiplies unsigned by signed bytes, so activations enter as q + 128 and the result
@@ -812,8 +676,7 @@ GYRE_VNNI void matmul_packed_i8_vnni(const std::int8_t* p, const float* w_scale,
   for (; t < n; ++t) packed_i8_vnni_rows<1>(p, w_scale, w_sum, rows, cols, x, t, y, ldy);
 }
 
-constexpr Kernels kAvx512Vnni{"avx512-vnni",  matmul_f32_avx512,        matmul_f16_avx512,
-                              matmul_i8_portable, sigmoid_avx512,       tanh_avx512,
+constexpr Kernels kAvx512Vnni{"avx512-vnni", matmul_i8_portable, sigmoid_avx512, tanh_avx512,
                               matmul_packed_f32_avx512, matmul_packed_i8_vnni, matmul_packed_f16_avx512};
 #endif  // GYRE_RUNTIME_X86
 
@@ -827,77 +690,6 @@ inline float32x4_t load4(const float* p) {
 }
 inline float32x4_t load4(const std::uint16_t* p) {
   return vcvt_f32_f16(vreinterpret_f16_u16(vld1_u16(p)));
-}
-inline float scalar_at(const float* p, std::size_t i) {
-  return p[i];
-}
-inline float scalar_at(const std::uint16_t* p, std::size_t i) {
-  return half_to_float(p[i]);
-}
-
-// Row-major weights: four activation rows share each weight load (as the AVX2 kernel); a single
-// row keeps four accumulators so that four FMA chains are in flight.
-template <class W>
-void matmul_neon(const W* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
-                 std::size_t ldy) {
-  std::size_t t = 0;
-  for (; t + 4 <= n; t += 4) {
-    const float* x0 = x + t * cols;
-    const float* x1 = x0 + cols;
-    const float* x2 = x1 + cols;
-    const float* x3 = x2 + cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const W* wr = w + r * cols;
-      float32x4_t a0 = vdupq_n_f32(0.0f), a1 = a0, a2 = a0, a3 = a0;
-      std::size_t c = 0;
-      for (; c + 4 <= cols; c += 4) {
-        const float32x4_t wv = load4(wr + c);
-        a0 = vfmaq_f32(a0, wv, vld1q_f32(x0 + c));
-        a1 = vfmaq_f32(a1, wv, vld1q_f32(x1 + c));
-        a2 = vfmaq_f32(a2, wv, vld1q_f32(x2 + c));
-        a3 = vfmaq_f32(a3, wv, vld1q_f32(x3 + c));
-      }
-      float s0 = vaddvq_f32(a0), s1 = vaddvq_f32(a1), s2 = vaddvq_f32(a2), s3 = vaddvq_f32(a3);
-      for (; c < cols; ++c) {
-        const float wc = scalar_at(wr, c);
-        s0 += wc * x0[c];
-        s1 += wc * x1[c];
-        s2 += wc * x2[c];
-        s3 += wc * x3[c];
-      }
-      y[t * ldy + r] = s0;
-      y[(t + 1) * ldy + r] = s1;
-      y[(t + 2) * ldy + r] = s2;
-      y[(t + 3) * ldy + r] = s3;
-    }
-  }
-  for (; t < n; ++t) {
-    const float* xt = x + t * cols;
-    for (std::size_t r = 0; r < rows; ++r) {
-      const W* wr = w + r * cols;
-      float32x4_t a0 = vdupq_n_f32(0.0f), a1 = a0, a2 = a0, a3 = a0;
-      std::size_t c = 0;
-      for (; c + 16 <= cols; c += 16) {
-        a0 = vfmaq_f32(a0, load4(wr + c), vld1q_f32(xt + c));
-        a1 = vfmaq_f32(a1, load4(wr + c + 4), vld1q_f32(xt + c + 4));
-        a2 = vfmaq_f32(a2, load4(wr + c + 8), vld1q_f32(xt + c + 8));
-        a3 = vfmaq_f32(a3, load4(wr + c + 12), vld1q_f32(xt + c + 12));
-      }
-      for (; c + 4 <= cols; c += 4) a0 = vfmaq_f32(a0, load4(wr + c), vld1q_f32(xt + c));
-      float s = vaddvq_f32(vaddq_f32(vaddq_f32(a0, a1), vaddq_f32(a2, a3)));
-      for (; c < cols; ++c) s += scalar_at(wr, c) * xt[c];
-      y[t * ldy + r] = s;
-    }
-  }
-}
-
-void matmul_f32_neon(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                     float* y, std::size_t ldy) {
-  matmul_neon(w, rows, cols, x, n, y, ldy);
-}
-void matmul_f16_neon(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x,
-                     std::size_t n, float* y, std::size_t ldy) {
-  matmul_neon(w, rows, cols, x, n, y, ldy);
 }
 
 // int8 without the dot-product instructions: SMULL/SMULL2 to int16 (|q| <= 127, so each product
@@ -1030,9 +822,8 @@ void tanh_neon(float* x, std::size_t n) {
   tanh_loop(x + i, n - i);
 }
 
-constexpr Kernels kNeon{
-    "neon",    matmul_f32_neon,        matmul_f16_neon, matmul_i8_neon,        sigmoid_neon,
-    tanh_neon, matmul_packed_f32_neon, nullptr,         matmul_packed_f16_neon};
+constexpr Kernels kNeon{"neon", matmul_i8_neon, sigmoid_neon, tanh_neon, matmul_packed_f32_neon, nullptr,
+                        matmul_packed_f16_neon};
 
 // ---- AArch64 SDOT (ARMv8.2 dot product) -------------------------------------------------------
 // SDOT adds four signed byte products into each int32 lane, exact for |q| <= 127; signed x signed,
@@ -1149,9 +940,8 @@ GYRE_SDOT void matmul_packed_i8_sdot(const std::int8_t* p, const float* w_scale,
   }
 }
 
-constexpr Kernels kNeonSdot{
-    "neon-sdot", matmul_f32_neon,        matmul_f16_neon,       matmul_i8_sdot,        sigmoid_neon,
-    tanh_neon,   matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon};
+constexpr Kernels kNeonSdot{"neon-sdot", matmul_i8_sdot, sigmoid_neon, tanh_neon,
+                            matmul_packed_f32_neon, matmul_packed_i8_sdot, matmul_packed_f16_neon};
 #endif  // GYRE_RUNTIME_ARM64
 
 }  // namespace
@@ -1243,6 +1033,15 @@ void pack_panels(const T* w, std::size_t rows, std::size_t cols, T* out) noexcep
         const std::size_t row = q * kPanelRows + r;
         out[(q * cols + c) * kPanelRows + r] = row < rows ? w[row * cols + c] : T{0};
       }
+}
+
+void matmul_f32_reference(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                          float* y, std::size_t ldy) noexcept {
+  matmul_f32_portable(w, rows, cols, x, n, y, ldy);
+}
+void matmul_f16_reference(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                          float* y, std::size_t ldy) noexcept {
+  matmul_f16_portable(w, rows, cols, x, n, y, ldy);
 }
 
 void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept { pack_panels(w, rows, cols, out); }

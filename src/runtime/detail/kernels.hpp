@@ -7,7 +7,7 @@
 // attribute and chosen when getauxval(AT_HWCAP) has HWCAP_ASIMDDP).
 //
 // All kernels compute Y[t * ldy + r] = dot(W row r, X row t) for r < rows, t < n; W is
-// row-major [rows x cols], X is [n x cols] contiguous.
+// row-major [rows x cols] or repacked (pack_f32, pack_f16, pack_i8), X is [n x cols] contiguous.
 
 #include <cstddef>
 #include <cstdint>
@@ -28,10 +28,7 @@ struct QuantizedRows {
 
 struct Kernels {
   const char* name;
-  void (*matmul_f32)(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n, float* y,
-                     std::size_t ldy);
-  void (*matmul_f16)(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
-                     float* y, std::size_t ldy);
+  /// Row-major int8 product, for the sets without a packed one (matmul_packed_i8 nullptr).
   /// w_scale[r] per weight row; w_sum[r] = sum of row r's q (used by the VNNI path).
   void (*matmul_i8)(const std::int8_t* w, const float* w_scale, const std::int32_t* w_sum, std::size_t rows,
                     std::size_t cols, QuantizedRows x, std::size_t n, float* y, std::size_t ldy);
@@ -39,8 +36,9 @@ struct Kernels {
   /// range reduction by ln 2 and a degree-6 polynomial; tanh(x) = 2 sigmoid(2x) - 1).
   void (*sigmoid)(float* x, std::size_t n);
   void (*tanh)(float* x, std::size_t n);
-  /// Same product as matmul_f32 on weights repacked by pack_f32 (panels of 16 rows, column by
-  /// column: no horizontal sums, and each x value is broadcast once per panel).
+  /// matmul_f32_reference's product on weights repacked by pack_f32 (panels of 16 rows, column by
+  /// column: no horizontal sums, and each x value is broadcast once per panel). The runtime packs
+  /// every f32 and f16 matrix it multiplies, so these are its only f32/f16 products.
   void (*matmul_packed_f32)(const float* packed, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
                             float* y, std::size_t ldy);
   /// Same product as matmul_i8 on weights repacked by pack_i8; nullptr when this instruction set
@@ -48,7 +46,7 @@ struct Kernels {
   void (*matmul_packed_i8)(const std::int8_t* packed, const float* w_scale, const std::int32_t* w_sum,
                            std::size_t rows, std::size_t cols, QuantizedRows x, std::size_t n, float* y,
                            std::size_t ldy);
-  /// matmul_f16 on weights repacked by pack_f16 (same panel layout as pack_f32).
+  /// matmul_f16_reference's product on weights repacked by pack_f16 (same panel layout as pack_f32).
   void (*matmul_packed_f16)(const std::uint16_t* packed, std::size_t rows, std::size_t cols, const float* x,
                             std::size_t n, float* y, std::size_t ldy);
 };
@@ -68,6 +66,13 @@ inline std::size_t packed_size_f32(std::size_t rows, std::size_t cols) {
 /// out[p][c][r] = w[16 p + r][c] (zero for padded rows).
 void pack_f32(const float* w, std::size_t rows, std::size_t cols, float* out) noexcept;
 void pack_f16(const std::uint16_t* w, std::size_t rows, std::size_t cols, std::uint16_t* out) noexcept;
+
+/// Row-major f32 and f16 (IEEE half) products in plain loops: the references the packed kernels
+/// are tested against (within float rounding: they sum in another order).
+void matmul_f32_reference(const float* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                          float* y, std::size_t ldy) noexcept;
+void matmul_f16_reference(const std::uint16_t* w, std::size_t rows, std::size_t cols, const float* x, std::size_t n,
+                          float* y, std::size_t ldy) noexcept;
 
 bool isa_supported(Isa isa) noexcept;
 /// Kernels of one instruction set (must be supported).
