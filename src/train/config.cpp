@@ -283,7 +283,7 @@ void add_optimizer_settings(std::vector<Setting<C>>& t) {
                                        .group = kTraining,
                                        .help = "peak learning rate",
                                        .min = 0,
-                                       .min_exclusive = true}));
+                                       .note = "0 = by task: 0.005 for classifiers, 0.002 for taggers"}));
   t.push_back(real(&C::momentum, {.key = "momentum",
                                   .group = kTraining,
                                   .help = "sgd: momentum",
@@ -461,6 +461,11 @@ void validate(const TrainConfig& c) {
 bool resolve_char_encoder(const TrainConfig& c, data::Task task) {
   if (c.char_encoder) return *c.char_encoder;
   return task == data::Task::kTag;
+}
+
+double resolve_learning_rate(const TrainConfig& c, data::Task task) {
+  if (c.learning_rate > 0.0) return c.learning_rate;
+  return task == data::Task::kTag ? kTaggerLearningRate : kClassifierLearningRate;
 }
 
 }  // namespace gyre::train

@@ -354,6 +354,7 @@ PreparedData prepare_data(TrainConfig& config, ProgressLine& progress, const tex
   }
 
   config.char_encoder = resolve_char_encoder(config, out.task);
+  config.learning_rate = resolve_learning_rate(config, out.task);
   const ExampleStream train_split = read_run_split(config, false, out.tag_scheme);
   std::size_t train_tokens = 0;
   out.vocab = resolve_vocab(config, out.task, train_split, saved_vocab, &train_tokens);

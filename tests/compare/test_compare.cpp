@@ -210,7 +210,7 @@ TEST_CASE("compare trains every cell x size x seed and summarises them in compar
     };
     auto other = spec;
     other.base.learning_rate = 0.01;
-    check(other, "--learning-rate 0.002 -> 0.01");
+    check(other, "--learning-rate 0 -> 0.01");  // 0: the rate by task
     // The same settings again: reused, nothing retrained.
     REQUIRE(gyre::train::run_compare(other).runs[0].reused);
     // A changed training file (same path, one more line): retrained.
