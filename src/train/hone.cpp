@@ -165,9 +165,11 @@ json sample_settings(const std::vector<HoneDimension>& space, Rng& rng) {
 namespace {
 
 constexpr const char* kStateFormat = "gyre-hone-state";
-// Version 2: a rung's score is the saved model's dev score (network + n-gram part); version 1
-// ranked on the network alone, so its rungs cannot be mixed with new ones.
-constexpr int kStateVersion = 2;
+// Version 3: trial 1 is the default settings, trained to the full budget, and the sampled trials
+// are numbered from 2; version 2 numbered sampled trials from 1. Version 2: a rung's score is the
+// saved model's dev score (network + n-gram part); version 1 ranked on the network alone. Rungs of
+// an older version cannot be mixed with new ones.
+constexpr int kStateVersion = 3;
 
 /// What one rung of one trial produced.
 struct RungOutcome {
@@ -302,10 +304,22 @@ class Search {
 };
 
 std::optional<PlannedBracket> Search::plan(std::size_t k) const {
-  // Iterations repeat the brackets s_max..0 with new configurations until the trial budget is
-  // spent; the last bracket is shrunk to the trials left.
+  // First the default settings, alone, trained to R epochs (trial 1, iteration 0): the search then
+  // never returns settings that score worse on dev than the user's defaults, whatever the
+  // sampling and the halving (early rungs of a few epochs can cut a setting that needs more; a
+  // tuner starting from the default configuration as its incumbent: Hutter, Hoos & Leyton-Brown
+  // 2011, SMAC). It counts as one trial of --trials.
+  if (k == 0) {
+    PlannedBracket p;
+    p.bracket.rungs = {HoneRung{1, spec_.max_epochs}};
+    p.first_trial = 1;
+    return p;
+  }
+  // Then iterations repeat the brackets s_max..0 with new configurations until the trial budget
+  // is spent; the last bracket is shrunk to the trials left.
+  --k;
   const std::size_t per_iteration = brackets_.size();
-  int first = 1;
+  int first = 2;
   for (std::size_t i = 0; i <= k; ++i) {
     const HoneBracket& b = brackets_[i % per_iteration];
     int n = b.rungs[0].trials;
@@ -332,7 +346,14 @@ HoneTrial& Search::trial(int id) {
   while (static_cast<int>(trials_.size()) < id) {
     HoneTrial t;
     t.id = static_cast<int>(trials_.size()) + 1;
-    t.settings = sample_settings(spec_.space, sampler_);
+    if (t.id == 1) {  // the defaults: the base config's values of the searched keys
+      const json base = config_to_json(spec_.base);
+      t.settings = json::object();
+      for (const auto& d : spec_.space) t.settings[d.key] = base.at(d.key);
+      t.defaults = true;
+    } else {
+      t.settings = sample_settings(spec_.space, sampler_);
+    }
     trials_.push_back(std::move(t));
   }
   return trials_[static_cast<std::size_t>(id - 1)];
@@ -794,6 +815,7 @@ json HoneResult::to_json(const HoneSpec& spec) const {
                            {"iteration", t.iteration},
                            {"bracket", t.bracket},
                            {"settings", t.settings},
+                           {"defaults", t.defaults},
                            {"epochs", t.epochs},
                            {"rung", t.rung},
                            {"dev_" + metric, t.score},
@@ -848,7 +870,7 @@ std::string hone_table(const HoneResult& result, std::size_t rows) {
                    (result.best && static_cast<std::size_t>(*result.best) == order[k] ? "*" : ""))
                       .c_str(),
                   t.bracket, (std::to_string(t.epochs) + (t.stopped_early ? "e" : "")).c_str(), t.score,
-                  t.network_score, settings_text(t.settings).c_str());
+                  t.network_score, ((t.defaults ? "(defaults) " : "") + settings_text(t.settings)).c_str());
     out << buf;
   }
   if (order.size() > rows) out << "(" << order.size() - rows << " more in hone.json)\n";

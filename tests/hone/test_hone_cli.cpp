@@ -87,8 +87,23 @@ TEST_CASE("hone cli: searches on the demo corpus, writes a usable best run, repe
     CHECK_FALSE(t.at("settings").contains("hidden_size"));
     CHECK(t.at("settings").contains("learning_rate"));
   }
-  CHECK(at_three == 1);  // successive halving: one of five promoted (floor(5/3) = 1)
+  CHECK(at_three == 1);  // successive halving: one of the four sampled promoted (floor(4/3) = 1)
   CHECK(at_cap == 1);
+  // Trial 1 is the defaults of the searched settings (learning rate 0 = by task, char encoder
+  // auto), trained to the epoch cap (or an early stop) in a bracket of its own, so the winner
+  // scores at least what they score on dev.
+  const json& first = trials.at(0);
+  CHECK(first.at("id") == 1);
+  CHECK(first.at("defaults") == true);
+  CHECK(first.at("settings").at("learning_rate") == 0.0);
+  CHECK(first.at("settings").at("char_encoder") == "auto");
+  CHECK(first.at("settings").at("pooling") == "mean");
+  CHECK(first.at("rung") == 0);
+  CHECK((first.at("epochs") == 9 || first.at("stopped_early") == true));
+  for (const auto& t : trials) CHECK(t.at("defaults") == (t.at("id") == 1));
+  CHECK(json::parse(gyre::read_file(dir / "a" / "hone.json")).at("best").at("dev_accuracy").get<double>() >=
+        first.at("dev_accuracy").get<double>());
+  CHECK(r.out.find("(defaults)") != std::string::npos);
   // The best run is an ordinary finished run directory.
   const fs::path best = dir / "a" / "best";
   REQUIRE(fs::exists(best / "metrics.json"));

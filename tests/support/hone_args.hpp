@@ -9,8 +9,9 @@
 namespace gyre::test {
 
 /// Small and quick, on the demo corpus `corpus` (corpora/demo/<corpus>.{train,dev}.tsv): tiny
-/// model, 5 settings, epoch cap 9 (bracket s = 2 cut to 5 trials: 5 trials at 1 epoch, 1 at 3,
-/// 1 at 9), seed 3, one thread, output in `out`. The seed's value is `args[args.size() - 5]`.
+/// model, 5 settings, epoch cap 9 (trial 1, the defaults, to 9 epochs; then bracket s = 2 cut to
+/// the 4 trials left: 4 at 1 epoch, 1 at 3, 1 at 9), seed 3, one thread, output in `out`. The
+/// seed's value is `args[args.size() - 5]`.
 inline std::vector<std::string> hone_args(const std::filesystem::path& out,
                                           const std::string& corpus = "sentiment") {
   const std::string demo = std::string(GYRE_SOURCE_DIR) + "/corpora/demo/";

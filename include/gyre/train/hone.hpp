@@ -9,6 +9,9 @@
 // (one in eta trials survives a rung). Trials are paused at rung ends, not retrained: a promoted
 // trial continues from its checkpoint, so its later rungs cost only the extra epochs.
 //
+// Trial 1 is the user's settings as given (the defaults of the searched ones), trained to R
+// epochs before any sampled trial, so the winner never scores below them on dev.
+//
 // Every trial is an ordinary run directory (trainer.hpp) trained with the user's settings plus the
 // sampled ones, chosen on dev only. Layout of the output directory:
 //   OUT/trials/t<id>/  one run directory per trial (paused ones hold resume.bin)
@@ -103,7 +106,8 @@ struct HoneTrial {
   int id = 0;  // 1-based, in sampling order
   int iteration = 0;
   int bracket = 0;          // s
-  nlohmann::json settings;  // the sampled keys
+  nlohmann::json settings;  // the sampled keys (trial 1: the defaults' values of them)
+  bool defaults = false;    // trial 1: the settings the search starts from, trained to R epochs
   int epochs = 0;           // epochs trained so far
   int rung = -1;            // last finished rung (-1: none)
   /// Dev metric of the model the trial saves (or, paused at a rung, would save if it ended
