@@ -1,7 +1,6 @@
 #include "gyre/train/compare.hpp"
 
 #include <algorithm>
-#include <charconv>
 #include <cctype>
 #include <cerrno>
 #include <chrono>
@@ -114,15 +113,7 @@ json data_fingerprints(const CompareSpec& spec) {
 
 std::string short_value(const json& v) {
   if (v.is_null()) return "none";
-  std::string s;
-  if (v.is_string()) {
-    s = v.get<std::string>();
-  } else if (v.is_number_float()) {  // as typed: "0" and "0.002", not JSON's "0.0"
-    char buf[32];
-    s.assign(buf, std::to_chars(buf, buf + sizeof buf, v.get<double>()).ptr);
-  } else {
-    s = v.dump();
-  }
+  std::string s = value_text(v);
   if (s.size() > 40) s = s.substr(0, 37) + "...";
   return s;
 }

@@ -218,7 +218,7 @@ std::string settings_text(const json& settings) {
   std::string out;
   for (const auto& [k, v] : settings.items()) {
     if (!out.empty()) out += " ";
-    out += k + "=" + (v.is_string() ? v.get<std::string>() : v.dump());
+    out += k + "=" + value_text(v);
   }
   return out;
 }

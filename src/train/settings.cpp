@@ -164,6 +164,15 @@ json parse_item(const SettingInfo& s, SettingType type, std::string_view text) {
 
 }  // namespace
 
+std::string value_text(const json& value) {
+  if (value.is_string()) return value.get<std::string>();
+  if (value.is_number_float()) {
+    char buf[32];
+    return {buf, std::to_chars(buf, buf + sizeof buf, value.get<double>()).ptr};
+  }
+  return value.dump();
+}
+
 std::string dashed(std::string_view key) {
   std::string out(key);
   for (char& c : out)

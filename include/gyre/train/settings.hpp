@@ -86,6 +86,10 @@ nlohmann::json parse_setting_text(const SettingInfo& s, std::string_view text);
 /// "hidden_size" -> "hidden-size".
 std::string dashed(std::string_view key);
 
+/// A setting's JSON value as a user types it: strings bare, reals in the shortest form that reads
+/// back the same ("0", "0.002", not JSON's "0.0"), anything else as JSON.
+std::string value_text(const nlohmann::json& value);
+
 /// Reads a JSON settings file: refuses invalid JSON, a top level that is not an object and a key
 /// given twice in one object (ParseError with the file and line).
 nlohmann::json read_settings_file(const std::string& path);
