@@ -85,8 +85,8 @@ struct TrainConfig {
   // Optimisation
   optim::OptimizerKind optimizer = optim::OptimizerKind::kAdam;
   double learning_rate = 0.0;  // 0 = by task (resolve_learning_rate)
-  double momentum = 0.9;  // sgd
-  bool nesterov = false;  // sgd
+  double momentum = 0.9;       // sgd
+  bool nesterov = false;       // sgd
   double weight_decay = 0.0;
   optim::ScheduleKind schedule = optim::ScheduleKind::kConstant;
   int warmup_steps = 0;
