@@ -375,8 +375,11 @@ void Search::load_state() {
     throw FormatError(path.string(),
                       "hone state version " + std::to_string(j.value("version", 0)) +
                           ", this gyre reads version " + std::to_string(kStateVersion) +
-                          " (version 1 ranked trials on the network alone, without the n-gram part); "
-                          "start the search again with a new --out");
+                          (j.value("version", 0) == 1
+                               ? " (version 1 ranked trials on the network alone, without the n-gram part)"
+                               : " (since version 3 trial 1 is the default settings, so the sampled trials "
+                                 "are numbered differently)") +
+                          "; start the search again with a new --out");
   if (j.at("search") != search_json())
     throw ConfigError("out", spec_.out.string() +
                                  " holds a search with other settings (data, fixed settings, search space, "

@@ -211,6 +211,15 @@ TEST_CASE("hone cli: bad usage exits 2 with a message", "[hone][cli]") {
   CHECK(old.exit_code == 2);
   CHECK(old.err.find("version 1") != std::string::npos);
   CHECK(old.err.find("new --out") != std::string::npos);
+  // Nor one saved before trial 1 became the default settings (version 2): its trial numbers differ.
+  fs::create_directories(dir / "v2");
+  gyre::write_file_atomic(dir / "v2" / "hone-state.json", R"({"format": "gyre-hone-state", "version": 2})");
+  const auto v2 = gyre::test::run_cli(dir, {"hone", "--train", kDemo + "sentiment.train.tsv", "--trials", "3",
+                                            "--out", (dir / "v2").string()});
+  CHECK(v2.exit_code == 2);
+  CHECK(v2.err.find("version 2") != std::string::npos);
+  CHECK(v2.err.find("trial 1 is the default settings") != std::string::npos);
+  CHECK(v2.err.find("new --out") != std::string::npos);
 }
 
 TEST_CASE("hone cli: a tagger continues across rungs whatever pooling the search gives it",
