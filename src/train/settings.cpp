@@ -166,10 +166,7 @@ json parse_item(const SettingInfo& s, SettingType type, std::string_view text) {
 
 std::string value_text(const json& value) {
   if (value.is_string()) return value.get<std::string>();
-  if (value.is_number_float()) {
-    char buf[32];
-    return {buf, std::to_chars(buf, buf + sizeof buf, value.get<double>()).ptr};
-  }
+  if (value.is_number_float()) return number_text(value.get<double>());
   return value.dump();
 }
 
