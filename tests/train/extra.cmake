@@ -17,3 +17,7 @@ if(TARGET gyre_cli)
   set_tests_properties("external: open datasets, linear baseline parity, default and tuned models vs sklearn" PROPERTIES
     LABELS external TIMEOUT 3000 SKIP_RETURN_CODE 77 RESOURCE_LOCK external_cpu)
 endif()
+
+# tools/datasets/convert.py: the split rule and brown-genre's rotations (python3 standard library).
+add_test(NAME "datasets: convert.py split rule and brown-genre rotations"
+  COMMAND /usr/bin/python3 ${PROJECT_SOURCE_DIR}/tests/tools/convert_rotations_test.py ${PROJECT_SOURCE_DIR})

