@@ -213,7 +213,7 @@ print(int(f['examples'] < f['train_examples'] or f['features'] < f['candidate_fe
   # 3. The tuned model: the settings `gyre hone` chose on dev, retrained (or the search itself with
   #    GYRE_EXTERNAL_HONE=1, on the first split; its choice is then retrained on the others); scored
   #    on test, it must beat the baseline.
-  run="$work/$ds-tuned"
+  run="$work/$ds-hone"
   settings=${tuned_settings[$ds]}
   if [ "${GYRE_EXTERNAL_HONE:-0}" = 1 ]; then
     rm -rf "$run" "$run.txt"
