@@ -132,12 +132,19 @@ score_dirs() {
   done
   awk -v r="$right" -v n="$total" 'BEGIN { printf "%.6f\n", r / n }'
 }
+# check_split DS FILE [KEY...]: exits 1 unless $work/data/DS/FILE has the SHA-256 the fixture records
+# under datasets.DS.KEY....split_sha256[FILE] (file names hold dots, so not through fx).
+check_split() {
+  local ds=$1 file=$2 want have
+  shift 2
+  want=$("$py" -c "import json,sys; d=json.load(open(sys.argv[1]))['datasets'][sys.argv[2]]
+for k in sys.argv[4:]: d=d[k]
+print(d['split_sha256'][sys.argv[3]])" "$fixture" "$ds" "$file" "$@")
+  have=$(sha256sum "$work/data/$ds/$file" | cut -d' ' -f1)
+  [ "$want" = "$have" ] || { echo "FAIL: $ds/$file differs from the split in $fixture"; exit 1; }
+}
 for ds in names brown-genre brown-names; do
-  for split in train dev test; do
-    want=$("$py" -c "import json; print(json.load(open('$fixture'))['datasets']['$ds']['split_sha256']['$split.tsv'])")
-    have=$(sha256sum "$work/data/$ds/$split.tsv" | cut -d' ' -f1)
-    [ "$want" = "$have" ] || { echo "FAIL: $ds/$split.tsv differs from the split in $fixture"; exit 1; }
-  done
+  for split in train dev test; do check_split "$ds" "$split.tsv"; done
   metric=$(fx "$ds.metric")
   # Dataset-specific settings a user would give: names is a character-level task.
   extra=()
@@ -152,12 +159,7 @@ for ds in names brown-genre brown-names; do
   if [ -n "${rotated[$ds]:-}" ]; then
     for r in $(seq 1 9); do
       dirs+=("$data/rotation-$r")
-      for split in train dev test; do
-        want=$("$py" -c "import json,sys; print(json.load(open(sys.argv[1]))['datasets'][sys.argv[2]]['rotations']['split_sha256'][sys.argv[3]])" \
-          "$fixture" "$ds" "rotation-$r/$split.tsv")
-        have=$(sha256sum "$data/rotation-$r/$split.tsv" | cut -d' ' -f1)
-        [ "$want" = "$have" ] || { echo "FAIL: $ds/rotation-$r/$split.tsv differs from the split in $fixture"; exit 1; }
-      done
+      for split in train dev test; do check_split "$ds" "rotation-$r/$split.tsv" rotations; done
     done
   fi
   # 1. gyre's baseline vs the sklearn mirror (same features). A tiny recurrent model: only the

@@ -61,6 +61,9 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import accuracy_score, f1_score
 from sklearn.naive_bayes import MultinomialNB
 
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import convert  # noqa: E402  (the split rule's rotation count)
+
 GRID = (1.0, 10.0, 100.0)
 
 
@@ -197,11 +200,6 @@ def classification(name, split_dir, mirror_tokens, mirror_order=2):
     return out
 
 
-def rows(path):
-    with open(path, encoding="utf-8") as f:
-        return sum(1 for line in f if line.strip()) - 1
-
-
 def rotations(split_dir, entry0, mirror):
     """brown-genre's 10-fold cross-validation by document (convert.py's rotations 0..9; rotation 0
     is split_dir itself, already scored in entry0): every candidate fitted on each rotation with C
@@ -210,12 +208,12 @@ def rotations(split_dir, entry0, mirror):
     candidate with the best pooled dev accuracy (first best); its pooled test accuracy is the bar."""
     per = []
     sha = {}
-    for r in range(10):
+    for r in range(convert.ROTATIONS):
         d = split_dir if r == 0 else os.path.join(split_dir, f"rotation-{r}")
         if not all(os.path.exists(os.path.join(d, f"{s}.tsv")) for s in ("train", "dev", "test")):
             sys.exit(f"{d}: rotation {r} of brown-genre is missing (tools/datasets/fetch_and_convert.sh writes it)")
         e = entry0 if r == 0 else classification(f"brown-genre rotation {r}", d, mirror)
-        n = {s: rows(os.path.join(d, f"{s}.tsv")) for s in ("dev", "test")}
+        n = {s: len(read_tsv(os.path.join(d, f"{s}.tsv"))[0]) for s in ("dev", "test")}
         per.append({"rotation": r, "examples": n,
                     "candidates": {k: {"model": v["model"], "dev_right": round(v["dev"]["accuracy"] * n["dev"]),
                                        "test_right": round(v["test"]["accuracy"] * n["test"])}
